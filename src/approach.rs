@@ -1,0 +1,664 @@
+//! Approach to equilibrium of a measured gas: Q, Q/K, direction, affinity, the
+//! equilibrium temperature and the temperature approach with its uncertainty.
+//!
+//! Conventions (DESIGN §3, DOMAIN §2):
+//! - Activity a_i = φ_i y_i P/p° with p° = 1 bar; Q = Π a_i^ν_i; ln K from a [`KModel`].
+//! - T_eq solves ln K(T_eq) = ln Q with φ held at the measured T and P.
+//! - Approach ΔT = T − T_eq for endothermic reactions and T_eq − T for exothermic
+//!   ones (sign of ΔH° at the measured T), so ΔT > 0 means "short of equilibrium"
+//!   either way. A negative ΔT (Q beyond K) is reported as it is and flagged, never clipped.
+//! - Affinity A = R T ln(K/Q) in J per mol of reaction as written.
+//! - Uncertainty: first-order propagation of the stated ± half-widths, combined in
+//!   quadrature: δln Q from the analyser (relative, per component), the steam ratio
+//!   and the pressure; δT_eq = δln Q / |d ln K/dT| at T_eq; the thermocouple goes one
+//!   for one into ΔT.
+//!
+//! The hot path ([`ReactorModel::evaluate`]) does not allocate: the caller owns a
+//! [`Scratch`] made once per reactor. Pure: no I/O, no clock.
+
+use thiserror::Error;
+
+use crate::equilibrium::{EosKind, EquilibriumError, peng_robinson_for};
+use crate::solve::{RootOutcome, newton_bracketed};
+use crate::thermo::ksource::KModel;
+use crate::thermo::peng_robinson::{PengRobinson, PrScratch};
+use crate::thermo::reaction::Reaction;
+use crate::thermo::species::{R_J_PER_MOL_K, SpeciesDb};
+
+/// Which way the reaction as written is favoured.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Direction {
+    /// Q < K: the forward reaction is favoured (the usual state of a working reactor).
+    Forward,
+    /// Q > K: the reverse is favoured ("beyond equilibrium" for a reactor run forward).
+    Reverse,
+    /// |ln(Q/K)| inside the configured band.
+    AtEquilibrium,
+}
+
+impl Direction {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::Forward => "forward",
+            Self::Reverse => "reverse",
+            Self::AtEquilibrium => "at_equilibrium",
+        }
+    }
+}
+
+/// Quality flags on a result (a bit set, so the hot path does not allocate).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct Flags(pub u32);
+
+impl Flags {
+    pub const TEMPERATURE_OUTSIDE_DATA: u32 = 1 << 0;
+    pub const EQUILIBRIUM_TEMPERATURE_OUTSIDE_DATA: u32 = 1 << 1;
+    pub const NO_EQUILIBRIUM_TEMPERATURE: u32 = 1 << 2;
+    pub const BEYOND_EQUILIBRIUM: u32 = 1 << 3;
+    pub const THERMONEUTRAL: u32 = 1 << 4;
+    pub const EOS_MULTIPLE_ROOTS: u32 = 1 << 5;
+    pub const EOS_FAILED: u32 = 1 << 6;
+    pub const ZERO_COMPONENT: u32 = 1 << 7;
+    pub const COMPOSITION_NORMALISED: u32 = 1 << 8;
+    pub const BAD_INPUT: u32 = 1 << 9;
+
+    const NAMES: [(u32, &'static str); 10] = [
+        (
+            Self::TEMPERATURE_OUTSIDE_DATA,
+            "temperature_outside_data_range",
+        ),
+        (
+            Self::EQUILIBRIUM_TEMPERATURE_OUTSIDE_DATA,
+            "equilibrium_temperature_outside_data_range",
+        ),
+        (
+            Self::NO_EQUILIBRIUM_TEMPERATURE,
+            "no_equilibrium_temperature",
+        ),
+        (Self::BEYOND_EQUILIBRIUM, "beyond_equilibrium"),
+        (Self::THERMONEUTRAL, "thermoneutral"),
+        (Self::EOS_MULTIPLE_ROOTS, "eos_multiple_roots"),
+        (Self::EOS_FAILED, "eos_failed"),
+        (Self::ZERO_COMPONENT, "zero_component"),
+        (Self::COMPOSITION_NORMALISED, "composition_normalised"),
+        (Self::BAD_INPUT, "bad_input"),
+    ];
+
+    pub fn set(&mut self, bit: u32) {
+        self.0 |= bit;
+    }
+    pub fn has(self, bit: u32) -> bool {
+        self.0 & bit != 0
+    }
+    pub fn is_empty(self) -> bool {
+        self.0 == 0
+    }
+    /// Flag names, for output.
+    pub fn names(self) -> impl Iterator<Item = &'static str> {
+        Self::NAMES
+            .into_iter()
+            .filter(move |(b, _)| self.0 & b != 0)
+            .map(|(_, n)| n)
+    }
+    /// What a plant engineer should look at for each flag.
+    pub fn explain(bit: u32) -> &'static str {
+        match bit {
+            Self::TEMPERATURE_OUTSIDE_DATA => {
+                "the measured temperature is outside the K source's data range"
+            }
+            Self::EQUILIBRIUM_TEMPERATURE_OUTSIDE_DATA => {
+                "the equilibrium temperature is outside the K source's data range"
+            }
+            Self::NO_EQUILIBRIUM_TEMPERATURE => "no temperature in range makes K equal Q",
+            Self::BEYOND_EQUILIBRIUM => {
+                "Q is beyond K: check the analyser, thermocouple, gauge/absolute pressure, steam ratio or fugacity model"
+            }
+            Self::THERMONEUTRAL => "ΔH° is nearly zero: a temperature approach means little",
+            Self::EOS_MULTIPLE_ROOTS => {
+                "the equation of state has two roots: a liquid may be present"
+            }
+            Self::EOS_FAILED => "the equation of state failed; ideal gas used",
+            Self::ZERO_COMPONENT => "a species of the reaction is zero, so Q is 0 or infinite",
+            Self::COMPOSITION_NORMALISED => "the analysis did not sum to 100 % and was normalised",
+            Self::BAD_INPUT => "an input is not a finite physical number",
+            _ => "",
+        }
+    }
+}
+
+/// ± half-widths of the measurements, combined in quadrature.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct Uncertainty {
+    /// Thermocouple, K.
+    pub temperature_k: f64,
+    /// Pressure transmitter, bar.
+    pub pressure_bar: f64,
+    /// Analyser, relative to each reading (0.02 = ±2 % of reading).
+    pub composition_rel: f64,
+    /// Steam-to-dry-gas ratio, relative (0.05 = ±5 %).
+    pub steam_ratio_rel: f64,
+}
+
+impl Uncertainty {
+    pub fn is_zero(&self) -> bool {
+        self.temperature_k == 0.0
+            && self.pressure_bar == 0.0
+            && self.composition_rel == 0.0
+            && self.steam_ratio_rel == 0.0
+    }
+}
+
+/// A measured gas in the model's species order.
+#[derive(Debug, Clone, Copy)]
+pub struct GasState<'a> {
+    pub temperature_k: f64,
+    /// Absolute.
+    pub pressure_bar: f64,
+    /// Wet mole fractions in [`ReactorModel::names`] order, summing to 1.
+    pub y: &'a [f64],
+    /// When water was rebuilt from a steam-to-dry-gas ratio: the ratio, and the index
+    /// of H2O in `y` (its uncertainty then comes from the ratio, not the analyser).
+    pub steam_ratio: Option<(f64, usize)>,
+}
+
+/// The approach figures for one reaction.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Approach {
+    pub ln_k: f64,
+    pub delta_g_j_per_mol: f64,
+    pub delta_h_j_per_mol: f64,
+    pub delta_s_j_per_mol_k: f64,
+    pub ln_q: f64,
+    pub q_over_k: f64,
+    pub affinity_j_per_mol: f64,
+    pub direction: Direction,
+    pub endothermic: bool,
+    pub equilibrium_temperature_k: Option<f64>,
+    pub approach_k: Option<f64>,
+    pub approach_uncertainty_k: Option<f64>,
+    pub ln_q_uncertainty: f64,
+    pub flags: Flags,
+}
+
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum ModelError {
+    #[error("species {species} of reaction `{reaction}` is missing from the composition")]
+    MissingSpecies { species: String, reaction: String },
+    #[error(transparent)]
+    Eos(#[from] EquilibriumError),
+    #[error("no reaction given")]
+    NoReaction,
+}
+
+/// One reaction of a reactor, with its stoichiometry over the reactor's gas species.
+#[derive(Debug, Clone)]
+pub struct ReactionTerm {
+    pub reaction: Reaction,
+    pub k: KModel,
+    /// ν per gas species (zero for species not in the reaction).
+    nu: Vec<f64>,
+    delta_nu: f64,
+}
+
+impl ReactionTerm {
+    pub fn nu(&self) -> &[f64] {
+        &self.nu
+    }
+}
+
+/// A reactor's gas and reactions, compiled once and evaluated per analysis.
+#[derive(Debug, Clone)]
+pub struct ReactorModel {
+    species: Vec<usize>,
+    names: Vec<String>,
+    reactions: Vec<ReactionTerm>,
+    eos: Option<PengRobinson>,
+    eos_kind: EosKind,
+    /// |ln(Q/K)| at or below this is "at equilibrium".
+    pub band_ln: f64,
+}
+
+/// Reusable working space for [`ReactorModel::evaluate`].
+#[derive(Debug, Clone, Default)]
+pub struct Scratch {
+    pub ln_phi: Vec<f64>,
+    pub z: f64,
+    pr: PrScratch,
+}
+
+/// Default equilibrium band: |ln(Q/K)| ≤ 0.01, i.e. Q within 1 % of K [common practice
+/// for analyser-grade data; configurable].
+pub const DEFAULT_BAND_LN: f64 = 0.01;
+
+impl ReactorModel {
+    /// `gas_species`: every species the analysis reports (database indices); each
+    /// reaction's species must be among them.
+    pub fn new(
+        db: &SpeciesDb,
+        reactions: Vec<(Reaction, KModel)>,
+        gas_species: &[usize],
+        eos: EosKind,
+        kij: Option<&[f64]>,
+    ) -> Result<Self, ModelError> {
+        if reactions.is_empty() {
+            return Err(ModelError::NoReaction);
+        }
+        let mut terms = Vec::with_capacity(reactions.len());
+        for (r, k) in reactions {
+            let mut nu = vec![0.0; gas_species.len()];
+            for (&s, &n) in r.species.iter().zip(&r.nu) {
+                let pos = gas_species.iter().position(|&g| g == s).ok_or_else(|| {
+                    ModelError::MissingSpecies {
+                        species: db.get(s).name.clone(),
+                        reaction: r.text.clone(),
+                    }
+                })?;
+                nu[pos] = n;
+            }
+            let delta_nu = r.delta_nu();
+            terms.push(ReactionTerm {
+                reaction: r,
+                k,
+                nu,
+                delta_nu,
+            });
+        }
+        let eos_model = match eos {
+            EosKind::Ideal => None,
+            EosKind::PengRobinson => Some(peng_robinson_for(db, gas_species, kij)?),
+        };
+        Ok(Self {
+            species: gas_species.to_vec(),
+            names: gas_species
+                .iter()
+                .map(|&s| db.get(s).name.clone())
+                .collect(),
+            reactions: terms,
+            eos: eos_model,
+            eos_kind: eos,
+            band_ln: DEFAULT_BAND_LN,
+        })
+    }
+
+    pub fn names(&self) -> &[String] {
+        &self.names
+    }
+    pub fn species(&self) -> &[usize] {
+        &self.species
+    }
+    pub fn reactions(&self) -> &[ReactionTerm] {
+        &self.reactions
+    }
+    pub fn eos_kind(&self) -> EosKind {
+        self.eos_kind
+    }
+
+    pub fn scratch(&self) -> Scratch {
+        Scratch {
+            ln_phi: vec![0.0; self.species.len()],
+            z: 1.0,
+            pr: self.eos.as_ref().map(|e| e.scratch()).unwrap_or_default(),
+        }
+    }
+
+    /// Fugacity coefficients at the measured state into `scratch.ln_phi`; returns flags.
+    pub fn fugacity(&self, state: &GasState, scratch: &mut Scratch) -> Flags {
+        let mut flags = Flags::default();
+        if scratch.ln_phi.len() != self.species.len() {
+            *scratch = self.scratch();
+        }
+        scratch.ln_phi.iter_mut().for_each(|x| *x = 0.0);
+        scratch.z = 1.0;
+        if let Some(eos) = &self.eos {
+            match eos.ln_phi(
+                state.temperature_k,
+                state.pressure_bar,
+                state.y,
+                &mut scratch.ln_phi,
+                &mut scratch.pr,
+            ) {
+                Ok(st) => {
+                    scratch.z = st.z;
+                    if st.multiple_roots {
+                        flags.set(Flags::EOS_MULTIPLE_ROOTS);
+                    }
+                }
+                Err(_) => {
+                    scratch.ln_phi.iter_mut().for_each(|x| *x = 0.0);
+                    flags.set(Flags::EOS_FAILED);
+                }
+            }
+        }
+        flags
+    }
+
+    /// Evaluates reaction `r` for `state`, with `scratch.ln_phi` already filled by
+    /// [`Self::fugacity`] for this state. No allocation.
+    pub fn evaluate(
+        &self,
+        r: usize,
+        state: &GasState,
+        scratch: &Scratch,
+        unc: &Uncertainty,
+    ) -> Approach {
+        let term = &self.reactions[r];
+        let t = state.temperature_k;
+        let p = state.pressure_bar;
+        let mut flags = Flags::default();
+        let props = term.k.properties(t);
+        let ln_p = p.ln();
+        let mut ln_q = 0.0;
+        let mut var_ln_q = 0.0;
+        let water = state.steam_ratio.map(|(_, i)| i);
+        let mut nu_dry = 0.0;
+        for (i, &nu) in term.nu.iter().enumerate() {
+            if nu == 0.0 {
+                continue;
+            }
+            let y = state.y[i];
+            if y <= 0.0 {
+                flags.set(Flags::ZERO_COMPONENT);
+            }
+            ln_q += nu * (scratch.ln_phi[i] + y.ln() + ln_p);
+            if Some(i) != water {
+                nu_dry += nu;
+                var_ln_q += (nu * unc.composition_rel).powi(2);
+            }
+        }
+        if let Some((s, w)) = state.steam_ratio {
+            // d ln Q / d ln S = ν_w/(1+S) − S/(1+S) Σ_dry ν_i (DOMAIN §5 basis algebra).
+            let d = term.nu[w] / (1.0 + s) - s / (1.0 + s) * nu_dry;
+            var_ln_q += (d * unc.steam_ratio_rel).powi(2);
+        }
+        if p > 0.0 {
+            var_ln_q += (term.delta_nu * unc.pressure_bar / p).powi(2);
+        }
+        let ln_q_uncertainty = var_ln_q.sqrt();
+        let ln_k = props.ln_k;
+        let endothermic = props.delta_h_j_per_mol > 0.0;
+        let mut out = Approach {
+            ln_k,
+            delta_g_j_per_mol: props.delta_g_j_per_mol,
+            delta_h_j_per_mol: props.delta_h_j_per_mol,
+            delta_s_j_per_mol_k: props.delta_s_j_per_mol_k,
+            ln_q,
+            q_over_k: (ln_q - ln_k).exp(),
+            affinity_j_per_mol: R_J_PER_MOL_K * t * (ln_k - ln_q),
+            direction: Direction::AtEquilibrium,
+            endothermic,
+            equilibrium_temperature_k: None,
+            approach_k: None,
+            approach_uncertainty_k: None,
+            ln_q_uncertainty,
+            flags,
+        };
+        if !(t.is_finite() && t > 0.0 && p.is_finite() && p > 0.0)
+            || state.y.iter().any(|y| !y.is_finite())
+        {
+            out.flags.set(Flags::BAD_INPUT);
+            return out;
+        }
+        if !term.k.in_range(t) {
+            out.flags.set(Flags::TEMPERATURE_OUTSIDE_DATA);
+        }
+        if !ln_q.is_finite() {
+            out.flags.set(Flags::ZERO_COMPONENT);
+            return out;
+        }
+        let d = ln_q - ln_k;
+        out.direction = if d.abs() <= self.band_ln {
+            Direction::AtEquilibrium
+        } else if d < 0.0 {
+            Direction::Forward
+        } else {
+            out.flags.set(Flags::BEYOND_EQUILIBRIUM);
+            Direction::Reverse
+        };
+        // Thermoneutral: |ΔH°| below 1 kJ/mol makes T_eq meaningless [common practice threshold].
+        if props.delta_h_j_per_mol.abs() < 1000.0 {
+            out.flags.set(Flags::THERMONEUTRAL);
+            return out;
+        }
+        let (lo, hi) = term.k.search_range_k();
+        // Newton in u = 1/T: ln K is nearly linear in 1/T (van 't Hoff), so this
+        // converges in two or three steps from the measured temperature.
+        let f = |u: f64| {
+            let tt = 1.0 / u;
+            let (lk, slope) = term.k.ln_k_and_slope(tt);
+            (lk - ln_q, -slope * tt * tt)
+        };
+        match newton_bracketed(f, 1.0 / hi, 1.0 / lo, 1.0 / t, 1e-13 / t, 60) {
+            RootOutcome::Converged { x, .. } | RootOutcome::NotConverged { x, .. } => {
+                let t_eq = 1.0 / x;
+                out.equilibrium_temperature_k = Some(t_eq);
+                if !term.k.in_range(t_eq) {
+                    out.flags.set(Flags::EQUILIBRIUM_TEMPERATURE_OUTSIDE_DATA);
+                }
+                let dt = if endothermic { t - t_eq } else { t_eq - t };
+                out.approach_k = Some(dt);
+                let slope = term.k.d_ln_k_dt(t_eq).abs();
+                let u_teq = if slope > 0.0 {
+                    ln_q_uncertainty / slope
+                } else {
+                    f64::INFINITY
+                };
+                out.approach_uncertainty_k =
+                    Some((unc.temperature_k.powi(2) + u_teq.powi(2)).sqrt());
+            }
+            _ => out.flags.set(Flags::NO_EQUILIBRIUM_TEMPERATURE),
+        }
+        out
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::composition::{Basis, WaterSource, parse_components, to_wet};
+    use crate::thermo::ksource::KSourceId;
+    use crate::thermo::reaction::parse_reaction;
+    use crate::units::CompositionUnit;
+
+    /// Evaluates one reaction for an analysis: (approach, model species names, ln φ).
+    fn evaluate(
+        eq: &str,
+        source: KSourceId,
+        comp: &str,
+        basis: Basis,
+        water: Option<WaterSource>,
+        t: f64,
+        p: f64,
+        eos: EosKind,
+    ) -> (Approach, Vec<String>, Vec<f64>) {
+        let db = SpeciesDb::builtin();
+        let r = parse_reaction(eq, &db).unwrap();
+        let k = KModel::from_correlation(source, &r, &db).unwrap();
+        let c = parse_components(comp, CompositionUnit::Percent).unwrap();
+        let w = to_wet(&db, &c, basis, water, 0.02).unwrap();
+        let model = ReactorModel::new(&db, vec![(r, k)], &w.species, eos, None).unwrap();
+        let state = GasState {
+            temperature_k: t,
+            pressure_bar: p,
+            y: &w.y,
+            steam_ratio: w.steam_ratio.zip(w.added_water),
+        };
+        let mut s = model.scratch();
+        model.fugacity(&state, &mut s);
+        let a = model.evaluate(0, &state, &s, &Uncertainty::default());
+        (a, model.names().to_vec(), s.ln_phi.clone())
+    }
+
+    #[test]
+    fn reformer_worked_example() {
+        // DOMAIN §8 [derived]: gas at equilibrium at 796 °C, 30 bar abs, Xu–Froment K;
+        // measured exit 808 °C → methane approach 12.00 K, Q/K(808 °C) ≈ 0.757.
+        let (a, _, _) = evaluate(
+            "CH4 + H2O = CO + 3 H2",
+            KSourceId::XuFroment1989,
+            "CH4=6.9245,H2O=38.8563,CO=6.0324,CO2=6.0179,H2=42.1689",
+            Basis::Wet,
+            None,
+            808.0 + 273.15,
+            30.0,
+            EosKind::Ideal,
+        );
+        assert!((a.approach_k.unwrap() - 12.00).abs() < 0.01, "{a:?}");
+        assert!((a.q_over_k - 0.757).abs() < 0.001, "{a:?}");
+        assert!(a.endothermic && a.direction == Direction::Forward);
+        // The dry analysis plus S/D 0.63549 is the same gas.
+        let (b, _, _) = evaluate(
+            "CH4 + H2O = CO + 3 H2",
+            KSourceId::XuFroment1989,
+            "CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668",
+            Basis::Dry,
+            Some(WaterSource::SteamRatio(0.63549)),
+            808.0 + 273.15,
+            30.0,
+            EosKind::Ideal,
+        );
+        assert!((b.approach_k.unwrap() - 12.00).abs() < 0.01, "{b:?}");
+    }
+
+    #[test]
+    fn lts_worked_example_and_source_dependence() {
+        // DOMAIN §8 [derived]: LTS outlet dry mol% with S/D 0.36312: Q = 113.55; at 220 °C
+        // the approach is 12.00 K with Moe K and 8.66 K with Xu–Froment K; Q/K ≈ 0.802 (Moe).
+        let comp = "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921";
+        let run = |src| {
+            evaluate(
+                "CO + H2O = CO2 + H2",
+                src,
+                comp,
+                Basis::Dry,
+                Some(WaterSource::SteamRatio(0.36312)),
+                493.15,
+                30.0,
+                EosKind::Ideal,
+            )
+            .0
+        };
+        let moe = run(KSourceId::Moe1962);
+        assert!((moe.ln_q.exp() - 113.55).abs() < 0.01, "{moe:?}");
+        assert!((moe.approach_k.unwrap() - 12.00).abs() < 0.01, "{moe:?}");
+        assert!((moe.q_over_k - 0.802).abs() < 0.001);
+        assert!(!moe.endothermic);
+        let xf = run(KSourceId::XuFroment1989);
+        assert!((xf.approach_k.unwrap() - 8.66).abs() < 0.01, "{xf:?}");
+    }
+
+    #[test]
+    fn beyond_equilibrium_is_negative_and_flagged() {
+        // Same LTS gas read 30 K hotter than its equilibrium temperature would allow:
+        // Q > K at 520 K with Moe K (K(520) = exp(4577.8/520 − 4.33) = 86.0 < 113.55).
+        let (a, _, _) = evaluate(
+            "CO + H2O = CO2 + H2",
+            KSourceId::Moe1962,
+            "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921",
+            Basis::Dry,
+            Some(WaterSource::SteamRatio(0.36312)),
+            520.0,
+            30.0,
+            EosKind::Ideal,
+        );
+        assert!(a.approach_k.unwrap() < 0.0);
+        assert!(a.flags.has(Flags::BEYOND_EQUILIBRIUM));
+        assert_eq!(a.direction, Direction::Reverse);
+        assert!(a.affinity_j_per_mol < 0.0);
+    }
+
+    #[test]
+    fn peng_robinson_ammonia_loop() {
+        // DOMAIN §4: H2 0.60 / N2 0.20 / NH3 0.15 / Ar 0.03 / CH4 0.02 at 700 K, 150 bar:
+        // φ_H2 = 1.0356, φ_N2 = 1.0546, φ_NH3 = 0.9886 (thermo 0.6.1 PRMIX, default
+        // critical constants). Tolerance 1e-4 (values quoted to 4 decimals).
+        let (_, names, ln_phi) = evaluate(
+            "N2 + 3 H2 = 2 NH3",
+            KSourceId::SpeciesData,
+            "H2=60,N2=20,NH3=15,Ar=3,CH4=2",
+            Basis::Wet,
+            None,
+            700.0,
+            150.0,
+            EosKind::PengRobinson,
+        );
+        let phi = |n: &str| ln_phi[names.iter().position(|x| x == n).unwrap()].exp();
+        assert!((phi("H2") - 1.0356).abs() < 1e-4, "{}", phi("H2"));
+        assert!((phi("N2") - 1.0546).abs() < 1e-4, "{}", phi("N2"));
+        assert!((phi("NH3") - 0.9886).abs() < 1e-4, "{}", phi("NH3"));
+    }
+
+    #[test]
+    fn uncertainty_follows_the_sensitivity() {
+        // DOMAIN §2 [derived]: a 10 % error in Q moves T_eq by about 9 K at an HTS (400 °C).
+        // First order: δT = δln Q · R T²/|ΔH°|; with ±10 % on a single reactant's reading
+        // (ν = −1) δln Q = 0.1, so the approach ± is close to 9 K.
+        let db = SpeciesDb::builtin();
+        let r = parse_reaction("CO + H2O = CO2 + H2", &db).unwrap();
+        let k = KModel::from_correlation(KSourceId::Moe1962, &r, &db).unwrap();
+        let c =
+            parse_components("CO=3,H2O=35,CO2=12,H2=45,N2=5", CompositionUnit::Percent).unwrap();
+        let w = to_wet(&db, &c, Basis::Wet, None, 0.02).unwrap();
+        let model = ReactorModel::new(&db, vec![(r, k)], &w.species, EosKind::Ideal, None).unwrap();
+        let state = GasState {
+            temperature_k: 673.15,
+            pressure_bar: 30.0,
+            y: &w.y,
+            steam_ratio: None,
+        };
+        let mut s = model.scratch();
+        model.fugacity(&state, &mut s);
+        // ±5 % on each of four components: δln Q = 0.05·√4 = 0.1.
+        let unc = Uncertainty {
+            composition_rel: 0.05,
+            ..Default::default()
+        };
+        let a = model.evaluate(0, &state, &s, &unc);
+        assert!((a.ln_q_uncertainty - 0.1).abs() < 1e-12);
+        let u = a.approach_uncertainty_k.unwrap();
+        let t_eq = a.equilibrium_temperature_k.unwrap();
+        let expected = 0.1 / k_slope(&model, t_eq);
+        assert!((u - expected).abs() < 1e-9);
+        // DOMAIN §2 [derived]: a 10 % error in Q at 400 °C moves T_eq by about 9 K.
+        let at_400c = 1.1f64.ln() / k_slope(&model, 673.15);
+        assert!((at_400c - 9.0).abs() < 0.5, "{at_400c}");
+        // Thermocouple ± adds in quadrature.
+        let unc2 = Uncertainty {
+            temperature_k: 3.0,
+            composition_rel: 0.05,
+            ..Default::default()
+        };
+        let b = model.evaluate(0, &state, &s, &unc2);
+        assert!((b.approach_uncertainty_k.unwrap() - (u * u + 9.0).sqrt()).abs() < 1e-9);
+    }
+
+    fn k_slope(m: &ReactorModel, t: f64) -> f64 {
+        m.reactions()[0].k.d_ln_k_dt(t).abs()
+    }
+
+    #[test]
+    fn zero_component_is_flagged_not_a_crash() {
+        let db = SpeciesDb::builtin();
+        let r = parse_reaction("N2 + 3 H2 = 2 NH3", &db).unwrap();
+        let k = KModel::from_species(&r, &db).unwrap();
+        let c = parse_components("H2=75,N2=25,NH3=0", CompositionUnit::Percent).unwrap();
+        let w = to_wet(&db, &c, Basis::Wet, None, 0.02).unwrap();
+        let model = ReactorModel::new(&db, vec![(r, k)], &w.species, EosKind::Ideal, None).unwrap();
+        let st = GasState {
+            temperature_k: 700.0,
+            pressure_bar: 150.0,
+            y: &w.y,
+            steam_ratio: None,
+        };
+        let mut s = model.scratch();
+        model.fugacity(&st, &mut s);
+        let a = model.evaluate(0, &st, &s, &Uncertainty::default());
+        assert!(a.flags.has(Flags::ZERO_COMPONENT));
+        assert!(a.approach_k.is_none());
+        let nan = GasState {
+            temperature_k: f64::NAN,
+            ..st
+        };
+        let a = model.evaluate(0, &nan, &s, &Uncertainty::default());
+        assert!(a.flags.has(Flags::BAD_INPUT) && a.approach_k.is_none());
+    }
+}

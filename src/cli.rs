@@ -1,0 +1,670 @@
+//! The engineer's calculator: `eqwatch calc`, `eqwatch equilibrium`, `eqwatch species`.
+//!
+//! Turns command-line text into core calls and results into JSON (key names carry
+//! units, DESIGN §4) or a readable table. Errors are [`CliError::Input`] (exit 1,
+//! the message says what to fix) or [`CliError::Internal`] (exit 2).
+
+use serde_json::{Map, Value, json};
+use thiserror::Error;
+
+use crate::approach::{Approach, Flags, GasState, ReactorModel, Uncertainty};
+use crate::composition::{Basis, Component, WaterSource, parse_components, to_wet};
+use crate::equilibrium::{EosKind, EquilibriumSystem};
+use crate::thermo::ksource::{KModel, KSourceId};
+use crate::thermo::reaction::{Reaction, parse_reaction, unknown_hint};
+use crate::thermo::species::{ELEMENTS, SpeciesDb};
+use crate::units::{
+    CompositionUnit, parse_pressure_with_atmosphere, parse_temperature, split_quantity,
+};
+
+#[derive(Debug, Error)]
+pub enum CliError {
+    /// Bad input or configuration: exit 1.
+    #[error("{0}")]
+    Input(String),
+    /// A failure of ours: exit 2.
+    #[error("internal error: {0}")]
+    Internal(String),
+}
+
+impl CliError {
+    pub fn exit_code(&self) -> i32 {
+        match self {
+            Self::Input(_) => 1,
+            Self::Internal(_) => 2,
+        }
+    }
+}
+
+fn input<E: std::fmt::Display>(e: E) -> CliError {
+    CliError::Input(e.to_string())
+}
+
+/// Inputs of `eqwatch calc`, as text from the command line.
+#[derive(Debug, Clone, Default)]
+pub struct CalcInput {
+    pub reactions: Vec<String>,
+    pub k_sources: Vec<String>,
+    pub temperature: String,
+    pub pressure: Option<String>,
+    pub composition: Option<String>,
+    pub composition_unit: String,
+    pub basis: String,
+    pub steam_ratio: Option<f64>,
+    pub water: Option<String>,
+    pub eos: String,
+    pub uncertainty: Option<String>,
+    pub band_ln: Option<f64>,
+    pub sum_tolerance: String,
+    pub key: Option<String>,
+    pub sensitivity: bool,
+    pub atmosphere: Option<String>,
+}
+
+/// Parses `temperature=2K,pressure=0.5bar,composition=2%,steam-ratio=5%`.
+pub fn parse_uncertainty(text: &str) -> Result<Uncertainty, CliError> {
+    let mut u = Uncertainty::default();
+    for item in text.split(',').map(str::trim).filter(|s| !s.is_empty()) {
+        let (k, v) = item.split_once('=').ok_or_else(|| {
+            CliError::Input(format!(
+                "--uncertainty: `{item}` is not key=value; keys: temperature (K), pressure (bar), composition (% of reading), steam-ratio (% of value)"
+            ))
+        })?;
+        let (x, unit) = split_quantity("uncertainty", v).map_err(input)?;
+        if !(x.is_finite() && x >= 0.0) {
+            return Err(CliError::Input(format!(
+                "--uncertainty: {k} must be zero or more"
+            )));
+        }
+        let unit = unit.to_ascii_lowercase();
+        match (k.trim().to_ascii_lowercase().as_str(), unit.as_str()) {
+            ("temperature", "k" | "degc" | "°c" | "c") => u.temperature_k = x,
+            ("temperature", "degf" | "°f" | "f") => u.temperature_k = x * 5.0 / 9.0,
+            ("pressure", "bar" | "bara" | "barg") => u.pressure_bar = x,
+            ("pressure", "kpa" | "kpag") => u.pressure_bar = x / 100.0,
+            ("pressure", "mpa" | "mpag") => u.pressure_bar = x * 10.0,
+            ("pressure", "psi" | "psia" | "psig") => u.pressure_bar = x * 0.068_947_572_93,
+            ("composition", "%") => u.composition_rel = x / 100.0,
+            ("steam-ratio" | "steam_ratio", "%") => u.steam_ratio_rel = x / 100.0,
+            (key, unit) => {
+                return Err(CliError::Input(format!(
+                    "--uncertainty: `{key}` with unit `{unit}` is not understood; use temperature=2K, pressure=0.5bar, composition=2%, steam-ratio=5%"
+                )));
+            }
+        }
+    }
+    Ok(u)
+}
+
+fn parse_eos(s: &str) -> Result<EosKind, CliError> {
+    EosKind::parse(s)
+        .ok_or_else(|| CliError::Input(format!("--eos `{s}`: expected ideal or peng-robinson")))
+}
+
+/// Parses the reactions and builds their K models (`k_sources`: none = species data,
+/// one = for every reaction, else one per reaction).
+fn reactions_with_k(
+    db: &SpeciesDb,
+    reactions: &[String],
+    k_sources: &[String],
+) -> Result<Vec<(Reaction, KModel)>, CliError> {
+    if reactions.is_empty() {
+        return Err(CliError::Input(
+            "give a reaction, e.g. --reaction \"N2 + 3 H2 = 2 NH3\"".into(),
+        ));
+    }
+    if k_sources.len() > 1 && k_sources.len() != reactions.len() {
+        return Err(CliError::Input(format!(
+            "{} K sources for {} reactions: give one for all, or one per reaction",
+            k_sources.len(),
+            reactions.len()
+        )));
+    }
+    let mut out = Vec::with_capacity(reactions.len());
+    for (i, text) in reactions.iter().enumerate() {
+        let r = parse_reaction(text, db).map_err(input)?;
+        let id = match k_sources.get(i).or_else(|| k_sources.first()) {
+            Some(s) => KSourceId::parse(s).map_err(input)?,
+            None => KSourceId::SpeciesData,
+        };
+        let k = KModel::from_correlation(id, &r, db).map_err(input)?;
+        out.push((r, k));
+    }
+    Ok(out)
+}
+
+fn finite(x: f64) -> Value {
+    if x.is_finite() { json!(x) } else { Value::Null }
+}
+
+fn opt(x: Option<f64>) -> Value {
+    x.map_or(Value::Null, finite)
+}
+
+fn flag_list(flags: Flags) -> Value {
+    Value::Array(flags.names().map(|n| json!(n)).collect())
+}
+
+fn standard_keys(m: &mut Map<String, Value>, r: &Reaction, k: &KModel, a: &Approach) {
+    m.insert("reaction".into(), json!(r.canonical()));
+    m.insert("k_source".into(), json!(k.id().as_str()));
+    m.insert("k_source_citation".into(), json!(k.citation()));
+    m.insert("ln_k".into(), finite(a.ln_k));
+    m.insert("delta_g_j_per_mol".into(), finite(a.delta_g_j_per_mol));
+    m.insert("delta_h_j_per_mol".into(), finite(a.delta_h_j_per_mol));
+    m.insert("delta_s_j_per_mol_k".into(), finite(a.delta_s_j_per_mol_k));
+    m.insert("endothermic".into(), json!(a.endothermic));
+    let (lo, hi) = k.valid_range_k();
+    m.insert("k_valid_range_k".into(), json!([finite(lo), finite(hi)]));
+}
+
+fn approach_keys(m: &mut Map<String, Value>, a: &Approach) {
+    m.insert("ln_q".into(), finite(a.ln_q));
+    m.insert("q_over_k".into(), finite(a.q_over_k));
+    m.insert("affinity_j_per_mol".into(), finite(a.affinity_j_per_mol));
+    m.insert("direction".into(), json!(a.direction.as_str()));
+    m.insert(
+        "equilibrium_temperature_k".into(),
+        opt(a.equilibrium_temperature_k),
+    );
+    m.insert("approach_k".into(), opt(a.approach_k));
+    m.insert(
+        "approach_uncertainty_k".into(),
+        opt(a.approach_uncertainty_k),
+    );
+    m.insert("ln_q_uncertainty".into(), finite(a.ln_q_uncertainty));
+}
+
+/// `eqwatch calc`: returns the JSON object (the table view is made from it).
+pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
+    let t = parse_temperature(&inp.temperature)
+        .map_err(|e| CliError::Input(format!("--temperature: {e}")))?;
+    let rx = reactions_with_k(db, &inp.reactions, &inp.k_sources)?;
+    let eos = parse_eos(&inp.eos)?;
+    let atmosphere = match &inp.atmosphere {
+        None => crate::units::STANDARD_ATMOSPHERE_BAR,
+        Some(a) => parse_pressure_with_atmosphere(a, 0.0)
+            .map_err(|e| CliError::Input(format!("--atmosphere: {e}")))?,
+    };
+    let mut out = Map::new();
+    out.insert("temperature_k".into(), json!(t));
+    out.insert(
+        "advisory".into(),
+        json!("advisory figures only; not a safety function"),
+    );
+    let Some(comp_text) = &inp.composition else {
+        // K only.
+        let (r, k) = &rx[0];
+        let props = k.properties(t);
+        let a = Approach {
+            ln_k: props.ln_k,
+            delta_g_j_per_mol: props.delta_g_j_per_mol,
+            delta_h_j_per_mol: props.delta_h_j_per_mol,
+            delta_s_j_per_mol_k: props.delta_s_j_per_mol_k,
+            ln_q: f64::NAN,
+            q_over_k: f64::NAN,
+            affinity_j_per_mol: f64::NAN,
+            direction: crate::approach::Direction::AtEquilibrium,
+            endothermic: props.delta_h_j_per_mol > 0.0,
+            equilibrium_temperature_k: None,
+            approach_k: None,
+            approach_uncertainty_k: None,
+            ln_q_uncertainty: 0.0,
+            flags: Flags::default(),
+        };
+        standard_keys(&mut out, r, k, &a);
+        let mut flags = Flags::default();
+        if !k.in_range(t) {
+            flags.set(Flags::TEMPERATURE_OUTSIDE_DATA);
+        }
+        out.insert("flags".into(), flag_list(flags));
+        if let Some(p) = &inp.pressure {
+            let p = parse_pressure_with_atmosphere(p, atmosphere)
+                .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
+            out.insert("pressure_bar".into(), json!(p));
+        }
+        return Ok(Value::Object(out));
+    };
+    let p_text = inp.pressure.as_ref().ok_or_else(|| {
+        CliError::Input("a composition needs --pressure (e.g. \"30 barg\" or \"150 bara\")".into())
+    })?;
+    let p = parse_pressure_with_atmosphere(p_text, atmosphere)
+        .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
+    let unit = CompositionUnit::parse(&inp.composition_unit)
+        .map_err(|e| CliError::Input(format!("--composition-unit: {e}")))?;
+    let comps: Vec<Component> = parse_components(comp_text, unit).map_err(input)?;
+    let basis = Basis::parse(&inp.basis)
+        .ok_or_else(|| CliError::Input(format!("--basis `{}`: expected wet or dry", inp.basis)))?;
+    let water = match (inp.steam_ratio, &inp.water) {
+        (Some(_), Some(_)) => {
+            return Err(CliError::Input(
+                "give --steam-ratio or --water, not both".into(),
+            ));
+        }
+        (Some(s), None) => Some(WaterSource::SteamRatio(s)),
+        (None, Some(w)) => {
+            let c =
+                parse_components(&format!("H2O={w}"), CompositionUnit::Percent).map_err(input)?;
+            Some(WaterSource::WetFraction(
+                c[0].value * c[0].unit.fraction_per_unit(),
+            ))
+        }
+        (None, None) => None,
+    };
+    let (tol_v, tol_u) = split_quantity("--sum-tolerance", &inp.sum_tolerance).map_err(input)?;
+    let tol_unit = if tol_u.is_empty() {
+        CompositionUnit::Percent
+    } else {
+        CompositionUnit::parse(tol_u).map_err(input)?
+    };
+    let tol = tol_v * tol_unit.fraction_per_unit();
+    let wet = to_wet(db, &comps, basis, water, tol).map_err(input)?;
+    let unc = match &inp.uncertainty {
+        None => Uncertainty::default(),
+        Some(u) => parse_uncertainty(u)?,
+    };
+    let mut model = ReactorModel::new(db, rx.clone(), &wet.species, eos, None).map_err(input)?;
+    if let Some(b) = inp.band_ln {
+        if !(b.is_finite() && b >= 0.0) {
+            return Err(CliError::Input(
+                "--band must be zero or more (|ln(Q/K)|)".into(),
+            ));
+        }
+        model.band_ln = b;
+    }
+    let state = GasState {
+        temperature_k: t,
+        pressure_bar: p,
+        y: &wet.y,
+        steam_ratio: wet.steam_ratio.zip(wet.added_water),
+    };
+    let mut scratch = model.scratch();
+    let eos_flags = model.fugacity(&state, &mut scratch);
+    let mut results = Vec::new();
+    for i in 0..model.reactions().len() {
+        let mut a = model.evaluate(i, &state, &scratch, &unc);
+        a.flags.0 |= eos_flags.0;
+        if (wet.analysed_sum - 1.0).abs() > 1e-9 {
+            a.flags.set(Flags::COMPOSITION_NORMALISED);
+        }
+        if a.flags.has(Flags::ZERO_COMPONENT) {
+            let zero: Vec<&str> = model
+                .names()
+                .iter()
+                .zip(&wet.y)
+                .zip(model.reactions()[i].nu())
+                .filter(|((_, y), nu)| **y <= 0.0 && **nu != 0.0)
+                .map(|((n, _), _)| n.as_str())
+                .collect();
+            return Err(CliError::Input(format!(
+                "{} is zero in the composition, so Q is 0 or infinite; give a component below detection at its detection limit",
+                zero.join(", ")
+            )));
+        }
+        results.push(a);
+    }
+    let (r0, k0) = &rx[0];
+    standard_keys(&mut out, r0, k0, &results[0]);
+    approach_keys(&mut out, &results[0]);
+    out.insert("flags".into(), flag_list(results[0].flags));
+    out.insert("pressure_bar".into(), json!(p));
+    out.insert("eos".into(), json!(eos.as_str()));
+    out.insert("compressibility_factor".into(), finite(scratch.z));
+    out.insert("basis".into(), json!(basis.as_str()));
+    out.insert("steam_ratio".into(), opt(wet.steam_ratio));
+    let mut phi = Map::new();
+    let mut y_map = Map::new();
+    for ((n, lp), y) in model.names().iter().zip(&scratch.ln_phi).zip(&wet.y) {
+        phi.insert(n.clone(), finite(lp.exp()));
+        y_map.insert(n.clone(), finite(*y));
+    }
+    out.insert("fugacity_coefficients".into(), Value::Object(phi));
+    out.insert("mole_fractions".into(), Value::Object(y_map));
+    if rx.len() > 1 {
+        let others: Vec<Value> = rx[1..]
+            .iter()
+            .zip(&results[1..])
+            .map(|((r, k), a)| {
+                let mut m = Map::new();
+                standard_keys(&mut m, r, k, a);
+                approach_keys(&mut m, a);
+                m.insert("flags".into(), flag_list(a.flags));
+                Value::Object(m)
+            })
+            .collect();
+        out.insert("other_reactions".into(), Value::Array(others));
+    }
+    // Equilibrium at the measured T and P with the same element inventory.
+    let sys = EquilibriumSystem::from_reactions(db, &rx, &wet.species, eos, None).map_err(input)?;
+    let moles: Vec<f64> = sys
+        .species()
+        .iter()
+        .map(|s| {
+            wet.species
+                .iter()
+                .position(|x| x == s)
+                .map_or(0.0, |i| wet.y[i])
+        })
+        .collect();
+    let eq = sys.solve(db, t, p, &moles);
+    out.insert("equilibrium_converged".into(), json!(eq.converged));
+    if !eq.converged {
+        out.insert("equilibrium_reason".into(), json!(eq.reason));
+    }
+    let mut eq_map = Map::new();
+    for (n, y) in sys.names().iter().zip(&eq.mole_fractions) {
+        eq_map.insert(n.clone(), finite(*y));
+    }
+    out.insert("equilibrium_mole_fractions".into(), Value::Object(eq_map));
+    let key = match &inp.key {
+        Some(k) => {
+            let idx = db.index_of(k).ok_or_else(|| {
+                CliError::Input(format!(
+                    "--key: unknown species `{k}`{}",
+                    unknown_hint(db, k)
+                ))
+            })?;
+            if !r0.species.contains(&idx) {
+                return Err(CliError::Input(format!(
+                    "--key {k} is not a species of `{}`",
+                    r0.canonical()
+                )));
+            }
+            idx
+        }
+        // Default key component: the first reactant as written (CH4 at a reformer, CO at a shift).
+        None => r0.species[0],
+    };
+    let key_name = db.get(key).name.clone();
+    let measured = wet.species.iter().position(|s| *s == key).map(|i| wet.y[i]);
+    let k_eq_pos = sys.species().iter().position(|s| *s == key);
+    let equilibrium = k_eq_pos.map(|i| eq.mole_fractions[i]);
+    out.insert("key_component".into(), json!(key_name));
+    out.insert("key_measured_mole_fraction".into(), opt(measured));
+    out.insert("key_equilibrium_mole_fraction".into(), opt(equilibrium));
+    let water_pos = sys.names().iter().position(|n| n == "H2O");
+    if let (Some(w), Some(i)) = (water_pos, k_eq_pos) {
+        let dry = |y: &[f64]| y[i] / (1.0 - y[w]);
+        out.insert(
+            "key_equilibrium_dry_mole_fraction".into(),
+            finite(dry(&eq.mole_fractions)),
+        );
+        if let (Some(m), Some(wm)) = (
+            measured,
+            wet.species.iter().position(|s| *s == sys.species()[w]),
+        ) {
+            out.insert(
+                "key_measured_dry_mole_fraction".into(),
+                finite(m / (1.0 - wet.y[wm])),
+            );
+        }
+    }
+    if inp.sensitivity && eq.converged {
+        let key_at = |tt: f64, pp: f64, mm: &[f64]| -> Value {
+            let r = sys.solve(db, tt, pp, mm);
+            if r.converged {
+                opt(k_eq_pos.map(|i| r.mole_fractions[i]))
+            } else {
+                Value::Null
+            }
+        };
+        let mut s = Map::new();
+        s.insert("key_component".into(), json!(key_name));
+        s.insert("base".into(), opt(equilibrium));
+        s.insert("temperature_minus_5_k".into(), key_at(t - 5.0, p, &moles));
+        s.insert("temperature_plus_5_k".into(), key_at(t + 5.0, p, &moles));
+        s.insert("pressure_plus_10_bar".into(), key_at(t, p + 10.0, &moles));
+        if let Some(w) = water_pos {
+            // 0.1 mol more steam per mol of dry gas.
+            let dry: f64 = moles
+                .iter()
+                .enumerate()
+                .filter(|(i, _)| *i != w)
+                .map(|(_, m)| m)
+                .sum();
+            let mut more = moles.clone();
+            more[w] += 0.1 * dry;
+            let v = key_at(t, p, &more);
+            // Per mol of the original gas, then as a fraction of the new total.
+            s.insert("steam_ratio_plus_0_1".into(), v);
+        }
+        s.insert("basis".into(), json!("wet mole fraction at equilibrium"));
+        out.insert("sensitivity".into(), Value::Object(s));
+    }
+    Ok(Value::Object(out))
+}
+
+/// Inputs of `eqwatch equilibrium`.
+#[derive(Debug, Clone, Default)]
+pub struct EquilibriumInput {
+    pub species: String,
+    pub feed: String,
+    pub temperature: String,
+    pub pressure: String,
+    pub inert: Option<String>,
+    pub eos: String,
+    pub reactions: Vec<String>,
+    pub k_sources: Vec<String>,
+}
+
+fn species_list(db: &SpeciesDb, text: &str, what: &str) -> Result<Vec<usize>, CliError> {
+    let mut out = Vec::new();
+    for n in text.split(',').map(str::trim).filter(|s| !s.is_empty()) {
+        let i = db.index_of(n).ok_or_else(|| {
+            CliError::Input(format!(
+                "{what}: unknown species `{n}`{}",
+                unknown_hint(db, n)
+            ))
+        })?;
+        if out.contains(&i) {
+            return Err(CliError::Input(format!("{what}: {n} is listed twice")));
+        }
+        out.push(i);
+    }
+    Ok(out)
+}
+
+/// `eqwatch equilibrium`.
+pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliError> {
+    let t = parse_temperature(&inp.temperature)
+        .map_err(|e| CliError::Input(format!("--temperature: {e}")))?;
+    let p = parse_pressure_with_atmosphere(&inp.pressure, crate::units::STANDARD_ATMOSPHERE_BAR)
+        .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
+    let eos = parse_eos(&inp.eos)?;
+    let reactive = species_list(db, &inp.species, "--species")?;
+    if reactive.is_empty() {
+        return Err(CliError::Input(
+            "--species: give the species that may react, e.g. \"CH4,H2O,CO,CO2,H2\"".into(),
+        ));
+    }
+    let inert = match &inp.inert {
+        Some(t) => species_list(db, t, "--inert")?,
+        None => Vec::new(),
+    };
+    if let Some(s) = inert.iter().find(|s| reactive.contains(s)) {
+        return Err(CliError::Input(format!(
+            "{} is in --species and --inert; give it once",
+            db.get(*s).name
+        )));
+    }
+    let sys = if inp.reactions.is_empty() {
+        if !inp.k_sources.is_empty() {
+            return Err(CliError::Input(
+                "--k-source needs --reaction (species data are used otherwise)".into(),
+            ));
+        }
+        EquilibriumSystem::from_species(db, &reactive, &inert, eos, None).map_err(input)?
+    } else {
+        let rx = reactions_with_k(db, &inp.reactions, &inp.k_sources)?;
+        for (r, _) in &rx {
+            if let Some(s) = r.species.iter().find(|s| !reactive.contains(s)) {
+                return Err(CliError::Input(format!(
+                    "species {} of `{}` is not in --species",
+                    db.get(*s).name,
+                    r.canonical()
+                )));
+            }
+        }
+        let mut all = reactive.clone();
+        all.extend(&inert);
+        EquilibriumSystem::from_reactions(db, &rx, &all, eos, None).map_err(input)?
+    };
+    let feed = parse_components(&inp.feed, CompositionUnit::Fraction).map_err(input)?;
+    let mut moles = vec![0.0; sys.species().len()];
+    for c in &feed {
+        let i = db.index_of(&c.species).ok_or_else(|| {
+            CliError::Input(format!(
+                "--feed: unknown species `{}`{}",
+                c.species,
+                unknown_hint(db, &c.species)
+            ))
+        })?;
+        let pos = sys.species().iter().position(|s| *s == i).ok_or_else(|| {
+            CliError::Input(format!(
+                "--feed: {} is neither in --species nor in --inert",
+                db.get(i).name
+            ))
+        })?;
+        if !(c.value.is_finite() && c.value >= 0.0) {
+            return Err(CliError::Input(format!(
+                "--feed: {} = {} must be zero or more",
+                c.species, c.value
+            )));
+        }
+        moles[pos] += c.value * c.unit.fraction_per_unit();
+    }
+    if moles.iter().sum::<f64>() <= 0.0 {
+        return Err(CliError::Input(
+            "--feed: give some moles, e.g. \"CH4=1,H2O=3\"".into(),
+        ));
+    }
+    let r = sys.solve(db, t, p, &moles);
+    if !r.converged {
+        return Err(CliError::Internal(format!(
+            "equilibrium did not converge: {}",
+            r.reason
+        )));
+    }
+    let mut y = Map::new();
+    for (n, v) in sys.names().iter().zip(&r.mole_fractions) {
+        y.insert(n.clone(), finite(*v));
+    }
+    let mut out = Map::new();
+    out.insert("temperature_k".into(), json!(t));
+    out.insert("pressure_bar".into(), json!(p));
+    out.insert("eos".into(), json!(eos.as_str()));
+    out.insert("mole_fractions".into(), Value::Object(y));
+    if let Some(w) = sys.names().iter().position(|n| n == "H2O") {
+        let yw = r.mole_fractions[w];
+        let mut d = Map::new();
+        for (i, (n, v)) in sys.names().iter().zip(&r.mole_fractions).enumerate() {
+            if i != w {
+                d.insert(n.clone(), finite(v / (1.0 - yw)));
+            }
+        }
+        out.insert("dry_mole_fractions".into(), Value::Object(d));
+        out.insert("steam_to_dry_gas_ratio".into(), finite(yw / (1.0 - yw)));
+    }
+    let mut phi = Map::new();
+    for (n, lp) in sys.names().iter().zip(&r.ln_phi) {
+        phi.insert(n.clone(), finite(lp.exp()));
+    }
+    out.insert("fugacity_coefficients".into(), Value::Object(phi));
+    out.insert("iterations".into(), json!(r.iterations));
+    out.insert("converged".into(), json!(r.converged));
+    out.insert(
+        "k_source".into(),
+        json!(if inp.reactions.is_empty() {
+            "species-data".to_string()
+        } else {
+            inp.k_sources
+                .first()
+                .cloned()
+                .unwrap_or_else(|| "species-data".into())
+        }),
+    );
+    Ok(Value::Object(out))
+}
+
+/// `eqwatch species`: every species with its formula, range, standard state and source.
+pub fn species(db: &SpeciesDb) -> Value {
+    let list: Vec<Value> = db
+        .iter()
+        .map(|s| {
+            let formula: String = s
+                .elements
+                .iter()
+                .map(|(e, n)| if *n == 1.0 { ELEMENTS[*e].to_string() } else { format!("{}{}", ELEMENTS[*e], n) })
+                .collect();
+            json!({
+                "name": s.name,
+                "elements": formula,
+                "t_min_k": s.t_min_k(),
+                "t_max_k": s.t_max_k(),
+                "polynomial": if s.ranges.iter().all(|r| r.c[0] == 0.0 && r.c[1] == 0.0) { "nasa7-compatible" } else { "nasa9" },
+                "published_reference_pressure_bar": s.published_reference_pressure_bar,
+                "critical_constants": s.critical.as_ref().map(|c| json!({"tc_k": c.tc_k, "pc_bar": c.pc_bar, "omega": c.omega, "source": c.source})),
+                "source": s.source,
+                "origin": s.origin,
+            })
+        })
+        .collect();
+    json!({ "species": list })
+}
+
+/// A readable two-column view of a JSON result.
+pub fn table(v: &Value) -> String {
+    let mut out = String::new();
+    if let Value::Object(m) = v {
+        if let Some(Value::Array(list)) = m.get("species") {
+            out.push_str(&format!(
+                "{:<10} {:<10} {:>8} {:>8} {:>4}  {}\n",
+                "species", "elements", "T min K", "T max K", "PR", "source"
+            ));
+            for s in list {
+                out.push_str(&format!(
+                    "{:<10} {:<10} {:>8.0} {:>8.0} {:>4}  {}\n",
+                    s["name"].as_str().unwrap_or(""),
+                    s["elements"].as_str().unwrap_or(""),
+                    s["t_min_k"].as_f64().unwrap_or(f64::NAN),
+                    s["t_max_k"].as_f64().unwrap_or(f64::NAN),
+                    if s["critical_constants"].is_null() {
+                        "-"
+                    } else {
+                        "yes"
+                    },
+                    s["source"].as_str().unwrap_or("")
+                ));
+            }
+            return out;
+        }
+        let width = m.keys().map(|k| k.len()).max().unwrap_or(0);
+        for (k, val) in m {
+            let text = match val {
+                Value::Number(n) => {
+                    let x = n.as_f64().unwrap_or(f64::NAN);
+                    if x != 0.0 && (x.abs() < 1e-3 || x.abs() >= 1e7) {
+                        format!("{x:.6e}")
+                    } else {
+                        format!("{x:.6}")
+                    }
+                }
+                Value::String(s) => s.clone(),
+                Value::Null => "-".into(),
+                Value::Object(o) => o
+                    .iter()
+                    .map(|(a, b)| match b.as_f64() {
+                        Some(x) if x != 0.0 && x.abs() < 1e-3 => format!("{a}={x:.4e}"),
+                        Some(x) => format!("{a}={x:.6}"),
+                        None => format!("{a}={b}"),
+                    })
+                    .collect::<Vec<_>>()
+                    .join("  "),
+                Value::Array(a) if a.is_empty() => "(none)".into(),
+                other => other.to_string(),
+            };
+            out.push_str(&format!("{k:<width$}  {text}\n"));
+        }
+    }
+    out
+}

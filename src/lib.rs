@@ -1,0 +1,22 @@
+//! eqwatch: how far a catalytic reactor's outlet is from chemical equilibrium.
+//!
+//! Crate map (the numeric core builds with `--no-default-features`, without tokio):
+//! - [`units`]: plant units to K, bar absolute and mole fraction.
+//! - [`thermo`]: species data (NASA 7/9 polynomials), reactions, K(T) sources, Peng–Robinson.
+//! - [`composition`]: analyser compositions, wet/dry basis, sum checks.
+//! - [`approach`]: Q, Q/K, direction, affinity, equilibrium temperature, approach ± uncertainty.
+//! - [`equilibrium`]: equilibrium composition with element constraints (several reactions).
+//! - [`solve`]: bracketed scalar solvers.
+//! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
+//!
+//! Advisory only: eqwatch is not a safety function; see the README.
+
+pub mod approach;
+pub mod composition;
+pub mod equilibrium;
+pub mod solve;
+pub mod thermo;
+pub mod units;
+
+#[cfg(feature = "cli")]
+pub mod cli;

@@ -1,0 +1,424 @@
+//! Plant units: temperatures, absolute and gauge pressures, and composition units.
+//!
+//! Everything is converted once, at the edge, to the fixed units the core works in:
+//! kelvin, bar absolute and mole fraction. Nothing here reads a clock or a file.
+//! Ambiguous pressure units (`psi`, `kg/cm2`) are refused: gauge/absolute confusion
+//! is one of the commonest causes of a wrong approach figure (DOMAIN §5).
+
+use thiserror::Error;
+
+/// Standard atmosphere in bar, used to turn gauge pressures into absolute ones
+/// (ISO 2533; 101 325 Pa by definition).
+pub const STANDARD_ATMOSPHERE_BAR: f64 = 1.01325;
+
+/// Problems with a quantity written by a user or sent by an instrument.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum UnitError {
+    #[error("{what} `{text}` is not a number followed by a unit")]
+    NotANumber { what: &'static str, text: String },
+    #[error("{what} `{text}` has no unit; write it with one of: {expected}")]
+    NoUnit {
+        what: &'static str,
+        text: String,
+        expected: &'static str,
+    },
+    #[error("{what}: unknown unit `{unit}`; expected one of: {expected}")]
+    UnknownUnit {
+        what: &'static str,
+        unit: String,
+        expected: &'static str,
+    },
+    #[error("{what}: unit `{unit}` is ambiguous ({hint})")]
+    Ambiguous {
+        what: &'static str,
+        unit: String,
+        hint: &'static str,
+    },
+    #[error("{what} {value} is not physical ({reason})")]
+    NotPhysical {
+        what: &'static str,
+        value: f64,
+        reason: &'static str,
+    },
+}
+
+const TEMPERATURE_UNITS: &str = "K, degC, °C, C, degF, °F, F, degR";
+const PRESSURE_UNITS: &str =
+    "bar, bara, barg, mbar, mbarg, Pa, kPa, kPag, MPa, MPag, psia, psig, atm, kg/cm2a, kg/cm2g";
+const COMPOSITION_UNITS: &str = "fraction, mol%, vol%, %, ppm, ppmv, ppb";
+
+/// Splits `"700 K"`, `"700K"`, `"-5.5 degC"` into the number and the trimmed unit text.
+/// The number is the longest prefix that parses as a float.
+pub fn split_quantity<'a>(what: &'static str, text: &'a str) -> Result<(f64, &'a str), UnitError> {
+    let t = text.trim();
+    let mut best: Option<(f64, usize)> = None;
+    for (end, _) in t
+        .char_indices()
+        .skip(1)
+        .chain(std::iter::once((t.len(), ' ')))
+    {
+        if let Ok(v) = t[..end].trim_end().parse::<f64>() {
+            best = Some((v, end));
+        }
+    }
+    match best {
+        Some((v, end)) if v.is_finite() => Ok((v, t[end..].trim())),
+        _ => Err(UnitError::NotANumber {
+            what,
+            text: text.to_string(),
+        }),
+    }
+}
+
+fn norm_unit(unit: &str) -> String {
+    unit.chars()
+        .filter(|c| !c.is_whitespace())
+        .map(|c| match c {
+            '²' => '2',
+            '(' | ')' => '\u{0}',
+            _ => c,
+        })
+        .filter(|c| *c != '\u{0}')
+        .collect::<String>()
+        .to_ascii_lowercase()
+}
+
+/// Temperature units accepted on tags and on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TemperatureUnit {
+    Kelvin,
+    Celsius,
+    Fahrenheit,
+    Rankine,
+}
+
+impl TemperatureUnit {
+    pub fn parse(unit: &str) -> Result<Self, UnitError> {
+        let u = norm_unit(unit);
+        Ok(match u.as_str() {
+            "k" | "kelvin" => Self::Kelvin,
+            "degc" | "°c" | "c" | "celsius" | "degreesc" | "deg.c" => Self::Celsius,
+            "degf" | "°f" | "f" | "fahrenheit" | "degreesf" | "deg.f" => Self::Fahrenheit,
+            "degr" | "°r" | "rankine" => Self::Rankine,
+            "" => {
+                return Err(UnitError::NoUnit {
+                    what: "temperature",
+                    text: unit.to_string(),
+                    expected: TEMPERATURE_UNITS,
+                });
+            }
+            _ => {
+                return Err(UnitError::UnknownUnit {
+                    what: "temperature",
+                    unit: unit.to_string(),
+                    expected: TEMPERATURE_UNITS,
+                });
+            }
+        })
+    }
+
+    /// Converts a value in this unit to kelvin, refusing values at or below absolute zero.
+    pub fn to_kelvin(self, value: f64) -> Result<f64, UnitError> {
+        let k = match self {
+            Self::Kelvin => value,
+            Self::Celsius => value + 273.15,
+            Self::Fahrenheit => (value - 32.0) * 5.0 / 9.0 + 273.15,
+            Self::Rankine => value * 5.0 / 9.0,
+        };
+        if !k.is_finite() || k <= 0.0 {
+            return Err(UnitError::NotPhysical {
+                what: "temperature",
+                value,
+                reason: "at or below absolute zero",
+            });
+        }
+        Ok(k)
+    }
+}
+
+/// Parses `"700 K"`, `"426.85 degC"`, `"800°F"` to kelvin. A bare number is refused.
+pub fn parse_temperature(text: &str) -> Result<f64, UnitError> {
+    let (v, unit) = split_quantity("temperature", text)?;
+    if unit.is_empty() {
+        return Err(UnitError::NoUnit {
+            what: "temperature",
+            text: text.to_string(),
+            expected: TEMPERATURE_UNITS,
+        });
+    }
+    TemperatureUnit::parse(unit)?.to_kelvin(v)
+}
+
+/// Pressure units, with their reference (absolute or gauge).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PressureUnit {
+    /// Multiply the value by this to get bar.
+    pub bar_per_unit: f64,
+    /// Gauge units need the atmosphere added.
+    pub gauge: bool,
+}
+
+impl PressureUnit {
+    pub fn parse(unit: &str) -> Result<Self, UnitError> {
+        let u = norm_unit(unit);
+        let (bar_per_unit, gauge) = match u.as_str() {
+            "bar" | "bara" | "barabs" | "bar.a" => (1.0, false),
+            "barg" | "bar.g" => (1.0, true),
+            "mbar" | "mbara" => (1e-3, false),
+            "mbarg" => (1e-3, true),
+            "pa" | "paa" => (1e-5, false),
+            "pag" => (1e-5, true),
+            "kpa" | "kpaa" => (1e-2, false),
+            "kpag" => (1e-2, true),
+            "mpa" | "mpaa" => (10.0, false),
+            "mpag" => (10.0, true),
+            "psia" => (PSI_BAR, false),
+            "psig" => (PSI_BAR, true),
+            "atm" | "atma" => (STANDARD_ATMOSPHERE_BAR, false),
+            "kg/cm2a" | "kgf/cm2a" | "ata" => (KGF_CM2_BAR, false),
+            "kg/cm2g" | "kgf/cm2g" | "atü" | "atu" => (KGF_CM2_BAR, true),
+            "psi" => {
+                return Err(UnitError::Ambiguous {
+                    what: "pressure",
+                    unit: unit.to_string(),
+                    hint: "write psia for absolute or psig for gauge",
+                });
+            }
+            "kg/cm2" | "kgf/cm2" => {
+                return Err(UnitError::Ambiguous {
+                    what: "pressure",
+                    unit: unit.to_string(),
+                    hint: "write kg/cm2a for absolute or kg/cm2g for gauge",
+                });
+            }
+            "" => {
+                return Err(UnitError::NoUnit {
+                    what: "pressure",
+                    text: unit.to_string(),
+                    expected: PRESSURE_UNITS,
+                });
+            }
+            _ => {
+                return Err(UnitError::UnknownUnit {
+                    what: "pressure",
+                    unit: unit.to_string(),
+                    expected: PRESSURE_UNITS,
+                });
+            }
+        };
+        Ok(Self {
+            bar_per_unit,
+            gauge,
+        })
+    }
+
+    /// Absolute pressure in bar; `atmosphere_bar` is added to gauge readings.
+    pub fn to_bar_absolute(self, value: f64, atmosphere_bar: f64) -> Result<f64, UnitError> {
+        let mut p = value * self.bar_per_unit;
+        if self.gauge {
+            p += atmosphere_bar;
+        }
+        if !p.is_finite() || p <= 0.0 {
+            return Err(UnitError::NotPhysical {
+                what: "pressure",
+                value,
+                reason: "absolute pressure must be above zero",
+            });
+        }
+        Ok(p)
+    }
+}
+
+/// 1 psi in bar: 6894.757 Pa (NIST SP 811, appendix B).
+const PSI_BAR: f64 = 0.068_947_572_93;
+/// 1 kgf/cm² in bar: 98 066.5 Pa (NIST SP 811, appendix B).
+const KGF_CM2_BAR: f64 = 0.980_665;
+
+/// Parses `"150 bar"`, `"30 barg"`, `"435 psig"` to bar absolute, gauge readings
+/// referred to the standard atmosphere. A bare number is refused.
+pub fn parse_pressure(text: &str) -> Result<f64, UnitError> {
+    parse_pressure_with_atmosphere(text, STANDARD_ATMOSPHERE_BAR)
+}
+
+/// As [`parse_pressure`], with the site's atmospheric pressure for gauge readings.
+pub fn parse_pressure_with_atmosphere(text: &str, atmosphere_bar: f64) -> Result<f64, UnitError> {
+    let (v, unit) = split_quantity("pressure", text)?;
+    if unit.is_empty() {
+        return Err(UnitError::NoUnit {
+            what: "pressure",
+            text: text.to_string(),
+            expected: "bara or barg (or another unit that says absolute or gauge)",
+        });
+    }
+    PressureUnit::parse(unit)?.to_bar_absolute(v, atmosphere_bar)
+}
+
+/// Units of one analyser component.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum CompositionUnit {
+    Fraction,
+    Percent,
+    Ppm,
+    Ppb,
+}
+
+impl CompositionUnit {
+    pub fn parse(unit: &str) -> Result<Self, UnitError> {
+        let u = norm_unit(unit);
+        Ok(match u.as_str() {
+            "fraction" | "frac" | "mol/mol" | "molfraction" | "-" => Self::Fraction,
+            "mol%" | "%" | "vol%" | "v%" | "mole%" | "%mol" | "%vol" => Self::Percent,
+            "ppm" | "ppmv" | "ppmmol" | "vppm" | "molppm" => Self::Ppm,
+            "ppb" | "ppbv" => Self::Ppb,
+            _ => {
+                return Err(UnitError::UnknownUnit {
+                    what: "composition",
+                    unit: unit.to_string(),
+                    expected: COMPOSITION_UNITS,
+                });
+            }
+        })
+    }
+
+    /// Mole fraction per unit.
+    pub fn fraction_per_unit(self) -> f64 {
+        match self {
+            Self::Fraction => 1.0,
+            Self::Percent => 1e-2,
+            Self::Ppm => 1e-6,
+            Self::Ppb => 1e-9,
+        }
+    }
+
+    pub fn label(self) -> &'static str {
+        match self {
+            Self::Fraction => "fraction",
+            Self::Percent => "mol%",
+            Self::Ppm => "ppm",
+            Self::Ppb => "ppb",
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn close(a: f64, b: f64, tol: f64) -> bool {
+        (a - b).abs() <= tol
+    }
+
+    #[test]
+    fn temperatures() {
+        // Conversion definitions: ITS-90 / NIST SP 811 (0 degC = 273.15 K, 1 degF = 5/9 K).
+        let check = |text: &str, k: f64| {
+            let got = parse_temperature(text).unwrap();
+            assert!(close(got, k, 1e-9), "{text}: {got} vs {k}");
+        };
+        check("700 K", 700.0);
+        check("700K", 700.0);
+        check("426.85 degC", 700.0);
+        check("220 °C", 493.15);
+        check("32 degF", 273.15);
+        check("800°F", 699.816_666_666_666_7);
+        check("  1.0e3 K ", 1000.0);
+        check("540 degR", 300.0);
+    }
+
+    #[test]
+    fn temperatures_refused() {
+        assert!(matches!(
+            parse_temperature("700"),
+            Err(UnitError::NoUnit { .. })
+        ));
+        assert!(matches!(
+            parse_temperature("700 Q"),
+            Err(UnitError::UnknownUnit { .. })
+        ));
+        assert!(matches!(
+            parse_temperature("-300 degC"),
+            Err(UnitError::NotPhysical { .. })
+        ));
+        assert!(matches!(
+            parse_temperature("hot"),
+            Err(UnitError::NotANumber { .. })
+        ));
+        assert!(matches!(
+            parse_temperature("NaN K"),
+            Err(UnitError::NotANumber { .. })
+        ));
+    }
+
+    #[test]
+    fn pressures() {
+        // 1 atm = 1.01325 bar, 1 psi = 6894.757 Pa, 1 kgf/cm2 = 98066.5 Pa (NIST SP 811).
+        let check = |text: &str, bar: f64| {
+            let got = parse_pressure(text).unwrap();
+            assert!(close(got, bar, 1e-8), "{text}: {got} vs {bar}");
+        };
+        check("150 bar", 150.0);
+        check("150 bara", 150.0);
+        check("30 barg", 31.01325);
+        check("3 MPa", 30.0);
+        check("3 MPag", 31.01325);
+        check("101.325 kPa", 1.01325);
+        check("20 kPag", 1.21325);
+        check("1 atm", 1.01325);
+        check("14.695948775 psia", 1.01325);
+        check("0 psig", 1.01325);
+        check("10 kg/cm2g", 9.80665 + 1.01325);
+        check("10 kg/cm²a", 9.80665);
+        check("200 bar(a)", 200.0);
+    }
+
+    #[test]
+    fn pressures_refused() {
+        assert!(matches!(
+            parse_pressure("30"),
+            Err(UnitError::NoUnit { .. })
+        ));
+        assert!(matches!(
+            parse_pressure("30 psi"),
+            Err(UnitError::Ambiguous { .. })
+        ));
+        assert!(matches!(
+            parse_pressure("3 kg/cm2"),
+            Err(UnitError::Ambiguous { .. })
+        ));
+        assert!(matches!(
+            parse_pressure("-2 bar"),
+            Err(UnitError::NotPhysical { .. })
+        ));
+        assert!(matches!(
+            parse_pressure("3 furlongs"),
+            Err(UnitError::UnknownUnit { .. })
+        ));
+        // A vacuum gauge reading below -1 atm is impossible.
+        assert!(matches!(
+            parse_pressure("-1.5 barg"),
+            Err(UnitError::NotPhysical { .. })
+        ));
+    }
+
+    #[test]
+    fn composition_units() {
+        assert_eq!(
+            CompositionUnit::parse("mol%").unwrap(),
+            CompositionUnit::Percent
+        );
+        assert_eq!(
+            CompositionUnit::parse("mol %").unwrap(),
+            CompositionUnit::Percent
+        );
+        assert_eq!(
+            CompositionUnit::parse("ppm(v)").unwrap(),
+            CompositionUnit::Ppm
+        );
+        assert_eq!(
+            CompositionUnit::parse("fraction").unwrap(),
+            CompositionUnit::Fraction
+        );
+        assert!(CompositionUnit::parse("mol-%").is_err());
+        assert_eq!(CompositionUnit::Ppm.fraction_per_unit(), 1e-6);
+    }
+}
