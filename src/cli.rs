@@ -372,8 +372,22 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
             }
             idx
         }
-        // Default key component: the first reactant as written (CH4 at a reformer, CO at a shift).
-        None => r0.species[0],
+        // Default key component: the single product where there is one (NH3, SO3,
+        // CH3OH), else the first reactant as written (CH4 at a reformer, CO at a shift).
+        None => {
+            let products: Vec<usize> = r0
+                .species
+                .iter()
+                .zip(&r0.nu)
+                .filter(|(_, n)| **n > 0.0)
+                .map(|(s, _)| *s)
+                .collect();
+            if products.len() == 1 {
+                products[0]
+            } else {
+                r0.species[0]
+            }
+        }
     };
     let key_name = db.get(key).name.clone();
     let measured = wet.species.iter().position(|s| *s == key).map(|i| wet.y[i]);
