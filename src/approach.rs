@@ -460,6 +460,7 @@ mod tests {
     use crate::units::CompositionUnit;
 
     /// Evaluates one reaction for an analysis: (approach, model species names, ln φ).
+    #[allow(clippy::too_many_arguments)]
     fn evaluate(
         eq: &str,
         source: KSourceId,

@@ -197,7 +197,7 @@ pub fn to_wet(
     }
     let sum: f64 = y.iter().sum();
     let tol = sum_tolerance.max(0.0);
-    if !((sum - 1.0).abs() <= tol) {
+    if sum.is_nan() || (sum - 1.0).abs() > tol {
         return Err(CompositionError::Sum {
             basis: basis.as_str(),
             sum_percent: sum * 100.0,

@@ -581,6 +581,14 @@ fn inner(
             step *= 10.0 / big;
         }
         let slope = grad.dot(&step);
+        if -slope < 1e-12 * (1.0 + f.abs()) {
+            // Close in: the predicted decrease of Ψ is below its rounding noise, so a
+            // line search would judge noise. Newton converges quadratically here.
+            *lambda += &step;
+            n = moles(lambda);
+            f = psi(&n, lambda);
+            continue;
+        }
         let mut alpha = 1.0;
         let mut accepted = false;
         for _ in 0..60 {
@@ -763,5 +771,106 @@ mod tests {
         let c_in = 0.3 + 0.1 + 1.0;
         let c_out = r.moles[0] + r.moles[1] + r.moles[3];
         assert!((c_out / c_in - 1.0).abs() < 1e-10);
+    }
+}
+
+#[cfg(test)]
+mod properties {
+    use super::*;
+    use crate::approach::{Direction, GasState, ReactorModel, Uncertainty};
+    use crate::thermo::reaction::parse_reaction;
+    use proptest::prelude::*;
+
+    fn reactions(db: &SpeciesDb, eqs: &[&str]) -> Vec<(Reaction, KModel)> {
+        eqs.iter()
+            .map(|e| {
+                let r = parse_reaction(e, db).unwrap();
+                let k = KModel::from_species(&r, db).unwrap();
+                (r, k)
+            })
+            .collect()
+    }
+
+    /// ln Q (activities on 1 bar, with φ) of reaction `r` for the solved gas of `sys`.
+    fn ln_q(sys: &EquilibriumSystem, res: &EquilibriumResult, r: &Reaction, p: f64) -> f64 {
+        r.species
+            .iter()
+            .zip(&r.nu)
+            .map(|(s, nu)| {
+                let i = sys.species().iter().position(|x| x == s).unwrap();
+                nu * (res.ln_phi[i] + res.mole_fractions[i].ln() + p.ln())
+            })
+            .sum()
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(64))]
+
+        /// Reformer + shift: mass action holds for both reactions and every element balances.
+        #[test]
+        fn reformer_mass_action_and_balance(
+            t in 600.0f64..1300.0, p in 1.0f64..60.0, s_c in 1.0f64..6.0, co2 in 0.0f64..0.5, h2 in 0.0f64..0.5
+        ) {
+            let db = SpeciesDb::builtin();
+            let rx = reactions(&db, &["CH4 + H2O = CO + 3 H2", "CO + H2O = CO2 + H2"]);
+            let all: Vec<usize> = ["CH4", "H2O", "CO", "H2", "CO2"].iter().map(|n| db.index_of(n).unwrap()).collect();
+            let sys = EquilibriumSystem::from_reactions(&db, &rx, &all, EosKind::Ideal, None).unwrap();
+            // System order is by first appearance: CH4, H2O, CO, H2, CO2.
+            let feed = [1.0, s_c, 0.0, h2, co2];
+            let res = sys.solve(&db, t, p, &feed);
+            prop_assert!(res.converged, "{}", res.reason);
+            for (r, k) in &rx {
+                let d = ln_q(&sys, &res, r, p) - k.ln_k(t);
+                prop_assert!(d.abs() < 1e-8, "{}: ln Q − ln K = {d}", r.text);
+            }
+            let n = &res.moles;
+            let c = (n[0] + n[2] + n[4]) / (1.0 + co2);
+            let h = (4.0 * n[0] + 2.0 * n[1] + 2.0 * n[3]) / (4.0 + 2.0 * s_c + 2.0 * h2);
+            let o = (n[1] + n[2] + 2.0 * n[4]) / (s_c + 2.0 * co2);
+            for (el, ratio) in [("C", c), ("H", h), ("O", o)] {
+                prop_assert!((ratio - 1.0).abs() < 1e-10, "{el} balance off by {}", ratio - 1.0);
+            }
+        }
+
+        /// Ammonia with Peng–Robinson fugacities: mass action on fugacities holds.
+        #[test]
+        fn ammonia_pr_mass_action(t in 600.0f64..850.0, p in 20.0f64..350.0, inert in 0.0f64..0.3) {
+            let db = SpeciesDb::builtin();
+            let rx = reactions(&db, &["N2 + 3 H2 = 2 NH3"]);
+            let all: Vec<usize> = ["N2", "H2", "NH3", "Ar"].iter().map(|n| db.index_of(n).unwrap()).collect();
+            let sys = EquilibriumSystem::from_reactions(&db, &rx, &all, EosKind::PengRobinson, None).unwrap();
+            let res = sys.solve(&db, t, p, &[1.0, 3.0, 0.0, inert]);
+            prop_assert!(res.converged, "{}", res.reason);
+            let d = ln_q(&sys, &res, &rx[0].0, p) - rx[0].1.ln_k(t);
+            prop_assert!(d.abs() < 1e-8, "ln Q − ln K = {d}");
+            prop_assert!((res.moles[3] - inert).abs() == 0.0);
+        }
+
+        /// A gas at equilibrium at T shows a zero approach at T, and an approach of exactly
+        /// the temperature difference when read at another temperature (ideal gas).
+        #[test]
+        fn approach_is_zero_at_equilibrium_and_tracks_temperature(
+            t in 450.0f64..1200.0, p in 1.0f64..40.0, dt in -40.0f64..40.0
+        ) {
+            let db = SpeciesDb::builtin();
+            let rx = reactions(&db, &["CO + H2O = CO2 + H2"]);
+            let all: Vec<usize> = ["CO", "H2O", "CO2", "H2", "N2"].iter().map(|n| db.index_of(n).unwrap()).collect();
+            let sys = EquilibriumSystem::from_reactions(&db, &rx, &all, EosKind::Ideal, None).unwrap();
+            let res = sys.solve(&db, t, p, &[0.12, 0.35, 0.05, 0.40, 0.08]);
+            prop_assert!(res.converged);
+            let model = ReactorModel::new(&db, rx.clone(), sys.species(), EosKind::Ideal, None).unwrap();
+            let mut scratch = model.scratch();
+            for (t_read, expected) in [(t, 0.0), (t + dt, -dt)] {
+                // Exothermic: approach = T_eq − T_read = t − (t + dt) = −dt.
+                let st = GasState { temperature_k: t_read, pressure_bar: p, y: &res.mole_fractions, steam_ratio: None };
+                model.fugacity(&st, &mut scratch);
+                let a = model.evaluate(0, &st, &scratch, &Uncertainty::default());
+                let got = a.approach_k.unwrap();
+                prop_assert!((got - expected).abs() < 1e-6, "read at {t_read}: {got} vs {expected}");
+                if t_read == t {
+                    prop_assert_eq!(a.direction, Direction::AtEquilibrium);
+                }
+            }
+        }
     }
 }

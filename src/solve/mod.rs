@@ -179,7 +179,7 @@ pub fn newton_bracketed(
         }
         let mut next = x - f / df;
         let (a, b) = (neg.min(pos), neg.max(pos));
-        if !(next > a && next < b) || !next.is_finite() {
+        if !(next > a && next < b && next.is_finite()) {
             next = 0.5 * (neg + pos);
         }
         if (next - x).abs() <= x_tol {

@@ -146,10 +146,13 @@ impl PengRobinson {
         let mut a_mix = 0.0;
         let mut b_mix = 0.0;
         for i in 0..n {
-            let mut sum = 0.0;
-            for j in 0..n {
-                sum += y[j] * scratch.sqrt_a[i] * scratch.sqrt_a[j] * self.one_minus_kij[i * n + j];
-            }
+            let row = &self.one_minus_kij[i * n..(i + 1) * n];
+            let sum = scratch.sqrt_a[i]
+                * y.iter()
+                    .zip(&scratch.sqrt_a)
+                    .zip(row)
+                    .map(|((yj, saj), k)| yj * saj * k)
+                    .sum::<f64>();
             scratch.sum_a[i] = sum;
             a_mix += y[i] * sum;
             b_mix += y[i] * scratch.b[i];
@@ -161,9 +164,9 @@ impl PengRobinson {
         let log_term = ((z + (1.0 + SQRT2) * big_b) / (z + (1.0 - SQRT2) * big_b)).ln();
         let ln_z_b = (z - big_b).ln();
         let f = big_a / (2.0 * SQRT2 * big_b);
-        for i in 0..n {
+        for (i, lp) in ln_phi.iter_mut().enumerate() {
             let bi_b = scratch.b[i] / b_mix;
-            ln_phi[i] =
+            *lp =
                 bi_b * (z - 1.0) - ln_z_b - f * (2.0 * scratch.sum_a[i] / a_mix - bi_b) * log_term;
         }
         Ok(PrState { z, multiple_roots })
