@@ -583,4 +583,27 @@ mod tests {
         assert!(s.iter().any(|n| n == "CH4"), "{s:?}");
         assert_eq!(db.index_of("nh3"), db.index_of("NH3"));
     }
+
+    #[test]
+    fn nasa9_species_file_agrees_with_nasa7_and_janaf() {
+        // config/species-nasa9.toml: McBride, Zehe & Gordon, NASA TP-2002-211556, 9-coefficient
+        // form. S°(N2, 298.15 K, 1 bar) = 191.609 J/(mol K) (NIST-JANAF, Chase 1998, from memory).
+        let mut db = SpeciesDb::builtin();
+        let n7 = db.by_name("N2").unwrap().clone();
+        let n = db
+            .merge_toml(include_str!("../../config/species-nasa9.toml"), "species-nasa9.toml")
+            .unwrap();
+        assert!(n >= 3);
+        let n9 = db.by_name("N2").unwrap();
+        assert_eq!(n9.origin, "species-nasa9.toml");
+        assert!(n9.ranges.iter().any(|r| r.c[0] != 0.0), "the file must exercise the a1/a2 terms");
+        assert!((n9.s_r(298.15) * R_J_PER_MOL_K - 191.609).abs() < 0.01);
+        // Both fits describe the same N2 data: G°/RT within 3e-3 over 300-5000 K (the
+        // 1993 and 2002 evaluations of N2 differ in their fits; 1.2e-3 seen at 3000 K).
+        for t in [300.0, 700.0, 1000.0, 1500.0, 3000.0, 5000.0] {
+            let d = n9.g_rt(t) - n7.g_rt(t);
+            assert!(d.abs() < 3e-3, "{t} K: {d}");
+        }
+        assert!(n9.t_max_k() > 6000.0, "NASA 9 data reach 20000 K");
+    }
 }
