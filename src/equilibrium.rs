@@ -24,10 +24,12 @@
 //!   implementation in the interactive program STANJAN", Stanford University (1986).
 //! - W. R. Smith, R. W. Missen, Chemical Reaction Equilibrium Analysis (1982), ch. 2–6.
 
+// Small dense matrix code reads best with index loops.
+#![allow(clippy::needless_range_loop)]
+
 use nalgebra::{DMatrix, DVector};
 use thiserror::Error;
 
-use crate::solve::{RootOutcome, newton_bracketed};
 use crate::thermo::ksource::KModel;
 use crate::thermo::peng_robinson::{PengRobinson, PrComponent, PrScratch};
 use crate::thermo::reaction::Reaction;
@@ -392,8 +394,20 @@ impl EquilibriumSystem {
         }
         let e = rows.len();
         let m = sp_present.len();
-        let a = DMatrix::from_fn(m, e, |i, j| self.atoms[sp_present[i]][rows[j]]);
-        let b = DVector::from_iterator(e, rows.iter().map(|&j| b_all[j]));
+        if e > MAX_ELEMENTS {
+            return fail(format!("more than {MAX_ELEMENTS} independent elements"));
+        }
+        // Row-major m×e atoms of the present species over the independent elements.
+        let mut a = vec![0.0; m * e];
+        for (k, &i) in sp_present.iter().enumerate() {
+            for (c, &j) in rows.iter().enumerate() {
+                a[k * e + c] = self.atoms[i][j];
+            }
+        }
+        let mut b = [0.0; MAX_ELEMENTS];
+        for (c, &j) in rows.iter().enumerate() {
+            b[c] = b_all[j];
+        }
         let atoms_per: Vec<f64> = sp_present
             .iter()
             .map(|&i| self.atoms[i].iter().sum())
@@ -410,69 +424,81 @@ impl EquilibriumSystem {
         let ln_p = p_bar.ln();
         let mut ln_phi = vec![0.0; n_all];
         let mut y_all = vec![0.0; n_all];
+        let mut new_phi = vec![0.0; n_all];
         let mut scratch: PrScratch = self.eos.as_ref().map(|e| e.scratch()).unwrap_or_default();
 
         // Initial element potentials: least squares of a·λ ≈ g + ln x0.
         let total_in: f64 = moles_in.iter().sum();
-        let mut g = DVector::from_iterator(m, sp_present.iter().map(|&i| g0[i] + ln_p));
-        let target = DVector::from_iterator(
-            m,
-            sp_present
-                .iter()
-                .enumerate()
-                .map(|(k, &i)| g[k] + (moles_in[i] / total_in).max(1e-6).ln()),
-        );
-        let ata = a.transpose() * &a;
-        let mut lambda = match ata.cholesky() {
-            Some(ch) => ch.solve(&(a.transpose() * &target)),
-            None => DVector::zeros(e),
-        };
+        let mut g: Vec<f64> = sp_present.iter().map(|&i| g0[i] + ln_p).collect();
+        let mut lambda = [0.0; MAX_ELEMENTS];
+        {
+            let mut ata = [[0.0; MAX_ELEMENTS]; MAX_ELEMENTS];
+            let mut rhs = [0.0; MAX_ELEMENTS];
+            for (k, &i) in sp_present.iter().enumerate() {
+                let target = g[k] + (moles_in[i] / total_in).max(1e-6).ln();
+                let row = &a[k * e..(k + 1) * e];
+                for p in 0..e {
+                    rhs[p] += row[p] * target;
+                    for q in 0..e {
+                        ata[p][q] += row[p] * row[q];
+                    }
+                }
+            }
+            if cholesky(&mut ata, e) {
+                cholesky_solve(&ata, e, &mut rhs);
+                lambda = rhs;
+            }
+        }
         let mut iterations = 0u32;
         let mut n_out = vec![0.0; m];
         let max_outer = if self.eos.is_some() { 60 } else { 1 };
         let mut converged_phi = self.eos.is_none();
+        let lo0 = (total_atoms / max_atoms + n_inert).ln();
+        let hi0 = (total_atoms / min_atoms + n_inert).ln();
+        let mut ln_n = total_in.ln().clamp(lo0, hi0);
         for _ in 0..max_outer {
-            let lo = (total_atoms / max_atoms + n_inert).ln();
-            let hi = (total_atoms / min_atoms + n_inert).ln();
-            let x0 = total_in.ln().clamp(lo, hi);
-            let mut inner_fail: Option<String> = None;
-            let mut eval = |ln_n: f64| -> (f64, f64) {
-                match inner(&a, &b, &g, ln_n, &mut lambda, &mut iterations) {
-                    Ok((sum, dsum)) => {
-                        let tot = sum + n_inert;
-                        (tot.ln() - ln_n, dsum / tot - 1.0)
-                    }
-                    Err(r) => {
-                        inner_fail = Some(r);
-                        (f64::NAN, f64::NAN)
-                    }
-                }
+            let problem = InnerProblem {
+                a: &a,
+                m,
+                e,
+                b: &b,
+                g: &g,
             };
-            let ln_n = if (hi - lo).abs() < 1e-14 {
-                let _ = eval(lo);
-                lo
-            } else {
-                match newton_bracketed(&mut eval, lo, hi, x0, 1e-14, 100) {
-                    RootOutcome::Converged { x, .. } => x,
-                    RootOutcome::NotConverged { x, .. } => x,
-                    other => {
-                        return fail(
-                            inner_fail
-                                .unwrap_or_else(|| format!("total moles not found: {other:?}")),
-                        );
-                    }
+            // Safeguarded Newton on ln N. The bracket holds the root by construction:
+            // Σ n lies between Σb/max atoms and Σb/min atoms whatever λ is, so
+            // f = ln(Σn + N_inert) − ln N is ≥ 0 at `lo` and ≤ 0 at `hi`.
+            let (mut lo, mut hi) = (lo0, hi0);
+            let mut settled = (hi - lo).abs() < 1e-14;
+            for _ in 0..100 {
+                if settled {
+                    break;
                 }
-            };
-            // Final inner solve at the chosen total, then read the moles.
-            if let Err(r) = inner(&a, &b, &g, ln_n, &mut lambda, &mut iterations) {
-                return fail(r);
+                let (sum, dsum) =
+                    match inner(&problem, ln_n, &mut lambda, &mut n_out, &mut iterations) {
+                        Ok(v) => v,
+                        Err(r) => return fail(r),
+                    };
+                let tot = sum + n_inert;
+                let f = tot.ln() - ln_n;
+                let df = dsum / tot - 1.0;
+                if f > 0.0 {
+                    lo = ln_n;
+                } else {
+                    hi = ln_n;
+                }
+                if f == 0.0 {
+                    break;
+                }
+                let mut next = ln_n - f / df;
+                if !(next >= lo && next <= hi && next.is_finite()) {
+                    next = 0.5 * (lo + hi);
+                }
+                settled = (next - ln_n).abs() < 1e-14;
+                ln_n = next;
             }
-            if let Some(r) = inner_fail {
+            // Final inner solve at the chosen total, which also fills the moles.
+            if let Err(r) = inner(&problem, ln_n, &mut lambda, &mut n_out, &mut iterations) {
                 return fail(r);
-            }
-            let at = a.clone() * &lambda;
-            for k in 0..m {
-                n_out[k] = (at[k] - g[k] + ln_n).exp();
             }
             let Some(eos) = &self.eos else { break };
             let tot: f64 = n_out.iter().sum::<f64>() + n_inert;
@@ -483,7 +509,6 @@ impl EquilibriumSystem {
             for i in s..n_all {
                 y_all[i] = moles_in[i] / tot;
             }
-            let mut new_phi = vec![0.0; n_all];
             if let Err(err) = eos.ln_phi(t_k, p_bar, &y_all, &mut new_phi, &mut scratch) {
                 return fail(err.to_string());
             }
@@ -491,7 +516,7 @@ impl EquilibriumSystem {
                 .iter()
                 .zip(&ln_phi)
                 .fold(0.0f64, |a, (x, y)| a.max((x - y).abs()));
-            ln_phi = new_phi;
+            ln_phi.copy_from_slice(&new_phi);
             for (k, &i) in sp_present.iter().enumerate() {
                 g[k] = g0[i] + ln_p + ln_phi[i];
             }
@@ -522,82 +547,170 @@ impl EquilibriumSystem {
     }
 }
 
-/// Minimises Ψ(λ) = N Σ exp(a_i·λ − g_i) − b·λ for N = exp(ln_n) from the given λ.
-/// Returns Σ n_i and d(Σ n_i)/d ln N at the minimum.
+/// Most independent elements a system may have (C, H, O, N, S, Cl, Ar, He cover the plant).
+pub const MAX_ELEMENTS: usize = 8;
+
+/// The fixed data of the inner problem: atoms (row-major m×e), element totals, potentials.
+struct InnerProblem<'a> {
+    a: &'a [f64],
+    m: usize,
+    e: usize,
+    b: &'a [f64; MAX_ELEMENTS],
+    g: &'a [f64],
+}
+
+impl InnerProblem<'_> {
+    /// n_i = exp(a_i·λ − g_i + ln N) into `n`; returns Ψ = Σ n_i − b·λ.
+    fn moles(&self, lambda: &[f64; MAX_ELEMENTS], ln_n: f64, n: &mut [f64]) -> f64 {
+        let mut sum = 0.0;
+        for (k, nk) in n.iter_mut().enumerate().take(self.m) {
+            let row = &self.a[k * self.e..(k + 1) * self.e];
+            let w: f64 = row.iter().zip(lambda.iter()).map(|(x, l)| x * l).sum();
+            *nk = (w - self.g[k] + ln_n).min(700.0).exp();
+            sum += *nk;
+        }
+        sum - self
+            .b
+            .iter()
+            .zip(lambda.iter())
+            .take(self.e)
+            .map(|(b, l)| b * l)
+            .sum::<f64>()
+    }
+}
+
+/// In-place Cholesky (lower) of the leading e×e block; false if not positive definite.
+fn cholesky(h: &mut [[f64; MAX_ELEMENTS]; MAX_ELEMENTS], e: usize) -> bool {
+    for j in 0..e {
+        let mut d = h[j][j];
+        for k in 0..j {
+            d -= h[j][k] * h[j][k];
+        }
+        if !(d > 0.0 && d.is_finite()) {
+            return false;
+        }
+        let d = d.sqrt();
+        h[j][j] = d;
+        for i in (j + 1)..e {
+            let mut v = h[i][j];
+            for k in 0..j {
+                v -= h[i][k] * h[j][k];
+            }
+            h[i][j] = v / d;
+        }
+    }
+    true
+}
+
+/// Solves L Lᵀ x = rhs in place with the factor from [`cholesky`].
+fn cholesky_solve(l: &[[f64; MAX_ELEMENTS]; MAX_ELEMENTS], e: usize, x: &mut [f64; MAX_ELEMENTS]) {
+    for i in 0..e {
+        let mut v = x[i];
+        for k in 0..i {
+            v -= l[i][k] * x[k];
+        }
+        x[i] = v / l[i][i];
+    }
+    for i in (0..e).rev() {
+        let mut v = x[i];
+        for k in (i + 1)..e {
+            v -= l[k][i] * x[k];
+        }
+        x[i] = v / l[i][i];
+    }
+}
+
+/// Minimises Ψ(λ) = N Σ exp(a_i·λ − g_i) − b·λ for N = exp(ln_n), starting from `lambda`,
+/// by Newton with a backtracking line search. Fills `n` with the moles at the minimum and
+/// returns Σ n_i and d(Σ n_i)/d ln N there. No allocation.
 fn inner(
-    a: &DMatrix<f64>,
-    b: &DVector<f64>,
-    g: &DVector<f64>,
+    p: &InnerProblem,
     ln_n: f64,
-    lambda: &mut DVector<f64>,
+    lambda: &mut [f64; MAX_ELEMENTS],
+    n: &mut [f64],
     iterations: &mut u32,
 ) -> Result<(f64, f64), String> {
-    let m = a.nrows();
-    let e = a.ncols();
-    let moles = |lam: &DVector<f64>| -> DVector<f64> {
-        let w = a * lam;
-        DVector::from_iterator(m, (0..m).map(|i| (w[i] - g[i] + ln_n).min(700.0).exp()))
-    };
-    let psi = |n: &DVector<f64>, lam: &DVector<f64>| n.sum() - b.dot(lam);
-    let mut n = moles(lambda);
-    let mut f = psi(&n, lambda);
+    let e = p.e;
+    let mut f = p.moles(lambda, ln_n, n);
     for _ in 0..200 {
         *iterations += 1;
-        let grad = a.transpose() * &n - b;
-        let mut h = DMatrix::<f64>::zeros(e, e);
-        for i in 0..m {
-            let row = a.row(i);
-            for p in 0..e {
-                let ap = row[p] * n[i];
-                if ap == 0.0 {
+        // Gradient Aᵀn − b and Hessian Aᵀ diag(n) A.
+        let mut grad = [0.0; MAX_ELEMENTS];
+        let mut h = [[0.0; MAX_ELEMENTS]; MAX_ELEMENTS];
+        for k in 0..p.m {
+            let row = &p.a[k * e..(k + 1) * e];
+            for q in 0..e {
+                let aq = row[q] * n[k];
+                if aq == 0.0 {
                     continue;
                 }
-                for q in 0..e {
-                    h[(p, q)] += ap * row[q];
+                grad[q] += aq;
+                for r in 0..=q {
+                    h[q][r] += aq * row[r];
                 }
             }
         }
-        // Tiny ridge keeps the factorisation alive when a present element's species
-        // are all vanishingly rare at the current iterate.
-        let ridge = 1e-300f64.max(h.diagonal().max() * 1e-15);
-        for p in 0..e {
-            h[(p, p)] += ridge;
+        let mut rel = 0.0f64;
+        for q in 0..e {
+            grad[q] -= p.b[q];
+            rel = rel.max(grad[q].abs() / p.b[q]);
         }
-        let Some(ch) = h.clone().cholesky() else {
+        // A tiny ridge keeps the factorisation alive when an element's species are all
+        // vanishingly rare at the current iterate.
+        let diag_max = (0..e).fold(0.0f64, |x, q| x.max(h[q][q]));
+        for q in 0..e {
+            h[q][q] += 1e-300f64.max(diag_max * 1e-15);
+        }
+        if !cholesky(&mut h, e) {
             return Err("element-potential Hessian is singular".into());
+        }
+        let derivative = |n: &[f64]| {
+            // dλ/d ln N = −H⁻¹ b; dΣn/d ln N = Σn + (Aᵀn)·dλ.
+            let mut dl = [0.0; MAX_ELEMENTS];
+            for q in 0..e {
+                dl[q] = -p.b[q];
+            }
+            cholesky_solve(&h, e, &mut dl);
+            let sum: f64 = n[..p.m].iter().sum();
+            let mut d = sum;
+            for q in 0..e {
+                d += (grad[q] + p.b[q]) * dl[q];
+            }
+            (sum, d)
         };
-        let rel = (0..e).fold(0.0f64, |acc, j| acc.max(grad[j].abs() / b[j]));
         if rel < 1e-13 {
-            let sum = n.sum();
-            // dλ/d ln N = −H⁻¹ b; dΣn/d ln N = Σn + (Aᵀ n)·dλ.
-            let dl = ch.solve(&(-b));
-            let an = a.transpose() * &n;
-            return Ok((sum, sum + an.dot(&dl)));
+            return Ok(derivative(n));
         }
-        let mut step = ch.solve(&(-&grad));
+        let mut step = [0.0; MAX_ELEMENTS];
+        for q in 0..e {
+            step[q] = -grad[q];
+        }
+        cholesky_solve(&h, e, &mut step);
         // Damping: element potentials move at most 10 per step (e^10 in any amount).
-        let big = step.amax();
+        let big = step[..e].iter().fold(0.0f64, |x, s| x.max(s.abs()));
         if big > 10.0 {
-            step *= 10.0 / big;
+            step[..e].iter_mut().for_each(|s| *s *= 10.0 / big);
         }
-        let slope = grad.dot(&step);
+        let slope: f64 = (0..e).map(|q| grad[q] * step[q]).sum();
         if -slope < 1e-12 * (1.0 + f.abs()) {
-            // Close in: the predicted decrease of Ψ is below its rounding noise, so a
-            // line search would judge noise. Newton converges quadratically here.
-            *lambda += &step;
-            n = moles(lambda);
-            f = psi(&n, lambda);
+            // Close in: the predicted decrease of Ψ is below its rounding noise, so a line
+            // search would judge noise. Newton converges quadratically here.
+            for q in 0..e {
+                lambda[q] += step[q];
+            }
+            f = p.moles(lambda, ln_n, n);
             continue;
         }
         let mut alpha = 1.0;
         let mut accepted = false;
         for _ in 0..60 {
-            let trial = &*lambda + alpha * &step;
-            let nt = moles(&trial);
-            let ft = psi(&nt, &trial);
+            let mut trial = *lambda;
+            for q in 0..e {
+                trial[q] += alpha * step[q];
+            }
+            let ft = p.moles(&trial, ln_n, n);
             if ft.is_finite() && ft <= f + 1e-4 * alpha * slope + 1e-15 * f.abs() {
                 *lambda = trial;
-                n = nt;
                 f = ft;
                 accepted = true;
                 break;
@@ -605,12 +718,10 @@ fn inner(
             alpha *= 0.5;
         }
         if !accepted {
-            // No descent possible: accept if the balance is already as good as rounding allows.
+            p.moles(lambda, ln_n, n);
+            // No descent possible: accept if the balance is as good as rounding allows.
             if rel < 1e-10 {
-                let sum = n.sum();
-                let dl = ch.solve(&(-b));
-                let an = a.transpose() * &n;
-                return Ok((sum, sum + an.dot(&dl)));
+                return Ok(derivative(n));
             }
             return Err(format!(
                 "line search failed with element balance off by {rel:.1e}"

@@ -591,12 +591,18 @@ mod tests {
         let mut db = SpeciesDb::builtin();
         let n7 = db.by_name("N2").unwrap().clone();
         let n = db
-            .merge_toml(include_str!("../../config/species-nasa9.toml"), "species-nasa9.toml")
+            .merge_toml(
+                include_str!("../../config/species-nasa9.toml"),
+                "species-nasa9.toml",
+            )
             .unwrap();
         assert!(n >= 3);
         let n9 = db.by_name("N2").unwrap();
         assert_eq!(n9.origin, "species-nasa9.toml");
-        assert!(n9.ranges.iter().any(|r| r.c[0] != 0.0), "the file must exercise the a1/a2 terms");
+        assert!(
+            n9.ranges.iter().any(|r| r.c[0] != 0.0),
+            "the file must exercise the a1/a2 terms"
+        );
         assert!((n9.s_r(298.15) * R_J_PER_MOL_K - 191.609).abs() < 0.01);
         // Both fits describe the same N2 data: G°/RT within 3e-3 over 300-5000 K (the
         // 1993 and 2002 evaluations of N2 differ in their fits; 1.2e-3 seen at 3000 K).
