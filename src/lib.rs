@@ -7,12 +7,14 @@
 //! - [`approach`]: Q, Q/K, direction, affinity, equilibrium temperature, approach ± uncertainty.
 //! - [`equilibrium`]: equilibrium composition with element constraints (several reactions).
 //! - [`solve`]: bracketed scalar solvers.
+//! - [`config`]: the plant configuration file, validated into settings with key paths.
 //! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
 //!
 //! Advisory only: eqwatch is not a safety function; see the README.
 
 pub mod approach;
 pub mod composition;
+pub mod config;
 pub mod equilibrium;
 pub mod solve;
 pub mod thermo;
