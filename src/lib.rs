@@ -6,7 +6,9 @@
 //! - [`composition`]: analyser compositions, wet/dry basis, sum checks.
 //! - [`approach`]: Q, Q/K, direction, affinity, equilibrium temperature, approach ± uncertainty.
 //! - [`equilibrium`]: equilibrium composition with element constraints (several reactions).
+//! - [`monitor`]: per-reactor alignment of inputs, quality checks and evaluation (time passed in).
 //! - [`solve`]: bracketed scalar solvers.
+//! - [`timefmt`]: RFC 3339 and epoch-millisecond timestamps.
 //! - [`config`]: the plant configuration file, validated into settings with key paths.
 //! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
 //!
@@ -16,9 +18,14 @@ pub mod approach;
 pub mod composition;
 pub mod config;
 pub mod equilibrium;
+pub mod monitor;
+pub mod sim;
 pub mod solve;
 pub mod thermo;
+pub mod timefmt;
 pub mod units;
 
 #[cfg(feature = "cli")]
 pub mod cli;
+#[cfg(feature = "daemon")]
+pub mod daemon;

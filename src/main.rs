@@ -105,6 +105,154 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Check a plant configuration: every problem with its key path, or a plant summary.
+    Check {
+        #[arg(long)]
+        config: PathBuf,
+    },
+    /// Run the monitoring daemon on a plant configuration.
+    Run {
+        #[arg(long)]
+        config: PathBuf,
+        /// Override the configured broker, e.g. mqtt://127.0.0.1:1883.
+        #[arg(long)]
+        broker: Option<String>,
+        #[command(flatten)]
+        log: LogArgs,
+    },
+    /// The one-command demo: embedded broker, simulated plant, the daemon, a live table.
+    Demo {
+        /// Simulated seconds per wall-clock second.
+        #[arg(long, default_value_t = 60.0)]
+        speed: f64,
+        /// How long to run, e.g. "90 s" or "3 min" (wall clock).
+        #[arg(long, default_value = "90 s")]
+        duration: String,
+        /// Use this broker instead of the embedded one, e.g. mqtt://127.0.0.1:1883.
+        #[arg(long)]
+        broker: Option<String>,
+        #[command(flatten)]
+        log: LogArgs,
+    },
+}
+
+#[derive(clap::Args, Debug, Clone)]
+struct LogArgs {
+    /// Log format: text or json (one object per line, for journald and log shippers).
+    #[arg(long, default_value = "text")]
+    log_format: String,
+    /// Log level: error, warn, info, debug, trace.
+    #[arg(long, default_value = "info")]
+    log_level: String,
+}
+
+fn init_tracing(log: &LogArgs) -> Result<(), CliError> {
+    let level: tracing::Level = log.log_level.parse().map_err(|_| {
+        CliError::Input(format!(
+            "--log-level `{}`: expected error, warn, info, debug or trace",
+            log.log_level
+        ))
+    })?;
+    use tracing_subscriber::layer::SubscriberExt;
+    use tracing_subscriber::util::SubscriberInitExt;
+    // The embedded demo broker logs every connection (and our readiness probe as an
+    // error); it is quiet unless debugging.
+    let broker_level = if level >= tracing::Level::DEBUG {
+        tracing_subscriber::filter::LevelFilter::from_level(level)
+    } else {
+        tracing_subscriber::filter::LevelFilter::OFF
+    };
+    let filter = tracing_subscriber::filter::Targets::new()
+        .with_default(level)
+        .with_target("rumqttd", broker_level);
+    let result = match log.log_format.as_str() {
+        "text" => tracing_subscriber::registry()
+            .with(
+                tracing_subscriber::fmt::layer()
+                    .with_writer(std::io::stderr)
+                    .with_target(false),
+            )
+            .with(filter)
+            .try_init(),
+        "json" => tracing_subscriber::registry()
+            .with(
+                tracing_subscriber::fmt::layer()
+                    .json()
+                    .with_writer(std::io::stderr),
+            )
+            .with(filter)
+            .try_init(),
+        other => {
+            return Err(CliError::Input(format!(
+                "--log-format `{other}`: expected text or json"
+            )));
+        }
+    };
+    result.map_err(|e| CliError::Internal(format!("logging: {e}")))
+}
+
+fn load_config(path: &std::path::Path) -> Result<eqwatch::config::Settings, CliError> {
+    eqwatch::config::load(path).map_err(|e| CliError::Input(format!("{}:\n{e}", path.display())))
+}
+
+/// Resolves on SIGINT or SIGTERM.
+async fn shutdown_signal() {
+    let ctrl_c = tokio::signal::ctrl_c();
+    #[cfg(unix)]
+    {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut term) => {
+                tokio::select! {
+                    _ = ctrl_c => {}
+                    _ = term.recv() => {}
+                }
+            }
+            Err(_) => {
+                let _ = ctrl_c.await;
+            }
+        }
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = ctrl_c.await;
+    }
+}
+
+fn runtime() -> Result<tokio::runtime::Runtime, CliError> {
+    tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .map_err(|e| CliError::Internal(format!("tokio runtime: {e}")))
+}
+
+fn run_daemon(
+    config: &std::path::Path,
+    broker: Option<String>,
+    log: &LogArgs,
+) -> Result<(), CliError> {
+    init_tracing(log)?;
+    let mut settings = load_config(config)?;
+    if let Some(url) = broker {
+        eqwatch::config::override_broker(&mut settings, &url)
+            .map_err(|e| CliError::Input(format!("--broker: {e}")))?;
+    }
+    let rt = runtime()?;
+    rt.block_on(async move {
+        let cancel = tokio_util::sync::CancellationToken::new();
+        let c = cancel.clone();
+        tokio::spawn(async move {
+            shutdown_signal().await;
+            tracing::info!("signal received: shutting down");
+            c.cancel();
+        });
+        eqwatch::daemon::run(
+            std::sync::Arc::new(settings),
+            cancel,
+            eqwatch::daemon::wall_clock(),
+        )
+        .await
+        .map_err(|e| CliError::Input(format!("{e:#}")))
+    })
 }
 
 fn load_species(files: &[PathBuf]) -> anyhow::Result<SpeciesDb> {
@@ -183,6 +331,32 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             Ok((cli::equilibrium(&db, &inp)?, json))
         }
         Command::Species { json } => Ok((cli::species(&db), json)),
+        Command::Check { config } => {
+            let settings = load_config(&config)?;
+            Ok((
+                serde_json::Value::String(eqwatch::config::summary(&settings)),
+                false,
+            ))
+        }
+        Command::Run {
+            config,
+            broker,
+            log,
+        } => {
+            run_daemon(&config, broker, &log)?;
+            Ok((serde_json::Value::Null, false))
+        }
+        Command::Demo {
+            speed,
+            duration,
+            broker,
+            log,
+        } => {
+            init_tracing(&log)?;
+            let rt = runtime()?;
+            rt.block_on(eqwatch::daemon::demo::run(speed, &duration, broker))?;
+            Ok((serde_json::Value::Null, false))
+        }
     }
 }
 
@@ -190,10 +364,11 @@ fn main() -> ExitCode {
     let args = Args::parse();
     match run(args) {
         Ok((value, json)) => {
-            if json {
-                println!("{value}");
-            } else {
-                print!("{}", cli::table(&value));
+            match value {
+                serde_json::Value::Null => {}
+                serde_json::Value::String(text) => print!("{text}"),
+                v if json => println!("{v}"),
+                v => print!("{}", cli::table(&v)),
             }
             ExitCode::SUCCESS
         }

@@ -1,0 +1,70 @@
+//! A minimal HTTP/1.1 endpoint for `/metrics` (Prometheus text), `/healthz` (the
+//! process runs) and `/readyz` (connected to the broker and the journal writable).
+//! One request per connection, GET only; bound to loopback by default.
+
+use std::net::SocketAddr;
+use std::sync::Arc;
+use std::sync::atomic::Ordering::Relaxed;
+use std::time::Duration;
+
+use tokio::io::{AsyncReadExt, AsyncWriteExt};
+use tokio::net::TcpListener;
+use tokio_util::sync::CancellationToken;
+
+use super::metrics::Metrics;
+
+/// Binds the listener (errors here are configuration errors) and serves until cancelled.
+pub async fn bind(addr: SocketAddr) -> std::io::Result<TcpListener> {
+    TcpListener::bind(addr).await
+}
+
+pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: CancellationToken) {
+    loop {
+        let accepted = tokio::select! {
+            _ = cancel.cancelled() => return,
+            a = listener.accept() => a,
+        };
+        let Ok((mut stream, _)) = accepted else {
+            continue;
+        };
+        let metrics = metrics.clone();
+        tokio::spawn(async move {
+            let mut buf = [0u8; 2048];
+            let n = match tokio::time::timeout(Duration::from_secs(5), stream.read(&mut buf)).await
+            {
+                Ok(Ok(n)) => n,
+                _ => return,
+            };
+            let head = String::from_utf8_lossy(&buf[..n]);
+            let mut parts = head.split_whitespace();
+            let (method, path) = (parts.next().unwrap_or(""), parts.next().unwrap_or(""));
+            let (status, ctype, body) = match (method, path) {
+                ("GET", "/metrics") => ("200 OK", "text/plain; version=0.0.4", metrics.render()),
+                ("GET", "/healthz") => ("200 OK", "text/plain", "ok\n".to_string()),
+                ("GET", "/readyz") => {
+                    if metrics.ready.load(Relaxed) && metrics.connected.load(Relaxed) {
+                        ("200 OK", "text/plain", "ready\n".to_string())
+                    } else {
+                        (
+                            "503 Service Unavailable",
+                            "text/plain",
+                            "not ready: broker not connected\n".to_string(),
+                        )
+                    }
+                }
+                ("GET", _) => ("404 Not Found", "text/plain", "not found\n".to_string()),
+                _ => (
+                    "405 Method Not Allowed",
+                    "text/plain",
+                    "GET only\n".to_string(),
+                ),
+            };
+            let resp = format!(
+                "HTTP/1.1 {status}\r\nContent-Type: {ctype}\r\nContent-Length: {}\r\nConnection: close\r\n\r\n{body}",
+                body.len()
+            );
+            let _ = stream.write_all(resp.as_bytes()).await;
+            let _ = stream.shutdown().await;
+        });
+    }
+}

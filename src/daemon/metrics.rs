@@ -1,0 +1,212 @@
+//! Counters and gauges of the daemon, shared between tasks through atomics, rendered
+//! as Prometheus text exposition (version 0.0.4).
+
+use std::fmt::Write;
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering::Relaxed};
+
+use super::payload::DecodeError;
+
+/// Per-reactor figures.
+#[derive(Debug, Default)]
+pub struct ReactorMetrics {
+    pub id: String,
+    /// Evaluations by quality: good, uncertain, bad.
+    pub evaluations: [AtomicU64; 3],
+    /// Latest approach of the first reaction, f64 bits (NaN when none).
+    pub approach_k: AtomicU64,
+    pub duplicates: AtomicU64,
+    pub out_of_order: AtomicU64,
+    pub too_old: AtomicU64,
+}
+
+#[derive(Debug, Default)]
+pub struct Metrics {
+    pub messages_in: AtomicU64,
+    pub unrouted: AtomicU64,
+    pub decode_failures: [AtomicU64; DecodeError::REASONS.len()],
+    pub published: AtomicU64,
+    pub publish_failures: AtomicU64,
+    pub reconnects: AtomicU64,
+    pub connected: AtomicBool,
+    pub ready: AtomicBool,
+    pub journal_last_seq: AtomicU64,
+    pub journal_published_seq: AtomicU64,
+    pub journal_bytes: AtomicU64,
+    pub journal_dropped: AtomicU64,
+    pub journal_dropped_unpublished: AtomicU64,
+    pub journal_errors: AtomicU64,
+    pub reactors: Vec<ReactorMetrics>,
+}
+
+impl Metrics {
+    pub fn new(reactor_ids: &[String]) -> Self {
+        Self {
+            reactors: reactor_ids
+                .iter()
+                .map(|id| ReactorMetrics {
+                    id: id.clone(),
+                    approach_k: AtomicU64::new(f64::NAN.to_bits()),
+                    ..Default::default()
+                })
+                .collect(),
+            ..Default::default()
+        }
+    }
+
+    pub fn backlog(&self) -> u64 {
+        self.journal_last_seq
+            .load(Relaxed)
+            .saturating_sub(self.journal_published_seq.load(Relaxed))
+    }
+
+    /// Prometheus text exposition.
+    pub fn render(&self) -> String {
+        let mut s = String::with_capacity(4096);
+        let mut counter = |name: &str, help: &str, v: u64| {
+            let _ = writeln!(
+                s,
+                "# HELP eqwatch_{name} {help}\n# TYPE eqwatch_{name} counter\neqwatch_{name} {v}"
+            );
+        };
+        counter(
+            "messages_received_total",
+            "MQTT messages received on input topics.",
+            self.messages_in.load(Relaxed),
+        );
+        counter(
+            "messages_unrouted_total",
+            "Messages on topics no input uses.",
+            self.unrouted.load(Relaxed),
+        );
+        counter(
+            "results_published_total",
+            "Journal records acknowledged by the broker.",
+            self.published.load(Relaxed),
+        );
+        counter(
+            "publish_failures_total",
+            "Publishes that could not be handed to the MQTT client.",
+            self.publish_failures.load(Relaxed),
+        );
+        counter(
+            "reconnects_total",
+            "Broker connection losses.",
+            self.reconnects.load(Relaxed),
+        );
+        counter(
+            "journal_dropped_total",
+            "Journal records deleted by the size cap.",
+            self.journal_dropped.load(Relaxed),
+        );
+        counter(
+            "journal_dropped_unpublished_total",
+            "Journal records deleted by the size cap before the broker had them.",
+            self.journal_dropped_unpublished.load(Relaxed),
+        );
+        counter(
+            "journal_errors_total",
+            "Journal write or read errors.",
+            self.journal_errors.load(Relaxed),
+        );
+        let _ = writeln!(
+            s,
+            "# HELP eqwatch_decode_failures_total Input messages that could not be decoded, by reason.\n# TYPE eqwatch_decode_failures_total counter"
+        );
+        for (i, r) in DecodeError::REASONS.iter().enumerate() {
+            let _ = writeln!(
+                s,
+                "eqwatch_decode_failures_total{{reason=\"{r}\"}} {}",
+                self.decode_failures[i].load(Relaxed)
+            );
+        }
+        let _ = writeln!(
+            s,
+            "# HELP eqwatch_evaluations_total Evaluated analyses by reactor and quality.\n# TYPE eqwatch_evaluations_total counter"
+        );
+        for r in &self.reactors {
+            for (i, q) in ["good", "uncertain", "bad"].iter().enumerate() {
+                let _ = writeln!(
+                    s,
+                    "eqwatch_evaluations_total{{reactor=\"{}\",quality=\"{q}\"}} {}",
+                    r.id,
+                    r.evaluations[i].load(Relaxed)
+                );
+            }
+        }
+        let _ = writeln!(
+            s,
+            "# HELP eqwatch_inputs_refused_total Inputs refused by reactor and reason.\n# TYPE eqwatch_inputs_refused_total counter"
+        );
+        for r in &self.reactors {
+            for (reason, v) in [
+                ("duplicate", &r.duplicates),
+                ("out_of_order", &r.out_of_order),
+                ("too_old", &r.too_old),
+            ] {
+                let _ = writeln!(
+                    s,
+                    "eqwatch_inputs_refused_total{{reactor=\"{}\",reason=\"{reason}\"}} {}",
+                    r.id,
+                    v.load(Relaxed)
+                );
+            }
+        }
+        let _ = writeln!(
+            s,
+            "# HELP eqwatch_approach_kelvin Latest temperature approach of the reactor's first reaction.\n# TYPE eqwatch_approach_kelvin gauge"
+        );
+        for r in &self.reactors {
+            let v = f64::from_bits(r.approach_k.load(Relaxed));
+            let text = if v.is_finite() {
+                v.to_string()
+            } else {
+                "NaN".into()
+            };
+            let _ = writeln!(s, "eqwatch_approach_kelvin{{reactor=\"{}\"}} {text}", r.id);
+        }
+        let mut gauge = |name: &str, help: &str, v: u64| {
+            let _ = writeln!(
+                s,
+                "# HELP eqwatch_{name} {help}\n# TYPE eqwatch_{name} gauge\neqwatch_{name} {v}"
+            );
+        };
+        gauge(
+            "broker_connected",
+            "1 while connected to the broker.",
+            u64::from(self.connected.load(Relaxed)),
+        );
+        gauge(
+            "journal_backlog_records",
+            "Journal records not yet acknowledged by the broker.",
+            self.backlog(),
+        );
+        gauge(
+            "journal_last_sequence",
+            "Sequence number of the newest journal record.",
+            self.journal_last_seq.load(Relaxed),
+        );
+        gauge(
+            "journal_bytes",
+            "Bytes held in journal files.",
+            self.journal_bytes.load(Relaxed),
+        );
+        s
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn renders_every_family_once() {
+        let m = Metrics::new(&["lts1".to_string()]);
+        m.messages_in.fetch_add(3, Relaxed);
+        m.reactors[0].approach_k.store(12.5f64.to_bits(), Relaxed);
+        let text = m.render();
+        assert!(text.contains("eqwatch_messages_received_total 3"));
+        assert!(text.contains("eqwatch_approach_kelvin{reactor=\"lts1\"} 12.5"));
+        assert!(text.contains("eqwatch_decode_failures_total{reason=\"bad_unit\"} 0"));
+        assert_eq!(text.matches("# TYPE eqwatch_evaluations_total").count(), 1);
+    }
+}

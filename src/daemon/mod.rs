@@ -1,0 +1,476 @@
+//! The shell: MQTT in and out, the journal, metrics over HTTP, signals. The only place
+//! tokio and rumqttc appear. The numeric work happens in the pure core
+//! ([`crate::monitor`], [`crate::approach`]); this module moves data and owns durability.
+//!
+//! Tasks and threads:
+//! ```text
+//! broker ─► link task (mqtt.rs: owns the EventLoop) ──raw input──► evaluator task
+//!              ▲                                                   (decode, monitor, encode)
+//!              │ records (journaled)                                     │ results
+//!              └──────────────── journal thread (journal.rs, std I/O) ◄──┘
+//! ```
+//! A result is in the journal before the link sees it; the link publishes with QoS 1 and
+//! tells the journal what the broker acknowledged, so a restart resends the rest.
+
+#[cfg(feature = "demo-broker")]
+pub mod broker;
+pub mod demo;
+pub mod http;
+pub mod journal;
+pub mod metrics;
+pub mod mqtt;
+pub mod outbox;
+pub mod payload;
+pub mod proxy;
+
+use std::collections::HashMap;
+use std::sync::Arc;
+use std::sync::atomic::Ordering::Relaxed;
+use std::time::{Duration, SystemTime, UNIX_EPOCH};
+
+use tokio::sync::mpsc;
+use tokio_util::sync::CancellationToken;
+use tracing::{debug, error, info, warn};
+
+use crate::config::{CompositionSource, Settings, SteamRatioSettings};
+use crate::monitor::{Input, Outcome, Quality, ReactorMonitor};
+use journal::Journal;
+use metrics::Metrics;
+use outbox::Outgoing;
+
+/// Milliseconds since the Unix epoch (the shell's one clock).
+pub fn now_ms() -> i64 {
+    SystemTime::now()
+        .duration_since(UNIX_EPOCH)
+        .map_or(0, |d| i64::try_from(d.as_millis()).unwrap_or(i64::MAX))
+}
+
+/// The shell's clock in epoch milliseconds: the wall clock for `run`, compressed
+/// simulated time for the demo. Everything downstream gets time from here.
+pub type Clock = Arc<dyn Fn() -> i64 + Send + Sync>;
+
+/// The wall clock.
+pub fn wall_clock() -> Clock {
+    Arc::new(now_ms)
+}
+
+/// A message as it came from the broker.
+#[derive(Debug, Clone)]
+pub struct RawInput {
+    pub topic: String,
+    pub payload: Vec<u8>,
+    pub arrival_ms: i64,
+}
+
+/// Requests to the journal thread.
+#[derive(Debug)]
+pub enum JournalCmd {
+    Append {
+        topic: String,
+        retain: bool,
+        payload: String,
+    },
+    Published {
+        seq: u64,
+        force: bool,
+    },
+    ReadAfter {
+        after: u64,
+        max: usize,
+    },
+    /// The evaluator has no more results (shutdown).
+    Drained,
+}
+
+/// Messages from the journal thread to the link.
+#[derive(Debug)]
+pub enum ToLink {
+    Record(Outgoing),
+    ReadDone,
+    JournalAt(u64),
+    Drained,
+}
+
+#[derive(Debug, thiserror::Error)]
+pub enum DaemonError {
+    #[error("journal: {0}")]
+    Journal(String),
+    #[error("http listener on {addr}: {source}")]
+    Http {
+        addr: std::net::SocketAddr,
+        source: std::io::Error,
+    },
+    #[error(transparent)]
+    Link(#[from] mqtt::LinkError),
+}
+
+/// What an input topic feeds.
+#[derive(Debug, Clone, Copy)]
+enum Route {
+    Temperature(usize, usize),
+    Pressure(usize),
+    SteamRatio(usize),
+    Analysis(usize),
+    Component(usize, usize),
+}
+
+fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
+    let mut m: HashMap<String, Vec<Route>> = HashMap::new();
+    for (r, rs) in s.reactors.iter().enumerate() {
+        for (i, t) in rs.temperatures.iter().enumerate() {
+            m.entry(t.topic.clone())
+                .or_default()
+                .push(Route::Temperature(r, i));
+        }
+        m.entry(rs.pressure.topic.clone())
+            .or_default()
+            .push(Route::Pressure(r));
+        if let Some(SteamRatioSettings::Measured(ss)) = &rs.steam_ratio {
+            m.entry(ss.topic.clone())
+                .or_default()
+                .push(Route::SteamRatio(r));
+        }
+        match &rs.composition.source {
+            CompositionSource::Analyser { topic, .. } => {
+                m.entry(topic.clone()).or_default().push(Route::Analysis(r))
+            }
+            CompositionSource::PerComponent { topics, .. } => {
+                for (species, topic) in topics {
+                    if let Some(c) = rs
+                        .composition
+                        .components
+                        .iter()
+                        .position(|x| x.eq_ignore_ascii_case(species))
+                    {
+                        m.entry(topic.clone())
+                            .or_default()
+                            .push(Route::Component(r, c));
+                    }
+                }
+            }
+        }
+    }
+    m
+}
+
+/// Decodes, evaluates and journals until the input channel closes.
+async fn evaluate_loop(
+    settings: Arc<Settings>,
+    mut rx: mpsc::Receiver<RawInput>,
+    journal: std::sync::mpsc::Sender<JournalCmd>,
+    metrics: Arc<Metrics>,
+    clock: Clock,
+) {
+    {
+        let table = routes(&settings);
+        let mut monitors: Vec<ReactorMonitor> =
+            settings.reactors.iter().map(ReactorMonitor::new).collect();
+        while let Some(raw) = rx.recv().await {
+            let Some(rts) = table.get(&raw.topic) else {
+                metrics.unrouted.fetch_add(1, Relaxed);
+                continue;
+            };
+            for route in rts {
+                let (r, decoded) = decode(&settings, *route, &raw);
+                let rs = &settings.reactors[r];
+                let rm = &metrics.reactors[r];
+                let input = match decoded {
+                    Ok(i) => i,
+                    Err(e) => {
+                        metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
+                        warn!(reactor = %rs.id, topic = %raw.topic, reason = e.reason(), error = %e, "input rejected");
+                        continue;
+                    }
+                };
+                match monitors[r].accept(rs, &settings.species, input, raw.arrival_ms) {
+                    Outcome::Stored => {}
+                    Outcome::Duplicate => {
+                        rm.duplicates.fetch_add(1, Relaxed);
+                        debug!(reactor = %rs.id, topic = %raw.topic, "duplicate analysis ignored");
+                    }
+                    Outcome::OutOfOrder { last_ts_ms } => {
+                        rm.out_of_order.fetch_add(1, Relaxed);
+                        warn!(reactor = %rs.id, topic = %raw.topic, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
+                    }
+                    Outcome::TooOld => {
+                        rm.too_old.fetch_add(1, Relaxed);
+                    }
+                    Outcome::Evaluated(e) => {
+                        let q = match e.quality {
+                            Quality::Good => 0,
+                            Quality::Uncertain => 1,
+                            Quality::Bad => 2,
+                        };
+                        rm.evaluations[q].fetch_add(1, Relaxed);
+                        let approach = if e.quality == Quality::Bad {
+                            None
+                        } else {
+                            e.reactions.first().and_then(|a| a.approach_k)
+                        };
+                        rm.approach_k
+                            .store(approach.unwrap_or(f64::NAN).to_bits(), Relaxed);
+                        if e.quality != Quality::Good {
+                            let codes: Vec<&str> = e
+                                .reasons
+                                .iter()
+                                .filter(|x| x.severity != Quality::Good)
+                                .map(|x| x.code)
+                                .collect();
+                            warn!(reactor = %rs.id, quality = e.quality.as_str(), reasons = ?codes, "evaluation not good");
+                        } else {
+                            debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
+                        }
+                        let payload = payload::encode_result(rs, &settings.species, &e, clock());
+                        let topic = format!("{}/{}/result", settings.topic_prefix, rs.id);
+                        if journal
+                            .send(JournalCmd::Append {
+                                topic,
+                                retain: true,
+                                payload,
+                            })
+                            .is_err()
+                        {
+                            error!("journal thread is gone; results cannot be kept");
+                        }
+                    }
+                }
+            }
+        }
+        let _ = journal.send(JournalCmd::Drained);
+    }
+}
+
+fn decode(
+    s: &Settings,
+    route: Route,
+    raw: &RawInput,
+) -> (usize, Result<Input, payload::DecodeError>) {
+    let atm = s.atmosphere_bar;
+    match route {
+        Route::Temperature(r, i) => {
+            let t = &s.reactors[r].temperatures[i];
+            (
+                r,
+                payload::decode_scalar(&raw.payload, &t.decoder, &t.unit, atm, raw.arrival_ms)
+                    .map(|v| Input::Temperature(i, v)),
+            )
+        }
+        Route::Pressure(r) => {
+            let p = &s.reactors[r].pressure;
+            (
+                r,
+                payload::decode_scalar(&raw.payload, &p.decoder, &p.unit, atm, raw.arrival_ms)
+                    .map(Input::Pressure),
+            )
+        }
+        Route::SteamRatio(r) => match &s.reactors[r].steam_ratio {
+            Some(SteamRatioSettings::Measured(ss)) => (
+                r,
+                payload::decode_scalar(&raw.payload, &ss.decoder, &ss.unit, atm, raw.arrival_ms)
+                    .map(Input::SteamRatio),
+            ),
+            _ => (
+                r,
+                Err(payload::DecodeError::Missing("(steam ratio)".into())),
+            ),
+        },
+        Route::Analysis(r) => (
+            r,
+            payload::decode_analysis(&raw.payload, &s.reactors[r].composition, raw.arrival_ms)
+                .map(Input::Analysis),
+        ),
+        Route::Component(r, c) => {
+            let comp = &s.reactors[r].composition;
+            let CompositionSource::PerComponent { decoder, .. } = &comp.source else {
+                return (
+                    r,
+                    Err(payload::DecodeError::Missing("(component source)".into())),
+                );
+            };
+            (
+                r,
+                payload::decode_component(&raw.payload, decoder, comp.unit, raw.arrival_ms)
+                    .map(|v| Input::Component(c, v)),
+            )
+        }
+    }
+}
+
+/// The journal thread: appends, reads back, and keeps the published cursor.
+fn journal_thread(
+    mut j: Journal,
+    rx: std::sync::mpsc::Receiver<JournalCmd>,
+    to_link: mpsc::UnboundedSender<ToLink>,
+    metrics: Arc<Metrics>,
+    clock: Clock,
+) {
+    let update = |j: &Journal| {
+        let st = j.stats();
+        metrics.journal_last_seq.store(st.last_seq, Relaxed);
+        metrics.journal_bytes.store(st.bytes, Relaxed);
+        metrics.journal_dropped.store(st.dropped_records, Relaxed);
+        metrics
+            .journal_dropped_unpublished
+            .store(st.dropped_unpublished, Relaxed);
+    };
+    update(&j);
+    let _ = to_link.send(ToLink::JournalAt(j.last_seq()));
+    while let Ok(cmd) = rx.recv() {
+        match cmd {
+            JournalCmd::Append {
+                topic,
+                retain,
+                payload,
+            } => {
+                let now = clock();
+                match j.append(now, &topic, retain, &payload) {
+                    Ok(seq) => {
+                        let _ = to_link.send(ToLink::Record(Outgoing {
+                            seq,
+                            ts_ms: now,
+                            topic,
+                            retain,
+                            payload,
+                            replayed: false,
+                        }));
+                    }
+                    Err(e) => {
+                        metrics.journal_errors.fetch_add(1, Relaxed);
+                        error!(error = %e, topic = %topic, "journal append failed; result not kept");
+                    }
+                }
+            }
+            JournalCmd::Published { seq, force } => {
+                if let Err(e) = j.mark_published(seq, clock(), force) {
+                    metrics.journal_errors.fetch_add(1, Relaxed);
+                    warn!(error = %e, "could not record the published cursor");
+                }
+            }
+            JournalCmd::ReadAfter { after, max } => {
+                match j.read_after(after, max) {
+                    Ok(records) => {
+                        for r in records {
+                            let _ = to_link.send(ToLink::Record(Outgoing {
+                                seq: r.seq,
+                                ts_ms: r.ts_ms,
+                                topic: r.topic,
+                                retain: r.retain,
+                                payload: r.payload,
+                                replayed: true,
+                            }));
+                        }
+                    }
+                    Err(e) => {
+                        metrics.journal_errors.fetch_add(1, Relaxed);
+                        error!(error = %e, "journal read failed");
+                    }
+                }
+                let _ = to_link.send(ToLink::ReadDone);
+            }
+            JournalCmd::Drained => {
+                let _ = to_link.send(ToLink::Drained);
+            }
+        }
+        update(&j);
+    }
+    if let Err(e) = j.sync() {
+        error!(error = %e, "journal sync at shutdown failed");
+    }
+}
+
+/// The advisory caution logged at start-up.
+pub const ADVISORY: &str = "eqwatch is an advisory monitoring tool: it is not a safety function, its alarms do not replace the plant's alarm system or safety systems, and local codes and licensed engineering practice govern";
+
+/// Runs the daemon until `shutdown` is cancelled; returns after a clean stop
+/// (input stopped, results flushed with QoS 1, `offline` published, disconnected).
+pub async fn run(
+    settings: Arc<Settings>,
+    shutdown: CancellationToken,
+    clock: Clock,
+) -> Result<(), DaemonError> {
+    info!(version = env!("CARGO_PKG_VERSION"), site = %settings.site, reactors = settings.reactors.len(), "eqwatch starting");
+    warn!("{ADVISORY}");
+    let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
+    let metrics = Arc::new(Metrics::new(&ids));
+    let journal = Journal::open(&settings.journal, clock())
+        .map_err(|e| DaemonError::Journal(e.to_string()))?;
+    let published_at_start = journal.published_seq();
+    let last_at_start = journal.last_seq();
+    if last_at_start > published_at_start {
+        info!(
+            backlog = last_at_start - published_at_start,
+            "journal holds results not yet acknowledged; they will be published, marked late"
+        );
+    }
+    let http_cancel = CancellationToken::new();
+    if let Some(addr) = settings.http_listen {
+        let listener = http::bind(addr)
+            .await
+            .map_err(|source| DaemonError::Http { addr, source })?;
+        info!(%addr, "metrics on http://{addr}/metrics");
+        tokio::spawn(http::serve(listener, metrics.clone(), http_cancel.clone()));
+    }
+    let status_topic = format!("{}/status", settings.topic_prefix);
+    let started = crate::timefmt::format_rfc3339(clock());
+    let status = |state: &str, reason: &str| {
+        serde_json::json!({"state": state, "reason": reason, "version": env!("CARGO_PKG_VERSION"), "site": settings.site, "started": started}).to_string()
+    };
+    let opts = mqtt::options(
+        &settings.broker,
+        &status_topic,
+        &status("offline", "connection lost"),
+    )?;
+    let mut topics: Vec<String> = routes(&settings).into_keys().collect();
+    topics.sort();
+    let cap = usize::from(settings.broker.inflight) + topics.len() + 64;
+    let (client, eventloop) = rumqttc::AsyncClient::new(opts, cap);
+
+    let (jtx, jrx) = std::sync::mpsc::channel::<JournalCmd>();
+    let (to_link, from_journal) = mpsc::unbounded_channel::<ToLink>();
+    let jm = metrics.clone();
+    let jclock = clock.clone();
+    let jthread = std::thread::Builder::new()
+        .name("eqwatch-journal".into())
+        .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock))
+        .map_err(|e| DaemonError::Journal(e.to_string()))?;
+    let (in_tx, in_rx) = mpsc::channel::<RawInput>(4096);
+    let evaluator = tokio::spawn(evaluate_loop(
+        settings.clone(),
+        in_rx,
+        jtx.clone(),
+        metrics.clone(),
+        clock.clone(),
+    ));
+    metrics.ready.store(true, Relaxed);
+    let link = mqtt::Link {
+        broker: settings.broker.clone(),
+        topics,
+        status_topic,
+        online_payload: status("online", "running"),
+        offline_payload: status("offline", "shutdown"),
+        published_at_start,
+        journal_last_at_start: last_at_start,
+        clock,
+    };
+    link.run(
+        client,
+        eventloop,
+        from_journal,
+        jtx,
+        in_tx,
+        metrics.clone(),
+        shutdown,
+        Duration::from_secs(10),
+    )
+    .await;
+    let _ = evaluator.await;
+    http_cancel.cancel();
+    // The link dropped its journal sender; the evaluator dropped its own: the thread ends.
+    let _ = tokio::task::spawn_blocking(move || jthread.join()).await;
+    info!(
+        published = metrics.published.load(Relaxed),
+        backlog = metrics.backlog(),
+        "eqwatch stopped"
+    );
+    Ok(())
+}

@@ -1,0 +1,585 @@
+//! Wire formats: decoding input messages (bare numbers, JSON with JSON Pointers,
+//! multi-component analyser messages) into core readings, and encoding evaluations
+//! as result JSON. The core never sees JSON; these shapes are this module's alone.
+
+use serde_json::{Map, Value, json};
+use thiserror::Error;
+
+use crate::composition::Basis;
+use crate::config::{
+    CompositionSettings, CompositionSource, ReactorSettings, ScalarDecoder, ScalarUnit,
+};
+use crate::monitor::{AnalysisReading, Evaluation, ScalarReading, SourceQuality};
+use crate::thermo::species::SpeciesDb;
+use crate::timefmt::{format_rfc3339, parse_rfc3339};
+use crate::units::{CompositionUnit, PressureUnit, TemperatureUnit};
+
+/// Version of the result payload; bump on any incompatible change.
+pub const RESULT_SCHEMA: &str = "eqwatch.result/1";
+
+/// Why a message could not be decoded. `reason()` is the metrics label.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum DecodeError {
+    #[error("payload is not UTF-8 text")]
+    NotText,
+    #[error("payload `{0}` is not a number")]
+    NotANumber(String),
+    #[error("payload is not JSON: {0}")]
+    NotJson(String),
+    #[error("JSON Pointer {0} finds nothing in the message")]
+    Missing(String),
+    #[error("JSON Pointer {0} does not point at a number")]
+    NotNumeric(String),
+    #[error("value at {0} is not finite")]
+    NotFinite(String),
+    #[error("timestamp `{0}` is neither RFC 3339 nor epoch milliseconds")]
+    BadTimestamp(String),
+    #[error("unit `{0}` is unknown or of the wrong kind for this input")]
+    BadUnit(String),
+    #[error("quality `{0}` is not good, uncertain or bad")]
+    BadQuality(String),
+    #[error("basis `{0}` is not wet or dry")]
+    BadBasis(String),
+    #[error("{0}")]
+    NotPhysical(String),
+}
+
+impl DecodeError {
+    pub const REASONS: [&'static str; 11] = [
+        "not_text",
+        "not_a_number",
+        "not_json",
+        "missing_field",
+        "not_numeric",
+        "not_finite",
+        "bad_timestamp",
+        "bad_unit",
+        "bad_quality",
+        "bad_basis",
+        "not_physical",
+    ];
+
+    pub fn reason_index(&self) -> usize {
+        match self {
+            Self::NotText => 0,
+            Self::NotANumber(_) => 1,
+            Self::NotJson(_) => 2,
+            Self::Missing(_) => 3,
+            Self::NotNumeric(_) => 4,
+            Self::NotFinite(_) => 5,
+            Self::BadTimestamp(_) => 6,
+            Self::BadUnit(_) => 7,
+            Self::BadQuality(_) => 8,
+            Self::BadBasis(_) => 9,
+            Self::NotPhysical(_) => 10,
+        }
+    }
+
+    pub fn reason(&self) -> &'static str {
+        Self::REASONS[self.reason_index()]
+    }
+}
+
+fn text(payload: &[u8]) -> Result<&str, DecodeError> {
+    std::str::from_utf8(payload)
+        .map(str::trim)
+        .map_err(|_| DecodeError::NotText)
+}
+
+fn json(payload: &[u8]) -> Result<Value, DecodeError> {
+    serde_json::from_str(text(payload)?).map_err(|e| DecodeError::NotJson(e.to_string()))
+}
+
+/// A timestamp field: RFC 3339 text, or epoch milliseconds (values below 1e11 are taken
+/// as epoch seconds).
+pub fn timestamp(v: &Value) -> Result<i64, DecodeError> {
+    match v {
+        Value::String(s) => parse_rfc3339(s)
+            .or_else(|| s.trim().parse::<f64>().ok().and_then(epoch_number))
+            .ok_or_else(|| DecodeError::BadTimestamp(s.clone())),
+        Value::Number(n) => n
+            .as_f64()
+            .and_then(epoch_number)
+            .ok_or_else(|| DecodeError::BadTimestamp(n.to_string())),
+        other => Err(DecodeError::BadTimestamp(other.to_string())),
+    }
+}
+
+fn epoch_number(x: f64) -> Option<i64> {
+    if !x.is_finite() || x < 0.0 {
+        return None;
+    }
+    let ms = if x < 1e11 { x * 1000.0 } else { x };
+    (ms < 1e15).then_some(ms as i64)
+}
+
+fn quality(v: Option<&Value>) -> Result<SourceQuality, DecodeError> {
+    match v {
+        None | Some(Value::Null) => Ok(SourceQuality::Good),
+        Some(Value::String(s)) => {
+            SourceQuality::parse(s).ok_or_else(|| DecodeError::BadQuality(s.clone()))
+        }
+        Some(Value::Number(n)) => SourceQuality::parse(&n.to_string())
+            .ok_or_else(|| DecodeError::BadQuality(n.to_string())),
+        Some(o) => Err(DecodeError::BadQuality(o.to_string())),
+    }
+}
+
+fn number_at(doc: &Value, pointer: &str) -> Result<f64, DecodeError> {
+    let v = doc
+        .pointer(pointer)
+        .ok_or_else(|| DecodeError::Missing(pointer.to_string()))?;
+    let x = match v {
+        Value::Number(n) => n
+            .as_f64()
+            .ok_or_else(|| DecodeError::NotNumeric(pointer.to_string()))?,
+        Value::String(s) => s
+            .trim()
+            .parse::<f64>()
+            .map_err(|_| DecodeError::NotNumeric(pointer.to_string()))?,
+        _ => return Err(DecodeError::NotNumeric(pointer.to_string())),
+    };
+    if !x.is_finite() {
+        return Err(DecodeError::NotFinite(pointer.to_string()));
+    }
+    Ok(x)
+}
+
+/// Converts a value in `unit` (the configured one, or the message's own) to fixed units.
+fn convert(
+    value: f64,
+    unit: &ScalarUnit,
+    unit_text: Option<&str>,
+    atmosphere_bar: f64,
+) -> Result<f64, DecodeError> {
+    let bad = |u: &str| DecodeError::BadUnit(u.to_string());
+    match unit {
+        ScalarUnit::Temperature(cfg) => {
+            let u = match unit_text {
+                Some(t) => TemperatureUnit::parse(t).map_err(|_| bad(t))?,
+                None => *cfg,
+            };
+            u.to_kelvin(value)
+                .map_err(|e| DecodeError::NotPhysical(e.to_string()))
+        }
+        ScalarUnit::Pressure(cfg) => {
+            let u = match unit_text {
+                Some(t) => PressureUnit::parse(t).map_err(|_| bad(t))?,
+                None => *cfg,
+            };
+            u.to_bar_absolute(value, atmosphere_bar)
+                .map_err(|e| DecodeError::NotPhysical(e.to_string()))
+        }
+        ScalarUnit::Ratio => {
+            if let Some(t) = unit_text {
+                let n = t.trim().to_ascii_lowercase();
+                if !matches!(n.as_str(), "" | "mol/mol" | "ratio" | "-" | "1") {
+                    return Err(bad(t));
+                }
+            }
+            if value < 0.0 {
+                return Err(DecodeError::NotPhysical(format!(
+                    "ratio {value} is negative"
+                )));
+            }
+            Ok(value)
+        }
+    }
+}
+
+/// Decodes a scalar input (temperature, pressure, steam ratio).
+pub fn decode_scalar(
+    payload: &[u8],
+    decoder: &ScalarDecoder,
+    unit: &ScalarUnit,
+    atmosphere_bar: f64,
+    arrival_ms: i64,
+) -> Result<ScalarReading, DecodeError> {
+    match decoder {
+        ScalarDecoder::Number => {
+            let t = text(payload)?;
+            let v: f64 = t
+                .parse()
+                .map_err(|_| DecodeError::NotANumber(t.chars().take(40).collect()))?;
+            if !v.is_finite() {
+                return Err(DecodeError::NotFinite("(payload)".into()));
+            }
+            Ok(ScalarReading {
+                ts_ms: arrival_ms,
+                value: convert(v, unit, None, atmosphere_bar)?,
+                quality: SourceQuality::Good,
+            })
+        }
+        ScalarDecoder::Json {
+            value_pointer,
+            ts_pointer,
+            quality_pointer,
+            unit_pointer,
+        } => {
+            let doc = json(payload)?;
+            let v = number_at(&doc, value_pointer)?;
+            let ts = match ts_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+                Some(t) => timestamp(t)?,
+                None => arrival_ms,
+            };
+            let q = quality(quality_pointer.as_deref().and_then(|p| doc.pointer(p)))?;
+            let unit_text = match unit_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+                Some(Value::String(s)) => Some(s.as_str()),
+                Some(Value::Null) | None => None,
+                Some(o) => return Err(DecodeError::BadUnit(o.to_string())),
+            };
+            Ok(ScalarReading {
+                ts_ms: ts,
+                value: convert(v, unit, unit_text, atmosphere_bar)?,
+                quality: q,
+            })
+        }
+    }
+}
+
+/// Decodes one component of a per-component analyser: a mole fraction.
+pub fn decode_component(
+    payload: &[u8],
+    decoder: &ScalarDecoder,
+    default_unit: CompositionUnit,
+    arrival_ms: i64,
+) -> Result<ScalarReading, DecodeError> {
+    let (value, ts, q, unit) = match decoder {
+        ScalarDecoder::Number => {
+            let t = text(payload)?;
+            let v: f64 = t
+                .parse()
+                .map_err(|_| DecodeError::NotANumber(t.chars().take(40).collect()))?;
+            (v, arrival_ms, SourceQuality::Good, default_unit)
+        }
+        ScalarDecoder::Json {
+            value_pointer,
+            ts_pointer,
+            quality_pointer,
+            unit_pointer,
+        } => {
+            let doc = json(payload)?;
+            let v = number_at(&doc, value_pointer)?;
+            let ts = match ts_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+                Some(t) => timestamp(t)?,
+                None => arrival_ms,
+            };
+            let q = quality(quality_pointer.as_deref().and_then(|p| doc.pointer(p)))?;
+            let unit = match unit_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+                Some(Value::String(s)) => {
+                    CompositionUnit::parse(s).map_err(|_| DecodeError::BadUnit(s.clone()))?
+                }
+                _ => default_unit,
+            };
+            (v, ts, q, unit)
+        }
+    };
+    if !value.is_finite() {
+        return Err(DecodeError::NotFinite("(value)".into()));
+    }
+    // Negative values are kept: the monitor reports them as bad data on the result.
+    Ok(ScalarReading {
+        ts_ms: ts,
+        value: value * unit.fraction_per_unit(),
+        quality: q,
+    })
+}
+
+/// Decodes a multi-component analyser message into mole fractions per configured component.
+pub fn decode_analysis(
+    payload: &[u8],
+    c: &CompositionSettings,
+    arrival_ms: i64,
+) -> Result<AnalysisReading, DecodeError> {
+    let CompositionSource::Analyser {
+        values_pointer,
+        ts_pointer,
+        unit_pointer,
+        basis_pointer,
+        quality_pointer,
+        ..
+    } = &c.source
+    else {
+        return Err(DecodeError::Missing("(analyser source)".into()));
+    };
+    let doc = json(payload)?;
+    let values = doc
+        .pointer(values_pointer)
+        .and_then(Value::as_object)
+        .ok_or_else(|| DecodeError::Missing(values_pointer.clone()))?;
+    let unit = match unit_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+        Some(Value::String(s)) => {
+            CompositionUnit::parse(s).map_err(|_| DecodeError::BadUnit(s.clone()))?
+        }
+        _ => c.unit,
+    };
+    let basis = match basis_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+        Some(Value::String(s)) => {
+            Some(Basis::parse(s).ok_or_else(|| DecodeError::BadBasis(s.clone()))?)
+        }
+        _ => None,
+    };
+    let ts = match ts_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+        Some(t) => timestamp(t)?,
+        None => arrival_ms,
+    };
+    let q = quality(quality_pointer.as_deref().and_then(|p| doc.pointer(p)))?;
+    let mut out = Vec::with_capacity(c.components.len());
+    for name in &c.components {
+        let v = values
+            .iter()
+            .find(|(k, _)| k.eq_ignore_ascii_case(name))
+            .map(|(_, v)| v);
+        out.push(match v {
+            None | Some(Value::Null) => None,
+            // A non-number is kept as NaN so the monitor names the component as bad.
+            Some(Value::Number(n)) => Some(
+                n.as_f64()
+                    .map_or(f64::NAN, |x| x * unit.fraction_per_unit()),
+            ),
+            Some(Value::String(s)) => Some(
+                s.trim()
+                    .parse::<f64>()
+                    .map_or(f64::NAN, |x| x * unit.fraction_per_unit()),
+            ),
+            Some(_) => Some(f64::NAN),
+        });
+    }
+    Ok(AnalysisReading {
+        ts_ms: ts,
+        values: out,
+        basis,
+        quality: q,
+    })
+}
+
+fn num(x: f64) -> Value {
+    if x.is_finite() { json!(x) } else { Value::Null }
+}
+
+fn opt(x: Option<f64>) -> Value {
+    x.map_or(Value::Null, num)
+}
+
+fn by_species(names: &[String], values: &[f64]) -> Value {
+    if values.len() != names.len() {
+        return Value::Null;
+    }
+    let mut m = Map::new();
+    for (n, v) in names.iter().zip(values) {
+        m.insert(n.clone(), num(*v));
+    }
+    Value::Object(m)
+}
+
+/// The result JSON for one evaluation (published retained on `<prefix>/<reactor>/result`).
+pub fn encode_result(
+    r: &ReactorSettings,
+    db: &SpeciesDb,
+    e: &Evaluation,
+    evaluated_at_ms: i64,
+) -> String {
+    let names = r.model.names();
+    let reactions: Vec<Value> = r
+        .model
+        .reactions()
+        .iter()
+        .zip(&e.reactions)
+        .map(|(t, a)| {
+            json!({
+                "reaction": t.reaction.canonical(),
+                "k_source": t.k.id().as_str(),
+                "ln_k": num(a.ln_k),
+                "ln_q": num(a.ln_q),
+                "q_over_k": num(a.q_over_k),
+                "direction": a.direction.as_str(),
+                "affinity_j_per_mol": num(a.affinity_j_per_mol),
+                "delta_h_j_per_mol": num(a.delta_h_j_per_mol),
+                "endothermic": a.endothermic,
+                "equilibrium_temperature_k": opt(a.equilibrium_temperature_k),
+                "approach_k": opt(a.approach_k),
+                "approach_uncertainty_k": opt(a.approach_uncertainty_k),
+                "flags": a.flags.names().collect::<Vec<_>>(),
+            })
+        })
+        .collect();
+    let first = e.reactions.first();
+    let first_term = r.model.reactions().first();
+    let mut m = Map::new();
+    m.insert("schema".into(), json!(RESULT_SCHEMA));
+    m.insert("reactor".into(), json!(r.id));
+    m.insert("name".into(), json!(r.name));
+    m.insert(
+        "analysis_ts".into(),
+        json!(format_rfc3339(e.analysis_ts_ms)),
+    );
+    m.insert("sample_ts".into(), json!(format_rfc3339(e.sample_ts_ms)));
+    m.insert(
+        "evaluated_at".into(),
+        json!(format_rfc3339(evaluated_at_ms)),
+    );
+    m.insert("quality".into(), json!(e.quality.as_str()));
+    m.insert(
+        "reasons".into(),
+        Value::Array(
+            e.reasons
+                .iter()
+                .map(|x| json!({"code": x.code, "severity": x.severity.as_str(), "message": x.message}))
+                .collect(),
+        ),
+    );
+    m.insert(
+        "k_source".into(),
+        first_term.map_or(Value::Null, |t| json!(t.k.id().as_str())),
+    );
+    m.insert("eos".into(), json!(r.eos.as_str()));
+    m.insert("ln_k".into(), first.map_or(Value::Null, |a| num(a.ln_k)));
+    m.insert("ln_q".into(), first.map_or(Value::Null, |a| num(a.ln_q)));
+    m.insert(
+        "q_over_k".into(),
+        first.map_or(Value::Null, |a| num(a.q_over_k)),
+    );
+    m.insert(
+        "direction".into(),
+        first.map_or(Value::Null, |a| json!(a.direction.as_str())),
+    );
+    m.insert(
+        "affinity_j_per_mol".into(),
+        first.map_or(Value::Null, |a| num(a.affinity_j_per_mol)),
+    );
+    m.insert(
+        "equilibrium_temperature_k".into(),
+        first.map_or(Value::Null, |a| opt(a.equilibrium_temperature_k)),
+    );
+    // A figure is published only from a usable analysis: bad results carry no approach.
+    let usable = e.quality != crate::monitor::Quality::Bad;
+    m.insert(
+        "approach_k".into(),
+        first
+            .filter(|_| usable)
+            .map_or(Value::Null, |a| opt(a.approach_k)),
+    );
+    m.insert(
+        "approach_uncertainty_k".into(),
+        first
+            .filter(|_| usable)
+            .map_or(Value::Null, |a| opt(a.approach_uncertainty_k)),
+    );
+    m.insert("reactions".into(), Value::Array(reactions));
+    m.insert("temperature_k".into(), opt(e.temperature_k));
+    m.insert("temperature_spread_k".into(), opt(e.temperature_spread_k));
+    m.insert("pressure_bar".into(), opt(e.pressure_bar));
+    m.insert("steam_ratio".into(), opt(e.steam_ratio));
+    m.insert(
+        "inputs".into(),
+        Value::Array(
+            e.inputs
+                .iter()
+                .map(|i| json!({"tag": i.tag, "value": opt(i.value), "unit": i.unit, "age_s": i.age_ms.map(|a| a as f64 / 1000.0), "used": i.used}))
+                .collect(),
+        ),
+    );
+    m.insert("basis".into(), json!(r.composition.basis.as_str()));
+    m.insert("key_component".into(), json!(db.get(r.key_component).name));
+    m.insert("key_measured_mole_fraction".into(), opt(e.key_measured));
+    m.insert(
+        "key_equilibrium_mole_fraction".into(),
+        opt(e.key_equilibrium),
+    );
+    m.insert(
+        "mole_fractions".into(),
+        by_species(names, &e.mole_fractions),
+    );
+    m.insert(
+        "equilibrium_mole_fractions".into(),
+        by_species(names, &e.equilibrium_mole_fractions),
+    );
+    m.insert(
+        "fugacity_coefficients".into(),
+        by_species(names, &e.fugacity_coefficients),
+    );
+    m.insert(
+        "compressibility_factor".into(),
+        opt(e.compressibility_factor),
+    );
+    Value::Object(m).to_string()
+}
+
+/// Adds the journal sequence number and the late mark at the front of a payload object.
+pub fn with_delivery(payload: &str, seq: u64, late: bool) -> String {
+    let body = payload.trim();
+    let rest = body.strip_prefix('{').unwrap_or(body);
+    let sep = if rest.trim_start().starts_with('}') {
+        ""
+    } else {
+        ","
+    };
+    format!("{{\"seq\":{seq},\"late\":{late}{sep}{rest}")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn scalars() {
+        // Invented messages; conversions per NIST SP 811 (0 degC = 273.15 K; 1 atm = 1.01325 bar).
+        let json_dec = ScalarDecoder::Json {
+            value_pointer: "/value".into(),
+            ts_pointer: Some("/ts".into()),
+            quality_pointer: Some("/quality".into()),
+            unit_pointer: Some("/unit".into()),
+        };
+        let t = ScalarUnit::Temperature(TemperatureUnit::Celsius);
+        let r = decode_scalar(
+            br#"{"ts":"2026-12-01T00:00:00Z","value":220.0,"unit":"degC","quality":"good"}"#,
+            &json_dec,
+            &t,
+            1.01325,
+            5,
+        )
+        .unwrap();
+        assert_eq!(r.ts_ms, 1_796_083_200_000);
+        assert!((r.value - 493.15).abs() < 1e-12);
+        let r = decode_scalar(br#"{"value":"500","unit":"K"}"#, &json_dec, &t, 1.01325, 7).unwrap();
+        assert_eq!((r.ts_ms, r.value), (7, 500.0));
+        let p = ScalarUnit::Pressure(PressureUnit::parse("barg").unwrap());
+        let r = decode_scalar(b"29", &ScalarDecoder::Number, &p, 1.01325, 9).unwrap();
+        assert!((r.value - 30.01325).abs() < 1e-12);
+        for (bad, reason) in [
+            (&b"{\"value\":\"x\"}"[..], "not_numeric"),
+            (b"{\"ts\":\"yesterday\",\"value\":1}", "bad_timestamp"),
+            (b"{\"value\":1,\"unit\":\"barg\"}", "bad_unit"),
+            (b"{\"value\":1,\"quality\":\"meh\"}", "bad_quality"),
+            (b"not json", "not_json"),
+            (b"{\"other\":1}", "missing_field"),
+            (b"{\"value\":-300,\"unit\":\"degC\"}", "not_physical"),
+        ] {
+            let e = decode_scalar(bad, &json_dec, &t, 1.01325, 0).unwrap_err();
+            assert_eq!(e.reason(), reason, "{e}");
+        }
+        assert_eq!(
+            decode_scalar(b"NaN", &ScalarDecoder::Number, &p, 1.01325, 0)
+                .unwrap_err()
+                .reason(),
+            "not_finite"
+        );
+        assert_eq!(
+            decode_scalar(b"abc", &ScalarDecoder::Number, &p, 1.01325, 0)
+                .unwrap_err()
+                .reason(),
+            "not_a_number"
+        );
+    }
+
+    #[test]
+    fn delivery_prefix() {
+        assert_eq!(
+            with_delivery("{\"a\":1}", 7, false),
+            "{\"seq\":7,\"late\":false,\"a\":1}"
+        );
+        assert_eq!(with_delivery("{}", 8, true), "{\"seq\":8,\"late\":true}");
+        let v: Value = serde_json::from_str(&with_delivery("{ \"a\" : [1] }", 9, true)).unwrap();
+        assert_eq!(v["seq"], 9);
+    }
+}

@@ -1,0 +1,283 @@
+//! Test harness: a real mosquitto on a free loopback port (Debian package `mosquitto`),
+//! the eqwatch binary as a child process, and an MQTT collector.
+
+#![allow(dead_code)]
+
+use std::io::Write;
+use std::net::{SocketAddr, TcpListener, TcpStream};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
+
+use rumqttc::{AsyncClient, Event, Incoming, MqttOptions, QoS};
+
+pub fn free_port() -> u16 {
+    TcpListener::bind("127.0.0.1:0")
+        .and_then(|l| l.local_addr())
+        .map(|a| a.port())
+        .expect("a free loopback port")
+}
+
+fn mosquitto_binary() -> PathBuf {
+    for p in [
+        "/usr/sbin/mosquitto",
+        "/usr/bin/mosquitto",
+        "/usr/local/sbin/mosquitto",
+    ] {
+        if Path::new(p).exists() {
+            return PathBuf::from(p);
+        }
+    }
+    PathBuf::from("mosquitto")
+}
+
+pub fn wait_port(port: u16, up: bool, within: Duration) -> bool {
+    let addr: SocketAddr = ([127, 0, 0, 1], port).into();
+    let until = Instant::now() + within;
+    while Instant::now() < until {
+        let ok = TcpStream::connect_timeout(&addr, Duration::from_millis(100)).is_ok();
+        if ok == up {
+            return true;
+        }
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    false
+}
+
+/// A mosquitto process; killed when dropped.
+pub struct Mosquitto {
+    child: Option<Child>,
+    pub port: u16,
+    dir: tempfile::TempDir,
+}
+
+impl Mosquitto {
+    pub fn start() -> Self {
+        Self::start_on(free_port())
+    }
+
+    pub fn start_on(port: u16) -> Self {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let conf = dir.path().join("mosquitto.conf");
+        let mut f = std::fs::File::create(&conf).expect("write mosquitto.conf");
+        // Mosquitto 2 drops privileges unless told to stay root; tests run as root in CI.
+        let user = if is_root() { "user root\n" } else { "" };
+        write!(f, "listener {port} 127.0.0.1\nallow_anonymous true\npersistence false\nlog_dest none\n{user}").unwrap();
+        let child = Command::new(mosquitto_binary())
+            .arg("-c")
+            .arg(&conf)
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .spawn()
+            .expect("mosquitto must be installed (scripts/test.sh installs it)");
+        assert!(
+            wait_port(port, true, Duration::from_secs(10)),
+            "mosquitto did not open port {port}"
+        );
+        Self {
+            child: Some(child),
+            port,
+            dir,
+        }
+    }
+
+    /// Kills the broker (as a crash would).
+    pub fn kill(&mut self) {
+        if let Some(mut c) = self.child.take() {
+            let _ = c.kill();
+            let _ = c.wait();
+        }
+        wait_port(self.port, false, Duration::from_secs(5));
+    }
+
+    pub fn url(&self) -> String {
+        format!("mqtt://127.0.0.1:{}", self.port)
+    }
+}
+
+impl Drop for Mosquitto {
+    fn drop(&mut self) {
+        self.kill();
+    }
+}
+
+fn is_root() -> bool {
+    Command::new("id")
+        .arg("-u")
+        .output()
+        .map(|o| String::from_utf8_lossy(&o.stdout).trim() == "0")
+        .unwrap_or(false)
+}
+
+/// The eqwatch binary running `run --config`.
+pub struct Daemon {
+    pub child: Child,
+    pub http_port: u16,
+}
+
+impl Daemon {
+    pub fn start(config: &Path, http_port: u16) -> Self {
+        let child = Command::new(env!("CARGO_BIN_EXE_eqwatch"))
+            .args(["run", "--config"])
+            .arg(config)
+            .args(["--log-level", "info"])
+            .stdout(Stdio::null())
+            .stderr(Stdio::from(
+                std::fs::File::create(config.with_extension("log")).expect("daemon log file"),
+            ))
+            .spawn()
+            .expect("eqwatch binary");
+        assert!(
+            wait_port(http_port, true, Duration::from_secs(15)),
+            "daemon did not open its metrics port"
+        );
+        Self { child, http_port }
+    }
+
+    pub fn metrics(&self) -> String {
+        http_get(self.http_port, "/metrics")
+    }
+
+    /// The value of one metric line (exact name with labels).
+    pub fn metric(&self, name: &str) -> f64 {
+        let text = self.metrics();
+        text.lines()
+            .find_map(|l| {
+                l.strip_prefix(name)
+                    .and_then(|rest| rest.strip_prefix(' '))
+                    .and_then(|v| v.trim().parse().ok())
+            })
+            .unwrap_or(f64::NAN)
+    }
+
+    pub fn signal(&self, sig: &str) {
+        let _ = Command::new("kill")
+            .args([sig, &self.child.id().to_string()])
+            .status();
+    }
+
+    pub fn wait_exit(&mut self, within: Duration) -> Option<i32> {
+        let until = Instant::now() + within;
+        while Instant::now() < until {
+            if let Ok(Some(st)) = self.child.try_wait() {
+                return st.code();
+            }
+            std::thread::sleep(Duration::from_millis(50));
+        }
+        None
+    }
+}
+
+impl Drop for Daemon {
+    fn drop(&mut self) {
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+}
+
+pub fn http_get(port: u16, path: &str) -> String {
+    use std::io::Read;
+    let Ok(mut s) = TcpStream::connect(("127.0.0.1", port)) else {
+        return String::new();
+    };
+    let _ = s.set_read_timeout(Some(Duration::from_secs(5)));
+    let _ = write!(
+        s,
+        "GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n"
+    );
+    let mut out = String::new();
+    let _ = s.read_to_string(&mut out);
+    out.split_once("\r\n\r\n")
+        .map(|(_, b)| b.to_string())
+        .unwrap_or_default()
+}
+
+/// Messages a collector received: (topic, payload text, retained).
+pub type Received = Arc<Mutex<Vec<(String, String, bool)>>>;
+
+/// Subscribes to `filters` and keeps everything it receives; resubscribes after every
+/// reconnect (the broker may be restarted by the test).
+pub fn collector(rt: &tokio::runtime::Runtime, port: u16, filters: &[&str]) -> Received {
+    let got: Received = Arc::new(Mutex::new(Vec::new()));
+    let g = got.clone();
+    let filters: Vec<String> = filters.iter().map(|s| s.to_string()).collect();
+    let mut o = MqttOptions::new(format!("collector-{}", free_port()), "127.0.0.1", port);
+    o.set_keep_alive(Duration::from_secs(5));
+    o.set_max_packet_size(1 << 20, 1 << 20);
+    let (client, mut ev) = AsyncClient::new(o, 64);
+    rt.spawn(async move {
+        loop {
+            match ev.poll().await {
+                Ok(Event::Incoming(Incoming::ConnAck(_))) => {
+                    for f in &filters {
+                        let _ = client.subscribe(f.clone(), QoS::AtLeastOnce).await;
+                    }
+                }
+                Ok(Event::Incoming(Incoming::Publish(p))) => {
+                    g.lock().unwrap().push((
+                        p.topic.clone(),
+                        String::from_utf8_lossy(&p.payload).to_string(),
+                        p.retain,
+                    ));
+                }
+                Ok(_) => {}
+                Err(_) => tokio::time::sleep(Duration::from_millis(100)).await,
+            }
+        }
+    });
+    got
+}
+
+/// A publisher that retries through broker restarts.
+pub struct Publisher {
+    client: AsyncClient,
+}
+
+impl Publisher {
+    pub fn new(rt: &tokio::runtime::Runtime, port: u16) -> Self {
+        let mut o = MqttOptions::new(format!("publisher-{}", free_port()), "127.0.0.1", port);
+        o.set_keep_alive(Duration::from_secs(5));
+        o.set_max_packet_size(1 << 22, 1 << 22);
+        let (client, mut ev) = AsyncClient::new(o, 1024);
+        rt.spawn(async move {
+            loop {
+                if ev.poll().await.is_err() {
+                    tokio::time::sleep(Duration::from_millis(100)).await;
+                }
+            }
+        });
+        Self { client }
+    }
+
+    pub fn publish(&self, rt: &tokio::runtime::Runtime, topic: &str, payload: &str) {
+        let c = self.client.clone();
+        let (t, p) = (topic.to_string(), payload.to_string());
+        rt.block_on(async move { c.publish(t, QoS::AtLeastOnce, false, p).await })
+            .expect("queue publish");
+    }
+}
+
+/// Waits until `pred` holds on the received messages.
+pub fn wait_for(
+    got: &Received,
+    within: Duration,
+    pred: impl Fn(&[(String, String, bool)]) -> bool,
+) -> bool {
+    let until = Instant::now() + within;
+    while Instant::now() < until {
+        if pred(&got.lock().unwrap()) {
+            return true;
+        }
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    false
+}
+
+pub fn runtime() -> tokio::runtime::Runtime {
+    tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .expect("tokio runtime")
+}

@@ -1,0 +1,6 @@
+//! Integration tests of the daemon against a real mosquitto started on a free loopback
+//! port (no mocked broker). One test binary; modules by subject.
+
+mod support;
+
+mod daemon;
