@@ -29,12 +29,16 @@ pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: Cancell
         };
         let metrics = metrics.clone();
         tokio::spawn(async move {
-            let mut buf = [0u8; 2048];
-            let n = match tokio::time::timeout(Duration::from_secs(5), stream.read(&mut buf)).await
-            {
-                Ok(Ok(n)) => n,
-                _ => return,
-            };
+            // Read the request head (up to a blank line or 4 KiB), however it is split.
+            let mut buf = [0u8; 4096];
+            let mut n = 0;
+            while n < buf.len() && !buf[..n].windows(4).any(|w| w == b"\r\n\r\n") {
+                match tokio::time::timeout(Duration::from_secs(5), stream.read(&mut buf[n..])).await
+                {
+                    Ok(Ok(0)) | Ok(Err(_)) | Err(_) => break,
+                    Ok(Ok(k)) => n += k,
+                }
+            }
             let head = String::from_utf8_lossy(&buf[..n]);
             let mut parts = head.split_whitespace();
             let (method, path) = (parts.next().unwrap_or(""), parts.next().unwrap_or(""));

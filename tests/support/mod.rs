@@ -182,10 +182,8 @@ pub fn http_get(port: u16, path: &str) -> String {
         return String::new();
     };
     let _ = s.set_read_timeout(Some(Duration::from_secs(5)));
-    let _ = write!(
-        s,
-        "GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n"
-    );
+    let request = format!("GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n");
+    let _ = s.write_all(request.as_bytes());
     let mut out = String::new();
     let _ = s.read_to_string(&mut out);
     out.split_once("\r\n\r\n")
@@ -266,7 +264,9 @@ pub fn wait_for(
 ) -> bool {
     let until = Instant::now() + within;
     while Instant::now() < until {
-        if pred(&got.lock().unwrap()) {
+        // Copy first: the predicate may lock `got` itself.
+        let snapshot = got.lock().unwrap().clone();
+        if pred(&snapshot) {
             return true;
         }
         std::thread::sleep(Duration::from_millis(50));
