@@ -916,7 +916,8 @@ mod tests {
                     .iter()
                     .map(|(k, x)| (k.clone(), x.as_f64().expect("number")))
                     .collect();
-                ((ts_of(&v) - START) as f64 / 1000.0, values)
+                // Analysers stamp their report time; the sample was drawn the delay earlier.
+                ((ts_of(&v) - START) as f64 / 1000.0 - ANALYSER_DELAY_S, values)
             })
             .collect()
     }
@@ -1101,7 +1102,7 @@ mod tests {
                 continue;
             }
             let v = json(m);
-            if ts_of(&v) != ts {
+            if ts_of(&v) - (ANALYSER_DELAY_S * 1000.0) as i64 != ts {
                 continue;
             }
             if let Some(values) = v["values"].as_object() {
