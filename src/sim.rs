@@ -917,7 +917,10 @@ mod tests {
                     .map(|(k, x)| (k.clone(), x.as_f64().expect("number")))
                     .collect();
                 // Analysers stamp their report time; the sample was drawn the delay earlier.
-                ((ts_of(&v) - START) as f64 / 1000.0 - ANALYSER_DELAY_S, values)
+                (
+                    (ts_of(&v) - START) as f64 / 1000.0 - ANALYSER_DELAY_S,
+                    values,
+                )
             })
             .collect()
     }

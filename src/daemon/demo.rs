@@ -223,7 +223,12 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
 
     let mut plant = Plant::new(20_261_201, start_ms);
     let tty = std::io::stdout().is_terminal();
-    let dropout = (duration.as_secs_f64() * 0.55, 8.0);
+    // One broker drop-out of about 4 simulated minutes (between 1 and 8 s of wall time),
+    // early enough that several analyses follow it.
+    let dropout = (
+        duration.as_secs_f64() * 0.4,
+        (240.0 / speed).clamp(1.0, 8.0),
+    );
     let mut link_up = true;
     let mut last_sim = 0.0;
     let mut last_draw = Instant::now() - Duration::from_secs(60);
@@ -255,7 +260,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
             notes.push(if want_up {
                 "broker link restored: the daemon reconnects and sends what it journaled meanwhile (marked late)".into()
             } else {
-                "broker link cut for 8 s (simulated drop-out): results keep being computed and journaled".into()
+                format!("broker link cut for {:.0} s (simulated drop-out): results keep being computed and journaled", dropout.1)
             });
         }
         let redraw = if tty {
