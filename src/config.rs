@@ -986,7 +986,13 @@ fn broker(
     let (tls, host, port) = broker_url(p, &raw.url);
     let protocol = match raw.protocol.as_deref().map(str::trim) {
         None | Some("3.1.1") | Some("311") => MqttProtocol::V311,
-        Some("5") | Some("5.0") => MqttProtocol::V5,
+        Some("5") | Some("5.0") => {
+            p.add(
+                "broker.protocol",
+                "MQTT 5 is not supported by this build yet; use \"3.1.1\" (a persistent session comes from session_expiry)",
+            );
+            MqttProtocol::V5
+        }
         Some(other) => {
             p.add(
                 "broker.protocol",
@@ -1015,7 +1021,7 @@ fn broker(
         p.add(
             id_path,
             format!(
-                "\"{client_id}\" is {} bytes{from_default}; MQTT 3.1.1 brokers need accept only 1 to 23 (spec 3.1.3.1): shorten it or use protocol = \"5\"",
+                "\"{client_id}\" is {} bytes{from_default}; MQTT 3.1.1 brokers need accept only 1 to 23 (spec 3.1.3.1): shorten it",
                 client_id.len()
             ),
         );
@@ -3229,8 +3235,14 @@ value = 0.48
             Err(e) => e,
         };
         assert_problems("no user", &e, &[("broker.username", "missing; MQTT 3.1.1")]);
+        // MQTT 5 is refused as a whole until the client speaks it (one problem only).
         let v5 = no_user.replace("[broker]\n", "[broker]\nprotocol = \"5\"\n");
-        assert!(check_in(&v5, dir.path()).is_ok());
+        let e = check_in(&v5, dir.path()).expect_err("MQTT 5 is not supported yet");
+        assert_problems(
+            "v5",
+            &e,
+            &[("broker.protocol", "not supported by this build")],
+        );
     }
 
     #[test]
@@ -3311,10 +3323,9 @@ value = 0.48
         assert_eq!(ok("inflight = 65535").inflight, 65_535);
         assert_eq!(ok("max_packet_bytes = 1024").max_packet_bytes, 1024);
         let long_id = "client_id = \"eqwatch-brackwater-train-1\"\n";
-        assert_eq!(
-            ok(&format!("{long_id}protocol = \"5\"")).client_id,
-            "eqwatch-brackwater-train-1",
-            "MQTT 5 takes ids over 23 bytes"
+        assert!(
+            check(&with_broker(&format!("{base}{long_id}"))).is_err(),
+            "MQTT 3.1.1 refuses ids over 23 bytes"
         );
         for (extra, path, needle) in [
             (

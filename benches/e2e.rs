@@ -1,0 +1,849 @@
+//! End-to-end speed of `eqwatch run`: a real mosquitto on a free loopback port, the
+//! release binary as a child process, MQTT in and out. A measurement tool: it prints
+//! numbers and asserts nothing about time.
+//!
+//!     cargo bench --bench e2e          (or `bash scripts/bench_e2e.sh`)
+//!
+//! Four figures, one run, printed as a table and written to `target/e2e-bench.txt`:
+//! 1. a do-nothing QoS 1 subscriber's receive rate for analysis-sized messages pushed
+//!    as fast as the broker takes them (the yardstick: what the broker and an MQTT
+//!    client alone can move on this machine);
+//! 2. eqwatch's sustained results per second with 100 reactors fed a firehose of
+//!    analyses, and its ratio to (1);
+//! 3. latency from publishing an analysis to receiving its result at a paced rate,
+//!    matched by reactor and analysis timestamp (p50, p99, max);
+//! 4. the daemon's peak resident set (VmHWM) after the run.
+//!
+//! Rates are taken over the steady part (results 10 % to 90 % of the way through),
+//! so connection start-up and the tail do not count. Everything talks to 127.0.0.1
+//! only; every wait is bounded, and the broker and daemon are stopped on the way out.
+//!
+//! Under `cargo test --all-targets` (no `--bench` argument) this does nothing.
+//! `EQWATCH_E2E_QUICK=1` runs a tenth of the messages (for checking the harness).
+//! `EQWATCH_BIN` overrides the daemon binary.
+
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+use std::io::Write as _;
+use std::net::{SocketAddr, TcpListener, TcpStream};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
+
+use rumqttc::{AsyncClient, Event, Incoming, MqttOptions, QoS};
+use tokio::runtime::Runtime;
+
+const SITE: &str = "bench";
+const REACTORS: usize = 100;
+/// Messages of the do-nothing run and analyses of the sustained run (full size).
+const FIREHOSE: usize = 100_000;
+/// The paced run: analyses per second, for this long.
+const PACED_RATE: u64 = 1_000;
+const PACED_SECS: u64 = 20;
+/// Bound on the wait for the last message of a run.
+const DRAIN_LIMIT: Duration = Duration::from_secs(120);
+/// The steady part of a run: results from this fraction of the way through to 1 − it.
+const EDGE: f64 = 0.10;
+
+fn main() {
+    if !std::env::args().any(|a| a == "--bench") {
+        println!("e2e: a measurement run; use `cargo bench --bench e2e`");
+        return;
+    }
+    let quick = std::env::var("EQWATCH_E2E_QUICK").is_ok_and(|v| !v.is_empty() && v != "0");
+    let scale = if quick { 10 } else { 1 };
+    let plan = Plan {
+        firehose: FIREHOSE / scale,
+        paced: (PACED_RATE * PACED_SECS) as usize / scale,
+    };
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .expect("tokio runtime");
+    let report = run(&rt, &plan);
+    rt.shutdown_timeout(Duration::from_secs(2));
+    let text = report.table(&plan);
+    print!("{text}");
+    let out = target_dir().join("e2e-bench.txt");
+    match std::fs::create_dir_all(target_dir()).and_then(|_| std::fs::write(&out, &text)) {
+        Ok(()) => println!("(written to {})", out.display()),
+        Err(e) => eprintln!("e2e: could not write {}: {e}", out.display()),
+    }
+}
+
+struct Plan {
+    firehose: usize,
+    paced: usize,
+}
+
+fn target_dir() -> PathBuf {
+    std::env::var_os("CARGO_TARGET_DIR")
+        .map(PathBuf::from)
+        .unwrap_or_else(|| Path::new(env!("CARGO_MANIFEST_DIR")).join("target"))
+}
+
+// ---------------------------------------------------------------------------------
+// Processes: mosquitto and the daemon.
+
+fn free_port() -> u16 {
+    TcpListener::bind("127.0.0.1:0")
+        .and_then(|l| l.local_addr())
+        .map(|a| a.port())
+        .expect("a free loopback port")
+}
+
+fn port_open(port: u16) -> bool {
+    let addr: SocketAddr = ([127, 0, 0, 1], port).into();
+    TcpStream::connect_timeout(&addr, Duration::from_millis(100)).is_ok()
+}
+
+fn wait_until(within: Duration, mut ok: impl FnMut() -> bool) -> bool {
+    let until = Instant::now() + within;
+    while Instant::now() < until {
+        if ok() {
+            return true;
+        }
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    ok()
+}
+
+fn running_as_root() -> bool {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines()
+                .find_map(|l| l.strip_prefix("Uid:"))
+                .and_then(|rest| rest.split_whitespace().next().map(|u| u == "0"))
+        })
+        .unwrap_or(false)
+}
+
+/// A child process stopped (TERM, then KILL after a grace period) when dropped.
+struct Proc {
+    child: Child,
+}
+
+impl Proc {
+    fn pid(&self) -> u32 {
+        self.child.id()
+    }
+
+    fn stop(&mut self, grace: Duration) {
+        if let Ok(Some(_)) = self.child.try_wait() {
+            return;
+        }
+        let _ = Command::new("kill")
+            .args(["-TERM", &self.child.id().to_string()])
+            .status();
+        let exited = wait_until(grace, || matches!(self.child.try_wait(), Ok(Some(_))));
+        if !exited {
+            let _ = self.child.kill();
+        }
+        let _ = self.child.wait();
+    }
+}
+
+impl Drop for Proc {
+    fn drop(&mut self) {
+        self.stop(Duration::from_secs(5));
+    }
+}
+
+fn mosquitto_binary() -> PathBuf {
+    ["/usr/sbin/mosquitto", "/usr/bin/mosquitto"]
+        .iter()
+        .map(PathBuf::from)
+        .find(|p| p.exists())
+        .unwrap_or_else(|| PathBuf::from("mosquitto"))
+}
+
+/// Mosquitto on a free loopback port, anonymous, no persistence. The per-client queue
+/// is unbounded so that a slow subscriber falls behind instead of losing messages
+/// (the default drops QoS 1 messages beyond 1000 queued).
+fn start_mosquitto(dir: &Path) -> (Proc, u16) {
+    let port = free_port();
+    let conf = dir.join("mosquitto.conf");
+    let user = if running_as_root() { "user root\n" } else { "" };
+    std::fs::write(
+        &conf,
+        format!(
+            "listener {port} 127.0.0.1\nallow_anonymous true\npersistence false\nlog_dest none\nmax_queued_messages 0\n{user}"
+        ),
+    )
+    .expect("write mosquitto.conf");
+    let child = Command::new(mosquitto_binary())
+        .arg("-c")
+        .arg(&conf)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("mosquitto must be installed (Debian package `mosquitto`)");
+    let p = Proc { child };
+    assert!(
+        wait_until(Duration::from_secs(10), || port_open(port)),
+        "mosquitto did not open port {port}"
+    );
+    (p, port)
+}
+
+fn eqwatch_binary() -> PathBuf {
+    std::env::var_os("EQWATCH_BIN")
+        .map(PathBuf::from)
+        .unwrap_or_else(|| PathBuf::from(env!("CARGO_BIN_EXE_eqwatch")))
+}
+
+fn start_daemon(config: &Path, http_port: u16) -> Proc {
+    let log = std::fs::File::create(config.with_extension("log")).expect("daemon log file");
+    let child = Command::new(eqwatch_binary())
+        .args(["run", "--config"])
+        .arg(config)
+        .args(["--log-level", "warn"])
+        .stdout(Stdio::null())
+        .stderr(Stdio::from(log))
+        .spawn()
+        .expect("the eqwatch binary");
+    let p = Proc { child };
+    assert!(
+        wait_until(Duration::from_secs(15), || port_open(http_port)),
+        "the daemon did not open its metrics port (see {})",
+        config.with_extension("log").display()
+    );
+    p
+}
+
+/// CPU seconds (user + system) a process has used so far.
+fn cpu_seconds(pid: u32) -> f64 {
+    let Ok(stat) = std::fs::read_to_string(format!("/proc/{pid}/stat")) else {
+        return f64::NAN;
+    };
+    // Fields after the command name (which may hold spaces) start at field 3 (state);
+    // utime and stime are fields 14 and 15.
+    let Some((_, rest)) = stat.rsplit_once(')') else {
+        return f64::NAN;
+    };
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    let ticks = |i: usize| f.get(i).and_then(|v| v.parse::<f64>().ok());
+    match (ticks(11), ticks(12)) {
+        (Some(u), Some(s)) => (u + s) / clock_ticks(),
+        _ => f64::NAN,
+    }
+}
+
+fn clock_ticks() -> f64 {
+    Command::new("getconf")
+        .arg("CLK_TCK")
+        .output()
+        .ok()
+        .and_then(|o| String::from_utf8_lossy(&o.stdout).trim().parse().ok())
+        .unwrap_or(100.0)
+}
+
+/// A `kB` line of /proc/<pid>/status, in KiB.
+fn status_kib(pid: u32, key: &str) -> Option<u64> {
+    std::fs::read_to_string(format!("/proc/{pid}/status"))
+        .ok()?
+        .lines()
+        .find_map(|l| l.strip_prefix(key))?
+        .trim_start_matches(':')
+        .split_whitespace()
+        .next()?
+        .parse()
+        .ok()
+}
+
+fn http_get(port: u16, path: &str) -> String {
+    use std::io::Read;
+    let Ok(mut s) = TcpStream::connect(("127.0.0.1", port)) else {
+        return String::new();
+    };
+    let _ = s.set_read_timeout(Some(Duration::from_secs(5)));
+    let req = format!("GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n");
+    let _ = s.write_all(req.as_bytes());
+    let mut out = String::new();
+    let _ = s.read_to_string(&mut out);
+    out.split_once("\r\n\r\n")
+        .map(|(_, b)| b.to_string())
+        .unwrap_or_default()
+}
+
+/// Sums every sample of a metric family whose labels contain `label` (or all of them).
+fn metric_sum(text: &str, family: &str, label: Option<&str>) -> f64 {
+    text.lines()
+        .filter(|l| !l.starts_with('#'))
+        .filter_map(|l| {
+            let rest = l.strip_prefix(family)?;
+            if !(rest.starts_with(' ') || rest.starts_with('{')) {
+                return None;
+            }
+            if label.is_some_and(|want| !rest.contains(want)) {
+                return None;
+            }
+            rest.rsplit_once(' ')?.1.trim().parse::<f64>().ok()
+        })
+        .sum()
+}
+
+// ---------------------------------------------------------------------------------
+// MQTT clients.
+
+fn options(prefix: &str, port: u16) -> MqttOptions {
+    let mut o = MqttOptions::new(format!("{prefix}-{}", free_port()), "127.0.0.1", port);
+    o.set_keep_alive(Duration::from_secs(30));
+    o.set_max_packet_size(1 << 20, 1 << 20);
+    o
+}
+
+/// One received message: when, and what the receiver kept of it.
+#[derive(Clone, Copy)]
+struct Got {
+    at: Instant,
+    /// Result runs: the analysis timestamp (epoch ms) the result answers.
+    analysis_ts: Option<i64>,
+    good: bool,
+}
+
+#[derive(Default)]
+struct Inbox {
+    got: Vec<Got>,
+    /// Results whose reactor (topic) did not match the reactor of their timestamp.
+    mismatched: usize,
+    online: bool,
+}
+
+/// What a subscriber does with a message.
+#[derive(Clone, Copy, PartialEq)]
+enum Keep {
+    /// The yardstick: note the arrival time only.
+    Nothing,
+    /// eqwatch results: also the analysis timestamp and the quality (substring
+    /// search, no JSON tree), and the status topic's `online`.
+    Results { base_ms: i64 },
+}
+
+struct Subscriber {
+    inbox: Arc<Mutex<Inbox>>,
+    subscribed: Arc<AtomicBool>,
+}
+
+impl Subscriber {
+    fn start(rt: &Runtime, port: u16, filters: &[String], keep: Keep) -> Self {
+        let inbox = Arc::new(Mutex::new(Inbox::default()));
+        let subscribed = Arc::new(AtomicBool::new(false));
+        let (client, mut ev) = AsyncClient::new(options("e2e-sub", port), 64);
+        let filters = filters.to_vec();
+        let (ib, sb) = (inbox.clone(), subscribed.clone());
+        rt.spawn(async move {
+            let mut acks = 0;
+            loop {
+                match ev.poll().await {
+                    Ok(Event::Incoming(Incoming::ConnAck(_))) => {
+                        for f in &filters {
+                            let _ = client.subscribe(f.clone(), QoS::AtLeastOnce).await;
+                        }
+                    }
+                    Ok(Event::Incoming(Incoming::SubAck(_))) => {
+                        acks += 1;
+                        if acks >= filters.len() {
+                            sb.store(true, Ordering::Release);
+                        }
+                    }
+                    Ok(Event::Incoming(Incoming::Publish(p))) => {
+                        let at = Instant::now();
+                        match keep {
+                            Keep::Nothing => ib.lock().unwrap().got.push(Got {
+                                at,
+                                analysis_ts: None,
+                                good: true,
+                            }),
+                            Keep::Results { base_ms } => {
+                                keep_result(&ib, at, &p.topic, &p.payload, base_ms)
+                            }
+                        }
+                    }
+                    Ok(_) => {}
+                    Err(_) => tokio::time::sleep(Duration::from_millis(100)).await,
+                }
+            }
+        });
+        Self { inbox, subscribed }
+    }
+
+    fn wait_subscribed(&self) {
+        assert!(
+            wait_until(Duration::from_secs(10), || self
+                .subscribed
+                .load(Ordering::Acquire)),
+            "subscription not acknowledged"
+        );
+    }
+
+    fn count(&self) -> usize {
+        self.inbox.lock().unwrap().got.len()
+    }
+
+    fn take(&self) -> Inbox {
+        std::mem::take(&mut *self.inbox.lock().unwrap())
+    }
+}
+
+fn keep_result(inbox: &Mutex<Inbox>, at: Instant, topic: &str, payload: &[u8], base_ms: i64) {
+    let text = String::from_utf8_lossy(payload);
+    if topic.ends_with("/status") {
+        if text.contains("\"online\"") {
+            inbox.lock().unwrap().online = true;
+        }
+        return;
+    }
+    let field = |name: &str| -> Option<&str> {
+        let key = format!("\"{name}\":\"");
+        let start = text.find(&key)? + key.len();
+        let len = text[start..].find('"')?;
+        Some(&text[start..start + len])
+    };
+    let analysis_ts = field("analysis_ts").and_then(eqwatch::timefmt::parse_rfc3339);
+    let good = field("quality") == Some("good");
+    // The topic's reactor must be the one the timestamp was sent to.
+    let reactor = topic.split('/').nth(2).unwrap_or("");
+    let matches = analysis_ts.is_some_and(|ts| reactor == reactor_id(index_of(ts, base_ms)));
+    let mut ib = inbox.lock().unwrap();
+    if !matches {
+        ib.mismatched += 1;
+    }
+    ib.got.push(Got {
+        at,
+        analysis_ts,
+        good,
+    });
+}
+
+fn publisher(rt: &Runtime, port: u16) -> AsyncClient {
+    let mut o = options("e2e-pub", port);
+    o.set_inflight(1000);
+    let (client, mut ev) = AsyncClient::new(o, 1024);
+    rt.spawn(async move {
+        loop {
+            if ev.poll().await.is_err() {
+                tokio::time::sleep(Duration::from_millis(100)).await;
+            }
+        }
+    });
+    client
+}
+
+// ---------------------------------------------------------------------------------
+// The plant: 100 LTS-like reactors, dry analyser with 5 components, one thermocouple,
+// pressure, fixed steam ratio.
+
+fn reactor_id(i: usize) -> String {
+    format!("r{i:03}")
+}
+
+fn write_config(dir: &Path, broker_port: u16, http_port: u16) -> PathBuf {
+    let mut s = format!(
+        r#"site = "{SITE}"
+[broker]
+url = "mqtt://127.0.0.1:{broker_port}"
+client_id = "eqwatch-e2e-{http_port}"
+keep_alive = "30 s"
+session_expiry = "0 s"
+reconnect_min = "100 ms"
+reconnect_max = "1 s"
+inflight = 64
+max_packet_bytes = 262144
+[journal]
+dir = "journal"
+fsync_interval = "1 s"
+[http]
+listen = "127.0.0.1:{http_port}"
+"#
+    );
+    for i in 0..REACTORS {
+        let id = reactor_id(i);
+        let _ = write!(
+            s,
+            r#"
+[reactors.{id}]
+name = "Bench LTS {i}"
+reactions = [{{ equation = "CO + H2O = CO2 + H2", k_source = "moe-1962" }}]
+[reactors.{id}.composition]
+tag = "AI-{id}"
+topic = "e2e/{id}/ai"
+unit = "mol%"
+basis = "dry"
+components = ["H2", "N2", "CO", "CO2", "CH4"]
+lag = "0 s"
+max_age = "1 d"
+[[reactors.{id}.temperature]]
+tag = "TI-{id}"
+topic = "e2e/{id}/ti"
+unit = "degC"
+max_age = "1 d"
+[reactors.{id}.pressure]
+tag = "PI-{id}"
+topic = "e2e/{id}/pi"
+unit = "barg"
+max_age = "1 d"
+[reactors.{id}.steam_ratio]
+value = 0.36
+"#
+        );
+    }
+    let path = dir.join("plant.toml");
+    std::fs::write(&path, s).expect("write plant.toml");
+    path
+}
+
+/// Analysis number `k` of a run goes to reactor `k % 100` with timestamp `base + k` ms,
+/// so every analysis has its own timestamp and each reactor's timestamps increase.
+fn index_of(ts_ms: i64, base_ms: i64) -> usize {
+    usize::try_from(ts_ms - base_ms).unwrap_or(usize::MAX) % REACTORS
+}
+
+/// An analyser message of about 200 bytes. The hydrogen figure moves a little from
+/// message to message (a live analyser never repeats every digit; three identical
+/// analyses in a row would be flagged as a stuck analyser).
+fn analysis(k: usize, ts_ms: i64) -> String {
+    let h2 = 61.0536 + (k % 997) as f64 * 1e-5;
+    format!(
+        r#"{{"ts":{ts_ms},"values":{{"H2":{h2:.5},"N2":18.98637,"CO":0.28697,"CO2":19.38096,"CH4":0.2921}},"unit":"mol%","basis":"dry","quality":"good","analyser":"AI-{}","seq":{k}}}"#,
+        reactor_id(k % REACTORS)
+    )
+}
+
+fn scalar(ts_ms: i64, value: f64, unit: &str) -> String {
+    format!(r#"{{"ts":{ts_ms},"value":{value},"unit":"{unit}","quality":"good"}}"#)
+}
+
+fn now_ms() -> i64 {
+    SystemTime::now()
+        .duration_since(UNIX_EPOCH)
+        .map_or(0, |d| d.as_millis() as i64)
+}
+
+// ---------------------------------------------------------------------------------
+// Figures.
+
+/// Messages per second over the steady part of a run of arrival times.
+fn steady_rate(times: &[Instant]) -> f64 {
+    let n = times.len();
+    if n < 10 {
+        return f64::NAN;
+    }
+    let lo = (n as f64 * EDGE) as usize;
+    let hi = ((n as f64 * (1.0 - EDGE)) as usize).min(n - 1);
+    let span = times[hi].duration_since(times[lo]).as_secs_f64();
+    if span > 0.0 {
+        (hi - lo) as f64 / span
+    } else {
+        f64::NAN
+    }
+}
+
+fn percentile(sorted: &[f64], p: f64) -> f64 {
+    if sorted.is_empty() {
+        return f64::NAN;
+    }
+    let rank = ((p / 100.0) * sorted.len() as f64).ceil() as usize;
+    sorted[rank.clamp(1, sorted.len()) - 1]
+}
+
+#[derive(Default)]
+struct Report {
+    noop_received: usize,
+    noop_rate: f64,
+    noop_broker_cpu_s: f64,
+    noop_wall_s: f64,
+    sus_received: usize,
+    sus_good: usize,
+    sus_rate: f64,
+    sus_wall_s: f64,
+    sus_daemon_cpu_s: f64,
+    sus_broker_cpu_s: f64,
+    lat_sent: usize,
+    lat_matched: usize,
+    lat_achieved_rate: f64,
+    lat_ms: Vec<f64>,
+    mismatched: usize,
+    vm_hwm_kib: Option<u64>,
+    vm_rss_kib: Option<u64>,
+    evaluations: BTreeMap<&'static str, f64>,
+    messages_in: f64,
+    journal_errors: f64,
+    daemon_log_lines: usize,
+}
+
+impl Report {
+    fn table(&self, plan: &Plan) -> String {
+        let mut t = String::new();
+        let ratio = 100.0 * self.sus_rate / self.noop_rate;
+        let (p50, p99, max) = (
+            percentile(&self.lat_ms, 50.0),
+            percentile(&self.lat_ms, 99.0),
+            self.lat_ms.last().copied().unwrap_or(f64::NAN),
+        );
+        let mib = |k: Option<u64>| k.map_or(f64::NAN, |k| k as f64 / 1024.0);
+        let _ = writeln!(
+            t,
+            "\n== eqwatch end-to-end ({REACTORS} reactors, mosquitto on loopback, {} CPUs)",
+            std::thread::available_parallelism().map_or(0, |n| n.get())
+        );
+        let _ = writeln!(t, "{:<44} {:>14}  goal", "figure", "value");
+        let _ = writeln!(
+            t,
+            "{:<44} {:>14.0}",
+            "1. do-nothing subscriber (msg/s)", self.noop_rate
+        );
+        let _ = writeln!(
+            t,
+            "{:<44} {:>14.0}",
+            "2. eqwatch sustained (results/s)", self.sus_rate
+        );
+        let _ = writeln!(
+            t,
+            "{:<44} {:>13.1}%  >= 80 %",
+            "   ratio to do-nothing", ratio
+        );
+        let _ = writeln!(
+            t,
+            "{:<44} {:>14.2}",
+            format!("3. latency p50 at {PACED_RATE}/s (ms)"),
+            p50
+        );
+        let _ = writeln!(t, "{:<44} {:>14.2}  <= 5 ms", "   latency p99 (ms)", p99);
+        let _ = writeln!(t, "{:<44} {:>14.2}", "   latency max (ms)", max);
+        let _ = writeln!(
+            t,
+            "{:<44} {:>14.2}  <= 10 MiB",
+            "4. daemon peak RSS, VmHWM (MiB)",
+            mib(self.vm_hwm_kib)
+        );
+        let _ = writeln!(t, "-- details");
+        let _ = writeln!(
+            t,
+            "do-nothing: {}/{} received in {:.2} s; broker CPU {:.2} s",
+            self.noop_received, plan.firehose, self.noop_wall_s, self.noop_broker_cpu_s
+        );
+        let per_eval_us = 1e6 * self.sus_daemon_cpu_s / self.sus_received.max(1) as f64;
+        let _ = writeln!(
+            t,
+            "sustained: {}/{} results ({} good) in {:.2} s; daemon CPU {:.2} s ({:.1} us/result), broker CPU {:.2} s",
+            self.sus_received,
+            plan.firehose,
+            self.sus_good,
+            self.sus_wall_s,
+            self.sus_daemon_cpu_s,
+            per_eval_us,
+            self.sus_broker_cpu_s
+        );
+        let _ = writeln!(
+            t,
+            "paced: {} sent at {:.0}/s achieved, {} results matched by reactor + analysis_ts",
+            self.lat_sent, self.lat_achieved_rate, self.lat_matched
+        );
+        let _ = writeln!(
+            t,
+            "daemon: VmRSS {:.2} MiB at the end; messages received {}; evaluations good {} / uncertain {} / bad {}; journal errors {}; log lines {}; topic/ts mismatches {}",
+            mib(self.vm_rss_kib),
+            self.messages_in,
+            self.evaluations.get("good").copied().unwrap_or(f64::NAN),
+            self.evaluations
+                .get("uncertain")
+                .copied()
+                .unwrap_or(f64::NAN),
+            self.evaluations.get("bad").copied().unwrap_or(f64::NAN),
+            self.journal_errors,
+            self.daemon_log_lines,
+            self.mismatched
+        );
+        t
+    }
+}
+
+// ---------------------------------------------------------------------------------
+// The run.
+
+fn run(rt: &Runtime, plan: &Plan) -> Report {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (mut broker, port) = start_mosquitto(dir.path());
+    let mut r = Report::default();
+
+    // 1. Do-nothing subscriber.
+    eprintln!("e2e: 1/4 do-nothing subscriber, {} messages", plan.firehose);
+    {
+        let sub = Subscriber::start(rt, port, &["e2e-noop/#".to_string()], Keep::Nothing);
+        sub.wait_subscribed();
+        let client = publisher(rt, port);
+        let cpu0 = cpu_seconds(broker.pid());
+        let start = Instant::now();
+        let n = plan.firehose;
+        let base = now_ms();
+        rt.block_on(async {
+            for k in 0..n {
+                let topic = format!("e2e-noop/{}/ai", reactor_id(k % REACTORS));
+                let _ = client
+                    .publish(topic, QoS::AtLeastOnce, false, analysis(k, base + k as i64))
+                    .await;
+            }
+        });
+        wait_until(DRAIN_LIMIT, || sub.count() >= n);
+        r.noop_broker_cpu_s = cpu_seconds(broker.pid()) - cpu0;
+        let got = sub.take().got;
+        r.noop_received = got.len();
+        r.noop_wall_s = got
+            .last()
+            .map_or(f64::NAN, |g| g.at.duration_since(start).as_secs_f64());
+        let times: Vec<Instant> = got.iter().map(|g| g.at).collect();
+        r.noop_rate = steady_rate(&times);
+        let _ = rt.block_on(client.disconnect());
+    }
+
+    // 2. Sustained evaluations.
+    // Analysis timestamps lie in the recent past (age well inside max_age) and increase
+    // through both result runs: base + k for k = 0.. (sustained), then on (paced).
+    let base = now_ms() - 1_000_000;
+    let http = free_port();
+    let config = write_config(dir.path(), port, http);
+    let mut daemon = start_daemon(&config, http);
+    let results = Subscriber::start(
+        rt,
+        port,
+        &[
+            format!("eqwatch/{SITE}/+/result"),
+            format!("eqwatch/{SITE}/status"),
+        ],
+        Keep::Results { base_ms: base },
+    );
+    results.wait_subscribed();
+    assert!(
+        wait_until(Duration::from_secs(15), || results
+            .inbox
+            .lock()
+            .unwrap()
+            .online),
+        "the daemon never said online"
+    );
+    let client = publisher(rt, port);
+    eprintln!(
+        "e2e: 2/4 eqwatch sustained, {} analyses over {REACTORS} reactors",
+        plan.firehose
+    );
+    rt.block_on(async {
+        for i in 0..REACTORS {
+            let id = reactor_id(i);
+            let ts = base - 1_000;
+            for (topic, payload) in [
+                (format!("e2e/{id}/ti"), scalar(ts, 220.0, "degC")),
+                (format!("e2e/{id}/pi"), scalar(ts, 29.0, "barg")),
+            ] {
+                let _ = client
+                    .publish(topic, QoS::AtLeastOnce, false, payload)
+                    .await;
+            }
+        }
+    });
+    let received = || {
+        metric_sum(
+            &http_get(http, "/metrics"),
+            "eqwatch_messages_received_total",
+            None,
+        )
+    };
+    wait_until(Duration::from_secs(15), || {
+        received() >= (2 * REACTORS) as f64
+    });
+    let (d0, b0) = (cpu_seconds(daemon.pid()), cpu_seconds(broker.pid()));
+    let start = Instant::now();
+    let n = plan.firehose;
+    rt.block_on(async {
+        for k in 0..n {
+            let topic = format!("e2e/{}/ai", reactor_id(k % REACTORS));
+            let _ = client
+                .publish(topic, QoS::AtLeastOnce, false, analysis(k, base + k as i64))
+                .await;
+        }
+    });
+    wait_until(DRAIN_LIMIT, || results.count() >= n);
+    r.sus_daemon_cpu_s = cpu_seconds(daemon.pid()) - d0;
+    r.sus_broker_cpu_s = cpu_seconds(broker.pid()) - b0;
+    let inbox = results.take();
+    r.mismatched += inbox.mismatched;
+    let got: Vec<Got> = inbox
+        .got
+        .into_iter()
+        .filter(|g| g.analysis_ts.is_some_and(|ts| ts < base + n as i64))
+        .collect();
+    r.sus_received = got.len();
+    r.sus_good = got.iter().filter(|g| g.good).count();
+    r.sus_wall_s = got
+        .last()
+        .map_or(f64::NAN, |g| g.at.duration_since(start).as_secs_f64());
+    r.sus_rate = steady_rate(&got.iter().map(|g| g.at).collect::<Vec<_>>());
+
+    // 3. Latency at a paced rate.
+    let m = plan.paced;
+    eprintln!("e2e: 3/4 latency, {m} analyses at {PACED_RATE}/s");
+    let first = n;
+    let sent: Vec<Instant> = rt.block_on(async {
+        let mut sent = Vec::with_capacity(m);
+        let step = Duration::from_nanos(1_000_000_000 / PACED_RATE);
+        let t0 = tokio::time::Instant::now() + Duration::from_millis(50);
+        for j in 0..m {
+            tokio::time::sleep_until(t0 + step * j as u32).await;
+            let k = first + j;
+            let topic = format!("e2e/{}/ai", reactor_id(k % REACTORS));
+            let payload = analysis(k, base + k as i64);
+            sent.push(Instant::now());
+            let _ = client
+                .publish(topic, QoS::AtLeastOnce, false, payload)
+                .await;
+        }
+        sent
+    });
+    r.lat_sent = sent.len();
+    if let (Some(a), Some(b)) = (sent.first(), sent.last()) {
+        let span = b.duration_since(*a).as_secs_f64();
+        r.lat_achieved_rate = (sent.len().saturating_sub(1)) as f64 / span.max(1e-9);
+    }
+    wait_until(DRAIN_LIMIT.min(Duration::from_secs(30)), || {
+        results.count() >= m
+    });
+    let inbox = results.take();
+    r.mismatched += inbox.mismatched;
+    let mut lat: Vec<f64> = inbox
+        .got
+        .iter()
+        .filter_map(|g| {
+            let k = usize::try_from(g.analysis_ts? - base).ok()?;
+            let at = sent.get(k.checked_sub(first)?)?;
+            Some(g.at.saturating_duration_since(*at).as_secs_f64() * 1e3)
+        })
+        .collect();
+    lat.sort_by(f64::total_cmp);
+    r.lat_matched = lat.len();
+    r.lat_ms = lat;
+
+    // 4. Peak resident set, and the daemon's own counts.
+    eprintln!("e2e: 4/4 daemon memory and counters");
+    r.vm_hwm_kib = status_kib(daemon.pid(), "VmHWM");
+    r.vm_rss_kib = status_kib(daemon.pid(), "VmRSS");
+    let text = http_get(http, "/metrics");
+    for q in ["good", "uncertain", "bad"] {
+        let label = format!("quality=\"{q}\"");
+        r.evaluations.insert(
+            q,
+            metric_sum(&text, "eqwatch_evaluations_total", Some(&label)),
+        );
+    }
+    r.messages_in = metric_sum(&text, "eqwatch_messages_received_total", None);
+    r.journal_errors = metric_sum(&text, "eqwatch_journal_errors_total", None);
+    let _ = rt.block_on(client.disconnect());
+    daemon.stop(Duration::from_secs(15));
+    r.daemon_log_lines =
+        std::fs::read_to_string(config.with_extension("log")).map_or(0, |s| s.lines().count());
+    broker.stop(Duration::from_secs(5));
+    r
+}
