@@ -12,7 +12,12 @@
 //!    analyses, and its ratio to (1);
 //! 3. latency from publishing an analysis to receiving its result at a paced rate,
 //!    matched by reactor and analysis timestamp (p50, p99, max);
-//! 4. the daemon's peak resident set (VmHWM) after the run.
+//! 4. the daemon's peak resident set (VmHWM) over the run; beside it the peak before
+//!    any analysis and the peak of the paced run alone (VmHWM reset before it).
+//!
+//! Beside (3), the same paced stream to the do-nothing subscriber gives the latency of
+//! the broker and the MQTT client alone. The harness's clients and the broker send
+//! without Nagle's delay, so the latency measured is the daemon's own.
 //!
 //! Rates are taken over the steady part (results 10 % to 90 % of the way through),
 //! so connection start-up and the tail do not count. Everything talks to 127.0.0.1
@@ -32,7 +37,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
 
-use rumqttc::{AsyncClient, Event, Incoming, MqttOptions, QoS};
+use rumqttc::{AsyncClient, Event, EventLoop, Incoming, MqttOptions, NetworkOptions, QoS};
 use tokio::runtime::Runtime;
 
 const SITE: &str = "bench";
@@ -42,6 +47,8 @@ const FIREHOSE: usize = 100_000;
 /// The paced run: analyses per second, for this long.
 const PACED_RATE: u64 = 1_000;
 const PACED_SECS: u64 = 20;
+/// The same pace to the do-nothing subscriber (its latency is the yardstick).
+const NOOP_PACED_SECS: u64 = 5;
 /// Bound on the wait for the last message of a run.
 const DRAIN_LIMIT: Duration = Duration::from_secs(120);
 /// The steady part of a run: results from this fraction of the way through to 1 − it.
@@ -57,6 +64,7 @@ fn main() {
     let plan = Plan {
         firehose: FIREHOSE / scale,
         paced: (PACED_RATE * PACED_SECS) as usize / scale,
+        noop_paced: (PACED_RATE * NOOP_PACED_SECS) as usize / scale,
     };
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
@@ -76,7 +84,9 @@ fn main() {
 
 struct Plan {
     firehose: usize,
+    /// Paced messages to the daemon, and to the do-nothing subscriber.
     paced: usize,
+    noop_paced: usize,
 }
 
 fn target_dir() -> PathBuf {
@@ -163,7 +173,8 @@ fn mosquitto_binary() -> PathBuf {
 
 /// Mosquitto on a free loopback port, anonymous, no persistence. The per-client queue
 /// is unbounded so that a slow subscriber falls behind instead of losing messages
-/// (the default drops QoS 1 messages beyond 1000 queued).
+/// (the default drops QoS 1 messages beyond 1000 queued), and the broker writes to its
+/// clients without Nagle's delay (the default waits for the previous segment's ACK).
 fn start_mosquitto(dir: &Path) -> (Proc, u16) {
     let port = free_port();
     let conf = dir.join("mosquitto.conf");
@@ -171,7 +182,7 @@ fn start_mosquitto(dir: &Path) -> (Proc, u16) {
     std::fs::write(
         &conf,
         format!(
-            "listener {port} 127.0.0.1\nallow_anonymous true\npersistence false\nlog_dest none\nmax_queued_messages 0\n{user}"
+            "listener {port} 127.0.0.1\nallow_anonymous true\npersistence false\nlog_dest none\nmax_queued_messages 0\nset_tcp_nodelay true\n{user}"
         ),
     )
     .expect("write mosquitto.conf");
@@ -255,6 +266,11 @@ fn status_kib(pid: u32, key: &str) -> Option<u64> {
         .ok()
 }
 
+/// Resets a process's VmHWM to its current RSS (Linux 4.0+); false when refused.
+fn reset_peak_rss(pid: u32) -> bool {
+    std::fs::write(format!("/proc/{pid}/clear_refs"), "5").is_ok()
+}
+
 fn http_get(port: u16, path: &str) -> String {
     use std::io::Read;
     let Ok(mut s) = TcpStream::connect(("127.0.0.1", port)) else {
@@ -297,6 +313,14 @@ fn options(prefix: &str, port: u16) -> MqttOptions {
     o
 }
 
+/// The harness's own clients send at once (no Nagle delay), so that the latency is the
+/// broker's and the daemon's.
+fn no_delay(ev: &mut EventLoop) {
+    let mut n = NetworkOptions::new();
+    n.set_tcp_nodelay(true);
+    ev.set_network_options(n);
+}
+
 /// One received message: when, and what the receiver kept of it.
 #[derive(Clone, Copy)]
 struct Got {
@@ -317,7 +341,7 @@ struct Inbox {
 /// What a subscriber does with a message.
 #[derive(Clone, Copy, PartialEq)]
 enum Keep {
-    /// The yardstick: note the arrival time only.
+    /// The yardstick: note the arrival time and the `ts` the message starts with.
     Nothing,
     /// eqwatch results: also the analysis timestamp and the quality (substring
     /// search, no JSON tree), and the status topic's `online`.
@@ -334,6 +358,7 @@ impl Subscriber {
         let inbox = Arc::new(Mutex::new(Inbox::default()));
         let subscribed = Arc::new(AtomicBool::new(false));
         let (client, mut ev) = AsyncClient::new(options("e2e-sub", port), 64);
+        no_delay(&mut ev);
         let filters = filters.to_vec();
         let (ib, sb) = (inbox.clone(), subscribed.clone());
         rt.spawn(async move {
@@ -354,11 +379,14 @@ impl Subscriber {
                     Ok(Event::Incoming(Incoming::Publish(p))) => {
                         let at = Instant::now();
                         match keep {
-                            Keep::Nothing => ib.lock().unwrap().got.push(Got {
-                                at,
-                                analysis_ts: None,
-                                good: true,
-                            }),
+                            Keep::Nothing => {
+                                let analysis_ts = leading_ts(&p.payload);
+                                ib.lock().unwrap().got.push(Got {
+                                    at,
+                                    analysis_ts,
+                                    good: true,
+                                })
+                            }
                             Keep::Results { base_ms } => {
                                 keep_result(&ib, at, &p.topic, &p.payload, base_ms)
                             }
@@ -388,6 +416,13 @@ impl Subscriber {
     fn take(&self) -> Inbox {
         std::mem::take(&mut *self.inbox.lock().unwrap())
     }
+}
+
+/// The epoch-ms `ts` at the head of the harness's own messages (`{"ts":123,...`).
+fn leading_ts(payload: &[u8]) -> Option<i64> {
+    let rest = payload.strip_prefix(b"{\"ts\":")?;
+    let end = rest.iter().position(|b| !b.is_ascii_digit())?;
+    std::str::from_utf8(&rest[..end]).ok()?.parse().ok()
 }
 
 fn keep_result(inbox: &Mutex<Inbox>, at: Instant, topic: &str, payload: &[u8], base_ms: i64) {
@@ -424,6 +459,7 @@ fn publisher(rt: &Runtime, port: u16) -> AsyncClient {
     let mut o = options("e2e-pub", port);
     o.set_inflight(1000);
     let (client, mut ev) = AsyncClient::new(o, 1024);
+    no_delay(&mut ev);
     rt.spawn(async move {
         loop {
             if ev.poll().await.is_err() {
@@ -551,12 +587,78 @@ fn percentile(sorted: &[f64], p: f64) -> f64 {
     sorted[rank.clamp(1, sorted.len()) - 1]
 }
 
+/// Latencies in ms, sorted: each received message matched to its send time by the
+/// timestamp it carries (`base + first + j` for the `j`-th paced message).
+fn latencies(got: &[Got], sent: &[Instant], base: i64, first: usize) -> Vec<f64> {
+    let mut lat: Vec<f64> = got
+        .iter()
+        .filter_map(|g| {
+            let k = usize::try_from(g.analysis_ts? - base).ok()?;
+            let at = sent.get(k.checked_sub(first)?)?;
+            Some(g.at.saturating_duration_since(*at).as_secs_f64() * 1e3)
+        })
+        .collect();
+    lat.sort_by(f64::total_cmp);
+    lat
+}
+
+/// Publishes analyses `first..first + m` at `PACED_RATE` per second; returns the send
+/// times (taken just before each publish is queued).
+fn paced(
+    rt: &Runtime,
+    client: &AsyncClient,
+    prefix: &str,
+    base: i64,
+    first: usize,
+    m: usize,
+) -> Vec<Instant> {
+    rt.block_on(async {
+        let mut sent = Vec::with_capacity(m);
+        let step = Duration::from_nanos(1_000_000_000 / PACED_RATE);
+        let t0 = tokio::time::Instant::now() + Duration::from_millis(50);
+        for j in 0..m {
+            tokio::time::sleep_until(t0 + step * j as u32).await;
+            let k = first + j;
+            let topic = format!("{prefix}/{}/ai", reactor_id(k % REACTORS));
+            let payload = analysis(k, base + k as i64);
+            sent.push(Instant::now());
+            let _ = client
+                .publish(topic, QoS::AtLeastOnce, false, payload)
+                .await;
+        }
+        sent
+    })
+}
+
+/// Publishes analyses `0..n` as fast as the client and broker take them.
+fn firehose(rt: &Runtime, client: &AsyncClient, prefix: &str, base: i64, n: usize) {
+    rt.block_on(async {
+        for k in 0..n {
+            let topic = format!("{prefix}/{}/ai", reactor_id(k % REACTORS));
+            let _ = client
+                .publish(topic, QoS::AtLeastOnce, false, analysis(k, base + k as i64))
+                .await;
+        }
+    });
+}
+
+fn achieved_rate(sent: &[Instant]) -> f64 {
+    match (sent.first(), sent.last()) {
+        (Some(a), Some(b)) if sent.len() > 1 => {
+            (sent.len() - 1) as f64 / b.duration_since(*a).as_secs_f64().max(1e-9)
+        }
+        _ => f64::NAN,
+    }
+}
+
 #[derive(Default)]
 struct Report {
     noop_received: usize,
     noop_rate: f64,
     noop_broker_cpu_s: f64,
     noop_wall_s: f64,
+    noop_lat_ms: Vec<f64>,
+    noop_lat_sent: usize,
     sus_received: usize,
     sus_good: usize,
     sus_rate: f64,
@@ -564,11 +666,14 @@ struct Report {
     sus_daemon_cpu_s: f64,
     sus_broker_cpu_s: f64,
     lat_sent: usize,
-    lat_matched: usize,
     lat_achieved_rate: f64,
     lat_ms: Vec<f64>,
+    lat_daemon_cpu_s: f64,
     mismatched: usize,
+    idle_hwm_kib: Option<u64>,
+    /// Peak over the whole run, and over the paced run alone (None: no reset possible).
     vm_hwm_kib: Option<u64>,
+    paced_hwm_kib: Option<u64>,
     vm_rss_kib: Option<u64>,
     evaluations: BTreeMap<&'static str, f64>,
     messages_in: f64,
@@ -580,54 +685,95 @@ impl Report {
     fn table(&self, plan: &Plan) -> String {
         let mut t = String::new();
         let ratio = 100.0 * self.sus_rate / self.noop_rate;
-        let (p50, p99, max) = (
-            percentile(&self.lat_ms, 50.0),
-            percentile(&self.lat_ms, 99.0),
-            self.lat_ms.last().copied().unwrap_or(f64::NAN),
-        );
+        let p = |v: &[f64], q: f64| percentile(v, q);
+        let max = |v: &[f64]| v.last().copied().unwrap_or(f64::NAN);
         let mib = |k: Option<u64>| k.map_or(f64::NAN, |k| k as f64 / 1024.0);
+        let row = |t: &mut String, name: &str, value: String, goal: &str| {
+            let _ = writeln!(t, "{name:<44} {value:>12}  {goal}");
+        };
         let _ = writeln!(
             t,
             "\n== eqwatch end-to-end ({REACTORS} reactors, mosquitto on loopback, {} CPUs)",
             std::thread::available_parallelism().map_or(0, |n| n.get())
         );
-        let _ = writeln!(t, "{:<44} {:>14}  goal", "figure", "value");
-        let _ = writeln!(
-            t,
-            "{:<44} {:>14.0}",
-            "1. do-nothing subscriber (msg/s)", self.noop_rate
+        row(&mut t, "figure", "value".into(), "goal");
+        row(
+            &mut t,
+            "1. do-nothing subscriber (msg/s)",
+            format!("{:.0}", self.noop_rate),
+            "",
         );
-        let _ = writeln!(
-            t,
-            "{:<44} {:>14.0}",
-            "2. eqwatch sustained (results/s)", self.sus_rate
+        row(
+            &mut t,
+            "2. eqwatch sustained (results/s)",
+            format!("{:.0}", self.sus_rate),
+            "",
         );
-        let _ = writeln!(
-            t,
-            "{:<44} {:>13.1}%  >= 80 %",
-            "   ratio to do-nothing", ratio
+        row(
+            &mut t,
+            "   ratio to do-nothing",
+            format!("{ratio:.1} %"),
+            ">= 80 %",
         );
-        let _ = writeln!(
-            t,
-            "{:<44} {:>14.2}",
-            format!("3. latency p50 at {PACED_RATE}/s (ms)"),
-            p50
+        row(
+            &mut t,
+            &format!("3. latency at {PACED_RATE}/s, p50 (ms)"),
+            format!("{:.2}", p(&self.lat_ms, 50.0)),
+            "",
         );
-        let _ = writeln!(t, "{:<44} {:>14.2}  <= 5 ms", "   latency p99 (ms)", p99);
-        let _ = writeln!(t, "{:<44} {:>14.2}", "   latency max (ms)", max);
-        let _ = writeln!(
-            t,
-            "{:<44} {:>14.2}  <= 10 MiB",
+        row(
+            &mut t,
+            "   p99 (ms)",
+            format!("{:.2}", p(&self.lat_ms, 99.0)),
+            "<= 5 ms",
+        );
+        row(
+            &mut t,
+            "   max (ms)",
+            format!("{:.2}", max(&self.lat_ms)),
+            "",
+        );
+        row(
+            &mut t,
+            "   do-nothing p50 / p99 / max (ms)",
+            format!(
+                "{:.2} / {:.2} / {:.2}",
+                p(&self.noop_lat_ms, 50.0),
+                p(&self.noop_lat_ms, 99.0),
+                max(&self.noop_lat_ms)
+            ),
+            "(yardstick)",
+        );
+        row(
+            &mut t,
             "4. daemon peak RSS, VmHWM (MiB)",
-            mib(self.vm_hwm_kib)
+            format!("{:.2}", mib(self.vm_hwm_kib)),
+            "<= 10 MiB",
+        );
+        row(
+            &mut t,
+            "   VmHWM before any analysis (MiB)",
+            format!("{:.2}", mib(self.idle_hwm_kib)),
+            "",
+        );
+        row(
+            &mut t,
+            &format!("   VmHWM during the {PACED_RATE}/s run (MiB)"),
+            format!("{:.2}", mib(self.paced_hwm_kib)),
+            "",
         );
         let _ = writeln!(t, "-- details");
         let _ = writeln!(
             t,
-            "do-nothing: {}/{} received in {:.2} s; broker CPU {:.2} s",
-            self.noop_received, plan.firehose, self.noop_wall_s, self.noop_broker_cpu_s
+            "do-nothing: {}/{} received in {:.2} s, broker CPU {:.2} s; paced {} sent, {} matched",
+            self.noop_received,
+            plan.firehose,
+            self.noop_wall_s,
+            self.noop_broker_cpu_s,
+            self.noop_lat_sent,
+            self.noop_lat_ms.len()
         );
-        let per_eval_us = 1e6 * self.sus_daemon_cpu_s / self.sus_received.max(1) as f64;
+        let per_result_us = 1e6 * self.sus_daemon_cpu_s / self.sus_received.max(1) as f64;
         let _ = writeln!(
             t,
             "sustained: {}/{} results ({} good) in {:.2} s; daemon CPU {:.2} s ({:.1} us/result), broker CPU {:.2} s",
@@ -636,25 +782,26 @@ impl Report {
             self.sus_good,
             self.sus_wall_s,
             self.sus_daemon_cpu_s,
-            per_eval_us,
+            per_result_us,
             self.sus_broker_cpu_s
         );
         let _ = writeln!(
             t,
-            "paced: {} sent at {:.0}/s achieved, {} results matched by reactor + analysis_ts",
-            self.lat_sent, self.lat_achieved_rate, self.lat_matched
+            "paced: {} sent at {:.0}/s, {} results matched by reactor + analysis_ts; daemon CPU {:.2} s",
+            self.lat_sent,
+            self.lat_achieved_rate,
+            self.lat_ms.len(),
+            self.lat_daemon_cpu_s
         );
+        let q = |k: &str| self.evaluations.get(k).copied().unwrap_or(f64::NAN);
         let _ = writeln!(
             t,
             "daemon: VmRSS {:.2} MiB at the end; messages received {}; evaluations good {} / uncertain {} / bad {}; journal errors {}; log lines {}; topic/ts mismatches {}",
             mib(self.vm_rss_kib),
             self.messages_in,
-            self.evaluations.get("good").copied().unwrap_or(f64::NAN),
-            self.evaluations
-                .get("uncertain")
-                .copied()
-                .unwrap_or(f64::NAN),
-            self.evaluations.get("bad").copied().unwrap_or(f64::NAN),
+            q("good"),
+            q("uncertain"),
+            q("bad"),
             self.journal_errors,
             self.daemon_log_lines,
             self.mismatched
@@ -670,25 +817,18 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     let dir = tempfile::tempdir().expect("temp dir");
     let (mut broker, port) = start_mosquitto(dir.path());
     let mut r = Report::default();
+    let n = plan.firehose;
 
-    // 1. Do-nothing subscriber.
-    eprintln!("e2e: 1/4 do-nothing subscriber, {} messages", plan.firehose);
+    // 1. Do-nothing subscriber: the firehose, then the paced stream for its latency.
+    eprintln!("e2e: 1/4 do-nothing subscriber, {n} messages");
     {
         let sub = Subscriber::start(rt, port, &["e2e-noop/#".to_string()], Keep::Nothing);
         sub.wait_subscribed();
         let client = publisher(rt, port);
+        let base = now_ms() - 1_000_000;
         let cpu0 = cpu_seconds(broker.pid());
         let start = Instant::now();
-        let n = plan.firehose;
-        let base = now_ms();
-        rt.block_on(async {
-            for k in 0..n {
-                let topic = format!("e2e-noop/{}/ai", reactor_id(k % REACTORS));
-                let _ = client
-                    .publish(topic, QoS::AtLeastOnce, false, analysis(k, base + k as i64))
-                    .await;
-            }
-        });
+        firehose(rt, &client, "e2e-noop", base, n);
         wait_until(DRAIN_LIMIT, || sub.count() >= n);
         r.noop_broker_cpu_s = cpu_seconds(broker.pid()) - cpu0;
         let got = sub.take().got;
@@ -696,8 +836,12 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
         r.noop_wall_s = got
             .last()
             .map_or(f64::NAN, |g| g.at.duration_since(start).as_secs_f64());
-        let times: Vec<Instant> = got.iter().map(|g| g.at).collect();
-        r.noop_rate = steady_rate(&times);
+        r.noop_rate = steady_rate(&got.iter().map(|g| g.at).collect::<Vec<_>>());
+        let m = plan.noop_paced;
+        let sent = paced(rt, &client, "e2e-noop", base, n, m);
+        wait_until(Duration::from_secs(10), || sub.count() >= m);
+        r.noop_lat_sent = sent.len();
+        r.noop_lat_ms = latencies(&sub.take().got, &sent, base, n);
         let _ = rt.block_on(client.disconnect());
     }
 
@@ -727,10 +871,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
         "the daemon never said online"
     );
     let client = publisher(rt, port);
-    eprintln!(
-        "e2e: 2/4 eqwatch sustained, {} analyses over {REACTORS} reactors",
-        plan.firehose
-    );
+    eprintln!("e2e: 2/4 eqwatch sustained, {n} analyses over {REACTORS} reactors");
     rt.block_on(async {
         for i in 0..REACTORS {
             let id = reactor_id(i);
@@ -755,17 +896,10 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     wait_until(Duration::from_secs(15), || {
         received() >= (2 * REACTORS) as f64
     });
+    r.idle_hwm_kib = status_kib(daemon.pid(), "VmHWM");
     let (d0, b0) = (cpu_seconds(daemon.pid()), cpu_seconds(broker.pid()));
     let start = Instant::now();
-    let n = plan.firehose;
-    rt.block_on(async {
-        for k in 0..n {
-            let topic = format!("e2e/{}/ai", reactor_id(k % REACTORS));
-            let _ = client
-                .publish(topic, QoS::AtLeastOnce, false, analysis(k, base + k as i64))
-                .await;
-        }
-    });
+    firehose(rt, &client, "e2e", base, n);
     wait_until(DRAIN_LIMIT, || results.count() >= n);
     r.sus_daemon_cpu_s = cpu_seconds(daemon.pid()) - d0;
     r.sus_broker_cpu_s = cpu_seconds(broker.pid()) - b0;
@@ -786,49 +920,24 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     // 3. Latency at a paced rate.
     let m = plan.paced;
     eprintln!("e2e: 3/4 latency, {m} analyses at {PACED_RATE}/s");
-    let first = n;
-    let sent: Vec<Instant> = rt.block_on(async {
-        let mut sent = Vec::with_capacity(m);
-        let step = Duration::from_nanos(1_000_000_000 / PACED_RATE);
-        let t0 = tokio::time::Instant::now() + Duration::from_millis(50);
-        for j in 0..m {
-            tokio::time::sleep_until(t0 + step * j as u32).await;
-            let k = first + j;
-            let topic = format!("e2e/{}/ai", reactor_id(k % REACTORS));
-            let payload = analysis(k, base + k as i64);
-            sent.push(Instant::now());
-            let _ = client
-                .publish(topic, QoS::AtLeastOnce, false, payload)
-                .await;
-        }
-        sent
-    });
+    let d0 = cpu_seconds(daemon.pid());
+    // The whole-run peak so far; then the peak of the paced run alone.
+    let firehose_hwm = status_kib(daemon.pid(), "VmHWM");
+    let reset = reset_peak_rss(daemon.pid());
+    let sent = paced(rt, &client, "e2e", base, n, m);
     r.lat_sent = sent.len();
-    if let (Some(a), Some(b)) = (sent.first(), sent.last()) {
-        let span = b.duration_since(*a).as_secs_f64();
-        r.lat_achieved_rate = (sent.len().saturating_sub(1)) as f64 / span.max(1e-9);
-    }
-    wait_until(DRAIN_LIMIT.min(Duration::from_secs(30)), || {
-        results.count() >= m
-    });
+    r.lat_achieved_rate = achieved_rate(&sent);
+    wait_until(Duration::from_secs(30), || results.count() >= m);
+    r.lat_daemon_cpu_s = cpu_seconds(daemon.pid()) - d0;
     let inbox = results.take();
     r.mismatched += inbox.mismatched;
-    let mut lat: Vec<f64> = inbox
-        .got
-        .iter()
-        .filter_map(|g| {
-            let k = usize::try_from(g.analysis_ts? - base).ok()?;
-            let at = sent.get(k.checked_sub(first)?)?;
-            Some(g.at.saturating_duration_since(*at).as_secs_f64() * 1e3)
-        })
-        .collect();
-    lat.sort_by(f64::total_cmp);
-    r.lat_matched = lat.len();
-    r.lat_ms = lat;
+    r.lat_ms = latencies(&inbox.got, &sent, base, n);
 
     // 4. Peak resident set, and the daemon's own counts.
     eprintln!("e2e: 4/4 daemon memory and counters");
-    r.vm_hwm_kib = status_kib(daemon.pid(), "VmHWM");
+    let paced_hwm = status_kib(daemon.pid(), "VmHWM");
+    r.vm_hwm_kib = firehose_hwm.max(paced_hwm);
+    r.paced_hwm_kib = paced_hwm.filter(|_| reset);
     r.vm_rss_kib = status_kib(daemon.pid(), "VmRSS");
     let text = http_get(http, "/metrics");
     for q in ["good", "uncertain", "bad"] {

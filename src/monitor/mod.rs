@@ -7,6 +7,7 @@
 //! analyses are refused with an [`Outcome`] the caller counts.
 
 pub mod buffer;
+pub mod drift;
 
 use std::collections::BTreeMap;
 
@@ -791,4 +792,240 @@ fn store(b: &mut ScalarBuffer, r: ScalarReading) -> Outcome {
 /// Whether the reactor's composition comes from per-component topics.
 pub fn per_component(s: &ReactorSettings) -> bool {
     matches!(s.composition.source, CompositionSource::PerComponent { .. })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::config::{Settings, from_str};
+
+    /// The demo plant's configuration (invented plant) as the test reactor set.
+    fn settings() -> Settings {
+        from_str(
+            include_str!("../../config/demo-plant.toml"),
+            std::path::Path::new("."),
+        )
+        .expect("demo config")
+    }
+
+    fn reactor<'a>(s: &'a Settings, id: &str) -> &'a ReactorSettings {
+        s.reactors.iter().find(|r| r.id == id).expect("reactor")
+    }
+
+    const T0: i64 = 1_796_083_200_000;
+    const MIN: i64 = 60_000;
+
+    fn scalar(ts: i64, v: f64) -> ScalarReading {
+        ScalarReading {
+            ts_ms: ts,
+            value: v,
+            quality: SourceQuality::Good,
+        }
+    }
+
+    /// The LTS gas of DOMAIN §8 in the demo's lts1 component order (H2, N2, CO, CO2, CH4, Ar).
+    fn lts_analysis(ts: i64) -> AnalysisReading {
+        let v = [61.0536, 18.98637, 0.28697, 19.38096, 0.2921, 0.0];
+        AnalysisReading {
+            ts_ms: ts,
+            values: v.iter().map(|x| Some(x / 100.0)).collect(),
+            basis: Some(Basis::Dry),
+            quality: SourceQuality::Good,
+        }
+    }
+
+    fn feed_lts(m: &mut ReactorMonitor, s: &Settings, at: i64, t_k: f64) {
+        let r = reactor(s, "lts1");
+        for i in 0..r.temperatures.len() {
+            m.accept(r, &s.species, Input::Temperature(i, scalar(at, t_k)), at);
+        }
+        m.accept(r, &s.species, Input::Pressure(scalar(at, 30.01325)), at);
+        m.accept(r, &s.species, Input::SteamRatio(scalar(at, 0.36312)), at);
+    }
+
+    fn evaluated(o: Outcome) -> Evaluation {
+        match o {
+            Outcome::Evaluated(e) => *e,
+            other => panic!("expected an evaluation, got {other:?}"),
+        }
+    }
+
+    fn codes(e: &Evaluation) -> Vec<&'static str> {
+        e.reasons.iter().map(|r| r.code).collect()
+    }
+
+    #[test]
+    fn aligned_good_analysis_matches_the_worked_example() {
+        // DOMAIN §8 [derived]: with Moe's K at 220 °C the LTS approach is 12.00 K.
+        // Ar = 0 here, which is allowed (inert, not in the reaction).
+        let s = settings();
+        let r = reactor(&s, "lts1");
+        let mut m = ReactorMonitor::new(r);
+        let sample = T0 + 10 * MIN;
+        feed_lts(&mut m, &s, sample, 493.15);
+        let lag = ms(r.composition.lag);
+        let e = evaluated(m.accept(
+            r,
+            &s.species,
+            Input::Analysis(lts_analysis(sample + lag)),
+            sample + lag,
+        ));
+        assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
+        assert_eq!(e.sample_ts_ms, sample);
+        assert!((e.reactions[0].approach_k.unwrap() - 12.00).abs() < 0.01);
+        assert!(e.key_measured.is_some() && e.key_equilibrium.is_some());
+        // The same analysis again is a redelivery; an older one is refused.
+        assert_eq!(
+            m.accept(
+                r,
+                &s.species,
+                Input::Analysis(lts_analysis(sample + lag)),
+                sample + lag
+            ),
+            Outcome::Duplicate
+        );
+        assert!(matches!(
+            m.accept(r, &s.species, Input::Analysis(lts_analysis(sample)), sample),
+            Outcome::OutOfOrder { .. }
+        ));
+    }
+
+    #[test]
+    fn stale_and_missing_inputs_are_reasons_not_defaults() {
+        let s = settings();
+        let r = reactor(&s, "lts1");
+        let mut m = ReactorMonitor::new(r);
+        // Nothing but the analysis: no temperature, pressure or steam ratio.
+        let e = evaluated(m.accept(r, &s.species, Input::Analysis(lts_analysis(T0)), T0));
+        assert_eq!(e.quality, Quality::Bad);
+        assert!(e.reactions.is_empty() && e.temperature_k.is_none() && e.pressure_bar.is_none());
+        for c in ["no_temperature", "stale_pressure", "stale_steam_ratio"] {
+            assert!(codes(&e).contains(&c), "{c}: {:?}", codes(&e));
+        }
+        // One thermocouple silent: left out, uncertain; the other carries the figure.
+        let later = T0 + 60 * MIN;
+        m.accept(
+            r,
+            &s.species,
+            Input::Temperature(0, scalar(later, 493.15)),
+            later,
+        );
+        m.accept(r, &s.species, Input::Pressure(scalar(later, 30.0)), later);
+        m.accept(
+            r,
+            &s.species,
+            Input::SteamRatio(scalar(later, 0.36312)),
+            later,
+        );
+        let lag = ms(r.composition.lag);
+        let e = evaluated(m.accept(
+            r,
+            &s.species,
+            Input::Analysis(lts_analysis(later + lag)),
+            later + lag,
+        ));
+        assert_eq!(e.quality, Quality::Uncertain, "{:?}", e.reasons);
+        assert_eq!(codes(&e), vec!["stale_temperature"]);
+        assert!(e.reactions[0].approach_k.is_some());
+    }
+
+    #[test]
+    fn bad_values_transients_and_stuck_analysers() {
+        let s = settings();
+        let r = reactor(&s, "lts1");
+        let lag = ms(r.composition.lag);
+        let mut m = ReactorMonitor::new(r);
+        let mut at = T0;
+        let mut next = |m: &mut ReactorMonitor, a: AnalysisReading, t_k: f64| {
+            at += 5 * MIN;
+            feed_lts(m, &s, at, t_k);
+            let mut a = a;
+            a.ts_ms = at + lag;
+            evaluated(m.accept(r, &s.species, Input::Analysis(a), at + lag))
+        };
+        let mut nan = lts_analysis(0);
+        nan.values[1] = Some(f64::NAN);
+        assert!(codes(&next(&mut m, nan, 493.15)).contains(&"bad_value"));
+        let mut neg = lts_analysis(0);
+        neg.values[2] = Some(-0.001);
+        assert!(codes(&next(&mut m, neg, 493.15)).contains(&"negative_value"));
+        let mut short = lts_analysis(0);
+        short.values[0] = Some(0.50);
+        assert!(codes(&next(&mut m, short, 493.15)).contains(&"sum_outside_tolerance"));
+        let mut missing = lts_analysis(0);
+        missing.values[3] = None;
+        assert!(codes(&next(&mut m, missing, 493.15)).contains(&"missing_component"));
+        let mut wet = lts_analysis(0);
+        wet.basis = Some(Basis::Wet);
+        assert!(codes(&next(&mut m, wet, 493.15)).contains(&"basis_mismatch"));
+        // Three identical analyses in a row: the analyser is stuck.
+        let a = next(&mut m, lts_analysis(0), 493.15);
+        assert_eq!(a.quality, Quality::Good, "{:?}", a.reasons);
+        next(&mut m, lts_analysis(0), 493.15);
+        let e = next(&mut m, lts_analysis(0), 493.15);
+        assert!(codes(&e).contains(&"analyser_stuck"), "{:?}", codes(&e));
+        assert_eq!(e.quality, Quality::Bad);
+    }
+
+    #[test]
+    fn transient_temperature_is_flagged() {
+        let s = settings();
+        let r = reactor(&s, "lts1");
+        let lag = ms(r.composition.lag);
+        let mut m = ReactorMonitor::new(r);
+        let sample = T0 + 30 * MIN;
+        // 10 K over one analyser lag (60 s): 10 K/min, above the 2 K/min threshold.
+        feed_lts(&mut m, &s, sample - lag, 483.15);
+        feed_lts(&mut m, &s, sample, 493.15);
+        let e = evaluated(m.accept(
+            r,
+            &s.species,
+            Input::Analysis(lts_analysis(sample + lag)),
+            sample + lag,
+        ));
+        assert!(codes(&e).contains(&"transient"), "{:?}", codes(&e));
+        assert_eq!(e.quality, Quality::Uncertain);
+    }
+
+    #[test]
+    fn per_component_analysis_assembles_by_timestamp() {
+        // The demo methanator reports each component on its own topic (invented values).
+        let s = settings();
+        let r = reactor(&s, "mth1");
+        assert!(per_component(r));
+        let mut m = ReactorMonitor::new(r);
+        let at = T0 + 10 * MIN;
+        for i in 0..r.temperatures.len() {
+            m.accept(r, &s.species, Input::Temperature(i, scalar(at, 600.0)), at);
+        }
+        m.accept(r, &s.species, Input::Pressure(scalar(at, 28.0)), at);
+        let lag = ms(r.composition.lag);
+        let names = r.composition.components.clone();
+        let value = |n: &str| match n {
+            "H2" => 0.744,
+            "N2" => 0.245,
+            "CH4" => 0.0075,
+            "Ar" => 0.0035,
+            "CO" => 2e-6,
+            "CO2" => 1e-6,
+            other => panic!("unexpected component {other}"),
+        };
+        let mut last = Outcome::Stored;
+        for (i, n) in names.iter().enumerate() {
+            assert_eq!(
+                last,
+                Outcome::Stored,
+                "complete before every component arrived"
+            );
+            last = m.accept(
+                r,
+                &s.species,
+                Input::Component(i, scalar(at + lag, value(n))),
+                at + lag,
+            );
+        }
+        let e = evaluated(last);
+        assert!(!e.reactions.is_empty(), "{:?}", e.reasons);
+        assert!(e.reactions.iter().all(|a| a.ln_q.is_finite()));
+    }
 }

@@ -1,0 +1,288 @@
+//! Drift statistics of the approach: EWMA with its control limits, a one-sided CUSUM
+//! against a baseline, and a linear end-of-run forecast with a prediction interval.
+//! Pure: samples and times are passed in. (The alert and alarm layers that use these
+//! figures come later.)
+//!
+//! # References
+//! - S. W. Roberts, "Control chart tests based on geometric moving averages",
+//!   Technometrics 1 (1959) 239: z_i = λx_i + (1−λ)z_{i−1}, limits
+//!   μ0 ± Lσ √(λ/(2−λ) (1 − (1−λ)^{2i})).
+//! - E. S. Page, "Continuous inspection schemes", Biometrika 41 (1954) 100:
+//!   S_i = max(0, S_{i−1} + x_i − μ0 − k), signal when S_i > h.
+//! - Ordinary least squares prediction interval: ŷ ± t_{n−2} s √(1 + 1/n + (x−x̄)²/Sxx),
+//!   e.g. D. C. Montgomery, E. A. Peck, Introduction to Linear Regression Analysis, §2.4.
+
+use thiserror::Error;
+
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum DriftError {
+    #[error("lambda must be in (0, 1], got {0}")]
+    Lambda(f64),
+    #[error("sigma, L, k and h must be positive finite numbers")]
+    Parameter,
+}
+
+/// EWMA chart of the approach.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Ewma {
+    lambda: f64,
+    mu0: f64,
+    sigma: f64,
+    l: f64,
+    z: f64,
+    n: u32,
+}
+
+/// One EWMA step's figures.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct EwmaPoint {
+    pub z: f64,
+    pub upper: f64,
+    pub lower: f64,
+    pub signal: bool,
+}
+
+impl Ewma {
+    pub fn new(mu0: f64, sigma: f64, lambda: f64, l: f64) -> Result<Self, DriftError> {
+        if !(lambda > 0.0 && lambda <= 1.0) {
+            return Err(DriftError::Lambda(lambda));
+        }
+        if !(sigma > 0.0 && l > 0.0 && sigma.is_finite() && l.is_finite() && mu0.is_finite()) {
+            return Err(DriftError::Parameter);
+        }
+        Ok(Self {
+            lambda,
+            mu0,
+            sigma,
+            l,
+            z: mu0,
+            n: 0,
+        })
+    }
+
+    pub fn push(&mut self, x: f64) -> EwmaPoint {
+        self.n += 1;
+        self.z = self.lambda * x + (1.0 - self.lambda) * self.z;
+        let w = (self.lambda / (2.0 - self.lambda)
+            * (1.0 - (1.0 - self.lambda).powi(2 * self.n as i32)))
+        .sqrt();
+        let upper = self.mu0 + self.l * self.sigma * w;
+        let lower = self.mu0 - self.l * self.sigma * w;
+        EwmaPoint {
+            z: self.z,
+            upper,
+            lower,
+            signal: self.z > upper || self.z < lower,
+        }
+    }
+}
+
+/// Upper one-sided CUSUM (a rising approach is the concern).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Cusum {
+    mu0: f64,
+    k: f64,
+    h: f64,
+    s: f64,
+}
+
+impl Cusum {
+    pub fn new(mu0: f64, k: f64, h: f64) -> Result<Self, DriftError> {
+        if !(k >= 0.0 && h > 0.0 && k.is_finite() && h.is_finite() && mu0.is_finite()) {
+            return Err(DriftError::Parameter);
+        }
+        Ok(Self { mu0, k, h, s: 0.0 })
+    }
+
+    /// Adds a sample; returns (S⁺, signal).
+    pub fn push(&mut self, x: f64) -> (f64, bool) {
+        self.s = (self.s + x - self.mu0 - self.k).max(0.0);
+        (self.s, self.s > self.h)
+    }
+
+    pub fn reset(&mut self) {
+        self.s = 0.0;
+    }
+}
+
+/// A straight-line trend of the approach against time (days) and the end-of-run forecast.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Trend {
+    pub slope_per_day: f64,
+    pub intercept: f64,
+    /// Residual standard deviation.
+    pub s: f64,
+    pub n: usize,
+    mean_x: f64,
+    sxx: f64,
+}
+
+/// When the approach reaches a limit.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum EndOfRun {
+    /// Day of the crossing at the fitted line, with an interval from the 95 % prediction
+    /// band (earliest: upper band reaches the limit; latest: lower band does, if it does).
+    At {
+        day: f64,
+        earliest: f64,
+        latest: Option<f64>,
+    },
+    /// Slope zero or falling: no crossing ahead.
+    NotRising,
+}
+
+/// Two-sided 95 % Student t quantile for `dof` degrees of freedom (table values,
+/// e.g. NIST/SEMATECH e-Handbook of Statistical Methods, table 1.3.6.7.2).
+fn t95(dof: usize) -> f64 {
+    const T: [f64; 30] = [
+        12.706, 4.303, 3.182, 2.776, 2.571, 2.447, 2.365, 2.306, 2.262, 2.228, 2.201, 2.179, 2.160,
+        2.145, 2.131, 2.120, 2.110, 2.101, 2.093, 2.086, 2.080, 2.074, 2.069, 2.064, 2.060, 2.056,
+        2.052, 2.048, 2.045, 2.042,
+    ];
+    match dof {
+        0 => f64::INFINITY,
+        d if d <= 30 => T[d - 1],
+        d if d <= 60 => 2.000 + (2.042 - 2.000) * (60 - d) as f64 / 30.0,
+        d if d <= 120 => 1.980 + (2.000 - 1.980) * (120 - d) as f64 / 60.0,
+        _ => 1.960,
+    }
+}
+
+impl Trend {
+    /// Least squares over (day, approach) points; None with fewer than 3 distinct days.
+    pub fn fit(points: &[(f64, f64)]) -> Option<Self> {
+        let n = points.len();
+        if n < 3 {
+            return None;
+        }
+        let mean_x = points.iter().map(|p| p.0).sum::<f64>() / n as f64;
+        let mean_y = points.iter().map(|p| p.1).sum::<f64>() / n as f64;
+        let sxx: f64 = points.iter().map(|p| (p.0 - mean_x).powi(2)).sum();
+        if sxx.is_nan() || sxx <= 0.0 {
+            return None;
+        }
+        let sxy: f64 = points.iter().map(|p| (p.0 - mean_x) * (p.1 - mean_y)).sum();
+        let slope = sxy / sxx;
+        let intercept = mean_y - slope * mean_x;
+        let sse: f64 = points
+            .iter()
+            .map(|p| (p.1 - intercept - slope * p.0).powi(2))
+            .sum();
+        let s = (sse / (n - 2) as f64).sqrt();
+        Some(Self {
+            slope_per_day: slope,
+            intercept,
+            s,
+            n,
+            mean_x,
+            sxx,
+        })
+    }
+
+    /// Half-width of the 95 % prediction band at day `x`.
+    pub fn band(&self, x: f64) -> f64 {
+        t95(self.n - 2)
+            * self.s
+            * (1.0 + 1.0 / self.n as f64 + (x - self.mean_x).powi(2) / self.sxx).sqrt()
+    }
+
+    /// The day the approach reaches `limit_k`, with its interval.
+    pub fn end_of_run(&self, limit_k: f64) -> EndOfRun {
+        if self.slope_per_day.is_nan() || self.slope_per_day <= 0.0 {
+            return EndOfRun::NotRising;
+        }
+        let day = (limit_k - self.intercept) / self.slope_per_day;
+        // Bands are solved numerically: the upper (lower) band reaches the limit first (last).
+        let cross = |sign: f64| -> Option<f64> {
+            let f =
+                |x: f64| self.intercept + self.slope_per_day * x + sign * self.band(x) - limit_k;
+            let (mut lo, mut hi) = (self.mean_x - 1e6, self.mean_x + 1e6);
+            if f(lo) > 0.0 || f(hi) < 0.0 {
+                return None;
+            }
+            for _ in 0..200 {
+                let mid = 0.5 * (lo + hi);
+                if f(mid) > 0.0 { hi = mid } else { lo = mid }
+            }
+            Some(0.5 * (lo + hi))
+        };
+        EndOfRun::At {
+            day,
+            earliest: cross(1.0).unwrap_or(day),
+            latest: cross(-1.0),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// DOMAIN §7 check vectors [derived]: ten 10.0 then ten 12.0.
+    fn series() -> Vec<f64> {
+        std::iter::repeat_n(10.0, 10)
+            .chain(std::iter::repeat_n(12.0, 10))
+            .collect()
+    }
+
+    #[test]
+    fn ewma_first_signal_at_sample_14() {
+        // μ0 = 10, σ = 1, λ = 0.2, L = 3 → first signal at sample 14 with z = 11.1808
+        // (DOMAIN §7 [derived], Roberts 1959 limits).
+        let mut e = Ewma::new(10.0, 1.0, 0.2, 3.0).unwrap();
+        let mut first = None;
+        for (i, x) in series().into_iter().enumerate() {
+            let p = e.push(x);
+            if p.signal && first.is_none() {
+                first = Some((i + 1, p.z));
+            }
+        }
+        let (i, z) = first.unwrap();
+        assert_eq!(i, 14);
+        assert!((z - 11.1808).abs() < 1e-4, "{z}");
+        assert!(Ewma::new(10.0, 1.0, 0.0, 3.0).is_err());
+    }
+
+    #[test]
+    fn cusum_first_signal_at_sample_14() {
+        // k = 0.5, h = 5 on the same series → first signal at sample 14 (DOMAIN §7 [derived]).
+        let mut c = Cusum::new(10.0, 0.5, 5.0).unwrap();
+        let first = series()
+            .into_iter()
+            .position(|x| c.push(x).1)
+            .map(|i| i + 1);
+        assert_eq!(first, Some(14));
+    }
+
+    #[test]
+    fn linear_end_of_run() {
+        // DOMAIN §7 [derived]: days [0..180 by 30], approach [5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4]
+        // → slope 0.018929 K/day, intercept 5.010714, a 20 K limit at day 791.89.
+        let days = [0.0, 30.0, 60.0, 90.0, 120.0, 150.0, 180.0];
+        let y = [5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4];
+        let pts: Vec<(f64, f64)> = days.iter().copied().zip(y.iter().copied()).collect();
+        let t = Trend::fit(&pts).unwrap();
+        assert!((t.slope_per_day - 0.018929).abs() < 1e-6);
+        assert!((t.intercept - 5.010714).abs() < 1e-6);
+        match t.end_of_run(20.0) {
+            EndOfRun::At {
+                day,
+                earliest,
+                latest,
+            } => {
+                assert!((day - 791.89).abs() < 0.01, "{day}");
+                assert!(
+                    earliest < day && latest.is_some_and(|l| l > day),
+                    "{earliest} {latest:?}"
+                );
+            }
+            other => panic!("{other:?}"),
+        }
+        let flat: Vec<(f64, f64)> = days.iter().map(|d| (*d, 5.0 - d * 1e-3)).collect();
+        assert_eq!(
+            Trend::fit(&flat).unwrap().end_of_run(20.0),
+            EndOfRun::NotRising
+        );
+        assert!(Trend::fit(&pts[..2]).is_none());
+    }
+}
