@@ -187,7 +187,67 @@ fn convert(
     }
 }
 
-/// Decodes a scalar input (temperature, pressure, steam ratio).
+/// A scalar message before unit conversion.
+struct RawScalar {
+    value: f64,
+    ts_ms: i64,
+    quality: SourceQuality,
+    /// The message's own unit, if it carries one.
+    unit: Option<String>,
+}
+
+/// Reads value, timestamp, quality and unit from a bare number or a JSON message.
+fn read_scalar(
+    payload: &[u8],
+    decoder: &ScalarDecoder,
+    arrival_ms: i64,
+) -> Result<RawScalar, DecodeError> {
+    let raw = match decoder {
+        ScalarDecoder::Number => {
+            let t = text(payload)?;
+            let v: f64 = t
+                .parse()
+                .map_err(|_| DecodeError::NotANumber(t.chars().take(40).collect()))?;
+            RawScalar {
+                value: v,
+                ts_ms: arrival_ms,
+                quality: SourceQuality::Good,
+                unit: None,
+            }
+        }
+        ScalarDecoder::Json {
+            value_pointer,
+            ts_pointer,
+            quality_pointer,
+            unit_pointer,
+        } => {
+            let doc = json(payload)?;
+            let value = number_at(&doc, value_pointer)?;
+            let ts_ms = match ts_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+                Some(t) => timestamp(t)?,
+                None => arrival_ms,
+            };
+            let quality = quality(quality_pointer.as_deref().and_then(|p| doc.pointer(p)))?;
+            let unit = match unit_pointer.as_deref().and_then(|p| doc.pointer(p)) {
+                Some(Value::String(s)) => Some(s.clone()),
+                Some(Value::Null) | None => None,
+                Some(o) => return Err(DecodeError::BadUnit(o.to_string())),
+            };
+            RawScalar {
+                value,
+                ts_ms,
+                quality,
+                unit,
+            }
+        }
+    };
+    if !raw.value.is_finite() {
+        return Err(DecodeError::NotFinite("(value)".into()));
+    }
+    Ok(raw)
+}
+
+/// Decodes a scalar input (temperature, pressure, steam ratio) to fixed units.
 pub fn decode_scalar(
     payload: &[u8],
     decoder: &ScalarDecoder,
@@ -195,93 +255,31 @@ pub fn decode_scalar(
     atmosphere_bar: f64,
     arrival_ms: i64,
 ) -> Result<ScalarReading, DecodeError> {
-    match decoder {
-        ScalarDecoder::Number => {
-            let t = text(payload)?;
-            let v: f64 = t
-                .parse()
-                .map_err(|_| DecodeError::NotANumber(t.chars().take(40).collect()))?;
-            if !v.is_finite() {
-                return Err(DecodeError::NotFinite("(payload)".into()));
-            }
-            Ok(ScalarReading {
-                ts_ms: arrival_ms,
-                value: convert(v, unit, None, atmosphere_bar)?,
-                quality: SourceQuality::Good,
-            })
-        }
-        ScalarDecoder::Json {
-            value_pointer,
-            ts_pointer,
-            quality_pointer,
-            unit_pointer,
-        } => {
-            let doc = json(payload)?;
-            let v = number_at(&doc, value_pointer)?;
-            let ts = match ts_pointer.as_deref().and_then(|p| doc.pointer(p)) {
-                Some(t) => timestamp(t)?,
-                None => arrival_ms,
-            };
-            let q = quality(quality_pointer.as_deref().and_then(|p| doc.pointer(p)))?;
-            let unit_text = match unit_pointer.as_deref().and_then(|p| doc.pointer(p)) {
-                Some(Value::String(s)) => Some(s.as_str()),
-                Some(Value::Null) | None => None,
-                Some(o) => return Err(DecodeError::BadUnit(o.to_string())),
-            };
-            Ok(ScalarReading {
-                ts_ms: ts,
-                value: convert(v, unit, unit_text, atmosphere_bar)?,
-                quality: q,
-            })
-        }
-    }
+    let raw = read_scalar(payload, decoder, arrival_ms)?;
+    Ok(ScalarReading {
+        ts_ms: raw.ts_ms,
+        value: convert(raw.value, unit, raw.unit.as_deref(), atmosphere_bar)?,
+        quality: raw.quality,
+    })
 }
 
-/// Decodes one component of a per-component analyser: a mole fraction.
+/// Decodes one component of a per-component analyser: a mole fraction. Negative values
+/// are kept: the monitor reports them as bad data on the result.
 pub fn decode_component(
     payload: &[u8],
     decoder: &ScalarDecoder,
     default_unit: CompositionUnit,
     arrival_ms: i64,
 ) -> Result<ScalarReading, DecodeError> {
-    let (value, ts, q, unit) = match decoder {
-        ScalarDecoder::Number => {
-            let t = text(payload)?;
-            let v: f64 = t
-                .parse()
-                .map_err(|_| DecodeError::NotANumber(t.chars().take(40).collect()))?;
-            (v, arrival_ms, SourceQuality::Good, default_unit)
-        }
-        ScalarDecoder::Json {
-            value_pointer,
-            ts_pointer,
-            quality_pointer,
-            unit_pointer,
-        } => {
-            let doc = json(payload)?;
-            let v = number_at(&doc, value_pointer)?;
-            let ts = match ts_pointer.as_deref().and_then(|p| doc.pointer(p)) {
-                Some(t) => timestamp(t)?,
-                None => arrival_ms,
-            };
-            let q = quality(quality_pointer.as_deref().and_then(|p| doc.pointer(p)))?;
-            let unit = match unit_pointer.as_deref().and_then(|p| doc.pointer(p)) {
-                Some(Value::String(s)) => {
-                    CompositionUnit::parse(s).map_err(|_| DecodeError::BadUnit(s.clone()))?
-                }
-                _ => default_unit,
-            };
-            (v, ts, q, unit)
-        }
+    let raw = read_scalar(payload, decoder, arrival_ms)?;
+    let unit = match raw.unit.as_deref() {
+        Some(u) => CompositionUnit::parse(u).map_err(|_| DecodeError::BadUnit(u.to_string()))?,
+        None => default_unit,
     };
-    if !value.is_finite() {
-        return Err(DecodeError::NotFinite("(value)".into()));
-    }
-    // Negative values are kept: the monitor reports them as bad data on the result.
     Ok(ScalarReading {
-        ts_ms: ts,
-        value: value * unit.fraction_per_unit(),
-        quality: q,
+        ts_ms: raw.ts_ms,
+        value: raw.value * unit.fraction_per_unit(),
+        quality: raw.quality,
     })
 }
 
