@@ -13,11 +13,14 @@
 //! 3. latency from publishing an analysis to receiving its result at a paced rate,
 //!    matched by reactor and analysis timestamp (p50, p99, max);
 //! 4. the daemon's peak resident set (VmHWM) over the run; beside it the peak before
-//!    any analysis and the peak of the paced run alone (VmHWM reset before it).
+//!    any analysis and the peak at the end of the paced run.
+//!
+//! The daemon gets the paced run (3) first and the firehose (2) after it, so that the
+//! latency and the memory after (3) are those of a daemon at a plant-like load.
 //!
 //! Beside (3), the same paced stream to the do-nothing subscriber gives the latency of
 //! the broker and the MQTT client alone. The harness's clients and the broker send
-//! without Nagle's delay, so the latency measured is the daemon's own.
+//! without Nagle's delay, so what (3) adds to that yardstick is the daemon's.
 //!
 //! Rates are taken over the steady part (results 10 % to 90 % of the way through),
 //! so connection start-up and the tail do not count. Everything talks to 127.0.0.1
@@ -264,11 +267,6 @@ fn status_kib(pid: u32, key: &str) -> Option<u64> {
         .next()?
         .parse()
         .ok()
-}
-
-/// Resets a process's VmHWM to its current RSS (Linux 4.0+); false when refused.
-fn reset_peak_rss(pid: u32) -> bool {
-    std::fs::write(format!("/proc/{pid}/clear_refs"), "5").is_ok()
 }
 
 fn http_get(port: u16, path: &str) -> String {
@@ -630,10 +628,17 @@ fn paced(
     })
 }
 
-/// Publishes analyses `0..n` as fast as the client and broker take them.
-fn firehose(rt: &Runtime, client: &AsyncClient, prefix: &str, base: i64, n: usize) {
+/// Publishes analyses `first..first + n` as fast as the client and broker take them.
+fn firehose_from(
+    rt: &Runtime,
+    client: &AsyncClient,
+    prefix: &str,
+    base: i64,
+    first: usize,
+    n: usize,
+) {
     rt.block_on(async {
-        for k in 0..n {
+        for k in first..first + n {
             let topic = format!("{prefix}/{}/ai", reactor_id(k % REACTORS));
             let _ = client
                 .publish(topic, QoS::AtLeastOnce, false, analysis(k, base + k as i64))
@@ -671,7 +676,7 @@ struct Report {
     lat_daemon_cpu_s: f64,
     mismatched: usize,
     idle_hwm_kib: Option<u64>,
-    /// Peak over the whole run, and over the paced run alone (None: no reset possible).
+    /// Peak over the whole run, and at the end of the paced run (before the firehose).
     vm_hwm_kib: Option<u64>,
     paced_hwm_kib: Option<u64>,
     vm_rss_kib: Option<u64>,
@@ -758,7 +763,7 @@ impl Report {
         );
         row(
             &mut t,
-            &format!("   VmHWM during the {PACED_RATE}/s run (MiB)"),
+            &format!("   VmHWM after the {PACED_RATE}/s run (MiB)"),
             format!("{:.2}", mib(self.paced_hwm_kib)),
             "",
         );
@@ -828,7 +833,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
         let base = now_ms() - 1_000_000;
         let cpu0 = cpu_seconds(broker.pid());
         let start = Instant::now();
-        firehose(rt, &client, "e2e-noop", base, n);
+        firehose_from(rt, &client, "e2e-noop", base, 0, n);
         wait_until(DRAIN_LIMIT, || sub.count() >= n);
         r.noop_broker_cpu_s = cpu_seconds(broker.pid()) - cpu0;
         let got = sub.take().got;
@@ -845,9 +850,9 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
         let _ = rt.block_on(client.disconnect());
     }
 
-    // 2. Sustained evaluations.
-    // Analysis timestamps lie in the recent past (age well inside max_age) and increase
-    // through both result runs: base + k for k = 0.. (sustained), then on (paced).
+    // The daemon with 100 reactors. Analysis timestamps lie in the recent past (age well
+    // inside max_age) and increase through both runs: base + k for k = 0.. (paced),
+    // then on (firehose).
     let base = now_ms() - 1_000_000;
     let http = free_port();
     let config = write_config(dir.path(), port, http);
@@ -871,7 +876,6 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
         "the daemon never said online"
     );
     let client = publisher(rt, port);
-    eprintln!("e2e: 2/4 eqwatch sustained, {n} analyses over {REACTORS} reactors");
     rt.block_on(async {
         for i in 0..REACTORS {
             let id = reactor_id(i);
@@ -897,9 +901,27 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
         received() >= (2 * REACTORS) as f64
     });
     r.idle_hwm_kib = status_kib(daemon.pid(), "VmHWM");
+
+    // 3. Latency at a paced rate (first, so that it and its memory peak are those of a
+    // daemon at a plant-like load, not one recovering from the firehose).
+    let m = plan.paced;
+    eprintln!("e2e: 2/4 eqwatch latency, {m} analyses at {PACED_RATE}/s over {REACTORS} reactors");
+    let d0 = cpu_seconds(daemon.pid());
+    let sent = paced(rt, &client, "e2e", base, 0, m);
+    r.lat_sent = sent.len();
+    r.lat_achieved_rate = achieved_rate(&sent);
+    wait_until(Duration::from_secs(30), || results.count() >= m);
+    r.lat_daemon_cpu_s = cpu_seconds(daemon.pid()) - d0;
+    let inbox = results.take();
+    r.mismatched += inbox.mismatched;
+    r.lat_ms = latencies(&inbox.got, &sent, base, 0);
+    r.paced_hwm_kib = status_kib(daemon.pid(), "VmHWM");
+
+    // 2. Sustained evaluations: the firehose.
+    eprintln!("e2e: 3/4 eqwatch sustained, {n} analyses over {REACTORS} reactors");
     let (d0, b0) = (cpu_seconds(daemon.pid()), cpu_seconds(broker.pid()));
     let start = Instant::now();
-    firehose(rt, &client, "e2e", base, n);
+    firehose_from(rt, &client, "e2e", base, m, n);
     wait_until(DRAIN_LIMIT, || results.count() >= n);
     r.sus_daemon_cpu_s = cpu_seconds(daemon.pid()) - d0;
     r.sus_broker_cpu_s = cpu_seconds(broker.pid()) - b0;
@@ -908,7 +930,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     let got: Vec<Got> = inbox
         .got
         .into_iter()
-        .filter(|g| g.analysis_ts.is_some_and(|ts| ts < base + n as i64))
+        .filter(|g| g.analysis_ts.is_some_and(|ts| ts >= base + m as i64))
         .collect();
     r.sus_received = got.len();
     r.sus_good = got.iter().filter(|g| g.good).count();
@@ -917,27 +939,9 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
         .map_or(f64::NAN, |g| g.at.duration_since(start).as_secs_f64());
     r.sus_rate = steady_rate(&got.iter().map(|g| g.at).collect::<Vec<_>>());
 
-    // 3. Latency at a paced rate.
-    let m = plan.paced;
-    eprintln!("e2e: 3/4 latency, {m} analyses at {PACED_RATE}/s");
-    let d0 = cpu_seconds(daemon.pid());
-    // The whole-run peak so far; then the peak of the paced run alone.
-    let firehose_hwm = status_kib(daemon.pid(), "VmHWM");
-    let reset = reset_peak_rss(daemon.pid());
-    let sent = paced(rt, &client, "e2e", base, n, m);
-    r.lat_sent = sent.len();
-    r.lat_achieved_rate = achieved_rate(&sent);
-    wait_until(Duration::from_secs(30), || results.count() >= m);
-    r.lat_daemon_cpu_s = cpu_seconds(daemon.pid()) - d0;
-    let inbox = results.take();
-    r.mismatched += inbox.mismatched;
-    r.lat_ms = latencies(&inbox.got, &sent, base, n);
-
-    // 4. Peak resident set, and the daemon's own counts.
+    // 4. Peak resident set over the run, and the daemon's own counts.
     eprintln!("e2e: 4/4 daemon memory and counters");
-    let paced_hwm = status_kib(daemon.pid(), "VmHWM");
-    r.vm_hwm_kib = firehose_hwm.max(paced_hwm);
-    r.paced_hwm_kib = paced_hwm.filter(|_| reset);
+    r.vm_hwm_kib = status_kib(daemon.pid(), "VmHWM");
     r.vm_rss_kib = status_kib(daemon.pid(), "VmRSS");
     let text = http_get(http, "/metrics");
     for q in ["good", "uncertain", "bad"] {

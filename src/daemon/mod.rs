@@ -62,6 +62,9 @@ pub struct RawInput {
     pub arrival_ms: i64,
 }
 
+/// Requests waiting for the journal thread at most (each holds one result).
+const JOURNAL_QUEUE: usize = 256;
+
 /// Requests to the journal thread.
 #[derive(Debug)]
 pub enum JournalCmd {
@@ -157,7 +160,7 @@ fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
 async fn evaluate_loop(
     settings: Arc<Settings>,
     mut rx: mpsc::Receiver<RawInput>,
-    journal: std::sync::mpsc::Sender<JournalCmd>,
+    journal: mpsc::Sender<JournalCmd>,
     metrics: Arc<Metrics>,
     clock: Clock,
 ) {
@@ -228,6 +231,7 @@ async fn evaluate_loop(
                                 retain: true,
                                 payload,
                             })
+                            .await
                             .is_err()
                         {
                             error!("journal thread is gone; results cannot be kept");
@@ -236,7 +240,7 @@ async fn evaluate_loop(
                 }
             }
         }
-        let _ = journal.send(JournalCmd::Drained);
+        let _ = journal.send(JournalCmd::Drained).await;
     }
 }
 
@@ -299,7 +303,7 @@ fn decode(
 /// The journal thread: appends, reads back, and keeps the published cursor.
 fn journal_thread(
     mut j: Journal,
-    rx: std::sync::mpsc::Receiver<JournalCmd>,
+    mut rx: mpsc::Receiver<JournalCmd>,
     to_link: mpsc::UnboundedSender<ToLink>,
     metrics: Arc<Metrics>,
     clock: Clock,
@@ -315,7 +319,7 @@ fn journal_thread(
     };
     update(&j);
     let _ = to_link.send(ToLink::JournalAt(j.last_seq()));
-    while let Ok(cmd) = rx.recv() {
+    while let Some(cmd) = rx.blocking_recv() {
         match cmd {
             JournalCmd::Append {
                 topic,
@@ -425,7 +429,10 @@ pub async fn run(
     let cap = usize::from(settings.broker.inflight) + topics.len() + 64;
     let (client, eventloop) = rumqttc::AsyncClient::new(opts, cap);
 
-    let (jtx, jrx) = std::sync::mpsc::channel::<JournalCmd>();
+    // Bounded: when the disk is slower than the evaluator, the evaluator waits, the input
+    // queue fills, the link stops reading and TCP pushes back on the broker, instead of
+    // results piling up in memory.
+    let (jtx, jrx) = mpsc::channel::<JournalCmd>(JOURNAL_QUEUE);
     let (to_link, from_journal) = mpsc::unbounded_channel::<ToLink>();
     let jm = metrics.clone();
     let jclock = clock.clone();

@@ -122,7 +122,7 @@ impl Link {
         client: AsyncClient,
         mut eventloop: EventLoop,
         mut from_journal: mpsc::UnboundedReceiver<ToLink>,
-        journal: std::sync::mpsc::Sender<JournalCmd>,
+        journal: mpsc::Sender<JournalCmd>,
         input: mpsc::Sender<RawInput>,
         metrics: Arc<Metrics>,
         stop_input: CancellationToken,
@@ -141,10 +141,14 @@ impl Link {
         loop {
             // Ask the journal for records memory does not hold.
             if let Some(after) = outbox.wants_read() {
-                let _ = journal.send(JournalCmd::ReadAfter {
+                let read = JournalCmd::ReadAfter {
                     after,
                     max: OUTBOX_CAPACITY / 2,
-                });
+                };
+                if journal.try_send(read).is_err() {
+                    // The journal is busy: ask again on a later turn.
+                    outbox.read_done();
+                }
             }
             // Hand records over while connected and the window allows.
             if connected_since.is_some() {
@@ -214,7 +218,9 @@ impl Link {
                     Ok(Event::Incoming(Incoming::PubAck(a))) => {
                         if let Some(w) = outbox.on_ack(a.pkid) {
                             metrics.published.store(w.saturating_sub(self.published_at_start), Relaxed);
-                            let _ = journal.send(JournalCmd::Published { seq: w, force: false });
+                            // A later acknowledgement carries a higher watermark, so a
+                            // busy journal may skip this one.
+                            let _ = journal.try_send(JournalCmd::Published { seq: w, force: false });
                         }
                     }
                     Ok(Event::Incoming(Incoming::SubAck(s))) => {
@@ -258,10 +264,12 @@ impl Link {
                 _ = stop_input.cancelled(), if stop_at.is_none() => {}
             }
         }
-        let _ = journal.send(JournalCmd::Published {
-            seq: outbox.watermark(),
-            force: true,
-        });
+        let _ = journal
+            .send(JournalCmd::Published {
+                seq: outbox.watermark(),
+                force: true,
+            })
+            .await;
         // Say offline (retained) and wait briefly for its acknowledgement, then disconnect.
         if connected_since.is_some() {
             let offline = client.try_publish(
