@@ -64,6 +64,8 @@ pub struct RawInput {
 
 /// Requests waiting for the journal thread at most (each holds one result).
 const JOURNAL_QUEUE: usize = 256;
+/// Journal records waiting for the link at most.
+const LINK_QUEUE: usize = 1024;
 
 /// Requests to the journal thread.
 #[derive(Debug)]
@@ -304,7 +306,7 @@ fn decode(
 fn journal_thread(
     mut j: Journal,
     mut rx: mpsc::Receiver<JournalCmd>,
-    to_link: mpsc::UnboundedSender<ToLink>,
+    to_link: mpsc::Sender<ToLink>,
     metrics: Arc<Metrics>,
     clock: Clock,
 ) {
@@ -318,7 +320,7 @@ fn journal_thread(
             .store(st.dropped_unpublished, Relaxed);
     };
     update(&j);
-    let _ = to_link.send(ToLink::JournalAt(j.last_seq()));
+    let _ = to_link.blocking_send(ToLink::JournalAt(j.last_seq()));
     while let Some(cmd) = rx.blocking_recv() {
         match cmd {
             JournalCmd::Append {
@@ -329,7 +331,7 @@ fn journal_thread(
                 let now = clock();
                 match j.append(now, &topic, retain, &payload) {
                     Ok(seq) => {
-                        let _ = to_link.send(ToLink::Record(Outgoing {
+                        let _ = to_link.blocking_send(ToLink::Record(Outgoing {
                             seq,
                             ts_ms: now,
                             topic,
@@ -354,7 +356,7 @@ fn journal_thread(
                 match j.read_after(after, max) {
                     Ok(records) => {
                         for r in records {
-                            let _ = to_link.send(ToLink::Record(Outgoing {
+                            let _ = to_link.blocking_send(ToLink::Record(Outgoing {
                                 seq: r.seq,
                                 ts_ms: r.ts_ms,
                                 topic: r.topic,
@@ -369,10 +371,10 @@ fn journal_thread(
                         error!(error = %e, "journal read failed");
                     }
                 }
-                let _ = to_link.send(ToLink::ReadDone);
+                let _ = to_link.blocking_send(ToLink::ReadDone);
             }
             JournalCmd::Drained => {
-                let _ = to_link.send(ToLink::Drained);
+                let _ = to_link.blocking_send(ToLink::Drained);
             }
         }
         update(&j);
@@ -427,13 +429,19 @@ pub async fn run(
     let mut topics: Vec<String> = routes(&settings).into_keys().collect();
     topics.sort();
     let cap = usize::from(settings.broker.inflight) + topics.len() + 64;
-    let (client, eventloop) = rumqttc::AsyncClient::new(opts, cap);
+    let (client, mut eventloop) = rumqttc::AsyncClient::new(opts, cap);
+    // Results are small and latency matters: no Nagle delay on our connection.
+    let mut net = rumqttc::NetworkOptions::new();
+    net.set_tcp_nodelay(true);
+    eventloop.set_network_options(net);
 
     // Bounded: when the disk is slower than the evaluator, the evaluator waits, the input
     // queue fills, the link stops reading and TCP pushes back on the broker, instead of
     // results piling up in memory.
     let (jtx, jrx) = mpsc::channel::<JournalCmd>(JOURNAL_QUEUE);
-    let (to_link, from_journal) = mpsc::unbounded_channel::<ToLink>();
+    // Bounded too: the journal waits for the link rather than queueing records in memory
+    // (the outbox reads back from disk whatever it has no room for).
+    let (to_link, from_journal) = mpsc::channel::<ToLink>(LINK_QUEUE);
     let jm = metrics.clone();
     let jclock = clock.clone();
     let jthread = std::thread::Builder::new()

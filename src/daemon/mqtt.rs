@@ -121,7 +121,7 @@ impl Link {
         self,
         client: AsyncClient,
         mut eventloop: EventLoop,
-        mut from_journal: mpsc::UnboundedReceiver<ToLink>,
+        mut from_journal: mpsc::Receiver<ToLink>,
         journal: mpsc::Sender<JournalCmd>,
         input: mpsc::Sender<RawInput>,
         metrics: Arc<Metrics>,
@@ -186,7 +186,9 @@ impl Link {
                 }
             }
             tokio::select! {
-                ev = eventloop.poll() => match ev {
+                // Poll only while the evaluator can take a message: the link never waits on
+                // the evaluator (which may wait on the journal, which may wait on the link).
+                ev = eventloop.poll(), if input.as_ref().is_none_or(|t| t.capacity() > 0) => match ev {
                     Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
                         metrics.connected.store(true, Relaxed);
                         connected_since = Some(Instant::now());
@@ -210,8 +212,11 @@ impl Link {
                         metrics.messages_in.fetch_add(1, Relaxed);
                         if let Some(tx) = &input {
                             let raw = RawInput { topic: p.topic.clone(), payload: p.payload.to_vec(), arrival_ms: (self.clock)() };
-                            if tx.send(raw).await.is_err() {
-                                input = None;
+                            match tx.try_send(raw) {
+                                Ok(()) => {}
+                                Err(mpsc::error::TrySendError::Closed(_)) => input = None,
+                                // Not reached: polling waits for capacity and this task is the only sender.
+                                Err(mpsc::error::TrySendError::Full(_)) => warn!("input queue full; message dropped"),
                             }
                         }
                     }
@@ -264,6 +269,9 @@ impl Link {
                 _ = stop_input.cancelled(), if stop_at.is_none() => {}
             }
         }
+        // Stop taking records first, so a journal thread waiting on a full queue is released
+        // (anything it still had is on disk and goes out after the next start).
+        drop(from_journal);
         let _ = journal
             .send(JournalCmd::Published {
                 seq: outbox.watermark(),
