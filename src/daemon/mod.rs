@@ -63,18 +63,25 @@ pub struct RawInput {
 }
 
 /// Requests waiting for the journal thread at most (each holds one result).
-const JOURNAL_QUEUE: usize = 256;
+const JOURNAL_QUEUE: usize = 64;
+/// Inputs the evaluator takes per wake-up at most.
+const EVALUATOR_BATCH: usize = 64;
 /// Journal records waiting for the link at most.
 const LINK_QUEUE: usize = 1024;
+
+/// One result to journal.
+#[derive(Debug)]
+pub struct Append {
+    pub topic: String,
+    pub retain: bool,
+    pub payload: String,
+}
 
 /// Requests to the journal thread.
 #[derive(Debug)]
 pub enum JournalCmd {
-    Append {
-        topic: String,
-        retain: bool,
-        payload: String,
-    },
+    /// Results to append, in order (a batch per evaluator wake-up).
+    Append(Vec<Append>),
     Published {
         seq: u64,
         force: bool,
@@ -90,7 +97,8 @@ pub enum JournalCmd {
 /// Messages from the journal thread to the link.
 #[derive(Debug)]
 pub enum ToLink {
-    Record(Outgoing),
+    /// Journaled records, in sequence order.
+    Records(Vec<Outgoing>),
     ReadDone,
     JournalAt(u64),
     Drained,
@@ -170,76 +178,90 @@ async fn evaluate_loop(
         let table = routes(&settings);
         let mut monitors: Vec<ReactorMonitor> =
             settings.reactors.iter().map(ReactorMonitor::new).collect();
-        while let Some(raw) = rx.recv().await {
-            let Some(rts) = table.get(&raw.topic) else {
-                metrics.unrouted.fetch_add(1, Relaxed);
-                continue;
-            };
-            for route in rts {
-                let (r, decoded) = decode(&settings, *route, &raw);
-                let rs = &settings.reactors[r];
-                let rm = &metrics.reactors[r];
-                let input = match decoded {
-                    Ok(i) => i,
-                    Err(e) => {
-                        metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
-                        warn!(reactor = %rs.id, topic = %raw.topic, reason = e.reason(), error = %e, "input rejected");
-                        continue;
-                    }
+        let mut batch: Vec<Append> = Vec::new();
+        while let Some(first) = rx.recv().await {
+            // Take what is already queued (up to a bound) and journal it in one hand-over:
+            // fewer thread wake-ups under load, no waiting when idle.
+            let mut next = Some(first);
+            let mut taken = 0;
+            while let Some(raw) = next.take() {
+                taken += 1;
+                if taken < EVALUATOR_BATCH {
+                    next = rx.try_recv().ok();
+                }
+                let Some(rts) = table.get(&raw.topic) else {
+                    metrics.unrouted.fetch_add(1, Relaxed);
+                    continue;
                 };
-                match monitors[r].accept(rs, &settings.species, input, raw.arrival_ms) {
-                    Outcome::Stored => {}
-                    Outcome::Duplicate => {
-                        rm.duplicates.fetch_add(1, Relaxed);
-                        debug!(reactor = %rs.id, topic = %raw.topic, "duplicate analysis ignored");
-                    }
-                    Outcome::OutOfOrder { last_ts_ms } => {
-                        rm.out_of_order.fetch_add(1, Relaxed);
-                        warn!(reactor = %rs.id, topic = %raw.topic, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
-                    }
-                    Outcome::TooOld => {
-                        rm.too_old.fetch_add(1, Relaxed);
-                    }
-                    Outcome::Evaluated(e) => {
-                        let q = match e.quality {
-                            Quality::Good => 0,
-                            Quality::Uncertain => 1,
-                            Quality::Bad => 2,
-                        };
-                        rm.evaluations[q].fetch_add(1, Relaxed);
-                        let approach = if e.quality == Quality::Bad {
-                            None
-                        } else {
-                            e.reactions.first().and_then(|a| a.approach_k)
-                        };
-                        rm.approach_k
-                            .store(approach.unwrap_or(f64::NAN).to_bits(), Relaxed);
-                        if e.quality != Quality::Good {
-                            let codes: Vec<&str> = e
-                                .reasons
-                                .iter()
-                                .filter(|x| x.severity != Quality::Good)
-                                .map(|x| x.code)
-                                .collect();
-                            warn!(reactor = %rs.id, quality = e.quality.as_str(), reasons = ?codes, "evaluation not good");
-                        } else {
-                            debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
+                for route in rts {
+                    let (r, decoded) = decode(&settings, *route, &raw);
+                    let rs = &settings.reactors[r];
+                    let rm = &metrics.reactors[r];
+                    let input = match decoded {
+                        Ok(i) => i,
+                        Err(e) => {
+                            metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
+                            warn!(reactor = %rs.id, topic = %raw.topic, reason = e.reason(), error = %e, "input rejected");
+                            continue;
                         }
-                        let payload = payload::encode_result(rs, &settings.species, &e, clock());
-                        let topic = format!("{}/{}/result", settings.topic_prefix, rs.id);
-                        if journal
-                            .send(JournalCmd::Append {
+                    };
+                    match monitors[r].accept(rs, &settings.species, input, raw.arrival_ms) {
+                        Outcome::Stored => {}
+                        Outcome::Duplicate => {
+                            rm.duplicates.fetch_add(1, Relaxed);
+                            debug!(reactor = %rs.id, topic = %raw.topic, "duplicate analysis ignored");
+                        }
+                        Outcome::OutOfOrder { last_ts_ms } => {
+                            rm.out_of_order.fetch_add(1, Relaxed);
+                            warn!(reactor = %rs.id, topic = %raw.topic, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
+                        }
+                        Outcome::TooOld => {
+                            rm.too_old.fetch_add(1, Relaxed);
+                        }
+                        Outcome::Evaluated(e) => {
+                            let q = match e.quality {
+                                Quality::Good => 0,
+                                Quality::Uncertain => 1,
+                                Quality::Bad => 2,
+                            };
+                            rm.evaluations[q].fetch_add(1, Relaxed);
+                            let approach = if e.quality == Quality::Bad {
+                                None
+                            } else {
+                                e.reactions.first().and_then(|a| a.approach_k)
+                            };
+                            rm.approach_k
+                                .store(approach.unwrap_or(f64::NAN).to_bits(), Relaxed);
+                            if e.quality != Quality::Good {
+                                let codes: Vec<&str> = e
+                                    .reasons
+                                    .iter()
+                                    .filter(|x| x.severity != Quality::Good)
+                                    .map(|x| x.code)
+                                    .collect();
+                                warn!(reactor = %rs.id, quality = e.quality.as_str(), reasons = ?codes, "evaluation not good");
+                            } else {
+                                debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
+                            }
+                            let payload =
+                                payload::encode_result(rs, &settings.species, &e, clock());
+                            let topic = format!("{}/{}/result", settings.topic_prefix, rs.id);
+                            batch.push(Append {
                                 topic,
                                 retain: true,
                                 payload,
-                            })
-                            .await
-                            .is_err()
-                        {
-                            error!("journal thread is gone; results cannot be kept");
+                            });
                         }
                     }
                 }
+            }
+            if !batch.is_empty()
+                && journal
+                    .send(JournalCmd::Append(std::mem::take(&mut batch)))
+                    .await
+                    .is_err()
+            {
+                error!("journal thread is gone; results cannot be kept");
             }
         }
         let _ = journal.send(JournalCmd::Drained).await;
@@ -323,27 +345,32 @@ fn journal_thread(
     let _ = to_link.blocking_send(ToLink::JournalAt(j.last_seq()));
     while let Some(cmd) = rx.blocking_recv() {
         match cmd {
-            JournalCmd::Append {
-                topic,
-                retain,
-                payload,
-            } => {
-                let now = clock();
-                match j.append(now, &topic, retain, &payload) {
-                    Ok(seq) => {
-                        let _ = to_link.blocking_send(ToLink::Record(Outgoing {
+            JournalCmd::Append(items) => {
+                let mut out = Vec::with_capacity(items.len());
+                for Append {
+                    topic,
+                    retain,
+                    payload,
+                } in items
+                {
+                    let now = clock();
+                    match j.append(now, &topic, retain, &payload) {
+                        Ok(seq) => out.push(Outgoing {
                             seq,
                             ts_ms: now,
                             topic,
                             retain,
                             payload,
                             replayed: false,
-                        }));
+                        }),
+                        Err(e) => {
+                            metrics.journal_errors.fetch_add(1, Relaxed);
+                            error!(error = %e, topic = %topic, "journal append failed; result not kept");
+                        }
                     }
-                    Err(e) => {
-                        metrics.journal_errors.fetch_add(1, Relaxed);
-                        error!(error = %e, topic = %topic, "journal append failed; result not kept");
-                    }
+                }
+                if !out.is_empty() {
+                    let _ = to_link.blocking_send(ToLink::Records(out));
                 }
             }
             JournalCmd::Published { seq, force } => {
@@ -355,15 +382,19 @@ fn journal_thread(
             JournalCmd::ReadAfter { after, max } => {
                 match j.read_after(after, max) {
                     Ok(records) => {
-                        for r in records {
-                            let _ = to_link.blocking_send(ToLink::Record(Outgoing {
+                        let out: Vec<Outgoing> = records
+                            .into_iter()
+                            .map(|r| Outgoing {
                                 seq: r.seq,
                                 ts_ms: r.ts_ms,
                                 topic: r.topic,
                                 retain: r.retain,
                                 payload: r.payload,
                                 replayed: true,
-                            }));
+                            })
+                            .collect();
+                        if !out.is_empty() {
+                            let _ = to_link.blocking_send(ToLink::Records(out));
                         }
                     }
                     Err(e) => {

@@ -256,9 +256,11 @@ impl Link {
                     }
                 },
                 msg = from_journal.recv(), if !drained => match msg {
-                    Some(ToLink::Record(r)) => {
-                        if outbox.offer(r) == Offer::Deferred {
-                            debug!("record deferred to a journal read");
+                    Some(ToLink::Records(records)) => {
+                        for r in records {
+                            if outbox.offer(r) == Offer::Deferred {
+                                debug!("record deferred to a journal read");
+                            }
                         }
                     }
                     Some(ToLink::ReadDone) => outbox.read_done(),

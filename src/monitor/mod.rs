@@ -6,6 +6,7 @@
 //! missing values are `None`, never a zero or a default. Duplicates and out-of-order
 //! analyses are refused with an [`Outcome`] the caller counts.
 
+pub mod alarm;
 pub mod buffer;
 pub mod drift;
 
