@@ -2,7 +2,9 @@
 //! multi-component analyser messages) into core readings, and encoding evaluations
 //! as result JSON. The core never sees JSON; these shapes are this module's alone.
 
-use serde_json::{Map, Value, json};
+use serde::Serialize;
+use serde::ser::SerializeMap;
+use serde_json::Value;
 use thiserror::Error;
 
 use crate::composition::Basis;
@@ -351,23 +353,99 @@ pub fn decode_analysis(
     })
 }
 
-fn num(x: f64) -> Value {
-    if x.is_finite() { json!(x) } else { Value::Null }
+/// Mole fractions (or φ) by species name, as a JSON object; `null` when there are none.
+struct BySpecies<'a>(&'a [String], &'a [f64]);
+
+impl Serialize for BySpecies<'_> {
+    fn serialize<S: serde::Serializer>(&self, ser: S) -> Result<S::Ok, S::Error> {
+        if self.0.len() != self.1.len() {
+            return ser.serialize_none();
+        }
+        let mut m = ser.serialize_map(Some(self.0.len()))?;
+        for (n, v) in self.0.iter().zip(self.1) {
+            m.serialize_entry(n, &finite(*v))?;
+        }
+        m.end()
+    }
 }
 
-fn opt(x: Option<f64>) -> Value {
-    x.map_or(Value::Null, num)
+/// Non-finite numbers go out as `null` (JSON has no NaN), never as a made-up value.
+fn finite(x: f64) -> Option<f64> {
+    x.is_finite().then_some(x)
 }
 
-fn by_species(names: &[String], values: &[f64]) -> Value {
-    if values.len() != names.len() {
-        return Value::Null;
-    }
-    let mut m = Map::new();
-    for (n, v) in names.iter().zip(values) {
-        m.insert(n.clone(), num(*v));
-    }
-    Value::Object(m)
+fn finite_opt(x: Option<f64>) -> Option<f64> {
+    x.and_then(finite)
+}
+
+#[derive(Serialize)]
+struct ReasonOut<'a> {
+    code: &'static str,
+    severity: &'static str,
+    message: &'a str,
+}
+
+#[derive(Serialize)]
+struct InputOut<'a> {
+    tag: &'a str,
+    value: Option<f64>,
+    unit: &'static str,
+    age_s: Option<f64>,
+    used: bool,
+}
+
+#[derive(Serialize)]
+struct ReactionOut {
+    reaction: String,
+    k_source: &'static str,
+    ln_k: Option<f64>,
+    ln_q: Option<f64>,
+    q_over_k: Option<f64>,
+    direction: &'static str,
+    affinity_j_per_mol: Option<f64>,
+    delta_h_j_per_mol: Option<f64>,
+    endothermic: bool,
+    equilibrium_temperature_k: Option<f64>,
+    approach_k: Option<f64>,
+    approach_uncertainty_k: Option<f64>,
+    flags: Vec<&'static str>,
+}
+
+/// The result payload, serialised straight from borrowed data.
+#[derive(Serialize)]
+struct ResultOut<'a> {
+    schema: &'static str,
+    reactor: &'a str,
+    name: &'a str,
+    analysis_ts: String,
+    sample_ts: String,
+    evaluated_at: String,
+    quality: &'static str,
+    reasons: Vec<ReasonOut<'a>>,
+    k_source: Option<&'static str>,
+    eos: &'static str,
+    ln_k: Option<f64>,
+    ln_q: Option<f64>,
+    q_over_k: Option<f64>,
+    direction: Option<&'static str>,
+    affinity_j_per_mol: Option<f64>,
+    equilibrium_temperature_k: Option<f64>,
+    approach_k: Option<f64>,
+    approach_uncertainty_k: Option<f64>,
+    reactions: Vec<ReactionOut>,
+    temperature_k: Option<f64>,
+    temperature_spread_k: Option<f64>,
+    pressure_bar: Option<f64>,
+    steam_ratio: Option<f64>,
+    inputs: Vec<InputOut<'a>>,
+    basis: &'static str,
+    key_component: &'a str,
+    key_measured_mole_fraction: Option<f64>,
+    key_equilibrium_mole_fraction: Option<f64>,
+    mole_fractions: BySpecies<'a>,
+    equilibrium_mole_fractions: BySpecies<'a>,
+    fugacity_coefficients: BySpecies<'a>,
+    compressibility_factor: Option<f64>,
 }
 
 /// The result JSON for one evaluation (published retained on `<prefix>/<reactor>/result`).
@@ -378,129 +456,84 @@ pub fn encode_result(
     evaluated_at_ms: i64,
 ) -> String {
     let names = r.model.names();
-    let reactions: Vec<Value> = r
+    let reactions = r
         .model
         .reactions()
         .iter()
         .zip(&e.reactions)
-        .map(|(t, a)| {
-            json!({
-                "reaction": t.reaction.canonical(),
-                "k_source": t.k.id().as_str(),
-                "ln_k": num(a.ln_k),
-                "ln_q": num(a.ln_q),
-                "q_over_k": num(a.q_over_k),
-                "direction": a.direction.as_str(),
-                "affinity_j_per_mol": num(a.affinity_j_per_mol),
-                "delta_h_j_per_mol": num(a.delta_h_j_per_mol),
-                "endothermic": a.endothermic,
-                "equilibrium_temperature_k": opt(a.equilibrium_temperature_k),
-                "approach_k": opt(a.approach_k),
-                "approach_uncertainty_k": opt(a.approach_uncertainty_k),
-                "flags": a.flags.names().collect::<Vec<_>>(),
-            })
+        .map(|(t, a)| ReactionOut {
+            reaction: t.reaction.canonical(),
+            k_source: t.k.id().as_str(),
+            ln_k: finite(a.ln_k),
+            ln_q: finite(a.ln_q),
+            q_over_k: finite(a.q_over_k),
+            direction: a.direction.as_str(),
+            affinity_j_per_mol: finite(a.affinity_j_per_mol),
+            delta_h_j_per_mol: finite(a.delta_h_j_per_mol),
+            endothermic: a.endothermic,
+            equilibrium_temperature_k: finite_opt(a.equilibrium_temperature_k),
+            approach_k: finite_opt(a.approach_k),
+            approach_uncertainty_k: finite_opt(a.approach_uncertainty_k),
+            flags: a.flags.names().collect(),
         })
         .collect();
     let first = e.reactions.first();
-    let first_term = r.model.reactions().first();
-    let mut m = Map::new();
-    m.insert("schema".into(), json!(RESULT_SCHEMA));
-    m.insert("reactor".into(), json!(r.id));
-    m.insert("name".into(), json!(r.name));
-    m.insert(
-        "analysis_ts".into(),
-        json!(format_rfc3339(e.analysis_ts_ms)),
-    );
-    m.insert("sample_ts".into(), json!(format_rfc3339(e.sample_ts_ms)));
-    m.insert(
-        "evaluated_at".into(),
-        json!(format_rfc3339(evaluated_at_ms)),
-    );
-    m.insert("quality".into(), json!(e.quality.as_str()));
-    m.insert(
-        "reasons".into(),
-        Value::Array(
-            e.reasons
-                .iter()
-                .map(|x| json!({"code": x.code, "severity": x.severity.as_str(), "message": x.message}))
-                .collect(),
-        ),
-    );
-    m.insert(
-        "k_source".into(),
-        first_term.map_or(Value::Null, |t| json!(t.k.id().as_str())),
-    );
-    m.insert("eos".into(), json!(r.eos.as_str()));
-    m.insert("ln_k".into(), first.map_or(Value::Null, |a| num(a.ln_k)));
-    m.insert("ln_q".into(), first.map_or(Value::Null, |a| num(a.ln_q)));
-    m.insert(
-        "q_over_k".into(),
-        first.map_or(Value::Null, |a| num(a.q_over_k)),
-    );
-    m.insert(
-        "direction".into(),
-        first.map_or(Value::Null, |a| json!(a.direction.as_str())),
-    );
-    m.insert(
-        "affinity_j_per_mol".into(),
-        first.map_or(Value::Null, |a| num(a.affinity_j_per_mol)),
-    );
-    m.insert(
-        "equilibrium_temperature_k".into(),
-        first.map_or(Value::Null, |a| opt(a.equilibrium_temperature_k)),
-    );
     // A figure is published only from a usable analysis: bad results carry no approach.
-    let usable = e.quality != crate::monitor::Quality::Bad;
-    m.insert(
-        "approach_k".into(),
-        first
-            .filter(|_| usable)
-            .map_or(Value::Null, |a| opt(a.approach_k)),
-    );
-    m.insert(
-        "approach_uncertainty_k".into(),
-        first
-            .filter(|_| usable)
-            .map_or(Value::Null, |a| opt(a.approach_uncertainty_k)),
-    );
-    m.insert("reactions".into(), Value::Array(reactions));
-    m.insert("temperature_k".into(), opt(e.temperature_k));
-    m.insert("temperature_spread_k".into(), opt(e.temperature_spread_k));
-    m.insert("pressure_bar".into(), opt(e.pressure_bar));
-    m.insert("steam_ratio".into(), opt(e.steam_ratio));
-    m.insert(
-        "inputs".into(),
-        Value::Array(
-            e.inputs
-                .iter()
-                .map(|i| json!({"tag": i.tag, "value": opt(i.value), "unit": i.unit, "age_s": i.age_ms.map(|a| a as f64 / 1000.0), "used": i.used}))
-                .collect(),
-        ),
-    );
-    m.insert("basis".into(), json!(r.composition.basis.as_str()));
-    m.insert("key_component".into(), json!(db.get(r.key_component).name));
-    m.insert("key_measured_mole_fraction".into(), opt(e.key_measured));
-    m.insert(
-        "key_equilibrium_mole_fraction".into(),
-        opt(e.key_equilibrium),
-    );
-    m.insert(
-        "mole_fractions".into(),
-        by_species(names, &e.mole_fractions),
-    );
-    m.insert(
-        "equilibrium_mole_fractions".into(),
-        by_species(names, &e.equilibrium_mole_fractions),
-    );
-    m.insert(
-        "fugacity_coefficients".into(),
-        by_species(names, &e.fugacity_coefficients),
-    );
-    m.insert(
-        "compressibility_factor".into(),
-        opt(e.compressibility_factor),
-    );
-    Value::Object(m).to_string()
+    let usable = first.filter(|_| e.quality != crate::monitor::Quality::Bad);
+    let out = ResultOut {
+        schema: RESULT_SCHEMA,
+        reactor: &r.id,
+        name: &r.name,
+        analysis_ts: format_rfc3339(e.analysis_ts_ms),
+        sample_ts: format_rfc3339(e.sample_ts_ms),
+        evaluated_at: format_rfc3339(evaluated_at_ms),
+        quality: e.quality.as_str(),
+        reasons: e
+            .reasons
+            .iter()
+            .map(|x| ReasonOut {
+                code: x.code,
+                severity: x.severity.as_str(),
+                message: &x.message,
+            })
+            .collect(),
+        k_source: r.model.reactions().first().map(|t| t.k.id().as_str()),
+        eos: r.eos.as_str(),
+        ln_k: first.and_then(|a| finite(a.ln_k)),
+        ln_q: first.and_then(|a| finite(a.ln_q)),
+        q_over_k: first.and_then(|a| finite(a.q_over_k)),
+        direction: first.map(|a| a.direction.as_str()),
+        affinity_j_per_mol: first.and_then(|a| finite(a.affinity_j_per_mol)),
+        equilibrium_temperature_k: first.and_then(|a| finite_opt(a.equilibrium_temperature_k)),
+        approach_k: usable.and_then(|a| finite_opt(a.approach_k)),
+        approach_uncertainty_k: usable.and_then(|a| finite_opt(a.approach_uncertainty_k)),
+        reactions,
+        temperature_k: finite_opt(e.temperature_k),
+        temperature_spread_k: finite_opt(e.temperature_spread_k),
+        pressure_bar: finite_opt(e.pressure_bar),
+        steam_ratio: finite_opt(e.steam_ratio),
+        inputs: e
+            .inputs
+            .iter()
+            .map(|i| InputOut {
+                tag: &i.tag,
+                value: finite_opt(i.value),
+                unit: i.unit,
+                age_s: i.age_ms.map(|a| a as f64 / 1000.0),
+                used: i.used,
+            })
+            .collect(),
+        basis: r.composition.basis.as_str(),
+        key_component: &db.get(r.key_component).name,
+        key_measured_mole_fraction: finite_opt(e.key_measured),
+        key_equilibrium_mole_fraction: finite_opt(e.key_equilibrium),
+        mole_fractions: BySpecies(names, &e.mole_fractions),
+        equilibrium_mole_fractions: BySpecies(names, &e.equilibrium_mole_fractions),
+        fugacity_coefficients: BySpecies(names, &e.fugacity_coefficients),
+        compressibility_factor: finite_opt(e.compressibility_factor),
+    };
+    // Serialising plain data to a String cannot fail; an empty object would be a bug.
+    serde_json::to_string(&out).unwrap_or_else(|_| "{}".to_string())
 }
 
 /// Adds the journal sequence number and the late mark at the front of a payload object.
