@@ -30,10 +30,13 @@
 //! `EQWATCH_E2E_QUICK=1` runs a tenth of the messages (for checking the harness).
 //! `EQWATCH_BIN` overrides the daemon binary.
 
+// The loopback helpers the integration tests use (free ports, mosquitto, HTTP GET).
+#[path = "../tests/support/mod.rs"]
+mod support;
+
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
-use std::io::Write as _;
-use std::net::{SocketAddr, TcpListener, TcpStream};
+use std::net::{SocketAddr, TcpStream};
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -101,13 +104,6 @@ fn target_dir() -> PathBuf {
 // ---------------------------------------------------------------------------------
 // Processes: mosquitto and the daemon.
 
-fn free_port() -> u16 {
-    TcpListener::bind("127.0.0.1:0")
-        .and_then(|l| l.local_addr())
-        .map(|a| a.port())
-        .expect("a free loopback port")
-}
-
 fn port_open(port: u16) -> bool {
     let addr: SocketAddr = ([127, 0, 0, 1], port).into();
     TcpStream::connect_timeout(&addr, Duration::from_millis(100)).is_ok()
@@ -122,17 +118,6 @@ fn wait_until(within: Duration, mut ok: impl FnMut() -> bool) -> bool {
         std::thread::sleep(Duration::from_millis(20));
     }
     ok()
-}
-
-fn running_as_root() -> bool {
-    std::fs::read_to_string("/proc/self/status")
-        .ok()
-        .and_then(|s| {
-            s.lines()
-                .find_map(|l| l.strip_prefix("Uid:"))
-                .and_then(|rest| rest.split_whitespace().next().map(|u| u == "0"))
-        })
-        .unwrap_or(false)
 }
 
 /// A child process stopped (TERM, then KILL after a grace period) when dropped.
@@ -166,22 +151,18 @@ impl Drop for Proc {
     }
 }
 
-fn mosquitto_binary() -> PathBuf {
-    ["/usr/sbin/mosquitto", "/usr/bin/mosquitto"]
-        .iter()
-        .map(PathBuf::from)
-        .find(|p| p.exists())
-        .unwrap_or_else(|| PathBuf::from("mosquitto"))
-}
-
 /// Mosquitto on a free loopback port, anonymous, no persistence. The per-client queue
 /// is unbounded so that a slow subscriber falls behind instead of losing messages
 /// (the default drops QoS 1 messages beyond 1000 queued), and the broker writes to its
 /// clients without Nagle's delay (the default waits for the previous segment's ACK).
 fn start_mosquitto(dir: &Path) -> (Proc, u16) {
-    let port = free_port();
+    let port = support::free_port();
     let conf = dir.join("mosquitto.conf");
-    let user = if running_as_root() { "user root\n" } else { "" };
+    let user = if support::is_root() {
+        "user root\n"
+    } else {
+        ""
+    };
     std::fs::write(
         &conf,
         format!(
@@ -189,7 +170,7 @@ fn start_mosquitto(dir: &Path) -> (Proc, u16) {
         ),
     )
     .expect("write mosquitto.conf");
-    let child = Command::new(mosquitto_binary())
+    let child = Command::new(support::mosquitto_binary())
         .arg("-c")
         .arg(&conf)
         .stdout(Stdio::null())
@@ -269,21 +250,6 @@ fn status_kib(pid: u32, key: &str) -> Option<u64> {
         .ok()
 }
 
-fn http_get(port: u16, path: &str) -> String {
-    use std::io::Read;
-    let Ok(mut s) = TcpStream::connect(("127.0.0.1", port)) else {
-        return String::new();
-    };
-    let _ = s.set_read_timeout(Some(Duration::from_secs(5)));
-    let req = format!("GET {path} HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n");
-    let _ = s.write_all(req.as_bytes());
-    let mut out = String::new();
-    let _ = s.read_to_string(&mut out);
-    out.split_once("\r\n\r\n")
-        .map(|(_, b)| b.to_string())
-        .unwrap_or_default()
-}
-
 /// Sums every sample of a metric family whose labels contain `label` (or all of them).
 fn metric_sum(text: &str, family: &str, label: Option<&str>) -> f64 {
     text.lines()
@@ -305,7 +271,11 @@ fn metric_sum(text: &str, family: &str, label: Option<&str>) -> f64 {
 // MQTT clients.
 
 fn options(prefix: &str, port: u16) -> MqttOptions {
-    let mut o = MqttOptions::new(format!("{prefix}-{}", free_port()), "127.0.0.1", port);
+    let mut o = MqttOptions::new(
+        format!("{prefix}-{}", support::free_port()),
+        "127.0.0.1",
+        port,
+    );
     o.set_keep_alive(Duration::from_secs(30));
     o.set_max_packet_size(1 << 20, 1 << 20);
     o
@@ -854,7 +824,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     // inside max_age) and increase through both runs: base + k for k = 0.. (paced),
     // then on (firehose).
     let base = now_ms() - 1_000_000;
-    let http = free_port();
+    let http = support::free_port();
     let config = write_config(dir.path(), port, http);
     let mut daemon = start_daemon(&config, http);
     let results = Subscriber::start(
@@ -892,7 +862,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     });
     let received = || {
         metric_sum(
-            &http_get(http, "/metrics"),
+            &support::http_get(http, "/metrics"),
             "eqwatch_messages_received_total",
             None,
         )
@@ -943,7 +913,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     eprintln!("e2e: 4/4 daemon memory and counters");
     r.vm_hwm_kib = status_kib(daemon.pid(), "VmHWM");
     r.vm_rss_kib = status_kib(daemon.pid(), "VmRSS");
-    let text = http_get(http, "/metrics");
+    let text = support::http_get(http, "/metrics");
     for q in ["good", "uncertain", "bad"] {
         let label = format!("quality=\"{q}\"");
         r.evaluations.insert(

@@ -19,7 +19,7 @@ pub fn free_port() -> u16 {
         .expect("a free loopback port")
 }
 
-fn mosquitto_binary() -> PathBuf {
+pub fn mosquitto_binary() -> PathBuf {
     for p in [
         "/usr/sbin/mosquitto",
         "/usr/bin/mosquitto",
@@ -102,7 +102,7 @@ impl Drop for Mosquitto {
     }
 }
 
-fn is_root() -> bool {
+pub fn is_root() -> bool {
     Command::new("id")
         .arg("-u")
         .output()
