@@ -16,7 +16,7 @@ use buffer::{Lookup, Point, ScalarBuffer};
 
 use crate::approach::{Approach, Flags, GasState, Scratch};
 use crate::composition::{Basis, Component, CompositionError, WaterSource, to_wet};
-use crate::config::{CompositionSource, ReactorSettings, SteamRatioSettings};
+use crate::config::{CompositionSource, ReactorSettings, ScalarSettings, SteamRatioSettings};
 use crate::thermo::species::SpeciesDb;
 use crate::units::CompositionUnit;
 
@@ -439,99 +439,28 @@ impl ReactorMonitor {
             }
         }
 
-        // Pressure.
-        let pressure_bar = match self.pressure.at(t_sample, ms(s.pressure.max_age)) {
-            Lookup::Value {
-                value,
-                quality,
-                age_ms,
-            } => {
-                if quality == SourceQuality::Bad {
-                    push(
-                        "source_bad",
-                        Quality::Bad,
-                        format!("{} reports bad quality", s.pressure.tag),
-                    );
-                }
-                inputs.push(InputUse {
-                    tag: s.pressure.tag.clone(),
-                    value: Some(value),
-                    unit: "bar",
-                    age_ms: Some(age_ms),
-                    used: quality != SourceQuality::Bad,
-                });
-                (quality != SourceQuality::Bad).then_some(value)
-            }
-            _ => {
-                push(
-                    "stale_pressure",
-                    Quality::Bad,
-                    format!(
-                        "{}: no reading within {} s of the sample time",
-                        s.pressure.tag,
-                        s.pressure.max_age.as_secs()
-                    ),
-                );
-                inputs.push(InputUse {
-                    tag: s.pressure.tag.clone(),
-                    value: None,
-                    unit: "bar",
-                    age_ms: None,
-                    used: false,
-                });
-                None
-            }
-        };
-
-        // Steam ratio for a dry analysis.
+        // Pressure, and the steam ratio of a dry analysis, at the sample time.
+        let pressure_bar = aligned(
+            &self.pressure,
+            &s.pressure,
+            t_sample,
+            "bar",
+            "stale_pressure",
+            &mut push,
+            &mut inputs,
+        );
         let steam_ratio = match &s.steam_ratio {
             None => None,
             Some(SteamRatioSettings::Fixed(v)) => Some(*v),
-            Some(SteamRatioSettings::Measured(ss)) => match self.steam.at(t_sample, ms(ss.max_age))
-            {
-                Lookup::Value {
-                    value,
-                    quality,
-                    age_ms,
-                } => {
-                    inputs.push(InputUse {
-                        tag: ss.tag.clone(),
-                        value: Some(value),
-                        unit: "mol/mol",
-                        age_ms: Some(age_ms),
-                        used: quality != SourceQuality::Bad,
-                    });
-                    if quality == SourceQuality::Bad {
-                        push(
-                            "source_bad",
-                            Quality::Bad,
-                            format!("{} reports bad quality", ss.tag),
-                        );
-                        None
-                    } else {
-                        Some(value)
-                    }
-                }
-                _ => {
-                    push(
-                        "stale_steam_ratio",
-                        Quality::Bad,
-                        format!(
-                            "{}: no reading within {} s of the sample time",
-                            ss.tag,
-                            ss.max_age.as_secs()
-                        ),
-                    );
-                    inputs.push(InputUse {
-                        tag: ss.tag.clone(),
-                        value: None,
-                        unit: "mol/mol",
-                        age_ms: None,
-                        used: false,
-                    });
-                    None
-                }
-            },
+            Some(SteamRatioSettings::Measured(ss)) => aligned(
+                &self.steam,
+                ss,
+                t_sample,
+                "mol/mol",
+                "stale_steam_ratio",
+                &mut push,
+                &mut inputs,
+            ),
         };
 
         // The analysis: every component present, finite and not negative.
@@ -758,6 +687,62 @@ impl ReactorMonitor {
         }
         eval.reasons = reasons;
         eval
+    }
+}
+
+/// One required scalar input at the sample time: its value, or `None` with a bad reason
+/// (stale, missing, or reported bad); the use is recorded either way.
+fn aligned(
+    buffer: &ScalarBuffer,
+    input: &ScalarSettings,
+    t_sample: i64,
+    unit: &'static str,
+    stale_code: &'static str,
+    push: &mut impl FnMut(&'static str, Quality, String),
+    inputs: &mut Vec<InputUse>,
+) -> Option<f64> {
+    match buffer.at(t_sample, ms(input.max_age)) {
+        Lookup::Value {
+            value,
+            quality,
+            age_ms,
+        } => {
+            let used = quality != SourceQuality::Bad;
+            if !used {
+                push(
+                    "source_bad",
+                    Quality::Bad,
+                    format!("{} reports bad quality", input.tag),
+                );
+            }
+            inputs.push(InputUse {
+                tag: input.tag.clone(),
+                value: Some(value),
+                unit,
+                age_ms: Some(age_ms),
+                used,
+            });
+            used.then_some(value)
+        }
+        _ => {
+            push(
+                stale_code,
+                Quality::Bad,
+                format!(
+                    "{}: no reading within {} s of the sample time",
+                    input.tag,
+                    input.max_age.as_secs()
+                ),
+            );
+            inputs.push(InputUse {
+                tag: input.tag.clone(),
+                value: None,
+                unit,
+                age_ms: None,
+                used: false,
+            });
+            None
+        }
     }
 }
 
