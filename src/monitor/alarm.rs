@@ -351,6 +351,14 @@ impl Alarm {
         ev
     }
 
+    /// Advances time without a sample: an expired shelf comes off (auto-unshelve).
+    pub fn tick(&mut self, now_ms: i64) -> Vec<Event> {
+        let now = self.clock(now_ms);
+        let mut ev = Vec::new();
+        self.expire_shelf(now, &mut ev);
+        ev
+    }
+
     /// Operator acknowledgement.
     pub fn acknowledge(&mut self, by: &str, now_ms: i64) -> Result<Vec<Event>, AlarmError> {
         non_empty(by, "operator")?;

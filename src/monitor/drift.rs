@@ -1,7 +1,7 @@
 //! Drift statistics of the approach: EWMA with its control limits, a one-sided CUSUM
 //! against a baseline, and a linear end-of-run forecast with a prediction interval.
 //! Pure: samples and times are passed in. (The alert and alarm layers that use these
-//! figures come later.)
+//! figures live in `watch.rs`.)
 //!
 //! # References
 //! - S. W. Roberts, "Control chart tests based on geometric moving averages",
@@ -11,6 +11,13 @@
 //!   S_i = max(0, S_{i−1} + x_i − μ0 − k), signal when S_i > h.
 //! - Ordinary least squares prediction interval: ŷ ± t_{n−2} s √(1 + 1/n + (x−x̄)²/Sxx),
 //!   e.g. D. C. Montgomery, E. A. Peck, Introduction to Linear Regression Analysis, §2.4.
+//! - Theil–Sen: H. Theil (1950), P. K. Sen, "Estimates of the regression coefficient based
+//!   on Kendall's tau", JASA 63 (1968) 1379: slope = median of pairwise slopes, intercept
+//!   = median of y − slope·x; slope interval from the ranks (N ∓ C)/2 of the sorted pairwise
+//!   slopes, C = z₀.₉₇₅ √(n(n−1)(2n+5)/18) (as in R. O. Gilbert, Statistical Methods for
+//!   Environmental Pollution Monitoring, 1987, §16.5). Its prediction band here uses the
+//!   least-squares form with a robust residual scale s = 1.4826·MAD (an approximation,
+//!   stated on the result as the method).
 
 use thiserror::Error;
 
@@ -113,6 +120,8 @@ pub struct Trend {
     /// Residual standard deviation.
     pub s: f64,
     pub n: usize,
+    /// 95 % interval of the slope, K/day.
+    pub slope_interval: (f64, f64),
     mean_x: f64,
     sxx: f64,
 }
@@ -129,6 +138,15 @@ pub enum EndOfRun {
     },
     /// Slope zero or falling: no crossing ahead.
     NotRising,
+}
+
+fn median_sorted(v: &[f64]) -> f64 {
+    let n = v.len();
+    if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        0.5 * (v[n / 2 - 1] + v[n / 2])
+    }
 }
 
 /// Two-sided 95 % Student t quantile for `dof` degrees of freedom (table values,
@@ -169,11 +187,67 @@ impl Trend {
             .map(|p| (p.1 - intercept - slope * p.0).powi(2))
             .sum();
         let s = (sse / (n - 2) as f64).sqrt();
+        let half = t95(n - 2) * s / sxx.sqrt();
         Some(Self {
             slope_per_day: slope,
             intercept,
             s,
             n,
+            slope_interval: (slope - half, slope + half),
+            mean_x,
+            sxx,
+        })
+    }
+
+    /// Theil–Sen over (day, approach) points; None with fewer than 3 points or no two
+    /// distinct days. `work` is scratch space (reused between calls to avoid allocation).
+    pub fn fit_theil_sen(points: &[(f64, f64)], work: &mut Vec<f64>) -> Option<Self> {
+        let n = points.len();
+        if n < 3 {
+            return None;
+        }
+        work.clear();
+        for (i, a) in points.iter().enumerate() {
+            for b in &points[i + 1..] {
+                let dx = b.0 - a.0;
+                if dx != 0.0 {
+                    let m = (b.1 - a.1) / dx;
+                    if m.is_finite() {
+                        work.push(m);
+                    }
+                }
+            }
+        }
+        if work.is_empty() {
+            return None;
+        }
+        work.sort_unstable_by(f64::total_cmp);
+        let slope = median_sorted(work);
+        // Sen's rank interval (1-based ranks rounded to the nearest integer).
+        let pairs = work.len() as f64;
+        let c = 1.96 * ((n * (n - 1) * (2 * n + 5)) as f64 / 18.0).sqrt();
+        let rank = |r: f64| (r.round() as usize).clamp(1, work.len()) - 1;
+        let lower = work[rank((pairs - c) / 2.0)];
+        let upper = work[rank((pairs + c) / 2.0 + 1.0)];
+        work.clear();
+        work.extend(points.iter().map(|p| p.1 - slope * p.0));
+        work.sort_unstable_by(f64::total_cmp);
+        let intercept = median_sorted(work);
+        work.clear();
+        work.extend(points.iter().map(|p| (p.1 - intercept - slope * p.0).abs()));
+        work.sort_unstable_by(f64::total_cmp);
+        let s = 1.4826 * median_sorted(work);
+        let mean_x = points.iter().map(|p| p.0).sum::<f64>() / n as f64;
+        let sxx: f64 = points.iter().map(|p| (p.0 - mean_x).powi(2)).sum();
+        if !(sxx > 0.0) {
+            return None;
+        }
+        Some(Self {
+            slope_per_day: slope,
+            intercept,
+            s,
+            n,
+            slope_interval: (lower, upper),
             mean_x,
             sxx,
         })
@@ -284,5 +358,47 @@ mod tests {
             EndOfRun::NotRising
         );
         assert!(Trend::fit(&pts[..2]).is_none());
+    }
+
+    #[test]
+    fn theil_sen() {
+        // DOMAIN §7 days and approaches: 21 pairwise slopes, median 0.0188889 K/day,
+        // intercept 5.0, Sen's interval ranks 4 and 18 → [0.0177778, 0.0200000]
+        // [derived: computed with Python 3.11 statistics.median over the pairs].
+        let p: Vec<(f64, f64)> = [0.0, 30.0, 60.0, 90.0, 120.0, 150.0, 180.0]
+            .into_iter()
+            .zip([5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4])
+            .collect();
+        let mut work = Vec::new();
+        let t = Trend::fit_theil_sen(&p, &mut work).unwrap();
+        assert!((t.slope_per_day - 0.018_888_889).abs() < 1e-8, "{t:?}");
+        assert!((t.intercept - 5.0).abs() < 1e-9);
+        assert!((t.slope_interval.0 - 0.017_777_778).abs() < 1e-8);
+        assert!((t.slope_interval.1 - 0.02).abs() < 1e-9);
+        // One wild aggregate barely moves it; least squares is dragged away [derived:
+        // exact line 5 + 0.02·x with one outlier: 15 of 21 pairwise slopes are 0.02].
+        let mut q: Vec<(f64, f64)> = (0..7).map(|i| (30.0 * i as f64, 5.0 + 0.6 * i as f64)).collect();
+        q[3].1 = 50.0;
+        let ts = Trend::fit_theil_sen(&q, &mut work).unwrap();
+        assert!((ts.slope_per_day - 0.02).abs() < 1e-12, "{ts:?}");
+        let ls = Trend::fit(&q).unwrap();
+        assert!(ls.s > 10.0 * ts.s.max(1e-9));
+        // Too few points, or one day only.
+        assert!(Trend::fit_theil_sen(&q[..2], &mut work).is_none());
+        assert!(Trend::fit_theil_sen(&[(1.0, 1.0), (1.0, 2.0), (1.0, 3.0)], &mut work).is_none());
+    }
+
+    #[test]
+    fn least_squares_slope_interval() {
+        // DOMAIN §7 data: s = 0.0956 from the fit, t(5) = 2.571 (NIST/SEMATECH table),
+        // Sxx = 25200 → half-width 2.571·s/√Sxx [derived].
+        let p: Vec<(f64, f64)> = [0.0, 30.0, 60.0, 90.0, 120.0, 150.0, 180.0]
+            .into_iter()
+            .zip([5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4])
+            .collect();
+        let t = Trend::fit(&p).unwrap();
+        let half = 2.571 * t.s / 25_200f64.sqrt();
+        assert!((t.slope_interval.1 - t.slope_per_day - half).abs() < 1e-12);
+        assert!(t.slope_interval.0 < t.slope_per_day && t.slope_per_day < t.slope_interval.1);
     }
 }
