@@ -377,7 +377,9 @@ mod tests {
         assert!((t.slope_interval.1 - 0.02).abs() < 1e-9);
         // One wild aggregate barely moves it; least squares is dragged away [derived:
         // exact line 5 + 0.02·x with one outlier: 15 of 21 pairwise slopes are 0.02].
-        let mut q: Vec<(f64, f64)> = (0..7).map(|i| (30.0 * i as f64, 5.0 + 0.6 * i as f64)).collect();
+        let mut q: Vec<(f64, f64)> = (0..7)
+            .map(|i| (30.0 * i as f64, 5.0 + 0.6 * i as f64))
+            .collect();
         q[3].1 = 50.0;
         let ts = Trend::fit_theil_sen(&q, &mut work).unwrap();
         assert!((ts.slope_per_day - 0.02).abs() < 1e-12, "{ts:?}");

@@ -9,6 +9,7 @@
 pub mod alarm;
 pub mod buffer;
 pub mod drift;
+pub mod watch;
 
 use std::collections::BTreeMap;
 

@@ -1,0 +1,1447 @@
+//! Per-reactor watch over the evaluations: drift statistics against a start-of-run
+//! baseline (EWMA, CUSUM, trend on steady-state aggregates, end-of-run forecast), the
+//! engineering alerts they raise, the operator alarms the configuration rationalises,
+//! operator commands, and the alarm-system self-monitoring (chattering and stale alarms
+//! per reactor; floods plant-wide in [`PlantWatch`]).
+//!
+//! Pure: no I/O, no clock; every call takes the time. Wire formats live in the shell.
+//!
+//! # What goes into the statistics
+//! Only good or uncertain evaluations with an approach figure, not flagged `transient`,
+//! taken while the unit is on line. Bad ones, transients and shutdowns are counted as
+//! excluded and leave the baseline, EWMA, CUSUM and aggregates untouched (DOMAIN §7:
+//! leave shutdowns and rate cuts out).
+//!
+//! # Alerts and alarms (DOMAIN §6)
+//! Both use the ISA-18.2 state machine of [`super::alarm`]. Alerts are for the engineer
+//! (trend rate, end of run near, CUSUM signal, data quality, chattering, stale); alarms
+//! are for the operator, only those configured with a rationale. Operator alarms are
+//! suppressed by design while the analysis is bad or the unit is off line; alerts are
+//! suppressed by design while the unit is off line.
+//!
+//! # References
+//! - ISA-18.2-2016 / IEC 62682:2014 alarm states; EEMUA 191 (3rd ed.) performance
+//!   figures: flood > 10 alarms in 10 min per operator, chattering ≥ 3 activations a
+//!   minute, stale > 24 h (as summarised in DOMAIN §6).
+
+use std::collections::VecDeque;
+
+use super::alarm::{Alarm, AlarmConfig, AlarmError, Direction, Event, EventKind, Priority};
+use super::drift::{Cusum, EndOfRun, Ewma, EwmaPoint, Trend};
+use super::{Evaluation, Quality};
+
+const DAY_MS: f64 = 86_400_000.0;
+const MINUTE_MS: i64 = 60_000;
+
+/// How the trend line is fitted.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TrendMethod {
+    LeastSquares,
+    TheilSen,
+}
+
+impl TrendMethod {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::LeastSquares => "least-squares",
+            Self::TheilSen => "theil-sen",
+        }
+    }
+}
+
+/// Where the start-of-run baseline comes from.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum BaselineSpec {
+    /// Mean and standard deviation of the usable samples in the first `window_ms` of the
+    /// run (at least `min_samples` of them, else learning goes on).
+    Learn {
+        window_ms: i64,
+        min_samples: usize,
+    },
+    Given {
+        approach_k: f64,
+        sigma_k: f64,
+    },
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct DriftSettings {
+    pub baseline: BaselineSpec,
+    /// A learned σ is at least this (K), so a quiet start does not make a hair trigger.
+    pub sigma_floor_k: f64,
+    pub ewma_lambda: f64,
+    pub ewma_l: f64,
+    /// CUSUM reference value and decision interval, in baseline σ.
+    pub cusum_k_sigma: f64,
+    pub cusum_h_sigma: f64,
+    pub trend: TrendMethod,
+    /// Steady-state aggregate period (ms): one trend point per period.
+    pub aggregate_ms: i64,
+    /// Usable samples an aggregate needs to count.
+    pub min_per_aggregate: usize,
+    /// Only aggregates this recent go into the trend (None: all since the baseline).
+    pub trend_window_ms: Option<i64>,
+    /// Aggregates needed before a trend is reported (at least 3).
+    pub min_aggregates: usize,
+    /// Approach at which the catalyst is at end of run (K).
+    pub end_of_run_limit_k: Option<f64>,
+}
+
+impl Default for DriftSettings {
+    /// Defaults [common practice]: λ = 0.2, L = 3; CUSUM k = 0.5σ, h = 5σ; daily aggregates.
+    fn default() -> Self {
+        Self {
+            baseline: BaselineSpec::Learn {
+                window_ms: 7 * 86_400_000,
+                min_samples: 20,
+            },
+            sigma_floor_k: 0.2,
+            ewma_lambda: 0.2,
+            ewma_l: 3.0,
+            cusum_k_sigma: 0.5,
+            cusum_h_sigma: 5.0,
+            trend: TrendMethod::LeastSquares,
+            aggregate_ms: 86_400_000,
+            min_per_aggregate: 6,
+            trend_window_ms: None,
+            min_aggregates: 5,
+            end_of_run_limit_k: None,
+        }
+    }
+}
+
+/// Engineering alerts (each off when `None`/false).
+#[derive(Debug, Clone, PartialEq)]
+pub struct AlertSettings {
+    pub trend_above_k_per_day: Option<f64>,
+    pub end_of_run_within_days: Option<f64>,
+    pub cusum: bool,
+    /// Raise when no good result has come for this long.
+    pub data_quality_after_ms: Option<i64>,
+    /// Chattering and stale-alarm alerts for the operator alarms.
+    pub self_monitoring: bool,
+}
+
+impl Default for AlertSettings {
+    fn default() -> Self {
+        Self {
+            trend_above_k_per_day: None,
+            end_of_run_within_days: None,
+            cusum: false,
+            data_quality_after_ms: None,
+            self_monitoring: true,
+        }
+    }
+}
+
+/// The figure an operator alarm watches.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Figure {
+    /// Approach of the first reaction, K.
+    Approach,
+    /// Measured key component, in `AlarmSpec::unit` (mole fraction × scale).
+    KeyMeasured,
+}
+
+/// A rationalised operator alarm.
+#[derive(Debug, Clone, PartialEq)]
+pub struct AlarmSpec {
+    /// `config.id` is the alarm's name within the reactor (e.g. `approach-high`).
+    pub config: AlarmConfig,
+    pub figure: Figure,
+    /// Multiplier from the figure's base unit (K, or mole fraction) to `unit`.
+    pub scale: f64,
+    pub unit: &'static str,
+    /// Why the alarm exists and what the operator does (the rationalisation record).
+    pub rationale: String,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct WatchSettings {
+    pub drift: DriftSettings,
+    pub alerts: AlertSettings,
+    pub alarms: Vec<AlarmSpec>,
+    /// The unit counts as off line while its pressure is below this (bar absolute).
+    pub offline_below_bar: Option<f64>,
+}
+
+impl Default for WatchSettings {
+    fn default() -> Self {
+        Self {
+            drift: DriftSettings::default(),
+            alerts: AlertSettings::default(),
+            alarms: Vec::new(),
+            offline_below_bar: None,
+        }
+    }
+}
+
+/// Alert or alarm.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Class {
+    Alert,
+    Alarm,
+}
+
+impl Class {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::Alert => "alert",
+            Self::Alarm => "alarm",
+        }
+    }
+}
+
+/// One alert or alarm with what it watches.
+#[derive(Debug, Clone)]
+pub struct Watched {
+    pub class: Class,
+    pub alarm: Alarm,
+    pub unit: &'static str,
+    pub description: String,
+    /// The last value given to the state machine.
+    pub value: Option<f64>,
+    figure: Source,
+    /// Activation times within the last minute (chattering).
+    activations: VecDeque<i64>,
+    /// Since when the alarm has been annunciating with its condition on.
+    active_since_ms: Option<i64>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Source {
+    Figure(Figure, f64),
+    Trend,
+    EndOfRun,
+    Cusum,
+    DataQuality,
+    /// Chattering of the alarm at this index.
+    Chatter(usize),
+    /// Stale alarm at this index.
+    Stale(usize),
+}
+
+/// An event for the shell to publish.
+#[derive(Debug, Clone, PartialEq)]
+pub struct WatchEvent {
+    pub class: Class,
+    /// Index into [`ReactorWatch::watched`].
+    pub index: usize,
+    pub event: Event,
+}
+
+/// Baseline state.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Baseline {
+    pub approach_k: f64,
+    pub sigma_k: f64,
+    pub given: bool,
+    /// When the run (and the baseline window) started.
+    pub since_ms: i64,
+}
+
+/// The end-of-run forecast.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Forecast {
+    /// No limit configured.
+    NoLimit,
+    /// Not enough aggregates yet.
+    NoTrend,
+    NotRising,
+    /// The fitted line is already at or above the limit.
+    Reached,
+    At {
+        at_ms: i64,
+        earliest_ms: i64,
+        latest_ms: Option<i64>,
+    },
+}
+
+/// The fitted trend as published.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TrendFigures {
+    pub method: TrendMethod,
+    pub slope_k_per_day: f64,
+    pub slope_interval_k_per_day: (f64, f64),
+    /// Fitted approach at the last aggregate, K, and the 95 % prediction half-width there.
+    pub fitted_k: f64,
+    pub band_k: f64,
+    pub points: usize,
+    /// The fit, for plotting: approach(t) = intercept + slope·(t − origin)/day.
+    pub origin_ms: i64,
+    pub intercept_k: f64,
+    pub first_ms: i64,
+    pub last_ms: i64,
+    pub fit: Trend,
+}
+
+/// The drift figures after one evaluation.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DriftFigures {
+    /// Why the sample was left out of the statistics, if it was.
+    pub excluded: Option<&'static str>,
+    pub learning: bool,
+    pub baseline: Option<Baseline>,
+    pub ewma: Option<EwmaPoint>,
+    pub cusum_k: Option<f64>,
+    pub cusum_h_k: Option<f64>,
+    pub cusum_signal: bool,
+    pub trend: Option<TrendFigures>,
+    pub forecast: Forecast,
+    pub limit_k: Option<f64>,
+}
+
+/// An operator or engineer command.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Action {
+    Acknowledge,
+    Shelve {
+        duration_ms: i64,
+        reason: String,
+    },
+    Unshelve,
+    OutOfService {
+        reason: String,
+    },
+    ReturnToService,
+    ResetLatch,
+    /// Starts a new run: baseline, statistics and aggregates from now.
+    Rebaseline {
+        reason: String,
+    },
+}
+
+impl Action {
+    pub fn as_str(&self) -> &'static str {
+        match self {
+            Self::Acknowledge => "acknowledge",
+            Self::Shelve { .. } => "shelve",
+            Self::Unshelve => "unshelve",
+            Self::OutOfService { .. } => "out-of-service",
+            Self::ReturnToService => "return-to-service",
+            Self::ResetLatch => "reset-latch",
+            Self::Rebaseline { .. } => "re-baseline",
+        }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum CommandError {
+    #[error("no alert or alarm \"{0}\" on this reactor; known: {1}")]
+    UnknownAlarm(String, String),
+    #[error("\"{0}\" needs an alarm id (field \"alarm\")")]
+    NeedsAlarm(&'static str),
+    #[error("{0}")]
+    Refused(#[from] AlarmError),
+}
+
+#[derive(Debug, Clone, Default)]
+struct Bucket {
+    start_ms: i64,
+    n: usize,
+    sum: f64,
+}
+
+/// The watch over one reactor.
+#[derive(Debug, Clone)]
+pub struct ReactorWatch {
+    pub watched: Vec<Watched>,
+    run_start_ms: Option<i64>,
+    learn_n: usize,
+    learn_mean: f64,
+    learn_m2: f64,
+    baseline: Option<Baseline>,
+    ewma: Option<Ewma>,
+    last_ewma: Option<EwmaPoint>,
+    cusum: Option<Cusum>,
+    cusum_last: Option<(f64, bool)>,
+    bucket: Option<Bucket>,
+    /// (day since run start at the bucket middle, mean approach, bucket start ms)
+    aggregates: Vec<(f64, f64)>,
+    trend: Option<TrendFigures>,
+    work: Vec<f64>,
+    last_good_ms: Option<i64>,
+    started_ms: Option<i64>,
+    offline: bool,
+    analysis_bad: Option<String>,
+    excluded: u64,
+}
+
+fn alert_config(id: &str, limit: f64, direction: Direction, deadband: f64) -> AlarmConfig {
+    AlarmConfig {
+        id: id.into(),
+        limit,
+        direction,
+        deadband,
+        on_delay_ms: 0,
+        off_delay_ms: 0,
+        on_delay_samples: 0,
+        off_delay_samples: 0,
+        realarm_ms: None,
+        latched: false,
+        priority: Priority::Low,
+        max_shelve_ms: 30 * 86_400_000,
+    }
+}
+
+impl ReactorWatch {
+    /// Builds the watch; alarm configurations are validated here.
+    pub fn new(s: &WatchSettings) -> Result<Self, AlarmError> {
+        let mut watched = Vec::new();
+        let mut add = |class, cfg: AlarmConfig, unit, description: String, figure| {
+            Alarm::new(cfg).map(|alarm| {
+                watched.push(Watched {
+                    class,
+                    alarm,
+                    unit,
+                    description,
+                    value: None,
+                    figure,
+                    activations: VecDeque::new(),
+                    active_since_ms: None,
+                })
+            })
+        };
+        for a in &s.alarms {
+            add(
+                Class::Alarm,
+                a.config.clone(),
+                a.unit,
+                a.rationale.clone(),
+                Source::Figure(a.figure, a.scale),
+            )?;
+        }
+        let n_alarms = s.alarms.len();
+        let al = &s.alerts;
+        if let Some(rate) = al.trend_above_k_per_day {
+            add(
+                Class::Alert,
+                alert_config("trend", rate, Direction::High, 0.2 * rate.abs()),
+                "K/d",
+                format!("approach rising faster than {rate} K/d"),
+                Source::Trend,
+            )?;
+        }
+        if let (Some(days), Some(limit)) = (al.end_of_run_within_days, s.drift.end_of_run_limit_k) {
+            add(
+                Class::Alert,
+                alert_config("end-of-run", days, Direction::Low, 0.1 * days),
+                "d",
+                format!("end of run ({limit} K) forecast within {days} d"),
+                Source::EndOfRun,
+            )?;
+        }
+        if al.cusum {
+            add(
+                Class::Alert,
+                alert_config("cusum", 0.5, Direction::High, 0.0),
+                "",
+                "CUSUM of the approach above its decision interval: a sustained rise against the baseline".into(),
+                Source::Cusum,
+            )?;
+        }
+        if let Some(after) = al.data_quality_after_ms {
+            let min = after as f64 / MINUTE_MS as f64;
+            add(
+                Class::Alert,
+                alert_config("data-quality", min, Direction::High, 0.0),
+                "min",
+                format!("no good result for more than {min} min"),
+                Source::DataQuality,
+            )?;
+        }
+        if al.self_monitoring {
+            for i in 0..n_alarms {
+                let id = s.alarms[i].config.id.clone();
+                add(
+                    Class::Alert,
+                    alert_config(&format!("chattering:{id}"), 2.5, Direction::High, 1.0),
+                    "per min",
+                    format!("alarm {id} chattering: 3 or more activations in a minute"),
+                    Source::Chatter(i),
+                )?;
+                add(
+                    Class::Alert,
+                    alert_config(&format!("stale:{id}"), 24.0, Direction::High, 0.0),
+                    "h",
+                    format!("alarm {id} stale: active for more than 24 h"),
+                    Source::Stale(i),
+                )?;
+            }
+        }
+        Ok(Self {
+            watched,
+            run_start_ms: None,
+            learn_n: 0,
+            learn_mean: 0.0,
+            learn_m2: 0.0,
+            baseline: None,
+            ewma: None,
+            last_ewma: None,
+            cusum: None,
+            cusum_last: None,
+            bucket: None,
+            aggregates: Vec::new(),
+            trend: None,
+            work: Vec::new(),
+            last_good_ms: None,
+            started_ms: None,
+            offline: false,
+            analysis_bad: None,
+            excluded: 0,
+        })
+    }
+
+    /// Samples left out of the statistics so far.
+    pub fn excluded(&self) -> u64 {
+        self.excluded
+    }
+
+    pub fn offline(&self) -> bool {
+        self.offline
+    }
+
+    /// The current drift figures without a new sample.
+    pub fn figures(&self, s: &DriftSettings) -> DriftFigures {
+        DriftFigures {
+            excluded: None,
+            learning: self.baseline.is_none(),
+            baseline: self.baseline,
+            ewma: self.last_ewma,
+            cusum_k: self.cusum_last.map(|c| c.0),
+            cusum_h_k: self.baseline.map(|b| s.cusum_h_sigma * b.sigma_k),
+            cusum_signal: self.cusum_last.is_some_and(|c| c.1),
+            trend: self.trend,
+            forecast: self.forecast(s),
+            limit_k: s.end_of_run_limit_k,
+        }
+    }
+
+    fn forecast(&self, s: &DriftSettings) -> Forecast {
+        let Some(limit) = s.end_of_run_limit_k else {
+            return Forecast::NoLimit;
+        };
+        let (Some(t), Some(start)) = (self.trend, self.run_start_ms) else {
+            return Forecast::NoTrend;
+        };
+        if t.fitted_k >= limit {
+            return Forecast::Reached;
+        }
+        let to_ms = |day: f64| start.saturating_add((day * DAY_MS) as i64);
+        match t.fit.end_of_run(limit) {
+            EndOfRun::NotRising => Forecast::NotRising,
+            EndOfRun::At {
+                day,
+                earliest,
+                latest,
+            } => {
+                let (lo, hi) = t.slope_interval_k_per_day;
+                // Theil–Sen: the slope interval bounds the date as well (the band is an
+                // approximation there); least squares: the prediction band.
+                let (earliest, latest) = match t.method {
+                    TrendMethod::LeastSquares => (earliest, latest),
+                    TrendMethod::TheilSen => {
+                        let last_day = (t.last_ms - start) as f64 / DAY_MS;
+                        let reach = |m: f64| (m > 0.0).then(|| last_day + (limit - t.fitted_k) / m);
+                        (reach(hi).unwrap_or(day).min(earliest), reach(lo))
+                    }
+                };
+                Forecast::At {
+                    at_ms: to_ms(day),
+                    earliest_ms: to_ms(earliest),
+                    latest_ms: latest.map(to_ms),
+                }
+            }
+        }
+    }
+
+    /// The unit's pressure (bar abs) as it arrives: off line below the configured limit.
+    pub fn pressure(&mut self, s: &WatchSettings, bar: f64, now_ms: i64) -> Vec<WatchEvent> {
+        let Some(limit) = s.offline_below_bar else {
+            return Vec::new();
+        };
+        if !bar.is_finite() {
+            return Vec::new();
+        }
+        let off = bar < limit;
+        if off == self.offline {
+            return Vec::new();
+        }
+        self.offline = off;
+        let mut out = Vec::new();
+        self.apply_suppression(now_ms, &mut out);
+        out
+    }
+
+    /// Takes one evaluation; returns the drift figures for the result and the events.
+    pub fn observe(
+        &mut self,
+        s: &WatchSettings,
+        e: &Evaluation,
+        now_ms: i64,
+    ) -> (DriftFigures, Vec<WatchEvent>) {
+        let t = e.sample_ts_ms;
+        self.started_ms.get_or_insert(t);
+        let approach = e.reactions.first().and_then(|a| a.approach_k);
+        let transient = e.reasons.iter().any(|r| r.code == "transient");
+        let excluded = if self.offline {
+            Some("unit_offline")
+        } else if e.quality == Quality::Bad {
+            Some("bad_quality")
+        } else if transient {
+            Some("transient")
+        } else if approach.is_none_or(|a| !a.is_finite()) {
+            Some("no_approach")
+        } else {
+            None
+        };
+        let mut out = Vec::new();
+        // Suppression by design follows the analysis quality.
+        let bad = (e.quality == Quality::Bad).then(|| {
+            let codes: Vec<&str> = e
+                .reasons
+                .iter()
+                .filter(|r| r.severity == Quality::Bad)
+                .map(|r| r.code)
+                .collect();
+            format!("analysis bad: {}", codes.join(", "))
+        });
+        if bad != self.analysis_bad {
+            self.analysis_bad = bad;
+            self.apply_suppression(now_ms, &mut out);
+        }
+        if e.quality == Quality::Good {
+            self.last_good_ms = Some(t.max(self.last_good_ms.unwrap_or(i64::MIN)));
+        }
+        if let (None, Some(x)) = (excluded, approach) {
+            self.sample(&s.drift, t, x);
+        } else {
+            self.excluded += 1;
+        }
+        let mut fig = self.figures(&s.drift);
+        fig.excluded = excluded;
+        // Feed the state machines.
+        let usable = excluded.is_none();
+        for i in 0..self.watched.len() {
+            let v = match self.watched[i].figure {
+                Source::Figure(Figure::Approach, k) => approach
+                    .filter(|_| e.quality != Quality::Bad)
+                    .map(|a| a * k),
+                Source::Figure(Figure::KeyMeasured, k) => e
+                    .key_measured
+                    .filter(|_| e.quality != Quality::Bad)
+                    .map(|a| a * k),
+                Source::Trend => {
+                    if !usable {
+                        continue;
+                    }
+                    Some(fig.trend.map_or(0.0, |t| t.slope_k_per_day))
+                }
+                Source::EndOfRun => {
+                    if !usable {
+                        continue;
+                    }
+                    Some(match fig.forecast {
+                        Forecast::At { at_ms, .. } => (at_ms - t) as f64 / DAY_MS,
+                        Forecast::Reached => 0.0,
+                        _ => f64::MAX,
+                    })
+                }
+                Source::Cusum => {
+                    if !usable {
+                        continue;
+                    }
+                    Some(if fig.cusum_signal { 1.0 } else { 0.0 })
+                }
+                // Time-based ones are fed by `tick`.
+                Source::DataQuality | Source::Chatter(_) | Source::Stale(_) => continue,
+            };
+            self.update_one(i, v, now_ms, &mut out);
+        }
+        self.timers(now_ms, &mut out);
+        (fig, out)
+    }
+
+    /// Advances the timers (shelf expiry, data quality, chattering, stale) to `now_ms`.
+    pub fn tick(&mut self, now_ms: i64) -> Vec<WatchEvent> {
+        let mut out = Vec::new();
+        for i in 0..self.watched.len() {
+            let ev = self.watched[i].alarm.tick(now_ms);
+            self.push_events(i, ev, &mut out);
+        }
+        self.timers(now_ms, &mut out);
+        out
+    }
+
+    fn timers(&mut self, now_ms: i64, out: &mut Vec<WatchEvent>) {
+        for i in 0..self.watched.len() {
+            let v = match self.watched[i].figure {
+                Source::DataQuality => {
+                    let Some(since) = self.last_good_ms.or(self.started_ms) else {
+                        continue;
+                    };
+                    Some((now_ms - since).max(0) as f64 / MINUTE_MS as f64)
+                }
+                Source::Chatter(j) => {
+                    let w = &mut self.watched[j];
+                    while w
+                        .activations
+                        .front()
+                        .is_some_and(|&t| now_ms - t >= MINUTE_MS)
+                    {
+                        w.activations.pop_front();
+                    }
+                    Some(w.activations.len() as f64)
+                }
+                Source::Stale(j) => Some(
+                    self.watched[j]
+                        .active_since_ms
+                        .map_or(0.0, |t| (now_ms - t).max(0) as f64 / 3_600_000.0),
+                ),
+                _ => continue,
+            };
+            if self.watched[i].value != v {
+                self.update_one(i, v, now_ms, out);
+            }
+        }
+    }
+
+    fn update_one(&mut self, i: usize, v: Option<f64>, now_ms: i64, out: &mut Vec<WatchEvent>) {
+        self.watched[i].value = v;
+        let ev = self.watched[i].alarm.update(v, now_ms);
+        self.push_events(i, ev, out);
+    }
+
+    fn push_events(&mut self, i: usize, ev: Vec<Event>, out: &mut Vec<WatchEvent>) {
+        for event in ev {
+            let w = &mut self.watched[i];
+            match event.kind {
+                EventKind::Raised | EventKind::Realarmed => {
+                    w.activations.push_back(event.at_ms);
+                    if w.active_since_ms.is_none() {
+                        w.active_since_ms = Some(event.at_ms);
+                    }
+                }
+                _ => {}
+            }
+            if !(w.alarm.condition() && w.alarm.annunciating()) {
+                w.active_since_ms = None;
+            }
+            out.push(WatchEvent {
+                class: w.class,
+                index: i,
+                event,
+            });
+        }
+    }
+
+    /// Enters or leaves suppression by design after the analysis or the unit changed.
+    fn apply_suppression(&mut self, now_ms: i64, out: &mut Vec<WatchEvent>) {
+        for i in 0..self.watched.len() {
+            let reason = if self.offline {
+                Some("unit off line".to_string())
+            } else if self.watched[i].class == Class::Alarm {
+                self.analysis_bad.clone()
+            } else {
+                None
+            };
+            let a = &mut self.watched[i].alarm;
+            let suppressed = matches!(a.mode(), super::alarm::Mode::SuppressedByDesign { .. });
+            let ev = match (&reason, suppressed) {
+                (Some(r), false) if *a.mode() == super::alarm::Mode::Active => {
+                    a.suppress_by_design(r, now_ms).unwrap_or_default()
+                }
+                (None, true) => a.unsuppress(now_ms).unwrap_or_default(),
+                _ => Vec::new(),
+            };
+            self.push_events(i, ev, out);
+        }
+    }
+
+    fn sample(&mut self, s: &DriftSettings, t: i64, x: f64) {
+        let start = *self.run_start_ms.get_or_insert(t);
+        if self.baseline.is_none() {
+            match s.baseline {
+                BaselineSpec::Given {
+                    approach_k,
+                    sigma_k,
+                } => self.set_baseline(s, approach_k, sigma_k, true, start),
+                BaselineSpec::Learn {
+                    window_ms,
+                    min_samples,
+                } => {
+                    if t - start < window_ms || self.learn_n < min_samples {
+                        // Welford's running mean and variance.
+                        self.learn_n += 1;
+                        let d = x - self.learn_mean;
+                        self.learn_mean += d / self.learn_n as f64;
+                        self.learn_m2 += d * (x - self.learn_mean);
+                    } else {
+                        let sd = if self.learn_n > 1 {
+                            (self.learn_m2 / (self.learn_n - 1) as f64).sqrt()
+                        } else {
+                            0.0
+                        };
+                        self.set_baseline(s, self.learn_mean, sd, false, start);
+                    }
+                }
+            }
+        }
+        if let (Some(ewma), Some(cusum)) = (&mut self.ewma, &mut self.cusum) {
+            self.last_ewma = Some(ewma.push(x));
+            self.cusum_last = Some(cusum.push(x));
+        }
+        // Steady-state aggregates of the run (the learning window included).
+        let period = s.aggregate_ms.max(1);
+        let k = (t - start).div_euclid(period);
+        let bstart = start + k * period;
+        let closed = match &mut self.bucket {
+            Some(b) if b.start_ms == bstart => {
+                b.n += 1;
+                b.sum += x;
+                None
+            }
+            slot => slot.replace(Bucket {
+                start_ms: bstart,
+                n: 1,
+                sum: x,
+            }),
+        };
+        if let Some(b) = closed {
+            if b.n >= s.min_per_aggregate && b.start_ms < bstart {
+                let mid = (b.start_ms - start) as f64 / DAY_MS + 0.5 * period as f64 / DAY_MS;
+                self.aggregates.push((mid, b.sum / b.n as f64));
+                self.refit(s, start);
+            }
+        }
+    }
+
+    fn set_baseline(&mut self, s: &DriftSettings, mean: f64, sd: f64, given: bool, start: i64) {
+        let sigma = if given { sd } else { sd.max(s.sigma_floor_k) };
+        self.baseline = Some(Baseline {
+            approach_k: mean,
+            sigma_k: sigma,
+            given,
+            since_ms: start,
+        });
+        self.ewma = Ewma::new(mean, sigma, s.ewma_lambda, s.ewma_l).ok();
+        self.cusum = Cusum::new(mean, s.cusum_k_sigma * sigma, s.cusum_h_sigma * sigma).ok();
+    }
+
+    fn refit(&mut self, s: &DriftSettings, start: i64) {
+        let from = match s.trend_window_ms {
+            Some(w) => {
+                let last = self.aggregates.last().map_or(0.0, |a| a.0);
+                let cut = last - w as f64 / DAY_MS;
+                self.aggregates.partition_point(|a| a.0 < cut)
+            }
+            None => 0,
+        };
+        let pts = &self.aggregates[from..];
+        if pts.len() < s.min_aggregates.max(3) {
+            self.trend = None;
+            return;
+        }
+        let fit = match s.trend {
+            TrendMethod::LeastSquares => Trend::fit(pts),
+            TrendMethod::TheilSen => Trend::fit_theil_sen(pts, &mut self.work),
+        };
+        self.trend = fit.map(|f| {
+            let first = pts[0].0;
+            let last = pts[pts.len() - 1].0;
+            TrendFigures {
+                method: s.trend,
+                slope_k_per_day: f.slope_per_day,
+                slope_interval_k_per_day: f.slope_interval,
+                fitted_k: f.intercept + f.slope_per_day * last,
+                band_k: f.band(last),
+                points: pts.len(),
+                origin_ms: start,
+                intercept_k: f.intercept,
+                first_ms: start + (first * DAY_MS) as i64,
+                last_ms: start + (last * DAY_MS) as i64,
+                fit: f,
+            }
+        });
+    }
+
+    /// Starts a new run from `now_ms` (catalyst change, reduction, regeneration).
+    fn rebaseline(&mut self) {
+        self.run_start_ms = None;
+        self.learn_n = 0;
+        self.learn_mean = 0.0;
+        self.learn_m2 = 0.0;
+        self.baseline = None;
+        self.ewma = None;
+        self.last_ewma = None;
+        self.cusum = None;
+        self.cusum_last = None;
+        self.bucket = None;
+        self.aggregates.clear();
+        self.trend = None;
+    }
+
+    /// Carries out a command from `by`; returns a message for the outcome and the events.
+    pub fn command(
+        &mut self,
+        s: &WatchSettings,
+        action: &Action,
+        alarm: Option<&str>,
+        by: &str,
+        now_ms: i64,
+    ) -> Result<(String, Vec<WatchEvent>), CommandError> {
+        let mut out = Vec::new();
+        if let Action::Rebaseline { reason } = action {
+            if by.trim().is_empty() || reason.trim().is_empty() {
+                return Err(AlarmError::Empty("user and reason").into());
+            }
+            self.rebaseline();
+            // Drift alerts return to "nothing to report" until the new run has a trend.
+            let neutral = self.figures(&s.drift);
+            for i in 0..self.watched.len() {
+                let v = match self.watched[i].figure {
+                    Source::Trend => Some(neutral.trend.map_or(0.0, |t| t.slope_k_per_day)),
+                    Source::EndOfRun => Some(f64::MAX),
+                    Source::Cusum => Some(0.0),
+                    _ => continue,
+                };
+                self.update_one(i, v, now_ms, &mut out);
+            }
+            return Ok((
+                format!("new run from now ({reason}): baseline is being learned again"),
+                out,
+            ));
+        }
+        let id = alarm.ok_or(CommandError::NeedsAlarm(action.as_str()))?;
+        let Some(i) = self
+            .watched
+            .iter()
+            .position(|w| w.alarm.config().id.eq_ignore_ascii_case(id))
+        else {
+            let known: Vec<&str> = self
+                .watched
+                .iter()
+                .map(|w| w.alarm.config().id.as_str())
+                .collect();
+            return Err(CommandError::UnknownAlarm(id.into(), known.join(", ")));
+        };
+        let a = &mut self.watched[i].alarm;
+        let ev = match action {
+            Action::Acknowledge => a.acknowledge(by, now_ms)?,
+            Action::Shelve {
+                duration_ms,
+                reason,
+            } => a.shelve(by, reason, *duration_ms, now_ms)?,
+            Action::Unshelve => a.unshelve(by, now_ms)?,
+            Action::OutOfService { reason } => a.remove_from_service(by, reason, now_ms)?,
+            Action::ReturnToService => a.return_to_service(by, now_ms)?,
+            Action::ResetLatch => a.reset_latch(by, now_ms)?,
+            Action::Rebaseline { .. } => Vec::new(),
+        };
+        let id = a.config().id.clone();
+        let state = a.state().as_str();
+        let mode = a.mode().as_str();
+        self.push_events(i, ev, &mut out);
+        Ok((
+            format!("{} {id}: now {state}, {mode}", action.as_str()),
+            out,
+        ))
+    }
+}
+
+/// Plant-wide self-monitoring: operator alarm activations in the last 10 minutes and
+/// floods (more than 10 in 10 minutes), itself an alert.
+#[derive(Debug, Clone)]
+pub struct PlantWatch {
+    activations: VecDeque<i64>,
+    pub flood: Alarm,
+    pub floods: u64,
+}
+
+const TEN_MIN_MS: i64 = 600_000;
+
+impl Default for PlantWatch {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+impl PlantWatch {
+    pub fn new() -> Self {
+        let flood = Alarm::new(alert_config("flood", 10.5, Direction::High, 3.0))
+            .unwrap_or_else(|_| unreachable!("fixed flood configuration is valid"));
+        Self {
+            activations: VecDeque::new(),
+            flood,
+            floods: 0,
+        }
+    }
+
+    /// Operator alarm activations in the last 10 minutes at `now_ms`.
+    pub fn rate(&self) -> usize {
+        self.activations.len()
+    }
+
+    /// Counts the alarm activations among `events` and updates the flood alert.
+    pub fn observe(&mut self, events: &[WatchEvent], now_ms: i64) -> Vec<Event> {
+        for e in events {
+            if e.class == Class::Alarm
+                && matches!(e.event.kind, EventKind::Raised | EventKind::Realarmed)
+            {
+                self.activations.push_back(e.event.at_ms);
+            }
+        }
+        self.tick(now_ms)
+    }
+
+    pub fn tick(&mut self, now_ms: i64) -> Vec<Event> {
+        while self
+            .activations
+            .front()
+            .is_some_and(|&t| now_ms - t >= TEN_MIN_MS)
+        {
+            self.activations.pop_front();
+        }
+        let ev = self
+            .flood
+            .update(Some(self.activations.len() as f64), now_ms);
+        self.floods += ev.iter().filter(|e| e.kind == EventKind::Raised).count() as u64;
+        ev
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::approach::{Approach, Direction as Dir, Flags};
+    use crate::monitor::Reason;
+
+    const H: i64 = 3_600_000;
+    const D: i64 = 86_400_000;
+
+    fn eval(
+        t: i64,
+        approach: Option<f64>,
+        quality: Quality,
+        code: Option<&'static str>,
+    ) -> Evaluation {
+        let a = Approach {
+            ln_k: 0.0,
+            delta_g_j_per_mol: 0.0,
+            delta_h_j_per_mol: 0.0,
+            delta_s_j_per_mol_k: 0.0,
+            ln_q: 0.0,
+            q_over_k: 1.0,
+            affinity_j_per_mol: 0.0,
+            direction: Dir::AtEquilibrium,
+            endothermic: false,
+            equilibrium_temperature_k: None,
+            approach_k: approach,
+            approach_uncertainty_k: None,
+            ln_q_uncertainty: 0.0,
+            flags: Flags::default(),
+        };
+        Evaluation {
+            analysis_ts_ms: t,
+            sample_ts_ms: t,
+            quality,
+            reasons: code
+                .map(|c| Reason {
+                    code: c,
+                    severity: quality,
+                    message: String::new(),
+                })
+                .into_iter()
+                .collect(),
+            temperature_k: None,
+            temperature_spread_k: None,
+            pressure_bar: None,
+            steam_ratio: None,
+            inputs: Vec::new(),
+            mole_fractions: Vec::new(),
+            fugacity_coefficients: Vec::new(),
+            compressibility_factor: None,
+            reactions: vec![a],
+            equilibrium_mole_fractions: Vec::new(),
+            key_measured: Some(5e-6),
+            key_equilibrium: None,
+        }
+    }
+
+    fn alarm_spec(id: &str, limit: f64, on_samples: u32) -> AlarmSpec {
+        AlarmSpec {
+            config: AlarmConfig {
+                id: id.into(),
+                limit,
+                direction: Direction::High,
+                deadband: 1.0,
+                on_delay_ms: 0,
+                off_delay_ms: 0,
+                on_delay_samples: on_samples,
+                off_delay_samples: 0,
+                realarm_ms: None,
+                latched: false,
+                priority: Priority::High,
+                max_shelve_ms: 8 * H,
+            },
+            figure: Figure::Approach,
+            scale: 1.0,
+            unit: "K",
+            rationale: "invented for the test".into(),
+        }
+    }
+
+    fn kinds(ev: &[WatchEvent], w: &ReactorWatch) -> Vec<(String, EventKind)> {
+        ev.iter()
+            .map(|e| {
+                (
+                    w.watched[e.index].alarm.config().id.clone(),
+                    e.event.kind.clone(),
+                )
+            })
+            .collect()
+    }
+
+    #[test]
+    fn daily_aggregates_give_the_domain_trend_and_end_of_run() {
+        // DOMAIN §7 [derived]: aggregates on days 0, 30, ..., 180 with approach 5.0 ... 8.4
+        // → slope 0.018929 K/day, intercept 5.010714, 20 K at day 791.89. Here each
+        // aggregate is 12 hourly samples of that value in a 1-day period whose middle
+        // falls on the DOMAIN day + 0.5; the date shifts by half a day accordingly.
+        let s = WatchSettings {
+            drift: DriftSettings {
+                baseline: BaselineSpec::Given {
+                    approach_k: 5.0,
+                    sigma_k: 0.3,
+                },
+                end_of_run_limit_k: Some(20.0),
+                min_aggregates: 5,
+                ..DriftSettings::default()
+            },
+            ..WatchSettings::default()
+        };
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let days = [0, 30, 60, 90, 120, 150, 180, 210];
+        let vals = [5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4, 8.4];
+        let mut last = None;
+        for (d, v) in days.iter().zip(vals) {
+            for h in 0..12 {
+                let t = d * D + h * H;
+                let (fig, _) = w.observe(&s, &eval(t, Some(v), Quality::Good, None), t);
+                last = Some(fig);
+            }
+        }
+        // The day-210 bucket is still open: the fit holds the seven DOMAIN points.
+        let fig = last.unwrap();
+        let tr = fig.trend.unwrap();
+        assert_eq!(tr.points, 7);
+        assert!((tr.slope_k_per_day - 0.018_929).abs() < 5e-7, "{tr:?}");
+        assert!((tr.intercept_k - (5.010_714 - 0.018_929 * 0.5)).abs() < 1e-4);
+        match fig.forecast {
+            Forecast::At {
+                at_ms,
+                earliest_ms,
+                latest_ms,
+            } => {
+                let day = at_ms as f64 / D as f64;
+                assert!((day - 792.39).abs() < 0.02, "{day}");
+                assert!(earliest_ms < at_ms && latest_ms.is_none_or(|l| l > at_ms));
+            }
+            f => panic!("{f:?}"),
+        }
+        assert_eq!(fig.baseline.unwrap().approach_k, 5.0);
+    }
+
+    #[test]
+    fn baseline_is_learned_and_bad_or_transient_samples_stay_out() {
+        // Invented samples: 30 at 8.0 ± 0.1 over the 7-day window, then a bad and a
+        // transient sample far off, then in-control samples.
+        let s = WatchSettings {
+            drift: DriftSettings {
+                baseline: BaselineSpec::Learn {
+                    window_ms: 7 * D,
+                    min_samples: 20,
+                },
+                ..DriftSettings::default()
+            },
+            ..WatchSettings::default()
+        };
+        let mut w = ReactorWatch::new(&s).unwrap();
+        for i in 0..30 {
+            let t = i * 6 * H;
+            let v = if i % 2 == 0 { 7.9 } else { 8.1 };
+            let (fig, _) = w.observe(&s, &eval(t, Some(v), Quality::Good, None), t);
+            assert!(fig.learning || t >= 7 * D);
+        }
+        let t = 31 * 6 * H;
+        let (fig, _) = w.observe(&s, &eval(t, Some(8.0), Quality::Good, None), t);
+        let b = fig.baseline.unwrap();
+        // 28 samples in the window (days 0–6.75): mean 8.0; σ ≈ 0.1 but floored at 0.2.
+        assert!((b.approach_k - 8.0).abs() < 1e-9, "{b:?}");
+        assert_eq!(b.sigma_k, 0.2);
+        let (fig, _) = w.observe(
+            &s,
+            &eval(t + H, Some(40.0), Quality::Bad, Some("stale_analysis")),
+            t + H,
+        );
+        assert_eq!(fig.excluded, Some("bad_quality"));
+        let (fig, _) = w.observe(
+            &s,
+            &eval(t + 2 * H, Some(40.0), Quality::Uncertain, Some("transient")),
+            t + 2 * H,
+        );
+        assert_eq!(fig.excluded, Some("transient"));
+        assert_eq!(fig.cusum_k, Some(0.0));
+        assert_eq!(w.excluded(), 2);
+        // A sustained rise of 2σ + k signals the CUSUM after h/(x − μ0 − k) samples:
+        // (8.6 − 8.0 − 0.1) = 0.5 per sample, h = 1.0 → signal at the third [Page 1954].
+        let mut signals = Vec::new();
+        for i in 0..4 {
+            let t = t + (3 + i) * H;
+            let (fig, _) = w.observe(&s, &eval(t, Some(8.6), Quality::Good, None), t);
+            signals.push(fig.cusum_signal);
+        }
+        assert_eq!(signals, [false, false, true, true]);
+    }
+
+    #[test]
+    fn operator_alarm_suppressed_while_analysis_bad_and_commands() {
+        let s = WatchSettings {
+            alarms: vec![alarm_spec("approach-high", 20.0, 2)],
+            ..WatchSettings::default()
+        };
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let t0 = 1_000 * D;
+        let (_, ev) = w.observe(&s, &eval(t0, Some(25.0), Quality::Good, None), t0);
+        assert!(ev.is_empty(), "on-delay of 2 samples");
+        let (_, ev) = w.observe(
+            &s,
+            &eval(t0 + 300_000, Some(25.0), Quality::Good, None),
+            t0 + 300_000,
+        );
+        assert_eq!(
+            kinds(&ev, &w),
+            [("approach-high".to_string(), EventKind::Raised)]
+        );
+        // Bad analysis: suppressed by design, state still visible.
+        let (_, ev) = w.observe(
+            &s,
+            &eval(t0 + 600_000, None, Quality::Bad, Some("source_bad")),
+            t0 + 600_000,
+        );
+        assert!(
+            matches!(ev[0].event.kind, EventKind::Suppressed { .. }),
+            "{ev:?}"
+        );
+        assert!(!w.watched[0].alarm.annunciating());
+        // Acknowledge is refused while suppressed.
+        let r = w.command(
+            &s,
+            &Action::Acknowledge,
+            Some("approach-high"),
+            "op1",
+            t0 + 700_000,
+        );
+        assert!(matches!(
+            r,
+            Err(CommandError::Refused(AlarmError::NotActive(_)))
+        ));
+        let (_, ev) = w.observe(
+            &s,
+            &eval(t0 + 900_000, Some(25.0), Quality::Good, None),
+            t0 + 900_000,
+        );
+        let k = kinds(&ev, &w);
+        assert!(
+            k.contains(&("approach-high".into(), EventKind::Unsuppressed)),
+            "{k:?}"
+        );
+        assert!(
+            k.contains(&("approach-high".into(), EventKind::Raised)),
+            "{k:?}"
+        );
+        let (msg, ev) = w
+            .command(
+                &s,
+                &Action::Acknowledge,
+                Some("APPROACH-HIGH"),
+                "op1",
+                t0 + 960_000,
+            )
+            .unwrap();
+        assert!(msg.contains("acknowledged"), "{msg}");
+        assert_eq!(ev.len(), 1);
+        // Shelve for 1 h: auto-unshelve at the first tick after expiry.
+        let shelve = Action::Shelve {
+            duration_ms: H,
+            reason: "analyser maintenance".into(),
+        };
+        w.command(&s, &shelve, Some("approach-high"), "op1", t0 + D / 24)
+            .unwrap();
+        assert!(w.tick(t0 + D / 24 + H - 1).is_empty());
+        let ev = w.tick(t0 + D / 24 + H);
+        assert!(
+            matches!(ev[0].event.kind, EventKind::Unshelved { auto: true, .. }),
+            "{ev:?}"
+        );
+        // Unknown alarm and a missing id are refused with what is known.
+        let e = w
+            .command(&s, &Action::Acknowledge, Some("nope"), "op1", t0 + 2 * D)
+            .unwrap_err();
+        assert!(e.to_string().contains("approach-high"), "{e}");
+        assert!(
+            w.command(&s, &Action::Unshelve, None, "op1", t0 + 2 * D)
+                .is_err()
+        );
+    }
+
+    #[test]
+    fn chattering_stale_and_flood_alerts() {
+        // Common practice (DOMAIN §6): chattering = 3 activations in a minute; stale = 24 h;
+        // flood = more than 10 alarm activations in 10 minutes.
+        let s = WatchSettings {
+            alarms: vec![alarm_spec("approach-high", 20.0, 0)],
+            ..WatchSettings::default()
+        };
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let mut plant = PlantWatch::new();
+        let t0 = 1_000 * D;
+        let mut all = Vec::new();
+        for i in 0..6 {
+            let t = t0 + i * 10_000;
+            let v = if i % 2 == 0 { 25.0 } else { 10.0 };
+            let (_, ev) = w.observe(&s, &eval(t, Some(v), Quality::Good, None), t);
+            plant.observe(&ev, t);
+            all.extend(kinds(&ev, &w));
+        }
+        assert!(
+            all.contains(&("chattering:approach-high".into(), EventKind::Raised)),
+            "{all:?}"
+        );
+        assert_eq!(plant.rate(), 3);
+        let ev = w.tick(t0 + 10 * 60_000);
+        assert!(kinds(&ev, &w).contains(&("chattering:approach-high".into(), EventKind::Cleared)));
+        // Stays active (acknowledged) for a day: stale.
+        let (_, _) = w.observe(
+            &s,
+            &eval(t0 + 11 * 60_000, Some(25.0), Quality::Good, None),
+            t0 + 11 * 60_000,
+        );
+        w.command(
+            &s,
+            &Action::Acknowledge,
+            Some("approach-high"),
+            "op1",
+            t0 + 12 * 60_000,
+        )
+        .unwrap();
+        let ev = w.tick(t0 + 11 * 60_000 + 24 * H + 1);
+        assert!(
+            kinds(&ev, &w).contains(&("stale:approach-high".into(), EventKind::Raised)),
+            "{:?}",
+            kinds(&ev, &w)
+        );
+        // Eleven activations within ten minutes make a flood.
+        let fake = |i: i64| WatchEvent {
+            class: Class::Alarm,
+            index: 0,
+            event: Event {
+                id: format!("x#{i}"),
+                seq: i as u64,
+                at_ms: t0 + D * 3 + i * 30_000,
+                kind: EventKind::Raised,
+            },
+        };
+        let mut raised = 0;
+        for i in 0..11 {
+            let e = fake(i);
+            let at = e.event.at_ms;
+            raised += plant
+                .observe(&[e], at)
+                .iter()
+                .filter(|e| e.kind == EventKind::Raised)
+                .count();
+        }
+        assert_eq!(raised, 1);
+        assert_eq!(plant.floods, 1);
+    }
+
+    #[test]
+    fn offline_unit_suppresses_and_rebaseline_restarts_the_run() {
+        let s = WatchSettings {
+            drift: DriftSettings {
+                baseline: BaselineSpec::Given {
+                    approach_k: 8.0,
+                    sigma_k: 0.5,
+                },
+                end_of_run_limit_k: Some(20.0),
+                ..DriftSettings::default()
+            },
+            alerts: AlertSettings {
+                trend_above_k_per_day: Some(0.05),
+                end_of_run_within_days: Some(90.0),
+                cusum: true,
+                data_quality_after_ms: Some(30 * MINUTE_MS),
+                self_monitoring: false,
+            },
+            alarms: vec![alarm_spec("approach-high", 20.0, 0)],
+            offline_below_bar: Some(5.0),
+        };
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let t0 = 500 * D;
+        // 40 days rising 0.2 K/d, hourly samples: trend, CUSUM and end-of-run alerts.
+        let mut ids = Vec::new();
+        for h in 0..(40 * 24) {
+            let t = t0 + h * H;
+            let v = 8.0 + 0.2 * h as f64 / 24.0;
+            let (_, ev) = w.observe(&s, &eval(t, Some(v), Quality::Good, None), t);
+            ids.extend(
+                kinds(&ev, &w)
+                    .into_iter()
+                    .filter(|k| k.1 == EventKind::Raised)
+                    .map(|k| k.0),
+            );
+        }
+        assert!(ids.contains(&"trend".to_string()), "{ids:?}");
+        assert!(ids.contains(&"cusum".to_string()), "{ids:?}");
+        assert!(ids.contains(&"end-of-run".to_string()), "{ids:?}");
+        // No good result for 31 min: data-quality alert.
+        let t1 = t0 + 40 * D;
+        let ev = w.tick(t1 + 31 * MINUTE_MS);
+        assert!(kinds(&ev, &w).contains(&("data-quality".into(), EventKind::Raised)));
+        // Unit off line: everything suppressed by design; samples excluded.
+        let ev = w.pressure(&s, 1.2, t1 + 32 * MINUTE_MS);
+        assert!(
+            ev.iter()
+                .all(|e| matches!(e.event.kind, EventKind::Suppressed { .. }))
+                && !ev.is_empty()
+        );
+        let (fig, _) = w.observe(&s, &eval(t1 + H, Some(30.0), Quality::Good, None), t1 + H);
+        assert_eq!(fig.excluded, Some("unit_offline"));
+        w.pressure(&s, 30.0, t1 + 2 * H);
+        // Re-baseline: drift alerts clear, learning starts afresh.
+        let (msg, ev) = w
+            .command(
+                &s,
+                &Action::Rebaseline {
+                    reason: "catalyst replaced".into(),
+                },
+                None,
+                "eng1",
+                t1 + 3 * H,
+            )
+            .unwrap();
+        assert!(msg.contains("catalyst replaced"));
+        let cleared: Vec<String> = kinds(&ev, &w)
+            .into_iter()
+            .filter(|k| k.1 == EventKind::Cleared)
+            .map(|k| k.0)
+            .collect();
+        assert!(
+            cleared.contains(&"trend".to_string()) && cleared.contains(&"end-of-run".to_string()),
+            "{cleared:?}"
+        );
+        let f = w.figures(&s.drift);
+        assert!(f.trend.is_none() && matches!(f.forecast, Forecast::NoTrend));
+    }
+}
