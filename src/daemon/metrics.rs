@@ -17,6 +17,14 @@ pub struct ReactorMetrics {
     pub duplicates: AtomicU64,
     pub out_of_order: AtomicU64,
     pub too_old: AtomicU64,
+    /// Evaluations left out of the drift statistics (bad, transient, off line).
+    pub drift_excluded: AtomicU64,
+    /// Trend of the approach, K/day, f64 bits (NaN when none).
+    pub trend_k_per_day: AtomicU64,
+    /// Days to the end-of-run forecast, f64 bits (NaN when none).
+    pub end_of_run_days: AtomicU64,
+    pub alarm_activations: AtomicU64,
+    pub alerts_raised: AtomicU64,
 }
 
 #[derive(Debug, Default)]
@@ -35,6 +43,13 @@ pub struct Metrics {
     pub journal_dropped: AtomicU64,
     pub journal_dropped_unpublished: AtomicU64,
     pub journal_errors: AtomicU64,
+    /// Operator alarm activations in the last 10 minutes (all reactors).
+    pub alarms_last_10min: AtomicU64,
+    pub floods: AtomicU64,
+    pub chattering: AtomicU64,
+    pub stale: AtomicU64,
+    /// Commands by outcome: accepted, refused, not-allowed, invalid.
+    pub commands: [AtomicU64; 4],
     pub reactors: Vec<ReactorMetrics>,
 }
 
@@ -46,6 +61,8 @@ impl Metrics {
                 .map(|id| ReactorMetrics {
                     id: id.clone(),
                     approach_k: AtomicU64::new(f64::NAN.to_bits()),
+                    trend_k_per_day: AtomicU64::new(f64::NAN.to_bits()),
+                    end_of_run_days: AtomicU64::new(f64::NAN.to_bits()),
                     ..Default::default()
                 })
                 .collect(),
@@ -108,6 +125,21 @@ impl Metrics {
             "Journal write or read errors.",
             self.journal_errors.load(Relaxed),
         );
+        counter(
+            "alarm_floods_total",
+            "Alarm floods: more than 10 operator alarms in 10 minutes (EEMUA 191 figure).",
+            self.floods.load(Relaxed),
+        );
+        counter(
+            "alarm_chattering_total",
+            "Chattering alerts: an alarm activated 3 or more times in a minute.",
+            self.chattering.load(Relaxed),
+        );
+        counter(
+            "alarm_stale_total",
+            "Stale alerts: an alarm active for more than 24 h.",
+            self.stale.load(Relaxed),
+        );
         let _ = writeln!(
             s,
             "# HELP eqwatch_decode_failures_total Input messages that could not be decoded, by reason.\n# TYPE eqwatch_decode_failures_total counter"
@@ -153,6 +185,61 @@ impl Metrics {
         }
         let _ = writeln!(
             s,
+            "# HELP eqwatch_commands_total Operator commands by outcome.\n# TYPE eqwatch_commands_total counter"
+        );
+        for (i, o) in ["accepted", "refused", "not-allowed", "invalid"]
+            .iter()
+            .enumerate()
+        {
+            let _ = writeln!(
+                s,
+                "eqwatch_commands_total{{outcome=\"{o}\"}} {}",
+                self.commands[i].load(Relaxed)
+            );
+        }
+        for (name, help, kind, get) in [
+            (
+                "alarm_activations_total",
+                "Operator alarm activations (raised or re-alarmed) by reactor.",
+                "counter",
+                (|r: &ReactorMetrics| r.alarm_activations.load(Relaxed).to_string())
+                    as fn(&ReactorMetrics) -> String,
+            ),
+            (
+                "alerts_raised_total",
+                "Engineering alerts raised by reactor.",
+                "counter",
+                |r: &ReactorMetrics| r.alerts_raised.load(Relaxed).to_string(),
+            ),
+            (
+                "drift_excluded_total",
+                "Evaluations left out of the drift statistics (bad, transient, unit off line).",
+                "counter",
+                |r: &ReactorMetrics| r.drift_excluded.load(Relaxed).to_string(),
+            ),
+            (
+                "trend_kelvin_per_day",
+                "Trend of the approach on steady-state aggregates.",
+                "gauge",
+                |r: &ReactorMetrics| float(r.trend_k_per_day.load(Relaxed)),
+            ),
+            (
+                "end_of_run_days",
+                "Days until the approach reaches its end-of-run limit at the current trend.",
+                "gauge",
+                |r: &ReactorMetrics| float(r.end_of_run_days.load(Relaxed)),
+            ),
+        ] {
+            let _ = writeln!(
+                s,
+                "# HELP eqwatch_{name} {help}\n# TYPE eqwatch_{name} {kind}"
+            );
+            for r in &self.reactors {
+                let _ = writeln!(s, "eqwatch_{name}{{reactor=\"{}\"}} {}", r.id, get(r));
+            }
+        }
+        let _ = writeln!(
+            s,
             "# HELP eqwatch_approach_kelvin Latest temperature approach of the reactor's first reaction.\n# TYPE eqwatch_approach_kelvin gauge"
         );
         for r in &self.reactors {
@@ -170,6 +257,11 @@ impl Metrics {
                 "# HELP eqwatch_{name} {help}\n# TYPE eqwatch_{name} gauge\neqwatch_{name} {v}"
             );
         };
+        gauge(
+            "alarms_last_10_minutes",
+            "Operator alarm activations in the last 10 minutes, all reactors (about 1 is acceptable, above 10 a flood).",
+            self.alarms_last_10min.load(Relaxed),
+        );
         gauge(
             "broker_connected",
             "1 while connected to the broker.",
@@ -191,6 +283,15 @@ impl Metrics {
             self.journal_bytes.load(Relaxed),
         );
         s
+    }
+}
+
+fn float(bits: u64) -> String {
+    let v = f64::from_bits(bits);
+    if v.is_finite() {
+        v.to_string()
+    } else {
+        "NaN".into()
     }
 }
 

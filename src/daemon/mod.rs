@@ -15,6 +15,7 @@
 #[cfg(feature = "demo-broker")]
 pub mod broker;
 pub mod demo;
+pub mod engine;
 pub mod http;
 pub mod journal;
 pub mod metrics;
@@ -22,18 +23,17 @@ pub mod mqtt;
 pub mod outbox;
 pub mod payload;
 pub mod proxy;
+pub mod watch_payload;
 
-use std::collections::HashMap;
 use std::sync::Arc;
 use std::sync::atomic::Ordering::Relaxed;
 use std::time::{Duration, SystemTime, UNIX_EPOCH};
 
 use tokio::sync::mpsc;
 use tokio_util::sync::CancellationToken;
-use tracing::{debug, error, info, warn};
+use tracing::{error, info, warn};
 
-use crate::config::{CompositionSource, Settings, SteamRatioSettings};
-use crate::monitor::{Input, Outcome, Quality, ReactorMonitor};
+use crate::config::Settings;
 use journal::Journal;
 use metrics::Metrics;
 use outbox::Outgoing;
@@ -117,211 +117,47 @@ pub enum DaemonError {
     Link(#[from] mqtt::LinkError),
 }
 
-/// What an input topic feeds.
-#[derive(Debug, Clone, Copy)]
-enum Route {
-    Temperature(usize, usize),
-    Pressure(usize),
-    SteamRatio(usize),
-    Analysis(usize),
-    Component(usize, usize),
-}
-
-fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
-    let mut m: HashMap<String, Vec<Route>> = HashMap::new();
-    for (r, rs) in s.reactors.iter().enumerate() {
-        for (i, t) in rs.temperatures.iter().enumerate() {
-            m.entry(t.topic.clone())
-                .or_default()
-                .push(Route::Temperature(r, i));
-        }
-        m.entry(rs.pressure.topic.clone())
-            .or_default()
-            .push(Route::Pressure(r));
-        if let Some(SteamRatioSettings::Measured(ss)) = &rs.steam_ratio {
-            m.entry(ss.topic.clone())
-                .or_default()
-                .push(Route::SteamRatio(r));
-        }
-        match &rs.composition.source {
-            CompositionSource::Analyser { topic, .. } => {
-                m.entry(topic.clone()).or_default().push(Route::Analysis(r))
-            }
-            CompositionSource::PerComponent { topics, .. } => {
-                for (species, topic) in topics {
-                    if let Some(c) = rs
-                        .composition
-                        .components
-                        .iter()
-                        .position(|x| x.eq_ignore_ascii_case(species))
-                    {
-                        m.entry(topic.clone())
-                            .or_default()
-                            .push(Route::Component(r, c));
-                    }
-                }
-            }
-        }
-    }
-    m
-}
-
-/// Decodes, evaluates and journals until the input channel closes.
+/// Decodes, evaluates and journals until the input channel closes; ticks the watch
+/// timers (shelf expiry, data quality, chattering, stale, flood) once a second.
 async fn evaluate_loop(
-    settings: Arc<Settings>,
+    mut engine: engine::Engine,
     mut rx: mpsc::Receiver<RawInput>,
     journal: mpsc::Sender<JournalCmd>,
-    metrics: Arc<Metrics>,
     clock: Clock,
 ) {
-    {
-        let table = routes(&settings);
-        let mut monitors: Vec<ReactorMonitor> =
-            settings.reactors.iter().map(ReactorMonitor::new).collect();
-        let mut batch: Vec<Append> = Vec::new();
-        while let Some(first) = rx.recv().await {
-            // Take what is already queued (up to a bound) and journal it in one hand-over:
-            // fewer thread wake-ups under load, no waiting when idle.
-            let mut next = Some(first);
-            let mut taken = 0;
-            while let Some(raw) = next.take() {
-                taken += 1;
-                if taken < EVALUATOR_BATCH {
-                    next = rx.try_recv().ok();
-                }
-                let Some(rts) = table.get(&raw.topic) else {
-                    metrics.unrouted.fetch_add(1, Relaxed);
-                    continue;
-                };
-                for route in rts {
-                    let (r, decoded) = decode(&settings, *route, &raw);
-                    let rs = &settings.reactors[r];
-                    let rm = &metrics.reactors[r];
-                    let input = match decoded {
-                        Ok(i) => i,
-                        Err(e) => {
-                            metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
-                            warn!(reactor = %rs.id, topic = %raw.topic, reason = e.reason(), error = %e, "input rejected");
-                            continue;
-                        }
-                    };
-                    match monitors[r].accept(rs, &settings.species, input, raw.arrival_ms) {
-                        Outcome::Stored => {}
-                        Outcome::Duplicate => {
-                            rm.duplicates.fetch_add(1, Relaxed);
-                            debug!(reactor = %rs.id, topic = %raw.topic, "duplicate analysis ignored");
-                        }
-                        Outcome::OutOfOrder { last_ts_ms } => {
-                            rm.out_of_order.fetch_add(1, Relaxed);
-                            warn!(reactor = %rs.id, topic = %raw.topic, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
-                        }
-                        Outcome::TooOld => {
-                            rm.too_old.fetch_add(1, Relaxed);
-                        }
-                        Outcome::Evaluated(e) => {
-                            let q = match e.quality {
-                                Quality::Good => 0,
-                                Quality::Uncertain => 1,
-                                Quality::Bad => 2,
-                            };
-                            rm.evaluations[q].fetch_add(1, Relaxed);
-                            let approach = if e.quality == Quality::Bad {
-                                None
-                            } else {
-                                e.reactions.first().and_then(|a| a.approach_k)
-                            };
-                            rm.approach_k
-                                .store(approach.unwrap_or(f64::NAN).to_bits(), Relaxed);
-                            if e.quality != Quality::Good {
-                                let codes: Vec<&str> = e
-                                    .reasons
-                                    .iter()
-                                    .filter(|x| x.severity != Quality::Good)
-                                    .map(|x| x.code)
-                                    .collect();
-                                warn!(reactor = %rs.id, quality = e.quality.as_str(), reasons = ?codes, "evaluation not good");
-                            } else {
-                                debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
-                            }
-                            let payload =
-                                payload::encode_result(rs, &settings.species, &e, clock());
-                            let topic = format!("{}/{}/result", settings.topic_prefix, rs.id);
-                            batch.push(Append {
-                                topic,
-                                retain: true,
-                                payload,
-                            });
-                        }
+    let mut batch: Vec<Append> = Vec::new();
+    engine.states(clock(), &mut batch);
+    let mut tick = tokio::time::interval(Duration::from_secs(1));
+    tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+    loop {
+        tokio::select! {
+            first = rx.recv() => {
+                let Some(first) = first else { break };
+                // Take what is already queued (up to a bound) and journal it in one
+                // hand-over: fewer thread wake-ups under load, no waiting when idle.
+                let mut next = Some(first);
+                let mut taken = 0;
+                let now = clock();
+                while let Some(raw) = next.take() {
+                    taken += 1;
+                    if taken < EVALUATOR_BATCH {
+                        next = rx.try_recv().ok();
                     }
+                    engine.message(&raw, now, &mut batch);
                 }
             }
-            if !batch.is_empty()
-                && journal
-                    .send(JournalCmd::Append(std::mem::take(&mut batch)))
-                    .await
-                    .is_err()
-            {
-                error!("journal thread is gone; results cannot be kept");
-            }
+            _ = tick.tick() => engine.tick(clock(), &mut batch),
         }
-        let _ = journal.send(JournalCmd::Drained).await;
-    }
-}
-
-fn decode(
-    s: &Settings,
-    route: Route,
-    raw: &RawInput,
-) -> (usize, Result<Input, payload::DecodeError>) {
-    let atm = s.atmosphere_bar;
-    match route {
-        Route::Temperature(r, i) => {
-            let t = &s.reactors[r].temperatures[i];
-            (
-                r,
-                payload::decode_scalar(&raw.payload, &t.decoder, &t.unit, atm, raw.arrival_ms)
-                    .map(|v| Input::Temperature(i, v)),
-            )
-        }
-        Route::Pressure(r) => {
-            let p = &s.reactors[r].pressure;
-            (
-                r,
-                payload::decode_scalar(&raw.payload, &p.decoder, &p.unit, atm, raw.arrival_ms)
-                    .map(Input::Pressure),
-            )
-        }
-        Route::SteamRatio(r) => match &s.reactors[r].steam_ratio {
-            Some(SteamRatioSettings::Measured(ss)) => (
-                r,
-                payload::decode_scalar(&raw.payload, &ss.decoder, &ss.unit, atm, raw.arrival_ms)
-                    .map(Input::SteamRatio),
-            ),
-            _ => (
-                r,
-                Err(payload::DecodeError::Missing("(steam ratio)".into())),
-            ),
-        },
-        Route::Analysis(r) => (
-            r,
-            payload::decode_analysis(&raw.payload, &s.reactors[r].composition, raw.arrival_ms)
-                .map(Input::Analysis),
-        ),
-        Route::Component(r, c) => {
-            let comp = &s.reactors[r].composition;
-            let CompositionSource::PerComponent { decoder, .. } = &comp.source else {
-                return (
-                    r,
-                    Err(payload::DecodeError::Missing("(component source)".into())),
-                );
-            };
-            (
-                r,
-                payload::decode_component(&raw.payload, decoder, comp.unit, raw.arrival_ms)
-                    .map(|v| Input::Component(c, v)),
-            )
+        if !batch.is_empty()
+            && journal
+                .send(JournalCmd::Append(std::mem::take(&mut batch)))
+                .await
+                .is_err()
+        {
+            error!("journal thread is gone; results cannot be kept");
         }
     }
+    let _ = journal.send(JournalCmd::Drained).await;
 }
 
 /// The journal thread: appends, reads back, and keeps the published cursor.
@@ -457,8 +293,9 @@ pub async fn run(
         &status_topic,
         &status("offline", "connection lost"),
     )?;
-    let mut topics: Vec<String> = routes(&settings).into_keys().collect();
-    topics.sort();
+    let engine =
+        engine::Engine::new(settings.clone(), metrics.clone()).map_err(DaemonError::Journal)?;
+    let topics = engine.subscriptions();
     let cap = usize::from(settings.broker.inflight) + topics.len() + 64;
     let (client, mut eventloop) = rumqttc::AsyncClient::new(opts, cap);
     // Results are small and latency matters: no Nagle delay on our connection.
@@ -480,13 +317,7 @@ pub async fn run(
         .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock))
         .map_err(|e| DaemonError::Journal(e.to_string()))?;
     let (in_tx, in_rx) = mpsc::channel::<RawInput>(4096);
-    let evaluator = tokio::spawn(evaluate_loop(
-        settings.clone(),
-        in_rx,
-        jtx.clone(),
-        metrics.clone(),
-        clock.clone(),
-    ));
+    let evaluator = tokio::spawn(evaluate_loop(engine, in_rx, jtx.clone(), clock.clone()));
     metrics.ready.store(true, Relaxed);
     let link = mqtt::Link {
         broker: settings.broker.clone(),

@@ -370,11 +370,11 @@ impl Serialize for BySpecies<'_> {
 }
 
 /// Non-finite numbers go out as `null` (JSON has no NaN), never as a made-up value.
-fn finite(x: f64) -> Option<f64> {
+pub(crate) fn finite(x: f64) -> Option<f64> {
     x.is_finite().then_some(x)
 }
 
-fn finite_opt(x: Option<f64>) -> Option<f64> {
+pub(crate) fn finite_opt(x: Option<f64>) -> Option<f64> {
     x.and_then(finite)
 }
 
@@ -446,6 +446,8 @@ struct ResultOut<'a> {
     equilibrium_mole_fractions: BySpecies<'a>,
     fugacity_coefficients: BySpecies<'a>,
     compressibility_factor: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    drift: Option<super::watch_payload::DriftOut>,
 }
 
 /// The result JSON for one evaluation (published retained on `<prefix>/<reactor>/result`).
@@ -454,6 +456,7 @@ pub fn encode_result(
     db: &SpeciesDb,
     e: &Evaluation,
     evaluated_at_ms: i64,
+    drift: Option<&crate::monitor::watch::DriftFigures>,
 ) -> String {
     let names = r.model.names();
     let reactions = r
@@ -531,6 +534,7 @@ pub fn encode_result(
         equilibrium_mole_fractions: BySpecies(names, &e.equilibrium_mole_fractions),
         fugacity_coefficients: BySpecies(names, &e.fugacity_coefficients),
         compressibility_factor: finite_opt(e.compressibility_factor),
+        drift: drift.map(super::watch_payload::DriftOut::from),
     };
     // Serialising plain data to a String cannot fail; an empty object would be a bug.
     serde_json::to_string(&out).unwrap_or_else(|_| "{}".to_string())

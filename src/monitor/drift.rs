@@ -239,7 +239,7 @@ impl Trend {
         let s = 1.4826 * median_sorted(work);
         let mean_x = points.iter().map(|p| p.0).sum::<f64>() / n as f64;
         let sxx: f64 = points.iter().map(|p| (p.0 - mean_x).powi(2)).sum();
-        if !(sxx > 0.0) {
+        if sxx.is_nan() || sxx <= 0.0 {
             return None;
         }
         Some(Self {

@@ -156,24 +156,13 @@ pub struct AlarmSpec {
     pub rationale: String,
 }
 
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Default)]
 pub struct WatchSettings {
     pub drift: DriftSettings,
     pub alerts: AlertSettings,
     pub alarms: Vec<AlarmSpec>,
     /// The unit counts as off line while its pressure is below this (bar absolute).
     pub offline_below_bar: Option<f64>,
-}
-
-impl Default for WatchSettings {
-    fn default() -> Self {
-        Self {
-            drift: DriftSettings::default(),
-            alerts: AlertSettings::default(),
-            alarms: Vec::new(),
-            offline_below_bar: None,
-        }
-    }
 }
 
 /// Alert or alarm.

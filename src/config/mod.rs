@@ -15,6 +15,10 @@ use std::ops::Range;
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
+mod watch;
+use crate::monitor::watch::WatchSettings;
+pub use watch::{CommandSettings, RawAlarm, RawAlerts, RawCommands, RawDrift};
+
 use serde::Deserialize;
 use thiserror::Error;
 use toml::Spanned;
@@ -47,6 +51,8 @@ pub struct Settings {
     /// Built-in species plus the configured species files.
     pub species: SpeciesDb,
     pub reactors: Vec<ReactorSettings>,
+    /// Who may send operator commands.
+    pub commands: CommandSettings,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -189,6 +195,8 @@ pub struct ReactorSettings {
     pub uncertainty: Uncertainty,
     /// Temperature moving faster than this over the analyser lag flags a transient (K/min).
     pub transient_k_per_min: f64,
+    /// Drift statistics, alerts and operator alarms.
+    pub watch: WatchSettings,
 }
 
 // ---------------------------------------------------------------------------
@@ -410,6 +418,7 @@ pub struct RawConfig {
     /// Keyed by reactor id; the spans give the file order.
     #[serde(default)]
     pub reactors: BTreeMap<Spanned<String>, RawReactor>,
+    pub commands: Option<RawCommands>,
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -464,6 +473,12 @@ pub struct RawReactor {
     pub temperature: Vec<RawScalar>,
     pub pressure: RawScalar,
     pub steam_ratio: Option<RawSteamRatio>,
+    /// Pressure below which the unit counts as off line, e.g. `"5 barg"`.
+    pub offline_below: Option<String>,
+    pub drift: Option<RawDrift>,
+    pub alerts: Option<RawAlerts>,
+    #[serde(default)]
+    pub alarm: Vec<RawAlarm>,
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -761,14 +776,23 @@ fn validate(raw: &RawConfig, base: &Path, env: EnvLookup) -> Result<Settings, Co
     }
     let mut reactors = Vec::with_capacity(ids.len());
     for (id, r) in ids {
-        if let Some(settings) = reactor(&mut p, &species, &topic_prefix, id.get_ref(), r) {
+        if let Some(settings) = reactor(
+            &mut p,
+            &species,
+            &topic_prefix,
+            id.get_ref(),
+            r,
+            atmosphere_bar,
+        ) {
             reactors.push(settings);
         }
     }
+    let commands = watch::commands(&mut p, raw.commands.as_ref());
     if !p.is_empty() {
         return Err(p.into_errors());
     }
     Ok(Settings {
+        commands,
         site: raw.site.clone(),
         topic_prefix,
         broker,
@@ -1960,6 +1984,7 @@ fn reactor(
     output_prefix: &str,
     id: &str,
     raw: &RawReactor,
+    atmosphere_bar: f64,
 ) -> Option<ReactorSettings> {
     let path = key_path("reactors", id);
     let start = p.len();
@@ -2213,6 +2238,15 @@ fn reactor(
         }
     }
 
+    let watch = watch::watch(
+        p,
+        &path,
+        raw.drift.as_ref(),
+        raw.alerts.as_ref(),
+        &raw.alarm,
+        raw.offline_below.as_deref(),
+        atmosphere_bar,
+    );
     if p.len() > start {
         return None;
     }
@@ -2235,6 +2269,7 @@ fn reactor(
         steam_ratio,
         uncertainty,
         transient_k_per_min,
+        watch,
     })
 }
 

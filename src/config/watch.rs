@@ -1,0 +1,560 @@
+//! The drift, alert, alarm and command sections of the configuration: raw tables as
+//! written and their validation into [`WatchSettings`] and [`CommandSettings`], every
+//! problem with its key path.
+
+use std::time::Duration;
+
+use serde::Deserialize;
+
+use super::{Problems, parse_duration, show_duration};
+use crate::monitor::alarm::{AlarmConfig, Direction, Priority};
+use crate::monitor::watch::{AlarmSpec, BaselineSpec, Figure, TrendMethod, WatchSettings};
+use crate::units::{CompositionUnit, PressureUnit, split_quantity};
+
+/// `[reactors.<id>.drift]`
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawDrift {
+    /// `"learn"` (default) or a given approach such as `"8 K"`.
+    pub baseline: Option<String>,
+    /// σ of a given baseline, e.g. `"0.5 K"`.
+    pub baseline_sigma: Option<String>,
+    pub baseline_window: Option<String>,
+    pub baseline_min_samples: Option<i64>,
+    pub sigma_floor: Option<String>,
+    pub ewma_lambda: Option<f64>,
+    pub ewma_l: Option<f64>,
+    pub cusum_k: Option<f64>,
+    pub cusum_h: Option<f64>,
+    /// `"least-squares"` (default) or `"theil-sen"`.
+    pub trend: Option<String>,
+    pub aggregate: Option<String>,
+    pub min_per_aggregate: Option<i64>,
+    pub trend_window: Option<String>,
+    pub min_aggregates: Option<i64>,
+    pub end_of_run_limit: Option<String>,
+}
+
+/// `[reactors.<id>.alerts]`
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawAlerts {
+    /// e.g. `"0.05 K/d"`.
+    pub trend_above: Option<String>,
+    /// e.g. `"90 d"`.
+    pub end_of_run_within: Option<String>,
+    pub cusum: Option<bool>,
+    pub data_quality_after: Option<String>,
+    pub self_monitoring: Option<bool>,
+}
+
+/// `[[reactors.<id>.alarm]]`: one rationalised operator alarm.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawAlarm {
+    pub id: String,
+    /// `"approach"` or `"key-measured"`.
+    pub on: String,
+    pub above: Option<String>,
+    pub below: Option<String>,
+    pub deadband: Option<String>,
+    pub on_delay: Option<String>,
+    pub off_delay: Option<String>,
+    pub realarm: Option<String>,
+    pub priority: Option<String>,
+    pub latched: Option<bool>,
+    pub max_shelve: Option<String>,
+    pub rationale: String,
+}
+
+/// `[commands]`
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawCommands {
+    #[serde(default)]
+    pub allowed_users: Vec<String>,
+    #[serde(default)]
+    pub allowed_clients: Vec<String>,
+}
+
+/// Who may send commands (the payload's `user` or `client_id` must be listed; the
+/// broker's ACL decides who may publish on the command topics at all).
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct CommandSettings {
+    pub allowed_users: Vec<String>,
+    pub allowed_clients: Vec<String>,
+}
+
+impl CommandSettings {
+    pub fn allows(&self, user: Option<&str>, client: Option<&str>) -> bool {
+        user.is_some_and(|u| self.allowed_users.iter().any(|a| a == u))
+            || client.is_some_and(|c| self.allowed_clients.iter().any(|a| a == c))
+    }
+}
+
+pub(super) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSettings {
+    let Some(raw) = raw else {
+        return CommandSettings::default();
+    };
+    for (key, list) in [
+        ("allowed_users", &raw.allowed_users),
+        ("allowed_clients", &raw.allowed_clients),
+    ] {
+        for (i, v) in list.iter().enumerate() {
+            if v.trim().is_empty() || v.trim() != v {
+                p.add(
+                    format!("commands.{key}[{i}]"),
+                    "must be a name without surrounding spaces",
+                );
+            }
+        }
+    }
+    CommandSettings {
+        allowed_users: raw.allowed_users.clone(),
+        allowed_clients: raw.allowed_clients.clone(),
+    }
+}
+
+fn ms(d: Duration) -> i64 {
+    i64::try_from(d.as_millis()).unwrap_or(i64::MAX)
+}
+
+/// A temperature difference in K (`"20 K"`; `degC` and `delta degC` are the same size).
+fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
+    match split_quantity("temperature difference", text) {
+        Ok((v, "K" | "degC" | "°C" | "C")) => Some(v),
+        Ok((v, "degF" | "°F" | "F")) => Some(v / 1.8),
+        Ok(_) | Err(_) => {
+            p.add(
+                path,
+                format!("\"{text}\" is not a temperature difference; write e.g. \"20 K\""),
+            );
+            None
+        }
+    }
+}
+
+fn positive_duration(p: &mut Problems, path: &str, text: &str) -> Option<i64> {
+    match parse_duration(text) {
+        Ok(d) if !d.is_zero() => Some(ms(d)),
+        Ok(_) => {
+            p.add(path, "must be above zero");
+            None
+        }
+        Err(e) => {
+            p.add(path, e.to_string());
+            None
+        }
+    }
+}
+
+fn count(p: &mut Problems, path: &str, v: Option<i64>, default: usize, min: i64) -> usize {
+    match v {
+        None => default,
+        Some(n) if n >= min && n <= 1_000_000 => n as usize,
+        Some(n) => {
+            p.add(path, format!("{n} is out of range; give {min} to 1000000"));
+            default
+        }
+    }
+}
+
+/// A delay: `"3 samples"` or a duration. Returns (ms, samples).
+fn delay(p: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
+    let Some(text) = text else {
+        return (0, 0);
+    };
+    let t = text.trim();
+    if let Some(n) = t
+        .strip_suffix("samples")
+        .or_else(|| t.strip_suffix("sample"))
+    {
+        return match n.trim().parse::<u32>() {
+            Ok(n) if n <= 10_000 => (0, n),
+            _ => {
+                p.add(
+                    path,
+                    format!("\"{text}\": expected a whole number of samples, e.g. \"3 samples\""),
+                );
+                (0, 0)
+            }
+        };
+    }
+    match parse_duration(t) {
+        Ok(d) => (ms(d), 0),
+        Err(e) => {
+            p.add(
+                path,
+                format!("{e}; or give a sample count such as \"3 samples\""),
+            );
+            (0, 0)
+        }
+    }
+}
+
+pub(super) fn watch(
+    p: &mut Problems,
+    path: &str,
+    drift: Option<&RawDrift>,
+    alerts: Option<&RawAlerts>,
+    alarms: &[RawAlarm],
+    offline_below: Option<&str>,
+    atmosphere_bar: f64,
+) -> WatchSettings {
+    let mut s = WatchSettings::default();
+    let raw = drift.cloned().unwrap_or_default();
+    let d = &mut s.drift;
+    let dp = format!("{path}.drift");
+    match raw.baseline.as_deref().map(str::trim) {
+        None | Some("learn") => {
+            let window_ms = match &raw.baseline_window {
+                Some(t) => positive_duration(p, &format!("{dp}.baseline_window"), t),
+                None => None,
+            };
+            let min_samples = count(
+                p,
+                &format!("{dp}.baseline_min_samples"),
+                raw.baseline_min_samples,
+                20,
+                2,
+            );
+            let BaselineSpec::Learn { window_ms: w0, .. } = d.baseline else {
+                unreachable!("the default baseline is learned")
+            };
+            d.baseline = BaselineSpec::Learn {
+                window_ms: window_ms.unwrap_or(w0),
+                min_samples,
+            };
+            if raw.baseline_sigma.is_some() {
+                p.add(
+                    format!("{dp}.baseline_sigma"),
+                    "goes with a given baseline (baseline = \"8 K\"); a learned baseline measures its own",
+                );
+            }
+        }
+        Some(text) => {
+            let approach = kelvin(p, &format!("{dp}.baseline"), text);
+            let sigma = match &raw.baseline_sigma {
+                Some(t) => kelvin(p, &format!("{dp}.baseline_sigma"), t),
+                None => {
+                    p.add(
+                        format!("{dp}.baseline_sigma"),
+                        "missing; a given baseline needs its σ, e.g. \"0.5 K\" (or baseline = \"learn\")",
+                    );
+                    None
+                }
+            };
+            if let Some(sg) = sigma.filter(|s| *s <= 0.0) {
+                p.add(
+                    format!("{dp}.baseline_sigma"),
+                    format!("{sg} K must be above zero"),
+                );
+            }
+            if raw.baseline_window.is_some() {
+                p.add(
+                    format!("{dp}.baseline_window"),
+                    "goes with baseline = \"learn\"",
+                );
+            }
+            if let (Some(a), Some(sg)) = (approach, sigma) {
+                d.baseline = BaselineSpec::Given {
+                    approach_k: a,
+                    sigma_k: sg,
+                };
+            }
+        }
+    }
+    if let Some(t) = &raw.sigma_floor {
+        if let Some(v) = kelvin(p, &format!("{dp}.sigma_floor"), t) {
+            if v > 0.0 {
+                d.sigma_floor_k = v;
+            } else {
+                p.add(format!("{dp}.sigma_floor"), "must be above zero");
+            }
+        }
+    }
+    for (key, v, lo, hi, slot) in [
+        ("ewma_lambda", raw.ewma_lambda, 0.0, 1.0, &mut d.ewma_lambda),
+        ("ewma_l", raw.ewma_l, 0.0, 10.0, &mut d.ewma_l),
+        ("cusum_k", raw.cusum_k, -1e-12, 10.0, &mut d.cusum_k_sigma),
+        ("cusum_h", raw.cusum_h, 0.0, 100.0, &mut d.cusum_h_sigma),
+    ] {
+        if let Some(v) = v {
+            if v.is_finite() && v > lo && v <= hi {
+                *slot = v;
+            } else {
+                p.add(
+                    format!("{dp}.{key}"),
+                    format!(
+                        "{v} is out of range; expected above {} and at most {hi}",
+                        lo.max(0.0)
+                    ),
+                );
+            }
+        }
+    }
+    match raw.trend.as_deref() {
+        None | Some("least-squares") => d.trend = TrendMethod::LeastSquares,
+        Some("theil-sen") => d.trend = TrendMethod::TheilSen,
+        Some(o) => p.add(
+            format!("{dp}.trend"),
+            format!("unknown method \"{o}\"; expected \"least-squares\" or \"theil-sen\""),
+        ),
+    }
+    if let Some(t) = &raw.aggregate {
+        if let Some(v) = positive_duration(p, &format!("{dp}.aggregate"), t) {
+            d.aggregate_ms = v;
+        }
+    }
+    d.min_per_aggregate = count(
+        p,
+        &format!("{dp}.min_per_aggregate"),
+        raw.min_per_aggregate,
+        d.min_per_aggregate,
+        1,
+    );
+    if let Some(t) = &raw.trend_window {
+        d.trend_window_ms = positive_duration(p, &format!("{dp}.trend_window"), t);
+        if let Some(w) = d.trend_window_ms.filter(|w| *w < 3 * d.aggregate_ms) {
+            p.add(
+                format!("{dp}.trend_window"),
+                format!(
+                    "{} holds fewer than 3 aggregates of {}; lengthen it",
+                    show_duration(Duration::from_millis(w as u64)),
+                    show_duration(Duration::from_millis(d.aggregate_ms as u64))
+                ),
+            );
+        }
+    }
+    d.min_aggregates = count(
+        p,
+        &format!("{dp}.min_aggregates"),
+        raw.min_aggregates,
+        d.min_aggregates,
+        3,
+    );
+    if let Some(t) = &raw.end_of_run_limit {
+        d.end_of_run_limit_k = kelvin(p, &format!("{dp}.end_of_run_limit"), t);
+    }
+
+    // Engineering alerts.
+    let ap = format!("{path}.alerts");
+    if let Some(a) = alerts {
+        if let Some(t) = &a.trend_above {
+            s.alerts.trend_above_k_per_day = rate(p, &format!("{ap}.trend_above"), t);
+        }
+        if let Some(t) = &a.end_of_run_within {
+            s.alerts.end_of_run_within_days =
+                positive_duration(p, &format!("{ap}.end_of_run_within"), t)
+                    .map(|v| v as f64 / 86_400_000.0);
+            if s.drift.end_of_run_limit_k.is_none() {
+                p.add(
+                    format!("{ap}.end_of_run_within"),
+                    format!(
+                        "needs {dp}.end_of_run_limit (the approach at end of run, e.g. \"20 K\")"
+                    ),
+                );
+            }
+        }
+        s.alerts.cusum = a.cusum.unwrap_or(false);
+        if let Some(t) = &a.data_quality_after {
+            s.alerts.data_quality_after_ms =
+                positive_duration(p, &format!("{ap}.data_quality_after"), t);
+        }
+        s.alerts.self_monitoring = a.self_monitoring.unwrap_or(true);
+    }
+
+    // Operator alarms.
+    for (i, a) in alarms.iter().enumerate() {
+        let ap = format!("{path}.alarm[{i}]");
+        if let Some(spec) = alarm(p, &ap, a) {
+            if s.alarms
+                .iter()
+                .any(|x| x.config.id.eq_ignore_ascii_case(&spec.config.id))
+            {
+                p.add(
+                    format!("{ap}.id"),
+                    format!("\"{}\" is used twice", spec.config.id),
+                );
+            }
+            s.alarms.push(spec);
+        }
+    }
+
+    if let Some(text) = offline_below {
+        let kp = format!("{path}.offline_below");
+        match split_quantity("pressure", text)
+            .map_err(|e| e.to_string())
+            .and_then(|(v, u)| {
+                PressureUnit::parse(u)
+                    .map_err(|e| e.to_string())
+                    .and_then(|pu| {
+                        pu.to_bar_absolute(v, atmosphere_bar)
+                            .map_err(|e| e.to_string())
+                    })
+            }) {
+            Ok(bar) => s.offline_below_bar = Some(bar),
+            Err(m) => p.add(kp, format!("\"{text}\": {m}; write e.g. \"5 barg\"")),
+        }
+    }
+    s
+}
+
+fn rate(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
+    let per_day = match split_quantity("rate", text) {
+        Ok((v, "K/d" | "K/day")) => Some(v),
+        Ok((v, "K/h")) => Some(v * 24.0),
+        Ok((v, "K/week" | "K/wk")) => Some(v / 7.0),
+        Ok((v, "K/month")) => Some(v / 30.0),
+        _ => None,
+    };
+    match per_day {
+        Some(v) if v.is_finite() && v > 0.0 => Some(v),
+        _ => {
+            p.add(
+                path,
+                format!(
+                    "\"{text}\" is not a positive rate; write e.g. \"0.05 K/d\" (K/h, K/week also)"
+                ),
+            );
+            None
+        }
+    }
+}
+
+fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
+    let start = p.len();
+    if a.id.is_empty()
+        || !a
+            .id
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
+    {
+        p.add(
+            format!("{path}.id"),
+            format!("\"{}\" may use only letters, digits, `-` and `_`", a.id),
+        );
+    }
+    if ["trend", "end-of-run", "cusum", "data-quality", "flood"]
+        .iter()
+        .any(|r| a.id.eq_ignore_ascii_case(r))
+    {
+        p.add(
+            format!("{path}.id"),
+            format!(
+                "\"{}\" is the name of a built-in alert; choose another",
+                a.id
+            ),
+        );
+    }
+    if a.rationale.trim().len() < 10 {
+        p.add(
+            format!("{path}.rationale"),
+            "give the rationale (consequence and operator response): operator alarms are for rationalised conditions only",
+        );
+    }
+    let figure = match a.on.as_str() {
+        "approach" => Figure::Approach,
+        "key-measured" => Figure::KeyMeasured,
+        o => {
+            p.add(
+                format!("{path}.on"),
+                format!("unknown figure \"{o}\"; expected \"approach\" or \"key-measured\""),
+            );
+            return None;
+        }
+    };
+    // The limit's unit fixes the alarm's unit.
+    let value = |p: &mut Problems, key: &str, text: &str| -> Option<(f64, f64, &'static str)> {
+        let kp = format!("{path}.{key}");
+        match figure {
+            Figure::Approach => kelvin(p, &kp, text).map(|v| (v, 1.0, "K")),
+            Figure::KeyMeasured => match split_quantity("composition", text)
+                .map_err(|e| e.to_string())
+                .and_then(|(v, u)| {
+                    CompositionUnit::parse(u)
+                        .map(|cu| (v, cu))
+                        .map_err(|e| e.to_string())
+                }) {
+                Ok((v, cu)) => Some((v, 1.0 / cu.fraction_per_unit(), cu.label())),
+                Err(m) => {
+                    p.add(kp, format!("\"{text}\": {m}; write e.g. \"10 ppm\""));
+                    None
+                }
+            },
+        }
+    };
+    let (limit, direction) = match (&a.above, &a.below) {
+        (Some(t), None) => (value(p, "above", t), Direction::High),
+        (None, Some(t)) => (value(p, "below", t), Direction::Low),
+        _ => {
+            p.add(path, "give exactly one of `above` and `below`");
+            (None, Direction::High)
+        }
+    };
+    let deadband = match &a.deadband {
+        None => Some(0.0),
+        Some(t) => value(p, "deadband", t).map(|(v, sc, _)| {
+            // A deadband is in the limit's unit; convert if written in another.
+            match limit {
+                Some((_, lsc, _)) => v * lsc / sc,
+                None => v,
+            }
+        }),
+    };
+    let (on_delay_ms, on_delay_samples) =
+        delay(p, &format!("{path}.on_delay"), a.on_delay.as_deref());
+    let (off_delay_ms, off_delay_samples) =
+        delay(p, &format!("{path}.off_delay"), a.off_delay.as_deref());
+    let realarm_ms = a
+        .realarm
+        .as_deref()
+        .and_then(|t| positive_duration(p, &format!("{path}.realarm"), t));
+    let max_shelve_ms = match &a.max_shelve {
+        None => 8 * 3_600_000,
+        Some(t) => positive_duration(p, &format!("{path}.max_shelve"), t).unwrap_or(1),
+    };
+    let priority = match a.priority.as_deref().unwrap_or("medium") {
+        "low" => Priority::Low,
+        "medium" => Priority::Medium,
+        "high" => Priority::High,
+        "urgent" => Priority::Urgent,
+        o => {
+            p.add(
+                format!("{path}.priority"),
+                format!("unknown priority \"{o}\"; expected low, medium, high or urgent"),
+            );
+            Priority::Medium
+        }
+    };
+    if let Some(db) = deadband.filter(|d| *d < 0.0) {
+        p.add(
+            format!("{path}.deadband"),
+            format!("{db} must not be negative"),
+        );
+    }
+    if p.len() > start {
+        return None;
+    }
+    let (limit, scale, unit) = limit?;
+    Some(AlarmSpec {
+        config: AlarmConfig {
+            id: a.id.clone(),
+            limit,
+            direction,
+            deadband: deadband.unwrap_or(0.0),
+            on_delay_ms,
+            off_delay_ms,
+            on_delay_samples,
+            off_delay_samples,
+            realarm_ms,
+            latched: a.latched.unwrap_or(false),
+            priority,
+            max_shelve_ms,
+        },
+        figure,
+        scale,
+        unit,
+        rationale: a.rationale.trim().to_string(),
+    })
+}

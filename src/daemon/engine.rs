@@ -1,0 +1,597 @@
+//! The daemon's processing path, synchronous and deterministic: route a message,
+//! decode it, hand it to the reactor's monitor, run the watch (drift, alerts, alarms)
+//! over each evaluation, carry out commands, and produce the records to journal and
+//! publish. The live daemon feeds it MQTT messages; `eqwatch replay` feeds it CSV rows
+//! (already decoded) through [`Engine::accept`], so both take the same path after
+//! decoding. No tokio, no I/O, no clock: time is passed in.
+
+use std::collections::HashMap;
+use std::sync::Arc;
+use std::sync::atomic::Ordering::Relaxed;
+
+use tracing::{debug, info, warn};
+
+use super::metrics::Metrics;
+use super::payload::{self, DecodeError};
+use super::watch_payload::{self as wp, Command};
+use super::{Append, RawInput};
+use crate::config::{CompositionSource, Settings, SteamRatioSettings};
+use crate::monitor::alarm::{Event, EventKind};
+use crate::monitor::watch::{Class, DriftFigures, PlantWatch, ReactorWatch, WatchEvent};
+use crate::monitor::{Evaluation, Input, Outcome, Quality, ReactorMonitor};
+
+/// What an input topic feeds.
+#[derive(Debug, Clone, Copy)]
+pub enum Route {
+    Temperature(usize, usize),
+    Pressure(usize),
+    SteamRatio(usize),
+    Analysis(usize),
+    Component(usize, usize),
+    Command(usize),
+}
+
+/// Topic → routes for every input and command topic of the configuration.
+pub fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
+    let mut m: HashMap<String, Vec<Route>> = HashMap::new();
+    for (r, rs) in s.reactors.iter().enumerate() {
+        for (i, t) in rs.temperatures.iter().enumerate() {
+            m.entry(t.topic.clone())
+                .or_default()
+                .push(Route::Temperature(r, i));
+        }
+        m.entry(rs.pressure.topic.clone())
+            .or_default()
+            .push(Route::Pressure(r));
+        if let Some(SteamRatioSettings::Measured(ss)) = &rs.steam_ratio {
+            m.entry(ss.topic.clone())
+                .or_default()
+                .push(Route::SteamRatio(r));
+        }
+        match &rs.composition.source {
+            CompositionSource::Analyser { topic, .. } => {
+                m.entry(topic.clone()).or_default().push(Route::Analysis(r))
+            }
+            CompositionSource::PerComponent { topics, .. } => {
+                for (species, topic) in topics {
+                    if let Some(c) = rs
+                        .composition
+                        .components
+                        .iter()
+                        .position(|x| x.eq_ignore_ascii_case(species))
+                    {
+                        m.entry(topic.clone())
+                            .or_default()
+                            .push(Route::Component(r, c));
+                    }
+                }
+            }
+        }
+        m.entry(format!("{}/{}/command", s.topic_prefix, rs.id))
+            .or_default()
+            .push(Route::Command(r));
+    }
+    m
+}
+
+/// One evaluation as kept for plots (replay).
+#[derive(Debug, Clone)]
+pub struct TracePoint {
+    pub t_ms: i64,
+    pub quality: Quality,
+    pub approach_k: Option<f64>,
+    pub uncertainty_k: Option<f64>,
+    pub key_measured: Option<f64>,
+    pub key_equilibrium: Option<f64>,
+    pub drift: DriftFigures,
+}
+
+/// An alert or alarm event as kept for plots (replay).
+#[derive(Debug, Clone)]
+pub struct TraceEvent {
+    pub t_ms: i64,
+    pub class: Class,
+    pub alarm: String,
+    pub kind: EventKind,
+}
+
+/// Per-reactor trace for plots.
+#[derive(Debug, Clone, Default)]
+pub struct Trace {
+    pub points: Vec<TracePoint>,
+    pub events: Vec<TraceEvent>,
+}
+
+struct Topics {
+    result: String,
+    alert: String,
+    alarm: String,
+    alarms: String,
+    outcome: String,
+}
+
+/// See the module docs.
+pub struct Engine {
+    settings: Arc<Settings>,
+    routes: HashMap<String, Vec<Route>>,
+    monitors: Vec<ReactorMonitor>,
+    watches: Vec<ReactorWatch>,
+    plant: PlantWatch,
+    metrics: Arc<Metrics>,
+    topics: Vec<Topics>,
+    plant_alert: String,
+    plant_alarms: String,
+    /// Kept per reactor when enabled (replay plots).
+    pub trace: Option<Vec<Trace>>,
+}
+
+impl Engine {
+    /// Builds the engine; the alarm configurations were validated with the settings.
+    pub fn new(settings: Arc<Settings>, metrics: Arc<Metrics>) -> Result<Self, String> {
+        let mut watches = Vec::with_capacity(settings.reactors.len());
+        for rs in &settings.reactors {
+            watches.push(
+                ReactorWatch::new(&rs.watch).map_err(|e| format!("reactors.{}: {e}", rs.id))?,
+            );
+        }
+        let p = &settings.topic_prefix;
+        let topics = settings
+            .reactors
+            .iter()
+            .map(|rs| Topics {
+                result: format!("{p}/{}/result", rs.id),
+                alert: format!("{p}/{}/alert", rs.id),
+                alarm: format!("{p}/{}/alarm", rs.id),
+                alarms: format!("{p}/{}/alarms", rs.id),
+                outcome: format!("{p}/{}/command/outcome", rs.id),
+            })
+            .collect();
+        Ok(Self {
+            routes: routes(&settings),
+            monitors: settings.reactors.iter().map(ReactorMonitor::new).collect(),
+            watches,
+            plant: PlantWatch::new(),
+            metrics,
+            topics,
+            plant_alert: format!("{p}/alert"),
+            plant_alarms: format!("{p}/alarms"),
+            trace: None,
+            settings,
+        })
+    }
+
+    pub fn settings(&self) -> &Settings {
+        &self.settings
+    }
+
+    /// Topics to subscribe to (inputs and commands), sorted.
+    pub fn subscriptions(&self) -> Vec<String> {
+        let mut t: Vec<String> = self.routes.keys().cloned().collect();
+        t.sort();
+        t
+    }
+
+    /// The retained alarm states of every reactor that has alerts or alarms (published
+    /// at start-up: the daemon starts with every alarm normal and in service).
+    pub fn states(&self, now_ms: i64, out: &mut Vec<Append>) {
+        for r in 0..self.watches.len() {
+            if !self.watches[r].watched.is_empty() {
+                self.push_states(r, now_ms, out);
+            }
+        }
+    }
+
+    /// One MQTT message: an input or a command.
+    pub fn message(&mut self, raw: &RawInput, now_ms: i64, out: &mut Vec<Append>) {
+        let Some(rts) = self.routes.get(&raw.topic) else {
+            self.metrics.unrouted.fetch_add(1, Relaxed);
+            return;
+        };
+        let rts = rts.clone();
+        for route in rts {
+            if let Route::Command(r) = route {
+                self.command(r, &raw.payload, now_ms, out);
+                continue;
+            }
+            let (r, decoded) = decode(&self.settings, route, raw);
+            match decoded {
+                Ok(input) => self.accept(r, input, raw.arrival_ms, now_ms, out),
+                Err(e) => {
+                    self.metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
+                    warn!(reactor = %self.settings.reactors[r].id, topic = %raw.topic, reason = e.reason(), error = %e, "input rejected");
+                }
+            }
+        }
+    }
+
+    /// One decoded input for reactor `r` (the path shared with replay).
+    pub fn accept(
+        &mut self,
+        r: usize,
+        input: Input,
+        arrival_ms: i64,
+        now_ms: i64,
+        out: &mut Vec<Append>,
+    ) {
+        let settings = Arc::clone(&self.settings);
+        let rs = &settings.reactors[r];
+        let metrics = Arc::clone(&self.metrics);
+        let rm = &metrics.reactors[r];
+        if let Input::Pressure(p) = &input {
+            let ev = self.watches[r].pressure(&rs.watch, p.value, now_ms);
+            if !ev.is_empty() {
+                info!(reactor = %rs.id, offline = self.watches[r].offline(), "unit on/off line");
+                self.publish_events(r, &ev, now_ms, out);
+            }
+        }
+        match self.monitors[r].accept(rs, &settings.species, input, arrival_ms) {
+            Outcome::Stored => {}
+            Outcome::Duplicate => {
+                rm.duplicates.fetch_add(1, Relaxed);
+                debug!(reactor = %rs.id, "duplicate analysis ignored");
+            }
+            Outcome::OutOfOrder { last_ts_ms } => {
+                rm.out_of_order.fetch_add(1, Relaxed);
+                warn!(reactor = %rs.id, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
+            }
+            Outcome::TooOld => {
+                rm.too_old.fetch_add(1, Relaxed);
+            }
+            Outcome::Evaluated(e) => self.evaluated(r, &e, arrival_ms, now_ms, out),
+        }
+    }
+
+    fn evaluated(
+        &mut self,
+        r: usize,
+        e: &Evaluation,
+        arrival_ms: i64,
+        now_ms: i64,
+        out: &mut Vec<Append>,
+    ) {
+        let settings = Arc::clone(&self.settings);
+        let rs = &settings.reactors[r];
+        let metrics = Arc::clone(&self.metrics);
+        let rm = &metrics.reactors[r];
+        let q = match e.quality {
+            Quality::Good => 0,
+            Quality::Uncertain => 1,
+            Quality::Bad => 2,
+        };
+        rm.evaluations[q].fetch_add(1, Relaxed);
+        let first = e.reactions.first();
+        let approach = first
+            .filter(|_| e.quality != Quality::Bad)
+            .and_then(|a| a.approach_k);
+        rm.approach_k
+            .store(approach.unwrap_or(f64::NAN).to_bits(), Relaxed);
+        if e.quality != Quality::Good {
+            let codes: Vec<&str> = e
+                .reasons
+                .iter()
+                .filter(|x| x.severity != Quality::Good)
+                .map(|x| x.code)
+                .collect();
+            warn!(reactor = %rs.id, quality = e.quality.as_str(), reasons = ?codes, "evaluation not good");
+        } else {
+            debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
+        }
+        let (fig, events) = self.watches[r].observe(&rs.watch, e, now_ms);
+        if fig.excluded.is_some() {
+            rm.drift_excluded.fetch_add(1, Relaxed);
+        }
+        rm.trend_k_per_day.store(
+            fig.trend.map_or(f64::NAN, |t| t.slope_k_per_day).to_bits(),
+            Relaxed,
+        );
+        let days = match fig.forecast {
+            crate::monitor::watch::Forecast::At { at_ms, .. } => {
+                (at_ms - e.sample_ts_ms) as f64 / 86_400_000.0
+            }
+            crate::monitor::watch::Forecast::Reached => 0.0,
+            _ => f64::NAN,
+        };
+        rm.end_of_run_days.store(days.to_bits(), Relaxed);
+        if let Some(tr) = self.trace.as_mut() {
+            tr[r].points.push(TracePoint {
+                t_ms: e.sample_ts_ms,
+                quality: e.quality,
+                approach_k: approach,
+                uncertainty_k: first
+                    .filter(|_| e.quality != Quality::Bad)
+                    .and_then(|a| a.approach_uncertainty_k),
+                key_measured: e.key_measured,
+                key_equilibrium: e.key_equilibrium,
+                drift: fig,
+            });
+        }
+        let payload = payload::encode_result(rs, &settings.species, e, arrival_ms, Some(&fig));
+        out.push(Append {
+            topic: self.topics[r].result.clone(),
+            retain: true,
+            payload,
+        });
+        self.publish_events(r, &events, now_ms, out);
+    }
+
+    /// Publishes events, counts them, runs the plant-wide self-monitoring, and
+    /// republishes the reactor's retained states.
+    fn publish_events(
+        &mut self,
+        r: usize,
+        events: &[WatchEvent],
+        now_ms: i64,
+        out: &mut Vec<Append>,
+    ) {
+        if events.is_empty() {
+            return;
+        }
+        let rs_id = self.settings.reactors[r].id.clone();
+        let metrics = Arc::clone(&self.metrics);
+        let rm = &metrics.reactors[r];
+        for e in events {
+            let w = &self.watches[r];
+            let x = &w.watched[e.index];
+            let id = &x.alarm.config().id;
+            let raised = matches!(e.event.kind, EventKind::Raised | EventKind::Realarmed);
+            match (e.class, raised) {
+                (Class::Alarm, true) => {
+                    rm.alarm_activations.fetch_add(1, Relaxed);
+                    warn!(reactor = %rs_id, alarm = %id, value = x.value.unwrap_or(f64::NAN), "operator alarm raised");
+                }
+                (Class::Alert, true) => {
+                    rm.alerts_raised.fetch_add(1, Relaxed);
+                    if id.starts_with("chattering:") {
+                        self.metrics.chattering.fetch_add(1, Relaxed);
+                    }
+                    if id.starts_with("stale:") {
+                        self.metrics.stale.fetch_add(1, Relaxed);
+                    }
+                    info!(reactor = %rs_id, alert = %id, value = x.value.unwrap_or(f64::NAN), "alert raised");
+                }
+                _ => info!(reactor = %rs_id, alarm = %id, event = ?e.event.kind, "alarm event"),
+            }
+            let topic = match e.class {
+                Class::Alert => self.topics[r].alert.clone(),
+                Class::Alarm => self.topics[r].alarm.clone(),
+            };
+            out.push(Append {
+                topic,
+                retain: false,
+                payload: wp::encode_event(&rs_id, w, e),
+            });
+            if let Some(tr) = self.trace.as_mut() {
+                tr[r].events.push(TraceEvent {
+                    t_ms: e.event.at_ms,
+                    class: e.class,
+                    alarm: id.clone(),
+                    kind: e.event.kind.clone(),
+                });
+            }
+        }
+        self.push_states(r, now_ms, out);
+        let flood = self.plant.observe(events, now_ms);
+        self.plant_events(flood, now_ms, out);
+    }
+
+    fn plant_events(&mut self, ev: Vec<Event>, now_ms: i64, out: &mut Vec<Append>) {
+        self.metrics
+            .alarms_last_10min
+            .store(self.plant.rate() as u64, Relaxed);
+        self.metrics.floods.store(self.plant.floods, Relaxed);
+        if ev.is_empty() {
+            return;
+        }
+        for e in &ev {
+            warn!(event = ?e.kind, rate = self.plant.rate(), "alarm flood alert");
+            let payload = serde_json::json!({
+                "schema": wp::EVENT_SCHEMA,
+                "id": format!("plant/{}@{}", e.id, e.at_ms),
+                "class": "alert",
+                "alarm": "flood",
+                "event": match e.kind { EventKind::Raised => "raised", EventKind::Cleared => "cleared", _ => "other" },
+                "at": crate::timefmt::format_rfc3339(e.at_ms),
+                "state": self.plant.flood.state().as_str(),
+                "value": self.plant.rate(),
+                "limit": 10,
+                "unit": "alarms per 10 min",
+                "description": "alarm flood: more than 10 operator alarms in 10 minutes (EEMUA 191 / ISA-18.2 performance figure)",
+            })
+            .to_string();
+            out.push(Append {
+                topic: self.plant_alert.clone(),
+                retain: false,
+                payload,
+            });
+        }
+        let state = serde_json::json!({
+            "schema": wp::STATES_SCHEMA,
+            "at": crate::timefmt::format_rfc3339(now_ms),
+            "alarms_last_10min": self.plant.rate(),
+            "flood": self.plant.flood.state().as_str(),
+            "floods": self.plant.floods,
+        })
+        .to_string();
+        out.push(Append {
+            topic: self.plant_alarms.clone(),
+            retain: true,
+            payload: state,
+        });
+    }
+
+    fn push_states(&self, r: usize, now_ms: i64, out: &mut Vec<Append>) {
+        out.push(Append {
+            topic: self.topics[r].alarms.clone(),
+            retain: true,
+            payload: wp::encode_states(&self.settings.reactors[r].id, &self.watches[r], now_ms),
+        });
+    }
+
+    /// Advances the watches' timers (shelf expiry, data quality, chattering, stale, flood).
+    pub fn tick(&mut self, now_ms: i64, out: &mut Vec<Append>) {
+        for r in 0..self.watches.len() {
+            let ev = self.watches[r].tick(now_ms);
+            self.publish_events(r, &ev, now_ms, out);
+        }
+        let ev = self.plant.tick(now_ms);
+        self.plant_events(ev, now_ms, out);
+    }
+
+    /// A command message for reactor `r`: checked against the allow list, carried out,
+    /// answered with an outcome (journaled like every other record).
+    pub fn command(&mut self, r: usize, payload: &[u8], now_ms: i64, out: &mut Vec<Append>) {
+        let settings = Arc::clone(&self.settings);
+        let rs = &settings.reactors[r];
+        let outcome_topic = self.topics[r].outcome.clone();
+        let answer = |cmd: Option<&str>,
+                      c_alarm: Option<&str>,
+                      rid: Option<&str>,
+                      user: Option<&str>,
+                      client: Option<&str>,
+                      outcome: &'static str,
+                      message: &str,
+                      out: &mut Vec<Append>| {
+            self.metrics.commands[match outcome {
+                "accepted" => 0,
+                "refused" => 1,
+                "not-allowed" => 2,
+                _ => 3,
+            }]
+            .fetch_add(1, Relaxed);
+            out.push(Append {
+                topic: outcome_topic.clone(),
+                retain: false,
+                payload: wp::encode_outcome(
+                    &rs.id, rid, cmd, c_alarm, user, client, outcome, message, now_ms,
+                ),
+            });
+        };
+        let c: Command = match wp::decode_command(payload) {
+            Ok(c) => c,
+            Err((m, rid, user, client)) => {
+                warn!(reactor = %rs.id, error = %m, "command invalid");
+                answer(
+                    None,
+                    None,
+                    rid.as_deref(),
+                    user.as_deref(),
+                    client.as_deref(),
+                    "invalid",
+                    &m,
+                    out,
+                );
+                return;
+            }
+        };
+        let name = c.action.as_str();
+        if !settings
+            .commands
+            .allows(c.user.as_deref(), c.client_id.as_deref())
+        {
+            let m = format!(
+                "user {:?} / client id {:?} may not send commands (commands.allowed_users, commands.allowed_clients)",
+                c.user.as_deref().unwrap_or("(none)"),
+                c.client_id.as_deref().unwrap_or("(none)")
+            );
+            warn!(reactor = %rs.id, command = name, user = ?c.user, client_id = ?c.client_id, "command refused: not allowed");
+            answer(
+                Some(name),
+                c.alarm.as_deref(),
+                c.request_id.as_deref(),
+                c.user.as_deref(),
+                c.client_id.as_deref(),
+                "not-allowed",
+                &m,
+                out,
+            );
+            return;
+        }
+        let by = c
+            .user
+            .clone()
+            .or_else(|| c.client_id.clone())
+            .unwrap_or_default();
+        match self.watches[r].command(&rs.watch, &c.action, c.alarm.as_deref(), &by, now_ms) {
+            Ok((m, events)) => {
+                info!(reactor = %rs.id, command = name, alarm = ?c.alarm, by = %by, "command carried out");
+                answer(
+                    Some(name),
+                    c.alarm.as_deref(),
+                    c.request_id.as_deref(),
+                    c.user.as_deref(),
+                    c.client_id.as_deref(),
+                    "accepted",
+                    &m,
+                    out,
+                );
+                if events.is_empty() {
+                    self.push_states(r, now_ms, out);
+                } else {
+                    self.publish_events(r, &events, now_ms, out);
+                }
+            }
+            Err(e) => {
+                let m = e.to_string();
+                warn!(reactor = %rs.id, command = name, alarm = ?c.alarm, by = %by, error = %m, "command refused");
+                answer(
+                    Some(name),
+                    c.alarm.as_deref(),
+                    c.request_id.as_deref(),
+                    c.user.as_deref(),
+                    c.client_id.as_deref(),
+                    "refused",
+                    &m,
+                    out,
+                );
+            }
+        }
+    }
+}
+
+/// Decodes one message for its route.
+pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Input, DecodeError>) {
+    let atm = s.atmosphere_bar;
+    match route {
+        Route::Temperature(r, i) => {
+            let t = &s.reactors[r].temperatures[i];
+            (
+                r,
+                payload::decode_scalar(&raw.payload, &t.decoder, &t.unit, atm, raw.arrival_ms)
+                    .map(|v| Input::Temperature(i, v)),
+            )
+        }
+        Route::Pressure(r) => {
+            let p = &s.reactors[r].pressure;
+            (
+                r,
+                payload::decode_scalar(&raw.payload, &p.decoder, &p.unit, atm, raw.arrival_ms)
+                    .map(Input::Pressure),
+            )
+        }
+        Route::SteamRatio(r) => match &s.reactors[r].steam_ratio {
+            Some(SteamRatioSettings::Measured(ss)) => (
+                r,
+                payload::decode_scalar(&raw.payload, &ss.decoder, &ss.unit, atm, raw.arrival_ms)
+                    .map(Input::SteamRatio),
+            ),
+            _ => (r, Err(DecodeError::Missing("(steam ratio)".into()))),
+        },
+        Route::Analysis(r) => (
+            r,
+            payload::decode_analysis(&raw.payload, &s.reactors[r].composition, raw.arrival_ms)
+                .map(Input::Analysis),
+        ),
+        Route::Component(r, c) => {
+            let comp = &s.reactors[r].composition;
+            let CompositionSource::PerComponent { decoder, .. } = &comp.source else {
+                return (r, Err(DecodeError::Missing("(component source)".into())));
+            };
+            (
+                r,
+                payload::decode_component(&raw.payload, decoder, comp.unit, raw.arrival_ms)
+                    .map(|v| Input::Component(c, v)),
+            )
+        }
+        Route::Command(r) => (r, Err(DecodeError::Missing("(command)".into()))),
+    }
+}

@@ -1,0 +1,459 @@
+//! Wire formats of the watch: drift figures on the result, alert and alarm events,
+//! the retained alarm states, operator commands and their outcome messages.
+//!
+//! Shapes (all JSON objects; times RFC 3339 UTC):
+//! - event (`<prefix>/<reactor>/alert` or `/alarm`, QoS 1, not retained):
+//!   `{"schema":"eqwatch.event/1","id","reactor","class","alarm","event","at","state",
+//!   "mode","priority","value","limit","unit","description",...}`
+//! - states (`<prefix>/<reactor>/alarms`, retained): `{"schema":"eqwatch.alarms/1",
+//!   "reactor","at","alarms":[{"alarm","class","state","mode","condition",...}]}`
+//! - command (`<prefix>/<reactor>/command`): `{"command":"acknowledge|shelve|unshelve|
+//!   out-of-service|return-to-service|reset-latch|re-baseline","alarm":"approach-high",
+//!   "user":"...","client_id":"...","duration":"2 h","reason":"...","request_id":"..."}`
+//! - outcome (`<prefix>/<reactor>/command/outcome`, QoS 1, not retained):
+//!   `{"schema":"eqwatch.outcome/1","reactor","request_id","command","alarm","user",
+//!   "client_id","accepted","outcome","message","at"}`
+
+use serde::Serialize;
+use serde_json::Value;
+
+use super::payload::{finite, finite_opt};
+use crate::monitor::alarm::{Direction, EventKind, Mode, Priority};
+use crate::monitor::watch::{Action, DriftFigures, Forecast, ReactorWatch, WatchEvent};
+use crate::timefmt::format_rfc3339;
+
+pub const EVENT_SCHEMA: &str = "eqwatch.event/1";
+pub const STATES_SCHEMA: &str = "eqwatch.alarms/1";
+pub const OUTCOME_SCHEMA: &str = "eqwatch.outcome/1";
+
+#[derive(Serialize)]
+pub struct EndOfRunOut {
+    state: &'static str,
+    limit_k: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    date: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    earliest: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    latest: Option<String>,
+}
+
+#[derive(Serialize)]
+pub struct DriftOut {
+    included: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    excluded_because: Option<&'static str>,
+    baseline: &'static str,
+    baseline_k: Option<f64>,
+    baseline_sigma_k: Option<f64>,
+    run_start: Option<String>,
+    ewma_k: Option<f64>,
+    ewma_upper_k: Option<f64>,
+    ewma_lower_k: Option<f64>,
+    ewma_signal: bool,
+    cusum_k: Option<f64>,
+    cusum_h_k: Option<f64>,
+    cusum_signal: bool,
+    trend_method: Option<&'static str>,
+    trend_k_per_day: Option<f64>,
+    trend_interval_k_per_day: Option<[Option<f64>; 2]>,
+    trend_points: usize,
+    trend_fitted_k: Option<f64>,
+    trend_band_k: Option<f64>,
+    end_of_run: EndOfRunOut,
+}
+
+impl From<&DriftFigures> for DriftOut {
+    fn from(f: &DriftFigures) -> Self {
+        let t = f.trend.as_ref();
+        let (state, date, earliest, latest) = match f.forecast {
+            Forecast::NoLimit => ("no-limit", None, None, None),
+            Forecast::NoTrend => ("no-trend", None, None, None),
+            Forecast::NotRising => ("not-rising", None, None, None),
+            Forecast::Reached => ("reached", None, None, None),
+            Forecast::At {
+                at_ms,
+                earliest_ms,
+                latest_ms,
+            } => (
+                "forecast",
+                Some(format_rfc3339(at_ms)),
+                Some(format_rfc3339(earliest_ms)),
+                latest_ms.map(format_rfc3339),
+            ),
+        };
+        Self {
+            included: f.excluded.is_none(),
+            excluded_because: f.excluded,
+            baseline: match f.baseline {
+                None => "learning",
+                Some(b) if b.given => "given",
+                Some(_) => "learned",
+            },
+            baseline_k: f.baseline.and_then(|b| finite(b.approach_k)),
+            baseline_sigma_k: f.baseline.and_then(|b| finite(b.sigma_k)),
+            run_start: f.baseline.map(|b| format_rfc3339(b.since_ms)),
+            ewma_k: f.ewma.and_then(|e| finite(e.z)),
+            ewma_upper_k: f.ewma.and_then(|e| finite(e.upper)),
+            ewma_lower_k: f.ewma.and_then(|e| finite(e.lower)),
+            ewma_signal: f.ewma.is_some_and(|e| e.signal),
+            cusum_k: finite_opt(f.cusum_k),
+            cusum_h_k: finite_opt(f.cusum_h_k),
+            cusum_signal: f.cusum_signal,
+            trend_method: t.map(|t| t.method.as_str()),
+            trend_k_per_day: t.and_then(|t| finite(t.slope_k_per_day)),
+            trend_interval_k_per_day: t.map(|t| {
+                [
+                    finite(t.slope_interval_k_per_day.0),
+                    finite(t.slope_interval_k_per_day.1),
+                ]
+            }),
+            trend_points: t.map_or(0, |t| t.points),
+            trend_fitted_k: t.and_then(|t| finite(t.fitted_k)),
+            trend_band_k: t.and_then(|t| finite(t.band_k)),
+            end_of_run: EndOfRunOut {
+                state,
+                limit_k: finite_opt(f.limit_k),
+                date,
+                earliest,
+                latest,
+            },
+        }
+    }
+}
+
+fn priority(p: Priority) -> &'static str {
+    match p {
+        Priority::Low => "low",
+        Priority::Medium => "medium",
+        Priority::High => "high",
+        Priority::Urgent => "urgent",
+    }
+}
+
+fn event_name(k: &EventKind) -> &'static str {
+    match k {
+        EventKind::Raised => "raised",
+        EventKind::Cleared => "cleared",
+        EventKind::Acknowledged { .. } => "acknowledged",
+        EventKind::Realarmed => "re-alarmed",
+        EventKind::LatchReset { .. } => "latch-reset",
+        EventKind::Shelved { .. } => "shelved",
+        EventKind::Unshelved { .. } => "unshelved",
+        EventKind::Suppressed { .. } => "suppressed",
+        EventKind::Unsuppressed => "unsuppressed",
+        EventKind::OutOfService { .. } => "out-of-service",
+        EventKind::ReturnedToService { .. } => "returned-to-service",
+    }
+}
+
+#[derive(Serialize)]
+struct EventOut<'a> {
+    schema: &'static str,
+    id: String,
+    reactor: &'a str,
+    class: &'static str,
+    alarm: &'a str,
+    event: &'static str,
+    at: String,
+    state: &'static str,
+    mode: &'static str,
+    priority: &'static str,
+    value: Option<f64>,
+    limit: Option<f64>,
+    direction: &'static str,
+    unit: &'a str,
+    description: &'a str,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    by: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    reason: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    until: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    auto: Option<bool>,
+}
+
+/// The event JSON. Its id is stable across redelivery and unique across restarts:
+/// `<reactor>/<alarm>#<seq>@<epoch ms>`.
+pub fn encode_event(reactor: &str, w: &ReactorWatch, e: &WatchEvent) -> String {
+    let x = &w.watched[e.index];
+    let cfg = x.alarm.config();
+    let (by, reason, until, auto) = match &e.event.kind {
+        EventKind::Acknowledged { by }
+        | EventKind::LatchReset { by }
+        | EventKind::ReturnedToService { by } => (Some(by.as_str()), None, None, None),
+        EventKind::Shelved {
+            by,
+            reason,
+            until_ms,
+        } => (
+            Some(by.as_str()),
+            Some(reason.as_str()),
+            Some(format_rfc3339(*until_ms)),
+            None,
+        ),
+        EventKind::Unshelved { auto, by } => (by.as_deref(), None, None, Some(*auto)),
+        EventKind::Suppressed { reason } => (None, Some(reason.as_str()), None, None),
+        EventKind::OutOfService { by, reason } => {
+            (Some(by.as_str()), Some(reason.as_str()), None, None)
+        }
+        _ => (None, None, None, None),
+    };
+    let out = EventOut {
+        schema: EVENT_SCHEMA,
+        id: format!("{reactor}/{}@{}", e.event.id, e.event.at_ms),
+        reactor,
+        class: e.class.as_str(),
+        alarm: &cfg.id,
+        event: event_name(&e.event.kind),
+        at: format_rfc3339(e.event.at_ms),
+        state: x.alarm.state().as_str(),
+        mode: x.alarm.mode().as_str(),
+        priority: priority(cfg.priority),
+        value: finite_opt(x.value).filter(|v| v.abs() < 1e12),
+        limit: finite(cfg.limit),
+        direction: match cfg.direction {
+            Direction::High => "high",
+            Direction::Low => "low",
+        },
+        unit: x.unit,
+        description: &x.description,
+        by,
+        reason,
+        until,
+        auto,
+    };
+    serde_json::to_string(&out).unwrap_or_else(|_| "{}".into())
+}
+
+#[derive(Serialize)]
+struct StateOut<'a> {
+    alarm: &'a str,
+    class: &'static str,
+    state: &'static str,
+    mode: &'static str,
+    condition: bool,
+    annunciating: bool,
+    priority: &'static str,
+    value: Option<f64>,
+    limit: Option<f64>,
+    unit: &'a str,
+    description: &'a str,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    shelved_until: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    by: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    reason: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    last_raised: Option<String>,
+}
+
+#[derive(Serialize)]
+struct StatesOut<'a> {
+    schema: &'static str,
+    reactor: &'a str,
+    at: String,
+    offline: bool,
+    alarms: Vec<StateOut<'a>>,
+}
+
+/// Current states of every alert and alarm of a reactor (retained).
+pub fn encode_states(reactor: &str, w: &ReactorWatch, at_ms: i64) -> String {
+    let alarms = w
+        .watched
+        .iter()
+        .map(|x| {
+            let cfg = x.alarm.config();
+            let (until, by, reason) = match x.alarm.mode() {
+                Mode::Active => (None, None, None),
+                Mode::Shelved {
+                    until_ms,
+                    by,
+                    reason,
+                } => (
+                    Some(format_rfc3339(*until_ms)),
+                    Some(by.as_str()),
+                    Some(reason.as_str()),
+                ),
+                Mode::SuppressedByDesign { reason } => (None, None, Some(reason.as_str())),
+                Mode::OutOfService { by, reason } => {
+                    (None, Some(by.as_str()), Some(reason.as_str()))
+                }
+            };
+            StateOut {
+                alarm: &cfg.id,
+                class: x.class.as_str(),
+                state: x.alarm.state().as_str(),
+                mode: x.alarm.mode().as_str(),
+                condition: x.alarm.condition(),
+                annunciating: x.alarm.annunciating(),
+                priority: priority(cfg.priority),
+                value: finite_opt(x.value).filter(|v| v.abs() < 1e12),
+                limit: finite(cfg.limit),
+                unit: x.unit,
+                description: &x.description,
+                shelved_until: until,
+                by,
+                reason,
+                last_raised: x.alarm.last_annunciated_ms().map(format_rfc3339),
+            }
+        })
+        .collect();
+    let out = StatesOut {
+        schema: STATES_SCHEMA,
+        reactor,
+        at: format_rfc3339(at_ms),
+        offline: w.offline(),
+        alarms,
+    };
+    serde_json::to_string(&out).unwrap_or_else(|_| "{}".into())
+}
+
+/// A decoded command.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Command {
+    pub action: Action,
+    pub alarm: Option<String>,
+    pub user: Option<String>,
+    pub client_id: Option<String>,
+    pub request_id: Option<String>,
+}
+
+/// A command that could not be read: what to fix, and the request id, user and client
+/// id if they could be read, so the refusal can name them.
+pub type CommandProblem = (String, Option<String>, Option<String>, Option<String>);
+
+/// Reads a command message; the error says what to fix.
+pub fn decode_command(payload: &[u8]) -> Result<Command, CommandProblem> {
+    let v: Value = match serde_json::from_slice(payload) {
+        Ok(v @ Value::Object(_)) => v,
+        Ok(_) => return Err(("a command is a JSON object".into(), None, None, None)),
+        Err(e) => return Err((format!("not JSON: {e}"), None, None, None)),
+    };
+    let text = |k: &str| {
+        v.get(k)
+            .and_then(Value::as_str)
+            .map(|s| s.trim().to_string())
+    };
+    let request_id = text("request_id");
+    let user = text("user").filter(|s| !s.is_empty());
+    let client_id = text("client_id").filter(|s| !s.is_empty());
+    let fail = |m: String| Err((m, request_id.clone(), user.clone(), client_id.clone()));
+    let reason = text("reason").unwrap_or_default();
+    let action = match text("command").as_deref() {
+        Some("acknowledge" | "ack") => Action::Acknowledge,
+        Some("shelve") => {
+            let Some(d) = text("duration") else {
+                return fail("shelve needs \"duration\", e.g. \"2 h\"".into());
+            };
+            let ms = match crate::config::parse_duration(&d) {
+                Ok(d) => i64::try_from(d.as_millis()).unwrap_or(i64::MAX),
+                Err(e) => return fail(format!("duration: {e}")),
+            };
+            Action::Shelve {
+                duration_ms: ms,
+                reason,
+            }
+        }
+        Some("unshelve") => Action::Unshelve,
+        Some("out-of-service") => Action::OutOfService { reason },
+        Some("return-to-service") => Action::ReturnToService,
+        Some("reset-latch") => Action::ResetLatch,
+        Some("re-baseline") => Action::Rebaseline { reason },
+        Some(o) => {
+            return fail(format!(
+                "unknown command \"{o}\"; expected acknowledge, shelve, unshelve, out-of-service, return-to-service, reset-latch or re-baseline"
+            ));
+        }
+        None => return fail("missing \"command\"".into()),
+    };
+    Ok(Command {
+        action,
+        alarm: text("alarm").filter(|s| !s.is_empty()),
+        user,
+        client_id,
+        request_id,
+    })
+}
+
+#[derive(Serialize)]
+struct OutcomeOut<'a> {
+    schema: &'static str,
+    reactor: &'a str,
+    request_id: Option<&'a str>,
+    command: Option<&'a str>,
+    alarm: Option<&'a str>,
+    user: Option<&'a str>,
+    client_id: Option<&'a str>,
+    accepted: bool,
+    outcome: &'static str,
+    message: &'a str,
+    at: String,
+}
+
+/// What became of a command: `outcome` is accepted, refused (the alarm's state does not
+/// allow it), not-allowed (user/client not in the allow list) or invalid.
+#[allow(clippy::too_many_arguments)]
+pub fn encode_outcome(
+    reactor: &str,
+    request_id: Option<&str>,
+    command: Option<&str>,
+    alarm: Option<&str>,
+    user: Option<&str>,
+    client_id: Option<&str>,
+    outcome: &'static str,
+    message: &str,
+    at_ms: i64,
+) -> String {
+    let out = OutcomeOut {
+        schema: OUTCOME_SCHEMA,
+        reactor,
+        request_id,
+        command,
+        alarm,
+        user,
+        client_id,
+        accepted: outcome == "accepted",
+        outcome,
+        message,
+        at: format_rfc3339(at_ms),
+    };
+    serde_json::to_string(&out).unwrap_or_else(|_| "{}".into())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn commands_decode_or_say_what_to_fix() {
+        // Invented command messages.
+        let c = decode_command(
+            br#"{"command":"shelve","alarm":"approach-high","user":"op1","duration":"2 h","reason":"analyser work","request_id":"r1"}"#,
+        )
+        .unwrap();
+        assert_eq!(
+            c.action,
+            Action::Shelve {
+                duration_ms: 7_200_000,
+                reason: "analyser work".into()
+            }
+        );
+        assert_eq!(c.request_id.as_deref(), Some("r1"));
+        for (bad, says) in [
+            (
+                &br#"{"command":"shelve","alarm":"a","user":"u"}"#[..],
+                "duration",
+            ),
+            (br#"{"command":"explode"}"#, "unknown command"),
+            (br#"[1]"#, "JSON object"),
+            (br#"nope"#, "not JSON"),
+            (br#"{"alarm":"a"}"#, "missing \"command\""),
+        ] {
+            let e = decode_command(bad).unwrap_err();
+            assert!(e.0.contains(says), "{}", e.0);
+        }
+    }
+}
