@@ -9,6 +9,7 @@
 //! - [`monitor`]: per-reactor alignment of inputs, quality checks and evaluation (time passed in).
 //! - [`solve`]: bracketed scalar solvers.
 //! - [`timefmt`]: RFC 3339 and epoch-millisecond timestamps.
+//! - [`plot`]: SVG charts (approach, trend, key component; overview) rendered as strings.
 //! - [`config`]: the plant configuration file, validated into settings with key paths.
 //! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
 //!
@@ -19,6 +20,7 @@ pub mod composition;
 pub mod config;
 pub mod equilibrium;
 pub mod monitor;
+pub mod plot;
 pub mod sim;
 pub mod solve;
 pub mod thermo;

@@ -1,0 +1,3292 @@
+//! SVG charts of a reactor's approach to equilibrium, rendered as `String`s.
+//!
+//! [`reactor_svg`] draws one reactor as two stacked charts sharing a time axis: the approach
+//! to equilibrium (K) with its uncertainty band, baselines, trend and projection to the
+//! end-of-run limit, and alert/alarm/cleared/operator markers; below it the key component,
+//! measured and at equilibrium (mol% or ppm, log scale when the values span more than two
+//! decades). [`overview_svg`] draws small multiples, one row per reactor, approach only.
+//!
+//! What this module must not do: no file or network I/O, no clock, no async runtime, no
+//! crate outside `std` (it builds with `--no-default-features`). Callers pass every time in
+//! (epoch milliseconds, UTC) and write the returned text wherever they like. Bad data never
+//! panics: NaN/inf values, empty series, single points, equal values, zero-length or absurd
+//! time ranges all give a valid SVG, with "no data" text where nothing can be drawn.
+//!
+//! Large series (a year of 5-minute data is ~105,000 points) are decimated per pixel column:
+//! a min–max envelope plus the mean line, with a column that has no valid point breaking the
+//! line. Coordinates carry one decimal place.
+//!
+//! Stable structure for tests and users: `<g id="approach">` (`path.line`, and in decimated
+//! mode `path.envelope`), `uncertainty`, `uncertain-quality`, `gaps`, `baseline`, `trend`,
+//! `projection`, `limit`, `end-of-run`, `markers` (children `g.marker.alert|alarm|cleared|operator`,
+//! each with a `<title>`), `key-measured`, `key-equilibrium`, `legend`. The root carries a
+//! `<title>` with the plot title and a `<desc>` saying the chart is advisory, not a safety
+//! function. Meaning is never carried by colour alone: series also differ in dash pattern and
+//! markers in shape.
+//!
+//! # References
+//! - H. Hinnant, "chrono-Compatible Low-Level Date Algorithms" (civil from days), used through
+//!   [`crate::timefmt`] for the UTC tick labels.
+
+use std::fmt::{self, Write as _};
+
+use crate::timefmt::{civil_from_days, days_from_civil};
+
+/// Appends formatted text to a `String` (writing to a `String` cannot fail).
+macro_rules! w {
+    ($out:expr, $($arg:tt)*) => {{
+        let _ = write!($out, $($arg)*);
+    }};
+}
+
+// ---------------------------------------------------------------------------------------------
+// Public data model
+// ---------------------------------------------------------------------------------------------
+
+/// One evaluation as plotted.
+#[derive(Clone, Copy, Debug, PartialEq, Default)]
+pub struct PlotPoint {
+    /// Epoch milliseconds (UTC).
+    pub t_ms: i64,
+    /// Approach to equilibrium (K); `None` = bad quality / no figure, drawn as a gap.
+    pub approach_k: Option<f64>,
+    /// ± half-width of the approach (K), drawn as a shaded band.
+    pub uncertainty_k: Option<f64>,
+    /// `false` = uncertain quality: still drawn, with a hollow marker.
+    pub good: bool,
+    /// Key component mole fraction (0..1), measured.
+    pub key_measured: Option<f64>,
+    /// Key component mole fraction (0..1) at equilibrium.
+    pub key_equilibrium: Option<f64>,
+}
+
+/// A period whose approach is the reference ("baseline"), drawn as a horizontal segment.
+#[derive(Clone, Copy, Debug, PartialEq, Default)]
+pub struct BaselineSpan {
+    pub from_ms: i64,
+    pub to_ms: i64,
+    pub approach_k: f64,
+    /// One standard deviation (K) of the baseline, drawn as a light band when given.
+    pub sigma_k: Option<f64>,
+}
+
+/// Trend line over the data and its forward projection to the end-of-run limit.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct Projection {
+    /// (t_ms, fitted approach K, lower K, upper K), over the data and forward to the limit.
+    pub points: Vec<(i64, f64, f64, f64)>,
+    pub slope_k_per_day: f64,
+    /// When the fit reaches the limit: a vertical line labelled "end of run <date>".
+    pub end_of_run_ms: Option<i64>,
+    /// Earliest..latest end of run (interval), drawn as a bar on the limit line.
+    pub end_of_run_range_ms: Option<(i64, i64)>,
+}
+
+/// Kind of an event marker; each kind has its own colour, dash pattern and shape.
+#[derive(Clone, Copy, PartialEq, Eq, Debug)]
+pub enum MarkerKind {
+    Alert,
+    Alarm,
+    Cleared,
+    Operator,
+}
+
+/// An event on the time axis (alert raised, alarm, cleared, operator note).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Marker {
+    pub t_ms: i64,
+    pub kind: MarkerKind,
+    /// Shown as the marker's tooltip (`<title>`) and, when there are few markers, beside it.
+    pub label: String,
+}
+
+/// Everything drawn for one reactor.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct ReactorPlot {
+    /// Reactor id, e.g. "lts1".
+    pub reactor: String,
+    /// Chart title, e.g. "Low-temperature shift converter (lts1)".
+    pub title: String,
+    /// Key component name, e.g. "CO".
+    pub key_component: String,
+    /// End-of-run limit on the approach (K): horizontal dashed line, labelled.
+    pub limit_k: Option<f64>,
+    /// Evaluations, time-ordered (they are sorted again here, so order is not trusted).
+    pub points: Vec<PlotPoint>,
+    pub baselines: Vec<BaselineSpan>,
+    pub projection: Option<Projection>,
+    pub markers: Vec<Marker>,
+}
+
+// ---------------------------------------------------------------------------------------------
+// Constants: layout, colours, limits of what is plotted
+// ---------------------------------------------------------------------------------------------
+
+const WIDTH: f64 = 1000.0;
+const HEIGHT: f64 = 640.0;
+const LEFT: f64 = 84.0;
+const RIGHT: f64 = 976.0;
+
+const MINUTE_MS: i64 = 60_000;
+const HOUR_MS: i64 = 3_600_000;
+const DAY_MS: i64 = 86_400_000;
+const MONTH_MS_APPROX: i64 = 2_629_746_000; // 365.2425 / 12 days
+const YEAR_MS_APPROX: i64 = 31_556_952_000; // 365.2425 days
+
+/// Earliest plotted instant, 0001-01-01T00:00:00Z (checked with Python's datetime module).
+const T_LO: i64 = -62_135_596_800_000;
+/// Latest plotted instant, 9999-12-31T23:59:59.999Z (checked with Python's datetime module).
+const T_HI: i64 = 253_402_300_799_999;
+/// Values beyond this magnitude are treated like NaN (no approach or mole fraction is near).
+const V_MAX: f64 = 1e15;
+/// The projection may extend the time axis by at most this many data spans.
+const PROJECTION_SPANS: i64 = 3;
+/// Marker labels are written beside the markers (not only as tooltips) up to this count.
+const MARKER_TEXT_MAX: usize = 15;
+
+const C_TEXT: &str = "#222";
+const C_MUTED: &str = "#666";
+const C_FRAME: &str = "#888";
+const C_GRID: &str = "#e4e4e4";
+const C_APPROACH: &str = "#0072b2";
+const C_BAND: &str = "#56b4e9";
+const C_GAP: &str = "#9e9e9e";
+const C_BASELINE: &str = "#009e73";
+const C_TREND: &str = "#d55e00";
+const C_PROJ_BAND: &str = "#e69f00";
+const C_LIMIT: &str = "#b2182b";
+const C_END_OF_RUN: &str = "#333";
+const C_MEASURED: &str = "#0072b2";
+const C_EQUILIBRIUM: &str = "#cc79a7";
+
+const DASH_BASELINE: &str = "9 3 2 3";
+const DASH_TREND: &str = "7 4";
+const DASH_FORWARD: &str = "2 3";
+const DASH_LIMIT: &str = "12 4";
+const DASH_END_OF_RUN: &str = "3 3";
+const DASH_EQUILIBRIUM: &str = "6 3";
+
+impl MarkerKind {
+    fn class(self) -> &'static str {
+        match self {
+            MarkerKind::Alert => "alert",
+            MarkerKind::Alarm => "alarm",
+            MarkerKind::Cleared => "cleared",
+            MarkerKind::Operator => "operator",
+        }
+    }
+    fn colour(self) -> &'static str {
+        match self {
+            MarkerKind::Alert => "#e08a00",
+            MarkerKind::Alarm => "#b2182b",
+            MarkerKind::Cleared => "#009e73",
+            MarkerKind::Operator => "#7b3294",
+        }
+    }
+    /// Dash pattern of the vertical line; empty = solid.
+    fn dash(self) -> &'static str {
+        match self {
+            MarkerKind::Alert => "5 3",
+            MarkerKind::Alarm => "",
+            MarkerKind::Cleared => "1.5 3",
+            MarkerKind::Operator => "8 3 1.5 3",
+        }
+    }
+    const ALL: [MarkerKind; 4] = [
+        MarkerKind::Alert,
+        MarkerKind::Alarm,
+        MarkerKind::Cleared,
+        MarkerKind::Operator,
+    ];
+}
+
+// ---------------------------------------------------------------------------------------------
+// Small text helpers
+// ---------------------------------------------------------------------------------------------
+
+/// XML-escaped text; characters that XML 1.0 forbids become spaces.
+struct Esc<'a>(&'a str);
+
+impl fmt::Display for Esc<'_> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        for c in self.0.chars() {
+            match c {
+                '&' => f.write_str("&amp;")?,
+                '<' => f.write_str("&lt;")?,
+                '>' => f.write_str("&gt;")?,
+                '"' => f.write_str("&quot;")?,
+                '\'' => f.write_str("&apos;")?,
+                '\t' | '\n' | '\r' => f.write_char(c)?,
+                c if (c as u32) < 0x20 || c == '\u{fffe}' || c == '\u{ffff}' => {
+                    f.write_char(' ')?
+                }
+                c => f.write_char(c)?,
+            }
+        }
+        Ok(())
+    }
+}
+
+/// A coordinate with at most one decimal place ("12", "12.5"; never "-0"), clamped to ±1e6.
+#[derive(Clone, Copy)]
+struct N(f64);
+
+impl fmt::Display for N {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let v = if self.0.is_finite() {
+            self.0.clamp(-1e6, 1e6)
+        } else {
+            0.0
+        };
+        let tenths = (v * 10.0).round() as i64;
+        if tenths == 0 {
+            f.write_str("0")
+        } else if tenths % 10 == 0 {
+            write!(f, "{}", tenths / 10)
+        } else {
+            let sign = if tenths < 0 { "-" } else { "" };
+            let a = tenths.unsigned_abs();
+            write!(f, "{sign}{}.{}", a / 10, a % 10)
+        }
+    }
+}
+
+/// Rough width of `s` in px at `size` px font (sans-serif averages ~0.56 em per character).
+fn text_width(s: &str, size: f64) -> f64 {
+    s.chars().count() as f64 * size * 0.56
+}
+
+/// First `n` characters of `s`, with "…" when cut.
+fn truncate(s: &str, n: usize) -> String {
+    if s.chars().count() <= n {
+        s.to_string()
+    } else {
+        let mut t: String = s.chars().take(n.saturating_sub(1)).collect();
+        t.push('…');
+        t
+    }
+}
+
+/// `v` with `dec` decimals, "0" instead of "-0.0", exponent form for huge magnitudes.
+fn fmt_fixed(v: f64, dec: usize) -> String {
+    if !v.is_finite() {
+        return "?".to_string();
+    }
+    if v.abs() >= 1e7 {
+        return format!("{v:.2e}");
+    }
+    let s = format!("{v:.dec$}");
+    if s.trim_start_matches('-')
+        .chars()
+        .all(|c| c == '0' || c == '.')
+    {
+        "0".to_string()
+    } else {
+        s
+    }
+}
+
+/// `v` with about `sig` significant digits and no trailing zeros (labels such as slopes).
+fn fmt_sig(v: f64, sig: i32) -> String {
+    if !v.is_finite() {
+        return "?".to_string();
+    }
+    if v == 0.0 {
+        return "0".to_string();
+    }
+    let mag = v.abs().log10().floor() as i32;
+    let dec = (sig - 1 - mag).clamp(0, 8) as usize;
+    let s = fmt_fixed(v, dec);
+    if s.contains('.') && !s.contains('e') {
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
+    }
+}
+
+fn usable(v: f64) -> bool {
+    v.is_finite() && v.abs() < V_MAX
+}
+
+fn sane_t(t: i64) -> bool {
+    (T_LO..=T_HI).contains(&t)
+}
+
+// ---------------------------------------------------------------------------------------------
+// UTC dates from epoch milliseconds
+// ---------------------------------------------------------------------------------------------
+
+/// Calendar fields of an instant, UTC.
+struct Civil {
+    y: i64,
+    mo: u32,
+    d: u32,
+    h: i64,
+    mi: i64,
+}
+
+/// Splits epoch ms into UTC calendar fields (days → date by Hinnant's civil-from-days).
+fn civil(ms: i64) -> Civil {
+    let secs = ms.div_euclid(1000);
+    let (y, mo, d) = civil_from_days(secs.div_euclid(86_400));
+    let sod = secs.rem_euclid(86_400);
+    Civil {
+        y,
+        mo,
+        d,
+        h: sod / 3600,
+        mi: sod % 3600 / 60,
+    }
+}
+
+/// "2026-03-01".
+fn fmt_date(ms: i64) -> String {
+    let c = civil(ms);
+    format!("{:04}-{:02}-{:02}", c.y, c.mo, c.d)
+}
+
+/// "2026-03-01 12:00".
+fn fmt_datetime(ms: i64) -> String {
+    let c = civil(ms);
+    format!("{:04}-{:02}-{:02} {:02}:{:02}", c.y, c.mo, c.d, c.h, c.mi)
+}
+
+// ---------------------------------------------------------------------------------------------
+// Axes
+// ---------------------------------------------------------------------------------------------
+
+/// Pixel rectangle of one plot area.
+#[derive(Clone, Copy, Debug)]
+struct Area {
+    x0: f64,
+    y0: f64,
+    x1: f64,
+    y1: f64,
+}
+
+impl Area {
+    fn w(&self) -> f64 {
+        self.x1 - self.x0
+    }
+    fn h(&self) -> f64 {
+        self.y1 - self.y0
+    }
+    fn mid_x(&self) -> f64 {
+        0.5 * (self.x0 + self.x1)
+    }
+    fn mid_y(&self) -> f64 {
+        0.5 * (self.y0 + self.y1)
+    }
+}
+
+/// A y axis: range in axis units (log10 of the value on a log axis) and labelled ticks.
+#[derive(Clone, Debug)]
+struct Axis {
+    lo: f64,
+    hi: f64,
+    log: bool,
+    ticks: Vec<(f64, String)>,
+}
+
+/// 1, 2 or 5 × 10^n, the smallest not below `raw`.
+fn nice_step(raw: f64) -> f64 {
+    if !(raw > 0.0 && raw.is_finite()) {
+        return 1.0;
+    }
+    let base = 10f64.powf(raw.log10().floor());
+    let f = raw / base;
+    let m = if f <= 1.0 + 1e-9 {
+        1.0
+    } else if f <= 2.0 + 1e-9 {
+        2.0
+    } else if f <= 5.0 + 1e-9 {
+        5.0
+    } else {
+        10.0
+    };
+    m * base
+}
+
+/// Decimals needed to print multiples of `step` exactly.
+fn decimals_for(step: f64) -> usize {
+    if step >= 1.0 || step.is_nan() || step <= 0.0 {
+        0
+    } else {
+        ((-(step.log10() + 1e-9).floor()) as usize).min(10)
+    }
+}
+
+/// Linear axis over [min, max] with about `target` nice ticks; equal or reversed bounds are
+/// widened so that the axis always has a positive length.
+fn linear_axis(min: f64, max: f64, target: usize) -> Axis {
+    let (mut a, mut b) = if min <= max { (min, max) } else { (max, min) };
+    if !(usable(a) && usable(b)) {
+        (a, b) = (0.0, 1.0);
+    }
+    if b - a <= a.abs().max(b.abs()) * 1e-9 || b - a < 1e-300 {
+        let mid = 0.5 * (a + b);
+        let pad = if mid.abs() > 1e-12 {
+            mid.abs() * 0.1
+        } else {
+            1.0
+        };
+        (a, b) = (mid - pad, mid + pad);
+    }
+    // A little room at both ends, but never across zero (an axis from 0 stays at 0).
+    let pad = (b - a) * 0.02;
+    (a, b) = (
+        if a >= 0.0 {
+            (a - pad).max(0.0)
+        } else {
+            a - pad
+        },
+        if b <= 0.0 {
+            (b + pad).min(0.0)
+        } else {
+            b + pad
+        },
+    );
+    let step = nice_step((b - a) / target.max(2) as f64);
+    let (lo, hi) = ((a / step).floor() * step, (b / step).ceil() * step);
+    if !(hi > lo && (hi - lo).is_finite()) {
+        return linear_axis(0.0, 1.0, target);
+    }
+    let n = ((hi - lo) / step).round().clamp(1.0, 60.0) as i64;
+    let dec = decimals_for(step);
+    let k0 = (lo / step).round();
+    let ticks = (0..=n)
+        .map(|i| {
+            let v = (k0 + i as f64) * step;
+            (v, fmt_fixed(v, dec))
+        })
+        .collect();
+    Axis {
+        lo,
+        hi,
+        log: false,
+        ticks,
+    }
+}
+
+/// "0.01", "1", "1000" for moderate powers of ten, "1e-5" beyond.
+fn fmt_pow10(e: i64) -> String {
+    if (-3..0).contains(&e) {
+        format!("{:.*}", e.unsigned_abs() as usize, 10f64.powi(e as i32))
+    } else if (0..=4).contains(&e) {
+        10i64.pow(e as u32).to_string()
+    } else {
+        format!("1e{e}")
+    }
+}
+
+/// Log10 axis over the positive range [min, max], ticks at whole decades (every k-th when
+/// the range spans many decades).
+fn log_axis(min: f64, max: f64) -> Axis {
+    let (a, b) = if min <= max { (min, max) } else { (max, min) };
+    if !(a > 0.0 && usable(a) && usable(b)) {
+        return log_axis(1.0, 10.0);
+    }
+    let lo = a.log10().floor().max(-300.0);
+    let mut hi = b.log10().ceil().min(300.0);
+    if hi <= lo {
+        hi = lo + 1.0;
+    }
+    let k = ((hi - lo) / 7.0).ceil().max(1.0);
+    let mut ticks = Vec::new();
+    let mut e = (lo / k).ceil() * k;
+    while e <= hi + 1e-9 && ticks.len() < 60 {
+        ticks.push((e, fmt_pow10(e as i64)));
+        e += k;
+    }
+    Axis {
+        lo,
+        hi,
+        log: true,
+        ticks,
+    }
+}
+
+/// Maps values to pixel rows of an area.
+#[derive(Clone, Debug)]
+struct YScale {
+    axis: Axis,
+    top: f64,
+    bottom: f64,
+}
+
+impl YScale {
+    /// Pixel row of `v`, or `None` when it cannot be drawn (NaN, or ≤ 0 on a log axis).
+    fn y(&self, v: f64) -> Option<f64> {
+        let u = if self.axis.log {
+            if v > 0.0 { v.log10() } else { return None }
+        } else {
+            v
+        };
+        if !usable(u) {
+            return None;
+        }
+        let span = self.axis.hi - self.axis.lo;
+        Some(self.bottom - (u - self.axis.lo) / span * (self.bottom - self.top))
+    }
+    /// Pixel row of an axis-unit value (a tick).
+    fn y_axis_units(&self, u: f64) -> f64 {
+        let span = self.axis.hi - self.axis.lo;
+        self.bottom - (u - self.axis.lo) / span * (self.bottom - self.top)
+    }
+}
+
+/// Time step between ticks.
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum TimeStep {
+    Ms(i64),
+    Months(i64),
+    Years(i64),
+}
+
+/// The time range of a chart and its mapping to pixel columns.
+#[derive(Clone, Copy, Debug)]
+struct TimeScale {
+    t0: i64,
+    t1: i64,
+    x0: f64,
+    x1: f64,
+}
+
+impl TimeScale {
+    /// `t0 < t1` is guaranteed by [`TimeScale::new`].
+    fn new(t0: i64, t1: i64, x0: f64, x1: f64) -> TimeScale {
+        let (mut t0, mut t1) = (t0.min(t1), t0.max(t1));
+        if t1 - t0 < MINUTE_MS {
+            let mid = t0 + (t1 - t0) / 2;
+            (t0, t1) = (mid - 30 * MINUTE_MS, mid + 30 * MINUTE_MS);
+        }
+        TimeScale { t0, t1, x0, x1 }
+    }
+    fn x(&self, t: i64) -> f64 {
+        let frac = (t as f64 - self.t0 as f64) / (self.t1 as f64 - self.t0 as f64);
+        self.x0 + frac * (self.x1 - self.x0)
+    }
+    fn contains(&self, t: i64) -> bool {
+        (self.t0..=self.t1).contains(&t)
+    }
+}
+
+/// Tick step for a span so that there are at most `max_ticks` intervals.
+fn choose_time_step(span_ms: i64, max_ticks: i64) -> TimeStep {
+    const FIXED: [i64; 15] = [
+        MINUTE_MS,
+        2 * MINUTE_MS,
+        5 * MINUTE_MS,
+        10 * MINUTE_MS,
+        15 * MINUTE_MS,
+        30 * MINUTE_MS,
+        HOUR_MS,
+        2 * HOUR_MS,
+        3 * HOUR_MS,
+        6 * HOUR_MS,
+        12 * HOUR_MS,
+        DAY_MS,
+        2 * DAY_MS,
+        7 * DAY_MS,
+        14 * DAY_MS,
+    ];
+    let span = span_ms.max(1);
+    if let Some(s) = FIXED.iter().find(|&&s| span / s < max_ticks) {
+        return TimeStep::Ms(*s);
+    }
+    if let Some(m) = [1, 2, 3, 6]
+        .iter()
+        .find(|&&m| span / (m * MONTH_MS_APPROX) < max_ticks)
+    {
+        return TimeStep::Months(*m);
+    }
+    let mut k = 1i64;
+    while k < 100_000 {
+        for f in [1, 2, 5] {
+            if span / (f * k * YEAR_MS_APPROX) < max_ticks {
+                return TimeStep::Years(f * k);
+            }
+        }
+        k *= 10;
+    }
+    TimeStep::Years(k)
+}
+
+/// Tick instants in [t0, t1], aligned to whole units in UTC (weeks start on Monday).
+fn time_ticks(t0: i64, t1: i64, step: TimeStep) -> Vec<i64> {
+    const CAP: usize = 200;
+    let mut v = Vec::new();
+    match step {
+        TimeStep::Ms(s) => {
+            // 1970-01-05 was a Monday (checked with Python's datetime module).
+            let off = if s % (7 * DAY_MS) == 0 { 4 * DAY_MS } else { 0 };
+            let mut t = (t0 - off).div_euclid(s) * s + off;
+            if t < t0 {
+                t += s;
+            }
+            while t <= t1 && v.len() < CAP {
+                v.push(t);
+                t += s;
+            }
+        }
+        TimeStep::Months(k) => {
+            let c = civil(t0);
+            let mut m = (c.y * 12 + i64::from(c.mo) - 1).div_euclid(k) * k;
+            for _ in 0..(CAP * 2) {
+                let (y, mo) = (m.div_euclid(12), (m.rem_euclid(12) + 1) as u32);
+                let t = days_from_civil(y, mo, 1) * DAY_MS;
+                if t > t1 || v.len() >= CAP {
+                    break;
+                }
+                if t >= t0 {
+                    v.push(t);
+                }
+                m += k;
+            }
+        }
+        TimeStep::Years(k) => {
+            let mut y = civil(t0).y.div_euclid(k) * k;
+            for _ in 0..(CAP * 2) {
+                let t = days_from_civil(y, 1, 1) * DAY_MS;
+                if t > t1 || v.len() >= CAP {
+                    break;
+                }
+                if t >= t0 {
+                    v.push(t);
+                }
+                y += k;
+            }
+        }
+    }
+    v
+}
+
+/// Label of a tick for the step in use.
+fn time_label(t: i64, step: TimeStep) -> String {
+    let c = civil(t);
+    match step {
+        TimeStep::Ms(s) if s < DAY_MS => {
+            format!("{:02}-{:02} {:02}:{:02}", c.mo, c.d, c.h, c.mi)
+        }
+        TimeStep::Ms(_) => format!("{:04}-{:02}-{:02}", c.y, c.mo, c.d),
+        TimeStep::Months(_) => format!("{:04}-{:02}", c.y, c.mo),
+        TimeStep::Years(_) => format!("{:04}", c.y),
+    }
+}
+
+/// Ticks and labels of a time axis, plus the x-axis caption ("time (UTC)", with the year
+/// when the tick labels leave it out).
+struct TimeAxis {
+    scale: TimeScale,
+    step: TimeStep,
+    ticks: Vec<(i64, String)>,
+    caption: String,
+}
+
+fn time_axis(scale: TimeScale) -> TimeAxis {
+    let step = choose_time_step(scale.t1 - scale.t0, 9);
+    let ticks = time_ticks(scale.t0, scale.t1, step)
+        .into_iter()
+        .map(|t| (t, time_label(t, step)))
+        .collect();
+    let caption = match step {
+        TimeStep::Ms(s) if s < DAY_MS => {
+            let (a, b) = (civil(scale.t0).y, civil(scale.t1).y);
+            if a == b {
+                format!("time (UTC), {a}")
+            } else {
+                format!("time (UTC), {a}–{b}")
+            }
+        }
+        _ => "time (UTC)".to_string(),
+    };
+    TimeAxis {
+        scale,
+        step,
+        ticks,
+        caption,
+    }
+}
+
+impl TimeAxis {
+    /// Date text for a label on this axis: with the time of day when ticks are sub-day.
+    fn when(&self, t: i64) -> String {
+        match self.step {
+            TimeStep::Ms(s) if s < DAY_MS => fmt_datetime(t),
+            _ => fmt_date(t),
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Series geometry: raw samples, per-column decimation, paths
+// ---------------------------------------------------------------------------------------------
+
+/// One sample in pixel space. `y: None` breaks the line.
+#[derive(Clone, Copy, Debug)]
+struct Px {
+    x: f64,
+    y: Option<f64>,
+    /// (upper, lower) pixel rows of a band around `y` (uncertainty).
+    band: Option<(f64, f64)>,
+    /// (upper, lower) pixel rows of the column envelope (decimated samples only).
+    env: Option<(f64, f64)>,
+    good: bool,
+}
+
+/// Running aggregate of the samples falling in one pixel column.
+#[derive(Clone, Copy, Default)]
+struct Column {
+    n: u32,
+    sum: f64,
+    min: f64,
+    max: f64,
+    uncertain: u32,
+    n_band: u32,
+    sum_hi: f64,
+    sum_lo: f64,
+}
+
+/// Series with more samples than this many per pixel column are decimated.
+const DECIMATE_PER_PX: f64 = 2.0;
+
+/// Samples as drawn: the raw ones, or one per pixel column when there are more than
+/// [`DECIMATE_PER_PX`] per pixel of the width they cover.
+fn drawable(samples: Vec<Px>, area: Area) -> (Vec<Px>, bool) {
+    let (lo, hi) = samples
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), s| {
+            (a.min(s.x), b.max(s.x))
+        });
+    let covered = (hi - lo).clamp(1.0, area.w().max(1.0));
+    if samples.len() as f64 > DECIMATE_PER_PX * covered {
+        (decimate(&samples, area), true)
+    } else {
+        (samples, false)
+    }
+}
+
+/// One sample per pixel column: mean line, min–max envelope, mean band; a column without a
+/// valid sample is a break.
+fn decimate(samples: &[Px], area: Area) -> Vec<Px> {
+    let ncols = area.w().ceil().max(1.0) as usize;
+    let mut cols = vec![Column::default(); ncols];
+    for s in samples {
+        let Some(y) = s.y else { continue };
+        let c = (s.x - area.x0).floor();
+        if !(c > -1.5 && c < ncols as f64 + 0.5) {
+            continue;
+        }
+        let col = &mut cols[(c.max(0.0) as usize).min(ncols - 1)];
+        if col.n == 0 {
+            (col.min, col.max) = (y, y);
+        } else {
+            col.min = col.min.min(y);
+            col.max = col.max.max(y);
+        }
+        col.n += 1;
+        col.sum += y;
+        if !s.good {
+            col.uncertain += 1;
+        }
+        if let Some((hi, lo)) = s.band {
+            col.n_band += 1;
+            col.sum_hi += hi;
+            col.sum_lo += lo;
+        }
+    }
+    cols.iter()
+        .enumerate()
+        .map(|(i, c)| {
+            let x = area.x0 + i as f64 + 0.5;
+            if c.n == 0 {
+                return Px {
+                    x,
+                    y: None,
+                    band: None,
+                    env: None,
+                    good: true,
+                };
+            }
+            let n = f64::from(c.n);
+            let band = (c.n_band > 0).then(|| {
+                let nb = f64::from(c.n_band);
+                (c.sum_hi / nb, c.sum_lo / nb)
+            });
+            Px {
+                x,
+                y: Some(c.sum / n),
+                band,
+                // Pixel rows grow downwards: the upper edge is the smallest row.
+                env: Some((c.min, c.max)),
+                good: c.uncertain * 2 <= c.n,
+            }
+        })
+        .collect()
+}
+
+/// Polyline through the valid samples, one sub-path per run; also the isolated points (runs
+/// of one sample), which a line cannot show.
+fn line_path(s: &[Px]) -> (String, Vec<(f64, f64)>) {
+    let mut d = String::new();
+    let mut isolated = Vec::new();
+    let mut run = 0usize;
+    for (i, p) in s.iter().enumerate() {
+        match p.y {
+            Some(y) => {
+                if run == 0 {
+                    if !d.is_empty() {
+                        d.push(' ');
+                    }
+                    w!(d, "M{},{}", N(p.x), N(y));
+                } else if run == 1 {
+                    w!(d, " L{},{}", N(p.x), N(y));
+                } else {
+                    w!(d, " {},{}", N(p.x), N(y));
+                }
+                run += 1;
+                let next_valid = s.get(i + 1).is_some_and(|q| q.y.is_some());
+                if run == 1 && !next_valid {
+                    isolated.push((p.x, y));
+                }
+            }
+            None => run = 0,
+        }
+    }
+    (d, isolated)
+}
+
+/// Closed areas between the two rows that `pick` gives, one per run of samples; runs of a
+/// single sample come back separately as vertical bars (a polygon would have no width).
+fn band_path(s: &[Px], pick: impl Fn(&Px) -> Option<(f64, f64)>) -> (String, String) {
+    let mut areas = String::new();
+    let mut bars = String::new();
+    let mut i = 0;
+    while i < s.len() {
+        if pick(&s[i]).is_none() {
+            i += 1;
+            continue;
+        }
+        let start = i;
+        while i < s.len() && pick(&s[i]).is_some() {
+            i += 1;
+        }
+        let run = &s[start..i];
+        if let [only] = run {
+            if let Some((a, b)) = pick(only) {
+                if !bars.is_empty() {
+                    bars.push(' ');
+                }
+                w!(bars, "M{},{} V{}", N(only.x), N(a), N(b));
+            }
+            continue;
+        }
+        if !areas.is_empty() {
+            areas.push(' ');
+        }
+        for (k, p) in run.iter().enumerate() {
+            if let Some((a, _)) = pick(p) {
+                match k {
+                    0 => w!(areas, "M{},{}", N(p.x), N(a)),
+                    1 => w!(areas, " L{},{}", N(p.x), N(a)),
+                    _ => w!(areas, " {},{}", N(p.x), N(a)),
+                }
+            }
+        }
+        for p in run.iter().rev() {
+            if let Some((_, b)) = pick(p) {
+                w!(areas, " {},{}", N(p.x), N(b));
+            }
+        }
+        areas.push_str(" Z");
+    }
+    (areas, bars)
+}
+
+/// Pixel spans of bad-quality gaps: from the last valid sample before a run of invalid ones
+/// to the first valid one after it; at least 1 px wide, merged where they touch.
+fn gap_spans(s: &[Px], area: Area) -> Vec<(f64, f64)> {
+    let mut spans: Vec<(f64, f64)> = Vec::new();
+    let mut last_valid: Option<f64> = None;
+    let mut open: Option<(f64, f64)> = None;
+    for p in s {
+        if p.y.is_some() {
+            if let Some((a, _)) = open.take() {
+                spans.push((a, p.x));
+            }
+            last_valid = Some(p.x);
+        } else {
+            open = match open {
+                Some((a, _)) => Some((a, p.x)),
+                None => Some((last_valid.unwrap_or(p.x), p.x)),
+            };
+        }
+    }
+    spans.extend(open);
+    let mut merged: Vec<(f64, f64)> = Vec::new();
+    for (a, b) in spans {
+        let (mut a, mut b) = (a.max(area.x0), b.min(area.x1));
+        if b - a < 1.0 {
+            let mid = 0.5 * (a + b);
+            (a, b) = (mid - 0.5, mid + 0.5);
+        }
+        match merged.last_mut() {
+            Some(last) if a <= last.1 + 0.5 => last.1 = last.1.max(b),
+            _ => merged.push((a, b)),
+        }
+    }
+    merged
+}
+
+// ---------------------------------------------------------------------------------------------
+// Drawing helpers
+// ---------------------------------------------------------------------------------------------
+
+/// `stroke-dasharray` attribute, or nothing for a solid line.
+fn dash_attr(dash: &str) -> String {
+    if dash.is_empty() {
+        String::new()
+    } else {
+        format!(" stroke-dasharray=\"{dash}\"")
+    }
+}
+
+fn clip_rect(out: &mut String, id: &str, a: Area) {
+    w!(
+        out,
+        "<clipPath id=\"{id}\"><rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\"/></clipPath>",
+        N(a.x0),
+        N(a.y0),
+        N(a.w()),
+        N(a.h())
+    );
+}
+
+/// Horizontal grid lines, tick labels and the rotated y label.
+fn draw_y_axis(out: &mut String, area: Area, ys: &YScale, label: &str) {
+    out.push_str("<g class=\"y-axis\">");
+    for (u, text) in &ys.axis.ticks {
+        let y = ys.y_axis_units(*u);
+        w!(
+            out,
+            "<line x1=\"{}\" y1=\"{y}\" x2=\"{}\" y2=\"{y}\" stroke=\"{C_GRID}\"/>\
+             <text x=\"{}\" y=\"{}\" text-anchor=\"end\" fill=\"{C_TEXT}\">{}</text>",
+            N(area.x0),
+            N(area.x1),
+            N(area.x0 - 5.0),
+            N(y + 3.5),
+            Esc(text),
+            y = N(y)
+        );
+    }
+    let (lx, ly) = (LEFT - 62.0, area.mid_y());
+    w!(
+        out,
+        "<text class=\"axis-label\" x=\"{}\" y=\"{}\" transform=\"rotate(-90 {} {})\" \
+         text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text></g>",
+        N(lx),
+        N(ly),
+        N(lx),
+        N(ly),
+        Esc(label)
+    );
+}
+
+/// Vertical grid lines at the time ticks, with labels below the area when `labels`.
+fn draw_time_grid(out: &mut String, area: Area, ta: &TimeAxis, labels: bool) {
+    out.push_str("<g class=\"x-axis\">");
+    for (t, text) in &ta.ticks {
+        let x = ta.scale.x(*t);
+        w!(
+            out,
+            "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{C_GRID}\"/>",
+            N(area.y0),
+            N(area.y1),
+            x = N(x)
+        );
+        if labels {
+            w!(
+                out,
+                "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{C_FRAME}\"/>\
+                 <text x=\"{x}\" y=\"{}\" text-anchor=\"middle\" fill=\"{C_TEXT}\">{}</text>",
+                N(area.y1),
+                N(area.y1 + 4.0),
+                N(area.y1 + 16.0),
+                Esc(text),
+                x = N(x)
+            );
+        }
+    }
+    out.push_str("</g>");
+}
+
+fn draw_frame(out: &mut String, a: Area) {
+    w!(
+        out,
+        "<rect class=\"frame\" x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"none\" stroke=\"{C_FRAME}\"/>",
+        N(a.x0),
+        N(a.y0),
+        N(a.w()),
+        N(a.h())
+    );
+}
+
+/// Centred grey message inside an area (used for "no data").
+fn draw_message(out: &mut String, a: Area, text: &str) {
+    w!(
+        out,
+        "<text class=\"no-data\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"14\" fill=\"{C_MUTED}\">{}</text>",
+        N(a.mid_x()),
+        N(a.mid_y()),
+        Esc(text)
+    );
+}
+
+/// A marker's shape centred at (x, y), size `r` px; each kind has its own shape.
+fn marker_shape(out: &mut String, kind: MarkerKind, x: f64, y: f64, r: f64) {
+    let c = kind.colour();
+    match kind {
+        // Triangle pointing down.
+        MarkerKind::Alert => w!(
+            out,
+            "<path d=\"M{},{} L{},{} {},{} Z\" fill=\"{c}\" stroke=\"#fff\" stroke-width=\"0.8\"/>",
+            N(x - r),
+            N(y - 0.8 * r),
+            N(x + r),
+            N(y - 0.8 * r),
+            N(x),
+            N(y + r)
+        ),
+        // Diamond.
+        MarkerKind::Alarm => w!(
+            out,
+            "<path d=\"M{},{} L{},{} {},{} {},{} Z\" fill=\"{c}\" stroke=\"#fff\" stroke-width=\"0.8\"/>",
+            N(x),
+            N(y - 1.2 * r),
+            N(x + r),
+            N(y),
+            N(x),
+            N(y + 1.2 * r),
+            N(x - r),
+            N(y)
+        ),
+        // Hollow circle.
+        MarkerKind::Cleared => w!(
+            out,
+            "<circle cx=\"{}\" cy=\"{}\" r=\"{}\" fill=\"#fff\" stroke=\"{c}\" stroke-width=\"2\"/>",
+            N(x),
+            N(y),
+            N(0.8 * r)
+        ),
+        // Square.
+        MarkerKind::Operator => w!(
+            out,
+            "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"{c}\" stroke=\"#fff\" stroke-width=\"0.8\"/>",
+            N(x - 0.8 * r),
+            N(y - 0.8 * r),
+            N(1.6 * r),
+            N(1.6 * r)
+        ),
+    }
+}
+
+/// Markers inside the time range as vertical lines with a shape at the top, each in a
+/// `<g class="marker KIND">` with a `<title>`; labels are also written beside them when
+/// `with_text` (few markers, room for text). Returns how many fell outside the range.
+fn draw_markers(
+    out: &mut String,
+    markers: &[Marker],
+    ta: &TimeAxis,
+    area: Area,
+    r: f64,
+    with_text: bool,
+) -> usize {
+    let mut outside = 0;
+    for m in markers {
+        if !sane_t(m.t_ms) || !ta.scale.contains(m.t_ms) {
+            outside += 1;
+            continue;
+        }
+        let x = ta.scale.x(m.t_ms);
+        let kind = m.kind;
+        w!(
+            out,
+            "<g class=\"marker {}\"><title>{} {} UTC: {}</title>",
+            kind.class(),
+            kind.class(),
+            fmt_datetime(m.t_ms),
+            Esc(&m.label)
+        );
+        w!(
+            out,
+            "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{}\" stroke-width=\"{}\"{}/>",
+            N(area.y0),
+            N(area.y1),
+            kind.colour(),
+            if kind == MarkerKind::Alarm {
+                "1.5"
+            } else {
+                "1"
+            },
+            dash_attr(kind.dash()),
+            x = N(x)
+        );
+        marker_shape(out, kind, x, area.y0, r);
+        if with_text && !m.label.trim().is_empty() {
+            let (tx, ty) = (x + 3.5, area.y0 + 10.0);
+            w!(
+                out,
+                "<text x=\"{}\" y=\"{}\" transform=\"rotate(90 {} {})\" font-size=\"9\" fill=\"{C_TEXT}\" \
+                 stroke=\"#fff\" stroke-width=\"3\" paint-order=\"stroke\">{}</text>",
+                N(tx),
+                N(ty),
+                N(tx),
+                N(ty),
+                Esc(&truncate(&m.label, 40))
+            );
+        }
+        out.push_str("</g>");
+    }
+    outside
+}
+
+// ---------------------------------------------------------------------------------------------
+// Legend
+// ---------------------------------------------------------------------------------------------
+
+/// What a legend entry shows before its text.
+#[derive(Clone, Copy)]
+enum Swatch {
+    Line {
+        colour: &'static str,
+        dash: &'static str,
+        width: f64,
+    },
+    Band(&'static str, f64),
+    Hollow(&'static str),
+    Marker(MarkerKind),
+}
+
+struct LegendItem {
+    swatch: Swatch,
+    text: String,
+}
+
+fn legend_item(swatch: Swatch, text: impl Into<String>) -> LegendItem {
+    LegendItem {
+        swatch,
+        text: text.into(),
+    }
+}
+
+/// Places entries left to right from `x0`, wrapping before `x1`; returns (x, baseline y) per
+/// entry and the number of rows.
+fn legend_layout(items: &[LegendItem], x0: f64, x1: f64, y: f64) -> (Vec<(f64, f64)>, usize) {
+    let mut pos = Vec::with_capacity(items.len());
+    let (mut x, mut row) = (x0, 0usize);
+    for it in items {
+        let wdt = 26.0 + text_width(&it.text, 11.0) + 16.0;
+        if x > x0 && x + wdt > x1 {
+            x = x0;
+            row += 1;
+        }
+        pos.push((x, y + 16.0 * row as f64));
+        x += wdt;
+    }
+    (pos, if items.is_empty() { 0 } else { row + 1 })
+}
+
+fn draw_legend_items(out: &mut String, items: &[LegendItem], pos: &[(f64, f64)]) {
+    for (it, &(x, y)) in items.iter().zip(pos) {
+        out.push_str("<g class=\"legend-item\">");
+        let sy = y - 4.0;
+        match it.swatch {
+            Swatch::Line {
+                colour,
+                dash,
+                width,
+            } => w!(
+                out,
+                "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"{colour}\" stroke-width=\"{width}\"{}/>",
+                N(x),
+                N(sy),
+                N(x + 22.0),
+                N(sy),
+                dash_attr(dash)
+            ),
+            Swatch::Band(fill, opacity) => w!(
+                out,
+                "<rect x=\"{}\" y=\"{}\" width=\"22\" height=\"10\" fill=\"{fill}\" fill-opacity=\"{opacity}\"/>",
+                N(x),
+                N(sy - 5.0)
+            ),
+            Swatch::Hollow(colour) => w!(
+                out,
+                "<circle cx=\"{}\" cy=\"{}\" r=\"3\" fill=\"#fff\" stroke=\"{colour}\" stroke-width=\"1.3\"/>",
+                N(x + 11.0),
+                N(sy)
+            ),
+            Swatch::Marker(kind) => {
+                w!(
+                    out,
+                    "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"{}\"{}/>",
+                    N(x + 11.0),
+                    N(sy - 6.0),
+                    N(x + 11.0),
+                    N(sy + 6.0),
+                    kind.colour(),
+                    dash_attr(kind.dash())
+                );
+                marker_shape(out, kind, x + 11.0, sy, 4.5);
+            }
+        }
+        w!(
+            out,
+            "<text x=\"{}\" y=\"{}\" fill=\"{C_TEXT}\">{}</text></g>",
+            N(x + 26.0),
+            N(y),
+            Esc(&it.text)
+        );
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Preparing a reactor's data
+// ---------------------------------------------------------------------------------------------
+
+/// Points with a plottable time, sorted by time (stable).
+fn sorted_points(points: &[PlotPoint]) -> Vec<&PlotPoint> {
+    let mut v: Vec<&PlotPoint> = points.iter().filter(|p| sane_t(p.t_ms)).collect();
+    v.sort_by_key(|p| p.t_ms);
+    v
+}
+
+/// A projection point with every value usable; `lo ≤ hi`.
+#[derive(Clone, Copy, Debug)]
+struct ProjPt {
+    t: i64,
+    fit: f64,
+    lo: f64,
+    hi: f64,
+}
+
+fn projection_points(pr: &Projection) -> Vec<ProjPt> {
+    let mut v: Vec<ProjPt> = pr
+        .points
+        .iter()
+        .filter(|&&(t, f, a, b)| sane_t(t) && usable(f) && usable(a) && usable(b))
+        .map(|&(t, fit, a, b)| ProjPt {
+            t,
+            fit,
+            lo: a.min(b),
+            hi: a.max(b),
+        })
+        .collect();
+    v.sort_by_key(|p| p.t);
+    v
+}
+
+/// The part of a projection inside [t0, t1], with points interpolated on the bounds.
+fn clip_projection(v: &[ProjPt], t0: i64, t1: i64) -> Vec<ProjPt> {
+    let lerp = |p: ProjPt, q: ProjPt, t: i64| {
+        let f = (t as f64 - p.t as f64) / (q.t as f64 - p.t as f64);
+        ProjPt {
+            t,
+            fit: p.fit + f * (q.fit - p.fit),
+            lo: p.lo + f * (q.lo - p.lo),
+            hi: p.hi + f * (q.hi - p.hi),
+        }
+    };
+    let mut out = Vec::new();
+    for (i, &p) in v.iter().enumerate() {
+        if i > 0 {
+            let q = v[i - 1];
+            for bound in [t0, t1] {
+                if q.t < bound && p.t > bound {
+                    out.push(lerp(q, p, bound));
+                }
+            }
+        }
+        if (t0..=t1).contains(&p.t) {
+            out.push(p);
+        }
+    }
+    out
+}
+
+/// The time range of a reactor chart, and the end of run when the range could not reach it.
+struct Domain {
+    t0: i64,
+    t1: i64,
+    /// Last data time (the trend becomes a projection after it).
+    data_end: i64,
+}
+
+fn reactor_domain(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Option<Domain> {
+    let (d0, d1) = match (pts.first(), pts.last()) {
+        (Some(a), Some(b)) => (a.t_ms, b.t_ms),
+        _ => {
+            // No evaluations: show whatever else has a time, or nothing.
+            let times = p
+                .markers
+                .iter()
+                .map(|m| m.t_ms)
+                .chain(p.baselines.iter().flat_map(|b| [b.from_ms, b.to_ms]))
+                .chain(proj.iter().map(|q| q.t))
+                .filter(|&t| sane_t(t));
+            let (mut lo, mut hi) = (None::<i64>, None::<i64>);
+            for t in times {
+                lo = Some(lo.map_or(t, |v| v.min(t)));
+                hi = Some(hi.map_or(t, |v| v.max(t)));
+            }
+            let (lo, hi) = (lo?, hi?);
+            return Some(Domain {
+                t0: lo,
+                t1: hi,
+                data_end: hi,
+            });
+        }
+    };
+    let mut want_end = d1;
+    if let Some(pr) = &p.projection {
+        if let Some(e) = pr.end_of_run_ms.filter(|&e| sane_t(e)) {
+            want_end = want_end.max(e);
+        }
+        if let Some(last) = proj.last() {
+            want_end = want_end.max(last.t);
+        }
+    }
+    let cap_end = d1 + PROJECTION_SPANS * (d1 - d0).max(DAY_MS);
+    let mut t1 = want_end.min(cap_end).max(d1);
+    if t1 > d1 {
+        // Room after the end of run so that its line does not sit on the frame.
+        t1 += (t1 - d0) / 50;
+    }
+    Some(Domain {
+        t0: d0,
+        t1,
+        data_end: d1,
+    })
+}
+
+// ---------------------------------------------------------------------------------------------
+// reactor_svg
+// ---------------------------------------------------------------------------------------------
+
+/// One SVG document for one reactor: the approach to equilibrium (top) and the key component,
+/// measured and at equilibrium (bottom), on a shared UTC time axis. About 1000×640 px.
+pub fn reactor_svg(p: &ReactorPlot) -> String {
+    let mut out = String::with_capacity(96 * 1024);
+    let pts = sorted_points(&p.points);
+    let proj_all = p
+        .projection
+        .as_ref()
+        .map(projection_points)
+        .unwrap_or_default();
+    let domain = reactor_domain(p, &pts, &proj_all);
+    let key = if p.key_component.trim().is_empty() {
+        "key component"
+    } else {
+        p.key_component.as_str()
+    };
+    let title = if p.title.trim().is_empty() {
+        p.reactor.as_str()
+    } else {
+        p.title.as_str()
+    };
+
+    w!(
+        out,
+        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\" \
+         font-family=\"sans-serif\" font-size=\"11\" role=\"img\" aria-labelledby=\"svg-title svg-desc\">",
+        w = WIDTH,
+        h = HEIGHT
+    );
+    w!(out, "<title id=\"svg-title\">{}</title>", Esc(title));
+    w!(
+        out,
+        "<desc id=\"svg-desc\">advisory: not a safety function. Approach to equilibrium of reactor {} \
+         and its key component {}, measured and at equilibrium.</desc>",
+        Esc(&p.reactor),
+        Esc(key)
+    );
+
+    // Legend first (its height sets where the top chart starts); drawn at the end.
+    let items = approach_legend(p, &pts, &proj_all);
+    let (legend_pos, rows) = legend_layout(&items, LEFT, RIGHT, 44.0);
+    let heading_y = 44.0 + 16.0 * rows.max(1) as f64 + 4.0;
+    let top = Area {
+        x0: LEFT,
+        y0: heading_y + 10.0,
+        x1: RIGHT,
+        y1: 370.0,
+    };
+    let bottom = Area {
+        x0: LEFT,
+        y0: 420.0,
+        x1: RIGHT,
+        y1: 578.0,
+    };
+    let key_items = vec![
+        legend_item(
+            Swatch::Line {
+                colour: C_MEASURED,
+                dash: "",
+                width: 1.6,
+            },
+            format!("{key} measured"),
+        ),
+        legend_item(
+            Swatch::Line {
+                colour: C_EQUILIBRIUM,
+                dash: DASH_EQUILIBRIUM,
+                width: 1.6,
+            },
+            format!("{key} at equilibrium"),
+        ),
+    ];
+    let key_heading = format!("{key}: measured and at equilibrium");
+    let key_legend_x = (LEFT + text_width(&key_heading, 13.0) + 30.0).min(RIGHT - 300.0);
+    let (key_pos, _) = legend_layout(&key_items, key_legend_x, RIGHT, 410.0);
+
+    out.push_str("<defs>");
+    clip_rect(&mut out, "clip-approach", top);
+    clip_rect(&mut out, "clip-key", bottom);
+    out.push_str("</defs>");
+    w!(
+        out,
+        "<rect width=\"{}\" height=\"{}\" fill=\"#fff\"/>",
+        WIDTH,
+        HEIGHT
+    );
+    w!(
+        out,
+        "<text class=\"title\" x=\"16\" y=\"24\" font-size=\"16\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
+        Esc(title)
+    );
+    w!(
+        out,
+        "<text class=\"chart-title\" x=\"{}\" y=\"{}\" font-size=\"13\" font-weight=\"bold\" fill=\"{C_TEXT}\">Approach to equilibrium</text>",
+        N(LEFT),
+        N(heading_y)
+    );
+    w!(
+        out,
+        "<text class=\"chart-title\" x=\"{}\" y=\"410\" font-size=\"13\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
+        N(LEFT),
+        Esc(&key_heading)
+    );
+
+    match domain {
+        Some(d) => {
+            let ta = time_axis(TimeScale::new(d.t0, d.t1, LEFT, RIGHT));
+            approach_chart(&mut out, p, &pts, &proj_all, &d, &ta, top);
+            key_chart(&mut out, &pts, key, &ta, bottom);
+            w!(
+                out,
+                "<text class=\"axis-label\" x=\"{}\" y=\"612\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text>",
+                N(bottom.mid_x()),
+                Esc(&ta.caption)
+            );
+        }
+        None => {
+            for id in [
+                "gaps",
+                "uncertainty",
+                "baseline",
+                "projection",
+                "trend",
+                "limit",
+                "approach",
+                "uncertain-quality",
+                "end-of-run",
+                "markers",
+            ] {
+                w!(out, "<g id=\"{id}\"/>");
+            }
+            out.push_str("<g id=\"key-measured\"/><g id=\"key-equilibrium\"/>");
+            draw_frame(&mut out, top);
+            draw_message(&mut out, top, "no data");
+            draw_frame(&mut out, bottom);
+            draw_message(&mut out, bottom, "no data");
+            w!(
+                out,
+                "<text class=\"axis-label\" x=\"{}\" y=\"612\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">time (UTC)</text>",
+                N(bottom.mid_x())
+            );
+        }
+    }
+
+    w!(
+        out,
+        "<text class=\"footer\" x=\"16\" y=\"632\" font-size=\"10\" fill=\"{C_MUTED}\">advisory: not a safety function. \
+         eqwatch, reactor {}</text>",
+        Esc(&p.reactor)
+    );
+    out.push_str("<g id=\"legend\">");
+    draw_legend_items(&mut out, &items, &legend_pos);
+    draw_legend_items(&mut out, &key_items, &key_pos);
+    out.push_str("</g></svg>\n");
+    out
+}
+
+/// Legend entries of the approach chart: only what the chart has.
+fn approach_legend(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Vec<LegendItem> {
+    let mut v = vec![legend_item(
+        Swatch::Line {
+            colour: C_APPROACH,
+            dash: "",
+            width: 1.8,
+        },
+        "approach",
+    )];
+    if pts.iter().any(|q| q.uncertainty_k.is_some_and(usable)) {
+        v.push(legend_item(Swatch::Band(C_BAND, 0.35), "± uncertainty"));
+    }
+    if pts
+        .iter()
+        .any(|q| !q.good && q.approach_k.is_some_and(usable))
+    {
+        v.push(legend_item(Swatch::Hollow(C_APPROACH), "uncertain quality"));
+    }
+    if pts.iter().any(|q| !q.approach_k.is_some_and(usable)) {
+        v.push(legend_item(Swatch::Band(C_GAP, 0.3), "bad quality (gap)"));
+    }
+    if p.baselines.iter().any(|b| usable(b.approach_k)) {
+        v.push(legend_item(
+            Swatch::Line {
+                colour: C_BASELINE,
+                dash: DASH_BASELINE,
+                width: 1.6,
+            },
+            "baseline",
+        ));
+    }
+    if !proj.is_empty() {
+        v.push(legend_item(
+            Swatch::Line {
+                colour: C_TREND,
+                dash: DASH_TREND,
+                width: 1.6,
+            },
+            "trend",
+        ));
+        v.push(legend_item(
+            Swatch::Line {
+                colour: C_TREND,
+                dash: DASH_FORWARD,
+                width: 1.6,
+            },
+            "projection",
+        ));
+        v.push(legend_item(
+            Swatch::Band(C_PROJ_BAND, 0.3),
+            "prediction band",
+        ));
+    }
+    if p.limit_k.is_some_and(usable) {
+        v.push(legend_item(
+            Swatch::Line {
+                colour: C_LIMIT,
+                dash: DASH_LIMIT,
+                width: 1.6,
+            },
+            "end-of-run limit",
+        ));
+    }
+    if p.projection
+        .as_ref()
+        .is_some_and(|pr| pr.end_of_run_ms.is_some())
+    {
+        v.push(legend_item(
+            Swatch::Line {
+                colour: C_END_OF_RUN,
+                dash: DASH_END_OF_RUN,
+                width: 1.4,
+            },
+            "end of run",
+        ));
+    }
+    for kind in MarkerKind::ALL {
+        if p.markers.iter().any(|m| m.kind == kind) {
+            v.push(legend_item(Swatch::Marker(kind), kind.class()));
+        }
+    }
+    v
+}
+
+/// The y range of the approach chart: approach values, baselines, trend and limit set it;
+/// uncertainty and prediction bands may widen it by at most half of that range.
+fn approach_y_range(
+    p: &ReactorPlot,
+    pts: &[&PlotPoint],
+    proj: &[ProjPt],
+    ts: &TimeScale,
+) -> Option<(f64, f64)> {
+    let baselines = p.baselines.iter().filter(|b| {
+        usable(b.approach_k) && b.from_ms.min(b.to_ms) <= ts.t1 && b.from_ms.max(b.to_ms) >= ts.t0
+    });
+    let core = pts
+        .iter()
+        .filter_map(|q| q.approach_k)
+        .chain(baselines.clone().map(|b| b.approach_k))
+        .chain(proj.iter().map(|q| q.fit))
+        .chain(p.limit_k)
+        .filter(|v| usable(*v));
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    for v in core {
+        lo = lo.min(v);
+        hi = hi.max(v);
+    }
+    if lo > hi {
+        return None;
+    }
+    if lo >= 0.0 && lo <= 0.5 * hi {
+        lo = 0.0;
+    }
+    let span = (hi - lo).max(hi.abs().max(lo.abs()) * 0.1).max(1.0);
+    let (elo, ehi) = (lo - 0.5 * span, hi + 0.5 * span);
+    let extras = pts
+        .iter()
+        .filter_map(|q| match (q.approach_k, q.uncertainty_k) {
+            (Some(a), Some(u)) if usable(a) && usable(u) => Some([a - u.abs(), a + u.abs()]),
+            _ => None,
+        })
+        .flatten()
+        .chain(baselines.filter_map(|b| {
+            b.sigma_k
+                .filter(|s| usable(*s))
+                .map(|s| b.approach_k + s.abs())
+        }))
+        .chain(proj.iter().flat_map(|q| [q.lo, q.hi]));
+    for v in extras.filter(|v| usable(*v)) {
+        lo = lo.min(v.max(elo));
+        hi = hi.max(v.min(ehi));
+    }
+    Some((lo, hi))
+}
+
+/// The top chart. Groups are always written (possibly empty) so that the structure is stable.
+fn approach_chart(
+    out: &mut String,
+    p: &ReactorPlot,
+    pts: &[&PlotPoint],
+    proj_all: &[ProjPt],
+    d: &Domain,
+    ta: &TimeAxis,
+    area: Area,
+) {
+    let ts = ta.scale;
+    let proj = clip_projection(proj_all, ts.t0, ts.t1);
+    let range = approach_y_range(p, pts, &proj, &ts);
+    let ys = YScale {
+        axis: match range {
+            Some((lo, hi)) => linear_axis(lo, hi, 6),
+            None => linear_axis(0.0, 1.0, 6),
+        },
+        top: area.y0,
+        bottom: area.y1,
+    };
+    draw_time_grid(out, area, ta, true);
+    if range.is_some() {
+        draw_y_axis(out, area, &ys, "approach to equilibrium (K)");
+    } else {
+        let (lx, ly) = (LEFT - 62.0, area.mid_y());
+        w!(
+            out,
+            "<text class=\"axis-label\" x=\"{}\" y=\"{}\" transform=\"rotate(-90 {} {})\" text-anchor=\"middle\" \
+             font-size=\"12\" fill=\"{C_TEXT}\">approach to equilibrium (K)</text>",
+            N(lx),
+            N(ly),
+            N(lx),
+            N(ly)
+        );
+    }
+
+    let samples: Vec<Px> = pts
+        .iter()
+        .map(|q| {
+            let a = q.approach_k.filter(|v| usable(*v));
+            let y = if range.is_some() {
+                a.and_then(|v| ys.y(v))
+            } else {
+                None
+            };
+            let band = match (y, a, q.uncertainty_k.filter(|u| usable(*u))) {
+                (Some(_), Some(a), Some(u)) => ys.y(a + u.abs()).zip(ys.y(a - u.abs())),
+                _ => None,
+            };
+            Px {
+                x: ts.x(q.t_ms),
+                y,
+                band,
+                env: None,
+                good: q.good,
+            }
+        })
+        .collect();
+    let gaps = gap_spans(&samples, area);
+    let (series, decimated) = drawable(samples, area);
+    let clip = "clip-path=\"url(#clip-approach)\"";
+
+    // Bad-quality gaps.
+    w!(
+        out,
+        "<g id=\"gaps\" {clip} fill=\"{C_GAP}\" fill-opacity=\"0.22\">"
+    );
+    for (a, b) in &gaps {
+        w!(
+            out,
+            "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\"/>",
+            N(*a),
+            N(area.y0),
+            N(b - a),
+            N(area.h())
+        );
+    }
+    out.push_str("</g>");
+
+    // Uncertainty band.
+    let (band, bars) = band_path(&series, |q| q.band);
+    w!(out, "<g id=\"uncertainty\" {clip}>");
+    if !band.is_empty() {
+        w!(
+            out,
+            "<path class=\"band\" d=\"{band}\" fill=\"{C_BAND}\" fill-opacity=\"0.35\" stroke=\"none\"/>"
+        );
+    }
+    if !bars.is_empty() {
+        w!(
+            out,
+            "<path class=\"bar\" d=\"{bars}\" stroke=\"{C_BAND}\" stroke-width=\"3\" fill=\"none\"/>"
+        );
+    }
+    out.push_str("</g>");
+
+    projection_groups(out, p, &proj, d, &ts, &ys, range.is_some());
+    limit_group(out, p, &ys, area, range.is_some());
+
+    // Approach line (with envelope when decimated).
+    w!(out, "<g id=\"approach\" {clip}>");
+    if decimated {
+        let (env, env_bars) = band_path(&series, |q| q.y.and(q.env));
+        if !env.is_empty() || !env_bars.is_empty() {
+            let d = [env, env_bars]
+                .into_iter()
+                .filter(|s| !s.is_empty())
+                .collect::<Vec<_>>()
+                .join(" ");
+            w!(
+                out,
+                "<path class=\"envelope\" d=\"{d}\" fill=\"{C_APPROACH}\" fill-opacity=\"0.18\" \
+                 stroke=\"{C_APPROACH}\" stroke-opacity=\"0.3\" stroke-width=\"1\"/>"
+            );
+        }
+    }
+    let (line, isolated) = line_path(&series);
+    if !line.is_empty() {
+        w!(
+            out,
+            "<path class=\"line\" d=\"{line}\" fill=\"none\" stroke=\"{C_APPROACH}\" stroke-width=\"1.8\" stroke-linejoin=\"round\"/>"
+        );
+    }
+    let n_valid = series.iter().filter(|q| q.y.is_some()).count();
+    for q in &series {
+        let Some(y) = q.y else { continue };
+        let lone = isolated.contains(&(q.x, y));
+        if q.good && (lone || (!decimated && n_valid <= 60)) {
+            w!(
+                out,
+                "<circle class=\"point\" cx=\"{}\" cy=\"{}\" r=\"2.6\" fill=\"{C_APPROACH}\"/>",
+                N(q.x),
+                N(y)
+            );
+        }
+    }
+    out.push_str("</g>");
+
+    // Uncertain quality: hollow circles (per column when decimated).
+    w!(
+        out,
+        "<g id=\"uncertain-quality\" {clip} fill=\"#fff\" stroke=\"{C_APPROACH}\" stroke-width=\"1.3\">"
+    );
+    for q in series.iter().filter(|q| !q.good) {
+        if let Some(y) = q.y {
+            w!(out, "<circle cx=\"{}\" cy=\"{}\" r=\"3\"/>", N(q.x), N(y));
+        }
+    }
+    out.push_str("</g>");
+
+    baselines_group(out, p, &ts, &ys, area, range.is_some());
+    end_of_run_group(out, p, ta, &ys, area, range.is_some());
+
+    out.push_str("<g id=\"markers\">");
+    let n_in = p
+        .markers
+        .iter()
+        .filter(|m| sane_t(m.t_ms) && ts.contains(m.t_ms))
+        .count();
+    let outside = draw_markers(out, &p.markers, ta, area, 5.5, n_in <= MARKER_TEXT_MAX);
+    if outside > 0 {
+        w!(
+            out,
+            "<text class=\"note\" x=\"{}\" y=\"{}\" text-anchor=\"end\" font-size=\"10\" fill=\"{C_MUTED}\">{} marker{} outside the time range not shown</text>",
+            N(area.x1),
+            N(area.y1 + 28.0),
+            outside,
+            if outside == 1 { "" } else { "s" }
+        );
+    }
+    out.push_str("</g>");
+
+    draw_frame(out, area);
+    if n_valid == 0 {
+        draw_message(out, area, "no data: no valid approach value");
+    }
+}
+
+fn baselines_group(
+    out: &mut String,
+    p: &ReactorPlot,
+    ts: &TimeScale,
+    ys: &YScale,
+    area: Area,
+    has_axis: bool,
+) {
+    w!(out, "<g id=\"baseline\" clip-path=\"url(#clip-approach)\">");
+    for b in p.baselines.iter().filter(|_| has_axis) {
+        if !usable(b.approach_k) || !sane_t(b.from_ms) || !sane_t(b.to_ms) {
+            continue;
+        }
+        let (a, z) = (
+            b.from_ms.min(b.to_ms).max(ts.t0),
+            b.from_ms.max(b.to_ms).min(ts.t1),
+        );
+        if a > z {
+            continue;
+        }
+        let Some(y) = ys.y(b.approach_k) else {
+            continue;
+        };
+        let (xa, xz) = (ts.x(a), ts.x(z).max(ts.x(a) + 1.0));
+        let sigma = b.sigma_k.filter(|s| usable(*s)).map(f64::abs);
+        w!(
+            out,
+            "<g class=\"baseline-span\"><title>baseline {} K{} from {} to {} UTC</title>",
+            fmt_sig(b.approach_k, 3),
+            sigma.map_or(String::new(), |s| format!(" ± {}", fmt_sig(s, 2))),
+            fmt_datetime(b.from_ms.min(b.to_ms)),
+            fmt_datetime(b.from_ms.max(b.to_ms))
+        );
+        if let Some((yh, yl)) =
+            sigma.and_then(|s| ys.y(b.approach_k + s).zip(ys.y(b.approach_k - s)))
+        {
+            w!(
+                out,
+                "<rect class=\"sigma\" x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"{C_BASELINE}\" fill-opacity=\"0.12\"/>",
+                N(xa),
+                N(yh),
+                N(xz - xa),
+                N(yl - yh)
+            );
+        }
+        w!(
+            out,
+            "<path class=\"line\" d=\"M{},{} H{}\" stroke=\"{C_BASELINE}\" stroke-width=\"1.8\"{} fill=\"none\"/>",
+            N(xa),
+            N(y),
+            N(xz),
+            dash_attr(DASH_BASELINE)
+        );
+        w!(
+            out,
+            "<text x=\"{}\" y=\"{}\" font-size=\"10\" fill=\"{C_BASELINE}\" stroke=\"#fff\" stroke-width=\"3\" \
+             paint-order=\"stroke\">baseline {} K</text></g>",
+            N(xa.max(area.x0) + 3.0),
+            N(y - 4.0),
+            fmt_sig(b.approach_k, 3)
+        );
+    }
+    out.push_str("</g>");
+}
+
+/// `trend` (the fit over the data) and `projection` (prediction band and the fit forward).
+fn projection_groups(
+    out: &mut String,
+    p: &ReactorPlot,
+    proj: &[ProjPt],
+    d: &Domain,
+    ts: &TimeScale,
+    ys: &YScale,
+    has_axis: bool,
+) {
+    let to_px = |v: &[ProjPt], band: bool| -> Vec<Px> {
+        v.iter()
+            .map(|q| Px {
+                x: ts.x(q.t),
+                y: ys.y(q.fit),
+                band: if band {
+                    ys.y(q.hi).zip(ys.y(q.lo))
+                } else {
+                    None
+                },
+                env: None,
+                good: true,
+            })
+            .collect()
+    };
+    let clip = "clip-path=\"url(#clip-approach)\"";
+    w!(out, "<g id=\"projection\" {clip}>");
+    if has_axis && !proj.is_empty() {
+        let all = to_px(proj, true);
+        let (band, bars) = band_path(&all, |q| q.band);
+        if !band.is_empty() {
+            w!(
+                out,
+                "<path class=\"band\" d=\"{band}\" fill=\"{C_PROJ_BAND}\" fill-opacity=\"0.25\" stroke=\"none\"/>"
+            );
+        }
+        if !bars.is_empty() {
+            w!(
+                out,
+                "<path class=\"bar\" d=\"{bars}\" stroke=\"{C_PROJ_BAND}\" stroke-width=\"3\" fill=\"none\"/>"
+            );
+        }
+        let forward = to_px(&clip_projection(proj, d.data_end, ts.t1), false);
+        let (line, _) = line_path(&forward);
+        if forward.len() > 1 && !line.is_empty() {
+            w!(
+                out,
+                "<path class=\"line\" d=\"{line}\" fill=\"none\" stroke=\"{C_TREND}\" stroke-width=\"1.8\"{}/>",
+                dash_attr(DASH_FORWARD)
+            );
+        }
+    }
+    out.push_str("</g>");
+
+    w!(out, "<g id=\"trend\">");
+    if has_axis && !proj.is_empty() {
+        let fit = to_px(&clip_projection(proj, ts.t0, d.data_end), false);
+        let (line, _) = line_path(&fit);
+        if fit.len() > 1 && !line.is_empty() {
+            w!(
+                out,
+                "<path class=\"line\" d=\"{line}\" {clip} fill=\"none\" stroke=\"{C_TREND}\" stroke-width=\"1.6\"{}/>",
+                dash_attr(DASH_TREND)
+            );
+        }
+        if let Some(pr) = p
+            .projection
+            .as_ref()
+            .filter(|pr| usable(pr.slope_k_per_day))
+        {
+            let s = pr.slope_k_per_day;
+            w!(
+                out,
+                "<text x=\"{}\" y=\"{}\" font-size=\"11\" fill=\"{C_TREND}\" stroke=\"#fff\" stroke-width=\"3\" \
+                 paint-order=\"stroke\">trend {}{} K/day</text>",
+                N(ts.x0 + 6.0),
+                N(ys.top + 14.0),
+                if s > 0.0 { "+" } else { "" },
+                fmt_sig(s, 3)
+            );
+        }
+    }
+    out.push_str("</g>");
+}
+
+fn limit_group(out: &mut String, p: &ReactorPlot, ys: &YScale, area: Area, has_axis: bool) {
+    out.push_str("<g id=\"limit\">");
+    if let Some((l, y)) = p
+        .limit_k
+        .filter(|l| has_axis && usable(*l))
+        .and_then(|l| ys.y(l).map(|y| (l, y)))
+    {
+        w!(
+            out,
+            "<path class=\"line\" d=\"M{},{} H{}\" stroke=\"{C_LIMIT}\" stroke-width=\"1.6\"{} fill=\"none\"/>",
+            N(area.x0),
+            N(y),
+            N(area.x1),
+            dash_attr(DASH_LIMIT)
+        );
+        w!(
+            out,
+            "<text x=\"{}\" y=\"{}\" text-anchor=\"end\" font-size=\"10\" fill=\"{C_LIMIT}\" stroke=\"#fff\" \
+             stroke-width=\"3\" paint-order=\"stroke\">end-of-run limit {} K</text>",
+            N(area.x1 - 4.0),
+            // Below the line: the end-of-run interval bar sits on it.
+            N(y + 13.0),
+            fmt_sig(l, 3)
+        );
+    }
+    out.push_str("</g>");
+}
+
+fn end_of_run_group(
+    out: &mut String,
+    p: &ReactorPlot,
+    ta: &TimeAxis,
+    ys: &YScale,
+    area: Area,
+    has_axis: bool,
+) {
+    let ts = ta.scale;
+    out.push_str("<g id=\"end-of-run\">");
+    let Some(pr) = &p.projection else {
+        out.push_str("</g>");
+        return;
+    };
+    let limit_y = p
+        .limit_k
+        .filter(|l| has_axis && usable(*l))
+        .and_then(|l| ys.y(l));
+    if let Some((a, b)) = pr.end_of_run_range_ms {
+        let (a, b) = (a.min(b), a.max(b));
+        let (ca, cb) = (a.max(ts.t0), b.min(ts.t1));
+        if ca <= cb {
+            let y = limit_y.unwrap_or(area.y0 + 8.0);
+            let (xa, xb) = (ts.x(ca), ts.x(cb));
+            w!(
+                out,
+                "<g class=\"range\"><title>end of run between {} and {} UTC</title>\
+                 <path d=\"M{},{} H{}\" stroke=\"{C_END_OF_RUN}\" stroke-width=\"4\" stroke-opacity=\"0.55\"/>",
+                fmt_datetime(a),
+                fmt_datetime(b),
+                N(xa),
+                N(y),
+                N(xb)
+            );
+            // End caps only where the interval really ends inside the chart.
+            for (t, x) in [(a, xa), (b, xb)] {
+                if ts.contains(t) {
+                    w!(
+                        out,
+                        "<path d=\"M{},{} V{}\" stroke=\"{C_END_OF_RUN}\" stroke-width=\"1.5\"/>",
+                        N(x),
+                        N(y - 6.0),
+                        N(y + 6.0)
+                    );
+                }
+            }
+            out.push_str("</g>");
+        }
+    }
+    if let Some(e) = pr.end_of_run_ms {
+        if sane_t(e) && ts.contains(e) {
+            let x = ts.x(e);
+            let label = format!("end of run {}", ta.when(e));
+            let right = x + 4.0 + text_width(&label, 11.0) > area.x1;
+            w!(
+                out,
+                "<path class=\"line\" d=\"M{},{} V{}\" stroke=\"{C_END_OF_RUN}\" stroke-width=\"1.4\"{}/>\
+                 <text x=\"{}\" y=\"{}\" text-anchor=\"{}\" font-size=\"11\" fill=\"{C_END_OF_RUN}\" stroke=\"#fff\" \
+                 stroke-width=\"3\" paint-order=\"stroke\">{}</text>",
+                N(x),
+                N(area.y0),
+                N(area.y1),
+                dash_attr(DASH_END_OF_RUN),
+                N(if right { x - 4.0 } else { x + 4.0 }),
+                N(area.y0 + 14.0),
+                if right { "end" } else { "start" },
+                Esc(&label)
+            );
+        } else {
+            let (text, x, anchor) = if e > ts.t1 {
+                (
+                    format!("end of run beyond chart: {} →", fmt_date(e)),
+                    area.x1 - 6.0,
+                    "end",
+                )
+            } else {
+                (
+                    format!("← end of run before chart: {}", fmt_date(e)),
+                    area.x0 + 6.0,
+                    "start",
+                )
+            };
+            w!(
+                out,
+                "<text class=\"beyond\" x=\"{}\" y=\"{}\" text-anchor=\"{anchor}\" font-size=\"11\" fill=\"{C_END_OF_RUN}\" \
+                 stroke=\"#fff\" stroke-width=\"3\" paint-order=\"stroke\">{}</text>",
+                N(x),
+                N(area.y0 + 14.0),
+                Esc(&text)
+            );
+        }
+    }
+    out.push_str("</g>");
+}
+
+/// Unit and axis of the key-component chart: ppm when the largest value is below 0.1 mol%,
+/// else mol%; log10 when the positive values span more than two decades.
+fn key_axis(values: &[f64]) -> Option<(f64, &'static str, Axis)> {
+    let vals: Vec<f64> = values.iter().copied().filter(|v| usable(*v)).collect();
+    let max_abs = vals.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    if vals.is_empty() {
+        return None;
+    }
+    let (scale, unit) = if max_abs < 1e-3 {
+        (1e6, "ppm")
+    } else {
+        (100.0, "mol%")
+    };
+    let pos = vals.iter().filter(|v| **v > 0.0);
+    let (pmin, pmax) = pos.fold((f64::INFINITY, 0.0f64), |(a, b), v| (a.min(*v), b.max(*v)));
+    if pmax > 0.0 && pmax / pmin > 100.0 {
+        return Some((scale, unit, log_axis(pmin * scale, pmax * scale)));
+    }
+    let (lo, hi) = vals
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        });
+    Some((scale, unit, linear_axis(lo * scale, hi * scale, 5)))
+}
+
+fn key_chart(out: &mut String, pts: &[&PlotPoint], key: &str, ta: &TimeAxis, area: Area) {
+    let ts = ta.scale;
+    let values: Vec<f64> = pts
+        .iter()
+        .flat_map(|q| [q.key_measured, q.key_equilibrium])
+        .flatten()
+        .collect();
+    let axis = key_axis(&values);
+    draw_time_grid(out, area, ta, true);
+    let mut drawn = 0usize;
+    match axis {
+        Some((scale, unit, axis)) => {
+            let label = format!(
+                "{key} ({unit}{})",
+                if axis.log { ", log scale" } else { "" }
+            );
+            let ys = YScale {
+                axis,
+                top: area.y0,
+                bottom: area.y1,
+            };
+            draw_y_axis(out, area, &ys, &label);
+            type Pick = fn(&PlotPoint) -> Option<f64>;
+            let series: [(&str, Pick, &str, &str); 2] = [
+                (
+                    "key-equilibrium",
+                    |q| q.key_equilibrium,
+                    C_EQUILIBRIUM,
+                    DASH_EQUILIBRIUM,
+                ),
+                ("key-measured", |q| q.key_measured, C_MEASURED, ""),
+            ];
+            for (id, pick, colour, dash) in series {
+                let samples: Vec<Px> = pts
+                    .iter()
+                    .map(|q| Px {
+                        x: ts.x(q.t_ms),
+                        y: pick(q).filter(|v| usable(*v)).and_then(|v| ys.y(v * scale)),
+                        band: None,
+                        env: None,
+                        good: true,
+                    })
+                    .collect();
+                let (series, decimated) = drawable(samples, area);
+                w!(out, "<g id=\"{id}\" clip-path=\"url(#clip-key)\">");
+                if decimated {
+                    let (env, bars) = band_path(&series, |q| q.y.and(q.env));
+                    let d = [env, bars]
+                        .into_iter()
+                        .filter(|s| !s.is_empty())
+                        .collect::<Vec<_>>()
+                        .join(" ");
+                    if !d.is_empty() {
+                        w!(
+                            out,
+                            "<path class=\"envelope\" d=\"{d}\" fill=\"{colour}\" fill-opacity=\"0.15\" \
+                             stroke=\"{colour}\" stroke-opacity=\"0.3\" stroke-width=\"1\"/>"
+                        );
+                    }
+                }
+                let (line, isolated) = line_path(&series);
+                if !line.is_empty() {
+                    w!(
+                        out,
+                        "<path class=\"line\" d=\"{line}\" fill=\"none\" stroke=\"{colour}\" stroke-width=\"1.6\" \
+                         stroke-linejoin=\"round\"{}/>",
+                        dash_attr(dash)
+                    );
+                }
+                for (x, y) in isolated {
+                    w!(
+                        out,
+                        "<circle class=\"point\" cx=\"{}\" cy=\"{}\" r=\"2.4\" fill=\"{colour}\"/>",
+                        N(x),
+                        N(y)
+                    );
+                }
+                drawn += series.iter().filter(|q| q.y.is_some()).count();
+                out.push_str("</g>");
+            }
+        }
+        None => {
+            out.push_str("<g id=\"key-equilibrium\"/><g id=\"key-measured\"/>");
+        }
+    }
+    draw_frame(out, area);
+    if drawn == 0 {
+        draw_message(out, area, &format!("no data: no valid {key} value"));
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
+// overview_svg
+// ---------------------------------------------------------------------------------------------
+
+/// Small multiples, one row per reactor: approach with gaps, limit line and markers, on a
+/// shared UTC time axis (the span of all reactors' data).
+pub fn overview_svg(plots: &[ReactorPlot], title: &str) -> String {
+    let n = plots.len();
+    let panel_h = if n == 0 {
+        120.0
+    } else {
+        (540.0 / n as f64).clamp(90.0, 160.0)
+    };
+    let legend_y = 44.0;
+    let mut items = vec![legend_item(
+        Swatch::Line {
+            colour: C_APPROACH,
+            dash: "",
+            width: 1.8,
+        },
+        "approach (K)",
+    )];
+    let sorted: Vec<Vec<&PlotPoint>> = plots.iter().map(|p| sorted_points(&p.points)).collect();
+    if sorted
+        .iter()
+        .flatten()
+        .any(|q| !q.approach_k.is_some_and(usable))
+    {
+        items.push(legend_item(Swatch::Band(C_GAP, 0.3), "bad quality (gap)"));
+    }
+    if plots.iter().any(|p| p.limit_k.is_some_and(usable)) {
+        items.push(legend_item(
+            Swatch::Line {
+                colour: C_LIMIT,
+                dash: DASH_LIMIT,
+                width: 1.6,
+            },
+            "end-of-run limit",
+        ));
+    }
+    for kind in MarkerKind::ALL {
+        if plots
+            .iter()
+            .flat_map(|p| &p.markers)
+            .any(|m| m.kind == kind)
+        {
+            items.push(legend_item(Swatch::Marker(kind), kind.class()));
+        }
+    }
+    let (legend_pos, rows) = legend_layout(&items, LEFT, RIGHT, legend_y);
+    let panels_top = legend_y + 16.0 * rows.max(1) as f64 + 4.0;
+    let height = (panels_top + n.max(1) as f64 * panel_h + 56.0).ceil();
+
+    let mut out = String::with_capacity(32 * 1024 + n * 24 * 1024);
+    w!(
+        out,
+        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\" \
+         font-family=\"sans-serif\" font-size=\"11\" role=\"img\" aria-labelledby=\"svg-title svg-desc\">",
+        w = WIDTH,
+        h = height
+    );
+    w!(out, "<title id=\"svg-title\">{}</title>", Esc(title));
+    w!(
+        out,
+        "<desc id=\"svg-desc\">advisory: not a safety function. Approach to equilibrium of {} reactor{}, \
+         one row each, on a shared time axis.</desc>",
+        n,
+        if n == 1 { "" } else { "s" }
+    );
+    let panel_area = |i: usize| Area {
+        x0: LEFT,
+        y0: panels_top + i as f64 * panel_h + 22.0,
+        x1: RIGHT,
+        y1: panels_top + (i + 1) as f64 * panel_h - 8.0,
+    };
+    out.push_str("<defs>");
+    for i in 0..n {
+        clip_rect(&mut out, &format!("clip-panel-{}", i + 1), panel_area(i));
+    }
+    out.push_str("</defs>");
+    w!(
+        out,
+        "<rect width=\"{}\" height=\"{}\" fill=\"#fff\"/>",
+        WIDTH,
+        height
+    );
+    w!(
+        out,
+        "<text class=\"title\" x=\"16\" y=\"24\" font-size=\"16\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
+        Esc(title)
+    );
+
+    let (mut t0, mut t1) = (None::<i64>, None::<i64>);
+    for q in sorted.iter().flatten() {
+        t0 = Some(t0.map_or(q.t_ms, |v| v.min(q.t_ms)));
+        t1 = Some(t1.map_or(q.t_ms, |v| v.max(q.t_ms)));
+    }
+    let ta = t0
+        .zip(t1)
+        .map(|(a, b)| time_axis(TimeScale::new(a, b, LEFT, RIGHT)));
+
+    if n == 0 {
+        let a = panel_area(0);
+        draw_frame(&mut out, a);
+        draw_message(&mut out, a, "no data: no reactors");
+    }
+    for (i, (p, pts)) in plots.iter().zip(&sorted).enumerate() {
+        let area = panel_area(i);
+        let last = i + 1 == n;
+        overview_panel(&mut out, i + 1, p, pts, ta.as_ref(), area, last);
+    }
+    let caption = ta.as_ref().map_or("time (UTC)", |t| t.caption.as_str());
+    w!(
+        out,
+        "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text>",
+        N(0.5 * (LEFT + RIGHT)),
+        N(height - 26.0),
+        Esc(caption)
+    );
+    w!(
+        out,
+        "<text class=\"footer\" x=\"16\" y=\"{}\" font-size=\"10\" fill=\"{C_MUTED}\">advisory: not a safety function. eqwatch overview</text>",
+        N(height - 8.0)
+    );
+    out.push_str("<g id=\"legend\">");
+    draw_legend_items(&mut out, &items, &legend_pos);
+    out.push_str("</g></svg>\n");
+    out
+}
+
+/// One reactor's row of the overview, in `<g class="panel" id="panel-N">` with classes
+/// (not ids, which must be unique) for its parts.
+fn overview_panel(
+    out: &mut String,
+    index: usize,
+    p: &ReactorPlot,
+    pts: &[&PlotPoint],
+    ta: Option<&TimeAxis>,
+    area: Area,
+    last: bool,
+) {
+    w!(
+        out,
+        "<g class=\"panel\" id=\"panel-{index}\" data-reactor=\"{}\">",
+        Esc(&p.reactor)
+    );
+    let mut heading = if p.title.trim().is_empty() {
+        p.reactor.clone()
+    } else {
+        p.title.clone()
+    };
+    if let Some(e) = p
+        .projection
+        .as_ref()
+        .and_then(|pr| pr.end_of_run_ms)
+        .filter(|&e| sane_t(e))
+    {
+        heading.push_str(&format!(" — end of run {}", fmt_date(e)));
+    }
+    w!(
+        out,
+        "<text class=\"panel-title\" x=\"{}\" y=\"{}\" font-size=\"12\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
+        N(area.x0),
+        N(area.y0 - 7.0),
+        Esc(&heading)
+    );
+    let Some(ta) = ta else {
+        out.push_str(
+            "<g class=\"gaps\"/><g class=\"limit\"/><g class=\"approach\"/><g class=\"markers\"/>",
+        );
+        draw_frame(out, area);
+        draw_message(out, area, "no data");
+        out.push_str("</g>");
+        return;
+    };
+    let ts = ta.scale;
+    let core = pts
+        .iter()
+        .filter_map(|q| q.approach_k)
+        .chain(p.limit_k)
+        .filter(|v| usable(*v));
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    for v in core {
+        lo = lo.min(v);
+        hi = hi.max(v);
+    }
+    let has_axis = lo <= hi;
+    if has_axis && lo >= 0.0 && lo <= 0.5 * hi {
+        lo = 0.0;
+    }
+    let ys = YScale {
+        axis: if has_axis {
+            linear_axis(lo, hi, 3)
+        } else {
+            linear_axis(0.0, 1.0, 3)
+        },
+        top: area.y0,
+        bottom: area.y1,
+    };
+    draw_time_grid(out, area, ta, last);
+    if has_axis {
+        draw_y_axis(out, area, &ys, "approach (K)");
+    }
+    let samples: Vec<Px> = pts
+        .iter()
+        .map(|q| Px {
+            x: ts.x(q.t_ms),
+            y: q.approach_k
+                .filter(|v| has_axis && usable(*v))
+                .and_then(|v| ys.y(v)),
+            band: None,
+            env: None,
+            good: q.good,
+        })
+        .collect();
+    let gaps = gap_spans(&samples, area);
+    let (series, decimated) = drawable(samples, area);
+    let clip = format!("clip-path=\"url(#clip-panel-{index})\"");
+    w!(
+        out,
+        "<g class=\"gaps\" {clip} fill=\"{C_GAP}\" fill-opacity=\"0.22\">"
+    );
+    for (a, b) in &gaps {
+        w!(
+            out,
+            "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\"/>",
+            N(*a),
+            N(area.y0),
+            N(b - a),
+            N(area.h())
+        );
+    }
+    out.push_str("</g><g class=\"limit\">");
+    if let Some((l, y)) = p
+        .limit_k
+        .filter(|l| has_axis && usable(*l))
+        .and_then(|l| ys.y(l).map(|y| (l, y)))
+    {
+        w!(
+            out,
+            "<path class=\"line\" d=\"M{},{} H{}\" stroke=\"{C_LIMIT}\" stroke-width=\"1.4\"{} fill=\"none\"/>\
+             <text x=\"{}\" y=\"{}\" text-anchor=\"end\" font-size=\"10\" fill=\"{C_LIMIT}\" stroke=\"#fff\" \
+             stroke-width=\"3\" paint-order=\"stroke\">limit {} K</text>",
+            N(area.x0),
+            N(y),
+            N(area.x1),
+            dash_attr(DASH_LIMIT),
+            N(area.x1 - 4.0),
+            N(y - 3.0),
+            fmt_sig(l, 3)
+        );
+    }
+    w!(out, "</g><g class=\"approach\" {clip}>");
+    if decimated {
+        let (env, bars) = band_path(&series, |q| q.y.and(q.env));
+        let d = [env, bars]
+            .into_iter()
+            .filter(|s| !s.is_empty())
+            .collect::<Vec<_>>()
+            .join(" ");
+        if !d.is_empty() {
+            w!(
+                out,
+                "<path class=\"envelope\" d=\"{d}\" fill=\"{C_APPROACH}\" fill-opacity=\"0.18\" \
+                 stroke=\"{C_APPROACH}\" stroke-opacity=\"0.3\" stroke-width=\"1\"/>"
+            );
+        }
+    }
+    let (line, isolated) = line_path(&series);
+    if !line.is_empty() {
+        w!(
+            out,
+            "<path class=\"line\" d=\"{line}\" fill=\"none\" stroke=\"{C_APPROACH}\" stroke-width=\"1.5\" stroke-linejoin=\"round\"/>"
+        );
+    }
+    for (x, y) in isolated {
+        w!(
+            out,
+            "<circle class=\"point\" cx=\"{}\" cy=\"{}\" r=\"2.4\" fill=\"{C_APPROACH}\"/>",
+            N(x),
+            N(y)
+        );
+    }
+    out.push_str("</g><g class=\"markers\">");
+    draw_markers(out, &p.markers, ta, area, 4.0, false);
+    out.push_str("</g>");
+    draw_frame(out, area);
+    if !series.iter().any(|q| q.y.is_some()) {
+        draw_message(out, area, "no data: no valid approach value");
+    }
+    out.push_str("</g>");
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use roxmltree::{Document, Node};
+
+    /// 2026-01-01T00:00:00Z in epoch ms (Python datetime); the start of invented test data.
+    const T0: i64 = 1_767_225_600_000;
+    const FIVE_MIN: i64 = 5 * MINUTE_MS;
+
+    /// A plain good point (invented test data).
+    fn pt(t_ms: i64, approach: Option<f64>) -> PlotPoint {
+        PlotPoint {
+            t_ms,
+            approach_k: approach,
+            uncertainty_k: Some(1.5),
+            good: true,
+            key_measured: Some(0.0030),
+            key_equilibrium: Some(0.0025),
+        }
+    }
+
+    /// A reactor with `n` points `step` apart, approach creeping up (invented test data).
+    fn plot_n(n: usize, step: i64) -> ReactorPlot {
+        let points = (0..n)
+            .map(|i| {
+                let f = i as f64 / n.max(1) as f64;
+                pt(
+                    T0 + i as i64 * step,
+                    Some(8.0 + 6.0 * f + (i as f64 * 0.7).sin()),
+                )
+            })
+            .collect();
+        ReactorPlot {
+            reactor: "lts1".into(),
+            title: "Low-temperature shift converter (lts1)".into(),
+            key_component: "CO".into(),
+            limit_k: Some(25.0),
+            points,
+            ..ReactorPlot::default()
+        }
+    }
+
+    fn parse(svg: &str) -> Document<'_> {
+        match Document::parse(svg) {
+            Ok(d) => d,
+            Err(e) => panic!("not valid XML: {e}\n{}", &svg[..svg.len().min(2000)]),
+        }
+    }
+
+    fn by_id<'a, 'i>(doc: &'a Document<'i>, id: &str) -> Node<'a, 'i> {
+        let found: Vec<_> = doc
+            .descendants()
+            .filter(|n| n.attribute("id") == Some(id))
+            .collect();
+        assert_eq!(found.len(), 1, "exactly one element with id {id}");
+        found[0]
+    }
+
+    fn has_class(n: &Node, class: &str) -> bool {
+        n.attribute("class")
+            .is_some_and(|c| c.split_whitespace().any(|w| w == class))
+    }
+
+    /// `d` of the first `path.CLASS` under `node`.
+    fn path_d(node: Node, class: &str) -> Option<String> {
+        node.descendants()
+            .find(|n| n.has_tag_name("path") && has_class(n, class))
+            .and_then(|n| n.attribute("d"))
+            .map(str::to_string)
+    }
+
+    fn subpaths(d: &str) -> usize {
+        d.matches('M').count()
+    }
+
+    fn texts(doc: &Document) -> Vec<String> {
+        doc.descendants()
+            .filter(|n| n.has_tag_name("text"))
+            .map(|n| {
+                n.descendants()
+                    .filter(|t| t.is_text())
+                    .filter_map(|t| t.text())
+                    .collect::<String>()
+            })
+            .collect()
+    }
+
+    fn check_valid(svg: &str) {
+        let doc = parse(svg);
+        let root = doc.root_element();
+        assert_eq!(root.tag_name().name(), "svg");
+        assert!(root.attribute("viewBox").is_some());
+        let desc = root
+            .children()
+            .find(|n| n.has_tag_name("desc"))
+            .and_then(|n| n.text())
+            .unwrap_or_default();
+        assert!(desc.contains("advisory: not a safety function"));
+    }
+
+    const IDS: [&str; 15] = [
+        "approach",
+        "uncertainty",
+        "uncertain-quality",
+        "baseline",
+        "trend",
+        "projection",
+        "limit",
+        "end-of-run",
+        "markers",
+        "key-measured",
+        "key-equilibrium",
+        "gaps",
+        "legend",
+        "svg-title",
+        "svg-desc",
+    ];
+
+    #[test]
+    fn root_has_viewbox_title_desc_and_every_group() {
+        let p = plot_n(10, HOUR_MS);
+        let svg = reactor_svg(&p);
+        check_valid(&svg);
+        let doc = parse(&svg);
+        let root = doc.root_element();
+        assert_eq!(root.attribute("viewBox"), Some("0 0 1000 640"));
+        assert_eq!(root.attribute("font-family"), Some("sans-serif"));
+        let title = root.children().find(|n| n.has_tag_name("title"));
+        assert_eq!(title.and_then(|n| n.text()), Some(p.title.as_str()));
+        for id in IDS {
+            by_id(&doc, id);
+        }
+        let t = texts(&doc);
+        for want in [
+            "Approach to equilibrium",
+            "approach to equilibrium (K)",
+            "CO (mol%)",
+            "CO measured",
+            "CO at equilibrium",
+            "end-of-run limit 25 K",
+        ] {
+            assert!(t.iter().any(|s| s == want), "text {want:?} in {t:?}");
+        }
+        assert!(t.iter().any(|s| s.starts_with("time (UTC)")));
+    }
+
+    #[test]
+    fn a_gap_breaks_the_line_and_is_shaded() {
+        let mut p = plot_n(10, HOUR_MS);
+        p.points[4].approach_k = None;
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let line = path_d(by_id(&doc, "approach"), "line").unwrap_or_default();
+        assert_eq!(subpaths(&line), 2, "{line}");
+        let gaps = by_id(&doc, "gaps");
+        assert_eq!(
+            gaps.children().filter(|n| n.has_tag_name("rect")).count(),
+            1
+        );
+        // The uncertainty band is broken in the same place: two closed areas.
+        let band = path_d(by_id(&doc, "uncertainty"), "band").unwrap_or_default();
+        assert_eq!(subpaths(&band), 2);
+        assert_eq!(band.matches('Z').count(), 2);
+    }
+
+    #[test]
+    fn uncertain_points_are_hollow_and_lone_points_dotted() {
+        let mut p = plot_n(200, HOUR_MS);
+        p.points[10].good = false;
+        p.points[11].good = false;
+        // A lone valid point between two gaps: a line cannot show it, a dot does.
+        p.points[50].approach_k = None;
+        p.points[52].approach_k = None;
+        let doc_s = reactor_svg(&p);
+        let doc = parse(&doc_s);
+        let uq = by_id(&doc, "uncertain-quality");
+        assert_eq!(
+            uq.children().filter(|n| n.has_tag_name("circle")).count(),
+            2
+        );
+        let approach = by_id(&doc, "approach");
+        let line = path_d(approach, "line").unwrap_or_default();
+        assert_eq!(subpaths(&line), 3);
+        let dots = approach
+            .children()
+            .filter(|n| n.has_tag_name("circle") && has_class(n, "point"))
+            .count();
+        assert_eq!(dots, 1);
+    }
+
+    #[test]
+    fn markers_have_kind_classes_and_titles() {
+        let mut p = plot_n(48, HOUR_MS);
+        let kinds = MarkerKind::ALL;
+        p.markers = kinds
+            .iter()
+            .enumerate()
+            .map(|(i, &kind)| Marker {
+                t_ms: T0 + (5 + 10 * i as i64) * HOUR_MS,
+                kind,
+                label: format!("event {i} for {}", kind.class()),
+            })
+            .collect();
+        // One before the data: not drawn, and said so.
+        p.markers.push(Marker {
+            t_ms: T0 - 30 * DAY_MS,
+            kind: MarkerKind::Operator,
+            label: "old note".into(),
+        });
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let markers: Vec<Node> = by_id(&doc, "markers")
+            .children()
+            .filter(|n| has_class(n, "marker"))
+            .collect();
+        assert_eq!(markers.len(), 4);
+        for (m, kind) in markers.iter().zip(kinds) {
+            assert_eq!(
+                m.attribute("class"),
+                Some(format!("marker {}", kind.class()).as_str())
+            );
+            let title = m
+                .children()
+                .find(|n| n.has_tag_name("title"))
+                .and_then(|n| n.text())
+                .unwrap_or_default();
+            assert!(title.contains(&format!("for {}", kind.class())), "{title}");
+        }
+        let t = texts(&doc);
+        assert!(
+            t.iter()
+                .any(|s| s == "1 marker outside the time range not shown")
+        );
+        // Each kind has a legend entry.
+        let legend = texts(&doc);
+        for kind in kinds {
+            assert!(legend.iter().any(|s| s == kind.class()));
+        }
+    }
+
+    #[test]
+    fn methanator_key_component_in_ppm_on_a_log_axis() {
+        // Methanator-like outlet (invented test data): CO measured 5 ppm, 1e-4 ppm at equilibrium.
+        let mut p = plot_n(30, HOUR_MS);
+        p.title = "Methanator (meth1)".into();
+        for q in &mut p.points {
+            q.key_measured = Some(5e-6);
+            q.key_equilibrium = Some(1e-10);
+        }
+        // Zero cannot be drawn on a log axis: a gap.
+        p.points[12].key_measured = Some(0.0);
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let t = texts(&doc);
+        assert!(t.iter().any(|s| s == "CO (ppm, log scale)"), "{t:?}");
+        // Decade ticks from 1e-4 ppm to 10 ppm.
+        for tick in ["1e-4", "0.001", "0.01", "0.1", "1", "10"] {
+            assert!(t.iter().any(|s| s == tick), "tick {tick}");
+        }
+        let meas = path_d(by_id(&doc, "key-measured"), "line").unwrap_or_default();
+        assert_eq!(subpaths(&meas), 2, "{meas}");
+        let eq = path_d(by_id(&doc, "key-equilibrium"), "line").unwrap_or_default();
+        assert_eq!(subpaths(&eq), 1);
+    }
+
+    #[test]
+    fn key_unit_and_scale_choice() {
+        // Values invented to sit either side of the 0.1 mol% and two-decade thresholds.
+        let a = key_axis(&[0.003, 0.0025]);
+        assert!(matches!(a, Some((s, "mol%", ref ax)) if s == 100.0 && !ax.log));
+        let b = key_axis(&[500e-6, 300e-6]);
+        assert!(matches!(b, Some((s, "ppm", ref ax)) if s == 1e6 && !ax.log));
+        let c = key_axis(&[0.05, 0.0001]);
+        assert!(matches!(c, Some((_, "mol%", ref ax)) if ax.log));
+        assert!(key_axis(&[f64::NAN, f64::INFINITY]).is_none());
+        assert!(key_axis(&[]).is_none());
+    }
+
+    /// Every number in a path's `d` has at most one decimal place.
+    fn one_decimal(d: &str) -> bool {
+        d.split(|c: char| !(c.is_ascii_digit() || c == '.' || c == '-'))
+            .filter(|s| !s.is_empty())
+            .all(|s| s.split('.').nth(1).is_none_or(|f| f.len() <= 1))
+    }
+
+    /// A year of 5-minute data (105,120 points) with a 3-day bad-quality hole, some uncertain
+    /// points, markers and a projection (invented test data).
+    fn year_of_data() -> ReactorPlot {
+        let n = 105_120usize;
+        let mut p = plot_n(n, FIVE_MIN);
+        for (i, q) in p.points.iter_mut().enumerate() {
+            if (50_000..50_864).contains(&i) {
+                q.approach_k = None;
+            }
+            if i % 97 == 0 {
+                q.good = false;
+            }
+            let f = i as f64 / n as f64;
+            q.key_measured = Some(0.002 + 0.001 * f);
+            q.key_equilibrium = Some(0.0015 + 0.0008 * f);
+        }
+        let end = T0 + n as i64 * FIVE_MIN;
+        p.projection = Some(Projection {
+            points: vec![
+                (T0, 8.0, 7.0, 9.0),
+                (end, 14.0, 13.0, 15.0),
+                (end + 180 * DAY_MS, 25.0, 21.0, 29.0),
+            ],
+            slope_k_per_day: 0.0167,
+            end_of_run_ms: Some(end + 180 * DAY_MS),
+            end_of_run_range_ms: Some((end + 150 * DAY_MS, end + 230 * DAY_MS)),
+        });
+        p.baselines = vec![BaselineSpan {
+            from_ms: T0,
+            to_ms: T0 + 30 * DAY_MS,
+            approach_k: 8.5,
+            sigma_k: Some(0.6),
+        }];
+        p.markers = vec![
+            Marker {
+                t_ms: T0 + 200 * DAY_MS,
+                kind: MarkerKind::Alert,
+                label: "approach drift".into(),
+            },
+            Marker {
+                t_ms: T0 + 220 * DAY_MS,
+                kind: MarkerKind::Cleared,
+                label: "back within baseline".into(),
+            },
+        ];
+        p
+    }
+
+    #[test]
+    fn a_year_of_five_minute_data_is_decimated_small_and_keeps_gaps() {
+        let p = year_of_data();
+        let svg = reactor_svg(&p);
+        eprintln!("reactor_svg, 105,120 points: {} bytes", svg.len());
+        assert!(svg.len() < 300_000, "{} bytes", svg.len());
+        let doc = parse(&svg);
+        let approach = by_id(&doc, "approach");
+        let line = path_d(approach, "line").unwrap_or_default();
+        assert!(subpaths(&line) >= 2, "the 3-day hole breaks the mean line");
+        assert!(path_d(approach, "envelope").is_some());
+        assert!(
+            by_id(&doc, "gaps")
+                .children()
+                .any(|n| n.has_tag_name("rect"))
+        );
+        for n in doc.descendants().filter(|n| n.has_tag_name("path")) {
+            let d = n.attribute("d").unwrap_or_default();
+            assert!(one_decimal(d), "more than one decimal in {d}");
+        }
+        let ov = overview_svg(&[p.clone(), p], "Plant overview");
+        eprintln!("overview_svg, 2 × 105,120 points: {} bytes", ov.len());
+        assert!(ov.len() < 300_000);
+        check_valid(&ov);
+    }
+
+    #[test]
+    fn degenerate_inputs_give_valid_svg() {
+        let mut cases: Vec<(&str, ReactorPlot)> = vec![("empty", ReactorPlot::default())];
+        let mut all_nan = plot_n(20, HOUR_MS);
+        for q in &mut all_nan.points {
+            q.approach_k = Some(f64::NAN);
+            q.uncertainty_k = Some(f64::NAN);
+            q.key_measured = Some(f64::NAN);
+            q.key_equilibrium = None;
+        }
+        all_nan.limit_k = Some(f64::NAN);
+        cases.push(("all NaN", all_nan));
+        cases.push(("single point", plot_n(1, HOUR_MS)));
+        let mut equal = plot_n(20, HOUR_MS);
+        for q in &mut equal.points {
+            q.approach_k = Some(12.0);
+            q.uncertainty_k = Some(0.0);
+            q.key_measured = Some(0.0);
+            q.key_equilibrium = Some(0.0);
+        }
+        equal.limit_k = None;
+        cases.push(("equal values", equal));
+        cases.push(("zero-length time range", plot_n(20, 0)));
+        let mut inf = plot_n(20, HOUR_MS);
+        inf.points[3].approach_k = Some(f64::INFINITY);
+        inf.points[4].approach_k = Some(f64::NEG_INFINITY);
+        inf.points[5].approach_k = Some(1e300);
+        inf.points[6].uncertainty_k = Some(f64::INFINITY);
+        inf.points[7].key_measured = Some(-1.0);
+        cases.push(("inf and huge", inf));
+        let mut unsorted = plot_n(20, HOUR_MS);
+        unsorted.points.reverse();
+        cases.push(("unsorted", unsorted));
+        let mut extreme = plot_n(5, HOUR_MS);
+        extreme.points[0].t_ms = i64::MIN;
+        extreme.points[4].t_ms = i64::MAX;
+        extreme.markers.push(Marker {
+            t_ms: i64::MIN,
+            kind: MarkerKind::Alarm,
+            label: String::new(),
+        });
+        extreme.baselines.push(BaselineSpan {
+            from_ms: i64::MAX,
+            to_ms: i64::MIN,
+            approach_k: f64::NAN,
+            sigma_k: Some(f64::INFINITY),
+        });
+        extreme.projection = Some(Projection {
+            points: vec![
+                (i64::MIN, 1.0, 2.0, 3.0),
+                (T0, f64::NAN, 0.0, 1.0),
+                (T0 + DAY_MS, 5.0, 6.0, 4.0),
+            ],
+            slope_k_per_day: f64::NAN,
+            end_of_run_ms: Some(i64::MAX),
+            end_of_run_range_ms: Some((i64::MAX, i64::MIN)),
+        });
+        cases.push(("extreme times", extreme));
+        let mut only_markers = ReactorPlot::default();
+        only_markers.markers.push(Marker {
+            t_ms: T0,
+            kind: MarkerKind::Operator,
+            label: "catalyst change".into(),
+        });
+        only_markers.projection = Some(Projection::default());
+        cases.push(("markers without points", only_markers));
+        let mut no_approach = plot_n(1, HOUR_MS);
+        no_approach.points[0].approach_k = None;
+        no_approach.points[0].key_measured = None;
+        no_approach.points[0].key_equilibrium = None;
+        cases.push(("one bad point", no_approach));
+
+        for (name, p) in &cases {
+            let svg = reactor_svg(p);
+            check_valid(&svg);
+            let doc = parse(&svg);
+            for id in IDS {
+                by_id(&doc, id);
+            }
+            if matches!(*name, "empty" | "all NaN" | "one bad point") {
+                assert!(
+                    texts(&doc).iter().any(|s| s.starts_with("no data")),
+                    "{name}: says no data"
+                );
+            }
+        }
+        let all: Vec<ReactorPlot> = cases.into_iter().map(|(_, p)| p).collect();
+        check_valid(&overview_svg(&all, "degenerate"));
+    }
+
+    #[test]
+    fn text_is_escaped_for_xml() {
+        let mut p = plot_n(5, HOUR_MS);
+        p.title = "Shift <A> & \"B\" 'c'".into();
+        p.key_component = "CO<2>".into();
+        p.markers.push(Marker {
+            t_ms: T0 + HOUR_MS,
+            kind: MarkerKind::Operator,
+            label: "<script>alert(1)</script> & \u{1}bell".into(),
+        });
+        let svg = reactor_svg(&p);
+        assert!(!svg.contains("<script>"));
+        let doc = parse(&svg);
+        let title = doc
+            .root_element()
+            .children()
+            .find(|n| n.has_tag_name("title"))
+            .and_then(|n| n.text());
+        assert_eq!(title, Some("Shift <A> & \"B\" 'c'"));
+        let marker_title = by_id(&doc, "markers")
+            .descendants()
+            .find(|n| n.has_tag_name("title"))
+            .and_then(|n| n.text())
+            .unwrap_or_default();
+        assert!(marker_title.ends_with("<script>alert(1)</script> &  bell"));
+        assert!(texts(&doc).iter().any(|s| s == "CO<2> measured"));
+        let ov = overview_svg(&[p], "a < b & c");
+        let doc = parse(&ov);
+        let t = doc
+            .root_element()
+            .children()
+            .find(|n| n.has_tag_name("title"));
+        assert_eq!(t.and_then(|n| n.text()), Some("a < b & c"));
+    }
+
+    /// x positions of the tick labels under the top chart, as text.
+    fn x_tick_labels(doc: &Document) -> Vec<String> {
+        doc.descendants()
+            .filter(|n| has_class(n, "x-axis"))
+            .take(1)
+            .flat_map(|g| g.children().filter(|n| n.has_tag_name("text")))
+            .filter_map(|n| n.text().map(str::to_string))
+            .collect()
+    }
+
+    #[test]
+    fn time_axis_reaches_the_end_of_run() {
+        // 30 days of hourly data, projected to reach the limit 15 days later (invented).
+        let mut p = plot_n(30 * 24, HOUR_MS);
+        let end = T0 + 30 * DAY_MS;
+        let eor = end + 15 * DAY_MS;
+        p.projection = Some(Projection {
+            points: vec![
+                (T0, 8.0, 7.5, 8.5),
+                (end, 14.0, 13.0, 15.0),
+                (eor, 25.0, 21.0, 29.0),
+            ],
+            slope_k_per_day: 0.4,
+            end_of_run_ms: Some(eor),
+            end_of_run_range_ms: Some((eor - 3 * DAY_MS, eor + 40 * DAY_MS)),
+        });
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let e = by_id(&doc, "end-of-run");
+        let line = path_d(e, "line").unwrap_or_default();
+        assert_eq!(subpaths(&line), 1);
+        // 2026-01-01 + 45 days = 2026-02-15.
+        assert!(texts(&doc).iter().any(|s| s == "end of run 2026-02-15"));
+        assert!(
+            e.descendants()
+                .any(|n| has_class(&n, "range") && n.children().any(|c| c.has_tag_name("title")))
+        );
+        assert!(path_d(by_id(&doc, "trend"), "line").is_some());
+        let proj = by_id(&doc, "projection");
+        assert!(path_d(proj, "band").is_some() && path_d(proj, "line").is_some());
+        assert!(texts(&doc).iter().any(|s| s == "trend +0.4 K/day"));
+        let ticks = x_tick_labels(&doc);
+        assert!(ticks.iter().any(|t| t.as_str() > "2026-02-01"), "{ticks:?}");
+    }
+
+    #[test]
+    fn a_wild_forecast_is_capped_at_three_data_spans() {
+        // 10 days of data; a forecast 400 days out (invented).
+        let mut p = plot_n(10 * 24, HOUR_MS);
+        let end = T0 + 10 * DAY_MS;
+        p.projection = Some(Projection {
+            points: vec![(T0, 8.0, 7.5, 8.5), (end + 400 * DAY_MS, 25.0, 0.0, 80.0)],
+            slope_k_per_day: 0.04,
+            end_of_run_ms: Some(end + 400 * DAY_MS),
+            end_of_run_range_ms: None,
+        });
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let t = texts(&doc);
+        // 2026-01-11 + 400 days = 2027-02-15.
+        assert!(
+            t.iter()
+                .any(|s| s == "end of run beyond chart: 2027-02-15 →"),
+            "{t:?}"
+        );
+        // Axis ends at data end + 3 × 10 days = 2026-02-10.
+        let ticks = x_tick_labels(&doc);
+        assert!(!ticks.is_empty());
+        assert!(
+            ticks.iter().all(|t| t.as_str() <= "2026-02-10"),
+            "{ticks:?}"
+        );
+    }
+
+    #[test]
+    fn axis_helpers() {
+        // Expected values worked by hand from the 1-2-5 rule.
+        assert_eq!(nice_step(0.3), 0.5);
+        assert_eq!(nice_step(1.0), 1.0);
+        assert_eq!(nice_step(1.5), 2.0);
+        assert_eq!(nice_step(7.0), 10.0);
+        let a = linear_axis(0.0, 37.0, 6);
+        let labels: Vec<&str> = a.ticks.iter().map(|(_, s)| s.as_str()).collect();
+        assert_eq!(labels, ["0", "10", "20", "30", "40"]);
+        let b = linear_axis(0.12, 0.19, 5);
+        assert!(b.ticks.iter().all(|(_, s)| s.len() <= 4), "{:?}", b.ticks);
+        let c = linear_axis(5.0, 5.0, 5);
+        assert!(c.hi > c.lo && c.lo <= 5.0 && c.hi >= 5.0);
+        assert_eq!(fmt_pow10(-4), "1e-4");
+        assert_eq!(fmt_pow10(-2), "0.01");
+        assert_eq!(fmt_pow10(3), "1000");
+        assert_eq!(N(1.26).to_string(), "1.3");
+        assert_eq!(N(-0.04).to_string(), "0");
+        assert_eq!(N(3.0).to_string(), "3");
+        assert_eq!(N(-2.55).to_string(), "-2.6");
+        assert_eq!(N(f64::NAN).to_string(), "0");
+    }
+
+    #[test]
+    fn utc_dates_and_time_ticks() {
+        // 1772366400 s = 2026-03-01 12:00 UTC (POSIX `date -u -d '2026-03-01 12:00' +%s`).
+        let t = 1_772_366_400_000;
+        assert_eq!(fmt_date(t), "2026-03-01");
+        assert_eq!(fmt_datetime(t), "2026-03-01 12:00");
+        assert_eq!(fmt_datetime(0), "1970-01-01 00:00");
+        assert_eq!(fmt_date(-1), "1969-12-31");
+        // Month ticks start on the first of the next month.
+        let ticks = time_ticks(T0 + 14 * DAY_MS, T0 + 170 * DAY_MS, TimeStep::Months(1));
+        let labels: Vec<String> = ticks
+            .iter()
+            .map(|&t| time_label(t, TimeStep::Months(1)))
+            .collect();
+        assert_eq!(
+            labels,
+            ["2026-02", "2026-03", "2026-04", "2026-05", "2026-06"]
+        );
+        // Weekly ticks fall on Mondays; 2026-01-05 was a Monday (Python datetime).
+        let weeks = time_ticks(T0, T0 + 40 * DAY_MS, TimeStep::Ms(7 * DAY_MS));
+        assert_eq!(fmt_date(weeks[0]), "2026-01-05");
+        // The step grows with the span.
+        assert_eq!(choose_time_step(HOUR_MS, 9), TimeStep::Ms(10 * MINUTE_MS));
+        assert_eq!(choose_time_step(3 * DAY_MS, 9), TimeStep::Ms(12 * HOUR_MS));
+        assert_eq!(choose_time_step(365 * DAY_MS, 9), TimeStep::Months(2));
+        assert_eq!(
+            time_label(t, TimeStep::Ms(HOUR_MS)),
+            "03-01 12:00".to_string()
+        );
+    }
+
+    #[test]
+    fn overview_has_one_panel_per_reactor() {
+        let a = plot_n(100, HOUR_MS);
+        let mut b = plot_n(50, 2 * HOUR_MS);
+        b.reactor = "meth1".into();
+        b.title = "Methanator (meth1)".into();
+        b.points[20].approach_k = None;
+        b.markers.push(Marker {
+            t_ms: T0 + 10 * HOUR_MS,
+            kind: MarkerKind::Alarm,
+            label: "approach above limit".into(),
+        });
+        let c = ReactorPlot {
+            reactor: "hts1".into(),
+            ..ReactorPlot::default()
+        };
+        let svg = overview_svg(&[a, b, c], "Plant overview");
+        check_valid(&svg);
+        let doc = parse(&svg);
+        let panels: Vec<Node> = doc
+            .descendants()
+            .filter(|n| has_class(n, "panel"))
+            .collect();
+        assert_eq!(panels.len(), 3);
+        assert_eq!(panels[1].attribute("data-reactor"), Some("meth1"));
+        let approach = |p: &Node| {
+            p.children()
+                .find(|n| has_class(n, "approach"))
+                .and_then(|g| path_d(g, "line"))
+        };
+        assert_eq!(approach(&panels[0]).map(|d| subpaths(&d)), Some(1));
+        assert_eq!(approach(&panels[1]).map(|d| subpaths(&d)), Some(2));
+        assert_eq!(approach(&panels[2]), None);
+        let marks = panels[1]
+            .descendants()
+            .filter(|n| has_class(n, "marker") && has_class(n, "alarm"))
+            .count();
+        assert_eq!(marks, 1);
+        assert!(
+            panels[0]
+                .descendants()
+                .any(|n| has_class(&n, "limit") && n.has_children())
+        );
+        let empty = overview_svg(&[], "nothing");
+        check_valid(&empty);
+        assert!(
+            texts(&parse(&empty))
+                .iter()
+                .any(|s| s.starts_with("no data"))
+        );
+    }
+
+    #[test]
+    fn pure_and_deterministic() {
+        // The module (tests excluded) names no file, network, clock or runtime API.
+        let src = include_str!("plot.rs");
+        let code = src.split("#[cfg(test)]").next().unwrap_or_default();
+        for needle in [
+            ["std", "::fs"].concat(),
+            ["std", "::net"].concat(),
+            ["std", "::io"].concat(),
+            ["std", "::env"].concat(),
+            ["File", "::"].concat(),
+            ["System", "Time"].concat(),
+            ["Instant", "::now"].concat(),
+            ["tok", "io"].concat(),
+            ["print", "ln!"].concat(),
+        ] {
+            assert!(!code.contains(&needle), "plot.rs uses {needle}");
+        }
+        let p = year_of_data();
+        assert_eq!(reactor_svg(&p), reactor_svg(&p));
+        let all = [p.clone(), plot_n(3, HOUR_MS)];
+        assert_eq!(overview_svg(&all, "x"), overview_svg(&all, "x"));
+    }
+
+    /// Writes samples for a person to look at: `cargo test --lib plot -- --ignored`.
+    #[test]
+    #[ignore]
+    fn write_samples() {
+        let mut p = plot_n(30 * 24, HOUR_MS);
+        for i in 300..330 {
+            p.points[i].approach_k = None;
+        }
+        for i in (400..460).step_by(3) {
+            p.points[i].good = false;
+        }
+        let end = T0 + 30 * DAY_MS;
+        let eor = end + 20 * DAY_MS;
+        p.projection = Some(Projection {
+            points: vec![
+                (T0, 8.0, 7.6, 8.4),
+                (end, 14.0, 13.4, 14.6),
+                (eor, 25.0, 21.0, 29.0),
+            ],
+            slope_k_per_day: 0.55,
+            end_of_run_ms: Some(eor),
+            end_of_run_range_ms: Some((eor - 4 * DAY_MS, eor + 9 * DAY_MS)),
+        });
+        p.baselines.push(BaselineSpan {
+            from_ms: T0,
+            to_ms: T0 + 7 * DAY_MS,
+            approach_k: 8.3,
+            sigma_k: Some(0.7),
+        });
+        p.markers = vec![
+            Marker {
+                t_ms: T0 + 18 * DAY_MS,
+                kind: MarkerKind::Alert,
+                label: "approach rising faster than baseline".into(),
+            },
+            Marker {
+                t_ms: T0 + 24 * DAY_MS,
+                kind: MarkerKind::Alarm,
+                label: "approach 3 sigma above baseline".into(),
+            },
+            Marker {
+                t_ms: T0 + 26 * DAY_MS,
+                kind: MarkerKind::Cleared,
+                label: "alarm cleared".into(),
+            },
+            Marker {
+                t_ms: T0 + 12 * DAY_MS,
+                kind: MarkerKind::Operator,
+                label: "analyser recalibrated".into(),
+            },
+        ];
+        let mut m = plot_n(30 * 24, HOUR_MS);
+        m.title = "Methanator (meth1)".into();
+        m.reactor = "meth1".into();
+        for (i, q) in m.points.iter_mut().enumerate() {
+            q.key_measured = Some(4e-6 + 2e-6 * (i as f64 * 0.05).sin());
+            q.key_equilibrium = Some(1e-10 * (1.0 + 0.3 * (i as f64 * 0.02).cos()));
+        }
+        let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("target");
+        let write = |name: &str, s: &str| {
+            if let Err(e) = std::fs::write(dir.join(name), s) {
+                panic!("writing {name}: {e}");
+            }
+        };
+        write("plot-sample.svg", &reactor_svg(&p));
+        write("plot-sample-methanator.svg", &reactor_svg(&m));
+        write("plot-sample-year.svg", &reactor_svg(&year_of_data()));
+        write(
+            "plot-sample-overview.svg",
+            &overview_svg(&[p, m, year_of_data()], "Plant overview"),
+        );
+    }
+}
