@@ -54,9 +54,9 @@ pub struct PlotPoint {
     pub uncertainty_k: Option<f64>,
     /// `false` = uncertain quality: still drawn, with a hollow marker.
     pub good: bool,
-    /// Key component mole fraction (0..1), measured.
+    /// Key component mole fraction (0..1), measured; values outside -0.001..1.001 are gaps.
     pub key_measured: Option<f64>,
-    /// Key component mole fraction (0..1) at equilibrium.
+    /// Key component mole fraction (0..1) at equilibrium; as `key_measured` for bad values.
     pub key_equilibrium: Option<f64>,
 }
 
@@ -302,6 +302,11 @@ fn fmt_sig(v: f64, sig: i32) -> String {
     } else {
         s
     }
+}
+
+/// A mole fraction that can be plotted: 0..1, with a little room for analyser zero drift.
+fn usable_fraction(v: f64) -> bool {
+    (-1e-3..=1.001).contains(&v)
 }
 
 fn usable(v: f64) -> bool {
@@ -1005,10 +1010,16 @@ fn draw_time_grid(out: &mut String, area: Area, ta: &TimeAxis, labels: bool) {
             x = N(x)
         );
         if labels {
+            // A label that would run off the right edge ends at its tick instead.
+            let anchor = if x + 0.5 * text_width(text, 11.0) > WIDTH - 4.0 {
+                "end"
+            } else {
+                "middle"
+            };
             w!(
                 out,
                 "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{C_FRAME}\"/>\
-                 <text x=\"{x}\" y=\"{}\" text-anchor=\"middle\" fill=\"{C_TEXT}\">{}</text>",
+                 <text x=\"{x}\" y=\"{}\" text-anchor=\"{anchor}\" fill=\"{C_TEXT}\">{}</text>",
                 N(area.y1),
                 N(area.y1 + 4.0),
                 N(area.y1 + 16.0),
@@ -1446,7 +1457,8 @@ pub fn reactor_svg(p: &ReactorPlot) -> String {
         ),
     ];
     let key_heading = format!("{key}: measured and at equilibrium");
-    let key_legend_x = (LEFT + text_width(&key_heading, 13.0) + 30.0).min(RIGHT - 300.0);
+    // Bold heading text is wider than the 0.56 em average of `text_width`.
+    let key_legend_x = (LEFT + 1.15 * text_width(&key_heading, 13.0) + 24.0).min(RIGHT - 300.0);
     let (key_pos, _) = legend_layout(&key_items, key_legend_x, RIGHT, 410.0);
 
     out.push_str("<defs>");
@@ -1520,7 +1532,12 @@ pub fn reactor_svg(p: &ReactorPlot) -> String {
     w!(
         out,
         "<text class=\"footer\" x=\"16\" y=\"632\" font-size=\"10\" fill=\"{C_MUTED}\">advisory: not a safety function. \
-         eqwatch, reactor {}</text>",
+         eqwatch{}{}</text>",
+        if p.reactor.is_empty() {
+            ""
+        } else {
+            ", reactor "
+        },
         Esc(&p.reactor)
     );
     out.push_str("<g id=\"legend\">");
@@ -2121,7 +2138,11 @@ fn end_of_run_group(
 /// Unit and axis of the key-component chart: ppm when the largest value is below 0.1 mol%,
 /// else mol%; log10 when the positive values span more than two decades.
 fn key_axis(values: &[f64]) -> Option<(f64, &'static str, Axis)> {
-    let vals: Vec<f64> = values.iter().copied().filter(|v| usable(*v)).collect();
+    let vals: Vec<f64> = values
+        .iter()
+        .copied()
+        .filter(|v| usable_fraction(*v))
+        .collect();
     let max_abs = vals.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     if vals.is_empty() {
         return None;
@@ -2181,7 +2202,9 @@ fn key_chart(out: &mut String, pts: &[&PlotPoint], key: &str, ta: &TimeAxis, are
                     .iter()
                     .map(|q| Px {
                         x: ts.x(q.t_ms),
-                        y: pick(q).filter(|v| usable(*v)).and_then(|v| ys.y(v * scale)),
+                        y: pick(q)
+                            .filter(|v| usable_fraction(*v))
+                            .and_then(|v| ys.y(v * scale)),
                         band: None,
                         env: None,
                         good: true,
@@ -2803,6 +2826,10 @@ mod tests {
         let c = key_axis(&[0.05, 0.0001]);
         assert!(matches!(c, Some((_, "mol%", ref ax)) if ax.log));
         assert!(key_axis(&[f64::NAN, f64::INFINITY]).is_none());
+        // A mole fraction of -1 or 2 is not a reading: not plotted, does not set the axis.
+        assert!(key_axis(&[-1.0, 2.0]).is_none());
+        let d = key_axis(&[-1.0, 0.003, 0.0025]);
+        assert!(matches!(d, Some((_, "mol%", ref ax)) if ax.lo >= 0.0));
         assert!(key_axis(&[]).is_none());
     }
 
