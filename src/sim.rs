@@ -27,7 +27,13 @@
 //! 30 min, configurable), the HTS analyser stuck from 20 to 35 min, the second LTS
 //! thermocouple silent after 15 min, and the LTS approach creeping up 0.2 K per hour.
 //!
-//! Pure: no I/O, no clock; the caller passes simulated time.
+//! Year history: [`write_history`] writes one invented year of the same plant as CSV
+//! (one row per minute; the scenario in [`YEAR_SCENARIO`]) for `eqwatch replay`. It
+//! reuses the physics above at each minute's temperature and pressure, with its own
+//! scenario and counter-based noise; the live demo's scenario is untouched.
+//!
+//! Pure: no clock; the caller passes simulated time (the history writes to a caller's
+//! `Write`).
 
 use crate::composition::Basis;
 use crate::equilibrium::{EosKind, EquilibriumSystem};
@@ -521,10 +527,19 @@ impl Plant {
                 if endo { r.t_k - a } else { r.t_k + a }
             })
             .collect();
-        self.solve_outlet(r, &r.feed, &eq_temps)
+        self.solve_outlet(r, &r.feed, &eq_temps, r.t_k, Self::pressure_bar_abs(r))
     }
 
-    fn solve_outlet(&self, r: &Reactor, feed: &[f64], eq_temps: &[f64]) -> Option<Outlet> {
+    /// The equilibrium gas of `feed` at `t_k`, `p_bar` (absolute) when each reaction's
+    /// K is its real K at its own equilibrium temperature `eq_temps[i]`.
+    fn solve_outlet(
+        &self,
+        r: &Reactor,
+        feed: &[f64],
+        eq_temps: &[f64],
+        t_k: f64,
+        p_bar: f64,
+    ) -> Option<Outlet> {
         // Each reaction gets a constant K: its real K at its own equilibrium temperature.
         let mut fixed_k = Vec::with_capacity(r.reactions.len());
         for ((rx, k), &t_eq) in r.reactions.iter().zip(eq_temps) {
@@ -552,7 +567,7 @@ impl Plant {
             .map(|s| r.species.iter().position(|x| x == s))
             .collect::<Option<Vec<_>>>()?;
         let moles_in: Vec<f64> = order.iter().map(|&i| feed[i]).collect();
-        let res = sys.solve(&self.db, r.t_k, Self::pressure_bar_abs(r), &moles_in);
+        let res = sys.solve(&self.db, t_k, p_bar, &moles_in);
         if !res.converged {
             return None;
         }
@@ -582,7 +597,7 @@ impl Plant {
         let ratio_for = |water: f64| -> Option<f64> {
             let mut feed = r.feed.clone();
             feed[w] = water;
-            self.solve_outlet(&r, &feed, &eq_temps)
+            self.solve_outlet(&r, &feed, &eq_temps, r.t_k, Self::pressure_bar_abs(&r))
                 .map(|o| o.steam_ratio(Some(w)))
         };
         let dry: f64 = r
@@ -868,6 +883,730 @@ impl ReactorSpec {
             basis: self.basis,
             reported,
         })
+    }
+}
+
+// ---------------------------------------------------------------------------
+// One invented year of plant history, written as CSV for `eqwatch replay`.
+//
+// Everything below is a pure function of (options, row time): a row does not depend on
+// the rows before it, so a short run is a prefix of a long one with the same start and
+// seed, rows can be computed in parallel, and the same arguments give the same bytes.
+
+/// The year scenario of [`write_history`] in words (also written into the CSV header).
+pub const YEAR_SCENARIO: &str = "\
+Brackwater Ammonia Works, train 1: one invented year of plant history (simulated data)
+Days count from the start (day 0 is the first day); times of day are UTC.
+  all year       lts1: catalyst deactivation; approach 8 K at the start, rising slightly faster
+                 than linearly to about 17.5 K at day 365 (a 20 K end-of-run limit about 80 days later)
+  all year       hts1 ~8 K, mth1 ~10 K, amc1 ~15 K, ref1 shift ~2 K: seasonal and daily wander
+                 within +/-0.5 K (half that on ref1 and lts1); outlet temperatures swing +/-1.5 K
+                 daily (warmest 15:00) and +/-1 K over the seasons
+  every 7 days   lts1: analyser AI-301 calibrates for 30 min from day 3 09:00 (then day 10, 17, ...):
+                 the calibration gas is written, with quality bad
+  day 60         hts1: analyser AI-201 stuck 10:00-18:00, repeating its 09:55 analysis (quality good)
+  day 120 08:00  ref1: sulphur poisoning; methane approach 8 K -> 25 K over 6 h, 3 days at 25 K,
+                 then recovery over about 2 weeks to 10 K (partial permanent damage)
+  day 200        ref1: analyser AI-101 out of service all day (empty cells)
+  day 249-252    lts1: thermocouple TI-305B failed from day 249 14:00 to day 252 14:00 (empty cells)
+  day 300 06:00  plant trip, 3-day shutdown: no analyses and no steam ratios; temperatures fall
+                 towards 40 degC and pressures towards 0 barg; restart day 303 06:00, back on line
+                 (analyses resume) at 18:00
+  scattered      a few single analyses per analyser with one component missing (empty cell)";
+
+const HOUR_S: f64 = 3600.0;
+/// One day, s.
+pub const DAY_S: f64 = 86_400.0;
+/// Rows of the history are this far apart, s.
+pub const HISTORY_ROW_S: i64 = 60;
+/// Default start of the history: 2026-01-01T00:00:00Z, s since the epoch.
+pub const DEFAULT_HISTORY_START_S: i64 = 1_767_225_600;
+/// Default length of the history, days.
+pub const DEFAULT_HISTORY_DAYS: u32 = 365;
+/// Default noise seed of the history.
+pub const DEFAULT_HISTORY_SEED: u64 = 20_260_101;
+
+/// lts1 approach at the start of the year, K.
+pub const LTS_START_OF_RUN_K: f64 = 8.0;
+/// lts1 approach (before wander) at day 365, K.
+pub const LTS_DAY_365_K: f64 = 17.5;
+/// Share of the lts1 rise over the year that comes from the quadratic term.
+const LTS_ACCELERATION_SHARE: f64 = 0.2;
+
+/// ref1: start of the sulphur poisoning, s from the start (day 120 08:00).
+pub const REF_SULPHUR_AT_S: f64 = 120.0 * DAY_S + 8.0 * HOUR_S;
+/// ref1: time for the methane approach to reach its poisoned value, s.
+pub const REF_SULPHUR_RISE_S: f64 = 6.0 * HOUR_S;
+/// ref1: time at the poisoned value before recovery starts, s.
+pub const REF_SULPHUR_PLATEAU_S: f64 = 3.0 * DAY_S;
+/// ref1: time constant of the recovery, s (about 2 weeks to within 0.3 K).
+pub const REF_RECOVERY_TAU_S: f64 = 3.5 * DAY_S;
+/// ref1 methane approach before, at the peak of, and long after the poisoning, K.
+pub const REF_CLEAN_K: f64 = 8.0;
+pub const REF_POISONED_K: f64 = 25.0;
+pub const REF_RECOVERED_K: f64 = 10.0;
+
+/// hts1: analyser AI-201 repeats its last analysis for samples in this window, s.
+pub const HTS_STUCK_YEAR_S: (f64, f64) =
+    (60.0 * DAY_S + 10.0 * HOUR_S, 60.0 * DAY_S + 18.0 * HOUR_S);
+/// lts1: analyser AI-301 calibrations start here, s from the start (day 3 09:00) ...
+pub const LTS_CALIBRATION_FIRST_S: f64 = 3.0 * DAY_S + 9.0 * HOUR_S;
+/// ... and repeat this often, s ...
+pub const LTS_CALIBRATION_EVERY_S: f64 = 7.0 * DAY_S;
+/// ... each lasting this long, s.
+pub const LTS_CALIBRATION_S: f64 = 1800.0;
+/// lts1 calibration gas, mol% (invented certificate values).
+const LTS_CALIBRATION_GAS: [(&str, f64); 6] = [
+    ("H2", 60.0),
+    ("N2", 20.0),
+    ("CO", 1.0),
+    ("CO2", 18.0),
+    ("CH4", 0.5),
+    ("Ar", 0.5),
+];
+/// ref1: analyser AI-101 out of service for samples in this window, s.
+pub const REF_ANALYSER_OUT_S: (f64, f64) = (200.0 * DAY_S, 201.0 * DAY_S);
+/// lts1: thermocouple TI-305B failed (no readings) in this window, s.
+pub const LTS_TI_B_FAILED_S: (f64, f64) =
+    (249.0 * DAY_S + 14.0 * HOUR_S, 252.0 * DAY_S + 14.0 * HOUR_S);
+/// Plant trip (start of the shutdown), s from the start (day 300 06:00).
+pub const TRIP_S: f64 = 300.0 * DAY_S + 6.0 * HOUR_S;
+/// Restart after the shutdown, s (day 303 06:00).
+pub const RESTART_S: f64 = 303.0 * DAY_S + 6.0 * HOUR_S;
+/// Back on line after the restart ramp, s (day 303 18:00); analyses resume.
+pub const ON_LINE_S: f64 = 303.0 * DAY_S + 18.0 * HOUR_S;
+/// Where temperatures head during the shutdown, degC.
+pub const AMBIENT_C: f64 = 40.0;
+const COOLING_TAU_S: f64 = 10.0 * HOUR_S;
+const DEPRESSURING_TAU_S: f64 = 2.0 * HOUR_S;
+/// Analyses per analyser and per 365-day year that lack one component (their places in
+/// each year are drawn from the seed).
+pub const MISSING_COMPONENT_PER_YEAR: u64 = 5;
+const ANALYSES_PER_YEAR: u64 = (365.0 * DAY_S / GC_CYCLE_S) as u64;
+
+/// What the plant is doing at a time of the year scenario.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PlantPhase {
+    Running,
+    /// Tripped: cooling and depressuring, no flow.
+    Down,
+    /// Heating and pressuring back up; no analyses or steam ratios yet.
+    Restarting,
+}
+
+/// The plant's phase at `t_s` (s from the start of the history).
+pub fn plant_phase(t_s: f64) -> PlantPhase {
+    if (TRIP_S..RESTART_S).contains(&t_s) {
+        PlantPhase::Down
+    } else if (RESTART_S..ON_LINE_S).contains(&t_s) {
+        PlantPhase::Restarting
+    } else {
+        PlantPhase::Running
+    }
+}
+
+/// Whether the lts1 analyser is calibrating at sample time `t_s`.
+pub fn lts_calibrating(t_s: f64) -> bool {
+    let x = t_s - LTS_CALIBRATION_FIRST_S;
+    x >= 0.0 && x.rem_euclid(LTS_CALIBRATION_EVERY_S) < LTS_CALIBRATION_S
+}
+
+/// Per-reactor phase of the slow wanders (so reactors do not move in step) and the
+/// scale of the approach wander.
+fn wander_params(reactor_id: &str) -> Option<(f64, f64)> {
+    Some(match reactor_id {
+        "ref1" => (0.3, 0.5),
+        "hts1" => (1.1, 1.0),
+        "lts1" => (2.0, 0.5),
+        "mth1" => (2.9, 1.0),
+        "amc1" => (4.2, 1.0),
+        _ => return None,
+    })
+}
+
+/// Slow approach wander, within ±0.5 K: seasonal, daily and a 9.3-day swing.
+fn approach_wander_k(phase: f64, t_s: f64) -> f64 {
+    use std::f64::consts::TAU;
+    let d = t_s / DAY_S;
+    0.2 * (TAU * d / 365.25 + phase).sin()
+        + 0.15 * (TAU * d + 2.0 * phase).sin()
+        + 0.15 * (TAU * d / 9.3 + 3.0 * phase).sin()
+}
+
+/// lts1 deactivation (no wander): `LTS_START_OF_RUN_K` at 0 rising to `LTS_DAY_365_K`
+/// at day 365 along a slightly accelerating quadratic.
+fn lts_deactivation_k(t_s: f64) -> f64 {
+    let x = t_s.max(0.0) / (365.0 * DAY_S);
+    LTS_START_OF_RUN_K
+        + (LTS_DAY_365_K - LTS_START_OF_RUN_K)
+            * ((1.0 - LTS_ACCELERATION_SHARE) * x + LTS_ACCELERATION_SHARE * x * x)
+}
+
+/// ref1 methane approach (no wander) through the sulphur event.
+fn ref_methane_k(t_s: f64) -> f64 {
+    let since = t_s - REF_SULPHUR_AT_S;
+    if since < 0.0 {
+        REF_CLEAN_K
+    } else if since < REF_SULPHUR_RISE_S + REF_SULPHUR_PLATEAU_S {
+        REF_CLEAN_K + (REF_POISONED_K - REF_CLEAN_K) * smoothstep(since / REF_SULPHUR_RISE_S)
+    } else {
+        let rec = since - REF_SULPHUR_RISE_S - REF_SULPHUR_PLATEAU_S;
+        REF_RECOVERED_K + (REF_POISONED_K - REF_RECOVERED_K) * (-rec / REF_RECOVERY_TAU_S).exp()
+    }
+}
+
+/// The approach (K) the year scenario prescribes for reaction `reaction` of reactor
+/// `reactor_id` at `t_s` s from the start of the history (the truth a replay should find
+/// while the plant runs). `None` for an unknown reactor or reaction.
+pub fn year_approach_k(reactor_id: &str, reaction: usize, t_s: f64) -> Option<f64> {
+    let (phase, scale) = wander_params(reactor_id)?;
+    let base = match (reactor_id, reaction) {
+        ("ref1", 0) => ref_methane_k(t_s),
+        ("ref1", 1) => 2.0,
+        ("hts1", 0) => 8.0,
+        ("lts1", 0) => lts_deactivation_k(t_s),
+        ("mth1", 0 | 1) => 10.0,
+        ("amc1", 0) => 15.0,
+        _ => return None,
+    };
+    Some(base + scale * approach_wander_k(phase, t_s))
+}
+
+/// Fraction of the way from the shutdown value back to the running value (1 while running).
+fn shutdown_factor(t_s: f64, tau_s: f64) -> f64 {
+    match plant_phase(t_s) {
+        PlantPhase::Running => 1.0,
+        PlantPhase::Down => (-(t_s - TRIP_S) / tau_s).exp(),
+        PlantPhase::Restarting => {
+            let low = (-(RESTART_S - TRIP_S) / tau_s).exp();
+            low + (1.0 - low) * smoothstep((t_s - RESTART_S) / (ON_LINE_S - RESTART_S))
+        }
+    }
+}
+
+/// Options of [`write_history`].
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct HistoryOptions {
+    /// First row's time, whole seconds since the epoch (UTC).
+    pub start_epoch_s: i64,
+    pub days: u32,
+    pub seed: u64,
+    /// Instrument noise on (the default) or off.
+    pub noise: bool,
+    /// Worker threads (0: as many as the machine offers, at most 8). The output does not
+    /// depend on it.
+    pub threads: usize,
+}
+
+impl Default for HistoryOptions {
+    fn default() -> Self {
+        Self {
+            start_epoch_s: DEFAULT_HISTORY_START_S,
+            days: DEFAULT_HISTORY_DAYS,
+            seed: DEFAULT_HISTORY_SEED,
+            noise: true,
+            threads: 0,
+        }
+    }
+}
+
+/// What [`write_history`] wrote.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct HistoryStats {
+    /// Data rows (one per minute).
+    pub rows: u64,
+    /// Analyses written (all analysers; calibration-gas analyses included).
+    pub analyses: u64,
+    /// Non-empty value cells (thermocouples, pressures, steam ratios, components).
+    pub values: u64,
+    /// Bytes written, comments and header included.
+    pub bytes: u64,
+}
+
+impl HistoryStats {
+    fn add(&mut self, o: &HistoryStats) {
+        self.rows += o.rows;
+        self.analyses += o.analyses;
+        self.values += o.values;
+        self.bytes += o.bytes;
+    }
+}
+
+/// Tags of one reactor's inputs in config/demo-plant.toml.
+struct HistoryTags {
+    reactor: &'static str,
+    temperatures: &'static [&'static str],
+    pressure: &'static str,
+    /// Measured steam ratio, if the configuration has one.
+    steam_ratio: Option<&'static str>,
+    analyser: &'static str,
+    /// Noise stream of the reactor's instruments.
+    stream: u64,
+}
+
+const HISTORY_TAGS: [HistoryTags; 5] = [
+    HistoryTags {
+        reactor: "ref1",
+        temperatures: &["BAW1-TI-105A", "BAW1-TI-105B"],
+        pressure: "BAW1-PI-102",
+        steam_ratio: Some("BAW1-FY-110"),
+        analyser: "BAW1-AI-101",
+        stream: 1,
+    },
+    HistoryTags {
+        reactor: "hts1",
+        temperatures: &["BAW1-TI-205"],
+        pressure: "BAW1-PI-202",
+        steam_ratio: None,
+        analyser: "BAW1-AI-201",
+        stream: 2,
+    },
+    HistoryTags {
+        reactor: "lts1",
+        temperatures: &["BAW1-TI-305A", "BAW1-TI-305B"],
+        pressure: "BAW1-PI-302",
+        steam_ratio: Some("BAW1-FY-310"),
+        analyser: "BAW1-AI-301",
+        stream: 3,
+    },
+    HistoryTags {
+        reactor: "mth1",
+        temperatures: &["BAW1-TI-405"],
+        pressure: "BAW1-PI-402",
+        steam_ratio: None,
+        analyser: "BAW1-AI-401",
+        stream: 4,
+    },
+    HistoryTags {
+        reactor: "amc1",
+        temperatures: &["BAW1-TI-505"],
+        pressure: "BAW1-PI-502",
+        steam_ratio: None,
+        analyser: "BAW1-AI-501",
+        stream: 5,
+    },
+];
+
+// Noise channels of one reactor (combined with its `stream`).
+const CH_TEMPERATURE: u64 = 0; // + thermocouple number
+const CH_PRESSURE: u64 = 8;
+const CH_STEAM_RATIO: u64 = 9;
+const CH_ANALYSER: u64 = 16; // + component number
+const CH_MISSING: u64 = 48;
+const CH_MISSING_WHICH: u64 = 49;
+
+/// The generator of the year history: the demo plant's reactors with the year scenario.
+#[derive(Debug, Clone)]
+pub struct History {
+    plant: Plant,
+    opts: HistoryOptions,
+    /// Plant reactor index of each `HISTORY_TAGS` entry.
+    reactor_index: Vec<usize>,
+}
+
+/// Appends `x` with `digits` significant digits, in plain decimal notation.
+fn push_significant(out: &mut String, x: f64, digits: i32) {
+    use std::fmt::Write as _;
+    if !x.is_finite() {
+        return;
+    }
+    if x == 0.0 {
+        out.push('0');
+        return;
+    }
+    let magnitude = x.abs().log10().floor() as i32;
+    let decimals = digits - 1 - magnitude;
+    if decimals >= 0 {
+        let decimals = decimals as usize;
+        let _ = write!(out, "{x:.decimals$}");
+    } else {
+        // Large numbers: round away the digits beyond `digits` (1234.5 -> 1230).
+        let unit = 10f64.powi(-decimals);
+        let _ = write!(out, "{:.0}", (x / unit).round() * unit);
+    }
+}
+
+fn push_fixed(out: &mut String, x: f64, decimals: usize) {
+    use std::fmt::Write as _;
+    if x.is_finite() {
+        let _ = write!(out, "{x:.decimals$}");
+    }
+}
+
+/// Appends `2026-01-01T00:05:00Z` for whole seconds since the epoch.
+fn push_rfc3339_seconds(out: &mut String, secs: i64) {
+    use std::fmt::Write as _;
+    let (y, m, d) = crate::timefmt::civil_from_days(secs.div_euclid(86_400));
+    let sod = secs.rem_euclid(86_400);
+    let _ = write!(
+        out,
+        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
+        sod / 3600,
+        (sod % 3600) / 60,
+        sod % 60
+    );
+}
+
+impl History {
+    /// The generator for `opts`; `None` if a demo reactor cannot be built (the reactor
+    /// specifications are fixed text, checked by the tests).
+    pub fn new(opts: &HistoryOptions) -> Option<Self> {
+        let plant = Plant::new(opts.seed, opts.start_epoch_s.saturating_mul(1000));
+        let reactor_index = HISTORY_TAGS
+            .iter()
+            .map(|t| plant.reactors.iter().position(|r| r.id == t.reactor))
+            .collect::<Option<Vec<_>>>()?;
+        Some(Self {
+            plant,
+            opts: opts.clone(),
+            reactor_index,
+        })
+    }
+
+    /// Number of data rows.
+    pub fn rows(&self) -> u64 {
+        u64::from(self.opts.days) * (DAY_S as u64) / HISTORY_ROW_S as u64
+    }
+
+    /// The column names of the header line, `time` first.
+    pub fn columns(&self) -> Vec<String> {
+        let mut v = vec!["time".to_string()];
+        for (tags, &ri) in HISTORY_TAGS.iter().zip(&self.reactor_index) {
+            v.extend(tags.temperatures.iter().map(|t| t.to_string()));
+            v.push(tags.pressure.to_string());
+            if let Some(fy) = tags.steam_ratio {
+                v.push(fy.to_string());
+            }
+            for (_, name, unit) in &self.plant.reactors[ri].reported {
+                match unit {
+                    Unit::Percent => v.push(format!("{}.{name}", tags.analyser)),
+                    Unit::Ppm => v.push(format!("{}.{name} [ppm]", tags.analyser)),
+                }
+            }
+            v.push(format!("{}.quality", tags.analyser));
+        }
+        v
+    }
+
+    /// The comment lines and the header line, each ending in `\n`.
+    pub fn preamble(&self) -> String {
+        let mut s = String::new();
+        s.push_str(
+            "# Brackwater Ammonia Works, train 1 (BAW1): plant history for `eqwatch replay`\n",
+        );
+        s.push_str("# invented demo data, made by the eqwatch demo plant simulator (src/sim.rs); no real plant\n");
+        s.push_str("# start ");
+        push_rfc3339_seconds(&mut s, self.opts.start_epoch_s);
+        s.push_str(&format!(
+            ", {} days, one row per minute, seed {}, noise {}\n",
+            self.opts.days,
+            self.opts.seed,
+            if self.opts.noise { "on" } else { "off" }
+        ));
+        for line in [
+            "time: when a value was reported (UTC). Thermocouples, pressures and steam ratios: every",
+            "  minute, sampled at the row time. Analysers: sampled every 5 min and reported 60 s later,",
+            "  so the analysis sampled at 00:00 is on the 00:01 row.",
+            "units: as configured for each tag in config/demo-plant.toml (degC, barg, bare ratio, mol%);",
+            "  a [unit] after a column name overrides it.",
+            "quality: <analyser>.quality is empty when good and bad while AI-301 calibrates (the",
+            "  calibration gas analysis is written). An empty cell: no reading at that time.",
+            "scenario:",
+        ] {
+            s.push_str("# ");
+            s.push_str(line);
+            s.push('\n');
+        }
+        for line in YEAR_SCENARIO.lines() {
+            s.push_str("#   ");
+            s.push_str(line);
+            s.push('\n');
+        }
+        s.push_str(&self.columns().join(","));
+        s.push('\n');
+        s
+    }
+
+    /// Uniform noise in [−1, 1) for (stream, channel, index); 0 when noise is off.
+    fn noise(&self, stream: u64, channel: u64, index: u64) -> f64 {
+        if !self.opts.noise {
+            return 0.0;
+        }
+        self.uniform(stream, channel, index) * 2.0 - 1.0
+    }
+
+    /// Uniform in [0, 1) for (stream, channel, index), noise on or off.
+    fn uniform(&self, stream: u64, channel: u64, index: u64) -> f64 {
+        let h = splitmix64(
+            self.opts.seed ^ splitmix64((stream << 40) ^ splitmix64(index ^ splitmix64(channel))),
+        );
+        (h >> 11) as f64 / (1u64 << 53) as f64
+    }
+
+    /// True outlet temperature of reactor `ri` at `t_s`, K.
+    fn temperature_k(&self, ri: usize, phase: f64, t_s: f64) -> f64 {
+        use std::f64::consts::TAU;
+        let d = t_s / DAY_S;
+        let running_c =
+            self.plant.reactors[ri].t_k - 273.15 - 1.0 * (TAU * (d - 15.0) / 365.25).cos()
+                + 1.5 * (TAU * (d - 15.0 / 24.0)).cos()
+                + 0.4 * (TAU * d / 4.7 + phase).sin();
+        AMBIENT_C + (running_c - AMBIENT_C) * shutdown_factor(t_s, COOLING_TAU_S) + 273.15
+    }
+
+    /// True outlet pressure of reactor `ri` at `t_s`, barg.
+    fn pressure_barg(&self, ri: usize, phase: f64, t_s: f64) -> f64 {
+        use std::f64::consts::TAU;
+        let d = t_s / DAY_S;
+        let running = self.plant.reactors[ri].p_barg
+            + 0.05 * (TAU * (d - 15.0 / 24.0)).cos()
+            + 0.05 * (TAU * d / 3.1 + phase).sin();
+        running * shutdown_factor(t_s, DEPRESSURING_TAU_S)
+    }
+
+    /// The outlet gas of reactor `ri` (tags `k`) at `t_s` while running.
+    fn outlet_at(&self, k: usize, t_s: f64) -> Option<Outlet> {
+        let ri = self.reactor_index[k];
+        let r = &self.plant.reactors[ri];
+        let (phase, _) = wander_params(r.id)?;
+        let t_k = self.temperature_k(ri, phase, t_s);
+        let p_bar = self.pressure_barg(ri, phase, t_s) + STANDARD_ATMOSPHERE_BAR;
+        let mut eq_temps = Vec::with_capacity(r.profiles.len());
+        for (i, &endo) in r.endothermic.iter().enumerate() {
+            let a = year_approach_k(r.id, i, t_s)?;
+            eq_temps.push(if endo { t_k - a } else { t_k + a });
+        }
+        self.plant.solve_outlet(r, &r.feed, &eq_temps, t_k, p_bar)
+    }
+
+    /// Analysis number `n` (sampled at `n`·GC cycle) of reactor `k` as values in its
+    /// reported unit, `None` where a component is missing; `None` overall if the gas
+    /// could not be computed.
+    fn analysis(&self, k: usize, n: u64) -> Option<Vec<Option<f64>>> {
+        let tags = &HISTORY_TAGS[k];
+        let r = &self.plant.reactors[self.reactor_index[k]];
+        let t_s = n as f64 * GC_CYCLE_S;
+        let truth: Vec<f64> = if tags.reactor == "lts1" && lts_calibrating(t_s) {
+            r.reported
+                .iter()
+                .map(|(_, name, _)| {
+                    LTS_CALIBRATION_GAS
+                        .iter()
+                        .find(|(g, _)| g == name)
+                        .map_or(0.0, |(_, x)| *x)
+                })
+                .collect()
+        } else {
+            let o = self.outlet_at(k, t_s)?;
+            r.reported.iter().map(|(pos, _, _)| o.y[*pos]).collect()
+        };
+        let raw: Vec<f64> = truth
+            .iter()
+            .enumerate()
+            .map(|(c, y)| {
+                y * (1.0 + ANALYSER_NOISE_REL * self.noise(tags.stream, CH_ANALYSER + c as u64, n))
+            })
+            .collect();
+        let sum: f64 = raw.iter().sum();
+        if !(sum > 0.0 && sum.is_finite()) {
+            return None;
+        }
+        let missing = self.missing_component(k, n);
+        Some(
+            r.reported
+                .iter()
+                .zip(&raw)
+                .enumerate()
+                .map(|(c, ((_, _, unit), y))| {
+                    (missing != Some(c)).then(|| y / sum * unit.per_fraction())
+                })
+                .collect(),
+        )
+    }
+
+    /// The component (position in the report) missing from analysis `n` of reactor `k`:
+    /// `MISSING_COMPONENT_PER_YEAR` seed-chosen analyses in each 365-day year.
+    fn missing_component(&self, k: usize, n: u64) -> Option<usize> {
+        let stream = HISTORY_TAGS[k].stream;
+        let n_components = self.plant.reactors[self.reactor_index[k]].reported.len();
+        let in_year = n % ANALYSES_PER_YEAR;
+        (0..MISSING_COMPONENT_PER_YEAR).find_map(|j| {
+            let at = (self.uniform(stream, CH_MISSING, j) * ANALYSES_PER_YEAR as f64) as u64;
+            (at == in_year)
+                .then(|| (self.uniform(stream, CH_MISSING_WHICH, j) * n_components as f64) as usize)
+        })
+    }
+
+    /// Appends data row `m` (time = start + m minutes) and a newline; returns what it wrote.
+    pub fn push_row(&self, m: u64, out: &mut String) -> HistoryStats {
+        let before = out.len();
+        let mut st = HistoryStats {
+            rows: 1,
+            ..HistoryStats::default()
+        };
+        let row_s = m as i64 * HISTORY_ROW_S;
+        let t_s = row_s as f64;
+        push_rfc3339_seconds(out, self.opts.start_epoch_s + row_s);
+        let running = plant_phase(t_s) == PlantPhase::Running;
+        // The analysis reported on this row, if any: sampled one analyser delay earlier.
+        let delay = ANALYSER_DELAY_S as i64;
+        let cycle = GC_CYCLE_S as i64;
+        let sample = (row_s >= delay && (row_s - delay) % cycle == 0)
+            .then(|| ((row_s - delay) / cycle) as u64);
+        for (k, tags) in HISTORY_TAGS.iter().enumerate() {
+            let ri = self.reactor_index[k];
+            let r = &self.plant.reactors[ri];
+            let phase = wander_params(r.id).map_or(0.0, |p| p.0);
+            let t_k = self.temperature_k(ri, phase, t_s);
+            for (j, _) in tags.temperatures.iter().enumerate() {
+                out.push(',');
+                let failed = tags.reactor == "lts1"
+                    && j == 1
+                    && t_s >= LTS_TI_B_FAILED_S.0
+                    && t_s < LTS_TI_B_FAILED_S.1;
+                if !failed {
+                    let x = t_k - 273.15
+                        + TI_NOISE_K * self.noise(tags.stream, CH_TEMPERATURE + j as u64, m);
+                    push_fixed(out, x, 2);
+                    st.values += 1;
+                }
+            }
+            out.push(',');
+            let p = self.pressure_barg(ri, phase, t_s)
+                + PI_NOISE_BAR * self.noise(tags.stream, CH_PRESSURE, m);
+            push_fixed(out, p, 3);
+            st.values += 1;
+            if tags.steam_ratio.is_some() {
+                out.push(',');
+                // No flow, no ratio: nothing while the plant is down or restarting.
+                if let Some(o) = running.then(|| self.outlet_at(k, t_s)).flatten() {
+                    let s = o.steam_ratio(r.water)
+                        * (1.0 + RATIO_NOISE_REL * self.noise(tags.stream, CH_STEAM_RATIO, m));
+                    push_fixed(out, s, 4);
+                    st.values += 1;
+                }
+            }
+            let values = sample.and_then(|n| self.reported_analysis(k, n));
+            let calibrating = tags.reactor == "lts1"
+                && sample.is_some_and(|n| lts_calibrating(n as f64 * GC_CYCLE_S));
+            for (c, (_, _, unit)) in r.reported.iter().enumerate() {
+                out.push(',');
+                if let Some(Some(v)) = values.as_ref().and_then(|v| v.get(c)) {
+                    match unit {
+                        Unit::Percent => push_significant(out, *v, 4),
+                        Unit::Ppm => push_significant(out, *v, 3),
+                    }
+                    st.values += 1;
+                }
+            }
+            out.push(',');
+            if values.is_some() {
+                st.analyses += 1;
+                if calibrating {
+                    out.push_str("bad");
+                }
+            }
+        }
+        out.push('\n');
+        st.bytes = (out.len() - before) as u64;
+        st
+    }
+
+    /// The analysis reactor `k`'s analyser reports for sample `n`, with the scenario's
+    /// analyser faults applied; `None` when it reports nothing.
+    fn reported_analysis(&self, k: usize, n: u64) -> Option<Vec<Option<f64>>> {
+        let t_s = n as f64 * GC_CYCLE_S;
+        if plant_phase(t_s) != PlantPhase::Running {
+            return None;
+        }
+        match HISTORY_TAGS[k].reactor {
+            "ref1" if t_s >= REF_ANALYSER_OUT_S.0 && t_s < REF_ANALYSER_OUT_S.1 => None,
+            "hts1" if t_s >= HTS_STUCK_YEAR_S.0 && t_s < HTS_STUCK_YEAR_S.1 => {
+                // Stuck: the last analysis before the window, exactly.
+                let last = ((HTS_STUCK_YEAR_S.0 / GC_CYCLE_S).ceil() as u64).saturating_sub(1);
+                self.analysis(k, last)
+            }
+            _ => self.analysis(k, n),
+        }
+    }
+}
+
+/// Writes the year history for `opts` to `out` (comments, header, one row per minute).
+pub fn write_history(
+    opts: &HistoryOptions,
+    out: &mut impl std::io::Write,
+) -> std::io::Result<HistoryStats> {
+    write_history_with_progress(opts, out, &mut |_, _| {})
+}
+
+/// [`write_history`], calling `progress(rows_done, rows_total)` after each batch of rows.
+pub fn write_history_with_progress(
+    opts: &HistoryOptions,
+    out: &mut impl std::io::Write,
+    progress: &mut dyn FnMut(u64, u64),
+) -> std::io::Result<HistoryStats> {
+    let history = History::new(opts)
+        .ok_or_else(|| std::io::Error::other("a demo plant reactor could not be built"))?;
+    let mut stats = HistoryStats::default();
+    let preamble = history.preamble();
+    out.write_all(preamble.as_bytes())?;
+    stats.bytes += preamble.len() as u64;
+    let total = history.rows();
+    let threads = match opts.threads {
+        0 => std::thread::available_parallelism()
+            .map_or(1, |n| n.get())
+            .min(8),
+        n => n,
+    };
+    // Each worker makes one chunk of rows per round; chunks are written in order.
+    const CHUNK_ROWS: u64 = 720;
+    let mut next = 0u64;
+    while next < total {
+        let ranges: Vec<(u64, u64)> = (0..threads as u64)
+            .map(|i| {
+                let a = (next + i * CHUNK_ROWS).min(total);
+                (a, (a + CHUNK_ROWS).min(total))
+            })
+            .filter(|(a, b)| a < b)
+            .collect();
+        let h = &history;
+        let chunks: Vec<(String, HistoryStats)> = if ranges.len() == 1 {
+            ranges.iter().map(|&(a, b)| h.rows_text(a, b)).collect()
+        } else {
+            std::thread::scope(|s| {
+                let handles: Vec<_> = ranges
+                    .iter()
+                    .map(|&(a, b)| s.spawn(move || h.rows_text(a, b)))
+                    .collect();
+                handles
+                    .into_iter()
+                    .map(|j| {
+                        j.join()
+                            .map_err(|_| std::io::Error::other("a history worker panicked"))
+                    })
+                    .collect::<std::io::Result<Vec<_>>>()
+            })?
+        };
+        for (text, st) in &chunks {
+            out.write_all(text.as_bytes())?;
+            stats.add(st);
+        }
+        next = ranges.last().map_or(total, |r| r.1);
+        progress(next, total);
+    }
+    out.flush()?;
+    Ok(stats)
+}
+
+impl History {
+    /// Rows `a..b` as text, with what they hold.
+    fn rows_text(&self, a: u64, b: u64) -> (String, HistoryStats) {
+        let mut s = String::with_capacity(((b - a) * 256) as usize);
+        let mut st = HistoryStats::default();
+        for m in a..b {
+            st.add(&self.push_row(m, &mut s));
+        }
+        (s, st)
     }
 }
 
@@ -1234,5 +1973,446 @@ mod tests {
             p.prescribed_approach_k("lts1", 0, 3600.0)
                 .is_some_and(|a| (a - 10.2).abs() < 1e-12)
         );
+    }
+
+    // ---- The year history (CSV for `eqwatch replay`) ----
+
+    /// Start of the default history (2026-01-01T00:00:00Z; `date -u -d 2026-01-01 +%s`).
+    const YEAR_START_S: i64 = 1_767_225_600;
+
+    fn history(noise: bool) -> History {
+        History::new(&HistoryOptions {
+            noise,
+            ..HistoryOptions::default()
+        })
+        .expect("the demo reactors build")
+    }
+
+    /// Row `m` of `h` split into cells, with the header's column names.
+    fn row_cells(h: &History, m: u64) -> Vec<String> {
+        let mut s = String::new();
+        h.push_row(m, &mut s);
+        assert!(s.ends_with('\n'));
+        s.trim_end().split(',').map(str::to_string).collect()
+    }
+
+    fn minute_of(t_s: f64) -> u64 {
+        (t_s / HISTORY_ROW_S as f64) as u64
+    }
+
+    fn col(h: &History, name: &str) -> usize {
+        h.columns()
+            .iter()
+            .position(|c| c == name)
+            .unwrap_or_else(|| panic!("no column {name}"))
+    }
+
+    #[test]
+    fn year_lts_approach_rises_from_8_k_to_about_17_5_k_and_accelerates() {
+        // Invented demo scenario: 8 K at the start, about 17.5 K at day 365.
+        let a0 = year_approach_k("lts1", 0, 0.0).expect("lts1");
+        let a365 = year_approach_k("lts1", 0, 365.0 * DAY_S).expect("lts1");
+        assert!((a0 - 8.0).abs() <= 0.3, "{a0}");
+        assert!((17.0..=18.0).contains(&a365), "{a365}");
+        // The trend without wander: rising, slightly faster at the end than at the start.
+        let slope = |d: f64| lts_deactivation_k((d + 1.0) * DAY_S) - lts_deactivation_k(d * DAY_S);
+        assert!(slope(364.0) > 1.2 * slope(0.0));
+        assert!((1..=365).all(|d| slope(d as f64) > 0.0));
+        // Extrapolated at the end-of-year slope, a 20 K end-of-run limit falls within
+        // the following months (invented demo scenario: about 80 days).
+        let days_to_20 = (20.0 - lts_deactivation_k(365.0 * DAY_S)) / slope(364.0);
+        assert!((30.0..=150.0).contains(&days_to_20), "{days_to_20}");
+        // Unknown reactors and reactions have no prescribed approach.
+        assert_eq!(year_approach_k("lts1", 1, 0.0), None);
+        assert_eq!(year_approach_k("xyz", 0, 0.0), None);
+    }
+
+    #[test]
+    fn year_reformer_sulphur_event_rises_holds_and_recovers_partly() {
+        // Invented demo scenario: day 120 08:00, 8 K -> 25 K over 6 h, 3 days at 25 K,
+        // recovery over about 2 weeks to 10 K.
+        let a = |t: f64| year_approach_k("ref1", 0, t).expect("ref1");
+        let at = REF_SULPHUR_AT_S;
+        let wander = 0.25; // half of ±0.5 K on ref1 (invented demo scenario)
+        assert!((a(at - 3600.0) - 8.0).abs() <= wander, "{}", a(at - 3600.0));
+        assert!((a(at) - 8.0).abs() <= wander);
+        let mid = a(at + 3.0 * 3600.0);
+        assert!(mid > 14.0 && mid < 19.0, "{mid}");
+        for t in [6.0 * 3600.0, DAY_S, 3.0 * DAY_S] {
+            assert!((a(at + t) - 25.0).abs() <= wander, "{t}: {}", a(at + t));
+        }
+        let recovery_start = at + REF_SULPHUR_RISE_S + REF_SULPHUR_PLATEAU_S;
+        let after_2_weeks = a(recovery_start + 14.0 * DAY_S);
+        assert!((after_2_weeks - 10.3).abs() <= 0.4, "{after_2_weeks}");
+        // Partial permanent damage: it settles near 10 K, never back to 8 K.
+        for d in [200.0, 300.0, 364.0] {
+            let x = a(d * DAY_S);
+            assert!((x - 10.0).abs() <= wander + 0.01, "day {d}: {x}");
+        }
+        // The shift at the reformer outlet stays near 2 K.
+        assert!((year_approach_k("ref1", 1, at + DAY_S).expect("shift") - 2.0).abs() <= 0.25);
+    }
+
+    #[test]
+    fn year_constant_reactors_wander_within_half_a_kelvin() {
+        // Invented demo scenario: hts1 ~8 K, mth1 ~10 K (both reactions), amc1 ~15 K.
+        for (id, reaction, centre) in [
+            ("hts1", 0, 8.0),
+            ("mth1", 0, 10.0),
+            ("mth1", 1, 10.0),
+            ("amc1", 0, 15.0),
+        ] {
+            let mut lo = f64::INFINITY;
+            let mut hi = f64::NEG_INFINITY;
+            for h in 0..(365 * 24) {
+                let x = year_approach_k(id, reaction, f64::from(h) * 3600.0).expect("reactor");
+                lo = lo.min(x);
+                hi = hi.max(x);
+            }
+            assert!(lo >= centre - 0.5 && hi <= centre + 0.5, "{id}: {lo}..{hi}");
+            assert!(hi - lo > 0.3, "{id} should wander: {lo}..{hi}");
+        }
+    }
+
+    #[test]
+    fn calibration_windows_and_plant_phases() {
+        // Invented demo scenario: AI-301 calibrates 30 min every 7 days from day 3 09:00.
+        let d3 = 3.0 * DAY_S + 9.0 * 3600.0;
+        assert!(!lts_calibrating(d3 - 60.0));
+        assert!(lts_calibrating(d3));
+        assert!(lts_calibrating(d3 + 1799.0));
+        assert!(!lts_calibrating(d3 + 1800.0));
+        assert!(lts_calibrating(d3 + 7.0 * DAY_S + 900.0));
+        assert!(!lts_calibrating(d3 + DAY_S + 900.0));
+        assert!(lts_calibrating(d3 + 51.0 * 7.0 * DAY_S));
+        assert!(!lts_calibrating(0.0));
+        // Invented demo scenario: trip day 300 06:00, restart day 303 06:00, on line 18:00.
+        assert_eq!(
+            plant_phase(300.0 * DAY_S + 5.0 * 3600.0),
+            PlantPhase::Running
+        );
+        assert_eq!(plant_phase(300.0 * DAY_S + 6.0 * 3600.0), PlantPhase::Down);
+        assert_eq!(plant_phase(303.0 * DAY_S + 5.0 * 3600.0), PlantPhase::Down);
+        assert_eq!(
+            plant_phase(303.0 * DAY_S + 6.0 * 3600.0),
+            PlantPhase::Restarting
+        );
+        assert_eq!(
+            plant_phase(303.0 * DAY_S + 18.0 * 3600.0),
+            PlantPhase::Running
+        );
+    }
+
+    #[test]
+    fn history_header_matches_the_demo_configuration() {
+        let text = include_str!("../config/demo-plant.toml");
+        let cfg: toml::Table = toml::from_str(text).expect("config/demo-plant.toml parses");
+        let reactors = cfg["reactors"].as_table().expect("[reactors]");
+        // Expected columns from the configuration, in the generator's reactor order.
+        let mut want = vec!["time".to_string()];
+        let mut units: Vec<(String, String)> = Vec::new();
+        for id in ["ref1", "hts1", "lts1", "mth1", "amc1"] {
+            let r = reactors[id].as_table().expect("reactor");
+            for t in r["temperature"].as_array().expect("temperatures") {
+                want.push(t["tag"].as_str().expect("tag").to_string());
+                units.push((
+                    want[want.len() - 1].clone(),
+                    t["unit"].as_str().expect("unit").to_string(),
+                ));
+            }
+            want.push(r["pressure"]["tag"].as_str().expect("tag").to_string());
+            units.push((
+                want[want.len() - 1].clone(),
+                r["pressure"]["unit"].as_str().expect("unit").to_string(),
+            ));
+            if let Some(tag) = r
+                .get("steam_ratio")
+                .and_then(|s| s.get("tag"))
+                .and_then(|t| t.as_str())
+            {
+                want.push(tag.to_string());
+            }
+            let comp = r["composition"].as_table().expect("composition");
+            let tag = comp["tag"].as_str().expect("tag");
+            // The configured unit (mol% by default) applies unless the header overrides it.
+            let unit = comp.get("unit").and_then(|u| u.as_str()).unwrap_or("mol%");
+            assert_eq!(unit, "mol%", "{id}");
+            for s in comp["components"].as_array().expect("components") {
+                let s = s.as_str().expect("species");
+                let ppm = id == "mth1" && (s == "CO" || s == "CO2");
+                want.push(if ppm {
+                    format!("{tag}.{s} [ppm]")
+                } else {
+                    format!("{tag}.{s}")
+                });
+            }
+            want.push(format!("{tag}.quality"));
+        }
+        let h = history(true);
+        assert_eq!(h.columns(), want);
+        // Scalar tags are written in their configured units.
+        for (tag, unit) in units {
+            let expect = if tag.contains("-PI-") { "barg" } else { "degC" };
+            assert_eq!(unit, expect, "{tag}");
+        }
+        let pre = h.preamble();
+        let lines: Vec<&str> = pre.lines().collect();
+        assert!(lines[..lines.len() - 1].iter().all(|l| l.starts_with('#')));
+        assert_eq!(lines[lines.len() - 1], want.join(","));
+        assert!(pre.contains("invented demo data"));
+        assert!(pre.contains("seed 20260101"));
+    }
+
+    #[test]
+    fn history_is_deterministic_and_analyses_come_every_5_min_one_minute_late() {
+        let opts = |seed: u64, threads: usize| HistoryOptions {
+            days: 1,
+            seed,
+            threads,
+            ..HistoryOptions::default()
+        };
+        let mut a = Vec::new();
+        let mut b = Vec::new();
+        let mut c = Vec::new();
+        let st = write_history(&opts(42, 1), &mut a).expect("write");
+        write_history(&opts(42, 2), &mut b).expect("write");
+        write_history(&opts(43, 1), &mut c).expect("write");
+        assert_eq!(a, b, "same arguments, any thread count: the same bytes");
+        assert_ne!(a, c, "another seed: other noise");
+        assert_eq!(st.bytes, a.len() as u64);
+        // Invented demo scenario: one row per minute, 288 analyses a day per analyser.
+        assert_eq!(st.rows, 1440);
+        assert_eq!(st.analyses, 5 * 288);
+        let text = std::str::from_utf8(&a).expect("UTF-8");
+        let mut lines = text.lines().filter(|l| !l.starts_with('#'));
+        let header: Vec<&str> = lines.next().expect("header").split(',').collect();
+        let analyser_cols: Vec<usize> = header
+            .iter()
+            .enumerate()
+            .filter(|(_, c)| c.starts_with("BAW1-AI-") && !c.ends_with(".quality"))
+            .map(|(i, _)| i)
+            .collect();
+        assert_eq!(analyser_cols.len(), 4 + 6 + 6 + 6 + 5);
+        let mut rows = 0;
+        for (m, line) in lines.enumerate() {
+            let cells: Vec<&str> = line.split(',').collect();
+            assert_eq!(cells.len(), header.len(), "row {m}");
+            let secs = crate::timefmt::parse_rfc3339(cells[0]).expect("time") / 1000;
+            assert_eq!(secs, YEAR_START_S + 60 * m as i64, "row {m}: {}", cells[0]);
+            assert!(
+                cells[0].ends_with('Z') && cells[0].len() == 20,
+                "{}",
+                cells[0]
+            );
+            // Analyses are sampled at whole 5 minutes and reported 60 s later.
+            let analysis_row = m % 5 == 1;
+            let filled = analyser_cols
+                .iter()
+                .filter(|&&i| !cells[i].is_empty())
+                .count();
+            if analysis_row {
+                assert_eq!(filled, analyser_cols.len(), "row {m}");
+            } else {
+                assert_eq!(filled, 0, "row {m}");
+            }
+            // Thermocouples, pressures and measured steam ratios every minute.
+            for (i, name) in header.iter().enumerate() {
+                if name.contains("-TI-") || name.contains("-PI-") || name.contains("-FY-") {
+                    assert!(
+                        cells[i].parse::<f64>().is_ok(),
+                        "row {m} {name}: {:?}",
+                        cells[i]
+                    );
+                }
+            }
+            rows += 1;
+        }
+        assert_eq!(rows, 1440);
+        // A row depends only on its time: one day is the start of two.
+        let mut two = Vec::new();
+        write_history(
+            &HistoryOptions {
+                days: 2,
+                ..opts(42, 2)
+            },
+            &mut two,
+        )
+        .expect("write");
+        let data = |t: &[u8]| -> Vec<String> {
+            String::from_utf8_lossy(t)
+                .lines()
+                .filter(|l| !l.starts_with('#'))
+                .map(str::to_string)
+                .collect()
+        };
+        assert_eq!(data(&two)[..1441], data(&a)[..]);
+    }
+
+    #[test]
+    fn history_analyses_read_back_as_the_prescribed_approach() {
+        // Noise off: the only error left is the CSV's number formatting.
+        let h = history(false);
+        let db = SpeciesDb::builtin();
+        let header = h.columns();
+        // (reactor, sample time): the year's start, mid-event, late in the year, a warm
+        // afternoon and a cool night (temperatures away from the nominal ones).
+        let times = [
+            0.0,
+            REF_SULPHUR_AT_S + DAY_S,
+            REF_SULPHUR_AT_S + 3.0 * 3600.0,
+            200.0 * DAY_S + 15.0 * 3600.0,
+            364.0 * DAY_S + 3.0 * 3600.0,
+        ];
+        for t_s in times {
+            for (k, tags) in HISTORY_TAGS.iter().enumerate() {
+                let r = &h.plant.reactors[h.reactor_index[k]];
+                let sample_row = row_cells(&h, minute_of(t_s));
+                let report_row = row_cells(&h, minute_of(t_s) + 1);
+                if tags.reactor == "ref1"
+                    && t_s >= REF_ANALYSER_OUT_S.0
+                    && t_s < REF_ANALYSER_OUT_S.1
+                {
+                    continue;
+                }
+                let mut comps = Vec::new();
+                for (_, name, unit) in &r.reported {
+                    let c = match unit {
+                        Unit::Percent => format!("{}.{name}", tags.analyser),
+                        Unit::Ppm => format!("{}.{name} [ppm]", tags.analyser),
+                    };
+                    let i = col(&h, &c);
+                    comps.push(Component {
+                        species: name.to_string(),
+                        value: report_row[i].parse().expect("analysis value"),
+                        unit: match unit {
+                            Unit::Percent => CompositionUnit::Percent,
+                            Unit::Ppm => CompositionUnit::parse("ppm").expect("ppm"),
+                        },
+                    });
+                }
+                let cell =
+                    |name: &str| -> f64 { sample_row[col(&h, name)].parse().expect("scalar") };
+                let t_k = tags.temperatures.iter().map(|t| cell(t)).sum::<f64>()
+                    / tags.temperatures.len() as f64
+                    + 273.15;
+                let p = cell(tags.pressure) + STANDARD_ATMOSPHERE_BAR;
+                // Measured ratio where configured, else the configuration's fixed value.
+                let water = match (r.basis, tags.steam_ratio, tags.reactor) {
+                    (Basis::Wet, _, _) => None,
+                    (_, Some(fy), _) => Some(WaterSource::SteamRatio(cell(fy))),
+                    (_, None, "hts1") => Some(WaterSource::SteamRatio(0.48)),
+                    (_, None, _) => Some(WaterSource::SteamRatio(0.004)),
+                };
+                let w = to_wet(&db, &comps, r.basis, water, 0.02).expect("composition");
+                let model = ReactorModel::new(&db, r.reactions.clone(), &w.species, r.eos, None)
+                    .expect("model");
+                let state = GasState {
+                    temperature_k: t_k,
+                    pressure_bar: p,
+                    y: &w.y,
+                    steam_ratio: w.steam_ratio.zip(w.added_water),
+                };
+                let mut s = model.scratch();
+                model.fugacity(&state, &mut s);
+                for i in 0..r.reactions.len() {
+                    let got = model
+                        .evaluate(i, &state, &s, &Uncertainty::default())
+                        .approach_k
+                        .expect("approach");
+                    let want = year_approach_k(tags.reactor, i, t_s).expect("prescribed");
+                    // Formatting (2 decimals, 4 or 3 significant digits) and, on hts1 and
+                    // mth1, the configuration's fixed steam ratio: within 0.25 K.
+                    assert!(
+                        (got - want).abs() < 0.25,
+                        "{} [{i}] at {t_s}: {got} vs {want}",
+                        tags.reactor
+                    );
+                }
+            }
+        }
+        assert_eq!(header[0], "time");
+    }
+
+    #[test]
+    fn history_events_show_in_the_rows() {
+        let h = history(true);
+        let hour = 3600.0;
+        // hts1 stuck on day 60 10:00-18:00: every analysis repeats the 09:55 one exactly.
+        let ai201: Vec<usize> = (0..6).map(|c| col(&h, "BAW1-AI-201.H2") + c).collect();
+        let analysis = |t_s: f64, cols: &[usize]| -> Vec<String> {
+            let row = row_cells(&h, minute_of(t_s) + 1);
+            cols.iter().map(|&i| row[i].clone()).collect()
+        };
+        let before = analysis(60.0 * DAY_S + 9.0 * hour + 55.0 * 60.0, &ai201);
+        for t in [10.0 * hour, 14.0 * hour, 17.0 * hour + 55.0 * 60.0] {
+            assert_eq!(analysis(60.0 * DAY_S + t, &ai201), before, "{t}");
+        }
+        assert_ne!(analysis(60.0 * DAY_S + 18.0 * hour, &ai201), before);
+        assert_ne!(
+            analysis(60.0 * DAY_S + 9.0 * hour + 50.0 * 60.0, &ai201),
+            before
+        );
+        // lts1 calibration: quality bad, the calibration gas written (CO 1 mol%).
+        let q301 = col(&h, "BAW1-AI-301.quality");
+        let row = row_cells(&h, minute_of(LTS_CALIBRATION_FIRST_S) + 1);
+        assert_eq!(row[q301], "bad");
+        let co: f64 = row[col(&h, "BAW1-AI-301.CO")].parse().expect("CO");
+        assert!((co - 1.0).abs() < 0.01, "{co}");
+        assert_eq!(
+            row_cells(&h, minute_of(LTS_CALIBRATION_FIRST_S - 300.0) + 1)[q301],
+            ""
+        );
+        assert_eq!(
+            row_cells(&h, minute_of(LTS_CALIBRATION_FIRST_S + 1800.0) + 1)[q301],
+            ""
+        );
+        // ref1 analyser out all of day 200; TI-305B failed around day 250.
+        let ch4 = col(&h, "BAW1-AI-101.CH4");
+        assert_eq!(
+            row_cells(&h, minute_of(200.0 * DAY_S + 12.0 * hour) + 1)[ch4],
+            ""
+        );
+        assert_ne!(row_cells(&h, minute_of(201.0 * DAY_S) + 1)[ch4], "");
+        let tib = col(&h, "BAW1-TI-305B");
+        assert_eq!(row_cells(&h, minute_of(250.0 * DAY_S))[tib], "");
+        assert_ne!(row_cells(&h, minute_of(250.0 * DAY_S))[tib - 1], "");
+        assert_ne!(row_cells(&h, minute_of(253.0 * DAY_S))[tib], "");
+        // Shutdown: near ambient and 0 barg just before the restart, no analyses, no ratios.
+        let down = row_cells(&h, minute_of(RESTART_S - 3600.0));
+        let down_analysis = row_cells(&h, minute_of(RESTART_S - 3600.0) + 1);
+        for tag in [
+            "BAW1-TI-105A",
+            "BAW1-TI-205",
+            "BAW1-TI-305A",
+            "BAW1-TI-405",
+            "BAW1-TI-505",
+        ] {
+            let x: f64 = down[col(&h, tag)].parse().expect("temperature");
+            assert!((x - AMBIENT_C).abs() < 3.0, "{tag}: {x}");
+        }
+        for tag in ["BAW1-PI-102", "BAW1-PI-502"] {
+            let x: f64 = down[col(&h, tag)].parse().expect("pressure");
+            assert!(x.abs() < 0.1, "{tag}: {x}");
+        }
+        assert_eq!(down[col(&h, "BAW1-FY-110")], "");
+        assert!(down_analysis[col(&h, "BAW1-AI-501.NH3")].is_empty());
+        // Back on line: analyses again.
+        assert!(!row_cells(&h, minute_of(ON_LINE_S) + 1)[col(&h, "BAW1-AI-501.NH3")].is_empty());
+    }
+
+    #[test]
+    fn history_numbers_are_formatted_as_promised() {
+        let mut s = String::new();
+        push_significant(&mut s, 60.1234, 4);
+        s.push(' ');
+        push_significant(&mut s, 0.201349, 4);
+        s.push(' ');
+        push_significant(&mut s, 1234.5, 3);
+        s.push(' ');
+        push_significant(&mut s, 9.1749e-8, 3);
+        s.push(' ');
+        push_fixed(&mut s, f64::NAN, 2);
+        push_rfc3339_seconds(&mut s, YEAR_START_S + 300);
+        assert_eq!(s, "60.12 0.2013 1230 0.0000000917 2026-01-01T00:05:00Z");
     }
 }
