@@ -31,3 +31,5 @@ pub mod units;
 pub mod cli;
 #[cfg(feature = "daemon")]
 pub mod daemon;
+#[cfg(feature = "daemon")]
+pub mod replay;

@@ -120,6 +120,23 @@ enum Command {
         #[command(flatten)]
         log: LogArgs,
     },
+    /// Run a CSV of plant history through the daemon's processing path; results and plots.
+    Replay {
+        #[arg(long)]
+        config: PathBuf,
+        /// CSV of timestamped readings (format in the README).
+        #[arg(long)]
+        input: PathBuf,
+        /// Write every record the daemon would publish, one JSON object per line.
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Write SVG plots (one per reactor and an overview) into this folder.
+        #[arg(long)]
+        plot: Option<PathBuf>,
+        /// Log level (default error: the summary gives the counts).
+        #[arg(long, default_value = "error")]
+        log_level: String,
+    },
     /// The one-command demo: embedded broker, simulated plant, the daemon, a live table.
     Demo {
         /// Simulated seconds per wall-clock second.
@@ -345,6 +362,20 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
         } => {
             run_daemon(&config, broker, &log)?;
             Ok((serde_json::Value::Null, false))
+        }
+        Command::Replay {
+            config,
+            input,
+            out,
+            plot,
+            log_level,
+        } => {
+            init_tracing(&LogArgs {
+                log_format: "text".into(),
+                log_level,
+            })?;
+            let text = eqwatch::replay::command(&config, &input, out.as_deref(), plot.as_deref())?;
+            Ok((serde_json::Value::String(text), false))
         }
         Command::Demo {
             speed,

@@ -90,12 +90,42 @@ pub fn format_rfc3339(ms: i64) -> String {
     let milli = ms.rem_euclid(1000);
     let (y, m, d) = civil_from_days(secs.div_euclid(86_400));
     let sod = secs.rem_euclid(86_400);
-    format!(
-        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}.{milli:03}Z",
-        sod / 3600,
-        (sod % 3600) / 60,
-        sod % 60
-    )
+    if !(0..=9999).contains(&y) {
+        return format!(
+            "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}.{milli:03}Z",
+            sod / 3600,
+            (sod % 3600) / 60,
+            sod % 60
+        );
+    }
+    // Hot path (every result carries several timestamps): digits by hand.
+    let mut b = [0u8; 24];
+    let mut put = |at: usize, v: i64, width: usize| {
+        let mut v = v;
+        for k in (0..width).rev() {
+            b[at + k] = b'0' + (v % 10) as u8;
+            v /= 10;
+        }
+    };
+    put(0, y, 4);
+    put(5, i64::from(m), 2);
+    put(8, i64::from(d), 2);
+    put(11, sod / 3600, 2);
+    put(14, (sod % 3600) / 60, 2);
+    put(17, sod % 60, 2);
+    put(20, milli, 3);
+    for (at, c) in [
+        (4, b'-'),
+        (7, b'-'),
+        (10, b'T'),
+        (13, b':'),
+        (16, b':'),
+        (19, b'.'),
+        (23, b'Z'),
+    ] {
+        b[at] = c;
+    }
+    String::from_utf8_lossy(&b).into_owned()
 }
 
 #[cfg(test)]

@@ -197,6 +197,8 @@ pub struct ReactorSettings {
     pub transient_k_per_min: f64,
     /// Drift statistics, alerts and operator alarms.
     pub watch: WatchSettings,
+    /// Each reaction written out canonically (for results; worked out once).
+    pub reaction_labels: Vec<String>,
 }
 
 // ---------------------------------------------------------------------------
@@ -2255,6 +2257,11 @@ fn reactor(
     else {
         return None;
     };
+    let reaction_labels = model
+        .reactions()
+        .iter()
+        .map(|t| t.reaction.canonical())
+        .collect();
     Some(ReactorSettings {
         id: id.to_string(),
         name,
@@ -2270,6 +2277,7 @@ fn reactor(
         uncertainty,
         transient_k_per_min,
         watch,
+        reaction_labels,
     })
 }
 

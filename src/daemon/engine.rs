@@ -83,7 +83,6 @@ pub struct TracePoint {
     pub uncertainty_k: Option<f64>,
     pub key_measured: Option<f64>,
     pub key_equilibrium: Option<f64>,
-    pub drift: DriftFigures,
 }
 
 /// An alert or alarm event as kept for plots (replay).
@@ -95,11 +94,23 @@ pub struct TraceEvent {
     pub kind: EventKind,
 }
 
-/// Per-reactor trace for plots.
+/// A baseline in force from `from_ms` (to the next span's start).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TraceBaseline {
+    pub from_ms: i64,
+    pub to_ms: i64,
+    pub approach_k: f64,
+    pub sigma_k: f64,
+}
+
+/// Per-reactor trace for plots: slim points, events, baselines and the last drift
+/// figures (the trend and forecast at the end).
 #[derive(Debug, Clone, Default)]
 pub struct Trace {
     pub points: Vec<TracePoint>,
     pub events: Vec<TraceEvent>,
+    pub baselines: Vec<TraceBaseline>,
+    pub last_drift: Option<DriftFigures>,
 }
 
 struct Topics {
@@ -302,8 +313,20 @@ impl Engine {
                     .and_then(|a| a.approach_uncertainty_k),
                 key_measured: e.key_measured,
                 key_equilibrium: e.key_equilibrium,
-                drift: fig,
             });
+            let t = &mut tr[r];
+            if let Some(b) = fig.baseline {
+                match t.baselines.last_mut() {
+                    Some(last) if last.from_ms == b.since_ms => last.to_ms = e.sample_ts_ms,
+                    _ => t.baselines.push(TraceBaseline {
+                        from_ms: b.since_ms,
+                        to_ms: e.sample_ts_ms,
+                        approach_k: b.approach_k,
+                        sigma_k: b.sigma_k,
+                    }),
+                }
+            }
+            t.last_drift = Some(fig);
         }
         let payload = payload::encode_result(rs, &settings.species, e, arrival_ms, Some(&fig));
         out.push(Append {

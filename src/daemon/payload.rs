@@ -148,7 +148,7 @@ fn number_at(doc: &Value, pointer: &str) -> Result<f64, DecodeError> {
 }
 
 /// Converts a value in `unit` (the configured one, or the message's own) to fixed units.
-fn convert(
+pub(crate) fn convert(
     value: f64,
     unit: &ScalarUnit,
     unit_text: Option<&str>,
@@ -395,8 +395,8 @@ struct InputOut<'a> {
 }
 
 #[derive(Serialize)]
-struct ReactionOut {
-    reaction: String,
+struct ReactionOut<'a> {
+    reaction: &'a str,
     k_source: &'static str,
     ln_k: Option<f64>,
     ln_q: Option<f64>,
@@ -432,7 +432,7 @@ struct ResultOut<'a> {
     equilibrium_temperature_k: Option<f64>,
     approach_k: Option<f64>,
     approach_uncertainty_k: Option<f64>,
-    reactions: Vec<ReactionOut>,
+    reactions: Vec<ReactionOut<'a>>,
     temperature_k: Option<f64>,
     temperature_spread_k: Option<f64>,
     pressure_bar: Option<f64>,
@@ -464,8 +464,9 @@ pub fn encode_result(
         .reactions()
         .iter()
         .zip(&e.reactions)
-        .map(|(t, a)| ReactionOut {
-            reaction: t.reaction.canonical(),
+        .zip(&r.reaction_labels)
+        .map(|((t, a), label)| ReactionOut {
+            reaction: label,
             k_source: t.k.id().as_str(),
             ln_k: finite(a.ln_k),
             ln_q: finite(a.ln_q),

@@ -32,14 +32,15 @@ pub enum Lookup {
 
 #[derive(Debug, Clone)]
 pub struct ScalarBuffer {
-    points: Vec<Point>,
+    /// Time-ordered; a ring so that dropping the oldest is O(1).
+    points: std::collections::VecDeque<Point>,
     capacity: usize,
 }
 
 impl ScalarBuffer {
     pub fn new(capacity: usize) -> Self {
         Self {
-            points: Vec::with_capacity(capacity.max(2)),
+            points: std::collections::VecDeque::with_capacity(capacity.max(2) + 1),
             capacity: capacity.max(2),
         }
     }
@@ -53,7 +54,7 @@ impl ScalarBuffer {
     }
 
     pub fn latest(&self) -> Option<&Point> {
-        self.points.last()
+        self.points.back()
     }
 
     /// Inserts in time order; drops the oldest when full. Returns false for a reading
@@ -70,7 +71,7 @@ impl ScalarBuffer {
                 }
                 self.points.insert(i, p);
                 if self.points.len() > self.capacity {
-                    self.points.remove(0);
+                    self.points.pop_front();
                 }
                 true
             }

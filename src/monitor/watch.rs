@@ -348,6 +348,8 @@ pub struct ReactorWatch {
     /// (day since run start at the bucket middle, mean approach, bucket start ms)
     aggregates: Vec<(f64, f64)>,
     trend: Option<TrendFigures>,
+    /// The forecast of `trend`, worked out when the trend changes.
+    forecast: Option<Forecast>,
     work: Vec<f64>,
     last_good_ms: Option<i64>,
     started_ms: Option<i64>,
@@ -421,11 +423,16 @@ impl ReactorWatch {
             )?;
         }
         if al.cusum {
+            // S⁺/h: raised above 1 for an hour, cleared below 0.5 for six hours, so a
+            // process wandering around the decision interval does not chatter.
+            let mut c = alert_config("cusum", 1.0, Direction::High, 0.5);
+            c.on_delay_ms = 3_600_000;
+            c.off_delay_ms = 6 * 3_600_000;
             add(
                 Class::Alert,
-                alert_config("cusum", 0.5, Direction::High, 0.0),
-                "",
-                "CUSUM of the approach above its decision interval: a sustained rise against the baseline".into(),
+                c,
+                "h",
+                "CUSUM of the approach above its decision interval h: a sustained rise against the baseline".into(),
                 Source::Cusum,
             )?;
         }
@@ -472,6 +479,7 @@ impl ReactorWatch {
             bucket: None,
             aggregates: Vec::new(),
             trend: None,
+            forecast: None,
             work: Vec::new(),
             last_good_ms: None,
             started_ms: None,
@@ -501,7 +509,11 @@ impl ReactorWatch {
             cusum_h_k: self.baseline.map(|b| s.cusum_h_sigma * b.sigma_k),
             cusum_signal: self.cusum_last.is_some_and(|c| c.1),
             trend: self.trend,
-            forecast: self.forecast(s),
+            forecast: self.forecast.unwrap_or(if s.end_of_run_limit_k.is_none() {
+                Forecast::NoLimit
+            } else {
+                Forecast::NoTrend
+            }),
             limit_k: s.end_of_run_limit_k,
         }
     }
@@ -640,7 +652,10 @@ impl ReactorWatch {
                     if !usable {
                         continue;
                     }
-                    Some(if fig.cusum_signal { 1.0 } else { 0.0 })
+                    Some(match (fig.cusum_k, fig.cusum_h_k) {
+                        (Some(c), Some(h)) if h > 0.0 => c / h,
+                        _ => 0.0,
+                    })
                 }
                 // Time-based ones are fed by `tick`.
                 Source::DataQuality | Source::Chatter(_) | Source::Stale(_) => continue,
@@ -829,6 +844,7 @@ impl ReactorWatch {
         let pts = &self.aggregates[from..];
         if pts.len() < s.min_aggregates.max(3) {
             self.trend = None;
+            self.forecast = None;
             return;
         }
         let fit = match s.trend {
@@ -852,6 +868,7 @@ impl ReactorWatch {
                 fit: f,
             }
         });
+        self.forecast = Some(self.forecast(s));
     }
 
     /// Starts a new run from `now_ms` (catalyst change, reduction, regeneration).
@@ -868,6 +885,7 @@ impl ReactorWatch {
         self.bucket = None;
         self.aggregates.clear();
         self.trend = None;
+        self.forecast = None;
     }
 
     /// Carries out a command from `by`; returns a message for the outcome and the events.

@@ -1,0 +1,838 @@
+//! Replay of plant history: a CSV of timestamped readings run through the daemon's own
+//! processing path ([`crate::daemon::engine::Engine`]: alignment, quality, evaluation,
+//! drift, alerts, alarms), deterministically, writing the records the daemon would
+//! publish and the traces for plots.
+//!
+//! # The CSV format
+//! - UTF-8, comma-separated, no quoting; lines starting with `#` are comments; blank
+//!   lines are skipped. The first other line is the header.
+//! - Column `time`: RFC 3339 (`2026-01-01T00:05:00Z`) or epoch milliseconds; rows in
+//!   time order (equal times allowed).
+//! - Every other column is named by an input tag of the configuration, optionally with
+//!   a unit in brackets that overrides the configured one (`BAW1-TI-305A [degC]`):
+//!   a thermocouple, pressure or measured steam-ratio tag holds that reading; an
+//!   analyser component is `<composition tag>.<species>` (`BAW1-AI-301.CO [ppm]`);
+//!   `<tag>.quality` holds good, uncertain or bad for a scalar or an analyser.
+//! - An empty cell is "no reading". The time on a row is the time the values were
+//!   reported (for an analyser its report time; the sample time is that minus the
+//!   configured lag, as for MQTT messages).
+//! - A row with a bad number, the wrong number of cells, a bad time or a time earlier
+//!   than the row before is reported with its line number and skipped whole. An unknown
+//!   or repeated column, or no `time` column, stops the replay before it starts.
+//!
+//! Within a row, readings go to the engine in column order for scalars, then one
+//! analysis per analyser, reactors in configuration order; then the watch timers tick
+//! to the row's time.
+
+use std::collections::HashMap;
+use std::io::{BufRead, Write};
+use std::sync::Arc;
+
+use thiserror::Error;
+
+use crate::config::{ScalarUnit, Settings, SteamRatioSettings};
+use crate::daemon::Append;
+use crate::daemon::engine::{Engine, Trace};
+use crate::daemon::metrics::Metrics;
+use crate::daemon::payload::convert;
+use crate::monitor::{AnalysisReading, Input, ScalarReading, SourceQuality};
+use crate::timefmt::parse_rfc3339;
+use crate::units::{CompositionUnit, PressureUnit, TemperatureUnit};
+
+#[derive(Debug, Error)]
+pub enum ReplayError {
+    #[error("line {line}: {message}")]
+    Header { line: usize, message: String },
+    #[error("the input has no header line")]
+    NoHeader,
+    #[error("reading the input: {0}")]
+    Read(#[from] std::io::Error),
+    #[error("{0}")]
+    Engine(String),
+}
+
+/// A row that was skipped.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct RowProblem {
+    pub line: usize,
+    pub message: String,
+}
+
+#[derive(Debug, Clone, Copy)]
+enum Column {
+    Time,
+    Scalar {
+        reactor: usize,
+        kind: ScalarKind,
+        unit_override: Option<ScalarUnitText>,
+    },
+    ScalarQuality {
+        reactor: usize,
+        kind: ScalarKind,
+    },
+    Component {
+        reactor: usize,
+        index: usize,
+        per_fraction: f64,
+    },
+    AnalyserQuality {
+        reactor: usize,
+    },
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum ScalarKind {
+    Temperature(usize),
+    Pressure,
+    SteamRatio,
+}
+
+/// A unit override as parsed (`[degC]`).
+#[derive(Debug, Clone, Copy)]
+enum ScalarUnitText {
+    Temperature(TemperatureUnit),
+    Pressure(PressureUnit),
+}
+
+/// What the CSV columns mean for a configuration.
+struct Layout {
+    columns: Vec<Column>,
+    reactors: usize,
+    components: Vec<usize>,
+}
+
+fn names(s: &Settings) -> HashMap<String, Column> {
+    let mut m = HashMap::new();
+    for (r, rs) in s.reactors.iter().enumerate() {
+        let mut scalar = |tag: &str, kind| {
+            m.insert(
+                tag.to_string(),
+                Column::Scalar {
+                    reactor: r,
+                    kind,
+                    unit_override: None,
+                },
+            );
+            m.insert(
+                format!("{tag}.quality"),
+                Column::ScalarQuality { reactor: r, kind },
+            );
+        };
+        for (i, t) in rs.temperatures.iter().enumerate() {
+            scalar(&t.tag, ScalarKind::Temperature(i));
+        }
+        scalar(&rs.pressure.tag, ScalarKind::Pressure);
+        if let Some(SteamRatioSettings::Measured(ss)) = &rs.steam_ratio {
+            scalar(&ss.tag, ScalarKind::SteamRatio);
+        }
+        let c = &rs.composition;
+        for (i, sp) in c.components.iter().enumerate() {
+            m.insert(
+                format!("{}.{sp}", c.tag),
+                Column::Component {
+                    reactor: r,
+                    index: i,
+                    per_fraction: c.unit.fraction_per_unit(),
+                },
+            );
+        }
+        m.insert(
+            format!("{}.quality", c.tag),
+            Column::AnalyserQuality { reactor: r },
+        );
+    }
+    m
+}
+
+fn read_header(s: &Settings, header: &str, line: usize) -> Result<Layout, ReplayError> {
+    let known = names(s);
+    let err = |message: String| ReplayError::Header { line, message };
+    let mut columns = Vec::new();
+    let mut seen: HashMap<String, usize> = HashMap::new();
+    for (i, raw) in header.split(',').enumerate() {
+        let raw = raw.trim();
+        let (name, unit) = match raw.split_once(" [") {
+            Some((n, u)) => match u.strip_suffix(']') {
+                Some(u) => (n.trim(), Some(u.trim())),
+                None => {
+                    return Err(err(format!(
+                        "column {}: \"{raw}\" opens `[` for a unit but does not close it",
+                        i + 1
+                    )));
+                }
+            },
+            None => (raw, None),
+        };
+        if let Some(first) = seen.insert(name.to_string(), i + 1) {
+            return Err(err(format!(
+                "column {} \"{name}\" repeats column {first}",
+                i + 1
+            )));
+        }
+        if name.eq_ignore_ascii_case("time") {
+            columns.push(Column::Time);
+            continue;
+        }
+        let Some(col) = known.get(name) else {
+            let mut close: Vec<&str> = known
+                .keys()
+                .filter(|k| {
+                    let stem = name.split('.').next().unwrap_or(name);
+                    k.starts_with(stem) || name.starts_with(k.split('.').next().unwrap_or(k))
+                })
+                .map(String::as_str)
+                .collect();
+            close.sort_unstable();
+            close.truncate(8);
+            return Err(err(format!(
+                "column {} \"{name}\" is no input of the configuration{}",
+                i + 1,
+                if close.is_empty() {
+                    "; columns are input tags (e.g. a thermocouple tag) or <analyser tag>.<species>"
+                        .to_string()
+                } else {
+                    format!("; did you mean one of: {}", close.join(", "))
+                }
+            )));
+        };
+        let col = match (*col, unit) {
+            (c, None) => c,
+            (Column::Scalar { reactor, kind, .. }, Some(u)) => {
+                let cfg = scalar_unit(s, reactor, kind);
+                let over = match cfg {
+                    ScalarUnit::Temperature(_) => TemperatureUnit::parse(u)
+                        .ok()
+                        .map(ScalarUnitText::Temperature),
+                    ScalarUnit::Pressure(_) => {
+                        PressureUnit::parse(u).ok().map(ScalarUnitText::Pressure)
+                    }
+                    ScalarUnit::Ratio => None,
+                };
+                let Some(over) = over else {
+                    return Err(err(format!(
+                        "column {} \"{name}\": unit \"{u}\" is not a {} unit",
+                        i + 1,
+                        match cfg {
+                            ScalarUnit::Temperature(_) => "temperature",
+                            ScalarUnit::Pressure(_) => "pressure (say absolute or gauge)",
+                            ScalarUnit::Ratio => "ratio (a steam ratio has no unit)",
+                        }
+                    )));
+                };
+                Column::Scalar {
+                    reactor,
+                    kind,
+                    unit_override: Some(over),
+                }
+            }
+            (Column::Component { reactor, index, .. }, Some(u)) => {
+                match CompositionUnit::parse(u) {
+                    Ok(cu) => Column::Component {
+                        reactor,
+                        index,
+                        per_fraction: cu.fraction_per_unit(),
+                    },
+                    Err(_) => {
+                        return Err(err(format!(
+                            "column {} \"{name}\": unit \"{u}\" is not a composition unit (mol%, ppm, fraction, ...)",
+                            i + 1
+                        )));
+                    }
+                }
+            }
+            (_, Some(u)) => {
+                return Err(err(format!(
+                    "column {} \"{name}\" takes no unit (got \"{u}\")",
+                    i + 1
+                )));
+            }
+        };
+        columns.push(col);
+    }
+    if !columns.iter().any(|c| matches!(c, Column::Time)) {
+        return Err(err("no \"time\" column".into()));
+    }
+    Ok(Layout {
+        columns,
+        reactors: s.reactors.len(),
+        components: s
+            .reactors
+            .iter()
+            .map(|r| r.composition.components.len())
+            .collect(),
+    })
+}
+
+fn scalar_unit(s: &Settings, r: usize, kind: ScalarKind) -> ScalarUnit {
+    let rs = &s.reactors[r];
+    match kind {
+        ScalarKind::Temperature(i) => rs.temperatures[i].unit,
+        ScalarKind::Pressure => rs.pressure.unit,
+        ScalarKind::SteamRatio => ScalarUnit::Ratio,
+    }
+}
+
+fn parse_time(text: &str) -> Option<i64> {
+    let t = text.trim();
+    if !t.is_empty() && t.bytes().all(|b| b.is_ascii_digit()) {
+        return t.parse().ok();
+    }
+    parse_rfc3339(t)
+}
+
+fn parse_quality(text: &str) -> Option<SourceQuality> {
+    SourceQuality::parse(text)
+}
+
+/// Counts at the end of a replay.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct Summary {
+    pub lines: usize,
+    pub rows: usize,
+    pub skipped: Vec<RowProblem>,
+    pub skipped_total: usize,
+    pub readings: usize,
+    pub records: usize,
+    pub first_ms: Option<i64>,
+    pub last_ms: Option<i64>,
+}
+
+/// Options of one replay.
+pub struct Replay {
+    engine: Engine,
+    metrics: Arc<Metrics>,
+}
+
+/// How many skipped-row problems are kept for the summary (all are counted and logged).
+const KEEP_PROBLEMS: usize = 50;
+
+impl Replay {
+    pub fn new(settings: Arc<Settings>, keep_trace: bool) -> Result<Self, ReplayError> {
+        let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
+        let metrics = Arc::new(Metrics::new(&ids));
+        let mut engine = Engine::new(settings, metrics.clone()).map_err(ReplayError::Engine)?;
+        if keep_trace {
+            engine.trace = Some(vec![Trace::default(); ids.len()]);
+        }
+        Ok(Self { engine, metrics })
+    }
+
+    pub fn metrics(&self) -> &Metrics {
+        &self.metrics
+    }
+
+    pub fn traces(&mut self) -> Option<Vec<Trace>> {
+        self.engine.trace.take()
+    }
+
+    pub fn settings(&self) -> &Settings {
+        self.engine.settings()
+    }
+
+    /// Runs the CSV from `input`, writing each record as one JSON line
+    /// (`{"topic":...,"retain":...,"payload":{...}}`) to `out`. `progress` is called
+    /// with the bytes read so far every few thousand rows; `problem` with each
+    /// skipped row as it happens.
+    pub fn run(
+        &mut self,
+        input: &mut dyn BufRead,
+        out: &mut dyn Write,
+        progress: &mut dyn FnMut(u64),
+        problem: &mut dyn FnMut(&RowProblem),
+    ) -> Result<Summary, ReplayError> {
+        let settings = Arc::new(self.engine.settings().clone());
+        let mut sum = Summary::default();
+        let mut line = String::new();
+        let mut bytes = 0u64;
+        let mut layout: Option<Layout> = None;
+        let mut records: Vec<Append> = Vec::new();
+        let mut last_time: Option<i64> = None;
+        // Per-row scratch.
+        let mut analyses: Vec<Vec<Option<f64>>> = Vec::new();
+        let mut a_quality: Vec<SourceQuality> = Vec::new();
+        let mut a_present: Vec<bool> = Vec::new();
+        let mut s_quality: Vec<(usize, ScalarKind, SourceQuality)> = Vec::new();
+        let mut scalars: Vec<(usize, ScalarKind, f64, Option<ScalarUnitText>)> = Vec::new();
+        let mut n = 0usize;
+        loop {
+            line.clear();
+            let got = input.read_line(&mut line)?;
+            if got == 0 {
+                break;
+            }
+            bytes += got as u64;
+            n += 1;
+            sum.lines = n;
+            let text = line.trim_end_matches(['\n', '\r']);
+            if text.trim().is_empty() || text.starts_with('#') {
+                continue;
+            }
+            let Some(lay) = &layout else {
+                let l = read_header(&settings, text, n)?;
+                analyses = l.components.iter().map(|&c| vec![None; c]).collect();
+                a_quality = vec![SourceQuality::Good; l.reactors];
+                a_present = vec![false; l.reactors];
+                layout = Some(l);
+                continue;
+            };
+            let cells: Vec<&str> = text.split(',').collect();
+            let mut skip = |sum: &mut Summary, message: String| {
+                let p = RowProblem { line: n, message };
+                problem(&p);
+                sum.skipped_total += 1;
+                if sum.skipped.len() < KEEP_PROBLEMS {
+                    sum.skipped.push(p);
+                }
+            };
+            if cells.len() != lay.columns.len() {
+                skip(
+                    &mut sum,
+                    format!(
+                        "{} cells where the header has {} columns",
+                        cells.len(),
+                        lay.columns.len()
+                    ),
+                );
+                continue;
+            }
+            // Pass 1: read and check every cell; nothing reaches the engine from a bad row.
+            let mut time: Option<i64> = None;
+            let mut bad: Option<String> = None;
+            scalars.clear();
+            s_quality.clear();
+            for v in analyses.iter_mut() {
+                v.fill(None);
+            }
+            a_present.fill(false);
+            a_quality.fill(SourceQuality::Good);
+            for (i, (col, cell)) in lay.columns.iter().zip(&cells).enumerate() {
+                let cell = cell.trim();
+                if cell.is_empty() {
+                    continue;
+                }
+                match *col {
+                    Column::Time => match parse_time(cell) {
+                        Some(t) => time = Some(t),
+                        None => {
+                            bad = Some(format!(
+                                "column {}: time \"{cell}\" is neither RFC 3339 nor epoch milliseconds",
+                                i + 1
+                            ));
+                            break;
+                        }
+                    },
+                    Column::Scalar {
+                        reactor,
+                        kind,
+                        unit_override,
+                    } => match number(cell) {
+                        Some(v) => scalars.push((reactor, kind, v, unit_override)),
+                        None => {
+                            bad = Some(format!("column {}: \"{cell}\" is not a number", i + 1));
+                            break;
+                        }
+                    },
+                    Column::Component {
+                        reactor,
+                        index,
+                        per_fraction,
+                    } => match number(cell) {
+                        Some(v) => {
+                            analyses[reactor][index] = Some(v * per_fraction);
+                            a_present[reactor] = true;
+                        }
+                        None => {
+                            bad = Some(format!("column {}: \"{cell}\" is not a number", i + 1));
+                            break;
+                        }
+                    },
+                    Column::ScalarQuality { reactor, kind } => match parse_quality(cell) {
+                        Some(q) => s_quality.push((reactor, kind, q)),
+                        None => {
+                            bad = Some(format!(
+                                "column {}: quality \"{cell}\" is not good, uncertain or bad",
+                                i + 1
+                            ));
+                            break;
+                        }
+                    },
+                    Column::AnalyserQuality { reactor } => match parse_quality(cell) {
+                        Some(q) => a_quality[reactor] = q,
+                        None => {
+                            bad = Some(format!(
+                                "column {}: quality \"{cell}\" is not good, uncertain or bad",
+                                i + 1
+                            ));
+                            break;
+                        }
+                    },
+                }
+            }
+            if bad.is_none() && time.is_none() {
+                bad = Some("no time".into());
+            }
+            if let (None, Some(t), Some(prev)) = (&bad, time, last_time) {
+                if t < prev {
+                    bad = Some(format!(
+                        "time {} is earlier than the row before ({})",
+                        crate::timefmt::format_rfc3339(t),
+                        crate::timefmt::format_rfc3339(prev)
+                    ));
+                }
+            }
+            if let Some(m) = bad {
+                skip(&mut sum, m);
+                continue;
+            }
+            let Some(t) = time else { continue };
+            last_time = Some(t);
+            sum.rows += 1;
+            sum.first_ms.get_or_insert(t);
+            sum.last_ms = Some(t);
+            // Pass 2: feed the engine. Scalars first (the process values at the time),
+            // then the analyses.
+            for &(r, kind, v, over) in &scalars {
+                let unit = scalar_unit(&settings, r, kind);
+                let unit = match over {
+                    Some(ScalarUnitText::Temperature(u)) => ScalarUnit::Temperature(u),
+                    Some(ScalarUnitText::Pressure(u)) => ScalarUnit::Pressure(u),
+                    None => unit,
+                };
+                let quality = s_quality
+                    .iter()
+                    .find(|(qr, qk, _)| *qr == r && *qk == kind)
+                    .map_or(SourceQuality::Good, |x| x.2);
+                sum.readings += 1;
+                let value = match convert(v, &unit, None, settings.atmosphere_bar) {
+                    Ok(x) => x,
+                    Err(e) => {
+                        self.metrics.decode_failures[e.reason_index()]
+                            .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                        tracing::warn!(line = n, reactor = %settings.reactors[r].id, error = %e, "reading refused");
+                        continue;
+                    }
+                };
+                let reading = ScalarReading {
+                    ts_ms: t,
+                    value,
+                    quality,
+                };
+                let input = match kind {
+                    ScalarKind::Temperature(i) => Input::Temperature(i, reading),
+                    ScalarKind::Pressure => Input::Pressure(reading),
+                    ScalarKind::SteamRatio => Input::SteamRatio(reading),
+                };
+                self.engine.accept(r, input, t, t, &mut records);
+            }
+            for r in 0..lay.reactors {
+                if !a_present[r] {
+                    continue;
+                }
+                sum.readings += 1;
+                let input = Input::Analysis(AnalysisReading {
+                    ts_ms: t,
+                    values: analyses[r].clone(),
+                    basis: None,
+                    quality: a_quality[r],
+                });
+                self.engine.accept(r, input, t, t, &mut records);
+            }
+            self.engine.tick(t, &mut records);
+            if !records.is_empty() {
+                sum.records += records.len();
+                for rec in records.drain(..) {
+                    write_record(out, &rec)?;
+                }
+            }
+            if n % 4096 == 0 {
+                progress(bytes);
+            }
+        }
+        if layout.is_none() {
+            return Err(ReplayError::NoHeader);
+        }
+        progress(bytes);
+        Ok(sum)
+    }
+}
+
+fn number(cell: &str) -> Option<f64> {
+    cell.parse::<f64>().ok().filter(|v| v.is_finite())
+}
+
+fn write_record(out: &mut dyn Write, rec: &Append) -> std::io::Result<()> {
+    // Topics are configuration text: letters, digits, `/`, `-`, `_`; still escaped.
+    let topic = serde_json::to_string(&rec.topic).unwrap_or_else(|_| "\"\"".into());
+    writeln!(
+        out,
+        "{{\"topic\":{topic},\"retain\":{},\"payload\":{}}}",
+        rec.retain, rec.payload
+    )
+}
+
+/// The plot of one reactor from its replay trace.
+pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPlot {
+    use crate::monitor::alarm::EventKind;
+    use crate::monitor::watch::{Class, Forecast};
+    use crate::plot::{BaselineSpan, Marker, MarkerKind, PlotPoint, Projection, ReactorPlot};
+    let rs = &s.reactors[r];
+    let points = t
+        .points
+        .iter()
+        .map(|p| PlotPoint {
+            t_ms: p.t_ms,
+            approach_k: p.approach_k,
+            uncertainty_k: p.uncertainty_k,
+            good: p.quality == crate::monitor::Quality::Good,
+            key_measured: p.key_measured,
+            key_equilibrium: p.key_equilibrium,
+        })
+        .collect();
+    let baselines = t
+        .baselines
+        .iter()
+        .map(|b| BaselineSpan {
+            from_ms: b.from_ms,
+            to_ms: b.to_ms,
+            approach_k: b.approach_k,
+            sigma_k: Some(b.sigma_k),
+        })
+        .collect();
+    let markers = t
+        .events
+        .iter()
+        .filter_map(|e| {
+            let kind = match (&e.kind, e.class) {
+                (EventKind::Raised | EventKind::Realarmed, Class::Alarm) => MarkerKind::Alarm,
+                (EventKind::Raised | EventKind::Realarmed, Class::Alert) => MarkerKind::Alert,
+                (EventKind::Cleared, _) => MarkerKind::Cleared,
+                (
+                    EventKind::Acknowledged { .. }
+                    | EventKind::Shelved { .. }
+                    | EventKind::OutOfService { .. }
+                    | EventKind::ReturnedToService { .. },
+                    _,
+                ) => MarkerKind::Operator,
+                _ => return None,
+            };
+            let what = match &e.kind {
+                EventKind::Raised => "raised",
+                EventKind::Realarmed => "re-alarmed",
+                EventKind::Cleared => "cleared",
+                EventKind::Acknowledged { .. } => "acknowledged",
+                EventKind::Shelved { .. } => "shelved",
+                EventKind::OutOfService { .. } => "out of service",
+                EventKind::ReturnedToService { .. } => "returned to service",
+                _ => "",
+            };
+            Some(Marker {
+                t_ms: e.t_ms,
+                kind,
+                label: format!(
+                    "{} {} {what} {}",
+                    e.class.as_str(),
+                    e.alarm,
+                    crate::timefmt::format_rfc3339(e.t_ms)
+                ),
+            })
+        })
+        .collect();
+    let projection = t.last_drift.and_then(|d| {
+        let tr = d.trend?;
+        let day = 86_400_000.0;
+        let (end, range) = match d.forecast {
+            Forecast::At {
+                at_ms,
+                earliest_ms,
+                latest_ms,
+            } => (Some(at_ms), Some((earliest_ms, latest_ms.unwrap_or(at_ms)))),
+            _ => (None, None),
+        };
+        let span = (tr.last_ms - tr.first_ms).max(1);
+        let to = end
+            .unwrap_or(tr.last_ms + span / 4)
+            .min(tr.last_ms + 3 * span);
+        let steps = 60;
+        let pts = (0..=steps)
+            .map(|i| {
+                let tm = tr.first_ms + (to - tr.first_ms) * i / steps;
+                let x = (tm - tr.origin_ms) as f64 / day;
+                let y = tr.intercept_k + tr.slope_k_per_day * x;
+                let b = tr.fit.band(x);
+                (tm, y, y - b, y + b)
+            })
+            .collect();
+        Some(Projection {
+            points: pts,
+            slope_k_per_day: tr.slope_k_per_day,
+            end_of_run_ms: end,
+            end_of_run_range_ms: range,
+        })
+    });
+    ReactorPlot {
+        reactor: rs.id.clone(),
+        title: format!("{} ({})", rs.name, rs.id),
+        key_component: s.species.get(rs.key_component).name.clone(),
+        limit_k: rs.watch.drift.end_of_run_limit_k,
+        points,
+        baselines,
+        projection,
+        markers,
+    }
+}
+
+/// Writes `<reactor>.svg` per reactor and `overview.svg` into `dir`; returns the paths.
+pub fn write_plots(
+    s: &Settings,
+    traces: &[Trace],
+    dir: &std::path::Path,
+    title: &str,
+) -> std::io::Result<Vec<std::path::PathBuf>> {
+    std::fs::create_dir_all(dir)?;
+    let plots: Vec<crate::plot::ReactorPlot> = traces
+        .iter()
+        .enumerate()
+        .map(|(r, t)| reactor_plot(s, r, t))
+        .collect();
+    let mut paths = Vec::new();
+    for p in &plots {
+        let path = dir.join(format!("{}.svg", p.reactor));
+        std::fs::write(&path, crate::plot::reactor_svg(p))?;
+        paths.push(path);
+    }
+    let path = dir.join("overview.svg");
+    std::fs::write(&path, crate::plot::overview_svg(&plots, title))?;
+    paths.push(path);
+    Ok(paths)
+}
+
+/// `eqwatch replay`: runs the file, writes the outputs, returns the summary text.
+pub fn command(
+    config: &std::path::Path,
+    input: &std::path::Path,
+    out: Option<&std::path::Path>,
+    plot_dir: Option<&std::path::Path>,
+) -> Result<String, crate::cli::CliError> {
+    use crate::cli::CliError;
+    use std::fmt::Write as _;
+    use std::io::IsTerminal;
+    let settings = crate::config::load(config)
+        .map_err(|e| CliError::Input(format!("{}:\n{e}", config.display())))?;
+    let settings = Arc::new(settings);
+    let file = std::fs::File::open(input)
+        .map_err(|e| CliError::Input(format!("{}: {e}", input.display())))?;
+    let size = file.metadata().map(|m| m.len()).unwrap_or(0);
+    let mut reader = std::io::BufReader::with_capacity(1 << 20, file);
+    let mut sink: Box<dyn Write> = match out {
+        Some(p) => {
+            if let Some(d) = p.parent().filter(|d| !d.as_os_str().is_empty()) {
+                std::fs::create_dir_all(d)
+                    .map_err(|e| CliError::Input(format!("{}: {e}", d.display())))?;
+            }
+            Box::new(std::io::BufWriter::with_capacity(
+                1 << 20,
+                std::fs::File::create(p)
+                    .map_err(|e| CliError::Input(format!("{}: {e}", p.display())))?,
+            ))
+        }
+        None => Box::new(std::io::sink()),
+    };
+    let mut replay = Replay::new(settings.clone(), plot_dir.is_some())
+        .map_err(|e| CliError::Input(e.to_string()))?;
+    let started = std::time::Instant::now();
+    let tty = std::io::stderr().is_terminal();
+    let mut last_pct = u64::MAX;
+    let mut progress = |b: u64| {
+        if tty && size > 0 {
+            let pct = b.saturating_mul(100) / size;
+            if pct != last_pct {
+                last_pct = pct;
+                let bar = "#".repeat((pct / 4) as usize);
+                eprint!("\rreplay [{bar:<25}] {pct:>3}%");
+                if pct >= 100 {
+                    eprintln!();
+                }
+            }
+        }
+    };
+    let mut shown = 0usize;
+    let mut problem = |p: &RowProblem| {
+        if shown < 20 {
+            if tty {
+                eprint!("\r");
+            }
+            eprintln!("{}:{}: row skipped: {}", input.display(), p.line, p.message);
+        } else if shown == 20 {
+            eprintln!("(more skipped rows are counted in the summary)");
+        }
+        shown += 1;
+    };
+    let sum = replay
+        .run(&mut reader, &mut sink, &mut progress, &mut problem)
+        .map_err(|e| match e {
+            ReplayError::Read(_) => CliError::Internal(format!("{}: {e}", input.display())),
+            e => CliError::Input(format!("{}: {e}", input.display())),
+        })?;
+    sink.flush()
+        .map_err(|e| CliError::Internal(format!("writing results: {e}")))?;
+    drop(sink);
+    let elapsed = started.elapsed();
+    let mut text = String::new();
+    let fmt = |t: Option<i64>| t.map_or("-".to_string(), crate::timefmt::format_rfc3339);
+    let _ = writeln!(
+        text,
+        "replayed {} rows ({} readings) from {} to {} in {:.2} s; {} rows skipped; {} records",
+        sum.rows,
+        sum.readings,
+        fmt(sum.first_ms),
+        fmt(sum.last_ms),
+        elapsed.as_secs_f64(),
+        sum.skipped_total,
+        sum.records
+    );
+    let traces = replay.traces();
+    let m = replay.metrics();
+    use std::sync::atomic::Ordering::Relaxed;
+    for (r, rs) in settings.reactors.iter().enumerate() {
+        let rm = &m.reactors[r];
+        let trend = f64::from_bits(rm.trend_k_per_day.load(Relaxed));
+        let eor = f64::from_bits(rm.end_of_run_days.load(Relaxed));
+        let _ = writeln!(
+            text,
+            "  {:<6} evaluations good {} / uncertain {} / bad {}; alarms raised {}, alerts raised {}; trend {}; end of run {}",
+            rs.id,
+            rm.evaluations[0].load(Relaxed),
+            rm.evaluations[1].load(Relaxed),
+            rm.evaluations[2].load(Relaxed),
+            rm.alarm_activations.load(Relaxed),
+            rm.alerts_raised.load(Relaxed),
+            if trend.is_finite() {
+                format!("{trend:+.4} K/d")
+            } else {
+                "none".into()
+            },
+            if eor.is_finite() {
+                format!("in {eor:.0} d")
+            } else {
+                "not forecast".into()
+            },
+        );
+    }
+    let _ = writeln!(
+        text,
+        "  alarm floods {}, chattering alerts {}, stale-alarm alerts {}",
+        m.floods.load(Relaxed),
+        m.chattering.load(Relaxed),
+        m.stale.load(Relaxed)
+    );
+    if let Some(o) = out {
+        let _ = writeln!(text, "results: {}", o.display());
+    }
+    if let (Some(dir), Some(traces)) = (plot_dir, traces) {
+        let title = format!("{}: replay of {}", settings.site, input.display());
+        let paths = write_plots(&settings, &traces, dir, &title)
+            .map_err(|e| CliError::Input(format!("plots in {}: {e}", dir.display())))?;
+        let _ = writeln!(text, "plots: {} files in {}", paths.len(), dir.display());
+    }
+    Ok(text)
+}
