@@ -139,8 +139,8 @@ const T_LO: i64 = -62_135_596_800_000;
 const T_HI: i64 = 253_402_300_799_999;
 /// Values beyond this magnitude are treated like NaN (no approach or mole fraction is near).
 const V_MAX: f64 = 1e15;
-/// The projection may extend the time axis by at most this many data spans.
-const PROJECTION_SPANS: i64 = 3;
+/// The projection may extend the time axis by at most the data span divided by this.
+const PROJECTION_DIVISOR: i64 = 2;
 /// Marker labels are written beside the markers (not only as tooltips) up to this count.
 const MARKER_TEXT_MAX: usize = 15;
 
@@ -1367,7 +1367,7 @@ fn reactor_domain(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Optio
             want_end = want_end.max(last.t);
         }
     }
-    let cap_end = d1 + PROJECTION_SPANS * (d1 - d0).max(DAY_MS);
+    let cap_end = d1 + (d1 - d0).max(2 * DAY_MS) / PROJECTION_DIVISOR;
     let mut t1 = want_end.min(cap_end).max(d1);
     if t1 > d1 {
         // Room after the end of run so that its line does not sit on the frame.
@@ -3085,7 +3085,7 @@ mod tests {
     }
 
     #[test]
-    fn a_wild_forecast_is_capped_at_three_data_spans() {
+    fn a_wild_forecast_is_capped_at_half_a_data_span() {
         // 10 days of data; a forecast 400 days out (invented).
         let mut p = plot_n(10 * 24, HOUR_MS);
         let end = T0 + 10 * DAY_MS;
@@ -3104,11 +3104,11 @@ mod tests {
                 .any(|s| s == "end of run beyond chart: 2027-02-15 →"),
             "{t:?}"
         );
-        // Axis ends at data end + 3 × 10 days = 2026-02-10.
+        // Axis ends at data end + 10 days / 2 = 2026-01-16.
         let ticks = x_tick_labels(&doc);
         assert!(!ticks.is_empty());
         assert!(
-            ticks.iter().all(|t| t.as_str() <= "2026-02-10"),
+            ticks.iter().all(|t| t.as_str() <= "2026-01-16"),
             "{ticks:?}"
         );
     }

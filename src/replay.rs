@@ -649,9 +649,16 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
             _ => (None, None),
         };
         let span = (tr.last_ms - tr.first_ms).max(1);
+        // At most half the data span ahead: a far-off forecast must not squash the data
+        // (the chart names the date when it is beyond).
+        let data_span = t
+            .points
+            .first()
+            .zip(t.points.last())
+            .map_or(span, |(a, b)| (b.t_ms - a.t_ms).max(span));
         let to = end
-            .unwrap_or(tr.last_ms + span / 4)
-            .min(tr.last_ms + 3 * span);
+            .unwrap_or(tr.last_ms + data_span / 4)
+            .min(tr.last_ms + data_span / 2);
         let steps = 60;
         let pts = (0..=steps)
             .map(|i| {
