@@ -3,5 +3,7 @@
 
 mod support;
 
+mod alarms;
 mod daemon;
 mod demo;
+mod replay;

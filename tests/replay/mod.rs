@@ -1,0 +1,312 @@
+//! `eqwatch replay`: deterministic output, line-numbered refusal of malformed rows, the
+//! same results as the daemon gives for the same readings over MQTT, and plots that hold
+//! their series.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::time::Duration;
+
+use serde_json::Value;
+
+use crate::support::*;
+
+/// One LTS (invented test plant).
+fn write_config(dir: &Path, port: u16, http_port: u16) -> PathBuf {
+    let text = format!(
+        r#"
+site = "test"
+[broker]
+url = "mqtt://127.0.0.1:{port}"
+client_id = "eqwatch-replay-{http_port}"
+keep_alive = "5 s"
+reconnect_min = "100 ms"
+reconnect_max = "1 s"
+[journal]
+dir = "journal"
+fsync_interval = "100 ms"
+[http]
+listen = "127.0.0.1:{http_port}"
+
+[reactors.lts1]
+name = "LTS"
+reactions = [{{ equation = "CO + H2O = CO2 + H2", k_source = "moe-1962" }}]
+[reactors.lts1.drift]
+baseline = "learn"
+baseline_window = "10 min"
+baseline_min_samples = 2
+aggregate = "10 min"
+min_per_aggregate = 1
+min_aggregates = 3
+end_of_run_limit = "20 K"
+[reactors.lts1.composition]
+tag = "AI-3"
+topic = "t/lts1/ai"
+unit = "mol%"
+basis = "dry"
+components = ["H2", "N2", "CO", "CO2", "CH4"]
+lag = "60 s"
+max_age = "3650 d"
+[[reactors.lts1.temperature]]
+tag = "TI-3"
+topic = "t/lts1/ti"
+unit = "degC"
+max_age = "5 min"
+[reactors.lts1.pressure]
+tag = "PI-3"
+topic = "t/lts1/pi"
+unit = "barg"
+max_age = "1 h"
+[reactors.lts1.steam_ratio]
+tag = "FY-3"
+topic = "t/lts1/fy"
+max_age = "1 h"
+"#
+    );
+    let path = dir.join("plant.toml");
+    std::fs::write(&path, text).expect("write config");
+    path
+}
+
+/// 2026-12-01T00:00:00Z (POSIX `date -u -d 2026-12-01 +%s`) plus minutes.
+fn ts(minutes: i64) -> i64 {
+    1_796_083_200_000 + minutes * 60_000
+}
+
+const GAS: [(&str, f64); 5] = [
+    // DOMAIN §8 LTS gas (dry mol%).
+    ("H2", 61.0536),
+    ("N2", 18.98637),
+    ("CO", 0.28697),
+    ("CO2", 19.38096),
+    ("CH4", 0.2921),
+];
+
+/// Analyses every 5 min at slowly rising temperatures (invented): minute m-1 carries
+/// T, P and the steam ratio, minute m the analysis.
+fn readings() -> Vec<(i64, f64)> {
+    (1..=12).map(|k| (5 * k, 218.0 + 0.4 * k as f64)).collect()
+}
+
+/// The gas of analysis `k`: CO moves by 0.002 mol% a cycle (a live GC never repeats every
+/// digit; identical analyses are flagged as a stuck analyser).
+fn gas(m: i64) -> Vec<(&'static str, f64)> {
+    let d = 0.0004 * m as f64;
+    GAS.iter()
+        .map(|&(k, v)| match k {
+            "CO" => (k, v + d),
+            "CO2" => (k, v - d),
+            _ => (k, v),
+        })
+        .collect()
+}
+
+fn csv() -> String {
+    let mut s = String::from(
+        "# invented test readings\ntime,TI-3,PI-3,FY-3,AI-3.H2,AI-3.N2,AI-3.CO,AI-3.CO2,AI-3.CH4\n",
+    );
+    for (m, t_c) in readings() {
+        s.push_str(&format!("{},{t_c},29.0,0.36312,,,,,\n", ts(m) - 60_000));
+        let g: Vec<String> = gas(m).iter().map(|(_, v)| v.to_string()).collect();
+        s.push_str(&format!("{},,,,{}\n", ts(m), g.join(",")));
+    }
+    s
+}
+
+fn replay(config: &Path, input: &Path, out: &Path, plot: Option<&Path>) -> (i32, String, String) {
+    let mut c = Command::new(env!("CARGO_BIN_EXE_eqwatch"));
+    c.args(["replay", "--config"])
+        .arg(config)
+        .arg("--input")
+        .arg(input)
+        .arg("--out")
+        .arg(out);
+    if let Some(p) = plot {
+        c.arg("--plot").arg(p);
+    }
+    let o = c.output().expect("run replay");
+    (
+        o.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&o.stdout).into(),
+        String::from_utf8_lossy(&o.stderr).into(),
+    )
+}
+
+/// Result payloads without the delivery and wall-clock fields.
+fn comparable(mut v: Value) -> Value {
+    if let Some(m) = v.as_object_mut() {
+        for k in ["seq", "late", "evaluated_at"] {
+            m.remove(k);
+        }
+    }
+    v
+}
+
+#[test]
+fn replay_gives_what_the_daemon_publishes_over_mqtt() {
+    let rt = runtime();
+    let broker = Mosquitto::start();
+    let dir = tempfile::tempdir().unwrap();
+    let http = free_port();
+    let config = write_config(dir.path(), broker.port, http);
+    let got = collector(&rt, broker.port, &["eqwatch/test/lts1/result"]);
+    let _d = Daemon::start(&config, http);
+    let p = Publisher::new(&rt, broker.port);
+    std::thread::sleep(Duration::from_millis(700));
+    for (m, t_c) in readings() {
+        let s =
+            |v: f64, u: &str| format!(r#"{{"ts":{},"value":{v},"unit":"{u}"}}"#, ts(m) - 60_000);
+        p.publish(&rt, "t/lts1/ti", &s(t_c, "degC"));
+        p.publish(&rt, "t/lts1/pi", &s(29.0, "barg"));
+        p.publish(&rt, "t/lts1/fy", &s(0.36312, "mol/mol"));
+        let values: Vec<String> = gas(m).iter().map(|(k, v)| format!("\"{k}\":{v}")).collect();
+        p.publish(
+            &rt,
+            "t/lts1/ai",
+            &format!(
+                r#"{{"ts":{},"values":{{{}}},"unit":"mol%"}}"#,
+                ts(m),
+                values.join(",")
+            ),
+        );
+    }
+    let n = readings().len();
+    assert!(
+        wait_for(&got, Duration::from_secs(20), |m| m.len() >= n),
+        "daemon results missing"
+    );
+    let mqtt: Vec<Value> = got
+        .lock()
+        .unwrap()
+        .iter()
+        .map(|(_, p, _)| comparable(serde_json::from_str(p).unwrap()))
+        .collect();
+
+    let input = dir.path().join("history.csv");
+    std::fs::write(&input, csv()).unwrap();
+    let out = dir.path().join("results.jsonl");
+    let (code, stdout, stderr) = replay(&config, &input, &out, None);
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    let replayed: Vec<Value> = std::fs::read_to_string(&out)
+        .unwrap()
+        .lines()
+        .map(|l| serde_json::from_str::<Value>(l).unwrap())
+        .filter(|r| r["topic"] == "eqwatch/test/lts1/result")
+        .map(|r| comparable(r["payload"].clone()))
+        .collect();
+    assert_eq!(replayed.len(), n);
+    assert_eq!(mqtt.len(), n);
+    for (a, b) in mqtt.iter().zip(&replayed) {
+        assert_eq!(a, b);
+    }
+    // The drift figures travel with the result: the baseline is learned by the end.
+    assert_eq!(replayed[n - 1]["drift"]["baseline"], "learned");
+    assert!(replayed[n - 1]["drift"]["trend_k_per_day"].is_number());
+}
+
+#[test]
+fn malformed_rows_are_reported_with_their_line_and_skipped() {
+    let dir = tempfile::tempdir().unwrap();
+    let config = write_config(dir.path(), 1883, 1);
+    let mut text = csv();
+    // Line numbers: 1 comment, 2 header, then data rows from line 3.
+    let lines_before = text.lines().count();
+    text.push_str(&format!("{},abc,29.0,0.36312,,,,,\n", ts(70)));
+    text.push_str(&format!("{},220.0,29.0\n", ts(71)));
+    text.push_str(&format!("{},220.0,29.0,0.36312,,,,,\n", ts(1)));
+    text.push_str(&format!("{},220.0,29.0,0.36312,,,,,\n", ts(72)));
+    let input = dir.path().join("bad.csv");
+    std::fs::write(&input, &text).unwrap();
+    let out = dir.path().join("results.jsonl");
+    let (code, stdout, stderr) = replay(&config, &input, &out, None);
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    let l = lines_before;
+    assert!(
+        stderr.contains(&format!(
+            ":{}: row skipped: column 2: \"abc\" is not a number",
+            l + 1
+        )),
+        "{stderr}"
+    );
+    assert!(
+        stderr.contains(&format!(
+            ":{}: row skipped: 3 cells where the header has 9 columns",
+            l + 2
+        )),
+        "{stderr}"
+    );
+    assert!(
+        stderr.contains(&format!(
+            ":{}: row skipped: time 2026-12-01T00:01:00.000Z is earlier",
+            l + 3
+        )),
+        "{stderr}"
+    );
+    assert!(stdout.contains("3 rows skipped"), "{stdout}");
+    // The good rows still gave every result.
+    let results = std::fs::read_to_string(&out)
+        .unwrap()
+        .lines()
+        .filter(|l| l.contains("\"eqwatch/test/lts1/result\""))
+        .count();
+    assert_eq!(results, readings().len());
+
+    // An unknown column stops the replay before it starts, naming the column.
+    std::fs::write(&input, "time,TI-3,TI-9\n").unwrap();
+    let (code, _, stderr) = replay(&config, &input, &out, None);
+    assert_eq!(code, 1);
+    assert!(
+        stderr.contains("line 1: column 3 \"TI-9\" is no input"),
+        "{stderr}"
+    );
+}
+
+#[test]
+fn a_day_of_demo_history_replays_byte_identically_with_plots() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = dir.path().join("day.csv");
+    let mut f = std::io::BufWriter::new(std::fs::File::create(&input).unwrap());
+    let opts = eqwatch::sim::HistoryOptions {
+        days: 1,
+        ..Default::default()
+    };
+    eqwatch::sim::write_history(&opts, &mut f).unwrap();
+    drop(f);
+    let config = Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml");
+    let (a, b) = (dir.path().join("a.jsonl"), dir.path().join("b.jsonl"));
+    let plots = dir.path().join("plots");
+    let (code, stdout, stderr) = replay(&config, &input, &a, Some(&plots));
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    let (code, _, _) = replay(&config, &input, &b, None);
+    assert_eq!(code, 0);
+    let (x, y) = (std::fs::read(&a).unwrap(), std::fs::read(&b).unwrap());
+    assert!(!x.is_empty());
+    assert!(x == y, "two replays of the same file differ");
+    // 1440 rows, 288 analyses per analyser = 5 × 288 results [invented demo scenario, src/sim.rs].
+    let text = String::from_utf8(x).unwrap();
+    let results = text.lines().filter(|l| l.contains("/result\"")).count();
+    assert_eq!(results, 5 * 288, "{stdout}");
+    // Plots: one per reactor and an overview; SVG with the series in them.
+    for id in ["ref1", "hts1", "lts1", "mth1", "amc1", "overview"] {
+        let svg = std::fs::read_to_string(plots.join(format!("{id}.svg"))).unwrap();
+        let doc = roxmltree::Document::parse(&svg).expect("plot parses as XML");
+        assert_eq!(doc.root_element().tag_name().name(), "svg");
+        if id != "overview" {
+            // (No baseline yet: the demo plant learns it over 7 to 14 days.)
+            assert!(
+                doc.descendants()
+                    .any(|n| n.attribute("id") == Some("baseline"))
+            );
+            for group in ["approach", "uncertainty", "key-measured", "key-equilibrium"] {
+                let g = doc
+                    .descendants()
+                    .find(|n| n.attribute("id") == Some(group))
+                    .unwrap_or_else(|| panic!("{id}.svg has no {group} group"));
+                assert!(
+                    g.descendants().any(|n| n.tag_name().name() == "path"),
+                    "{id}.svg {group} has no path"
+                );
+            }
+            assert!(svg.contains("approach to equilibrium (K)"));
+        }
+    }
+}
