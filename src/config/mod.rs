@@ -2903,6 +2903,65 @@ value = 0.48
     }
 
     #[test]
+    fn drift_alert_and_alarm_sections_say_what_to_fix() {
+        let e = broken("bad-alarms.toml");
+        let msgs: Vec<String> = e
+            .problems
+            .iter()
+            .map(|p| format!("{}: {}", p.path, p.message))
+            .collect();
+        let has = |path: &str, text: &str| {
+            assert!(
+                e.problems
+                    .iter()
+                    .any(|p| p.path == path && p.message.contains(text)),
+                "no problem at {path} containing {text:?}; got:\n{}",
+                msgs.join("\n")
+            )
+        };
+        has("reactors.lts1.offline_below", "\"5 psi\"");
+        has("reactors.lts1.drift.trend", "unknown method \"spline\"");
+        has(
+            "reactors.lts1.drift.end_of_run_limit",
+            "not a temperature difference",
+        );
+        has("reactors.lts1.alerts.trend_above", "not a positive rate");
+        has(
+            "reactors.lts1.alarm[0]",
+            "exactly one of `above` and `below`",
+        );
+        has("reactors.lts1.alarm[0].rationale", "give the rationale");
+        has("reactors.lts1.alarm[1].above", "\"5 K\"");
+        has("reactors.lts1.alarm[1].on_delay", "\"3 samples\"");
+        assert_eq!(e.problems.len(), 8, "{}", msgs.join("\n"));
+    }
+
+    #[test]
+    fn the_demo_plant_watch_settings() {
+        // config/demo-plant.toml (invented): ref1 has one rationalised alarm, 20 K high
+        // with a 2 K deadband and a 2-sample on-delay; lts1 forecasts end of run at 20 K.
+        let s = load(&config_dir().join("demo-plant.toml")).unwrap();
+        let ref1 = &s.reactors[0].watch;
+        assert_eq!(ref1.alarms.len(), 1);
+        let a = &ref1.alarms[0].config;
+        assert_eq!(
+            (a.id.as_str(), a.limit, a.deadband, a.on_delay_samples),
+            ("approach-high", 20.0, 2.0, 2)
+        );
+        assert_eq!(a.realarm_ms, Some(8 * 3_600_000));
+        let lts = &s.reactors[2].watch;
+        assert_eq!(lts.drift.end_of_run_limit_k, Some(20.0));
+        assert_eq!(lts.alerts.end_of_run_within_days, Some(90.0));
+        // 20 barg on a 1.01325 bar atmosphere.
+        assert!((ref1.offline_below_bar.unwrap() - 21.01325).abs() < 1e-12);
+        // The methanator alarm is in ppm: 5 ppm = 5e-6 mole fraction.
+        let m = &s.reactors[3].watch.alarms[0];
+        assert_eq!((m.config.limit, m.unit), (5.0, "ppm"));
+        assert!((m.scale - 1e6).abs() < 1e-6);
+        assert_eq!(s.commands.allowed_users, ["op-demo", "eng-demo"]);
+    }
+
+    #[test]
     fn broken_unknown_species() {
         assert_problems(
             "unknown-species.toml",
