@@ -32,7 +32,7 @@ use thiserror::Error;
 
 use crate::config::{ScalarUnit, Settings, SteamRatioSettings};
 use crate::daemon::Append;
-use crate::daemon::engine::{Engine, Trace};
+use crate::daemon::engine::{Engine, Trace, expand};
 use crate::daemon::metrics::Metrics;
 use crate::daemon::payload::convert;
 use crate::monitor::{AnalysisReading, Input, ScalarReading, SourceQuality};
@@ -570,6 +570,45 @@ fn write_record(out: &mut dyn Write, rec: &Append) -> std::io::Result<()> {
     )
 }
 
+/// A `Write` that hands 1 MiB chunks to a writer thread.
+struct Pipe {
+    buf: Vec<u8>,
+    tx: std::sync::mpsc::SyncSender<Vec<u8>>,
+}
+
+const CHUNK: usize = 1 << 20;
+
+impl Pipe {
+    fn new(tx: std::sync::mpsc::SyncSender<Vec<u8>>) -> Self {
+        Self {
+            buf: Vec::with_capacity(CHUNK + 4096),
+            tx,
+        }
+    }
+    fn send(&mut self) -> std::io::Result<()> {
+        if self.buf.is_empty() {
+            return Ok(());
+        }
+        let chunk = std::mem::replace(&mut self.buf, Vec::with_capacity(CHUNK + 4096));
+        self.tx
+            .send(chunk)
+            .map_err(|_| std::io::Error::other("the result writer stopped"))
+    }
+}
+
+impl Write for Pipe {
+    fn write(&mut self, data: &[u8]) -> std::io::Result<usize> {
+        self.buf.extend_from_slice(data);
+        if self.buf.len() >= CHUNK {
+            self.send()?;
+        }
+        Ok(data.len())
+    }
+    fn flush(&mut self) -> std::io::Result<()> {
+        self.send()
+    }
+}
+
 /// The plot of one reactor from its replay trace.
 pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPlot {
     use crate::monitor::alarm::EventKind;
@@ -581,11 +620,11 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         .iter()
         .map(|p| PlotPoint {
             t_ms: p.t_ms,
-            approach_k: p.approach_k,
-            uncertainty_k: p.uncertainty_k,
-            good: p.quality == crate::monitor::Quality::Good,
-            key_measured: p.key_measured,
-            key_equilibrium: p.key_equilibrium,
+            approach_k: expand(p.approach_k),
+            uncertainty_k: expand(p.uncertainty_k),
+            good: p.good,
+            key_measured: expand(p.key_measured),
+            key_equilibrium: expand(p.key_equilibrium),
         })
         .collect();
     let baselines = t
@@ -730,19 +769,32 @@ pub fn command(
         .map_err(|e| CliError::Input(format!("{}: {e}", input.display())))?;
     let size = file.metadata().map(|m| m.len()).unwrap_or(0);
     let mut reader = std::io::BufReader::with_capacity(1 << 20, file);
-    let mut sink: Box<dyn Write> = match out {
+    // Results are written by a second thread (the disk works while the next rows are
+    // evaluated); the order is that of the records.
+    let (mut sink, writer): (
+        Box<dyn Write>,
+        Option<std::thread::JoinHandle<std::io::Result<()>>>,
+    ) = match out {
         Some(p) => {
             if let Some(d) = p.parent().filter(|d| !d.as_os_str().is_empty()) {
                 std::fs::create_dir_all(d)
                     .map_err(|e| CliError::Input(format!("{}: {e}", d.display())))?;
             }
-            Box::new(std::io::BufWriter::with_capacity(
-                1 << 20,
-                std::fs::File::create(p)
-                    .map_err(|e| CliError::Input(format!("{}: {e}", p.display())))?,
-            ))
+            let mut file = std::fs::File::create(p)
+                .map_err(|e| CliError::Input(format!("{}: {e}", p.display())))?;
+            let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<u8>>(8);
+            let handle = std::thread::Builder::new()
+                .name("eqwatch-replay-writer".into())
+                .spawn(move || {
+                    for chunk in rx {
+                        file.write_all(&chunk)?;
+                    }
+                    file.flush()
+                })
+                .map_err(|e| CliError::Internal(format!("writer thread: {e}")))?;
+            (Box::new(Pipe::new(tx)), Some(handle))
         }
-        None => Box::new(std::io::sink()),
+        None => (Box::new(std::io::sink()), None),
     };
     let mut replay = Replay::new(settings.clone(), plot_dir.is_some())
         .map_err(|e| CliError::Input(e.to_string()))?;
@@ -783,6 +835,13 @@ pub fn command(
     sink.flush()
         .map_err(|e| CliError::Internal(format!("writing results: {e}")))?;
     drop(sink);
+    if let Some(w) = writer {
+        match w.join() {
+            Ok(Ok(())) => {}
+            Ok(Err(e)) => return Err(CliError::Internal(format!("writing results: {e}"))),
+            Err(_) => return Err(CliError::Internal("the writer thread failed".into())),
+        }
+    }
     let elapsed = started.elapsed();
     let mut text = String::new();
     let fmt = |t: Option<i64>| t.map_or("-".to_string(), crate::timefmt::format_rfc3339);

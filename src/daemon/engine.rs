@@ -74,15 +74,25 @@ pub fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
     m
 }
 
-/// One evaluation as kept for plots (replay).
-#[derive(Debug, Clone)]
+/// One evaluation as kept for plots (replay): compact (f32, NaN for "none"), since a
+/// year holds half a million of them.
+#[derive(Debug, Clone, Copy)]
 pub struct TracePoint {
     pub t_ms: i64,
-    pub quality: Quality,
-    pub approach_k: Option<f64>,
-    pub uncertainty_k: Option<f64>,
-    pub key_measured: Option<f64>,
-    pub key_equilibrium: Option<f64>,
+    pub good: bool,
+    pub approach_k: f32,
+    pub uncertainty_k: f32,
+    pub key_measured: f32,
+    pub key_equilibrium: f32,
+}
+
+fn compact(x: Option<f64>) -> f32 {
+    x.map_or(f32::NAN, |v| v as f32)
+}
+
+/// `None` for NaN.
+pub fn expand(x: f32) -> Option<f64> {
+    (!x.is_nan()).then_some(f64::from(x))
 }
 
 /// An alert or alarm event as kept for plots (replay).
@@ -306,13 +316,15 @@ impl Engine {
         if let Some(tr) = self.trace.as_mut() {
             tr[r].points.push(TracePoint {
                 t_ms: e.sample_ts_ms,
-                quality: e.quality,
-                approach_k: approach,
-                uncertainty_k: first
-                    .filter(|_| e.quality != Quality::Bad)
-                    .and_then(|a| a.approach_uncertainty_k),
-                key_measured: e.key_measured,
-                key_equilibrium: e.key_equilibrium,
+                good: e.quality == Quality::Good,
+                approach_k: compact(approach),
+                uncertainty_k: compact(
+                    first
+                        .filter(|_| e.quality != Quality::Bad)
+                        .and_then(|a| a.approach_uncertainty_k),
+                ),
+                key_measured: compact(e.key_measured),
+                key_equilibrium: compact(e.key_equilibrium),
             });
             let t = &mut tr[r];
             if let Some(b) = fig.baseline {
