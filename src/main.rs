@@ -133,6 +133,10 @@ enum Command {
         /// Write SVG plots (one per reactor and an overview) into this folder.
         #[arg(long)]
         plot: Option<PathBuf>,
+        /// Worker threads for the reactors (default: the machine's cores). The output
+        /// does not depend on it.
+        #[arg(long)]
+        threads: Option<usize>,
         /// Log level (default error: the summary gives the counts).
         #[arg(long, default_value = "error")]
         log_level: String,
@@ -368,13 +372,20 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             input,
             out,
             plot,
+            threads,
             log_level,
         } => {
             init_tracing(&LogArgs {
                 log_format: "text".into(),
                 log_level,
             })?;
-            let text = eqwatch::replay::command(&config, &input, out.as_deref(), plot.as_deref())?;
+            let text = eqwatch::replay::command(
+                &config,
+                &input,
+                out.as_deref(),
+                plot.as_deref(),
+                threads,
+            )?;
             Ok((serde_json::Value::String(text), false))
         }
         Command::Demo {

@@ -297,42 +297,113 @@ pub struct Summary {
     pub last_ms: Option<i64>,
 }
 
-/// Options of one replay.
+/// One replay: the engine's units run on worker threads (each owns some reactors);
+/// the main thread reads the CSV, hands rows out, and merges what comes back in the
+/// order the daemon would have made it (inputs in row order, then the timer tick), with
+/// the plant-wide flood count in the same places. The output does not depend on the
+/// number of threads.
 pub struct Replay {
-    engine: Engine,
+    settings: Arc<Settings>,
+    engine: Option<Engine>,
+    traces: Option<Vec<Trace>>,
+    keep_trace: bool,
     metrics: Arc<Metrics>,
+    threads: usize,
 }
 
 /// How many skipped-row problems are kept for the summary (all are counted and logged).
 const KEEP_PROBLEMS: usize = 50;
+/// Rows handed to the workers at once.
+const BATCH_ROWS: usize = 512;
+/// Order of a unit's timer tick within a row: after every input of the row.
+const TICK_ORDER: u32 = u32::MAX / 2;
+
+/// One row's inputs for one worker: (order within the row, reactor, input).
+type RowItems = Vec<(u32, usize, Input)>;
+/// What a worker gives back for one row: (order, piece), non-empty pieces only.
+type RowOut = Vec<(u32, Piece)>;
+
+/// A unit's output for one input or tick.
+enum Piece {
+    /// Records with no events among them, already written as JSON lines in the batch's
+    /// byte buffer: (start, end, record count).
+    Encoded(usize, usize, usize),
+    /// Records with events: the plant-wide flood count must see them (main thread).
+    Events(crate::daemon::engine::Sink),
+}
+
+/// A worker's answer for one batch of rows.
+struct BatchOut {
+    bytes: Vec<u8>,
+    rows: Vec<RowOut>,
+}
+
+/// Moves a unit's output into the batch: encoded in place when it holds no events.
+fn piece(sink: &mut crate::daemon::engine::Sink, bytes: &mut Vec<u8>) -> Option<Piece> {
+    if sink.is_empty() {
+        return None;
+    }
+    if sink.has_events() {
+        return Some(Piece::Events(std::mem::take(sink)));
+    }
+    let start = bytes.len();
+    let n = sink.records.len();
+    for rec in sink.records.drain(..) {
+        // Writing to a Vec cannot fail.
+        let _ = write_record(bytes, &rec);
+    }
+    Some(Piece::Encoded(start, bytes.len(), n))
+}
 
 impl Replay {
     pub fn new(settings: Arc<Settings>, keep_trace: bool) -> Result<Self, ReplayError> {
         let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
         let metrics = Arc::new(Metrics::new(&ids));
-        let mut engine = Engine::new(settings, metrics.clone()).map_err(ReplayError::Engine)?;
+        let mut engine =
+            Engine::new(settings.clone(), metrics.clone()).map_err(ReplayError::Engine)?;
         if keep_trace {
-            engine.trace = Some(vec![Trace::default(); ids.len()]);
+            engine.enable_trace();
         }
-        Ok(Self { engine, metrics })
+        let threads = std::thread::available_parallelism()
+            .map_or(1, |n| n.get())
+            .clamp(1, ids.len().max(1));
+        Ok(Self {
+            settings,
+            engine: Some(engine),
+            traces: None,
+            keep_trace,
+            metrics,
+            threads,
+        })
+    }
+
+    /// Worker threads to use (1: everything on the calling thread's helper).
+    pub fn with_threads(mut self, n: usize) -> Self {
+        self.threads = n.clamp(1, self.settings.reactors.len().max(1));
+        self
     }
 
     pub fn metrics(&self) -> &Metrics {
         &self.metrics
     }
 
+    /// The plot traces, after `run`, when asked for in `new`.
     pub fn traces(&mut self) -> Option<Vec<Trace>> {
-        self.engine.trace.take()
+        if self.keep_trace {
+            self.traces.take()
+        } else {
+            None
+        }
     }
 
     pub fn settings(&self) -> &Settings {
-        self.engine.settings()
+        &self.settings
     }
 
     /// Runs the CSV from `input`, writing each record as one JSON line
     /// (`{"topic":...,"retain":...,"payload":{...}}`) to `out`. `progress` is called
     /// with the bytes read so far every few thousand rows; `problem` with each
-    /// skipped row as it happens.
+    /// skipped row as it happens. Runs once.
     pub fn run(
         &mut self,
         input: &mut dyn BufRead,
@@ -340,220 +411,397 @@ impl Replay {
         progress: &mut dyn FnMut(u64),
         problem: &mut dyn FnMut(&RowProblem),
     ) -> Result<Summary, ReplayError> {
-        let settings = Arc::new(self.engine.settings().clone());
-        let mut sum = Summary::default();
-        let mut line = String::new();
-        let mut bytes = 0u64;
-        let mut layout: Option<Layout> = None;
-        let mut records: Vec<Append> = Vec::new();
-        let mut last_time: Option<i64> = None;
-        // Per-row scratch.
-        let mut analyses: Vec<Vec<Option<f64>>> = Vec::new();
-        let mut a_quality: Vec<SourceQuality> = Vec::new();
-        let mut a_present: Vec<bool> = Vec::new();
-        let mut s_quality: Vec<(usize, ScalarKind, SourceQuality)> = Vec::new();
-        let mut scalars: Vec<(usize, ScalarKind, f64, Option<ScalarUnitText>)> = Vec::new();
-        let mut n = 0usize;
-        loop {
-            line.clear();
-            let got = input.read_line(&mut line)?;
-            if got == 0 {
-                break;
-            }
-            bytes += got as u64;
-            n += 1;
-            sum.lines = n;
-            let text = line.trim_end_matches(['\n', '\r']);
-            if text.trim().is_empty() || text.starts_with('#') {
-                continue;
-            }
-            let Some(lay) = &layout else {
-                let l = read_header(&settings, text, n)?;
-                analyses = l.components.iter().map(|&c| vec![None; c]).collect();
-                a_quality = vec![SourceQuality::Good; l.reactors];
-                a_present = vec![false; l.reactors];
-                layout = Some(l);
-                continue;
-            };
-            let cells: Vec<&str> = text.split(',').collect();
-            let mut skip = |sum: &mut Summary, message: String| {
-                let p = RowProblem { line: n, message };
-                problem(&p);
-                sum.skipped_total += 1;
-                if sum.skipped.len() < KEEP_PROBLEMS {
-                    sum.skipped.push(p);
-                }
-            };
-            if cells.len() != lay.columns.len() {
-                skip(
-                    &mut sum,
-                    format!(
-                        "{} cells where the header has {} columns",
-                        cells.len(),
-                        lay.columns.len()
-                    ),
-                );
-                continue;
-            }
-            // Pass 1: read and check every cell; nothing reaches the engine from a bad row.
-            let mut time: Option<i64> = None;
-            let mut bad: Option<String> = None;
-            scalars.clear();
-            s_quality.clear();
-            for v in analyses.iter_mut() {
-                v.fill(None);
-            }
-            a_present.fill(false);
-            a_quality.fill(SourceQuality::Good);
-            for (i, (col, cell)) in lay.columns.iter().zip(&cells).enumerate() {
-                let cell = cell.trim();
-                if cell.is_empty() {
-                    continue;
-                }
-                match *col {
-                    Column::Time => match parse_time(cell) {
-                        Some(t) => time = Some(t),
-                        None => {
-                            bad = Some(format!(
-                                "column {}: time \"{cell}\" is neither RFC 3339 nor epoch milliseconds",
-                                i + 1
-                            ));
+        let engine = self
+            .engine
+            .take()
+            .ok_or_else(|| ReplayError::Engine("a replay runs once".into()))?;
+        let (units, mut plant) = engine.into_parts();
+        let workers = self.threads.min(units.len()).max(1);
+        // Reactor r goes to worker r % workers.
+        let mut owned: Vec<Vec<crate::daemon::engine::Unit>> =
+            (0..workers).map(|_| Vec::new()).collect();
+        for u in units {
+            let w = u.reactor() % workers;
+            owned[w].push(u);
+        }
+        let settings = self.settings.clone();
+        let metrics = self.metrics.clone();
+        let result = std::thread::scope(|scope| {
+            let mut to_workers = Vec::with_capacity(workers);
+            let mut from_workers = Vec::with_capacity(workers);
+            let mut handles = Vec::with_capacity(workers);
+            for mut mine in owned {
+                let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<(i64, RowItems)>>(4);
+                let (rtx, rrx) = std::sync::mpsc::sync_channel::<BatchOut>(4);
+                to_workers.push(tx);
+                from_workers.push(rrx);
+                handles.push(scope.spawn(move || {
+                    let index: Vec<usize> = mine.iter().map(|u| u.reactor()).collect();
+                    let find = |r: usize| index.iter().position(|&x| x == r);
+                    let mut sink = crate::daemon::engine::Sink::default();
+                    for batch in rx {
+                        let mut outs = BatchOut {
+                            bytes: Vec::with_capacity(1 << 20),
+                            rows: Vec::with_capacity(batch.len()),
+                        };
+                        for (t, items) in batch {
+                            let mut row: RowOut = Vec::new();
+                            for (order, r, input) in items {
+                                let Some(k) = find(r) else { continue };
+                                mine[k].accept(input, t, t, &mut sink);
+                                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
+                                    row.push((order, p));
+                                }
+                            }
+                            for u in mine.iter_mut() {
+                                u.tick(t, &mut sink);
+                                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
+                                    row.push((TICK_ORDER + u.reactor() as u32, p));
+                                }
+                            }
+                            outs.rows.push(row);
+                        }
+                        if rtx.send(outs).is_err() {
                             break;
                         }
-                    },
-                    Column::Scalar {
-                        reactor,
-                        kind,
-                        unit_override,
-                    } => match number(cell) {
-                        Some(v) => scalars.push((reactor, kind, v, unit_override)),
-                        None => {
-                            bad = Some(format!("column {}: \"{cell}\" is not a number", i + 1));
-                            break;
-                        }
-                    },
-                    Column::Component {
-                        reactor,
-                        index,
-                        per_fraction,
-                    } => match number(cell) {
-                        Some(v) => {
-                            analyses[reactor][index] = Some(v * per_fraction);
-                            a_present[reactor] = true;
-                        }
-                        None => {
-                            bad = Some(format!("column {}: \"{cell}\" is not a number", i + 1));
-                            break;
-                        }
-                    },
-                    Column::ScalarQuality { reactor, kind } => match parse_quality(cell) {
-                        Some(q) => s_quality.push((reactor, kind, q)),
-                        None => {
-                            bad = Some(format!(
-                                "column {}: quality \"{cell}\" is not good, uncertain or bad",
-                                i + 1
-                            ));
-                            break;
-                        }
-                    },
-                    Column::AnalyserQuality { reactor } => match parse_quality(cell) {
-                        Some(q) => a_quality[reactor] = q,
-                        None => {
-                            bad = Some(format!(
-                                "column {}: quality \"{cell}\" is not good, uncertain or bad",
-                                i + 1
-                            ));
-                            break;
-                        }
-                    },
-                }
-            }
-            if bad.is_none() && time.is_none() {
-                bad = Some("no time".into());
-            }
-            if let (None, Some(t), Some(prev)) = (&bad, time, last_time) {
-                if t < prev {
-                    bad = Some(format!(
-                        "time {} is earlier than the row before ({})",
-                        crate::timefmt::format_rfc3339(t),
-                        crate::timefmt::format_rfc3339(prev)
-                    ));
-                }
-            }
-            if let Some(m) = bad {
-                skip(&mut sum, m);
-                continue;
-            }
-            let Some(t) = time else { continue };
-            last_time = Some(t);
-            sum.rows += 1;
-            sum.first_ms.get_or_insert(t);
-            sum.last_ms = Some(t);
-            // Pass 2: feed the engine. Scalars first (the process values at the time),
-            // then the analyses.
-            for &(r, kind, v, over) in &scalars {
-                let unit = scalar_unit(&settings, r, kind);
-                let unit = match over {
-                    Some(ScalarUnitText::Temperature(u)) => ScalarUnit::Temperature(u),
-                    Some(ScalarUnitText::Pressure(u)) => ScalarUnit::Pressure(u),
-                    None => unit,
-                };
-                let quality = s_quality
-                    .iter()
-                    .find(|(qr, qk, _)| *qr == r && *qk == kind)
-                    .map_or(SourceQuality::Good, |x| x.2);
-                sum.readings += 1;
-                let value = match convert(v, &unit, None, settings.atmosphere_bar) {
-                    Ok(x) => x,
-                    Err(e) => {
-                        self.metrics.decode_failures[e.reason_index()]
-                            .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-                        tracing::warn!(line = n, reactor = %settings.reactors[r].id, error = %e, "reading refused");
-                        continue;
                     }
-                };
-                let reading = ScalarReading {
-                    ts_ms: t,
-                    value,
-                    quality,
-                };
-                let input = match kind {
-                    ScalarKind::Temperature(i) => Input::Temperature(i, reading),
-                    ScalarKind::Pressure => Input::Pressure(reading),
-                    ScalarKind::SteamRatio => Input::SteamRatio(reading),
-                };
-                self.engine.accept(r, input, t, t, &mut records);
+                    mine
+                }));
             }
-            for r in 0..lay.reactors {
-                if !a_present[r] {
-                    continue;
+            let mut pending: std::collections::VecDeque<Vec<i64>> = Default::default();
+            let mut records: Vec<Append> = Vec::new();
+            let mut merge = |times: Vec<i64>,
+                             plant: &mut crate::daemon::engine::Plant,
+                             out: &mut dyn Write,
+                             sum: &mut Summary|
+             -> Result<(), ReplayError> {
+                let mut got: Vec<BatchOut> = Vec::with_capacity(workers);
+                for rx in &from_workers {
+                    got.push(
+                        rx.recv()
+                            .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?,
+                    );
                 }
-                sum.readings += 1;
-                let input = Input::Analysis(AnalysisReading {
-                    ts_ms: t,
-                    values: analyses[r].clone(),
-                    basis: None,
-                    quality: a_quality[r],
-                });
-                self.engine.accept(r, input, t, t, &mut records);
-            }
-            self.engine.tick(t, &mut records);
-            if !records.is_empty() {
-                sum.records += records.len();
-                for rec in records.drain(..) {
-                    write_record(out, &rec)?;
+                let bytes: Vec<Vec<u8>> = got
+                    .iter_mut()
+                    .map(|b| std::mem::take(&mut b.bytes))
+                    .collect();
+                let mut per: Vec<std::vec::IntoIter<RowOut>> =
+                    got.into_iter().map(|b| b.rows.into_iter()).collect();
+                let mut row: Vec<(u32, usize, Piece)> = Vec::new();
+                for t in times {
+                    row.clear();
+                    for (w, it) in per.iter_mut().enumerate() {
+                        row.extend(
+                            it.next()
+                                .unwrap_or_default()
+                                .into_iter()
+                                .map(|(o, p)| (o, w, p)),
+                        );
+                    }
+                    row.sort_by_key(|(order, _, _)| *order);
+                    for (_, w, p) in row.drain(..) {
+                        match p {
+                            Piece::Encoded(a, b, n) => {
+                                out.write_all(&bytes[w][a..b])?;
+                                sum.records += n;
+                            }
+                            Piece::Events(mut sink) => plant.drain(&mut sink, &mut records),
+                        }
+                        sum.records += records.len();
+                        for rec in records.drain(..) {
+                            write_record(out, &rec)?;
+                        }
+                    }
+                    plant.tick(t, &mut records);
+                    sum.records += records.len();
+                    for rec in records.drain(..) {
+                        write_record(out, &rec)?;
+                    }
+                }
+                Ok(())
+            };
+            let mut sum = Summary::default();
+            let read = read_rows(
+                &settings,
+                input,
+                &mut sum,
+                progress,
+                problem,
+                &mut |batch: Vec<(i64, Vec<RowItems>)>, sum: &mut Summary| {
+                    let times: Vec<i64> = batch.iter().map(|(t, _)| *t).collect();
+                    // Split each row's items by worker.
+                    let mut split: Vec<Vec<(i64, RowItems)>> = (0..workers)
+                        .map(|_| Vec::with_capacity(batch.len()))
+                        .collect();
+                    for (t, per_worker) in batch {
+                        for (w, items) in per_worker.into_iter().enumerate() {
+                            split[w].push((t, items));
+                        }
+                    }
+                    for (w, b) in split.into_iter().enumerate() {
+                        to_workers[w]
+                            .send(b)
+                            .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?;
+                    }
+                    pending.push_back(times);
+                    if pending.len() > 2 {
+                        if let Some(times) = pending.pop_front() {
+                            merge(times, &mut plant, out, sum)?;
+                        }
+                    }
+                    Ok(())
+                },
+                workers,
+                &metrics,
+            );
+            let mut result = read;
+            while let Some(times) = pending.pop_front() {
+                if result.is_ok() {
+                    result = merge(times, &mut plant, out, &mut sum);
                 }
             }
-            if n % 4096 == 0 {
-                progress(bytes);
+            drop(to_workers);
+            let mut units = Vec::new();
+            for h in handles {
+                match h.join() {
+                    Ok(mine) => units.extend(mine),
+                    Err(_) => {
+                        if result.is_ok() {
+                            result = Err(ReplayError::Engine("a replay worker panicked".into()));
+                        }
+                    }
+                }
             }
-        }
-        if layout.is_none() {
-            return Err(ReplayError::NoHeader);
-        }
-        progress(bytes);
+            units.sort_by_key(|u| u.reactor());
+            result.map(|()| (sum, units))
+        });
+        let (sum, mut units) = result?;
+        self.traces = Some(
+            units
+                .iter_mut()
+                .map(|u| u.trace.take().unwrap_or_default())
+                .collect(),
+        );
         Ok(sum)
     }
+}
+
+/// Reads the CSV: header, then rows checked whole; good rows become per-worker input
+/// lists (in the daemon's order: scalars in column order, then one analysis per
+/// analyser) handed to `batch` in groups of [`BATCH_ROWS`].
+#[allow(clippy::type_complexity, clippy::too_many_arguments)]
+fn read_rows(
+    settings: &Settings,
+    input: &mut dyn BufRead,
+    sum: &mut Summary,
+    progress: &mut dyn FnMut(u64),
+    problem: &mut dyn FnMut(&RowProblem),
+    batch: &mut dyn FnMut(Vec<(i64, Vec<RowItems>)>, &mut Summary) -> Result<(), ReplayError>,
+    workers: usize,
+    metrics: &Metrics,
+) -> Result<(), ReplayError> {
+    let mut line = String::new();
+    let mut bytes = 0u64;
+    let mut layout: Option<Layout> = None;
+    let mut last_time: Option<i64> = None;
+    let mut analyses: Vec<Vec<Option<f64>>> = Vec::new();
+    let mut a_quality: Vec<SourceQuality> = Vec::new();
+    let mut a_present: Vec<bool> = Vec::new();
+    let mut s_quality: Vec<(usize, ScalarKind, SourceQuality)> = Vec::new();
+    let mut scalars: Vec<(usize, ScalarKind, f64, Option<ScalarUnitText>)> = Vec::new();
+    let mut pending: Vec<(i64, Vec<RowItems>)> = Vec::with_capacity(BATCH_ROWS);
+    let mut n = 0usize;
+    loop {
+        line.clear();
+        let got = input.read_line(&mut line)?;
+        if got == 0 {
+            break;
+        }
+        bytes += got as u64;
+        n += 1;
+        sum.lines = n;
+        let text = line.trim_end_matches(['\n', '\r']);
+        if text.trim().is_empty() || text.starts_with('#') {
+            continue;
+        }
+        let Some(lay) = &layout else {
+            let l = read_header(settings, text, n)?;
+            analyses = l.components.iter().map(|&c| vec![None; c]).collect();
+            a_quality = vec![SourceQuality::Good; l.reactors];
+            a_present = vec![false; l.reactors];
+            layout = Some(l);
+            continue;
+        };
+        let cells: Vec<&str> = text.split(',').collect();
+        let mut skip = |sum: &mut Summary, message: String| {
+            let p = RowProblem { line: n, message };
+            problem(&p);
+            sum.skipped_total += 1;
+            if sum.skipped.len() < KEEP_PROBLEMS {
+                sum.skipped.push(p);
+            }
+        };
+        if cells.len() != lay.columns.len() {
+            skip(
+                sum,
+                format!(
+                    "{} cells where the header has {} columns",
+                    cells.len(),
+                    lay.columns.len()
+                ),
+            );
+            continue;
+        }
+        // Read and check every cell; nothing reaches the engine from a bad row.
+        let mut time: Option<i64> = None;
+        let mut bad: Option<String> = None;
+        scalars.clear();
+        s_quality.clear();
+        for v in analyses.iter_mut() {
+            v.fill(None);
+        }
+        a_present.fill(false);
+        a_quality.fill(SourceQuality::Good);
+        for (i, (col, cell)) in lay.columns.iter().zip(&cells).enumerate() {
+            let cell = cell.trim();
+            if cell.is_empty() {
+                continue;
+            }
+            let not_number = || Some(format!("column {}: \"{cell}\" is not a number", i + 1));
+            let not_quality = || {
+                Some(format!(
+                    "column {}: quality \"{cell}\" is not good, uncertain or bad",
+                    i + 1
+                ))
+            };
+            match *col {
+                Column::Time => match parse_time(cell) {
+                    Some(t) => time = Some(t),
+                    None => {
+                        bad = Some(format!(
+                            "column {}: time \"{cell}\" is neither RFC 3339 nor epoch milliseconds",
+                            i + 1
+                        ))
+                    }
+                },
+                Column::Scalar {
+                    reactor,
+                    kind,
+                    unit_override,
+                } => match number(cell) {
+                    Some(v) => scalars.push((reactor, kind, v, unit_override)),
+                    None => bad = not_number(),
+                },
+                Column::Component {
+                    reactor,
+                    index,
+                    per_fraction,
+                } => match number(cell) {
+                    Some(v) => {
+                        analyses[reactor][index] = Some(v * per_fraction);
+                        a_present[reactor] = true;
+                    }
+                    None => bad = not_number(),
+                },
+                Column::ScalarQuality { reactor, kind } => match parse_quality(cell) {
+                    Some(q) => s_quality.push((reactor, kind, q)),
+                    None => bad = not_quality(),
+                },
+                Column::AnalyserQuality { reactor } => match parse_quality(cell) {
+                    Some(q) => a_quality[reactor] = q,
+                    None => bad = not_quality(),
+                },
+            }
+            if bad.is_some() {
+                break;
+            }
+        }
+        if bad.is_none() && time.is_none() {
+            bad = Some("no time".into());
+        }
+        if let (None, Some(t), Some(prev)) = (&bad, time, last_time) {
+            if t < prev {
+                bad = Some(format!(
+                    "time {} is earlier than the row before ({})",
+                    crate::timefmt::format_rfc3339(t),
+                    crate::timefmt::format_rfc3339(prev)
+                ));
+            }
+        }
+        if let Some(m) = bad {
+            skip(sum, m);
+            continue;
+        }
+        let Some(t) = time else { continue };
+        last_time = Some(t);
+        sum.rows += 1;
+        sum.first_ms.get_or_insert(t);
+        sum.last_ms = Some(t);
+        // The row's inputs, in the order the daemon takes them.
+        let mut per_worker: Vec<RowItems> = (0..workers).map(|_| Vec::new()).collect();
+        let mut order = 0u32;
+        for &(r, kind, v, over) in &scalars {
+            order += 1;
+            let unit = match over {
+                Some(ScalarUnitText::Temperature(u)) => ScalarUnit::Temperature(u),
+                Some(ScalarUnitText::Pressure(u)) => ScalarUnit::Pressure(u),
+                None => scalar_unit(settings, r, kind),
+            };
+            let quality = s_quality
+                .iter()
+                .find(|(qr, qk, _)| *qr == r && *qk == kind)
+                .map_or(SourceQuality::Good, |x| x.2);
+            sum.readings += 1;
+            let value = match convert(v, &unit, None, settings.atmosphere_bar) {
+                Ok(x) => x,
+                Err(e) => {
+                    metrics.decode_failures[e.reason_index()]
+                        .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                    tracing::warn!(line = n, reactor = %settings.reactors[r].id, error = %e, "reading refused");
+                    continue;
+                }
+            };
+            let reading = ScalarReading {
+                ts_ms: t,
+                value,
+                quality,
+            };
+            let input = match kind {
+                ScalarKind::Temperature(i) => Input::Temperature(i, reading),
+                ScalarKind::Pressure => Input::Pressure(reading),
+                ScalarKind::SteamRatio => Input::SteamRatio(reading),
+            };
+            per_worker[r % workers].push((order, r, input));
+        }
+        for r in 0..lay.reactors {
+            order += 1;
+            if !a_present[r] {
+                continue;
+            }
+            sum.readings += 1;
+            let input = Input::Analysis(AnalysisReading {
+                ts_ms: t,
+                values: analyses[r].clone(),
+                basis: None,
+                quality: a_quality[r],
+            });
+            per_worker[r % workers].push((order, r, input));
+        }
+        pending.push((t, per_worker));
+        if pending.len() >= BATCH_ROWS {
+            batch(std::mem::take(&mut pending), sum)?;
+            progress(bytes);
+        }
+    }
+    if layout.is_none() {
+        return Err(ReplayError::NoHeader);
+    }
+    if !pending.is_empty() {
+        batch(pending, sum)?;
+    }
+    progress(bytes);
+    Ok(())
 }
 
 fn number(cell: &str) -> Option<f64> {
@@ -758,6 +1006,7 @@ pub fn command(
     input: &std::path::Path,
     out: Option<&std::path::Path>,
     plot_dir: Option<&std::path::Path>,
+    threads: Option<usize>,
 ) -> Result<String, crate::cli::CliError> {
     use crate::cli::CliError;
     use std::fmt::Write as _;
@@ -798,6 +1047,9 @@ pub fn command(
     };
     let mut replay = Replay::new(settings.clone(), plot_dir.is_some())
         .map_err(|e| CliError::Input(e.to_string()))?;
+    if let Some(n) = threads {
+        replay = replay.with_threads(n);
+    }
     let started = std::time::Instant::now();
     let tty = std::io::stderr().is_terminal();
     let mut last_pct = u64::MAX;

@@ -131,58 +131,123 @@ struct Topics {
     outcome: String,
 }
 
+/// Records made by a [`Unit`], with the points at which the plant-wide self-monitoring
+/// must look at the events published so far (see [`Plant::drain`]).
+#[derive(Debug, Default)]
+pub struct Sink {
+    pub records: Vec<Append>,
+    marks: Vec<Mark>,
+}
+
+#[derive(Debug)]
+struct Mark {
+    /// `records.len()` when the events were published.
+    at: usize,
+    events: Vec<WatchEvent>,
+    now_ms: i64,
+}
+
+impl Sink {
+    pub fn is_empty(&self) -> bool {
+        self.records.is_empty() && self.marks.is_empty()
+    }
+    /// Whether alert or alarm events were published (the flood count must see them).
+    pub fn has_events(&self) -> bool {
+        !self.marks.is_empty()
+    }
+}
+
+/// One reactor's processing: monitor, watch, encoding. Independent of the other
+/// reactors (replay runs units on several threads); what is plant-wide is in [`Plant`].
+pub struct Unit {
+    r: usize,
+    settings: Arc<Settings>,
+    metrics: Arc<Metrics>,
+    monitor: ReactorMonitor,
+    watch: ReactorWatch,
+    topics: Topics,
+    /// Kept when enabled (replay plots).
+    pub trace: Option<Trace>,
+}
+
+/// The plant-wide part: alarm-flood self-monitoring over every unit's events.
+pub struct Plant {
+    watch: PlantWatch,
+    metrics: Arc<Metrics>,
+    alert_topic: String,
+    alarms_topic: String,
+}
+
 /// See the module docs.
 pub struct Engine {
     settings: Arc<Settings>,
     routes: HashMap<String, Vec<Route>>,
-    monitors: Vec<ReactorMonitor>,
-    watches: Vec<ReactorWatch>,
-    plant: PlantWatch,
+    units: Vec<Unit>,
+    plant: Plant,
     metrics: Arc<Metrics>,
-    topics: Vec<Topics>,
-    plant_alert: String,
-    plant_alarms: String,
-    /// Kept per reactor when enabled (replay plots).
-    pub trace: Option<Vec<Trace>>,
+    sink: Sink,
 }
 
 impl Engine {
     /// Builds the engine; the alarm configurations were validated with the settings.
     pub fn new(settings: Arc<Settings>, metrics: Arc<Metrics>) -> Result<Self, String> {
-        let mut watches = Vec::with_capacity(settings.reactors.len());
-        for rs in &settings.reactors {
-            watches.push(
-                ReactorWatch::new(&rs.watch).map_err(|e| format!("reactors.{}: {e}", rs.id))?,
-            );
-        }
         let p = &settings.topic_prefix;
-        let topics = settings
-            .reactors
-            .iter()
-            .map(|rs| Topics {
-                result: format!("{p}/{}/result", rs.id),
-                alert: format!("{p}/{}/alert", rs.id),
-                alarm: format!("{p}/{}/alarm", rs.id),
-                alarms: format!("{p}/{}/alarms", rs.id),
-                outcome: format!("{p}/{}/command/outcome", rs.id),
-            })
-            .collect();
+        let mut units = Vec::with_capacity(settings.reactors.len());
+        for (r, rs) in settings.reactors.iter().enumerate() {
+            units.push(Unit {
+                r,
+                settings: settings.clone(),
+                metrics: metrics.clone(),
+                monitor: ReactorMonitor::new(rs),
+                watch: ReactorWatch::new(&rs.watch)
+                    .map_err(|e| format!("reactors.{}: {e}", rs.id))?,
+                topics: Topics {
+                    result: format!("{p}/{}/result", rs.id),
+                    alert: format!("{p}/{}/alert", rs.id),
+                    alarm: format!("{p}/{}/alarm", rs.id),
+                    alarms: format!("{p}/{}/alarms", rs.id),
+                    outcome: format!("{p}/{}/command/outcome", rs.id),
+                },
+                trace: None,
+            });
+        }
         Ok(Self {
             routes: routes(&settings),
-            monitors: settings.reactors.iter().map(ReactorMonitor::new).collect(),
-            watches,
-            plant: PlantWatch::new(),
+            units,
+            plant: Plant {
+                watch: PlantWatch::new(),
+                metrics: metrics.clone(),
+                alert_topic: format!("{p}/alert"),
+                alarms_topic: format!("{p}/alarms"),
+            },
             metrics,
-            topics,
-            plant_alert: format!("{p}/alert"),
-            plant_alarms: format!("{p}/alarms"),
-            trace: None,
+            sink: Sink::default(),
             settings,
         })
     }
 
     pub fn settings(&self) -> &Settings {
         &self.settings
+    }
+
+    /// Keep a trace per reactor for plots.
+    pub fn enable_trace(&mut self) {
+        for u in &mut self.units {
+            u.trace.get_or_insert_with(Trace::default);
+        }
+    }
+
+    /// The traces (empty ones where tracing was off).
+    pub fn take_traces(&mut self) -> Vec<Trace> {
+        self.units
+            .iter_mut()
+            .map(|u| u.trace.take().unwrap_or_default())
+            .collect()
+    }
+
+    /// The units and the plant part, to run the units on several threads (replay).
+    pub fn into_parts(self) -> (Vec<Unit>, Plant) {
+        (self.units, self.plant)
     }
 
     /// Topics to subscribe to (inputs and commands), sorted.
@@ -195,9 +260,9 @@ impl Engine {
     /// The retained alarm states of every reactor that has alerts or alarms (published
     /// at start-up: the daemon starts with every alarm normal and in service).
     pub fn states(&self, now_ms: i64, out: &mut Vec<Append>) {
-        for r in 0..self.watches.len() {
-            if !self.watches[r].watched.is_empty() {
-                self.push_states(r, now_ms, out);
+        for u in &self.units {
+            if !u.watch.watched.is_empty() {
+                out.push(u.states(now_ms));
             }
         }
     }
@@ -211,7 +276,8 @@ impl Engine {
         let rts = rts.clone();
         for route in rts {
             if let Route::Command(r) = route {
-                self.command(r, &raw.payload, now_ms, out);
+                self.units[r].command(&raw.payload, now_ms, &mut self.sink);
+                self.plant.drain(&mut self.sink, out);
                 continue;
             }
             let (r, decoded) = decode(&self.settings, route, raw);
@@ -234,18 +300,110 @@ impl Engine {
         now_ms: i64,
         out: &mut Vec<Append>,
     ) {
+        self.units[r].accept(input, arrival_ms, now_ms, &mut self.sink);
+        self.plant.drain(&mut self.sink, out);
+    }
+
+    /// Advances the watches' timers (shelf expiry, data quality, chattering, stale, flood).
+    pub fn tick(&mut self, now_ms: i64, out: &mut Vec<Append>) {
+        for u in &mut self.units {
+            u.tick(now_ms, &mut self.sink);
+            self.plant.drain(&mut self.sink, out);
+        }
+        self.plant.tick(now_ms, out);
+    }
+}
+
+impl Plant {
+    /// Moves a unit's records to `out`, running the flood count where the unit published
+    /// events (so the flood alert lands right after the events that made it).
+    pub fn drain(&mut self, sink: &mut Sink, out: &mut Vec<Append>) {
+        let mut records = sink.records.drain(..);
+        let mut done = 0;
+        for m in sink.marks.drain(..) {
+            out.extend(records.by_ref().take(m.at - done));
+            done = m.at;
+            let flood = self.watch.observe(&m.events, m.now_ms);
+            self.events(flood, m.now_ms, out);
+        }
+        out.extend(records);
+    }
+
+    /// The flood window moves on with time.
+    pub fn tick(&mut self, now_ms: i64, out: &mut Vec<Append>) {
+        let ev = self.watch.tick(now_ms);
+        self.events(ev, now_ms, out);
+    }
+
+    fn events(&mut self, ev: Vec<Event>, now_ms: i64, out: &mut Vec<Append>) {
+        self.metrics
+            .alarms_last_10min
+            .store(self.watch.rate() as u64, Relaxed);
+        self.metrics.floods.store(self.watch.floods, Relaxed);
+        if ev.is_empty() {
+            return;
+        }
+        for e in &ev {
+            warn!(event = ?e.kind, rate = self.watch.rate(), "alarm flood alert");
+            let payload = serde_json::json!({
+                "schema": wp::EVENT_SCHEMA,
+                "id": format!("plant/{}@{}", e.id, e.at_ms),
+                "class": "alert",
+                "alarm": "flood",
+                "event": match e.kind { EventKind::Raised => "raised", EventKind::Cleared => "cleared", _ => "other" },
+                "at": crate::timefmt::format_rfc3339(e.at_ms),
+                "state": self.watch.flood.state().as_str(),
+                "value": self.watch.rate(),
+                "limit": 10,
+                "unit": "alarms per 10 min",
+                "description": "alarm flood: more than 10 operator alarms in 10 minutes (EEMUA 191 / ISA-18.2 performance figure)",
+            })
+            .to_string();
+            out.push(Append {
+                topic: self.alert_topic.clone(),
+                retain: false,
+                payload,
+            });
+        }
+        let state = serde_json::json!({
+            "schema": wp::STATES_SCHEMA,
+            "at": crate::timefmt::format_rfc3339(now_ms),
+            "alarms_last_10min": self.watch.rate(),
+            "flood": self.watch.flood.state().as_str(),
+            "floods": self.watch.floods,
+        })
+        .to_string();
+        out.push(Append {
+            topic: self.alarms_topic.clone(),
+            retain: true,
+            payload: state,
+        });
+    }
+}
+
+impl Unit {
+    /// Index of the reactor in the configuration.
+    pub fn reactor(&self) -> usize {
+        self.r
+    }
+
+    /// One decoded input.
+    pub fn accept(&mut self, input: Input, arrival_ms: i64, now_ms: i64, sink: &mut Sink) {
         let settings = Arc::clone(&self.settings);
-        let rs = &settings.reactors[r];
+        let rs = &settings.reactors[self.r];
         let metrics = Arc::clone(&self.metrics);
-        let rm = &metrics.reactors[r];
+        let rm = &metrics.reactors[self.r];
         if let Input::Pressure(p) = &input {
-            let ev = self.watches[r].pressure(&rs.watch, p.value, now_ms);
+            let ev = self.watch.pressure(&rs.watch, p.value, now_ms);
             if !ev.is_empty() {
-                info!(reactor = %rs.id, offline = self.watches[r].offline(), "unit on/off line");
-                self.publish_events(r, &ev, now_ms, out);
+                info!(reactor = %rs.id, offline = self.watch.offline(), "unit on/off line");
+                self.publish_events(ev, now_ms, sink);
             }
         }
-        match self.monitors[r].accept(rs, &settings.species, input, arrival_ms) {
+        match self
+            .monitor
+            .accept(rs, &settings.species, input, arrival_ms)
+        {
             Outcome::Stored => {}
             Outcome::Duplicate => {
                 rm.duplicates.fetch_add(1, Relaxed);
@@ -258,22 +416,15 @@ impl Engine {
             Outcome::TooOld => {
                 rm.too_old.fetch_add(1, Relaxed);
             }
-            Outcome::Evaluated(e) => self.evaluated(r, &e, arrival_ms, now_ms, out),
+            Outcome::Evaluated(e) => self.evaluated(&e, arrival_ms, now_ms, sink),
         }
     }
 
-    fn evaluated(
-        &mut self,
-        r: usize,
-        e: &Evaluation,
-        arrival_ms: i64,
-        now_ms: i64,
-        out: &mut Vec<Append>,
-    ) {
+    fn evaluated(&mut self, e: &Evaluation, arrival_ms: i64, now_ms: i64, sink: &mut Sink) {
         let settings = Arc::clone(&self.settings);
-        let rs = &settings.reactors[r];
+        let rs = &settings.reactors[self.r];
         let metrics = Arc::clone(&self.metrics);
-        let rm = &metrics.reactors[r];
+        let rm = &metrics.reactors[self.r];
         let q = match e.quality {
             Quality::Good => 0,
             Quality::Uncertain => 1,
@@ -297,7 +448,7 @@ impl Engine {
         } else {
             debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
         }
-        let (fig, events) = self.watches[r].observe(&rs.watch, e, now_ms);
+        let (fig, events) = self.watch.observe(&rs.watch, e, now_ms);
         if fig.excluded.is_some() {
             rm.drift_excluded.fetch_add(1, Relaxed);
         }
@@ -313,8 +464,8 @@ impl Engine {
             _ => f64::NAN,
         };
         rm.end_of_run_days.store(days.to_bits(), Relaxed);
-        if let Some(tr) = self.trace.as_mut() {
-            tr[r].points.push(TracePoint {
+        if let Some(t) = self.trace.as_mut() {
+            t.points.push(TracePoint {
                 t_ms: e.sample_ts_ms,
                 good: e.quality == Quality::Good,
                 approach_k: compact(approach),
@@ -326,7 +477,6 @@ impl Engine {
                 key_measured: compact(e.key_measured),
                 key_equilibrium: compact(e.key_equilibrium),
             });
-            let t = &mut tr[r];
             if let Some(b) = fig.baseline {
                 match t.baselines.last_mut() {
                     Some(last) if last.from_ms == b.since_ms => last.to_ms = e.sample_ts_ms,
@@ -341,32 +491,24 @@ impl Engine {
             t.last_drift = Some(fig);
         }
         let payload = payload::encode_result(rs, &settings.species, e, arrival_ms, Some(&fig));
-        out.push(Append {
-            topic: self.topics[r].result.clone(),
+        sink.records.push(Append {
+            topic: self.topics.result.clone(),
             retain: true,
             payload,
         });
-        self.publish_events(r, &events, now_ms, out);
+        self.publish_events(events, now_ms, sink);
     }
 
-    /// Publishes events, counts them, runs the plant-wide self-monitoring, and
-    /// republishes the reactor's retained states.
-    fn publish_events(
-        &mut self,
-        r: usize,
-        events: &[WatchEvent],
-        now_ms: i64,
-        out: &mut Vec<Append>,
-    ) {
+    /// Publishes events, counts them, republishes the reactor's retained states, and
+    /// marks the place for the plant-wide flood count.
+    fn publish_events(&mut self, events: Vec<WatchEvent>, now_ms: i64, sink: &mut Sink) {
         if events.is_empty() {
             return;
         }
-        let rs_id = self.settings.reactors[r].id.clone();
-        let metrics = Arc::clone(&self.metrics);
-        let rm = &metrics.reactors[r];
-        for e in events {
-            let w = &self.watches[r];
-            let x = &w.watched[e.index];
+        let rs_id = &self.settings.reactors[self.r].id;
+        let rm = &self.metrics.reactors[self.r];
+        for e in &events {
+            let x = &self.watch.watched[e.index];
             let id = &x.alarm.config().id;
             let raised = matches!(e.event.kind, EventKind::Raised | EventKind::Realarmed);
             match (e.class, raised) {
@@ -387,16 +529,16 @@ impl Engine {
                 _ => info!(reactor = %rs_id, alarm = %id, event = ?e.event.kind, "alarm event"),
             }
             let topic = match e.class {
-                Class::Alert => self.topics[r].alert.clone(),
-                Class::Alarm => self.topics[r].alarm.clone(),
+                Class::Alert => self.topics.alert.clone(),
+                Class::Alarm => self.topics.alarm.clone(),
             };
-            out.push(Append {
+            sink.records.push(Append {
                 topic,
                 retain: false,
-                payload: wp::encode_event(&rs_id, w, e),
+                payload: wp::encode_event(rs_id, &self.watch, e),
             });
             if let Some(tr) = self.trace.as_mut() {
-                tr[r].events.push(TraceEvent {
+                tr.events.push(TraceEvent {
                     t_ms: e.event.at_ms,
                     class: e.class,
                     alarm: id.clone(),
@@ -404,80 +546,35 @@ impl Engine {
                 });
             }
         }
-        self.push_states(r, now_ms, out);
-        let flood = self.plant.observe(events, now_ms);
-        self.plant_events(flood, now_ms, out);
-    }
-
-    fn plant_events(&mut self, ev: Vec<Event>, now_ms: i64, out: &mut Vec<Append>) {
-        self.metrics
-            .alarms_last_10min
-            .store(self.plant.rate() as u64, Relaxed);
-        self.metrics.floods.store(self.plant.floods, Relaxed);
-        if ev.is_empty() {
-            return;
-        }
-        for e in &ev {
-            warn!(event = ?e.kind, rate = self.plant.rate(), "alarm flood alert");
-            let payload = serde_json::json!({
-                "schema": wp::EVENT_SCHEMA,
-                "id": format!("plant/{}@{}", e.id, e.at_ms),
-                "class": "alert",
-                "alarm": "flood",
-                "event": match e.kind { EventKind::Raised => "raised", EventKind::Cleared => "cleared", _ => "other" },
-                "at": crate::timefmt::format_rfc3339(e.at_ms),
-                "state": self.plant.flood.state().as_str(),
-                "value": self.plant.rate(),
-                "limit": 10,
-                "unit": "alarms per 10 min",
-                "description": "alarm flood: more than 10 operator alarms in 10 minutes (EEMUA 191 / ISA-18.2 performance figure)",
-            })
-            .to_string();
-            out.push(Append {
-                topic: self.plant_alert.clone(),
-                retain: false,
-                payload,
-            });
-        }
-        let state = serde_json::json!({
-            "schema": wp::STATES_SCHEMA,
-            "at": crate::timefmt::format_rfc3339(now_ms),
-            "alarms_last_10min": self.plant.rate(),
-            "flood": self.plant.flood.state().as_str(),
-            "floods": self.plant.floods,
-        })
-        .to_string();
-        out.push(Append {
-            topic: self.plant_alarms.clone(),
-            retain: true,
-            payload: state,
+        sink.records.push(self.states(now_ms));
+        sink.marks.push(Mark {
+            at: sink.records.len(),
+            events,
+            now_ms,
         });
     }
 
-    fn push_states(&self, r: usize, now_ms: i64, out: &mut Vec<Append>) {
-        out.push(Append {
-            topic: self.topics[r].alarms.clone(),
+    fn states(&self, now_ms: i64) -> Append {
+        Append {
+            topic: self.topics.alarms.clone(),
             retain: true,
-            payload: wp::encode_states(&self.settings.reactors[r].id, &self.watches[r], now_ms),
-        });
-    }
-
-    /// Advances the watches' timers (shelf expiry, data quality, chattering, stale, flood).
-    pub fn tick(&mut self, now_ms: i64, out: &mut Vec<Append>) {
-        for r in 0..self.watches.len() {
-            let ev = self.watches[r].tick(now_ms);
-            self.publish_events(r, &ev, now_ms, out);
+            payload: wp::encode_states(&self.settings.reactors[self.r].id, &self.watch, now_ms),
         }
-        let ev = self.plant.tick(now_ms);
-        self.plant_events(ev, now_ms, out);
     }
 
-    /// A command message for reactor `r`: checked against the allow list, carried out,
-    /// answered with an outcome (journaled like every other record).
-    pub fn command(&mut self, r: usize, payload: &[u8], now_ms: i64, out: &mut Vec<Append>) {
+    /// Advances the watch's timers (shelf expiry, data quality, chattering, stale).
+    pub fn tick(&mut self, now_ms: i64, sink: &mut Sink) {
+        let ev = self.watch.tick(now_ms);
+        self.publish_events(ev, now_ms, sink);
+    }
+
+    /// A command message: checked against the allow list, carried out, answered with an
+    /// outcome (journaled like every other record).
+    pub fn command(&mut self, payload: &[u8], now_ms: i64, sink: &mut Sink) {
         let settings = Arc::clone(&self.settings);
-        let rs = &settings.reactors[r];
-        let outcome_topic = self.topics[r].outcome.clone();
+        let rs = &settings.reactors[self.r];
+        let outcome_topic = self.topics.outcome.clone();
+        let metrics = Arc::clone(&self.metrics);
         let answer = |cmd: Option<&str>,
                       c_alarm: Option<&str>,
                       rid: Option<&str>,
@@ -485,15 +582,15 @@ impl Engine {
                       client: Option<&str>,
                       outcome: &'static str,
                       message: &str,
-                      out: &mut Vec<Append>| {
-            self.metrics.commands[match outcome {
+                      sink: &mut Sink| {
+            metrics.commands[match outcome {
                 "accepted" => 0,
                 "refused" => 1,
                 "not-allowed" => 2,
                 _ => 3,
             }]
             .fetch_add(1, Relaxed);
-            out.push(Append {
+            sink.records.push(Append {
                 topic: outcome_topic.clone(),
                 retain: false,
                 payload: wp::encode_outcome(
@@ -513,7 +610,7 @@ impl Engine {
                     client.as_deref(),
                     "invalid",
                     &m,
-                    out,
+                    sink,
                 );
                 return;
             }
@@ -537,7 +634,7 @@ impl Engine {
                 c.client_id.as_deref(),
                 "not-allowed",
                 &m,
-                out,
+                sink,
             );
             return;
         }
@@ -546,7 +643,10 @@ impl Engine {
             .clone()
             .or_else(|| c.client_id.clone())
             .unwrap_or_default();
-        match self.watches[r].command(&rs.watch, &c.action, c.alarm.as_deref(), &by, now_ms) {
+        match self
+            .watch
+            .command(&rs.watch, &c.action, c.alarm.as_deref(), &by, now_ms)
+        {
             Ok((m, events)) => {
                 info!(reactor = %rs.id, command = name, alarm = ?c.alarm, by = %by, "command carried out");
                 answer(
@@ -557,12 +657,12 @@ impl Engine {
                     c.client_id.as_deref(),
                     "accepted",
                     &m,
-                    out,
+                    sink,
                 );
                 if events.is_empty() {
-                    self.push_states(r, now_ms, out);
+                    sink.records.push(self.states(now_ms));
                 } else {
-                    self.publish_events(r, &events, now_ms, out);
+                    self.publish_events(events, now_ms, sink);
                 }
             }
             Err(e) => {
@@ -576,7 +676,7 @@ impl Engine {
                     c.client_id.as_deref(),
                     "refused",
                     &m,
-                    out,
+                    sink,
                 );
             }
         }
