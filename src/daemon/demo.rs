@@ -1,11 +1,20 @@
 //! `eqwatch demo`: the invented Brackwater Ammonia Works (train 1) in compressed time.
 //! An embedded broker (or `--broker URL`), a drop-out proxy between the daemon and the
 //! broker, the simulated plant publishing instrument readings, the daemon on
-//! `config/demo-plant.toml`, and a live table of the retained results.
+//! `config/demo-plant.toml` with its statistics windows compressed to minutes
+//! ([`compress_watch`]), and a live table of what the daemon publishes: results with
+//! their trend and end-of-run forecast, the alerts and alarms annunciating, and the
+//! latest alert/alarm events. At exit, SVG plots of the run in `<workdir>/plots/`.
+//!
+//! The console is a client of the broker like any other: what it shows and plots comes
+//! from the messages it receives (results, events, retained alarm states), never from
+//! the daemon's memory. Retained copies found at subscription are left out: on a shared
+//! broker they may be from an earlier run.
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, BTreeSet, HashSet};
 use std::io::{IsTerminal, Write};
 use std::net::{SocketAddr, ToSocketAddrs};
+use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
@@ -16,10 +25,53 @@ use tokio_util::sync::CancellationToken;
 use super::proxy::DropoutProxy;
 use super::{Clock, now_ms};
 use crate::cli::CliError;
+use crate::config::Settings;
+use crate::monitor::watch::BaselineSpec;
+use crate::plot::{BaselineSpan, Marker, MarkerKind, PlotPoint, Projection, ReactorPlot};
 use crate::sim::Plant;
+use crate::timefmt::parse_rfc3339;
 
 /// The reference configuration of the demo plant (compiled in, so the demo runs from any folder).
 pub const DEMO_CONFIG: &str = include_str!("../../config/demo-plant.toml");
+
+const MINUTE_MS: i64 = 60_000;
+const HOUR_MS: i64 = 3_600_000;
+const DAY_MS: i64 = 86_400_000;
+
+// The demo's compressed statistics windows. The configuration's windows are for a real
+// plant (a baseline learned over a week, one trend point a day); in a demo of about an
+// hour and a half of plant time they would never fill. One analysis every 5 minutes
+// (invented demo scenario, src/sim.rs) gives a baseline after 15 minutes and a trend
+// after 5 more points. A trend point stands for a day of the configuration, so the alert
+// rates (K/d) are scaled up and the end-of-run horizons (d) down by the same factor:
+// unscaled, the noise of a handful of 5-minute points (tens of K/d) would raise the
+// trend and end-of-run alerts before anything happens in the plant.
+
+/// Baseline learned over this much plant time ...
+pub const DEMO_BASELINE_WINDOW_MS: i64 = 15 * MINUTE_MS;
+/// ... from at least this many usable analyses.
+pub const DEMO_BASELINE_MIN_SAMPLES: usize = 3;
+/// One trend point (aggregate) per analyser cycle, from one analysis.
+pub const DEMO_AGGREGATE_MS: i64 = 5 * MINUTE_MS;
+pub const DEMO_MIN_PER_AGGREGATE: usize = 1;
+/// Trend points before a trend (and an end-of-run forecast) is reported.
+pub const DEMO_MIN_AGGREGATES: usize = 5;
+/// A day of the configuration's trend becomes this much shorter (one trend point).
+pub const DEMO_DAY_FACTOR: f64 = DAY_MS as f64 / DEMO_AGGREGATE_MS as f64;
+/// Data-quality alert when no good result has come for this long.
+pub const DEMO_DATA_QUALITY_AFTER_MS: i64 = 20 * MINUTE_MS;
+/// lts1: end-of-run alert when the forecast is this close (not scaled). Its approach
+/// creeps 0.2 K/h from 10 K (invented demo scenario, src/sim.rs) towards its 20 K limit,
+/// about two days; within the demo that creep (0.3 K) is smaller than the analysis noise,
+/// so whether the forecast comes within 3 d depends on the noise.
+pub const DEMO_LTS_END_OF_RUN_WITHIN_DAYS: f64 = 3.0;
+
+/// Event lines kept under the live table (terminal only).
+const RECENT_EVENTS: usize = 6;
+/// The live table fits this many columns.
+const TABLE_WIDTH: usize = 100;
+/// Where the alarms-and-alerts column starts.
+const FLAGS_COLUMN: usize = 62;
 
 fn input<E: std::fmt::Display>(what: &str) -> impl Fn(E) -> CliError + '_ {
     move |e| CliError::Input(format!("{what}: {e}"))
@@ -49,24 +101,263 @@ fn broker_addr(url: &str) -> Result<SocketAddr, CliError> {
         .ok_or_else(|| CliError::Input(format!("--broker `{url}` does not resolve")))
 }
 
-/// Latest result per reactor, as the table shows it.
-type Latest = Arc<Mutex<BTreeMap<String, (Value, u64)>>>;
+/// Shortens the drift statistics and alert windows of every reactor so they act within
+/// the demo's plant time; returns the console line that says so.
+pub fn compress_watch(settings: &mut Settings) -> String {
+    for r in &mut settings.reactors {
+        let d = &mut r.watch.drift;
+        if let BaselineSpec::Learn { .. } = d.baseline {
+            d.baseline = BaselineSpec::Learn {
+                window_ms: DEMO_BASELINE_WINDOW_MS,
+                min_samples: DEMO_BASELINE_MIN_SAMPLES,
+            };
+        }
+        d.aggregate_ms = DEMO_AGGREGATE_MS;
+        d.min_per_aggregate = DEMO_MIN_PER_AGGREGATE;
+        d.trend_window_ms = None;
+        d.min_aggregates = DEMO_MIN_AGGREGATES;
+        let a = &mut r.watch.alerts;
+        if let Some(x) = a.trend_above_k_per_day.as_mut() {
+            *x *= DEMO_DAY_FACTOR;
+        }
+        if let Some(x) = a.end_of_run_within_days.as_mut() {
+            *x /= DEMO_DAY_FACTOR;
+        }
+        if a.data_quality_after_ms.is_some() {
+            a.data_quality_after_ms = Some(DEMO_DATA_QUALITY_AFTER_MS);
+        }
+        if r.id == "lts1" && d.end_of_run_limit_k.is_some() {
+            a.end_of_run_within_days = Some(DEMO_LTS_END_OF_RUN_WITHIN_DAYS);
+        }
+    }
+    format!(
+        "statistics windows compressed for the demo (a configured day = {} min): baseline over {} min ({}+ analyses), trend point per {} min, trend from {} points, alert rates x{:.0}, end-of-run horizons /{:.0} (lts1: {} d), data-quality after {} min",
+        DEMO_AGGREGATE_MS / MINUTE_MS,
+        DEMO_BASELINE_WINDOW_MS / MINUTE_MS,
+        DEMO_BASELINE_MIN_SAMPLES,
+        DEMO_AGGREGATE_MS / MINUTE_MS,
+        DEMO_MIN_AGGREGATES,
+        DEMO_DAY_FACTOR,
+        DEMO_DAY_FACTOR,
+        DEMO_LTS_END_OF_RUN_WITHIN_DAYS,
+        DEMO_DATA_QUALITY_AFTER_MS / MINUTE_MS,
+    )
+}
 
-fn watch(rt_client: (AsyncClient, rumqttc::EventLoop), filter: String, latest: Latest) {
+// ---------------------------------------------------------------------------------------------
+// What the console has received
+// ---------------------------------------------------------------------------------------------
+
+/// One alert or alarm event as received on `<prefix>/<reactor>/alert|alarm` (or the
+/// plant-wide `<prefix>/alert`, reactor "plant").
+#[derive(Debug, Clone, PartialEq)]
+struct SeenEvent {
+    at_ms: i64,
+    reactor: String,
+    class: String,
+    alarm: String,
+    event: String,
+    value: Option<f64>,
+    limit: Option<f64>,
+    unit: String,
+    direction: String,
+    reason: Option<String>,
+}
+
+impl SeenEvent {
+    fn raised(&self) -> bool {
+        self.event == "raised" || self.event == "re-alarmed"
+    }
+
+    fn what(&self) -> String {
+        let class = if self.class == "alarm" {
+            "ALARM"
+        } else {
+            "alert"
+        };
+        format!("{class} {}", self.alarm)
+    }
+
+    /// `+42 min ref1 ALARM approach-high raised (25.1 K > 20 K)`.
+    fn line(&self, start_ms: i64) -> String {
+        let mut s = format!(
+            "{} {} {} {}",
+            plant_minutes(self.at_ms, start_ms),
+            self.reactor,
+            self.what(),
+            self.event
+        );
+        let cmp = if self.direction == "low" { "<" } else { ">" };
+        // End-of-run horizons of a few days or less read better in hours.
+        let (k, unit) = match (self.unit.as_str(), self.limit) {
+            ("d", Some(l)) if l < 2.0 => (24.0, "h"),
+            _ => (1.0, self.unit.as_str()),
+        };
+        match (self.value, self.limit) {
+            (Some(v), Some(l)) if self.raised() => s.push_str(&format!(
+                " ({} {cmp} {})",
+                with_unit(num(v * k), unit),
+                with_unit(short(l * k), unit)
+            )),
+            (Some(v), _) if self.event == "cleared" => {
+                s.push_str(&format!(" ({})", with_unit(num(v * k), unit)));
+            }
+            _ => {}
+        }
+        if let Some(r) = &self.reason {
+            s.push_str(&format!(": {r}"));
+        }
+        s
+    }
+}
+
+/// What the console knows about one reactor.
+#[derive(Debug, Default)]
+struct UnitSeen {
+    /// The result with the newest sample time, and its sample time.
+    latest: Option<(i64, Value)>,
+    results: u64,
+    /// The retained alert/alarm states (`eqwatch.alarms/1`), newest.
+    states: Option<(i64, Value)>,
+    /// Plotted points by sample time (a result delivered twice counts once).
+    points: BTreeMap<i64, PlotPoint>,
+    key_component: Option<String>,
+    /// Baseline per run start: (approach K, σ K).
+    baselines: BTreeMap<i64, (f64, Option<f64>)>,
+    /// Sample times that went into the statistics.
+    included: BTreeSet<i64>,
+    limit_k: Option<f64>,
+}
+
+impl UnitSeen {
+    fn drift(&self) -> Option<&Value> {
+        self.latest
+            .as_ref()
+            .map(|(_, v)| &v["drift"])
+            .filter(|d| d.is_object())
+    }
+}
+
+#[derive(Debug, Default)]
+struct Seen {
+    units: BTreeMap<String, UnitSeen>,
+    /// Alert and alarm events in arrival order.
+    events: Vec<SeenEvent>,
+    event_ids: HashSet<String>,
+}
+
+impl Seen {
+    fn take(&mut self, topic: &str, v: &Value) {
+        if topic.ends_with("/result") {
+            self.result(v);
+        } else if topic.ends_with("/alarms") {
+            self.states(v);
+        } else if topic.ends_with("/alert") || topic.ends_with("/alarm") {
+            self.event(v);
+        }
+    }
+
+    fn result(&mut self, v: &Value) {
+        let Some(id) = v["reactor"].as_str() else {
+            return;
+        };
+        let Some(t) = v["sample_ts"].as_str().and_then(parse_rfc3339) else {
+            return;
+        };
+        let u = self.units.entry(id.to_string()).or_default();
+        u.results += 1;
+        let quality = v["quality"].as_str().unwrap_or("bad");
+        u.points.insert(
+            t,
+            PlotPoint {
+                t_ms: t,
+                approach_k: v["approach_k"].as_f64().filter(|_| quality != "bad"),
+                uncertainty_k: v["approach_uncertainty_k"].as_f64(),
+                good: quality == "good",
+                key_measured: v["key_measured_mole_fraction"].as_f64(),
+                key_equilibrium: v["key_equilibrium_mole_fraction"].as_f64(),
+            },
+        );
+        if let Some(k) = v["key_component"].as_str() {
+            u.key_component = Some(k.to_string());
+        }
+        let d = &v["drift"];
+        if d["included"] == true {
+            u.included.insert(t);
+        }
+        if let (Some(start), Some(b)) = (
+            d["run_start"].as_str().and_then(parse_rfc3339),
+            d["baseline_k"].as_f64(),
+        ) {
+            u.baselines
+                .insert(start, (b, d["baseline_sigma_k"].as_f64()));
+        }
+        if let Some(l) = d["end_of_run"]["limit_k"].as_f64() {
+            u.limit_k = Some(l);
+        }
+        if u.latest.as_ref().is_none_or(|(lt, _)| t >= *lt) {
+            u.latest = Some((t, v.clone()));
+        }
+    }
+
+    fn states(&mut self, v: &Value) {
+        // The plant-wide `<prefix>/alarms` names no reactor.
+        let Some(id) = v["reactor"].as_str() else {
+            return;
+        };
+        let at = v["at"].as_str().and_then(parse_rfc3339).unwrap_or(i64::MIN);
+        let u = self.units.entry(id.to_string()).or_default();
+        if u.states.as_ref().is_none_or(|(t, _)| at >= *t) {
+            u.states = Some((at, v.clone()));
+        }
+    }
+
+    fn event(&mut self, v: &Value) {
+        let (Some(id), Some(at_ms)) = (v["id"].as_str(), v["at"].as_str().and_then(parse_rfc3339))
+        else {
+            return;
+        };
+        // QoS 1 may deliver twice; the id is stable across redelivery.
+        if !self.event_ids.insert(id.to_string()) {
+            return;
+        }
+        let text = |k: &str| v[k].as_str().unwrap_or("").to_string();
+        self.events.push(SeenEvent {
+            at_ms,
+            reactor: v["reactor"].as_str().unwrap_or("plant").to_string(),
+            class: text("class"),
+            alarm: text("alarm"),
+            event: text("event"),
+            value: v["value"].as_f64(),
+            limit: v["limit"].as_f64(),
+            unit: text("unit"),
+            direction: text("direction"),
+            reason: v["reason"].as_str().map(str::to_string),
+        });
+    }
+}
+
+type Shared = Arc<Mutex<Seen>>;
+
+fn lock(seen: &Shared) -> std::sync::MutexGuard<'_, Seen> {
+    seen.lock().unwrap_or_else(|e| e.into_inner())
+}
+
+fn listen(rt_client: (AsyncClient, rumqttc::EventLoop), filters: Vec<String>, seen: Shared) {
     let (client, mut ev) = rt_client;
     tokio::spawn(async move {
         loop {
             match ev.poll().await {
                 Ok(Event::Incoming(Incoming::ConnAck(_))) => {
-                    let _ = client.subscribe(filter.clone(), QoS::AtLeastOnce).await;
+                    for f in &filters {
+                        let _ = client.subscribe(f.clone(), QoS::AtLeastOnce).await;
+                    }
                 }
-                Ok(Event::Incoming(Incoming::Publish(p))) => {
+                // Retained copies sent at subscription may be from an earlier run; the
+                // broker forwards this run's messages with the retain flag cleared.
+                Ok(Event::Incoming(Incoming::Publish(p))) if !p.retain => {
                     if let Ok(v) = serde_json::from_slice::<Value>(&p.payload) {
-                        if let Some(id) = v["reactor"].as_str() {
-                            let mut l = latest.lock().unwrap_or_else(|e| e.into_inner());
-                            let n = l.get(id).map_or(0, |(_, n)| *n) + 1;
-                            l.insert(id.to_string(), (v, n));
-                        }
+                        lock(&seen).take(&p.topic, &v);
                     }
                 }
                 Ok(_) => {}
@@ -76,56 +367,404 @@ fn watch(rt_client: (AsyncClient, rumqttc::EventLoop), filter: String, latest: L
     });
 }
 
+// ---------------------------------------------------------------------------------------------
+// The live table
+// ---------------------------------------------------------------------------------------------
+
 fn fmt_opt(v: &Value, digits: usize) -> String {
     v.as_f64().map_or("-".into(), |x| format!("{x:.digits$}"))
 }
 
-fn table(latest: &Latest, sim_s: f64, link_up: bool) -> String {
-    let l = latest.lock().unwrap_or_else(|e| e.into_inner());
+/// A value with one decimal (none from 100 up).
+fn num(x: f64) -> String {
+    if x.abs() >= 100.0 {
+        format!("{x:.0}")
+    } else {
+        format!("{x:.1}")
+    }
+}
+
+/// A configured figure: at most three decimals, no trailing zeros (`20`, `0.208`).
+fn short(x: f64) -> String {
+    let s = format!("{x:.3}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s.is_empty() || s == "-" {
+        "0".into()
+    } else {
+        s.to_string()
+    }
+}
+
+fn with_unit(n: String, unit: &str) -> String {
+    if unit.is_empty() {
+        n
+    } else {
+        format!("{n} {unit}")
+    }
+}
+
+/// `+42 min` of plant time since the start of the demo.
+fn plant_minutes(t_ms: i64, start_ms: i64) -> String {
+    format!("+{:.0} min", (t_ms - start_ms) as f64 / MINUTE_MS as f64)
+}
+
+/// A span of plant time ahead: `in 40 min`, `in 5.2 h`, `in 2.1 d`.
+fn ahead(ms: i64) -> String {
+    if ms <= 0 {
+        "now".into()
+    } else if ms < 2 * HOUR_MS {
+        format!("in {} min", ms / MINUTE_MS)
+    } else if ms < 2 * DAY_MS {
+        format!("in {:.1} h", ms as f64 / HOUR_MS as f64)
+    } else if ms < 1000 * DAY_MS {
+        format!("in {:.1} d", ms as f64 / DAY_MS as f64)
+    } else {
+        ">1000 d".into()
+    }
+}
+
+/// The trend cell: K/d, `learning` while the baseline is learned, `-` before a trend.
+fn trend_cell(drift: Option<&Value>) -> String {
+    let Some(d) = drift else {
+        return "-".into();
+    };
+    if d["baseline"] == "learning" {
+        return "learning".into();
+    }
+    d["trend_k_per_day"].as_f64().map_or("-".into(), |x| {
+        if x.abs() >= 1000.0 {
+            format!("{x:+.0}")
+        } else {
+            format!("{x:+.1}")
+        }
+    })
+}
+
+/// The end-of-run cell, counted from `now_ms` (plant time).
+fn end_of_run_cell(drift: Option<&Value>, now_ms: i64) -> String {
+    let Some(e) = drift.map(|d| &d["end_of_run"]) else {
+        return "-".into();
+    };
+    match e["state"].as_str() {
+        Some("forecast") => e["date"]
+            .as_str()
+            .and_then(parse_rfc3339)
+            .map_or("-".into(), |at| ahead(at - now_ms)),
+        Some("reached") => "reached".into(),
+        Some("not-rising") => "not rising".into(),
+        _ => "-".into(),
+    }
+}
+
+/// What is annunciating on a reactor, from its retained `eqwatch.alarms/1` state:
+/// operator alarms one by one with their state, then the engineering alerts.
+fn flags(states: &Value) -> Vec<String> {
+    let mut out = Vec::new();
+    if states["offline"] == true {
+        out.push("unit OFF LINE".into());
+    }
+    let mut alerts = Vec::new();
+    for a in states["alarms"]
+        .as_array()
+        .map_or(&[][..], |a| a.as_slice())
+    {
+        let Some(id) = a["alarm"].as_str() else {
+            continue;
+        };
+        let state = a["state"].as_str().unwrap_or("");
+        let mode = a["mode"].as_str().unwrap_or("");
+        let short = match state {
+            "unacknowledged" => "unack",
+            "acknowledged" => "ack",
+            "returned-to-normal unacknowledged" => "cleared, unack",
+            s => s,
+        };
+        match (a["class"].as_str(), a["annunciating"] == true) {
+            (Some("alarm"), true) => out.push(format!("ALARM {id} ({short})")),
+            // Shelved, suppressed by design or out of service while its condition is on.
+            (Some("alarm"), false) if a["condition"] == true && mode != "active" => {
+                out.push(format!("ALARM {id} ({mode})"));
+            }
+            (Some("alert"), true) if state.starts_with("returned") => {
+                alerts.push(format!("{id} (cleared)"));
+            }
+            (Some("alert"), true) => alerts.push(id.to_string()),
+            _ => {}
+        }
+    }
+    if !alerts.is_empty() {
+        out.push(format!("alert {}", alerts.join(", ")));
+    }
+    out
+}
+
+/// Greedy wrap of `items` (joined by "; ") into lines of at most `width` characters.
+fn wrap(items: &[String], width: usize) -> Vec<String> {
+    let mut lines: Vec<String> = Vec::new();
+    let mut cur = String::new();
+    for it in items {
+        let sep = if cur.is_empty() { "" } else { "; " };
+        if !cur.is_empty() && cur.chars().count() + sep.len() + it.chars().count() > width {
+            lines.push(std::mem::take(&mut cur));
+            cur.push_str(it);
+        } else {
+            cur.push_str(sep);
+            cur.push_str(it);
+        }
+    }
+    if !cur.is_empty() {
+        lines.push(cur);
+    }
+    lines
+}
+
+struct View<'a> {
+    ids: &'a [String],
+    start_ms: i64,
+    now_ms: i64,
+    link_up: bool,
+    /// Event lines under the table (terminal).
+    recent: usize,
+}
+
+fn table(seen: &Seen, view: &View) -> String {
     let mut s = String::new();
     s.push_str(&format!(
-        "Brackwater Ammonia Works, train 1 (simulated)   plant time +{:>3.0} min   broker link {}\n",
-        sim_s / 60.0,
-        if link_up { "up" } else { "DOWN (simulated drop-out)" }
+        "Brackwater Ammonia Works, train 1 (simulated)  plant time {:>8}  broker link {}\n",
+        plant_minutes(view.now_ms, view.start_ms),
+        if view.link_up {
+            "up"
+        } else {
+            "DOWN (drop-out)"
+        }
     ));
     s.push_str(&format!(
-        "{:<6} {:>10} {:>7} {:>9} {:>9}  {:<9} {}\n",
-        "unit", "approach K", "± K", "Q/K", "T degC", "quality", "reasons"
+        "{:<5} {:>10} {:>5} {:>6} {:<9} {:>9} {:>10}  {}\n",
+        "unit",
+        "approach K",
+        "± K",
+        "T degC",
+        "quality",
+        "trend K/d",
+        "end of run",
+        "alarms and alerts annunciating"
     ));
-    for id in ["ref1", "hts1", "lts1", "mth1", "amc1"] {
-        match l.get(id) {
-            None => s.push_str(&format!("{id:<6} {:>10}\n", "waiting")),
-            Some((v, _)) => {
-                let reasons: Vec<&str> = v["reasons"]
-                    .as_array()
-                    .map(|a| {
-                        a.iter()
-                            .filter(|r| r["severity"] != "good")
-                            .filter_map(|r| r["code"].as_str())
-                            .collect()
-                    })
-                    .unwrap_or_default();
-                let t_c = v["temperature_k"]
-                    .as_f64()
-                    .map_or("-".into(), |t| format!("{:.1}", t - 273.15));
-                s.push_str(&format!(
-                    "{id:<6} {:>10} {:>7} {:>9} {:>9}  {:<9} {}\n",
-                    fmt_opt(&v["approach_k"], 2),
-                    fmt_opt(&v["approach_uncertainty_k"], 2),
-                    fmt_opt(&v["q_over_k"], 4),
-                    t_c,
-                    v["quality"].as_str().unwrap_or("-"),
-                    if reasons.is_empty() {
-                        "-".to_string()
-                    } else {
-                        reasons.join(", ")
-                    }
-                ));
+    let indent = " ".repeat(FLAGS_COLUMN);
+    for id in view.ids {
+        let Some(u) = seen.units.get(id) else {
+            s.push_str(&format!("{id:<5} {:>10}\n", "waiting"));
+            continue;
+        };
+        let states = u.states.as_ref().map(|(_, v)| flags(v)).unwrap_or_default();
+        let flag_lines = wrap(&states, TABLE_WIDTH - FLAGS_COLUMN);
+        let Some((_, v)) = &u.latest else {
+            s.push_str(&format!(
+                "{id:<5} {:>10}{}{}\n",
+                "waiting",
+                " ".repeat(FLAGS_COLUMN - 16),
+                flag_lines.first().map_or("-", String::as_str)
+            ));
+            continue;
+        };
+        let t_c = v["temperature_k"]
+            .as_f64()
+            .map_or("-".into(), |t| format!("{:.1}", t - 273.15));
+        let drift = u.drift();
+        s.push_str(&format!(
+            "{id:<5} {:>10} {:>5} {:>6} {:<9} {:>9} {:>10}  {}\n",
+            fmt_opt(&v["approach_k"], 2),
+            fmt_opt(&v["approach_uncertainty_k"], 1),
+            t_c,
+            v["quality"].as_str().unwrap_or("-"),
+            trend_cell(drift),
+            end_of_run_cell(drift, view.now_ms),
+            flag_lines.first().map_or("-", String::as_str)
+        ));
+        for l in flag_lines.iter().skip(1) {
+            s.push_str(&format!("{indent}{l}\n"));
+        }
+        let reasons: Vec<String> = v["reasons"]
+            .as_array()
+            .map(|a| {
+                a.iter()
+                    .filter(|r| r["severity"] != "good")
+                    .filter_map(|r| r["code"].as_str().map(str::to_string))
+                    .collect()
+            })
+            .unwrap_or_default();
+        if !reasons.is_empty() {
+            let lines = wrap(&[reasons.join(", ")], TABLE_WIDTH - 16);
+            for l in lines {
+                s.push_str(&format!("      reasons: {l}\n"));
             }
+        }
+    }
+    if view.recent > 0 {
+        let from = seen.events.len().saturating_sub(view.recent);
+        if seen.events.is_empty() {
+            s.push_str("alerts and alarms: none raised yet\n");
+        } else {
+            s.push_str("latest alert and alarm events (plant time):\n");
+        }
+        for e in &seen.events[from..] {
+            s.push_str(&format!("  ! {}\n", e.line(view.start_ms)));
         }
     }
     s
 }
+
+// ---------------------------------------------------------------------------------------------
+// Plots at exit
+// ---------------------------------------------------------------------------------------------
+
+/// The trend line and its forward projection from the newest result's drift figures.
+///
+/// The daemon fits the trend to one mean per `aggregate_ms` bucket of the run (bucket
+/// middles), and closes a bucket when an analysis of a later bucket arrives; the buckets
+/// are rebuilt here from the sample times the results say were included, so the line is
+/// drawn where it was fitted. If they do not add up to the published number of trend
+/// points (a result missed), the line is anchored on the last point instead. The band is
+/// the published ± half-width at the last trend point, drawn at that width throughout.
+fn projection(u: &UnitSeen, aggregate_ms: i64) -> Option<Projection> {
+    let d = u.drift()?;
+    let slope = d["trend_k_per_day"].as_f64()?;
+    let fitted = d["trend_fitted_k"].as_f64()?;
+    let band = d["trend_band_k"].as_f64().map_or(0.0, f64::abs);
+    let n = d["trend_points"].as_u64().unwrap_or(0);
+    let (first_t, last_t) = (*u.points.keys().next()?, *u.points.keys().next_back()?);
+    let start = d["run_start"]
+        .as_str()
+        .and_then(parse_rfc3339)
+        .unwrap_or(first_t);
+    let period = aggregate_ms.max(1);
+    let buckets: BTreeSet<i64> = u
+        .included
+        .range(start..)
+        .map(|t| (t - start).div_euclid(period))
+        .collect();
+    // The newest bucket is still open.
+    let closed: Vec<i64> = buckets
+        .iter()
+        .copied()
+        .take(buckets.len().saturating_sub(1))
+        .collect();
+    let mid = |k: i64| start + k * period + period / 2;
+    let (from, anchor) = match (closed.first(), closed.last()) {
+        (Some(&a), Some(&b)) if closed.len() as u64 == n => (mid(a), mid(b)),
+        _ => (start, last_t),
+    };
+    let forecast = d["end_of_run"]["state"] == "forecast";
+    let date = |k: &str| {
+        d["end_of_run"][k]
+            .as_str()
+            .and_then(parse_rfc3339)
+            .filter(|_| forecast)
+    };
+    let end = date("date");
+    // A short way ahead: to the end of run if it is near, else a quarter of the data span.
+    let span = (last_t - first_t).max(period);
+    let to = end
+        .unwrap_or(last_t + span / 4)
+        .clamp(last_t, last_t + span / 2);
+    let steps = 24;
+    let points = (0..=steps)
+        .map(|i| {
+            let t = from + (to - from) * i / steps;
+            let y = fitted + slope * (t - anchor) as f64 / DAY_MS as f64;
+            (t, y, y - band, y + band)
+        })
+        .collect();
+    Some(Projection {
+        points,
+        slope_k_per_day: slope,
+        end_of_run_ms: end,
+        end_of_run_range_ms: date("earliest").map(|e| (e, date("latest").or(end).unwrap_or(e))),
+    })
+}
+
+fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> ReactorPlot {
+    let rs = &settings.reactors[r];
+    let Some(u) = seen.units.get(&rs.id) else {
+        return ReactorPlot {
+            reactor: rs.id.clone(),
+            title: format!("{} ({})", rs.name, rs.id),
+            key_component: settings.species.get(rs.key_component).name.clone(),
+            ..ReactorPlot::default()
+        };
+    };
+    let last_t = u.points.keys().next_back().copied().unwrap_or(start_ms);
+    let runs: Vec<(i64, (f64, Option<f64>))> = u.baselines.iter().map(|(k, v)| (*k, *v)).collect();
+    let baselines = runs
+        .iter()
+        .enumerate()
+        .map(|(i, &(from, (k, sigma)))| BaselineSpan {
+            from_ms: from,
+            to_ms: runs.get(i + 1).map_or(last_t, |n| n.0),
+            approach_k: k,
+            sigma_k: sigma,
+        })
+        .collect();
+    let markers = seen
+        .events
+        .iter()
+        .filter(|e| e.reactor == rs.id)
+        .filter_map(|e| {
+            let kind = match e.event.as_str() {
+                "raised" | "re-alarmed" if e.class == "alarm" => MarkerKind::Alarm,
+                "raised" | "re-alarmed" => MarkerKind::Alert,
+                "cleared" => MarkerKind::Cleared,
+                "acknowledged" | "shelved" | "out-of-service" | "returned-to-service" => {
+                    MarkerKind::Operator
+                }
+                _ => return None,
+            };
+            Some(Marker {
+                t_ms: e.at_ms,
+                kind,
+                label: format!(
+                    "{} {} {}",
+                    e.what(),
+                    e.event,
+                    plant_minutes(e.at_ms, start_ms)
+                ),
+            })
+        })
+        .collect();
+    ReactorPlot {
+        reactor: rs.id.clone(),
+        title: format!("{} ({})", rs.name, rs.id),
+        key_component: u
+            .key_component
+            .clone()
+            .unwrap_or_else(|| settings.species.get(rs.key_component).name.clone()),
+        limit_k: u.limit_k.or(rs.watch.drift.end_of_run_limit_k),
+        points: u.points.values().copied().collect(),
+        baselines,
+        projection: projection(u, rs.watch.drift.aggregate_ms),
+        markers,
+    }
+}
+
+/// Writes `<reactor>.svg` per reactor and `overview.svg` into `dir`; returns the file names.
+fn write_plots(dir: &Path, plots: &[ReactorPlot], title: &str) -> std::io::Result<Vec<String>> {
+    std::fs::create_dir_all(dir)?;
+    let mut names = Vec::new();
+    for p in plots {
+        let name = format!("{}.svg", p.reactor);
+        std::fs::write(dir.join(&name), crate::plot::reactor_svg(p))?;
+        names.push(name);
+    }
+    std::fs::write(
+        dir.join("overview.svg"),
+        crate::plot::overview_svg(plots, title),
+    )?;
+    names.push("overview.svg".into());
+    Ok(names)
+}
+
+// ---------------------------------------------------------------------------------------------
+// The demo
+// ---------------------------------------------------------------------------------------------
 
 /// Runs the demo for `duration` (wall clock) at `speed` simulated seconds per second.
 pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(), CliError> {
@@ -140,6 +779,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
     let mut settings = crate::config::from_str(DEMO_CONFIG, &workdir)
         .map_err(|e| CliError::Internal(format!("demo configuration: {e}")))?;
     settings.http_listen = None;
+    let compressed = compress_watch(&mut settings);
 
     // The broker: embedded unless one is given.
     #[cfg(feature = "demo-broker")]
@@ -169,6 +809,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
     settings.broker.tls = false;
     settings.broker.reconnect_max = Duration::from_secs(2);
     let prefix = settings.topic_prefix.clone();
+    let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
     println!("{}", crate::sim::SCENARIO);
     println!(
         "broker {upstream} ({}), daemon through a drop-out proxy on 127.0.0.1:{}, speed x{speed}, {} s; journal in {}",
@@ -181,6 +822,8 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
         duration.as_secs(),
         workdir.join("var/journal").display()
     );
+    println!("{compressed}");
+    println!("advisory figures only: not a safety function.");
 
     // Compressed plant time drives the daemon's clock too, so ages and lags are in plant time.
     let start_wall = Instant::now();
@@ -214,11 +857,17 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
     );
     o.set_keep_alive(Duration::from_secs(10));
     o.set_max_packet_size(1 << 20, 1 << 20);
-    let latest: Latest = Arc::new(Mutex::new(BTreeMap::new()));
-    watch(
+    let seen: Shared = Arc::new(Mutex::new(Seen::default()));
+    listen(
         AsyncClient::new(o, 64),
-        format!("{prefix}/+/result"),
-        latest.clone(),
+        vec![
+            format!("{prefix}/+/result"),
+            format!("{prefix}/+/alarms"),
+            format!("{prefix}/+/alert"),
+            format!("{prefix}/+/alarm"),
+            format!("{prefix}/alert"),
+        ],
+        seen.clone(),
     );
 
     let mut plant = Plant::new(20_261_201, start_ms);
@@ -233,6 +882,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
     let mut last_sim = 0.0;
     let mut last_draw = Instant::now() - Duration::from_secs(60);
     let mut drawn_lines = 0usize;
+    let mut events_printed = 0usize;
     let mut tick = tokio::time::interval(Duration::from_millis(100));
     while start_wall.elapsed() < duration {
         tick.tick().await;
@@ -246,7 +896,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
         let mut notes = Vec::new();
         for e in plant.events_between(last_sim, sim_s) {
             notes.push(format!(
-                "+{:.0} min {}: {}",
+                "  * +{:.0} min {}: {}",
                 e.at_s / 60.0,
                 e.reactor,
                 e.description
@@ -258,10 +908,18 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
             proxy.set_up(want_up);
             link_up = want_up;
             notes.push(if want_up {
-                "broker link restored: the daemon reconnects and sends what it journaled meanwhile (marked late)".into()
+                "  * broker link restored: the daemon reconnects and sends what it journaled meanwhile (marked late)".into()
             } else {
-                format!("broker link cut for {:.0} s (simulated drop-out): results keep being computed and journaled", dropout.1)
+                format!("  * broker link cut for {:.0} s (simulated drop-out): results keep being computed and journaled", dropout.1)
             });
+        }
+        let seen_now = lock(&seen);
+        // Not on a terminal, every new alert or alarm event becomes a line of its own.
+        if !tty {
+            for e in &seen_now.events[events_printed.min(seen_now.events.len())..] {
+                notes.push(format!("  ! {}", e.line(start_ms)));
+            }
+            events_printed = seen_now.events.len();
         }
         let redraw = if tty {
             last_draw.elapsed() >= Duration::from_millis(500)
@@ -274,10 +932,17 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
                 let _ = write!(out, "\x1b[{drawn_lines}A\x1b[J");
             }
             for n in &notes {
-                let _ = writeln!(out, "  * {n}");
+                let _ = writeln!(out, "{n}");
             }
             if tty || redraw {
-                let t = table(&latest, sim_s, link_up);
+                let view = View {
+                    ids: &ids,
+                    start_ms,
+                    now_ms: clock(),
+                    link_up,
+                    recent: if tty { RECENT_EVENTS } else { 0 },
+                };
+                let t = table(&seen_now, &view);
                 drawn_lines = t.lines().count();
                 let _ = write!(out, "{t}");
                 last_draw = Instant::now();
@@ -297,28 +962,285 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
         Err(_) => return Err(CliError::Internal("daemon did not stop within 30 s".into())),
     }
     tokio::time::sleep(Duration::from_millis(300)).await;
-    let l = latest.lock().unwrap_or_else(|e| e.into_inner());
-    println!(
-        "\nsummary after {:.0} min of plant time:",
-        start_wall.elapsed().as_secs_f64() * speed / 60.0
-    );
-    println!(
-        "{:<6} {:>8} {:>12} {:<10}",
-        "unit", "results", "approach K", "quality"
-    );
-    for id in ["ref1", "hts1", "lts1", "mth1", "amc1"] {
-        match l.get(id) {
-            Some((v, n)) => println!(
-                "{id:<6} {n:>8} {:>12} {:<10}",
-                fmt_opt(&v["approach_k"], 2),
-                v["quality"].as_str().unwrap_or("-")
-            ),
-            None => println!("{id:<6} {:>8} {:>12} {:<10}", 0, "-", "no result"),
+    let end_ms = clock();
+
+    let (summary_text, plots) = {
+        let seen = lock(&seen);
+        let mut text = String::new();
+        if !tty {
+            for e in &seen.events[events_printed.min(seen.events.len())..] {
+                text.push_str(&format!("  ! {}\n", e.line(start_ms)));
+            }
         }
-    }
+        text.push_str(&summary(&seen, &ids, start_ms, end_ms));
+        let plots: Vec<ReactorPlot> = (0..settings.reactors.len())
+            .map(|r| reactor_plot(&seen, &settings, r, start_ms))
+            .collect();
+        (text, plots)
+    };
+    print!("{summary_text}");
+
+    // Rendering and writing files is blocking work: off the async thread.
+    let plot_dir: PathBuf = workdir.join("plots");
+    let dir = plot_dir.clone();
+    let written = tokio::task::spawn_blocking(move || {
+        write_plots(
+            &dir,
+            &plots,
+            "Brackwater Ammonia Works, train 1 (simulated): demo run in compressed time",
+        )
+    })
+    .await
+    .map_err(internal("plot task"))?
+    .map_err(|e| CliError::Internal(format!("plots in {}: {e}", plot_dir.display())))?;
+    println!("plots: {}/ ({})", plot_dir.display(), written.join(" "));
     println!(
         "retained results stay on {prefix}/<unit>/result; status on {prefix}/status (offline now)."
     );
+    println!("alert and alarm states stay on {prefix}/<unit>/alarms (retained).");
     println!("advisory figures only: not a safety function.");
     Ok(())
+}
+
+/// The end-of-run summary: results per reactor, then the alerts and alarms raised.
+fn summary(seen: &Seen, ids: &[String], start_ms: i64, end_ms: i64) -> String {
+    let mut s = format!(
+        "\nsummary after {:.0} min of plant time:\n{:<6} {:>8} {:>12} {:<10}\n",
+        (end_ms - start_ms) as f64 / MINUTE_MS as f64,
+        "unit",
+        "results",
+        "approach K",
+        "quality"
+    );
+    for id in ids {
+        match seen
+            .units
+            .get(id)
+            .and_then(|u| u.latest.as_ref().map(|l| (u, &l.1)))
+        {
+            Some((u, v)) => s.push_str(&format!(
+                "{id:<6} {:>8} {:>12} {:<10}\n",
+                u.results,
+                fmt_opt(&v["approach_k"], 2),
+                v["quality"].as_str().unwrap_or("-")
+            )),
+            None => s.push_str(&format!(
+                "{id:<6} {:>8} {:>12} {:<10}\n",
+                0, "-", "no result"
+            )),
+        }
+    }
+    s.push_str("alerts and alarms raised (plant time):\n");
+    let mut any = false;
+    let plant = ["plant".to_string()];
+    for id in ids.iter().chain(plant.iter()) {
+        // (class, alarm) -> minutes raised, in the order first raised.
+        let mut raised: Vec<(&SeenEvent, Vec<String>)> = Vec::new();
+        let mut evs: Vec<&SeenEvent> = seen
+            .events
+            .iter()
+            .filter(|e| &e.reactor == id && e.raised())
+            .collect();
+        evs.sort_by_key(|e| e.at_ms);
+        for e in evs {
+            let m = plant_minutes(e.at_ms, start_ms);
+            match raised
+                .iter_mut()
+                .find(|(f, _)| f.class == e.class && f.alarm == e.alarm)
+            {
+                Some((_, v)) => v.push(m),
+                None => raised.push((e, vec![m])),
+            }
+        }
+        if raised.is_empty() {
+            if id != "plant" {
+                s.push_str(&format!("  {id:<6} none\n"));
+            }
+            continue;
+        }
+        any = true;
+        let items: Vec<String> = raised
+            .iter()
+            .map(|(e, at)| format!("{} {}", e.what(), at.join(", ")))
+            .collect();
+        s.push_str(&format!("  {id:<6} {}\n", items.join("; ")));
+    }
+    if !any {
+        s.push_str("  (none raised in this run)\n");
+    }
+    s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use serde_json::json;
+
+    fn demo_settings() -> Settings {
+        let dir = std::env::temp_dir();
+        crate::config::from_str(DEMO_CONFIG, &dir).expect("the demo configuration loads")
+    }
+
+    #[test]
+    fn compression_shortens_every_window_and_keeps_the_alarms() {
+        let mut s = demo_settings();
+        let before: Vec<_> = s.reactors.iter().map(|r| r.watch.alarms.clone()).collect();
+        let line = compress_watch(&mut s);
+        assert!(line.contains("compressed for the demo"), "{line}");
+        for (r, alarms) in s.reactors.iter().zip(before) {
+            let d = &r.watch.drift;
+            assert_eq!(d.aggregate_ms, DEMO_AGGREGATE_MS, "{}", r.id);
+            assert_eq!(d.min_aggregates, DEMO_MIN_AGGREGATES, "{}", r.id);
+            assert_eq!(d.trend_window_ms, None, "{}", r.id);
+            if let BaselineSpec::Learn { window_ms, .. } = d.baseline {
+                assert_eq!(window_ms, DEMO_BASELINE_WINDOW_MS, "{}", r.id);
+            }
+            assert_eq!(r.watch.alarms, alarms, "{}: alarms untouched", r.id);
+        }
+        let lts = s.reactors.iter().find(|r| r.id == "lts1").expect("lts1");
+        assert_eq!(lts.watch.alerts.end_of_run_within_days, Some(3.0));
+        // ref1's operator alarm: above 20 K, two samples (config/demo-plant.toml).
+        let ref1 = s.reactors.iter().find(|r| r.id == "ref1").expect("ref1");
+        assert_eq!(ref1.watch.alarms[0].config.limit, 20.0);
+        assert_eq!(ref1.watch.alarms[0].config.on_delay_samples, 2);
+    }
+
+    #[test]
+    fn cells_say_learning_trend_and_end_of_run() {
+        assert_eq!(trend_cell(None), "-");
+        assert_eq!(
+            trend_cell(Some(&json!({"baseline": "learning"}))),
+            "learning"
+        );
+        assert_eq!(
+            trend_cell(Some(
+                &json!({"baseline": "learned", "trend_k_per_day": null})
+            )),
+            "-"
+        );
+        assert_eq!(
+            trend_cell(Some(
+                &json!({"baseline": "learned", "trend_k_per_day": 4.83})
+            )),
+            "+4.8"
+        );
+        let now = parse_rfc3339("2026-12-01T00:00:00Z").expect("time");
+        let d = json!({"end_of_run": {"state": "forecast", "date": "2026-12-03T02:24:00Z"}});
+        assert_eq!(end_of_run_cell(Some(&d), now), "in 2.1 d");
+        let d = json!({"end_of_run": {"state": "forecast", "date": "2026-12-01T00:40:00Z"}});
+        assert_eq!(end_of_run_cell(Some(&d), now), "in 40 min");
+        let d = json!({"end_of_run": {"state": "no-trend"}});
+        assert_eq!(end_of_run_cell(Some(&d), now), "-");
+        let d = json!({"end_of_run": {"state": "reached"}});
+        assert_eq!(end_of_run_cell(Some(&d), now), "reached");
+    }
+
+    #[test]
+    fn flags_list_annunciating_alarms_then_alerts() {
+        let st = json!({"schema": "eqwatch.alarms/1", "reactor": "ref1", "offline": false, "alarms": [
+            {"alarm": "approach-high", "class": "alarm", "state": "unacknowledged", "mode": "active", "condition": true, "annunciating": true},
+            {"alarm": "trend", "class": "alert", "state": "unacknowledged", "mode": "active", "condition": true, "annunciating": true},
+            {"alarm": "cusum", "class": "alert", "state": "normal", "mode": "active", "condition": false, "annunciating": false},
+            {"alarm": "end-of-run", "class": "alert", "state": "returned-to-normal unacknowledged", "mode": "active", "condition": false, "annunciating": true}
+        ]});
+        assert_eq!(
+            flags(&st),
+            vec![
+                "ALARM approach-high (unack)".to_string(),
+                "alert trend, end-of-run (cleared)".to_string()
+            ]
+        );
+        // Malformed state messages give nothing rather than a panic.
+        assert!(flags(&json!({"alarms": "?"})).is_empty());
+        assert!(flags(&json!(null)).is_empty());
+    }
+
+    #[test]
+    fn event_lines_and_malformed_events() {
+        let mut seen = Seen::default();
+        let ev = json!({"schema": "eqwatch.event/1", "id": "ref1/approach-high#1@1", "reactor": "ref1",
+            "class": "alarm", "alarm": "approach-high", "event": "raised", "at": "2026-12-01T00:42:00Z",
+            "value": 25.08, "limit": 20.0, "direction": "high", "unit": "K"});
+        seen.take("eqwatch/baw1/ref1/alarm", &ev);
+        // Redelivery (same id) and junk are ignored.
+        seen.take("eqwatch/baw1/ref1/alarm", &ev);
+        seen.take("eqwatch/baw1/ref1/alarm", &json!({"id": 3}));
+        seen.take("eqwatch/baw1/ref1/result", &json!([1, 2]));
+        seen.take("eqwatch/baw1/alarms", &json!({"flood": "normal"}));
+        assert_eq!(seen.events.len(), 1);
+        let start = parse_rfc3339("2026-12-01T00:00:00Z").expect("time");
+        assert_eq!(
+            seen.events[0].line(start),
+            "+42 min ref1 ALARM approach-high raised (25.1 K > 20 K)"
+        );
+    }
+
+    #[test]
+    fn trend_line_is_drawn_where_it_was_fitted() {
+        // Analyses every 5 min from t = 0 (as src/sim.rs), all included: buckets 0..=7
+        // are closed (8 trend points), bucket 8 is open.
+        let mut u = UnitSeen::default();
+        for i in 0..=8 {
+            let t = i * 5 * MINUTE_MS;
+            u.included.insert(t);
+            u.points.insert(
+                t,
+                PlotPoint {
+                    t_ms: t,
+                    approach_k: Some(10.0),
+                    ..PlotPoint::default()
+                },
+            );
+        }
+        let last = 40 * MINUTE_MS;
+        let drift = json!({"baseline": "learned", "run_start": "1970-01-01T00:00:00Z",
+            "trend_k_per_day": 4.8, "trend_fitted_k": 10.1, "trend_band_k": 0.5, "trend_points": 8,
+            "end_of_run": {"state": "forecast", "date": "1970-01-03T00:00:00Z",
+                "earliest": "1970-01-02T00:00:00Z", "limit_k": 20.0}});
+        u.latest = Some((last, json!({"drift": drift})));
+        let p = projection(&u, 5 * MINUTE_MS).expect("a projection");
+        let (t0, y0, lo0, hi0) = p.points[0];
+        assert_eq!(t0, 150_000, "first bucket middle");
+        let anchor = 37 * MINUTE_MS + 30_000;
+        let at = |t: i64| 10.1 + 4.8 * (t - anchor) as f64 / DAY_MS as f64;
+        assert!((y0 - at(t0)).abs() < 1e-9);
+        assert!((hi0 - lo0 - 1.0).abs() < 1e-9);
+        // Forward at most half the data span past the last point.
+        let (t1, y1, _, _) = p.points[p.points.len() - 1];
+        assert_eq!(t1, last + 20 * MINUTE_MS);
+        assert!((y1 - at(t1)).abs() < 1e-9);
+        assert_eq!(p.end_of_run_ms, Some(2 * DAY_MS));
+        assert_eq!(p.end_of_run_range_ms, Some((DAY_MS, 2 * DAY_MS)));
+        // A result missed: the count no longer matches, the line hangs on the last point.
+        u.included.remove(&(10 * MINUTE_MS));
+        let p = projection(&u, 5 * MINUTE_MS).expect("a projection");
+        let at_last = p
+            .points
+            .iter()
+            .find(|q| q.0 == last)
+            .expect("a point at the last analysis");
+        assert!((at_last.1 - 10.1).abs() < 1e-9, "{at_last:?}");
+        assert_eq!(p.points[0].0, 0, "from the run start");
+        // No trend yet: no projection.
+        u.latest = Some((
+            last,
+            json!({"drift": {"baseline": "learning", "trend_k_per_day": null}}),
+        ));
+        assert!(projection(&u, 5 * MINUTE_MS).is_none());
+    }
+
+    #[test]
+    fn wrap_keeps_lines_within_the_width() {
+        let items: Vec<String> = [
+            "ALARM approach-high (unack)",
+            "alert trend, end-of-run, cusum",
+        ]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+        let lines = wrap(&items, 38);
+        assert_eq!(lines.len(), 2);
+        assert!(lines.iter().all(|l| l.chars().count() <= 38));
+        assert_eq!(wrap(&items, 100).len(), 1);
+    }
 }

@@ -1,6 +1,9 @@
 //! `eqwatch demo --broker` against a separate mosquitto: every demo reactor leaves a
-//! retained result with a numeric approach, and the status ends `offline`.
+//! retained result with a numeric approach, the status ends `offline`, the console shows
+//! the operator alarm and engineering alerts the invented scenario raises, and the plots
+//! written at exit parse as SVG.
 
+use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::Duration;
 
@@ -8,16 +11,59 @@ use serde_json::Value;
 
 use crate::support::*;
 
+/// Plant minutes of the first console event line `+NN min <what>` (e.g.
+/// `+41 min ref1 ALARM approach-high raised (24.8 K > 20 K)`).
+fn raised_at(stdout: &str, what: &str) -> Option<u32> {
+    stdout.lines().find_map(|l| {
+        let rest = l.trim_start().strip_prefix("! +")?;
+        let (min, tail) = rest.split_once(" min ")?;
+        tail.starts_with(what).then(|| min.parse().ok())?
+    })
+}
+
+/// The plots folder the demo names in its summary: `plots: <dir>/ (ref1.svg ...)`.
+fn plots_dir(stdout: &str) -> Option<PathBuf> {
+    stdout.lines().find_map(|l| {
+        let rest = l.strip_prefix("plots: ")?;
+        let (dir, _) = rest.split_once("/ (")?;
+        Some(PathBuf::from(dir))
+    })
+}
+
+/// Reads and parses one plot; returns its text and how many `approach` groups it has
+/// (`<g id="approach">` on a reactor chart, `<g class="approach">` per overview row).
+fn parse_svg(path: &Path) -> (String, usize) {
+    let text = std::fs::read_to_string(path)
+        .unwrap_or_else(|e| panic!("{} not readable: {e}", path.display()));
+    let doc = roxmltree::Document::parse(&text)
+        .unwrap_or_else(|e| panic!("{} is not XML: {e}", path.display()));
+    assert_eq!(doc.root_element().tag_name().name(), "svg");
+    let groups = doc
+        .descendants()
+        .filter(|n| {
+            n.has_tag_name("g")
+                && (n.attribute("id") == Some("approach")
+                    || n.attribute("class")
+                        .is_some_and(|c| c.split(' ').any(|x| x == "approach")))
+        })
+        .count();
+    drop(doc);
+    (text, groups)
+}
+
 #[test]
-fn demo_against_mosquitto_leaves_retained_results_and_offline_status() {
+fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
     let broker = Mosquitto::start();
+    // 35 s at 120 simulated s per s: 70 minutes of plant time. The invented demo
+    // scenario (src/sim.rs): the reformer's sulphur step at 30 min takes ref1 from 8 K to
+    // 25 K over 5 min; TI-305B on lts1 stops reporting at 15 min; analyses every 5 min.
     let out = Command::new(env!("CARGO_BIN_EXE_eqwatch"))
         .args([
             "demo",
             "--speed",
             "120",
             "--duration",
-            "25 s",
+            "35 s",
             "--broker",
             &broker.url(),
             "--log-level",
@@ -33,6 +79,71 @@ fn demo_against_mosquitto_leaves_retained_results_and_offline_status() {
         String::from_utf8_lossy(&out.stderr)
     );
     assert!(stdout.contains("summary"), "{stdout}");
+    assert!(
+        stdout.contains("statistics windows compressed for the demo"),
+        "{stdout}"
+    );
+    assert!(stdout.contains("not a safety function"), "{stdout}");
+
+    // ref1's operator alarm (config/demo-plant.toml: above 20 K for 2 analyses): the
+    // analyses sampled at 35 and 40 min are past 20 K, the second reported at 41 min.
+    let alarm = raised_at(&stdout, "ref1 ALARM approach-high raised");
+    assert!(
+        alarm.is_some_and(|m| (35..=46).contains(&m)),
+        "alarm at {alarm:?}\n{stdout}"
+    );
+    // Engineering alerts: no good lts1 result since TI-305B went silent (uncertain from
+    // 20 min on; 20 min compressed data-quality window), and ref1's end of run forecast
+    // within hours once the step is in the trend, not before the step.
+    let dq = raised_at(&stdout, "lts1 alert data-quality raised");
+    assert!(
+        dq.is_some_and(|m| (33..=42).contains(&m)),
+        "data-quality at {dq:?}\n{stdout}"
+    );
+    let eor = raised_at(&stdout, "ref1 alert end-of-run raised");
+    assert!(
+        eor.is_some_and(|m| m > 30),
+        "end-of-run at {eor:?}\n{stdout}"
+    );
+    // The live table: trend and end-of-run columns, the alarm annunciating.
+    assert!(stdout.contains("trend K/d"), "{stdout}");
+    assert!(stdout.contains("end of run"), "{stdout}");
+    assert!(stdout.contains("ALARM approach-high (unack)"), "{stdout}");
+    // The summary lists what was raised per reactor.
+    let summary = &stdout[stdout
+        .find("alerts and alarms raised")
+        .expect("raised list")..];
+    let ref1 = summary
+        .lines()
+        .find(|l| l.trim_start().starts_with("ref1"))
+        .expect("ref1 in the raised list");
+    assert!(ref1.contains("ALARM approach-high +"), "{ref1}");
+    assert!(ref1.contains("alert end-of-run +"), "{ref1}");
+
+    // Plots written at exit.
+    let units = ["ref1", "hts1", "lts1", "mth1", "amc1"];
+    let dir = plots_dir(&stdout).unwrap_or_else(|| panic!("no plots line\n{stdout}"));
+    for unit in units.iter().chain(&["overview"]) {
+        assert!(dir.join(format!("{unit}.svg")).is_file(), "{unit}.svg");
+    }
+    let (ref1_svg, groups) = parse_svg(&dir.join("ref1.svg"));
+    assert_eq!(groups, 1, "ref1.svg: the approach group");
+    let (_, groups) = parse_svg(&dir.join("overview.svg"));
+    assert_eq!(
+        groups,
+        units.len(),
+        "overview.svg: one approach group per reactor"
+    );
+    // The alarm is a marker on ref1's chart.
+    let doc = roxmltree::Document::parse(&ref1_svg).expect("ref1.svg");
+    assert!(
+        doc.descendants().any(|n| n.is_element()
+            && n.attribute("class").is_some_and(
+                |c| c.split(' ').any(|x| x == "marker") && c.split(' ').any(|x| x == "alarm")
+            )),
+        "no alarm marker in ref1.svg"
+    );
+
     // A new subscriber sees what the demo left behind.
     let rt = runtime();
     let got = collector(
@@ -40,7 +151,6 @@ fn demo_against_mosquitto_leaves_retained_results_and_offline_status() {
         broker.port,
         &["eqwatch/baw1/+/result", "eqwatch/baw1/status"],
     );
-    let units = ["ref1", "hts1", "lts1", "mth1", "amc1"];
     assert!(
         wait_for(&got, Duration::from_secs(10), |m| units.iter().all(|u| m
             .iter()
@@ -71,4 +181,12 @@ fn demo_against_mosquitto_leaves_retained_results_and_offline_status() {
         .find(|(t, _, _)| t.ends_with("/status"))
         .unwrap();
     assert!(status.contains("\"offline\""), "{status}");
+
+    // The demo's folder (journal and plots) is a temporary one of its own.
+    if let Some(work) = dir.parent().filter(|p| {
+        p.file_name()
+            .is_some_and(|n| n.to_string_lossy().starts_with("eqwatch-demo-"))
+    }) {
+        let _ = std::fs::remove_dir_all(work);
+    }
 }
