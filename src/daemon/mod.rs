@@ -66,8 +66,9 @@ pub struct RawInput {
 const JOURNAL_QUEUE: usize = 64;
 /// Inputs the evaluator takes per wake-up at most.
 const EVALUATOR_BATCH: usize = 64;
-/// Journal records waiting for the link at most.
-const LINK_QUEUE: usize = 1024;
+/// Batches of journal records (each at most one evaluator batch) waiting for the link
+/// at most: bounds the memory a flood can hold between journal and link.
+const LINK_QUEUE: usize = 128;
 
 /// One result to journal.
 #[derive(Debug)]
