@@ -250,6 +250,32 @@ impl Engine {
         (self.units, self.plant)
     }
 
+    /// Per reactor: id, its drift settings as text (to notice a change), the run's state.
+    pub fn drift_snapshots(&self) -> Vec<(String, String, crate::monitor::watch::DriftSnapshot)> {
+        self.units
+            .iter()
+            .map(|u| {
+                let rs = &self.settings.reactors[u.r];
+                (
+                    rs.id.clone(),
+                    format!("{:?}", rs.watch.drift),
+                    u.watch.drift_snapshot(),
+                )
+            })
+            .collect()
+    }
+
+    /// Restores reactor `id`'s run; false when refused (damaged numbers, unknown id).
+    pub fn restore_drift(&mut self, id: &str, snap: &crate::monitor::watch::DriftSnapshot) -> bool {
+        let settings = Arc::clone(&self.settings);
+        match settings.reactors.iter().position(|r| r.id == id) {
+            Some(r) => self.units[r]
+                .watch
+                .restore_drift(&settings.reactors[r].watch.drift, snap),
+            None => false,
+        }
+    }
+
     /// Topics to subscribe to (inputs and commands), sorted.
     pub fn subscriptions(&self) -> Vec<String> {
         let mut t: Vec<String> = self.routes.keys().cloned().collect();

@@ -23,6 +23,7 @@ pub mod mqtt;
 pub mod outbox;
 pub mod payload;
 pub mod proxy;
+pub mod state;
 pub mod watch_payload;
 
 use std::sync::Arc;
@@ -93,6 +94,8 @@ pub enum JournalCmd {
     },
     /// The evaluator has no more results (shutdown).
     Drained,
+    /// The watch state to save beside the journal (`state.rs`).
+    SaveState(String),
 }
 
 /// Messages from the journal thread to the link.
@@ -125,11 +128,28 @@ async fn evaluate_loop(
     mut rx: mpsc::Receiver<RawInput>,
     journal: mpsc::Sender<JournalCmd>,
     clock: Clock,
+    saved: Option<String>,
 ) {
+    if let Some(text) = saved {
+        match state::apply(&mut engine, &text) {
+            Ok(r) => {
+                if !r.restored.is_empty() {
+                    info!(reactors = ?r.restored, "runs carried over from the saved watch state (baselines, statistics, aggregates)");
+                }
+                for (id, why) in r.skipped {
+                    warn!(reactor = %id, reason = %why, "saved watch state not used: a new run starts");
+                }
+            }
+            Err(e) => {
+                warn!(error = %e, file = state::STATE_FILE, "saved watch state unreadable: every reactor starts a new run")
+            }
+        }
+    }
     let mut batch: Vec<Append> = Vec::new();
     engine.states(clock(), &mut batch);
     let mut tick = tokio::time::interval(Duration::from_secs(1));
     tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+    let mut ticks: u64 = 0;
     loop {
         tokio::select! {
             first = rx.recv() => {
@@ -147,7 +167,14 @@ async fn evaluate_loop(
                     engine.message(&raw, now, &mut batch);
                 }
             }
-            _ = tick.tick() => engine.tick(clock(), &mut batch),
+            _ = tick.tick() => {
+                engine.tick(clock(), &mut batch);
+                ticks += 1;
+                // The run's learned state once a minute (a few KB; the journal thread writes it).
+                if ticks % STATE_SAVE_TICKS == 0 {
+                    let _ = journal.try_send(JournalCmd::SaveState(state::encode(&engine, clock())));
+                }
+            }
         }
         if !batch.is_empty()
             && journal
@@ -158,7 +185,21 @@ async fn evaluate_loop(
             error!("journal thread is gone; results cannot be kept");
         }
     }
+    let _ = journal
+        .send(JournalCmd::SaveState(state::encode(&engine, clock())))
+        .await;
     let _ = journal.send(JournalCmd::Drained).await;
+}
+
+/// Seconds between saves of the watch state.
+const STATE_SAVE_TICKS: u64 = 60;
+
+/// Writes the watch state beside the journal: a temporary file, then a rename, so a
+/// crash leaves the old state or the new one, never half of one.
+fn save_state(path: &std::path::Path, text: &str) -> std::io::Result<()> {
+    let tmp = path.with_extension("json.tmp");
+    std::fs::write(&tmp, text)?;
+    std::fs::rename(&tmp, path)
 }
 
 /// The journal thread: appends, reads back, and keeps the published cursor.
@@ -168,6 +209,7 @@ fn journal_thread(
     to_link: mpsc::Sender<ToLink>,
     metrics: Arc<Metrics>,
     clock: Clock,
+    state_path: std::path::PathBuf,
 ) {
     let update = |j: &Journal| {
         let st = j.stats();
@@ -244,6 +286,12 @@ fn journal_thread(
             JournalCmd::Drained => {
                 let _ = to_link.blocking_send(ToLink::Drained);
             }
+            JournalCmd::SaveState(text) => {
+                if let Err(e) = save_state(&state_path, &text) {
+                    metrics.journal_errors.fetch_add(1, Relaxed);
+                    warn!(error = %e, file = %state_path.display(), "watch state not saved");
+                }
+            }
         }
         update(&j);
     }
@@ -313,12 +361,26 @@ pub async fn run(
     let (to_link, from_journal) = mpsc::channel::<ToLink>(LINK_QUEUE);
     let jm = metrics.clone();
     let jclock = clock.clone();
+    let state_path = settings.journal.dir.join(state::STATE_FILE);
+    let saved = {
+        let p = state_path.clone();
+        tokio::task::spawn_blocking(move || std::fs::read_to_string(p).ok())
+            .await
+            .ok()
+            .flatten()
+    };
     let jthread = std::thread::Builder::new()
         .name("eqwatch-journal".into())
-        .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock))
+        .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock, state_path))
         .map_err(|e| DaemonError::Journal(e.to_string()))?;
     let (in_tx, in_rx) = mpsc::channel::<RawInput>(4096);
-    let evaluator = tokio::spawn(evaluate_loop(engine, in_rx, jtx.clone(), clock.clone()));
+    let evaluator = tokio::spawn(evaluate_loop(
+        engine,
+        in_rx,
+        jtx.clone(),
+        clock.clone(),
+        saved,
+    ));
     metrics.ready.store(true, Relaxed);
     let link = mqtt::Link {
         broker: settings.broker.clone(),

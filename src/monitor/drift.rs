@@ -67,6 +67,19 @@ impl Ewma {
         })
     }
 
+    /// The statistic and the number of samples taken (to save and restore a run).
+    pub fn state(&self) -> (f64, u32) {
+        (self.z, self.n)
+    }
+
+    /// Restores a saved statistic (non-finite values are ignored).
+    pub fn set_state(&mut self, z: f64, n: u32) {
+        if z.is_finite() {
+            self.z = z;
+            self.n = n;
+        }
+    }
+
     pub fn push(&mut self, x: f64) -> EwmaPoint {
         self.n += 1;
         self.z = self.lambda * x + (1.0 - self.lambda) * self.z;
@@ -105,6 +118,18 @@ impl Cusum {
     pub fn push(&mut self, x: f64) -> (f64, bool) {
         self.s = (self.s + x - self.mu0 - self.k).max(0.0);
         (self.s, self.s > self.h)
+    }
+
+    /// The current S⁺.
+    pub fn value(&self) -> f64 {
+        self.s
+    }
+
+    /// Restores a saved S⁺ (negative or non-finite values are ignored).
+    pub fn set_value(&mut self, s: f64) {
+        if s.is_finite() && s >= 0.0 {
+            self.s = s;
+        }
     }
 
     pub fn reset(&mut self) {

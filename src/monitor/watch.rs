@@ -219,6 +219,23 @@ pub struct WatchEvent {
     pub event: Event,
 }
 
+/// What a run has learned, to carry it over a daemon restart (the shell stores it).
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct DriftSnapshot {
+    pub run_start_ms: Option<i64>,
+    pub learn_n: usize,
+    pub learn_mean: f64,
+    pub learn_m2: f64,
+    pub baseline: Option<Baseline>,
+    /// EWMA statistic and sample count.
+    pub ewma: Option<(f64, u32)>,
+    pub cusum: Option<f64>,
+    /// Open aggregate: start, count, sum.
+    pub bucket: Option<(i64, usize, f64)>,
+    /// Closed aggregates: (day since the run start, mean approach K).
+    pub aggregates: Vec<(f64, f64)>,
+}
+
 /// Baseline state.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Baseline {
@@ -871,6 +888,64 @@ impl ReactorWatch {
         self.forecast = Some(self.forecast(s));
     }
 
+    /// The run's learned state (baseline, statistics, aggregates).
+    pub fn drift_snapshot(&self) -> DriftSnapshot {
+        DriftSnapshot {
+            run_start_ms: self.run_start_ms,
+            learn_n: self.learn_n,
+            learn_mean: self.learn_mean,
+            learn_m2: self.learn_m2,
+            baseline: self.baseline,
+            ewma: self.ewma.as_ref().map(Ewma::state),
+            cusum: self.cusum.as_ref().map(Cusum::value),
+            bucket: self.bucket.as_ref().map(|b| (b.start_ms, b.n, b.sum)),
+            aggregates: self.aggregates.clone(),
+        }
+    }
+
+    /// Takes a saved run back (after a restart); the trend and forecast are refitted.
+    /// Refuses a snapshot with non-finite numbers or aggregates out of order.
+    pub fn restore_drift(&mut self, s: &DriftSettings, snap: &DriftSnapshot) -> bool {
+        let finite = snap.learn_mean.is_finite()
+            && snap.learn_m2.is_finite()
+            && snap.baseline.is_none_or(|b| {
+                b.approach_k.is_finite() && b.sigma_k.is_finite() && b.sigma_k > 0.0
+            })
+            && snap
+                .aggregates
+                .iter()
+                .all(|a| a.0.is_finite() && a.1.is_finite())
+            && snap.aggregates.windows(2).all(|w| w[0].0 < w[1].0)
+            && snap.bucket.is_none_or(|b| b.2.is_finite());
+        if !finite {
+            return false;
+        }
+        self.rebaseline();
+        self.run_start_ms = snap.run_start_ms;
+        self.learn_n = snap.learn_n;
+        self.learn_mean = snap.learn_mean;
+        self.learn_m2 = snap.learn_m2;
+        if let Some(b) = snap.baseline {
+            self.set_baseline(s, b.approach_k, b.sigma_k, b.given, b.since_ms);
+            // set_baseline floors a learned σ; the saved one was floored already.
+            self.baseline = Some(b);
+            if let (Some(e), Some((z, n))) = (self.ewma.as_mut(), snap.ewma) {
+                e.set_state(z, n);
+            }
+            if let (Some(c), Some(v)) = (self.cusum.as_mut(), snap.cusum) {
+                c.set_value(v);
+            }
+        }
+        self.bucket = snap
+            .bucket
+            .map(|(start_ms, n, sum)| Bucket { start_ms, n, sum });
+        self.aggregates = snap.aggregates.clone();
+        if let Some(start) = self.run_start_ms {
+            self.refit(s, start);
+        }
+        true
+    }
+
     /// Starts a new run from `now_ms` (catalyst change, reduction, regeneration).
     fn rebaseline(&mut self) {
         self.run_start_ms = None;
@@ -1450,5 +1525,43 @@ mod tests {
         );
         let f = w.figures(&s.drift);
         assert!(f.trend.is_none() && matches!(f.forecast, Forecast::NoTrend));
+    }
+
+    #[test]
+    fn a_saved_run_carries_over_a_restart() {
+        // Invented samples: 20 days rising 0.1 K/d with a daily wobble; save after 12 days,
+        // restore into a fresh watch, and both must give identical figures afterwards.
+        let s = WatchSettings {
+            drift: DriftSettings {
+                baseline: BaselineSpec::Learn {
+                    window_ms: 3 * D,
+                    min_samples: 5,
+                },
+                end_of_run_limit_k: Some(20.0),
+                ..DriftSettings::default()
+            },
+            ..WatchSettings::default()
+        };
+        let v = |h: i64| 8.0 + 0.1 * h as f64 / 24.0 + 0.2 * ((h % 24) as f64 / 24.0 * 6.283).sin();
+        let mut a = ReactorWatch::new(&s).unwrap();
+        for h in 0..(12 * 24) {
+            a.observe(&s, &eval(h * H, Some(v(h)), Quality::Good, None), h * H);
+        }
+        let snap = a.drift_snapshot();
+        assert!(snap.baseline.is_some() && snap.aggregates.len() >= 11);
+        let mut b = ReactorWatch::new(&s).unwrap();
+        assert!(b.restore_drift(&s.drift, &snap));
+        assert_eq!(b.drift_snapshot(), snap);
+        for h in (12 * 24)..(20 * 24) {
+            let (fa, _) = a.observe(&s, &eval(h * H, Some(v(h)), Quality::Good, None), h * H);
+            let (fb, _) = b.observe(&s, &eval(h * H, Some(v(h)), Quality::Good, None), h * H);
+            assert_eq!(fa, fb, "hour {h}");
+        }
+        // A damaged snapshot is refused and leaves the watch as it was.
+        let mut bad = snap.clone();
+        bad.aggregates.push((f64::NAN, 1.0));
+        let before = b.drift_snapshot();
+        assert!(!b.restore_drift(&s.drift, &bad));
+        assert_eq!(b.drift_snapshot(), before);
     }
 }

@@ -322,3 +322,57 @@ fn a_day_of_demo_history_replays_byte_identically_with_plots() {
         }
     }
 }
+
+#[test]
+fn a_daemon_restart_keeps_the_learned_baseline() {
+    let rt = runtime();
+    let broker = Mosquitto::start();
+    let dir = tempfile::tempdir().unwrap();
+    let http = free_port();
+    let config = write_config(dir.path(), broker.port, http);
+    let got = collector(&rt, broker.port, &["eqwatch/test/lts1/result"]);
+    let publish = |p: &Publisher, m: i64, t_c: f64| {
+        let s =
+            |v: f64, u: &str| format!(r#"{{"ts":{},"value":{v},"unit":"{u}"}}"#, ts(m) - 60_000);
+        p.publish(&rt, "t/lts1/ti", &s(t_c, "degC"));
+        p.publish(&rt, "t/lts1/pi", &s(29.0, "barg"));
+        p.publish(&rt, "t/lts1/fy", &s(0.36312, "mol/mol"));
+        let values: Vec<String> = gas(m).iter().map(|(k, v)| format!("\"{k}\":{v}")).collect();
+        p.publish(
+            &rt,
+            "t/lts1/ai",
+            &format!(
+                r#"{{"ts":{},"values":{{{}}},"unit":"mol%"}}"#,
+                ts(m),
+                values.join(",")
+            ),
+        );
+    };
+    let mut d = Daemon::start(&config, http);
+    let p = Publisher::new(&rt, broker.port);
+    std::thread::sleep(Duration::from_millis(700));
+    for (m, t_c) in readings().into_iter().take(6) {
+        publish(&p, m, t_c);
+    }
+    assert!(wait_for(&got, Duration::from_secs(15), |m| m.len() >= 6));
+    let last: Value = serde_json::from_str(&got.lock().unwrap()[5].1).unwrap();
+    assert_eq!(last["drift"]["baseline"], "learned", "{last}");
+    let baseline = last["drift"]["baseline_k"].as_f64().unwrap();
+    d.signal("-TERM");
+    assert_eq!(d.wait_exit(Duration::from_secs(15)), Some(0));
+    let state = std::fs::read_to_string(dir.path().join("journal/watch-state.json")).unwrap();
+    assert!(
+        state.contains("eqwatch.state/1") && state.contains("\"lts1\""),
+        "{state}"
+    );
+
+    // Restarted: the next analysis is judged against the same baseline, not a new run.
+    let _d2 = Daemon::start(&config, http);
+    std::thread::sleep(Duration::from_millis(700));
+    let (m, t_c) = readings()[6];
+    publish(&p, m, t_c);
+    assert!(wait_for(&got, Duration::from_secs(15), |m| m.len() >= 7));
+    let next: Value = serde_json::from_str(&got.lock().unwrap()[6].1).unwrap();
+    assert_eq!(next["drift"]["baseline"], "learned", "{next}");
+    assert_eq!(next["drift"]["baseline_k"].as_f64().unwrap(), baseline);
+}

@@ -1,0 +1,133 @@
+//! The watch state file: what each reactor's run has learned (baseline, EWMA, CUSUM,
+//! aggregates) saved beside the journal, so a daemon restart does not throw away weeks
+//! of baseline and trend. Alarm states are not kept: after a restart an active condition
+//! is raised afresh (README).
+//!
+//! Shape: `{"schema":"eqwatch.state/1","saved_at":...,"reactors":{"<id>":{"settings":
+//! "<drift settings as text>","run_start_ms":...,"learn":[n,mean,m2],"baseline":{...},
+//! "ewma":[z,n],"cusum":s,"bucket":[start_ms,n,sum],"aggregates":[[day,K],...]}}}`.
+//! A reactor whose drift settings changed since the save starts a new run.
+
+use serde_json::{Value, json};
+
+use super::engine::Engine;
+use crate::monitor::watch::{Baseline, DriftSnapshot};
+
+pub const STATE_SCHEMA: &str = "eqwatch.state/1";
+pub const STATE_FILE: &str = "watch-state.json";
+
+/// The state of every reactor as JSON text.
+pub fn encode(engine: &Engine, now_ms: i64) -> String {
+    let mut reactors = serde_json::Map::new();
+    for (id, settings, s) in engine.drift_snapshots() {
+        reactors.insert(
+            id,
+            json!({
+                "settings": settings,
+                "run_start_ms": s.run_start_ms,
+                "learn": [s.learn_n, s.learn_mean, s.learn_m2],
+                "baseline": s.baseline.map(|b| json!({
+                    "approach_k": b.approach_k,
+                    "sigma_k": b.sigma_k,
+                    "given": b.given,
+                    "since_ms": b.since_ms,
+                })),
+                "ewma": s.ewma.map(|(z, n)| json!([z, n])),
+                "cusum": s.cusum,
+                "bucket": s.bucket.map(|(a, n, sum)| json!([a, n, sum])),
+                "aggregates": s.aggregates.iter().map(|(d, v)| json!([d, v])).collect::<Vec<_>>(),
+            }),
+        );
+    }
+    json!({
+        "schema": STATE_SCHEMA,
+        "saved_at": crate::timefmt::format_rfc3339(now_ms),
+        "reactors": reactors,
+    })
+    .to_string()
+}
+
+fn snapshot(v: &Value) -> Option<DriftSnapshot> {
+    let f = |x: &Value| x.as_f64();
+    let learn = v.get("learn")?.as_array()?;
+    let baseline = match v.get("baseline") {
+        None | Some(Value::Null) => None,
+        Some(b) => Some(Baseline {
+            approach_k: f(b.get("approach_k")?)?,
+            sigma_k: f(b.get("sigma_k")?)?,
+            given: b.get("given")?.as_bool()?,
+            since_ms: b.get("since_ms")?.as_i64()?,
+        }),
+    };
+    let pair = |x: Option<&Value>| -> Option<Option<Vec<Value>>> {
+        match x {
+            None | Some(Value::Null) => Some(None),
+            Some(Value::Array(a)) => Some(Some(a.clone())),
+            Some(_) => None,
+        }
+    };
+    let ewma = match pair(v.get("ewma"))? {
+        None => None,
+        Some(a) => Some((f(a.first()?)?, u32::try_from(a.get(1)?.as_u64()?).ok()?)),
+    };
+    let bucket = match pair(v.get("bucket"))? {
+        None => None,
+        Some(a) => Some((
+            a.first()?.as_i64()?,
+            usize::try_from(a.get(1)?.as_u64()?).ok()?,
+            f(a.get(2)?)?,
+        )),
+    };
+    let mut aggregates = Vec::new();
+    for a in v.get("aggregates")?.as_array()? {
+        let a = a.as_array()?;
+        aggregates.push((f(a.first()?)?, f(a.get(1)?)?));
+    }
+    Some(DriftSnapshot {
+        run_start_ms: v.get("run_start_ms").and_then(Value::as_i64),
+        learn_n: usize::try_from(learn.first()?.as_u64()?).ok()?,
+        learn_mean: f(learn.get(1)?)?,
+        learn_m2: f(learn.get(2)?)?,
+        baseline,
+        ewma,
+        cusum: v.get("cusum").and_then(Value::as_f64),
+        bucket,
+        aggregates,
+    })
+}
+
+/// What became of each reactor when a state file was applied.
+#[derive(Debug, Default, PartialEq, Eq)]
+pub struct Restored {
+    pub restored: Vec<String>,
+    /// (reactor, why it starts a new run)
+    pub skipped: Vec<(String, String)>,
+}
+
+/// Applies a saved state; reactors not in the file start a new run.
+pub fn apply(engine: &mut Engine, text: &str) -> Result<Restored, String> {
+    let v: Value = serde_json::from_str(text).map_err(|e| format!("not JSON: {e}"))?;
+    if v.get("schema").and_then(Value::as_str) != Some(STATE_SCHEMA) {
+        return Err(format!("schema is not {STATE_SCHEMA}"));
+    }
+    let reactors = v
+        .get("reactors")
+        .and_then(Value::as_object)
+        .ok_or("no \"reactors\" object")?;
+    let mut out = Restored::default();
+    for (id, settings, _) in engine.drift_snapshots() {
+        let Some(saved) = reactors.get(&id) else {
+            continue;
+        };
+        if saved.get("settings").and_then(Value::as_str) != Some(settings.as_str()) {
+            out.skipped
+                .push((id, "its drift settings changed since the save".into()));
+            continue;
+        }
+        match snapshot(saved) {
+            Some(s) if engine.restore_drift(&id, &s) => out.restored.push(id),
+            _ => out.skipped.push((id, "its saved state is damaged".into())),
+        }
+    }
+    Ok(out)
+}
