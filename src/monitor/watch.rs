@@ -1542,7 +1542,10 @@ mod tests {
             },
             ..WatchSettings::default()
         };
-        let v = |h: i64| 8.0 + 0.1 * h as f64 / 24.0 + 0.2 * ((h % 24) as f64 / 24.0 * 6.283).sin();
+        let v = |h: i64| {
+            8.0 + 0.1 * h as f64 / 24.0
+                + 0.2 * ((h % 24) as f64 / 24.0 * std::f64::consts::TAU).sin()
+        };
         let mut a = ReactorWatch::new(&s).unwrap();
         for h in 0..(12 * 24) {
             a.observe(&s, &eval(h * H, Some(v(h)), Quality::Good, None), h * H);
