@@ -2613,6 +2613,19 @@ pub fn summary(settings: &Settings) -> String {
             "  transient",
             format!("above {} K/min", show_number(r.transient_k_per_min)),
         );
+        for (label, line) in watch::summary_lines(&r.watch) {
+            row(label, line);
+        }
+    }
+    if !s.commands.allowed_users.is_empty() || !s.commands.allowed_clients.is_empty() {
+        row(
+            "commands",
+            format!(
+                "from users [{}], client ids [{}]",
+                s.commands.allowed_users.join(", "),
+                s.commands.allowed_clients.join(", ")
+            ),
+        );
     }
     let mut text = out.join("\n");
     text.push('\n');

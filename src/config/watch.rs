@@ -558,3 +558,102 @@ fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
         rationale: a.rationale.trim().to_string(),
     })
 }
+
+fn days(ms: i64) -> String {
+    show_duration(Duration::from_millis(u64::try_from(ms).unwrap_or(0)))
+}
+
+/// Lines for `eqwatch check`: drift, alerts, alarms, off-line limit.
+pub(super) fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
+    use crate::monitor::watch::BaselineSpec as B;
+    let d = &w.drift;
+    let mut out = Vec::new();
+    let baseline = match d.baseline {
+        B::Learn {
+            window_ms,
+            min_samples,
+        } => format!(
+            "baseline learned over {} (at least {min_samples} samples, σ ≥ {} K)",
+            days(window_ms),
+            d.sigma_floor_k
+        ),
+        B::Given {
+            approach_k,
+            sigma_k,
+        } => format!("baseline given: {approach_k} K, σ {sigma_k} K"),
+    };
+    out.push(("  drift", baseline));
+    out.push((
+        "",
+        format!(
+            "{} trend on {} aggregates ({}+ samples), {}{} aggregates before a trend; end of run {}",
+            d.trend.as_str(),
+            days(d.aggregate_ms),
+            d.min_per_aggregate,
+            d.trend_window_ms
+                .map_or(String::new(), |t| format!("last {}, ", days(t))),
+            d.min_aggregates,
+            d.end_of_run_limit_k
+                .map_or("not set".to_string(), |l| format!("at {l} K")),
+        ),
+    ));
+    let a = &w.alerts;
+    let mut alerts = Vec::new();
+    if let Some(r) = a.trend_above_k_per_day {
+        alerts.push(format!("trend > {r} K/d"));
+    }
+    if let Some(n) = a.end_of_run_within_days {
+        alerts.push(format!("end of run < {n} d"));
+    }
+    if a.cusum {
+        alerts.push("CUSUM".into());
+    }
+    if let Some(t) = a.data_quality_after_ms {
+        alerts.push(format!("no good result for {}", days(t)));
+    }
+    if a.self_monitoring && !w.alarms.is_empty() {
+        alerts.push("chattering and stale alarms".into());
+    }
+    out.push((
+        "  alerts",
+        if alerts.is_empty() {
+            "none".into()
+        } else {
+            alerts.join(", ")
+        },
+    ));
+    for (i, x) in w.alarms.iter().enumerate() {
+        let c = &x.config;
+        let delay = if c.on_delay_samples > 1 {
+            format!(", on-delay {} samples", c.on_delay_samples)
+        } else if c.on_delay_ms > 0 {
+            format!(", on-delay {}", days(c.on_delay_ms))
+        } else {
+            String::new()
+        };
+        out.push((
+            if i == 0 { "  alarms" } else { "" },
+            format!(
+                "{} {} {} {} {} (deadband {} {}{delay}, {} priority)",
+                c.id,
+                match x.figure {
+                    Figure::Approach => "approach",
+                    Figure::KeyMeasured => "key component",
+                },
+                match c.direction {
+                    Direction::High => "above",
+                    Direction::Low => "below",
+                },
+                c.limit,
+                x.unit,
+                c.deadband,
+                x.unit,
+                format!("{:?}", c.priority).to_lowercase()
+            ),
+        ));
+    }
+    if let Some(b) = w.offline_below_bar {
+        out.push(("  off line", format!("below {b:.3} bar abs")));
+    }
+    out
+}
