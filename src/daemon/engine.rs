@@ -265,6 +265,39 @@ impl Engine {
             .collect()
     }
 
+    /// Per reactor: id and its alerts' and alarms' saved states.
+    #[allow(clippy::type_complexity)]
+    pub fn alarm_snapshots(
+        &self,
+    ) -> Vec<(
+        String,
+        Vec<(String, String, crate::monitor::alarm::AlarmSnapshot)>,
+    )> {
+        self.units
+            .iter()
+            .map(|u| {
+                (
+                    self.settings.reactors[u.r].id.clone(),
+                    u.watch.alarm_snapshots(),
+                )
+            })
+            .collect()
+    }
+
+    /// Restores one alert or alarm of reactor `id` (same configuration only).
+    pub fn restore_alarm(
+        &mut self,
+        id: &str,
+        alarm: &str,
+        config: &str,
+        snap: &crate::monitor::alarm::AlarmSnapshot,
+    ) -> bool {
+        match self.settings.reactors.iter().position(|r| r.id == id) {
+            Some(r) => self.units[r].watch.restore_alarm(alarm, config, snap),
+            None => false,
+        }
+    }
+
     /// Restores reactor `id`'s run; false when refused (damaged numbers, unknown id).
     pub fn restore_drift(&mut self, id: &str, snap: &crate::monitor::watch::DriftSnapshot) -> bool {
         let settings = Arc::clone(&self.settings);

@@ -1,7 +1,8 @@
 //! The watch state file: what each reactor's run has learned (baseline, EWMA, CUSUM,
 //! aggregates) saved beside the journal, so a daemon restart does not throw away weeks
-//! of baseline and trend. Alarm states are not kept: after a restart an active condition
-//! is raised afresh (README).
+//! of baseline and trend, and alert and alarm states and modes (shelved with its expiry,
+//! out of service, acknowledged) so a restart neither re-raises nor unshelves anything.
+//! Suppression by design is not kept: the next data decide it again.
 //!
 //! Shape: `{"schema":"eqwatch.state/1","saved_at":...,"reactors":{"<id>":{"settings":
 //! "<drift settings as text>","run_start_ms":...,"learn":[n,mean,m2],"baseline":{...},
@@ -11,7 +12,85 @@
 use serde_json::{Value, json};
 
 use super::engine::Engine;
+use crate::monitor::alarm::{AlarmSnapshot, Mode, State};
 use crate::monitor::watch::{Baseline, DriftSnapshot};
+
+fn state_name(s: State) -> &'static str {
+    match s {
+        State::Normal => "normal",
+        State::Unacknowledged => "unacknowledged",
+        State::Acknowledged => "acknowledged",
+        State::ReturnedUnacknowledged => "returned-unacknowledged",
+        State::Latched => "latched",
+    }
+}
+
+fn state_from(s: &str) -> Option<State> {
+    Some(match s {
+        "normal" => State::Normal,
+        "unacknowledged" => State::Unacknowledged,
+        "acknowledged" => State::Acknowledged,
+        "returned-unacknowledged" => State::ReturnedUnacknowledged,
+        "latched" => State::Latched,
+        _ => return None,
+    })
+}
+
+fn alarm_json(a: &AlarmSnapshot, config: &str) -> Value {
+    let mode = match &a.mode {
+        Mode::Active | Mode::SuppressedByDesign { .. } => json!({"mode": "active"}),
+        Mode::Shelved {
+            until_ms,
+            by,
+            reason,
+        } => json!({"mode": "shelved", "until_ms": until_ms, "by": by, "reason": reason}),
+        Mode::OutOfService { by, reason } => {
+            json!({"mode": "out-of-service", "by": by, "reason": reason})
+        }
+    };
+    json!({
+        "config": config,
+        "state": state_name(a.state),
+        "mode": mode,
+        "raw": a.raw,
+        "condition": a.condition,
+        "acknowledged_ms": a.acknowledged_ms,
+        "last_annunciated_ms": a.last_annunciated_ms,
+        "latest_ms": a.latest_ms,
+        "seq": a.seq,
+    })
+}
+
+fn alarm_from(v: &Value) -> Option<(String, AlarmSnapshot)> {
+    let m = v.get("mode")?;
+    let text = |k: &str| m.get(k).and_then(Value::as_str).map(str::to_string);
+    let mode = match m.get("mode")?.as_str()? {
+        "active" => Mode::Active,
+        "shelved" => Mode::Shelved {
+            until_ms: m.get("until_ms")?.as_i64()?,
+            by: text("by")?,
+            reason: text("reason")?,
+        },
+        "out-of-service" => Mode::OutOfService {
+            by: text("by")?,
+            reason: text("reason")?,
+        },
+        _ => return None,
+    };
+    Some((
+        v.get("config")?.as_str()?.to_string(),
+        AlarmSnapshot {
+            state: state_from(v.get("state")?.as_str()?)?,
+            mode,
+            raw: v.get("raw")?.as_bool()?,
+            condition: v.get("condition")?.as_bool()?,
+            acknowledged_ms: v.get("acknowledged_ms").and_then(Value::as_i64),
+            last_annunciated_ms: v.get("last_annunciated_ms").and_then(Value::as_i64),
+            latest_ms: v.get("latest_ms")?.as_i64()?,
+            seq: v.get("seq")?.as_u64()?,
+        },
+    ))
+}
 
 pub const STATE_SCHEMA: &str = "eqwatch.state/1";
 pub const STATE_FILE: &str = "watch-state.json";
@@ -19,7 +98,12 @@ pub const STATE_FILE: &str = "watch-state.json";
 /// The state of every reactor as JSON text.
 pub fn encode(engine: &Engine, now_ms: i64) -> String {
     let mut reactors = serde_json::Map::new();
-    for (id, settings, s) in engine.drift_snapshots() {
+    let alarms = engine.alarm_snapshots();
+    for ((id, settings, s), (_, al)) in engine.drift_snapshots().into_iter().zip(alarms) {
+        let alarms: serde_json::Map<String, Value> = al
+            .iter()
+            .map(|(aid, cfg, a)| (aid.clone(), alarm_json(a, cfg)))
+            .collect();
         reactors.insert(
             id,
             json!({
@@ -36,6 +120,7 @@ pub fn encode(engine: &Engine, now_ms: i64) -> String {
                 "cusum": s.cusum,
                 "bucket": s.bucket.map(|(a, n, sum)| json!([a, n, sum])),
                 "aggregates": s.aggregates.iter().map(|(d, v)| json!([d, v])).collect::<Vec<_>>(),
+                "alarms": alarms,
             }),
         );
     }
@@ -100,6 +185,8 @@ fn snapshot(v: &Value) -> Option<DriftSnapshot> {
 #[derive(Debug, Default, PartialEq, Eq)]
 pub struct Restored {
     pub restored: Vec<String>,
+    /// `<reactor>/<alarm>` whose state was taken back.
+    pub alarms: Vec<String>,
     /// (reactor, why it starts a new run)
     pub skipped: Vec<(String, String)>,
 }
@@ -119,6 +206,16 @@ pub fn apply(engine: &mut Engine, text: &str) -> Result<Restored, String> {
         let Some(saved) = reactors.get(&id) else {
             continue;
         };
+        // Alerts and alarms: each one whose configuration is unchanged.
+        if let Some(al) = saved.get("alarms").and_then(Value::as_object) {
+            for (aid, v) in al {
+                if let Some((cfg, snap)) = alarm_from(v) {
+                    if engine.restore_alarm(&id, aid, &cfg, &snap) {
+                        out.alarms.push(format!("{id}/{aid}"));
+                    }
+                }
+            }
+        }
         if saved.get("settings").and_then(Value::as_str) != Some(settings.as_str()) {
             out.skipped
                 .push((id, "its drift settings changed since the save".into()));

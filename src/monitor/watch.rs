@@ -946,6 +946,44 @@ impl ReactorWatch {
         true
     }
 
+    /// Per alert and alarm: id, its configuration as text (to notice a change), its state.
+    pub fn alarm_snapshots(&self) -> Vec<(String, String, super::alarm::AlarmSnapshot)> {
+        self.watched
+            .iter()
+            .map(|w| {
+                (
+                    w.alarm.config().id.clone(),
+                    format!("{:?}", w.alarm.config()),
+                    w.alarm.snapshot(),
+                )
+            })
+            .collect()
+    }
+
+    /// Takes back a saved alarm state if the id exists with the same configuration.
+    pub fn restore_alarm(
+        &mut self,
+        id: &str,
+        config: &str,
+        snap: &super::alarm::AlarmSnapshot,
+    ) -> bool {
+        let Some(w) = self.watched.iter_mut().find(|w| w.alarm.config().id == id) else {
+            return false;
+        };
+        // Suppression by design is re-derived from the next data, never carried over.
+        let mut snap = snap.clone();
+        if matches!(snap.mode, super::alarm::Mode::SuppressedByDesign { .. }) {
+            snap.mode = super::alarm::Mode::Active;
+        }
+        if format!("{:?}", w.alarm.config()) != config || !w.alarm.restore(&snap) {
+            return false;
+        }
+        if w.alarm.condition() && w.alarm.annunciating() {
+            w.active_since_ms = w.alarm.last_annunciated_ms();
+        }
+        true
+    }
+
     /// Starts a new run from `now_ms` (catalyst change, reduction, regeneration).
     fn rebaseline(&mut self) {
         self.run_start_ms = None;

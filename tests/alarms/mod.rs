@@ -113,7 +113,7 @@ fn commands_need_an_allowed_user_and_change_the_retained_state() {
     let http = free_port();
     let config = write_config(dir.path(), broker.port, http);
     let got = collector(&rt, broker.port, &["eqwatch/test/#"]);
-    let _d = Daemon::start(&config, http);
+    let mut d = Daemon::start(&config, http);
     let p = Publisher::new(&rt, broker.port);
     assert!(wait_for(&got, Duration::from_secs(10), |m| m.iter().any(
         |(t, pl, _)| t == "eqwatch/test/status" && pl.contains("online")
@@ -214,5 +214,49 @@ fn commands_need_an_allowed_user_and_change_the_retained_state() {
     assert!(
         journal.contains("\\\"r3\\\"") || journal.contains("\"r3\""),
         "outcome r3 not journaled"
+    );
+
+    // A restart keeps the shelf (and who and why): the first state published after it is
+    // still shelved, and the still-active condition raises nothing.
+    d.signal("-TERM");
+    assert_eq!(d.wait_exit(Duration::from_secs(15)), Some(0));
+    let seen = got.lock().unwrap().len();
+    let _d2 = Daemon::start(&config, http);
+    assert!(wait_for(&got, Duration::from_secs(10), |m| m[seen..]
+        .iter()
+        .any(|(t, _, _)| t == "eqwatch/test/lts1/alarms")));
+    let after: Vec<Value> = got.lock().unwrap()[seen..]
+        .iter()
+        .filter(|(t, _, _)| t == "eqwatch/test/lts1/alarms")
+        .filter_map(|(_, p, _)| serde_json::from_str(p).ok())
+        .collect();
+    assert_eq!(
+        alarm_state(&after[0]),
+        ("acknowledged".to_string(), "shelved".to_string()),
+        "{}",
+        after[0]
+    );
+    assert!(after[0].to_string().contains("catalyst sampling"));
+    let s5 = |v: f64, u: &str| format!(r#"{{"ts":{},"value":{v},"unit":"{u}"}}"#, ts(5) - 60_000);
+    p.publish(&rt, "t/lts1/ti", &s5(220.0, "degC"));
+    p.publish(&rt, "t/lts1/pi", &s5(29.0, "barg"));
+    p.publish(&rt, "t/lts1/fy", &s5(0.36312, "mol/mol"));
+    p.publish(
+        &rt,
+        "t/lts1/ai",
+        &format!(
+            r#"{{"ts":{},"values":{{"H2":61.0536,"N2":18.98637,"CO":0.28797,"CO2":19.37996,"CH4":0.2921}},"unit":"mol%"}}"#,
+            ts(5)
+        ),
+    );
+    assert!(wait_for(&got, Duration::from_secs(10), |m| m[seen..]
+        .iter()
+        .any(|(t, _, _)| t == "eqwatch/test/lts1/result")));
+    std::thread::sleep(Duration::from_millis(300));
+    assert!(
+        !got.lock().unwrap()[seen..]
+            .iter()
+            .any(|(t, pl, _)| t == "eqwatch/test/lts1/alarm" && pl.contains("\"raised\"")),
+        "a shelved alarm was raised after the restart"
     );
 }
