@@ -280,10 +280,6 @@ fn parse_time(text: &str) -> Option<i64> {
     parse_rfc3339(t)
 }
 
-fn parse_quality(text: &str) -> Option<SourceQuality> {
-    SourceQuality::parse(text)
-}
-
 /// Counts at the end of a replay.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
 pub struct Summary {
@@ -394,10 +390,6 @@ impl Replay {
         } else {
             None
         }
-    }
-
-    pub fn settings(&self) -> &Settings {
-        &self.settings
     }
 
     /// Runs the CSV from `input`, writing each record as one JSON line
@@ -732,11 +724,11 @@ fn read_rows(
                     }
                     None => bad = not_number(),
                 },
-                Column::ScalarQuality { reactor, kind } => match parse_quality(cell) {
+                Column::ScalarQuality { reactor, kind } => match SourceQuality::parse(cell) {
                     Some(q) => s_quality.push((reactor, kind, q)),
                     None => bad = not_quality(),
                 },
-                Column::AnalyserQuality { reactor } => match parse_quality(cell) {
+                Column::AnalyserQuality { reactor } => match SourceQuality::parse(cell) {
                     Some(q) => a_quality[reactor] = q,
                     None => bad = not_quality(),
                 },

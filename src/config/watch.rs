@@ -119,12 +119,14 @@ fn ms(d: Duration) -> i64 {
     i64::try_from(d.as_millis()).unwrap_or(i64::MAX)
 }
 
-/// A temperature difference in K (`"20 K"`; `degC` and `delta degC` are the same size).
+/// A temperature difference in K (`"20 K"`; a `degC` is the same size, a `degF` 5/9 of it).
 fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
-    match split_quantity("temperature difference", text) {
-        Ok((v, "K" | "degC" | "°C" | "C")) => Some(v),
-        Ok((v, "degF" | "°F" | "F")) => Some(v / 1.8),
-        Ok(_) | Err(_) => {
+    match split_quantity("temperature difference", text)
+        .ok()
+        .and_then(|(v, u)| super::kelvin_per_degree(u).map(|k| v * k))
+    {
+        Some(v) => Some(v),
+        None => {
             p.add(
                 path,
                 format!("\"{text}\" is not a temperature difference; write e.g. \"20 K\""),

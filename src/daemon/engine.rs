@@ -226,10 +226,6 @@ impl Engine {
         })
     }
 
-    pub fn settings(&self) -> &Settings {
-        &self.settings
-    }
-
     /// Keep a trace per reactor for plots.
     pub fn enable_trace(&mut self) {
         for u in &mut self.units {
@@ -404,38 +400,16 @@ impl Plant {
         }
         for e in &ev {
             warn!(event = ?e.kind, rate = self.watch.rate(), "alarm flood alert");
-            let payload = serde_json::json!({
-                "schema": wp::EVENT_SCHEMA,
-                "id": format!("plant/{}@{}", e.id, e.at_ms),
-                "class": "alert",
-                "alarm": "flood",
-                "event": match e.kind { EventKind::Raised => "raised", EventKind::Cleared => "cleared", _ => "other" },
-                "at": crate::timefmt::format_rfc3339(e.at_ms),
-                "state": self.watch.flood.state().as_str(),
-                "value": self.watch.rate(),
-                "limit": 10,
-                "unit": "alarms per 10 min",
-                "description": "alarm flood: more than 10 operator alarms in 10 minutes (EEMUA 191 / ISA-18.2 performance figure)",
-            })
-            .to_string();
             out.push(Append {
                 topic: self.alert_topic.clone(),
                 retain: false,
-                payload,
+                payload: wp::encode_flood_event(&self.watch, e),
             });
         }
-        let state = serde_json::json!({
-            "schema": wp::STATES_SCHEMA,
-            "at": crate::timefmt::format_rfc3339(now_ms),
-            "alarms_last_10min": self.watch.rate(),
-            "flood": self.watch.flood.state().as_str(),
-            "floods": self.watch.floods,
-        })
-        .to_string();
         out.push(Append {
             topic: self.alarms_topic.clone(),
             retain: true,
-            payload: state,
+            payload: wp::encode_plant_states(&self.watch, now_ms),
         });
     }
 }

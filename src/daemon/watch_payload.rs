@@ -18,8 +18,8 @@ use serde::Serialize;
 use serde_json::Value;
 
 use super::payload::{finite, finite_opt};
-use crate::monitor::alarm::{Direction, EventKind, Mode, Priority};
-use crate::monitor::watch::{Action, DriftFigures, Forecast, ReactorWatch, WatchEvent};
+use crate::monitor::alarm::{Direction, Event, EventKind, Mode, Priority};
+use crate::monitor::watch::{Action, DriftFigures, Forecast, PlantWatch, ReactorWatch, WatchEvent};
 use crate::timefmt::format_rfc3339;
 
 pub const EVENT_SCHEMA: &str = "eqwatch.event/1";
@@ -225,6 +225,36 @@ pub fn encode_event(reactor: &str, w: &ReactorWatch, e: &WatchEvent) -> String {
         auto,
     };
     serde_json::to_string(&out).unwrap_or_else(|_| "{}".into())
+}
+
+/// The plant-wide flood alert event (`<prefix>/alert`).
+pub fn encode_flood_event(w: &PlantWatch, e: &Event) -> String {
+    serde_json::json!({
+        "schema": EVENT_SCHEMA,
+        "id": format!("plant/{}@{}", e.id, e.at_ms),
+        "class": "alert",
+        "alarm": "flood",
+        "event": event_name(&e.kind),
+        "at": format_rfc3339(e.at_ms),
+        "state": w.flood.state().as_str(),
+        "value": w.rate(),
+        "limit": 10,
+        "unit": "alarms per 10 min",
+        "description": "alarm flood: more than 10 operator alarms in 10 minutes (EEMUA 191 / ISA-18.2 performance figure)",
+    })
+    .to_string()
+}
+
+/// The plant-wide retained state (`<prefix>/alarms`).
+pub fn encode_plant_states(w: &PlantWatch, at_ms: i64) -> String {
+    serde_json::json!({
+        "schema": STATES_SCHEMA,
+        "at": format_rfc3339(at_ms),
+        "alarms_last_10min": w.rate(),
+        "flood": w.flood.state().as_str(),
+        "floods": w.floods,
+    })
+    .to_string()
 }
 
 #[derive(Serialize)]

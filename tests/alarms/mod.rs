@@ -13,46 +13,12 @@ use crate::support::*;
 /// §8 LTS gas read at 220 °C is 12.00 K from equilibrium (Moe 1962 K; DOMAIN §8), so the
 /// first analysis raises it.
 fn write_config(dir: &Path, port: u16, http_port: u16) -> PathBuf {
-    let text = format!(
+    write_lts_plant(
+        dir,
+        port,
+        http_port,
+        "alarm",
         r#"
-site = "test"
-[broker]
-url = "mqtt://127.0.0.1:{port}"
-client_id = "eqwatch-alarm-{http_port}"
-keep_alive = "5 s"
-reconnect_min = "100 ms"
-reconnect_max = "1 s"
-[journal]
-dir = "journal"
-fsync_interval = "100 ms"
-[http]
-listen = "127.0.0.1:{http_port}"
-
-[reactors.lts1]
-name = "LTS"
-reactions = [{{ equation = "CO + H2O = CO2 + H2", k_source = "moe-1962" }}]
-[reactors.lts1.composition]
-tag = "AI-3"
-topic = "t/lts1/ai"
-unit = "mol%"
-basis = "dry"
-components = ["H2", "N2", "CO", "CO2", "CH4"]
-lag = "60 s"
-max_age = "3650 d"
-[[reactors.lts1.temperature]]
-tag = "TI-3"
-topic = "t/lts1/ti"
-unit = "degC"
-max_age = "5 min"
-[reactors.lts1.pressure]
-tag = "PI-3"
-topic = "t/lts1/pi"
-unit = "barg"
-max_age = "1 h"
-[reactors.lts1.steam_ratio]
-tag = "FY-3"
-topic = "t/lts1/fy"
-max_age = "1 h"
 [[reactors.lts1.alarm]]
 id = "approach-high"
 on = "approach"
@@ -63,16 +29,8 @@ rationale = "Invented for the test: the LTS is far from equilibrium; check the c
 
 [commands]
 allowed_users = ["op1"]
-"#
-    );
-    let path = dir.join("plant.toml");
-    std::fs::write(&path, text).expect("write config");
-    path
-}
-
-fn ts(minutes: i64) -> i64 {
-    // 2026-12-01T00:00:00Z (POSIX `date -u -d 2026-12-01 +%s`) plus minutes.
-    1_796_083_200_000 + minutes * 60_000
+"#,
+    )
 }
 
 fn states(got: &Received) -> Vec<Value> {

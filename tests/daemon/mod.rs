@@ -104,13 +104,6 @@ max_age = "1 h"
     path
 }
 
-/// Epoch ms of the test's readings: 2026-12-01T00:00:00Z plus minutes. Fixed instants keep
-/// the expected timestamps readable; the analysis max age in the test plant is long enough
-/// (10 years) that they do not turn stale as the calendar moves on.
-fn ts(minutes: i64) -> i64 {
-    1_796_083_200_000 + minutes * 60_000
-}
-
 fn scalar(t: i64, v: f64, unit: &str) -> String {
     format!(r#"{{"ts":{t},"value":{v},"unit":"{unit}","quality":"good"}}"#)
 }

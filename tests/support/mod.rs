@@ -281,3 +281,61 @@ pub fn runtime() -> tokio::runtime::Runtime {
         .build()
         .expect("tokio runtime")
 }
+
+/// Epoch ms of the tests' readings: 2026-12-01T00:00:00Z (POSIX `date -u -d 2026-12-01 +%s`)
+/// plus minutes. Fixed instants keep expected timestamps readable; the test plants' analysis
+/// max age (10 years) keeps them from turning stale as the calendar moves on.
+pub fn ts(minutes: i64) -> i64 {
+    1_796_083_200_000 + minutes * 60_000
+}
+
+/// Writes `plant.toml` into `dir`: one invented low-temperature shift converter (dry
+/// analysis with a measured steam ratio, Moe 1962 K) on the broker at `port`, followed by
+/// `extra` (more tables for `lts1`, `[commands]`, ...).
+pub fn write_lts_plant(dir: &Path, port: u16, http_port: u16, name: &str, extra: &str) -> PathBuf {
+    let text = format!(
+        r#"
+site = "test"
+[broker]
+url = "mqtt://127.0.0.1:{port}"
+client_id = "eqwatch-{name}-{http_port}"
+keep_alive = "5 s"
+reconnect_min = "100 ms"
+reconnect_max = "1 s"
+[journal]
+dir = "journal"
+fsync_interval = "100 ms"
+[http]
+listen = "127.0.0.1:{http_port}"
+
+[reactors.lts1]
+name = "LTS"
+reactions = [{{ equation = "CO + H2O = CO2 + H2", k_source = "moe-1962" }}]
+[reactors.lts1.composition]
+tag = "AI-3"
+topic = "t/lts1/ai"
+unit = "mol%"
+basis = "dry"
+components = ["H2", "N2", "CO", "CO2", "CH4"]
+lag = "60 s"
+max_age = "3650 d"
+[[reactors.lts1.temperature]]
+tag = "TI-3"
+topic = "t/lts1/ti"
+unit = "degC"
+max_age = "5 min"
+[reactors.lts1.pressure]
+tag = "PI-3"
+topic = "t/lts1/pi"
+unit = "barg"
+max_age = "1 h"
+[reactors.lts1.steam_ratio]
+tag = "FY-3"
+topic = "t/lts1/fy"
+max_age = "1 h"
+{extra}"#
+    );
+    let path = dir.join("plant.toml");
+    std::fs::write(&path, text).expect("write config");
+    path
+}
