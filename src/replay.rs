@@ -922,16 +922,7 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
                 ) => MarkerKind::Operator,
                 _ => return None,
             };
-            let what = match &e.kind {
-                EventKind::Raised => "raised",
-                EventKind::Realarmed => "re-alarmed",
-                EventKind::Cleared => "cleared",
-                EventKind::Acknowledged { .. } => "acknowledged",
-                EventKind::Shelved { .. } => "shelved",
-                EventKind::OutOfService { .. } => "out of service",
-                EventKind::ReturnedToService { .. } => "returned to service",
-                _ => "",
-            };
+            let what = crate::daemon::watch_payload::event_name(&e.kind);
             Some(Marker {
                 t_ms: e.t_ms,
                 kind,

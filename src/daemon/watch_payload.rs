@@ -131,7 +131,8 @@ fn priority(p: Priority) -> &'static str {
     }
 }
 
-fn event_name(k: &EventKind) -> &'static str {
+/// The event's name on the wire (`raised`, `cleared`, `out-of-service`, ...).
+pub fn event_name(k: &EventKind) -> &'static str {
     match k {
         EventKind::Raised => "raised",
         EventKind::Cleared => "cleared",
