@@ -830,6 +830,23 @@ fn decimate(samples: &[Px], area: Area) -> Vec<Px> {
         .collect()
 }
 
+/// The min–max envelope of a decimated series (per pixel column), as one path.
+fn envelope(out: &mut String, series: &[Px], colour: &str, fill_opacity: &str) {
+    let (env, bars) = band_path(series, |q| q.y.and(q.env));
+    let d = [env, bars]
+        .into_iter()
+        .filter(|s| !s.is_empty())
+        .collect::<Vec<_>>()
+        .join(" ");
+    if !d.is_empty() {
+        w!(
+            out,
+            "<path class=\"envelope\" d=\"{d}\" fill=\"{colour}\" fill-opacity=\"{fill_opacity}\" \
+             stroke=\"{colour}\" stroke-opacity=\"0.3\" stroke-width=\"1\"/>"
+        );
+    }
+}
+
 /// Polyline through the valid samples, one sub-path per run; also the isolated points (runs
 /// of one sample), which a line cannot show.
 fn line_path(s: &[Px]) -> (String, Vec<(f64, f64)>) {
@@ -1786,19 +1803,7 @@ fn approach_chart(
     // Approach line (with envelope when decimated).
     w!(out, "<g id=\"approach\" {clip}>");
     if decimated {
-        let (env, env_bars) = band_path(&series, |q| q.y.and(q.env));
-        if !env.is_empty() || !env_bars.is_empty() {
-            let d = [env, env_bars]
-                .into_iter()
-                .filter(|s| !s.is_empty())
-                .collect::<Vec<_>>()
-                .join(" ");
-            w!(
-                out,
-                "<path class=\"envelope\" d=\"{d}\" fill=\"{C_APPROACH}\" fill-opacity=\"0.18\" \
-                 stroke=\"{C_APPROACH}\" stroke-opacity=\"0.3\" stroke-width=\"1\"/>"
-            );
-        }
+        envelope(out, &series, C_APPROACH, "0.18");
     }
     let (line, isolated) = line_path(&series);
     if !line.is_empty() {
@@ -2213,19 +2218,7 @@ fn key_chart(out: &mut String, pts: &[&PlotPoint], key: &str, ta: &TimeAxis, are
                 let (series, decimated) = drawable(samples, area);
                 w!(out, "<g id=\"{id}\" clip-path=\"url(#clip-key)\">");
                 if decimated {
-                    let (env, bars) = band_path(&series, |q| q.y.and(q.env));
-                    let d = [env, bars]
-                        .into_iter()
-                        .filter(|s| !s.is_empty())
-                        .collect::<Vec<_>>()
-                        .join(" ");
-                    if !d.is_empty() {
-                        w!(
-                            out,
-                            "<path class=\"envelope\" d=\"{d}\" fill=\"{colour}\" fill-opacity=\"0.15\" \
-                             stroke=\"{colour}\" stroke-opacity=\"0.3\" stroke-width=\"1\"/>"
-                        );
-                    }
+                    envelope(out, &series, colour, "0.15");
                 }
                 let (line, isolated) = line_path(&series);
                 if !line.is_empty() {
@@ -2512,19 +2505,7 @@ fn overview_panel(
     }
     w!(out, "</g><g class=\"approach\" {clip}>");
     if decimated {
-        let (env, bars) = band_path(&series, |q| q.y.and(q.env));
-        let d = [env, bars]
-            .into_iter()
-            .filter(|s| !s.is_empty())
-            .collect::<Vec<_>>()
-            .join(" ");
-        if !d.is_empty() {
-            w!(
-                out,
-                "<path class=\"envelope\" d=\"{d}\" fill=\"{C_APPROACH}\" fill-opacity=\"0.18\" \
-                 stroke=\"{C_APPROACH}\" stroke-opacity=\"0.3\" stroke-width=\"1\"/>"
-            );
-        }
+        envelope(out, &series, C_APPROACH, "0.18");
     }
     let (line, isolated) = line_path(&series);
     if !line.is_empty() {
