@@ -8,10 +8,13 @@
 //! seen is treated as that latest time, so timers never run backwards.
 //!
 //! # Semantics chosen here
-//! - Raw condition with deadband: High is set when `value > limit` and cleared only
-//!   when `value < limit − deadband` (Low mirrored); inside the deadband it keeps its
-//!   previous value. Missing data (`None`) and non-finite values are bad data: they never
-//!   change the condition and they break the continuity of a pending on/off delay.
+//! - Raw condition with deadband: while the alarm is not raised, a sample is in alarm
+//!   only when `value > limit` (High; Low mirrored), so the on-delay counts only samples
+//!   past the limit and a raised event's value is always past its limit; once raised, a
+//!   sample counts as clear only when `value < limit − deadband`, so the deadband (and
+//!   the off-delay) govern the clear (ISA-18.2 terms; DOMAIN §10). Missing data (`None`)
+//!   and non-finite values are bad data: they never change the condition and they break
+//!   the continuity of a pending on/off delay.
 //! - On-delay / off-delay: the raw condition must differ from the debounced condition
 //!   for at least the delay in ms and the delay in samples (the first differing sample
 //!   counts as one, so 0 and 1 samples both mean "no sample delay").
@@ -655,14 +658,17 @@ impl Alarm {
         }
     }
 
+    /// The raw condition of one sample. Before the alarm is raised only a value past the
+    /// limit counts (so the on-delay counts samples in alarm); once raised, it stays on
+    /// until the value is back past the limit by the deadband (so the off-delay counts
+    /// samples clear of the deadband).
     fn raw_condition(&self, v: f64) -> bool {
         let (limit, db) = (self.config.limit, self.config.deadband);
-        match self.config.direction {
-            Direction::High if v > limit => true,
-            Direction::High if v < limit - db => false,
-            Direction::Low if v < limit => true,
-            Direction::Low if v > limit + db => false,
-            _ => self.raw,
+        match (self.config.direction, self.condition) {
+            (Direction::High, false) => v > limit,
+            (Direction::High, true) => v >= limit - db,
+            (Direction::Low, false) => v < limit,
+            (Direction::Low, true) => v <= limit + db,
         }
     }
 
@@ -917,6 +923,30 @@ mod tests {
                 (62_000, Step::Ack, &["acknowledged"], A, true),
                 (70_000, Step::V(5.0), &["cleared"], N, false),
                 (200_000, Step::V(5.0), &[], N, false),
+            ],
+        );
+    }
+
+    #[test]
+    fn on_delay_counts_only_samples_past_the_limit() {
+        // The reported fault: limit 20 K, deadband 1 K, on-delay 2 samples; 20.5 then 19.44
+        // (inside the deadband) raised with value 19.44. Now the sample inside the deadband
+        // breaks the count, and the raise waits for two samples past the limit.
+        let c = AlarmConfig {
+            limit: 20.0,
+            deadband: 1.0,
+            on_delay_samples: 2,
+            ..cfg()
+        };
+        check(
+            c,
+            &[
+                (1, Step::V(20.5), &[], N, false),
+                (2, Step::V(19.44), &[], N, false), // inside the deadband: not past the limit
+                (3, Step::V(20.3), &[], N, false),
+                (4, Step::V(20.2), &["raised"], U, true),
+                (5, Step::V(19.44), &[], U, true), // inside the deadband: stays raised
+                (6, Step::V(18.9), &["cleared"], R, true),
             ],
         );
     }
@@ -1255,6 +1285,46 @@ mod tests {
                     let (since, n) = run.unwrap_or((t, 0));
                     prop_assert!(t - since >= delay_ms, "raised after {} ms", t - since);
                     prop_assert!(n >= delay_samples, "raised after {} samples", n);
+                }
+            }
+        }
+
+        /// A raise (or re-raise) only ever happens on a sample past the limit, and every
+        /// sample the on-delay counted was past the limit too, for any delay and deadband
+        /// (ISA-18.2: the on-delay counts samples in alarm; the deadband only governs the
+        /// clear; DOMAIN §10, common practice).
+        #[test]
+        fn raised_value_is_always_past_the_limit(
+            steps in values(),
+            delay_ms in 0i64..60_000,
+            delay_samples in 0u32..6,
+            db in 0.0f64..4.0,
+            low in any::<bool>(),
+        ) {
+            let direction = if low { Direction::Low } else { Direction::High };
+            let c = AlarmConfig {
+                on_delay_ms: delay_ms,
+                on_delay_samples: delay_samples,
+                deadband: db,
+                direction,
+                ..cfg()
+            };
+            let past = |v: f64| if low { v < 10.0 } else { v > 10.0 };
+            let mut a = Alarm::new(c).expect("valid");
+            // Consecutive good samples past the limit, and since when.
+            let mut run: Option<(i64, u32)> = None;
+            for (t, v) in timed(&steps) {
+                run = match v {
+                    Some(x) if past(x) => run.map(|(s, n)| (s, n + 1)).or(Some((t, 1))),
+                    _ => None,
+                };
+                let ev = a.update(v, t);
+                if ev.iter().any(|e| e.kind == EventKind::Raised) {
+                    let x = v.expect("a raise needs a value");
+                    prop_assert!(past(x), "raised on {} (limit 10, deadband {})", x, db);
+                    let (since, n) = run.expect("a run past the limit");
+                    prop_assert!(t - since >= delay_ms, "raised after {} ms past the limit", t - since);
+                    prop_assert!(n >= delay_samples.max(1), "raised after {} samples past the limit", n);
                 }
             }
         }
