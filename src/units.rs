@@ -300,6 +300,38 @@ impl CompositionUnit {
     }
 }
 
+/// A number for a person: at most `sig` significant digits, trailing zeros dropped, no
+/// exponent between 1e-4 and 1e9 (`0.20833333333333334` with 3 → `0.208`, `5.0` → `5`).
+pub fn fmt_num(v: f64, sig: u32) -> String {
+    if !v.is_finite() {
+        return if v.is_nan() {
+            "—".into()
+        } else if v > 0.0 {
+            "∞".into()
+        } else {
+            "−∞".into()
+        };
+    }
+    if v == 0.0 {
+        return "0".into();
+    }
+    let mag = v.abs().log10().floor() as i32;
+    if !(-4..9).contains(&mag) {
+        return format!("{:.*e}", sig.saturating_sub(1) as usize, v);
+    }
+    let decimals = (sig as i32 - 1 - mag).max(0) as usize;
+    let mut t = format!("{v:.decimals$}");
+    if t.contains('.') {
+        while t.ends_with('0') {
+            t.pop();
+        }
+        if t.ends_with('.') {
+            t.pop();
+        }
+    }
+    if t == "-0" { "0".into() } else { t }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -420,5 +452,23 @@ mod tests {
         );
         assert!(CompositionUnit::parse("mol-%").is_err());
         assert_eq!(CompositionUnit::Ppm.fraction_per_unit(), 1e-6);
+    }
+
+    #[test]
+    fn numbers_for_people() {
+        // Formatting rules of this project [common practice for displayed figures].
+        for (v, sig, want) in [
+            (0.20833333333333334, 3, "0.208"),
+            (5.0, 3, "5"),
+            (20.0, 3, "20"),
+            (19.44, 3, "19.4"),
+            (1234.5678, 3, "1235"),
+            (-2.75, 2, "-2.8"),
+            (0.000012, 2, "1.2e-5"),
+            (0.0, 3, "0"),
+            (-0.0001, 1, "-0.0001"),
+        ] {
+            assert_eq!(fmt_num(v, sig), want, "{v} to {sig}");
+        }
     }
 }

@@ -26,6 +26,8 @@ pub struct RawDrift {
     pub ewma_l: Option<f64>,
     pub cusum_k: Option<f64>,
     pub cusum_h: Option<f64>,
+    /// Smallest level shift that counts as a step, e.g. `"3 K"` (default: h in K).
+    pub step: Option<String>,
     /// `"least-squares"` (default) or `"theil-sen"`.
     pub trend: Option<String>,
     pub aggregate: Option<String>,
@@ -264,6 +266,13 @@ pub(super) fn watch(
                     sigma_k: sg,
                 };
             }
+        }
+    }
+    if let Some(t) = &raw.step {
+        match kelvin(p, &format!("{dp}.step"), t) {
+            Some(v) if v > 0.0 => d.step_min_k = Some(v),
+            Some(v) => p.add(format!("{dp}.step"), format!("{v} K must be above zero")),
+            None => {}
         }
     }
     if let Some(t) = &raw.sigma_floor {

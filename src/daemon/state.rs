@@ -6,14 +6,17 @@
 //!
 //! Shape: `{"schema":"eqwatch.state/1","saved_at":...,"reactors":{"<id>":{"settings":
 //! "<drift settings as text>","run_start_ms":...,"learn":[n,mean,m2],"baseline":{...},
-//! "ewma":[z,n],"cusum":s,"bucket":[start_ms,n,sum],"aggregates":[[day,K],...]}}}`.
+//! "ewma":[z,n],"cusum":{"reference_k","upper":[s,n,sum,since_ms],"lower":[...]},"step":
+//! [since_ms,from_k,to_k,samples,detected_ms],"step_reference_k","segment":[n,sum],
+//! "bucket":[start_ms,n,sum],"aggregates":[[day,K],...]}}}`.
 //! A reactor whose drift settings changed since the save starts a new run.
 
 use serde_json::{Value, json};
 
 use super::engine::Engine;
 use crate::monitor::alarm::{AlarmSnapshot, Mode, State};
-use crate::monitor::watch::{Baseline, DriftSnapshot};
+use crate::monitor::drift::{CusumSide, CusumState, Shift};
+use crate::monitor::watch::{Baseline, DriftSnapshot, Step};
 
 fn state_name(s: State) -> &'static str {
     match s {
@@ -117,7 +120,16 @@ pub fn encode(engine: &Engine, now_ms: i64) -> String {
                     "since_ms": b.since_ms,
                 })),
                 "ewma": s.ewma.map(|(z, n)| json!([z, n])),
-                "cusum": s.cusum,
+                "cusum": s.cusum.map(|c| json!({
+                    "reference_k": c.reference_k,
+                    "upper": side_json(&c.upper),
+                    "lower": side_json(&c.lower),
+                })),
+                "step": s.step.map(|st| json!([
+                    st.shift.since_ms, st.shift.from_k, st.shift.to_k, st.shift.samples, st.detected_ms
+                ])),
+                "step_reference_k": s.step_reference_k,
+                "segment": [s.segment.0, s.segment.1],
                 "bucket": s.bucket.map(|(a, n, sum)| json!([a, n, sum])),
                 "aggregates": s.aggregates.iter().map(|(d, v)| json!([d, v])).collect::<Vec<_>>(),
                 "alarms": alarms,
@@ -130,6 +142,20 @@ pub fn encode(engine: &Engine, now_ms: i64) -> String {
         "reactors": reactors,
     })
     .to_string()
+}
+
+fn side_json(s: &CusumSide) -> Value {
+    json!([s.s, s.n, s.sum, s.since_ms])
+}
+
+fn side_from(v: &Value) -> Option<CusumSide> {
+    let a = v.as_array()?;
+    Some(CusumSide {
+        s: a.first()?.as_f64()?,
+        n: u32::try_from(a.get(1)?.as_u64()?).ok()?,
+        sum: a.get(2)?.as_f64()?,
+        since_ms: a.get(3)?.as_i64()?,
+    })
 }
 
 fn snapshot(v: &Value) -> Option<DriftSnapshot> {
@@ -163,6 +189,30 @@ fn snapshot(v: &Value) -> Option<DriftSnapshot> {
             f(a.get(2)?)?,
         )),
     };
+    let cusum = match v.get("cusum") {
+        None | Some(Value::Null) => None,
+        Some(c) => Some(CusumState {
+            reference_k: f(c.get("reference_k")?)?,
+            upper: side_from(c.get("upper")?)?,
+            lower: side_from(c.get("lower")?)?,
+        }),
+    };
+    let step = match pair(v.get("step"))? {
+        None => None,
+        Some(a) => Some(Step {
+            shift: Shift {
+                since_ms: a.first()?.as_i64()?,
+                from_k: f(a.get(1)?)?,
+                to_k: f(a.get(2)?)?,
+                samples: u32::try_from(a.get(3)?.as_u64()?).ok()?,
+            },
+            detected_ms: a.get(4)?.as_i64()?,
+        }),
+    };
+    let segment = match pair(v.get("segment"))? {
+        None => (0, 0.0),
+        Some(a) => (u32::try_from(a.first()?.as_u64()?).ok()?, f(a.get(1)?)?),
+    };
     let mut aggregates = Vec::new();
     for a in v.get("aggregates")?.as_array()? {
         let a = a.as_array()?;
@@ -175,7 +225,10 @@ fn snapshot(v: &Value) -> Option<DriftSnapshot> {
         learn_m2: f(learn.get(2)?)?,
         baseline,
         ewma,
-        cusum: v.get("cusum").and_then(Value::as_f64),
+        cusum,
+        step,
+        step_reference_k: v.get("step_reference_k").and_then(Value::as_f64),
+        segment,
         bucket,
         aggregates,
     })
@@ -206,7 +259,21 @@ pub fn apply(engine: &mut Engine, text: &str) -> Result<Restored, String> {
         let Some(saved) = reactors.get(&id) else {
             continue;
         };
-        // Alerts and alarms: each one whose configuration is unchanged.
+        // The run first (an alert's limit can be learned with the baseline), then the
+        // alerts and alarms, each one whose configuration is unchanged.
+        if saved.get("settings").and_then(Value::as_str) != Some(settings.as_str()) {
+            out.skipped.push((
+                id.clone(),
+                "its drift settings changed since the save".into(),
+            ));
+        } else {
+            match snapshot(saved) {
+                Some(s) if engine.restore_drift(&id, &s) => out.restored.push(id.clone()),
+                _ => out
+                    .skipped
+                    .push((id.clone(), "its saved state is damaged".into())),
+            }
+        }
         if let Some(al) = saved.get("alarms").and_then(Value::as_object) {
             for (aid, v) in al {
                 if let Some((cfg, snap)) = alarm_from(v) {
@@ -215,15 +282,6 @@ pub fn apply(engine: &mut Engine, text: &str) -> Result<Restored, String> {
                     }
                 }
             }
-        }
-        if saved.get("settings").and_then(Value::as_str) != Some(settings.as_str()) {
-            out.skipped
-                .push((id, "its drift settings changed since the save".into()));
-            continue;
-        }
-        match snapshot(saved) {
-            Some(s) if engine.restore_drift(&id, &s) => out.restored.push(id),
-            _ => out.skipped.push((id, "its saved state is damaged".into())),
         }
     }
     Ok(out)

@@ -39,6 +39,15 @@ pub struct EndOfRunOut {
 }
 
 #[derive(Serialize)]
+pub struct StepOut {
+    /// Estimated change point, when the CUSUM found it, and the levels either side (K).
+    since: String,
+    detected: String,
+    from_k: Option<f64>,
+    to_k: Option<f64>,
+}
+
+#[derive(Serialize)]
 pub struct DriftOut {
     included: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -51,9 +60,17 @@ pub struct DriftOut {
     ewma_upper_k: Option<f64>,
     ewma_lower_k: Option<f64>,
     ewma_signal: bool,
+    /// Upper (S⁺) and lower (S⁻) CUSUM statistics, K; decision interval h, K.
     cusum_k: Option<f64>,
+    cusum_lower_k: Option<f64>,
     cusum_h_k: Option<f64>,
+    cusum_reference_k: Option<f64>,
     cusum_signal: bool,
+    step_min_k: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    step: Option<StepOut>,
+    standing_step_k: Option<f64>,
+    trend_since: Option<String>,
     trend_method: Option<&'static str>,
     trend_k_per_day: Option<f64>,
     trend_interval_k_per_day: Option<[Option<f64>; 2]>,
@@ -98,8 +115,23 @@ impl From<&DriftFigures> for DriftOut {
             ewma_lower_k: f.ewma.and_then(|e| finite(e.lower)),
             ewma_signal: f.ewma.is_some_and(|e| e.signal),
             cusum_k: finite_opt(f.cusum_k),
+            cusum_lower_k: finite_opt(f.cusum_lower_k),
             cusum_h_k: finite_opt(f.cusum_h_k),
+            cusum_reference_k: finite_opt(f.cusum_reference_k),
             cusum_signal: f.cusum_signal,
+            step_min_k: finite_opt(f.step_min_k),
+            step: f.step.map(|st| StepOut {
+                since: format_rfc3339(st.shift.since_ms),
+                detected: format_rfc3339(st.detected_ms),
+                from_k: finite(st.shift.from_k),
+                to_k: finite(st.shift.to_k),
+            }),
+            standing_step_k: finite_opt(f.standing_step_k),
+            trend_since: f
+                .step
+                .map(|st| st.shift.since_ms)
+                .or(f.baseline.map(|b| b.since_ms))
+                .map(format_rfc3339),
             trend_method: t.map(|t| t.method.as_str()),
             trend_k_per_day: t.and_then(|t| finite(t.slope_k_per_day)),
             trend_interval_k_per_day: t.map(|t| {

@@ -278,6 +278,10 @@ pub struct Alarm {
     last_annunciated_ms: Option<i64>,
     latest_ms: i64,
     seq: u64,
+    /// The state and acknowledgement time when suppression by design began, kept while
+    /// the condition does not change, so the return does not raise again what the
+    /// operator had already seen.
+    kept: Option<(State, Option<i64>)>,
 }
 
 impl Alarm {
@@ -294,7 +298,19 @@ impl Alarm {
             last_annunciated_ms: None,
             latest_ms: i64::MIN,
             seq: 0,
+            kept: None,
         })
+    }
+
+    /// Moves the limit and deadband (for an alert whose limit is learned with the run's
+    /// baseline); refuses non-finite or negative values.
+    pub fn set_limit(&mut self, limit: f64, deadband: f64) -> bool {
+        if !(limit.is_finite() && deadband.is_finite() && deadband >= 0.0) {
+            return false;
+        }
+        self.config.limit = limit;
+        self.config.deadband = deadband;
+        true
     }
 
     pub fn config(&self) -> &AlarmConfig {
@@ -520,6 +536,7 @@ impl Alarm {
         let now = self.peek(now_ms);
         self.require_active(now)?;
         let mut ev = self.begin(now);
+        self.kept = Some((self.state, self.acknowledged_ms));
         self.mode = Mode::SuppressedByDesign {
             reason: reason.into(),
         };
@@ -541,7 +558,15 @@ impl Alarm {
         let mut ev = self.begin(now);
         self.mode = Mode::Active;
         self.emit(&mut ev, now, EventKind::Unsuppressed);
-        self.rederive(now, &mut ev);
+        match self.kept.take() {
+            // The condition did not change while suppressed: the state before it stands
+            // (an alarm raised before is not raised again; an acknowledged one stays so).
+            Some((state, acked)) => {
+                self.state = state;
+                self.acknowledged_ms = acked;
+            }
+            None => self.rederive(now, &mut ev),
+        }
         Ok(ev)
     }
 
@@ -675,6 +700,7 @@ impl Alarm {
     fn set_condition(&mut self, on: bool, now: i64, ev: &mut Vec<Event>) {
         self.condition = on;
         if self.mode != Mode::Active {
+            self.kept = None;
             if on {
                 self.state = State::Unacknowledged;
             } else if self.state != State::Latched {

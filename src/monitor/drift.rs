@@ -1,5 +1,6 @@
-//! Drift statistics of the approach: EWMA with its control limits, a one-sided CUSUM
-//! against a baseline, and a linear end-of-run forecast with a prediction interval.
+//! Drift statistics of the approach: EWMA with its control limits, a two-sided tabular
+//! CUSUM that finds level shifts (steps) and restarts after each, and a linear end-of-run
+//! forecast with a prediction interval.
 //! Pure: samples and times are passed in. (The alert and alarm layers that use these
 //! figures live in `watch.rs`.)
 //!
@@ -8,7 +9,10 @@
 //!   Technometrics 1 (1959) 239: z_i = λx_i + (1−λ)z_{i−1}, limits
 //!   μ0 ± Lσ √(λ/(2−λ) (1 − (1−λ)^{2i})).
 //! - E. S. Page, "Continuous inspection schemes", Biometrika 41 (1954) 100:
-//!   S_i = max(0, S_{i−1} + x_i − μ0 − k), signal when S_i > h.
+//!   S_i = max(0, S_{i−1} + x_i − μ0 − k), signal when S_i > h; the change point is
+//!   estimated as the first sample since S last was 0 (D. C. Montgomery, Introduction to
+//!   Statistical Quality Control, 6th ed., §9.1, "tabular CUSUM"), and the scheme is
+//!   restarted after a signal.
 //! - Ordinary least squares prediction interval: ŷ ± t_{n−2} s √(1 + 1/n + (x−x̄)²/Sxx),
 //!   e.g. D. C. Montgomery, E. A. Peck, Introduction to Linear Regression Analysis, §2.4.
 //! - Theil–Sen: H. Theil (1950), P. K. Sen, "Estimates of the regression coefficient based
@@ -97,43 +101,147 @@ impl Ewma {
     }
 }
 
-/// Upper one-sided CUSUM (a rising approach is the concern).
-#[derive(Debug, Clone, PartialEq)]
+/// One side of the tabular CUSUM: the statistic and the samples since it last was 0.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct CusumSide {
+    /// S (K): S⁺ for the upper side, S⁻ for the lower side, both ≥ 0.
+    pub s: f64,
+    /// Samples since the statistic last was 0, their sum, and the first one's time.
+    pub n: u32,
+    pub sum: f64,
+    pub since_ms: i64,
+}
+
+impl CusumSide {
+    /// Adds `step` (x − ref − k for the upper side, ref − k − x for the lower one).
+    fn push(&mut self, step: f64, x: f64, t: i64) {
+        let s = self.s + step;
+        if s > 0.0 {
+            if self.n == 0 {
+                self.since_ms = t;
+            }
+            self.s = s;
+            self.n = self.n.saturating_add(1);
+            self.sum += x;
+        } else {
+            *self = Self::default();
+        }
+    }
+}
+
+/// A level shift the CUSUM found: from the reference level to the mean of the samples
+/// since the signalling statistic last was zero (Page's estimate of the change point).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Shift {
+    /// Estimated time of the change (the first sample of the run that signalled).
+    pub since_ms: i64,
+    pub from_k: f64,
+    pub to_k: f64,
+    /// Samples the estimate `to_k` rests on.
+    pub samples: u32,
+}
+
+/// What one CUSUM step gives.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CusumPoint {
+    pub upper_k: f64,
+    pub lower_k: f64,
+    pub shift: Option<Shift>,
+}
+
+/// Two-sided tabular CUSUM (Page 1954) used as a level-shift detector.
+///
+/// S⁺ = max(0, S⁺ + x − ref − k), S⁻ = max(0, S⁻ + ref − k − x), both in the unit of x
+/// (K). A signal (S > h) reports a [`Shift`] and restarts the scheme, as the standard
+/// tabular CUSUM does once a signal is acted on: both statistics go back to 0 and the
+/// reference moves to the new level. So S stays bounded under a permanent step (at most h
+/// plus one sample's excursion) and a permanent step signals once, not forever.
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Cusum {
-    mu0: f64,
+    reference: f64,
     k: f64,
     h: f64,
-    s: f64,
+    upper: CusumSide,
+    lower: CusumSide,
+}
+
+/// A CUSUM's saved state.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CusumState {
+    pub reference_k: f64,
+    pub upper: CusumSide,
+    pub lower: CusumSide,
 }
 
 impl Cusum {
-    pub fn new(mu0: f64, k: f64, h: f64) -> Result<Self, DriftError> {
-        if !(k >= 0.0 && h > 0.0 && k.is_finite() && h.is_finite() && mu0.is_finite()) {
+    pub fn new(reference: f64, k: f64, h: f64) -> Result<Self, DriftError> {
+        if !(k >= 0.0 && h > 0.0 && k.is_finite() && h.is_finite() && reference.is_finite()) {
             return Err(DriftError::Parameter);
         }
-        Ok(Self { mu0, k, h, s: 0.0 })
+        Ok(Self {
+            reference,
+            k,
+            h,
+            upper: CusumSide::default(),
+            lower: CusumSide::default(),
+        })
     }
 
-    /// Adds a sample; returns (S⁺, signal).
-    pub fn push(&mut self, x: f64) -> (f64, bool) {
-        self.s = (self.s + x - self.mu0 - self.k).max(0.0);
-        (self.s, self.s > self.h)
-    }
-
-    /// The current S⁺.
-    pub fn value(&self) -> f64 {
-        self.s
-    }
-
-    /// Restores a saved S⁺ (negative or non-finite values are ignored).
-    pub fn set_value(&mut self, s: f64) {
-        if s.is_finite() && s >= 0.0 {
-            self.s = s;
+    /// Adds a sample taken at `t_ms`.
+    pub fn push(&mut self, x: f64, t_ms: i64) -> CusumPoint {
+        self.upper.push(x - self.reference - self.k, x, t_ms);
+        self.lower.push(self.reference - self.k - x, x, t_ms);
+        let (upper_k, lower_k) = (self.upper.s, self.lower.s);
+        let side = if upper_k > self.h && upper_k >= lower_k {
+            Some(self.upper)
+        } else if lower_k > self.h {
+            Some(self.lower)
+        } else {
+            None
+        };
+        let shift = side.filter(|s| s.n > 0).map(|s| {
+            let to = s.sum / f64::from(s.n);
+            let shift = Shift {
+                since_ms: s.since_ms,
+                from_k: self.reference,
+                to_k: to,
+                samples: s.n,
+            };
+            self.reference = to;
+            self.upper = CusumSide::default();
+            self.lower = CusumSide::default();
+            shift
+        });
+        CusumPoint {
+            upper_k,
+            lower_k,
+            shift,
         }
     }
 
-    pub fn reset(&mut self) {
-        self.s = 0.0;
+    /// The reference level the statistics are taken against (K).
+    pub fn reference(&self) -> f64 {
+        self.reference
+    }
+
+    pub fn state(&self) -> CusumState {
+        CusumState {
+            reference_k: self.reference,
+            upper: self.upper,
+            lower: self.lower,
+        }
+    }
+
+    /// Restores a saved state; refuses (false) non-finite or negative statistics.
+    pub fn set_state(&mut self, st: &CusumState) -> bool {
+        let ok = |s: &CusumSide| s.s.is_finite() && s.s >= 0.0 && s.sum.is_finite();
+        if !(st.reference_k.is_finite() && ok(&st.upper) && ok(&st.lower)) {
+            return false;
+        }
+        self.reference = st.reference_k;
+        self.upper = st.upper;
+        self.lower = st.lower;
+        true
     }
 }
 
@@ -346,11 +454,65 @@ mod tests {
     fn cusum_first_signal_at_sample_14() {
         // k = 0.5, h = 5 on the same series → first signal at sample 14 (DOMAIN §7 [derived]).
         let mut c = Cusum::new(10.0, 0.5, 5.0).unwrap();
-        let first = series()
+        let points: Vec<CusumPoint> = series()
             .into_iter()
-            .position(|x| c.push(x).1)
-            .map(|i| i + 1);
+            .enumerate()
+            .map(|(i, x)| c.push(x, i as i64 + 1))
+            .collect();
+        let first = points.iter().position(|p| p.shift.is_some()).map(|i| i + 1);
         assert_eq!(first, Some(14));
+        // Page's change-point estimate [derived by hand from the recursion]: S⁺ left 0 at
+        // sample 11 (1.5, 3.0, 4.5, 6.0 > 5), so the shift is from 10 to mean(12 × 4) = 12.
+        let shift = points[13].shift.unwrap();
+        assert_eq!(shift.since_ms, 11);
+        assert_eq!((shift.from_k, shift.to_k, shift.samples), (10.0, 12.0, 4));
+        // Restarted against the new level: the rest of the step signals nothing more.
+        assert!(
+            points[14..]
+                .iter()
+                .all(|p| p.shift.is_none() && p.upper_k == 0.0)
+        );
+        assert_eq!(c.reference(), 12.0);
+    }
+
+    #[test]
+    fn cusum_finds_a_step_down_too() {
+        // Mirror of the check above: ten 12.0 then ten 10.0 against 12 [derived].
+        let mut c = Cusum::new(12.0, 0.5, 5.0).unwrap();
+        let xs = std::iter::repeat_n(12.0, 10).chain(std::iter::repeat_n(10.0, 10));
+        let shifts: Vec<(usize, Shift)> = xs
+            .enumerate()
+            .filter_map(|(i, x)| c.push(x, i as i64 + 1).shift.map(|s| (i + 1, s)))
+            .collect();
+        assert_eq!(shifts.len(), 1);
+        assert_eq!(shifts[0].0, 14);
+        assert_eq!((shifts[0].1.from_k, shifts[0].1.to_k), (12.0, 10.0));
+    }
+
+    proptest::proptest! {
+        /// Under a permanent step of any size with noise, the statistics stay bounded by
+        /// h plus one sample's excursion, and a step well past h signals once.
+        #[test]
+        fn cusum_is_bounded_under_a_permanent_step(
+            step in 3.0f64..200.0,
+            noise in proptest::collection::vec(-0.3f64..0.3, 400),
+        ) {
+            let (k, h) = (0.5, 5.0);
+            let mut c = Cusum::new(0.0, k, h).unwrap();
+            let mut signals = 0;
+            for (i, e) in noise.iter().enumerate() {
+                let x = if i < 50 { *e } else { step + e };
+                let before = c.reference();
+                let p = c.push(x, i as i64);
+                // Without the restart S⁺ would pass 50 000 K here.
+                let bound = h + (x - before).abs();
+                proptest::prop_assert!(p.upper_k <= bound && p.lower_k <= bound);
+                if p.shift.is_some() {
+                    signals += 1;
+                }
+            }
+            proptest::prop_assert_eq!(signals, 1);
+        }
     }
 
     #[test]

@@ -27,11 +27,13 @@
 use std::collections::VecDeque;
 
 use super::alarm::{Alarm, AlarmConfig, AlarmError, Direction, Event, EventKind, Priority};
-use super::drift::{Cusum, EndOfRun, Ewma, EwmaPoint, Trend};
+use super::drift::{Cusum, CusumPoint, CusumState, EndOfRun, Ewma, EwmaPoint, Shift, Trend};
 use super::{Evaluation, Quality};
+use crate::units::fmt_num;
 
 const DAY_MS: f64 = 86_400_000.0;
 const MINUTE_MS: i64 = 60_000;
+const OFFLINE_REASON: &str = "unit off line";
 
 /// How the trend line is fitted.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -74,6 +76,9 @@ pub struct DriftSettings {
     /// CUSUM reference value and decision interval, in baseline σ.
     pub cusum_k_sigma: f64,
     pub cusum_h_sigma: f64,
+    /// A level shift at least this large (K) is a step: the trend and the end-of-run
+    /// forecast start again after it, and the `cusum` alert watches it. None: h (in K).
+    pub step_min_k: Option<f64>,
     pub trend: TrendMethod,
     /// Steady-state aggregate period (ms): one trend point per period.
     pub aggregate_ms: i64,
@@ -100,6 +105,7 @@ impl Default for DriftSettings {
             ewma_l: 3.0,
             cusum_k_sigma: 0.5,
             cusum_h_sigma: 5.0,
+            step_min_k: None,
             trend: TrendMethod::LeastSquares,
             aggregate_ms: 86_400_000,
             min_per_aggregate: 6,
@@ -204,6 +210,8 @@ enum Source {
     EndOfRun,
     Cusum,
     DataQuality,
+    /// The unit's pressure against `offline_below` (one state change per trip).
+    Offline,
     /// Chattering of the alarm at this index.
     Chatter(usize),
     /// Stale alarm at this index.
@@ -229,11 +237,24 @@ pub struct DriftSnapshot {
     pub baseline: Option<Baseline>,
     /// EWMA statistic and sample count.
     pub ewma: Option<(f64, u32)>,
-    pub cusum: Option<f64>,
+    pub cusum: Option<CusumState>,
+    /// The last step and the level before a standing upward one.
+    pub step: Option<Step>,
+    pub step_reference_k: Option<f64>,
+    /// Samples since the last step: count and sum (K).
+    pub segment: (u32, f64),
     /// Open aggregate: start, count, sum.
     pub bucket: Option<(i64, usize, f64)>,
     /// Closed aggregates: (day since the run start, mean approach K).
     pub aggregates: Vec<(f64, f64)>,
+}
+
+/// A level shift of at least the step size (see [`DriftSettings::step_min_k`]).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Step {
+    pub shift: Shift,
+    /// When the CUSUM signalled it.
+    pub detected_ms: i64,
 }
 
 /// Baseline state.
@@ -289,9 +310,19 @@ pub struct DriftFigures {
     pub learning: bool,
     pub baseline: Option<Baseline>,
     pub ewma: Option<EwmaPoint>,
+    /// Upper and lower CUSUM statistics (K) and the decision interval h (K).
     pub cusum_k: Option<f64>,
+    pub cusum_lower_k: Option<f64>,
     pub cusum_h_k: Option<f64>,
+    /// The level the CUSUM is taken against (the baseline, then the level after a shift).
+    pub cusum_reference_k: Option<f64>,
+    /// A shift was found at this sample.
     pub cusum_signal: bool,
+    /// The last step (a shift of at least `step_min_k`), and its size threshold (K).
+    pub step: Option<Step>,
+    pub step_min_k: Option<f64>,
+    /// How far the level stands above the level before the last upward step (K).
+    pub standing_step_k: Option<f64>,
     pub trend: Option<TrendFigures>,
     pub forecast: Forecast,
     pub limit_k: Option<f64>,
@@ -360,7 +391,12 @@ pub struct ReactorWatch {
     ewma: Option<Ewma>,
     last_ewma: Option<EwmaPoint>,
     cusum: Option<Cusum>,
-    cusum_last: Option<(f64, bool)>,
+    cusum_last: Option<CusumPoint>,
+    /// The last step, the level before a standing upward step, and the running mean of
+    /// the samples since the last step (count, sum).
+    step: Option<Step>,
+    step_reference_k: Option<f64>,
+    segment: (u32, f64),
     bucket: Option<Bucket>,
     /// (day since run start at the bucket middle, mean approach, bucket start ms)
     aggregates: Vec<(f64, f64)>,
@@ -371,6 +407,10 @@ pub struct ReactorWatch {
     last_good_ms: Option<i64>,
     started_ms: Option<i64>,
     offline: bool,
+    /// When the unit went off line, and the off-line time since the last good result
+    /// (it does not count toward the data-quality timer).
+    offline_since_ms: Option<i64>,
+    paused_ms: i64,
     analysis_bad: Option<String>,
     excluded: u64,
 }
@@ -426,7 +466,7 @@ impl ReactorWatch {
                 Class::Alert,
                 alert_config("trend", rate, Direction::High, 0.2 * rate.abs()),
                 "K/d",
-                format!("approach rising faster than {rate} K/d"),
+                format!("approach rising faster than {} K/d", fmt_num(rate, 3)),
                 Source::Trend,
             )?;
         }
@@ -435,21 +475,23 @@ impl ReactorWatch {
                 Class::Alert,
                 alert_config("end-of-run", days, Direction::Low, 0.1 * days),
                 "d",
-                format!("end of run ({limit} K) forecast within {days} d"),
+                format!(
+                    "end of run ({} K) forecast within {} d",
+                    fmt_num(limit, 3),
+                    fmt_num(days, 3)
+                ),
                 Source::EndOfRun,
             )?;
         }
         if al.cusum {
-            // S⁺/h: raised above 1 for an hour, cleared below 0.5 for six hours, so a
-            // process wandering around the decision interval does not chatter.
-            let mut c = alert_config("cusum", 1.0, Direction::High, 0.5);
-            c.on_delay_ms = 3_600_000;
-            c.off_delay_ms = 6 * 3_600_000;
+            // The standing upward step (K) against the step size; the limit is the
+            // configured step size, or h (5σ by default) once the baseline is known.
+            let limit = s.drift.step_min_k.unwrap_or(f64::MAX);
             add(
                 Class::Alert,
-                c,
-                "h",
-                "CUSUM of the approach above its decision interval h: a sustained rise against the baseline".into(),
+                alert_config("cusum", limit, Direction::High, 0.25 * limit.min(1e300)),
+                "K",
+                "approach stepped up against its level before the step (two-sided CUSUM level-shift test, Page 1954)".into(),
                 Source::Cusum,
             )?;
         }
@@ -459,8 +501,24 @@ impl ReactorWatch {
                 Class::Alert,
                 alert_config("data-quality", min, Direction::High, 0.0),
                 "min",
-                format!("no good result for more than {min} min"),
+                format!(
+                    "no good on-line result for more than {} min",
+                    fmt_num(min, 3)
+                ),
                 Source::DataQuality,
+            )?;
+        }
+        if let Some(limit) = s.offline_below_bar {
+            // One alert per trip and return; it is never suppressed itself.
+            add(
+                Class::Alert,
+                alert_config("off-line", limit, Direction::Low, 0.0),
+                "bar",
+                format!(
+                    "unit off line (pressure below {} bar abs): alerts and alarms suppressed by design, statistics paused",
+                    fmt_num(limit, 3)
+                ),
+                Source::Offline,
             )?;
         }
         if al.self_monitoring {
@@ -493,6 +551,9 @@ impl ReactorWatch {
             last_ewma: None,
             cusum: None,
             cusum_last: None,
+            step: None,
+            step_reference_k: None,
+            segment: (0, 0.0),
             bucket: None,
             aggregates: Vec::new(),
             trend: None,
@@ -501,6 +562,8 @@ impl ReactorWatch {
             last_good_ms: None,
             started_ms: None,
             offline: false,
+            offline_since_ms: None,
+            paused_ms: 0,
             analysis_bad: None,
             excluded: 0,
         })
@@ -522,9 +585,14 @@ impl ReactorWatch {
             learning: self.baseline.is_none(),
             baseline: self.baseline,
             ewma: self.last_ewma,
-            cusum_k: self.cusum_last.map(|c| c.0),
+            cusum_k: self.cusum_last.map(|c| c.upper_k),
+            cusum_lower_k: self.cusum_last.map(|c| c.lower_k),
             cusum_h_k: self.baseline.map(|b| s.cusum_h_sigma * b.sigma_k),
-            cusum_signal: self.cusum_last.is_some_and(|c| c.1),
+            cusum_reference_k: self.cusum.as_ref().map(Cusum::reference),
+            cusum_signal: self.cusum_last.is_some_and(|c| c.shift.is_some()),
+            step: self.step,
+            step_min_k: self.step_min_k(s),
+            standing_step_k: self.standing_step_k(),
             trend: self.trend,
             forecast: self.forecast.unwrap_or(if s.end_of_run_limit_k.is_none() {
                 Forecast::NoLimit
@@ -581,12 +649,24 @@ impl ReactorWatch {
         if !bar.is_finite() {
             return Vec::new();
         }
+        let mut out = Vec::new();
+        if let Some(i) = self
+            .watched
+            .iter()
+            .position(|w| w.figure == Source::Offline)
+        {
+            self.update_one(i, Some(bar), now_ms, &mut out);
+        }
         let off = bar < limit;
         if off == self.offline {
-            return Vec::new();
+            return out;
         }
         self.offline = off;
-        let mut out = Vec::new();
+        if off {
+            self.offline_since_ms = Some(now_ms);
+        } else if let Some(since) = self.offline_since_ms.take() {
+            self.paused_ms = self.paused_ms.saturating_add((now_ms - since).max(0));
+        }
         self.apply_suppression(now_ms, &mut out);
         out
     }
@@ -630,6 +710,7 @@ impl ReactorWatch {
         }
         if e.quality == Quality::Good {
             self.last_good_ms = Some(t.max(self.last_good_ms.unwrap_or(i64::MIN)));
+            self.paused_ms = 0;
         }
         if let (None, Some(x)) = (excluded, approach) {
             self.sample(&s.drift, t, x);
@@ -669,13 +750,12 @@ impl ReactorWatch {
                     if !usable {
                         continue;
                     }
-                    Some(match (fig.cusum_k, fig.cusum_h_k) {
-                        (Some(c), Some(h)) if h > 0.0 => c / h,
-                        _ => 0.0,
-                    })
+                    Some(fig.standing_step_k.unwrap_or(0.0))
                 }
-                // Time-based ones are fed by `tick`.
-                Source::DataQuality | Source::Chatter(_) | Source::Stale(_) => continue,
+                // Time-based ones are fed by `tick`; the off-line one by `pressure`.
+                Source::DataQuality | Source::Chatter(_) | Source::Stale(_) | Source::Offline => {
+                    continue;
+                }
             };
             self.update_one(i, v, now_ms, &mut out);
         }
@@ -701,7 +781,10 @@ impl ReactorWatch {
                     let Some(since) = self.last_good_ms.or(self.started_ms) else {
                         continue;
                     };
-                    Some((now_ms - since).max(0) as f64 / MINUTE_MS as f64)
+                    // On-line time only: the time off line is taken out.
+                    let off = self.offline_since_ms.map_or(0, |t| (now_ms - t).max(0));
+                    let on_line = now_ms - since - self.paused_ms - off;
+                    Some(on_line.max(0) as f64 / MINUTE_MS as f64)
                 }
                 Source::Chatter(j) => {
                     let w = &mut self.watched[j];
@@ -757,10 +840,21 @@ impl ReactorWatch {
     }
 
     /// Enters or leaves suppression by design after the analysis or the unit changed.
+    /// A trip or return is told once, by the `off-line` alert: the alarms enter and leave
+    /// suppression silently (their states stay in the retained state); suppression for a
+    /// bad analysis is an event per operator alarm.
     fn apply_suppression(&mut self, now_ms: i64, out: &mut Vec<WatchEvent>) {
+        let has_offline_alert = self.watched.iter().any(|w| w.figure == Source::Offline);
         for i in 0..self.watched.len() {
+            if self.watched[i].figure == Source::Offline {
+                continue;
+            }
+            let silent = has_offline_alert
+                && (self.offline
+                    || matches!(self.watched[i].alarm.mode(),
+                        super::alarm::Mode::SuppressedByDesign { reason } if reason == OFFLINE_REASON));
             let reason = if self.offline {
-                Some("unit off line".to_string())
+                Some(OFFLINE_REASON.to_string())
             } else if self.watched[i].class == Class::Alarm {
                 self.analysis_bad.clone()
             } else {
@@ -774,6 +868,18 @@ impl ReactorWatch {
                 }
                 (None, true) => a.unsuppress(now_ms).unwrap_or_default(),
                 _ => Vec::new(),
+            };
+            let ev = if silent {
+                ev.into_iter()
+                    .filter(|e| {
+                        !matches!(
+                            e.kind,
+                            EventKind::Suppressed { .. } | EventKind::Unsuppressed
+                        )
+                    })
+                    .collect()
+            } else {
+                ev
             };
             self.push_events(i, ev, out);
         }
@@ -810,7 +916,14 @@ impl ReactorWatch {
         }
         if let (Some(ewma), Some(cusum)) = (&mut self.ewma, &mut self.cusum) {
             self.last_ewma = Some(ewma.push(x));
-            self.cusum_last = Some(cusum.push(x));
+            let point = cusum.push(x, t);
+            self.cusum_last = Some(point);
+            self.segment = (self.segment.0.saturating_add(1), self.segment.1 + x);
+            if let (Some(shift), Some(min)) = (point.shift, self.step_min_k(s)) {
+                if (shift.to_k - shift.from_k).abs() >= min {
+                    self.new_step(s, shift, t, min, start);
+                }
+            }
         }
         // Steady-state aggregates of the run (the learning window included).
         let period = s.aggregate_ms.max(1);
@@ -837,6 +950,39 @@ impl ReactorWatch {
         }
     }
 
+    /// The step size (K): configured, or h in K once the baseline is known.
+    fn step_min_k(&self, s: &DriftSettings) -> Option<f64> {
+        s.step_min_k
+            .or_else(|| self.baseline.map(|b| s.cusum_h_sigma * b.sigma_k))
+    }
+
+    /// The level since the last step minus the level before a standing upward step.
+    fn standing_step_k(&self) -> Option<f64> {
+        let (n, sum) = self.segment;
+        let r = self.step_reference_k?;
+        (n > 0).then(|| sum / f64::from(n) - r)
+    }
+
+    /// A step: the trend and forecast start again from the change point, and the level
+    /// before an upward step is kept until the level comes back down to it.
+    fn new_step(&mut self, s: &DriftSettings, shift: Shift, t: i64, min: f64, start: i64) {
+        self.step = Some(Step {
+            shift,
+            detected_ms: t,
+        });
+        if shift.to_k > shift.from_k {
+            self.step_reference_k.get_or_insert(shift.from_k);
+        }
+        if self
+            .step_reference_k
+            .is_some_and(|r| shift.to_k - r < 0.25 * min)
+        {
+            self.step_reference_k = None;
+        }
+        self.segment = (shift.samples, shift.to_k * f64::from(shift.samples));
+        self.refit(s, start);
+    }
+
     fn set_baseline(&mut self, s: &DriftSettings, mean: f64, sd: f64, given: bool, start: i64) {
         let sigma = if given { sd } else { sd.max(s.sigma_floor_k) };
         self.baseline = Some(Baseline {
@@ -847,6 +993,14 @@ impl ReactorWatch {
         });
         self.ewma = Ewma::new(mean, sigma, s.ewma_lambda, s.ewma_l).ok();
         self.cusum = Cusum::new(mean, s.cusum_k_sigma * sigma, s.cusum_h_sigma * sigma).ok();
+        if s.step_min_k.is_none() {
+            let h = s.cusum_h_sigma * sigma;
+            for w in &mut self.watched {
+                if w.figure == Source::Cusum {
+                    w.alarm.set_limit(h, 0.25 * h);
+                }
+            }
+        }
     }
 
     fn refit(&mut self, s: &DriftSettings, start: i64) {
@@ -857,6 +1011,15 @@ impl ReactorWatch {
                 self.aggregates.partition_point(|a| a.0 < cut)
             }
             None => 0,
+        };
+        // Steps are not trends: only whole aggregates after the last step's change point.
+        let half_period = 0.5 * s.aggregate_ms.max(1) as f64 / DAY_MS;
+        let from = match self.step {
+            Some(st) => {
+                let cut = (st.shift.since_ms - start) as f64 / DAY_MS;
+                from.max(self.aggregates.partition_point(|a| a.0 - half_period < cut))
+            }
+            None => from,
         };
         let pts = &self.aggregates[from..];
         if pts.len() < s.min_aggregates.max(3) {
@@ -897,7 +1060,10 @@ impl ReactorWatch {
             learn_m2: self.learn_m2,
             baseline: self.baseline,
             ewma: self.ewma.as_ref().map(Ewma::state),
-            cusum: self.cusum.as_ref().map(Cusum::value),
+            cusum: self.cusum.as_ref().map(Cusum::state),
+            step: self.step,
+            step_reference_k: self.step_reference_k,
+            segment: self.segment,
             bucket: self.bucket.as_ref().map(|b| (b.start_ms, b.n, b.sum)),
             aggregates: self.aggregates.clone(),
         }
@@ -933,8 +1099,15 @@ impl ReactorWatch {
                 e.set_state(z, n);
             }
             if let (Some(c), Some(v)) = (self.cusum.as_mut(), snap.cusum) {
-                c.set_value(v);
+                if !c.set_state(&v) {
+                    return false;
+                }
             }
+        }
+        self.step = snap.step;
+        self.step_reference_k = snap.step_reference_k.filter(|r| r.is_finite());
+        if snap.segment.1.is_finite() {
+            self.segment = snap.segment;
         }
         self.bucket = snap
             .bucket
@@ -995,6 +1168,9 @@ impl ReactorWatch {
         self.last_ewma = None;
         self.cusum = None;
         self.cusum_last = None;
+        self.step = None;
+        self.step_reference_k = None;
+        self.segment = (0, 0.0);
         self.bucket = None;
         self.aggregates.clear();
         self.trend = None;
@@ -1135,6 +1311,7 @@ mod tests {
     use super::*;
     use crate::approach::{Approach, Direction as Dir, Flags};
     use crate::monitor::Reason;
+    use crate::monitor::alarm::{Mode, State};
 
     const H: i64 = 3_600_000;
     const D: i64 = 86_400_000;
@@ -1314,14 +1491,15 @@ mod tests {
         assert_eq!(fig.cusum_k, Some(0.0));
         assert_eq!(w.excluded(), 2);
         // A sustained rise of 2σ + k signals the CUSUM after h/(x − μ0 − k) samples:
-        // (8.6 − 8.0 − 0.1) = 0.5 per sample, h = 1.0 → signal at the third [Page 1954].
+        // (8.6 − 8.0 − 0.1) = 0.5 per sample, h = 1.0 → signal at the third [Page 1954];
+        // the scheme then restarts against the new level, so the fourth does not signal.
         let mut signals = Vec::new();
         for i in 0..4 {
             let t = t + (3 + i) * H;
             let (fig, _) = w.observe(&s, &eval(t, Some(8.6), Quality::Good, None), t);
             signals.push(fig.cusum_signal);
         }
-        assert_eq!(signals, [false, false, true, true]);
+        assert_eq!(signals, [false, false, true, false]);
     }
 
     #[test]
@@ -1376,10 +1554,12 @@ mod tests {
             k.contains(&("approach-high".into(), EventKind::Unsuppressed)),
             "{k:?}"
         );
+        // Raised before the suppression and still on: not raised a second time.
         assert!(
-            k.contains(&("approach-high".into(), EventKind::Raised)),
+            !k.contains(&("approach-high".into(), EventKind::Raised)),
             "{k:?}"
         );
+        assert_eq!(w.watched[0].alarm.state(), State::Unacknowledged);
         let (msg, ev) = w
             .command(
                 &s,
@@ -1523,19 +1703,22 @@ mod tests {
             );
         }
         assert!(ids.contains(&"trend".to_string()), "{ids:?}");
-        assert!(ids.contains(&"cusum".to_string()), "{ids:?}");
+        // A steady rise is a trend, not a step: the level-shift alert stays quiet.
+        assert!(!ids.contains(&"cusum".to_string()), "{ids:?}");
         assert!(ids.contains(&"end-of-run".to_string()), "{ids:?}");
         // No good result for 31 min: data-quality alert.
         let t1 = t0 + 40 * D;
         let ev = w.tick(t1 + 31 * MINUTE_MS);
         assert!(kinds(&ev, &w).contains(&("data-quality".into(), EventKind::Raised)));
-        // Unit off line: everything suppressed by design; samples excluded.
+        // Unit off line: one off-line alert; everything else suppressed by design
+        // silently (the states stay in the retained list); samples excluded.
         let ev = w.pressure(&s, 1.2, t1 + 32 * MINUTE_MS);
-        assert!(
-            ev.iter()
-                .all(|e| matches!(e.event.kind, EventKind::Suppressed { .. }))
-                && !ev.is_empty()
+        assert_eq!(
+            kinds(&ev, &w),
+            [("off-line".to_string(), EventKind::Raised)]
         );
+        assert!(w.watched.iter().all(|x| x.alarm.config().id == "off-line"
+            || matches!(x.alarm.mode(), Mode::SuppressedByDesign { .. })));
         let (fig, _) = w.observe(&s, &eval(t1 + H, Some(30.0), Quality::Good, None), t1 + H);
         assert_eq!(fig.excluded, Some("unit_offline"));
         w.pressure(&s, 30.0, t1 + 2 * H);
@@ -1604,5 +1787,184 @@ mod tests {
         let before = b.drift_snapshot();
         assert!(!b.restore_drift(&s.drift, &bad));
         assert_eq!(b.drift_snapshot(), before);
+    }
+
+    /// Noise for invented series: a fixed pseudo-random sequence in [−a, a].
+    fn wobble(i: i64, a: f64) -> f64 {
+        let x = ((i as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15) >> 11) as f64 / (1u64 << 53) as f64;
+        a * (2.0 * x - 1.0)
+    }
+
+    fn step_settings() -> WatchSettings {
+        WatchSettings {
+            drift: DriftSettings {
+                baseline: BaselineSpec::Given {
+                    approach_k: 8.0,
+                    sigma_k: 0.5,
+                },
+                end_of_run_limit_k: Some(40.0),
+                min_aggregates: 5,
+                ..DriftSettings::default()
+            },
+            alerts: AlertSettings {
+                trend_above_k_per_day: Some(0.5),
+                end_of_run_within_days: Some(90.0),
+                cusum: true,
+                data_quality_after_ms: Some(2 * H),
+                self_monitoring: false,
+            },
+            alarms: vec![alarm_spec("approach-high", 20.0, 2)],
+            offline_below_bar: Some(5.0),
+        }
+    }
+
+    #[test]
+    fn a_step_is_one_level_shift_alert_and_no_trend() {
+        // Invented: 20 days at 8 K ± 0.3, then a permanent step to 18 K (a poisoning).
+        let s = step_settings();
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let cusum = w
+            .watched
+            .iter()
+            .position(|x| x.alarm.config().id == "cusum")
+            .unwrap();
+        let t0 = 100 * D;
+        let mut raised = Vec::new();
+        let mut max_s: f64 = 0.0;
+        let mut forecasts_after_step = Vec::new();
+        for h in 0..(40 * 24) {
+            let t = t0 + h * H;
+            let v = if h < 20 * 24 { 8.0 } else { 18.0 } + wobble(h, 0.3);
+            let (fig, ev) = w.observe(&s, &eval(t, Some(v), Quality::Good, None), t);
+            max_s = max_s.max(fig.cusum_k.unwrap_or(0.0));
+            for (id, k) in kinds(&ev, &w) {
+                if k == EventKind::Raised {
+                    raised.push((
+                        id,
+                        h,
+                        w.watched
+                            .iter()
+                            .find(|x| x.alarm.config().id == "cusum")
+                            .and_then(|x| x.value),
+                    ));
+                }
+            }
+            if h >= 20 * 24 {
+                forecasts_after_step.push((h, fig.forecast, fig.trend.map(|t| t.points)));
+            }
+        }
+        let ids: Vec<&str> = raised.iter().map(|r| r.0.as_str()).collect();
+        // One level-shift alert, the operator alarm, and no trend/end-of-run alert.
+        assert_eq!(
+            ids.iter().filter(|i| **i == "cusum").count(),
+            1,
+            "{raised:?}"
+        );
+        assert!(
+            !ids.contains(&"trend") && !ids.contains(&"end-of-run"),
+            "{raised:?}"
+        );
+        // The alert's value is past its limit (h = 5σ = 2.5 K) and in K.
+        let limit = w.watched[cusum].alarm.config().limit;
+        assert!((limit - 2.5).abs() < 1e-12, "{limit}");
+        let v = raised
+            .iter()
+            .find(|r| r.0 == "cusum")
+            .and_then(|r| r.2)
+            .unwrap();
+        assert!(v > limit && (v - 10.0).abs() < 1.0, "standing step {v} K");
+        assert_eq!(w.watched[cusum].unit, "K");
+        // Bounded: S⁺ never runs far past h (before the fix it passed 1 000 K here).
+        assert!(max_s < 2.5 + 10.6, "S+ reached {max_s}");
+        // No forecast from the step: learning until five whole days after it (day 25),
+        // then flat.
+        let step = w.figures(&s.drift).step.unwrap();
+        assert!(
+            (step.shift.since_ms - (t0 + 20 * D)).abs() <= 2 * H,
+            "{step:?}"
+        );
+        for (h, f, points) in &forecasts_after_step {
+            if *h < 25 * 24 {
+                assert!(matches!(f, Forecast::NoTrend), "hour {h}: {f:?}");
+            }
+            if let Some(p) = points {
+                assert!(*p <= (h - 20 * 24) as usize / 24, "hour {h}: {p} points");
+            }
+        }
+        let last = w.figures(&s.drift);
+        let t = last.trend.unwrap();
+        assert!(t.slope_k_per_day.abs() < 0.05, "{t:?}");
+        assert!(
+            !matches!(last.forecast, Forecast::At { .. } | Forecast::Reached),
+            "{:?}",
+            last.forecast
+        );
+    }
+
+    #[test]
+    fn a_trip_is_one_state_change_and_nothing_is_raised_again() {
+        let s = step_settings();
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let t0 = 100 * D;
+        let mut t = t0;
+        // Approach above the 20 K alarm: raised once (2-sample on-delay), acknowledged.
+        for _ in 0..3 {
+            w.pressure(&s, 30.0, t);
+            w.observe(&s, &eval(t, Some(22.0), Quality::Good, None), t);
+            t += 5 * MINUTE_MS;
+        }
+        w.command(&s, &Action::Acknowledge, Some("approach-high"), "op1", t)
+            .unwrap();
+        // A 9.6 h trip: pressure below 5 bar, analyses keep coming (bad, then none).
+        let mut trip_events = Vec::new();
+        trip_events.extend(w.pressure(&s, 1.0, t));
+        let trip_start = t;
+        while t < trip_start + 9 * H + 36 * MINUTE_MS {
+            t += 5 * MINUTE_MS;
+            trip_events.extend(w.pressure(&s, 1.0, t));
+            trip_events.extend(w.tick(t));
+            let (_, ev) = w.observe(&s, &eval(t, None, Quality::Bad, Some("stale_analysis")), t);
+            trip_events.extend(ev);
+        }
+        let k = kinds(&trip_events, &w);
+        assert_eq!(k, [("off-line".to_string(), EventKind::Raised)], "{k:?}");
+        // Back on line, the approach still above the limit: one state change, the
+        // acknowledged alarm stays acknowledged, data quality did not count the trip.
+        let mut back = Vec::new();
+        back.extend(w.pressure(&s, 30.0, t));
+        for _ in 0..6 {
+            t += 5 * MINUTE_MS;
+            back.extend(w.tick(t));
+            let (_, ev) = w.observe(&s, &eval(t, Some(22.0), Quality::Good, None), t);
+            back.extend(ev);
+        }
+        let k: Vec<(String, EventKind)> = kinds(&back, &w);
+        assert_eq!(k, [("off-line".to_string(), EventKind::Cleared)], "{k:?}");
+        let alarm = &w.watched[0].alarm;
+        assert_eq!(
+            (alarm.state(), alarm.mode()),
+            (State::Acknowledged, &Mode::Active)
+        );
+    }
+
+    #[test]
+    fn off_line_time_does_not_count_toward_data_quality() {
+        let s = step_settings();
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let t0 = 100 * D;
+        w.pressure(&s, 30.0, t0);
+        w.observe(&s, &eval(t0, Some(8.0), Quality::Good, None), t0);
+        // 1 h on line, 5 h off line, 50 min on line: 1 h 50 min < 2 h of on-line time.
+        w.pressure(&s, 1.0, t0 + H);
+        w.pressure(&s, 30.0, t0 + 6 * H);
+        let ev = w.tick(t0 + 6 * H + 50 * MINUTE_MS);
+        assert!(
+            !kinds(&ev, &w).iter().any(|k| k.0 == "data-quality"),
+            "{:?}",
+            kinds(&ev, &w)
+        );
+        // 15 min more: 2 h 5 min on line without a good result.
+        let ev = w.tick(t0 + 7 * H + 5 * MINUTE_MS);
+        assert!(kinds(&ev, &w).contains(&("data-quality".into(), EventKind::Raised)));
     }
 }
