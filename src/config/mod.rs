@@ -44,7 +44,7 @@ pub struct Settings {
     pub topic_prefix: String,
     pub broker: BrokerSettings,
     pub journal: JournalSettings,
-    /// `None` when `[http] listen = "off"`; default 127.0.0.1:9464.
+    /// `None` when `[http] listen = "off"`; default 127.0.0.1:9873.
     pub http_listen: Option<SocketAddr>,
     /// Site atmospheric pressure for gauge readings, bar (default 1.01325).
     pub atmosphere_bar: f64,
@@ -455,7 +455,7 @@ pub struct RawJournal {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct RawHttp {
-    /// `"127.0.0.1:9464"` or `"off"`.
+    /// `"127.0.0.1:9873"` or `"off"`.
     pub listen: String,
 }
 
@@ -752,7 +752,7 @@ fn validate(raw: &RawConfig, base: &Path, env: EnvLookup) -> Result<Settings, Co
     let broker = broker(&mut p, &raw.broker, &raw.site, base, env);
     let journal = journal(&mut p, &raw.journal, base);
     let http_listen = match &raw.http {
-        None => Some(SocketAddr::from(([127, 0, 0, 1], 9464))),
+        None => Some(SocketAddr::from(([127, 0, 0, 1], 9873))),
         Some(h) if h.listen.trim().eq_ignore_ascii_case("off") => None,
         Some(h) => match h.listen.trim().parse::<SocketAddr>() {
             Ok(a) => Some(a),
@@ -760,7 +760,7 @@ fn validate(raw: &RawConfig, base: &Path, env: EnvLookup) -> Result<Settings, Co
                 p.add(
                     "http.listen",
                     format!(
-                        "\"{}\" is not an address and port; expected e.g. \"127.0.0.1:9464\", \"[::1]:9464\" or \"off\"",
+                        "\"{}\" is not an address and port; expected e.g. \"127.0.0.1:9873\", \"[::1]:9873\" or \"off\"",
                         h.listen
                     ),
                 );
@@ -2757,7 +2757,7 @@ value = 0.48
         assert!(s.journal.dir.starts_with(config_dir()));
         assert_eq!(
             s.http_listen,
-            Some(SocketAddr::from(([127, 0, 0, 1], 9464)))
+            Some(SocketAddr::from(([127, 0, 0, 1], 9873)))
         );
 
         let ids: Vec<&str> = s.reactors.iter().map(|r| r.id.as_str()).collect();
@@ -2872,7 +2872,7 @@ value = 0.48
             "site          baw1",
             "mqtt://127.0.0.1:1883, MQTT 3.1.1, client id eqwatch-baw1",
             "results       eqwatch/baw1/<reactor>/...",
-            "http          127.0.0.1:9464",
+            "http          127.0.0.1:9873",
             "reactor       amc1: Ammonia converter bed 1 outlet",
             "  reaction    N2 + 3 H2 = 2 NH3",
             "K from moe-1962 (valid 400 to 1000 K); at 700 K ln K = ",
@@ -3081,7 +3081,7 @@ value = 0.48
                 ("journal.fsync_interval", "must be above zero"),
                 (
                     "http.listen",
-                    "\"localhost:9464\" is not an address and port",
+                    "\"localhost:9873\" is not an address and port",
                 ),
             ],
         );

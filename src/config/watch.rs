@@ -50,6 +50,14 @@ pub struct RawAlerts {
     pub self_monitoring: Option<bool>,
 }
 
+/// An alarm priority as written: `priority = 2` or `priority = "2"`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(untagged)]
+pub enum RawPriority {
+    Number(i64),
+    Text(String),
+}
+
 /// `[[reactors.<id>.alarm]]`: one rationalised operator alarm.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -63,7 +71,8 @@ pub struct RawAlarm {
     pub on_delay: Option<String>,
     pub off_delay: Option<String>,
     pub realarm: Option<String>,
-    pub priority: Option<String>,
+    /// 1 (highest) to 4 (lowest); default 3.
+    pub priority: Option<RawPriority>,
     pub latched: Option<bool>,
     pub max_shelve: Option<String>,
     pub rationale: String,
@@ -525,17 +534,24 @@ fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
         None => 8 * 3_600_000,
         Some(t) => positive_duration(p, &format!("{path}.max_shelve"), t).unwrap_or(1),
     };
-    let priority = match a.priority.as_deref().unwrap_or("medium") {
-        "low" => Priority::Low,
-        "medium" => Priority::Medium,
-        "high" => Priority::High,
-        "urgent" => Priority::Urgent,
-        o => {
+    let number = match &a.priority {
+        None => Some(3),
+        Some(RawPriority::Number(n)) => Some(*n),
+        Some(RawPriority::Text(t)) => t.trim().parse::<i64>().ok(),
+    };
+    let priority = match number.and_then(Priority::from_number) {
+        Some(pr) => pr,
+        None => {
+            let given = match &a.priority {
+                Some(RawPriority::Number(n)) => n.to_string(),
+                Some(RawPriority::Text(t)) => format!("\"{t}\""),
+                None => String::new(),
+            };
             p.add(
                 format!("{path}.priority"),
-                format!("unknown priority \"{o}\"; expected low, medium, high or urgent"),
+                format!("priority {given} is not one of 1 (highest), 2, 3 or 4 (lowest)"),
             );
-            Priority::Medium
+            Priority::P3
         }
     };
     if let Some(db) = deadband.filter(|d| *d < 0.0) {
@@ -645,7 +661,7 @@ pub(super) fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
         out.push((
             if i == 0 { "  alarms" } else { "" },
             format!(
-                "{} {} {} {} {} (deadband {} {}{delay}, {} priority)",
+                "{} {} {} {} {} (deadband {} {}{delay}, priority {})",
                 c.id,
                 match x.figure {
                     Figure::Approach => "approach",
@@ -659,7 +675,7 @@ pub(super) fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
                 x.unit,
                 c.deadband,
                 x.unit,
-                format!("{:?}", c.priority).to_lowercase()
+                c.priority.number()
             ),
         ));
     }

@@ -154,13 +154,9 @@ impl From<&DriftFigures> for DriftOut {
     }
 }
 
-fn priority(p: Priority) -> &'static str {
-    match p {
-        Priority::Low => "low",
-        Priority::Medium => "medium",
-        Priority::High => "high",
-        Priority::Urgent => "urgent",
-    }
+/// On the wire a priority is its number, 1 (highest) to 4.
+fn priority(p: Priority) -> u8 {
+    p.number()
 }
 
 /// The event's name on the wire (`raised`, `cleared`, `out-of-service`, ...).
@@ -191,7 +187,7 @@ struct EventOut<'a> {
     at: String,
     state: &'static str,
     mode: &'static str,
-    priority: &'static str,
+    priority: u8,
     value: Option<f64>,
     limit: Option<f64>,
     direction: &'static str,
@@ -298,7 +294,7 @@ struct StateOut<'a> {
     mode: &'static str,
     condition: bool,
     annunciating: bool,
-    priority: &'static str,
+    priority: u8,
     value: Option<f64>,
     limit: Option<f64>,
     unit: &'a str,

@@ -51,13 +51,34 @@ pub enum Direction {
     Low,
 }
 
-/// Alarm priority.
+/// Alarm priority, numbered 1 (highest) to 4 (lowest).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
 pub enum Priority {
-    Low,
-    Medium,
-    High,
-    Urgent,
+    P1,
+    P2,
+    P3,
+    P4,
+}
+
+impl Priority {
+    /// From its number, 1 (highest) to 4.
+    pub fn from_number(n: i64) -> Option<Self> {
+        match n {
+            1 => Some(Self::P1),
+            2 => Some(Self::P2),
+            3 => Some(Self::P3),
+            4 => Some(Self::P4),
+            _ => None,
+        }
+    }
+    pub fn number(self) -> u8 {
+        match self {
+            Self::P1 => 1,
+            Self::P2 => 2,
+            Self::P3 => 3,
+            Self::P4 => 4,
+        }
+    }
 }
 
 /// Configuration of one alarm.
@@ -771,7 +792,7 @@ mod tests {
             off_delay_samples: 0,
             realarm_ms: None,
             latched: false,
-            priority: Priority::High,
+            priority: Priority::P2,
             max_shelve_ms: 3_600_000,
         }
     }

@@ -427,7 +427,7 @@ fn alert_config(id: &str, limit: f64, direction: Direction, deadband: f64) -> Al
         off_delay_samples: 0,
         realarm_ms: None,
         latched: false,
-        priority: Priority::Low,
+        priority: Priority::P4,
         max_shelve_ms: 30 * 86_400_000,
     }
 }
@@ -1378,7 +1378,7 @@ mod tests {
                 off_delay_samples: 0,
                 realarm_ms: None,
                 latched: false,
-                priority: Priority::High,
+                priority: Priority::P2,
                 max_shelve_ms: 8 * H,
             },
             figure: Figure::Approach,

@@ -24,7 +24,7 @@ id = "approach-high"
 on = "approach"
 above = "10 K"
 deadband = "1 K"
-priority = "high"
+priority = 2
 rationale = "Invented for the test: the LTS is far from equilibrium; check the catalyst."
 
 [commands]

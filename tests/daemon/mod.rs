@@ -634,7 +634,7 @@ fn oversized_message_does_not_cause_a_reconnect_storm() {
 #[test]
 fn check_lists_every_problem_with_its_key_path() {
     let dir = tempfile::tempdir().unwrap();
-    let cfg = write_config(dir.path(), 1883, 9464, "");
+    let cfg = write_config(dir.path(), 1883, 9873, "");
     let text = std::fs::read_to_string(&cfg)
         .unwrap()
         .replace(
@@ -655,7 +655,7 @@ basis = "dry""#,
     assert!(err.contains("reactors.lts1.composition.unit"), "{err}");
     assert!(err.contains("reactors.lts1.reactions"), "{err}");
     // A good config prints a summary and exits 0.
-    let good = write_config(dir.path(), 1883, 9464, "");
+    let good = write_config(dir.path(), 1883, 9873, "");
     let out = std::process::Command::new(env!("CARGO_BIN_EXE_eqwatch"))
         .args(["check", "--config"])
         .arg(&good)
