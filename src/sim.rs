@@ -68,6 +68,7 @@ Brackwater Ammonia Works, train 1 (invented demo plant, simulated data)
   t = 20 min  hts1: analyser AI-201 sticks and repeats its last analysis
   t = 30 min  ref1: sulphur poisoning; methane approach rises from 8 K to 25 K over 5 min
   t = 35 min  hts1: analyser AI-201 recovers
+  t = 40 min  mth1: CO breakthrough; outlet CO from ~2 ppm to ~9 ppm for 15 min (alarm at 5 ppm)
   all along   lts1: catalyst ageing, approach +0.2 K per hour from 10 K";
 
 /// Analyser cycle, s.
@@ -82,6 +83,48 @@ pub const SULPHUR_RAMP_S: f64 = 300.0;
 pub const HTS_STUCK_WINDOW_S: (f64, f64) = (1200.0, 2100.0);
 /// TI-305B publishes nothing sampled after this, s.
 pub const LTS_TI_B_SILENT_AFTER_S: f64 = 900.0;
+
+/// The methanator's CO breakthrough in the live demo (CO removal upset upstream), s.
+pub const MTH_BREAKTHROUGH_S: (f64, f64) = (2400.0, 3300.0);
+/// The year history's methanator breakthrough: day 150 from 10:00, 6 h.
+const YEAR_MTH_BREAKTHROUGH_S: (f64, f64) =
+    (150.0 * 86_400.0 + 36_000.0, 150.0 * 86_400.0 + 57_600.0);
+
+/// Methanator outlet CO and CO2 as dry mole fractions: a kinetic slip of a few ppm, far
+/// above the equilibrium slip (~1e-7 ppm at 600 K), as real methanators show; during a
+/// breakthrough window the CO slip climbs to about 9 ppm (ramps of 5 min either side).
+/// `wobble` in [−1, 1] moves it by ±0.3 ppm. Invented for the demo.
+fn methanator_slip(t_s: f64, window: (f64, f64), wobble: f64) -> (f64, f64) {
+    let up = smoothstep((t_s - window.0) / 300.0);
+    let down = 1.0 - smoothstep((t_s - window.1) / 300.0);
+    let extra = 7.2 * up.min(down);
+    (
+        (1.8 + 0.3 * wobble + extra) * 1e-6,
+        (0.9 + 0.2 * wobble) * 1e-6,
+    )
+}
+
+/// Puts the methanator's kinetic CO/CO2 slip into `y` (reported components' truth, in
+/// `reported` order), scaled to the dry gas of the other components.
+fn apply_methanator_slip(
+    reported: &[(usize, &'static str, Unit)],
+    y: &mut [f64],
+    slip: (f64, f64),
+) {
+    let other: f64 = reported
+        .iter()
+        .zip(y.iter())
+        .filter(|((_, n, _), _)| *n != "CO" && *n != "CO2")
+        .map(|(_, v)| *v)
+        .sum();
+    for ((_, name, _), v) in reported.iter().zip(y.iter_mut()) {
+        match *name {
+            "CO" => *v = slip.0 * other,
+            "CO2" => *v = slip.1 * other,
+            _ => {}
+        }
+    }
+}
 
 const TI_NOISE_K: f64 = 0.5;
 const PI_NOISE_BAR: f64 = 0.02;
@@ -442,6 +485,11 @@ impl Plant {
                 description: "analyser AI-201 recovers",
             },
         ];
+        v.push(ScenarioEvent {
+            at_s: MTH_BREAKTHROUGH_S.0,
+            reactor: "mth1",
+            description: "CO breakthrough from upstream: outlet CO climbs from ~2 ppm to ~9 ppm for 15 min",
+        });
         if let Some(t) = self.sulphur_step_s {
             v.push(ScenarioEvent {
                 at_s: t,
@@ -798,14 +846,16 @@ impl Plant {
         let inst = &self.instruments[i];
         let r = &self.reactors[inst.reactor];
         let o = self.outlet(inst.reactor, t_s)?;
+        let mut truth: Vec<f64> = r.reported.iter().map(|(pos, _, _)| o.y[*pos]).collect();
+        if r.id == "mth1" {
+            let slip = methanator_slip(t_s, MTH_BREAKTHROUGH_S, self.noise(i, k, 99));
+            apply_methanator_slip(&r.reported, &mut truth, slip);
+        }
         // Basis: dry drops the water and renormalises; noise is relative per component.
-        let raw: Vec<f64> = r
-            .reported
+        let raw: Vec<f64> = truth
             .iter()
             .enumerate()
-            .map(|(c, (pos, _, _))| {
-                o.y[*pos] * (1.0 + ANALYSER_NOISE_REL * self.noise(i, k, c as u64))
-            })
+            .map(|(c, y)| y * (1.0 + ANALYSER_NOISE_REL * self.noise(i, k, c as u64)))
             .collect();
         let sum: f64 = raw.iter().sum();
         if !(sum > 0.0 && sum.is_finite()) {
@@ -907,6 +957,8 @@ Days count from the start (day 0 is the first day); times of day are UTC.
   day 60         hts1: analyser AI-201 stuck 10:00-18:00, repeating its 09:55 analysis (quality good)
   day 120 08:00  ref1: sulphur poisoning; methane approach 8 K -> 25 K over 6 h, 3 days at 25 K,
                  then recovery over about 2 weeks to 10 K (partial permanent damage)
+  all year       mth1: kinetic CO slip ~1.8 ppm dry (CO2 ~0.9 ppm), far above equilibrium
+  day 150 10:00  mth1: CO breakthrough, outlet CO ~9 ppm for 6 h
   day 200        ref1: analyser AI-101 out of service all day (empty cells)
   day 249-252    lts1: thermocouple TI-305B failed from day 249 14:00 to day 252 14:00 (empty cells)
   day 300 06:00  plant trip, 3-day shutdown: no analyses and no steam ratios; temperatures fall
@@ -1398,7 +1450,16 @@ impl History {
                 .collect()
         } else {
             let o = self.outlet_at(k, t_s)?;
-            r.reported.iter().map(|(pos, _, _)| o.y[*pos]).collect()
+            let mut y: Vec<f64> = r.reported.iter().map(|(pos, _, _)| o.y[*pos]).collect();
+            if tags.reactor == "mth1" {
+                let wobble = self.noise(tags.stream, CH_ANALYSER + 99, n);
+                apply_methanator_slip(
+                    &r.reported,
+                    &mut y,
+                    methanator_slip(t_s, YEAR_MTH_BREAKTHROUGH_S, wobble),
+                );
+            }
+            y
         };
         let raw: Vec<f64> = truth
             .iter()
@@ -1735,6 +1796,33 @@ mod tests {
     }
 
     #[test]
+    fn methanator_reads_a_few_ppm_co_and_breaks_through() {
+        // Invented demo figures: ~1.8 ppm CO normally (1-3 ppm, a 0.5 ppm analyser sees it),
+        // about 9 ppm during the breakthrough window, above the demo's 5 ppm alarm.
+        let mut p = Plant::new(7, START);
+        let msgs = run(&mut p, 3600.0, 10.0);
+        let co: Vec<(f64, f64)> = msgs
+            .iter()
+            .filter(|(_, m)| m.topic == "baw1/mth1/AI-401/CO")
+            .map(|(_, m)| {
+                let v = json(m);
+                (
+                    (ts_of(&v) - START) as f64 / 1000.0 - ANALYSER_DELAY_S,
+                    v["value"].as_f64().expect("number"),
+                )
+            })
+            .collect();
+        assert!(co.len() > 8, "{co:?}");
+        for (t, ppm) in &co {
+            if *t < MTH_BREAKTHROUGH_S.0 {
+                assert!((1.0..3.0).contains(ppm), "t = {t} s: {ppm} ppm");
+            } else if *t > MTH_BREAKTHROUGH_S.0 + 600.0 && *t < MTH_BREAKTHROUGH_S.1 {
+                assert!(*ppm > 8.0 && *ppm < 10.5, "t = {t} s: {ppm} ppm");
+            }
+        }
+    }
+
+    #[test]
     fn compositions_sum_to_100() {
         let mut p = Plant::new(3, START);
         let msgs = run(&mut p, 7200.0, 60.0);
@@ -1945,12 +2033,8 @@ mod tests {
     fn every_reactor_shows_its_prescribed_approach_without_noise() {
         let mut p = Plant::new(2, START).with_noise(false);
         let msgs = run(&mut p, 1000.0, 10.0);
-        for (reactor, t) in [
-            ("hts1", 600.0),
-            ("lts1", 900.0),
-            ("mth1", 300.0),
-            ("amc1", 0.0),
-        ] {
+        // (mth1 reads a kinetic slip, not an equilibrium gas: see the test below.)
+        for (reactor, t) in [("hts1", 600.0), ("lts1", 900.0), ("amc1", 0.0)] {
             let a = computed_approaches(&p, &msgs, reactor, t);
             for (i, got) in a.iter().enumerate() {
                 let want = p.prescribed_approach_k(reactor, i, t).expect("prescribed");
@@ -1963,11 +2047,12 @@ mod tests {
     fn scenario_lists_the_faults_in_order() {
         let p = Plant::new(0, START);
         let s = p.scenario();
-        assert_eq!(s.len(), 4);
+        assert_eq!(s.len(), 5);
         assert!(s.windows(2).all(|w| w[0].at_s <= w[1].at_s));
         assert_eq!(p.events_between(1700.0, 1800.0)[0].reactor, "ref1");
+        assert_eq!(p.events_between(2300.0, 2400.0)[0].reactor, "mth1");
         let q = Plant::new(0, START).with_sulphur_step(None);
-        assert_eq!(q.scenario().len(), 3);
+        assert_eq!(q.scenario().len(), 4);
         assert_eq!(q.prescribed_approach_k("ref1", 0, 1e5), Some(8.0));
         assert!(
             p.prescribed_approach_k("lts1", 0, 3600.0)
@@ -2272,6 +2357,10 @@ mod tests {
                     && t_s >= REF_ANALYSER_OUT_S.0
                     && t_s < REF_ANALYSER_OUT_S.1
                 {
+                    continue;
+                }
+                // The methanator reads a kinetic slip, not an equilibrium gas.
+                if tags.reactor == "mth1" {
                     continue;
                 }
                 let mut comps = Vec::new();

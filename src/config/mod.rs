@@ -164,6 +164,9 @@ pub struct CompositionSettings {
     /// Sample-to-report delay: the analysis is stamped at its sample time minus this.
     pub lag: Duration,
     pub max_age: Duration,
+    /// Per component (same order as `components`): the analyser's detection limit as a
+    /// mole fraction on the analyser's basis, where one is configured.
+    pub detection_limits: Vec<Option<f64>>,
 }
 
 #[derive(Debug, Clone)]
@@ -523,6 +526,8 @@ pub struct RawComposition {
     pub sum_tolerance: Option<String>,
     pub lag: Option<String>,
     pub max_age: Option<String>,
+    /// Species name → detection limit on the analyser's basis, e.g. `{ CO = "0.5 ppm" }`.
+    pub detection_limits: Option<BTreeMap<String, String>>,
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -1773,6 +1778,28 @@ fn composition(
         NANOSECOND,
         "an analysis is stale after this",
     );
+    let mut detection_limits = vec![None; names.len()];
+    for (sp, text) in raw.detection_limits.iter().flatten() {
+        let key = key_path(&format!("{path}.detection_limits"), sp);
+        let Some(i) = names.iter().position(|n| n.eq_ignore_ascii_case(sp.trim())) else {
+            p.add(
+                key,
+                format!(
+                    "\"{sp}\" is not one of this analyser's components ({})",
+                    names.join(", ")
+                ),
+            );
+            continue;
+        };
+        match composition_amount("detection limit", text) {
+            Ok(f) if f > 0.0 && f < 1.0 => detection_limits[i] = Some(f),
+            Ok(_) => p.add(
+                key,
+                format!("\"{text}\" must be above zero and below 100 mol%"),
+            ),
+            Err(m) => p.add(key, m),
+        }
+    }
     let (Some(source), Some(basis)) = (source, basis) else {
         return None;
     };
@@ -1789,21 +1816,29 @@ fn composition(
             sum_tolerance,
             lag,
             max_age,
+            detection_limits,
         },
         species,
     ))
 }
 
-fn sum_tolerance(p: &mut Problems, path: &str, text: &str) -> f64 {
-    let parsed = split_quantity("sum tolerance", text)
+/// An amount of a component such as `"2 mol%"` or `"0.5 ppm"`, as a mole fraction.
+fn composition_amount(what: &'static str, text: &str) -> Result<f64, String> {
+    split_quantity(what, text)
         .map_err(|e| e.to_string())
         .and_then(|(v, unit)| {
             if unit.is_empty() {
-                return Err(format!("\"{text}\" has no unit; write e.g. \"2 mol%\""));
+                return Err(format!(
+                    "\"{text}\" has no unit; write e.g. \"2 mol%\" or \"0.5 ppm\""
+                ));
             }
             let u = CompositionUnit::parse(unit).map_err(|e| unit_message(&e))?;
             Ok(v * u.fraction_per_unit())
-        });
+        })
+}
+
+fn sum_tolerance(p: &mut Problems, path: &str, text: &str) -> f64 {
+    let parsed = composition_amount("sum tolerance", text);
     match parsed {
         Ok(f) if (0.0..1.0).contains(&f) => f,
         Ok(_) => {

@@ -338,7 +338,7 @@ pub async fn run(
     let status_topic = format!("{}/status", settings.topic_prefix);
     let started = crate::timefmt::format_rfc3339(clock());
     let status = |state: &str, reason: &str| {
-        serde_json::json!({"state": state, "reason": reason, "version": env!("CARGO_PKG_VERSION"), "site": settings.site, "started": started}).to_string()
+        serde_json::json!({"state": state, "reason": reason, "version": env!("CARGO_PKG_VERSION"), "site": settings.site, "started": started, "advisory": payload::ADVISORY_SHORT}).to_string()
     };
     let opts = mqtt::options(
         &settings.broker,

@@ -411,6 +411,102 @@ struct ReactionOut<'a> {
     flags: Vec<&'static str>,
 }
 
+/// The figure a screen shows first: the approach, or (where the approach is not
+/// meaningful) the key component's measured slip on the analyser's basis.
+#[derive(Serialize)]
+struct HeadlineOut {
+    figure: &'static str,
+    value: Option<f64>,
+    unit: &'static str,
+    text: String,
+}
+
+/// The advisory notice every result and status message carries.
+pub const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plant's alarm and safety systems, local codes and licensed engineering practice govern";
+
+/// The key component's wet mole fraction on the analyser's basis.
+fn key_on_basis(r: &ReactorSettings, wet: &[f64], y: Option<f64>) -> Option<f64> {
+    let y = y?;
+    match r.composition.basis {
+        crate::composition::Basis::Wet => Some(y),
+        crate::composition::Basis::Dry => {
+            let w = r
+                .model
+                .names()
+                .iter()
+                .position(|n| n == "H2O")
+                .and_then(|i| wet.get(i).copied())
+                .unwrap_or(0.0);
+            (w < 1.0).then(|| y / (1.0 - w))
+        }
+    }
+}
+
+fn headline(
+    r: &ReactorSettings,
+    e: &Evaluation,
+    key: &str,
+    approach: Option<(f64, Option<f64>)>,
+    key_basis: Option<f64>,
+    dl: Option<f64>,
+) -> HeadlineOut {
+    use crate::units::fmt_num;
+    if e.quality == crate::monitor::Quality::Bad {
+        return HeadlineOut {
+            figure: "none",
+            value: None,
+            unit: "",
+            text: "no figure: the result is bad (see reasons)".into(),
+        };
+    }
+    if e.approach_not_meaningful {
+        let (value, unit) = match key_basis {
+            Some(y) if y < 1e-3 => (Some(y * 1e6), "ppm"),
+            Some(y) => (Some(y * 100.0), "mol%"),
+            None => (None, ""),
+        };
+        let basis = r.composition.basis.as_str();
+        let dl_text = dl.map_or(String::new(), |d| {
+            format!(", detection limit {}", crate::monitor::fmt_fraction(d))
+        });
+        return HeadlineOut {
+            figure: "key-measured",
+            value: value.and_then(finite),
+            unit,
+            text: match value {
+                Some(v) => format!(
+                    "{key} slip {} {unit} {basis}{dl_text}; approach not meaningful (equilibrium below detection)",
+                    fmt_num(v, 3)
+                ),
+                None => format!("{key} slip not measured"),
+            },
+        };
+    }
+    match approach {
+        Some((a, u)) => HeadlineOut {
+            figure: "approach",
+            value: finite(a),
+            unit: "K",
+            text: format!(
+                "approach {}{} K ({})",
+                fmt_num(a, 3),
+                u.map_or(String::new(), |u| format!(" ± {}", fmt_num(u, 2))),
+                if a >= 0.0 {
+                    "short of equilibrium"
+                } else {
+                    "past equilibrium"
+                }
+            ),
+        },
+        None => HeadlineOut {
+            figure: "none",
+            value: None,
+            unit: "",
+            text: "no approach (see reasons)".into(),
+        },
+    }
+}
+
 /// The result payload, serialised straight from borrowed data.
 #[derive(Serialize)]
 struct ResultOut<'a> {
@@ -442,6 +538,13 @@ struct ResultOut<'a> {
     key_component: &'a str,
     key_measured_mole_fraction: Option<f64>,
     key_equilibrium_mole_fraction: Option<f64>,
+    /// The key component on the analyser's basis (dry if it analyses dry), with the
+    /// analyser's detection limit for it.
+    key_measured_on_basis_mole_fraction: Option<f64>,
+    key_equilibrium_on_basis_mole_fraction: Option<f64>,
+    key_detection_limit_mole_fraction: Option<f64>,
+    headline: HeadlineOut,
+    advisory: &'static str,
     mole_fractions: BySpecies<'a>,
     equilibrium_mole_fractions: BySpecies<'a>,
     fugacity_coefficients: BySpecies<'a>,
@@ -484,6 +587,12 @@ pub fn encode_result(
     let first = e.reactions.first();
     // A figure is published only from a usable analysis: bad results carry no approach.
     let usable = first.filter(|_| e.quality != crate::monitor::Quality::Bad);
+    let key_name = &db.get(r.key_component).name;
+    let key_index = r.composition.components.iter().position(|c| c == key_name);
+    let key_dl = key_index.and_then(|i| r.composition.detection_limits.get(i).copied().flatten());
+    let key_basis = key_on_basis(r, &e.mole_fractions, e.key_measured);
+    let approach =
+        usable.and_then(|a| finite_opt(a.approach_k).map(|x| (x, a.approach_uncertainty_k)));
     let out = ResultOut {
         schema: RESULT_SCHEMA,
         reactor: &r.id,
@@ -528,9 +637,18 @@ pub fn encode_result(
             })
             .collect(),
         basis: r.composition.basis.as_str(),
-        key_component: &db.get(r.key_component).name,
+        key_component: key_name,
         key_measured_mole_fraction: finite_opt(e.key_measured),
         key_equilibrium_mole_fraction: finite_opt(e.key_equilibrium),
+        key_measured_on_basis_mole_fraction: finite_opt(key_basis),
+        key_equilibrium_on_basis_mole_fraction: finite_opt(key_on_basis(
+            r,
+            &e.equilibrium_mole_fractions,
+            e.key_equilibrium,
+        )),
+        key_detection_limit_mole_fraction: key_dl,
+        headline: headline(r, e, key_name, approach, key_basis, key_dl),
+        advisory: ADVISORY_SHORT,
         mole_fractions: BySpecies(names, &e.mole_fractions),
         equilibrium_mole_fractions: BySpecies(names, &e.equilibrium_mole_fractions),
         fugacity_coefficients: BySpecies(names, &e.fugacity_coefficients),

@@ -133,6 +133,10 @@ pub struct Evaluation {
     pub equilibrium_mole_fractions: Vec<f64>,
     pub key_measured: Option<f64>,
     pub key_equilibrium: Option<f64>,
+    /// The temperature approach was withdrawn for at least one reaction because the
+    /// equilibrium amount is below the analyser's detection limit: the key component's
+    /// measured slip is the headline figure.
+    pub approach_not_meaningful: bool,
 }
 
 /// What happened to an input.
@@ -492,11 +496,37 @@ impl ReactorMonitor {
                         s.composition.tag
                     ),
                 ),
-                Some(x) => comps.push(Component {
-                    species: name.clone(),
-                    value: *x,
-                    unit: CompositionUnit::Fraction,
-                }),
+                Some(x) => {
+                    let limit = s
+                        .composition
+                        .detection_limits
+                        .get(comps.len())
+                        .copied()
+                        .flatten();
+                    let value = match limit {
+                        // Below the detection limit: taken at the limit (so Q stays finite)
+                        // and said so [common practice for reporting non-detects].
+                        Some(dl) if *x < dl => {
+                            push(
+                                "below_detection_limit",
+                                Quality::Good,
+                                format!(
+                                    "{name} {} is below the {} detection limit of {}; taken at the limit",
+                                    fmt_fraction(*x),
+                                    s.composition.tag,
+                                    fmt_fraction(dl)
+                                ),
+                            );
+                            dl
+                        }
+                        _ => *x,
+                    };
+                    comps.push(Component {
+                        species: name.clone(),
+                        value,
+                        unit: CompositionUnit::Fraction,
+                    })
+                }
             }
         }
         let mut eval = Evaluation {
@@ -516,6 +546,7 @@ impl ReactorMonitor {
             equilibrium_mole_fractions: Vec::new(),
             key_measured: None,
             key_equilibrium: None,
+            approach_not_meaningful: false,
         };
         let complete = comps.len() == s.composition.components.len();
         let wet = if complete {
@@ -677,6 +708,7 @@ impl ReactorMonitor {
                 .position(|x| *x == s.key_component)
                 .map(|i| w.y[i]);
             eval.mole_fractions.clone_from(&w.y);
+            not_meaningful_below_detection(s, &mut eval, &mut push);
         }
         eval.quality = reasons
             .iter()
@@ -688,6 +720,85 @@ impl ReactorMonitor {
         }
         eval.reasons = reasons;
         eval
+    }
+}
+
+/// A mole fraction for a message: ppm below 0.1 mol%, else mol%.
+pub fn fmt_fraction(y: f64) -> String {
+    if y.abs() < 1e-3 {
+        format!("{} ppm", crate::units::fmt_num(y * 1e6, 3))
+    } else {
+        format!("{} mol%", crate::units::fmt_num(y * 100.0, 4))
+    }
+}
+
+/// A mole fraction of the wet gas on the analyser's basis (dry: water taken out).
+fn on_basis(y: f64, water: Option<f64>, basis: Basis) -> f64 {
+    match (basis, water) {
+        (Basis::Dry, Some(w)) if w < 1.0 => y / (1.0 - w),
+        _ => y,
+    }
+}
+
+/// Kinetically limited units: where the equilibrium amount of an analysed component of a
+/// reaction is below the analyser's detection limit, no measurement can tell how close
+/// the gas is to equilibrium, so that reaction's temperature approach is withdrawn (null
+/// with a reason) and the key component's measured slip is the headline figure
+/// [common practice at methanators: DOMAIN §10].
+fn not_meaningful_below_detection(
+    s: &ReactorSettings,
+    eval: &mut Evaluation,
+    push: &mut impl FnMut(&'static str, Quality, String),
+) {
+    if s.composition.detection_limits.iter().all(Option::is_none)
+        || eval.equilibrium_mole_fractions.is_empty()
+    {
+        return;
+    }
+    let names = s.model.names();
+    let basis = s.composition.basis;
+    let water_eq = names
+        .iter()
+        .position(|n| n == "H2O")
+        .and_then(|i| eval.equilibrium_mole_fractions.get(i).copied());
+    for (r, term) in s.model.reactions().iter().enumerate() {
+        let below = s
+            .composition
+            .components
+            .iter()
+            .zip(&s.composition.detection_limits)
+            .filter_map(|(c, dl)| dl.map(|dl| (c, dl)))
+            .find_map(|(c, dl)| {
+                let i = names.iter().position(|n| n == c)?;
+                let eq = on_basis(*eval.equilibrium_mole_fractions.get(i)?, water_eq, basis);
+                (term.nu().get(i).is_some_and(|nu| *nu != 0.0) && eq.is_finite() && eq < dl)
+                    .then_some((c, eq, dl))
+            });
+        let Some((c, eq, dl)) = below else {
+            continue;
+        };
+        let Some(ap) = eval.reactions.get_mut(r) else {
+            continue;
+        };
+        if ap.approach_k.is_none() {
+            continue;
+        }
+        ap.approach_k = None;
+        ap.approach_uncertainty_k = None;
+        ap.equilibrium_temperature_k = None;
+        eval.approach_not_meaningful = true;
+        push(
+            "approach_not_meaningful",
+            Quality::Good,
+            format!(
+                "{}: equilibrium {c} is {} ({} basis), below the {} detection limit of {}, so no analysis can show the approach; watch the measured {c} slip against its limit instead",
+                term.reaction.canonical(),
+                fmt_fraction(eq),
+                basis.as_str(),
+                s.composition.tag,
+                fmt_fraction(dl)
+            ),
+        );
     }
 }
 
@@ -1014,5 +1125,78 @@ mod tests {
         let e = evaluated(last);
         assert!(!e.reactions.is_empty(), "{:?}", e.reasons);
         assert!(e.reactions.iter().all(|a| a.ln_q.is_finite()));
+    }
+
+    /// The demo methanator (invented gas) with `co` and `co2` mole fractions.
+    fn methanator(co: f64, co2: f64) -> Evaluation {
+        let s = settings();
+        let r = reactor(&s, "mth1");
+        let mut m = ReactorMonitor::new(r);
+        let at = T0 + 10 * MIN;
+        for i in 0..r.temperatures.len() {
+            m.accept(r, &s.species, Input::Temperature(i, scalar(at, 600.0)), at);
+        }
+        m.accept(r, &s.species, Input::Pressure(scalar(at, 28.0)), at);
+        let lag = ms(r.composition.lag);
+        let mut last = Outcome::Stored;
+        for (i, n) in r.composition.components.iter().enumerate() {
+            let v = match n.as_str() {
+                "H2" => 0.744,
+                "N2" => 0.245,
+                "CH4" => 0.0075,
+                "Ar" => 0.0035,
+                "CO" => co,
+                "CO2" => co2,
+                other => panic!("unexpected component {other}"),
+            };
+            last = m.accept(
+                r,
+                &s.species,
+                Input::Component(i, scalar(at + lag, v)),
+                at + lag,
+            );
+        }
+        evaluated(last)
+    }
+
+    #[test]
+    fn no_temperature_approach_where_equilibrium_is_below_detection() {
+        // 1.6 ppm CO at 600 K and 28 bar: the equilibrium CO is ~1e-7 ppm, far below the
+        // demo analyser's 0.5 ppm detection limit (demo-plant.toml), so the approach
+        // (which would read ~380 K) is withdrawn for both reactions, the result stays good
+        // and says why [common practice at methanators, DOMAIN §10].
+        let e = methanator(1.6e-6, 0.8e-6);
+        assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
+        assert!(e.approach_not_meaningful);
+        assert!(
+            e.reactions
+                .iter()
+                .all(|a| a.approach_k.is_none() && a.ln_q.is_finite())
+        );
+        let why: Vec<&Reason> = e
+            .reasons
+            .iter()
+            .filter(|r| r.code == "approach_not_meaningful")
+            .collect();
+        assert_eq!(why.len(), 2, "{:?}", e.reasons);
+        assert!(
+            why[0].message.contains("detection limit of 0.5 ppm"),
+            "{}",
+            why[0].message
+        );
+        let key_eq = e.key_equilibrium.unwrap();
+        assert!(key_eq < 1e-9, "equilibrium CO {key_eq}");
+        assert!((e.key_measured.unwrap() - 1.6e-6).abs() < 0.1e-6);
+        // A reading below the limit is taken at the limit and said so.
+        let e = methanator(0.2e-6, 0.8e-6);
+        assert!(
+            e.reasons
+                .iter()
+                .any(|r| r.code == "below_detection_limit" && r.message.contains("0.2 ppm")),
+            "{:?}",
+            e.reasons
+        );
+        assert!((e.key_measured.unwrap() - 0.5e-6).abs() < 0.05e-6);
+        assert_eq!(e.quality, Quality::Good);
     }
 }

@@ -1362,6 +1362,7 @@ mod tests {
             equilibrium_mole_fractions: Vec::new(),
             key_measured: Some(5e-6),
             key_equilibrium: None,
+            approach_not_meaningful: false,
         }
     }
 
