@@ -19,9 +19,10 @@ use eqwatch::sim::{HistoryOptions, write_history_with_progress};
 use eqwatch::timefmt::parse_rfc3339;
 
 const USAGE: &str = "\
-usage: gen_history [--start RFC3339] [--days N] [--seed N] [--out PATH] [--threads N] [--no-noise]
+usage: gen_history [--start RFC3339] [--days N] [--first-day N] [--seed N] [--out PATH] [--threads N] [--no-noise]
   --start    first row's time, whole seconds, UTC or with an offset (default 2026-01-01T00:00:00Z)
   --days     days of history, 1 or more (default 365)
+  --first-day  write the scenario from this day on (default 0; day 0 is at --start)
   --seed     noise seed (default 20260101)
   --out      CSV file to write; its folder is created (default var/history/baw1-history.csv)
   --threads  worker threads, 0 for all cores (default 0); the output does not depend on it
@@ -53,6 +54,12 @@ fn parse_args(mut it: impl Iterator<Item = String>) -> Result<Option<Args>, Stri
                 opts.days = v.parse().ok().filter(|d| *d >= 1).ok_or_else(|| {
                     format!("--days: {v:?} is not a whole number of days, 1 or more")
                 })?;
+            }
+            "--first-day" => {
+                let v = value("--first-day")?;
+                opts.first_day = v
+                    .parse()
+                    .map_err(|_| format!("--first-day: {v:?} is not a whole number of days"))?;
             }
             "--seed" => {
                 let v = value("--seed")?;

@@ -16,6 +16,7 @@
 //! Advisory only: eqwatch is not a safety function; see the README.
 
 pub mod approach;
+pub mod bedrise;
 pub mod composition;
 pub mod config;
 pub mod equilibrium;

@@ -1142,6 +1142,9 @@ pub struct HistoryOptions {
     /// First row's time, whole seconds since the epoch (UTC).
     pub start_epoch_s: i64,
     pub days: u32,
+    /// Writes only days `first_day..first_day + days` of the scenario (day 0 is at
+    /// `start_epoch_s`): a few weeks around chosen events, for tests.
+    pub first_day: u32,
     pub seed: u64,
     /// Instrument noise on (the default) or off.
     pub noise: bool,
@@ -1155,6 +1158,7 @@ impl Default for HistoryOptions {
         Self {
             start_epoch_s: DEFAULT_HISTORY_START_S,
             days: DEFAULT_HISTORY_DAYS,
+            first_day: 0,
             seed: DEFAULT_HISTORY_SEED,
             noise: true,
             threads: 0,
@@ -1350,8 +1354,9 @@ impl History {
         s.push_str("# start ");
         push_rfc3339_seconds(&mut s, self.opts.start_epoch_s);
         s.push_str(&format!(
-            ", {} days, one row per minute, seed {}, noise {}\n",
+            ", {} days from day {}, one row per minute, seed {}, noise {}\n",
             self.opts.days,
+            self.opts.first_day,
             self.opts.seed,
             if self.opts.noise { "on" } else { "off" }
         ));
@@ -1612,7 +1617,8 @@ pub fn write_history_with_progress(
     let preamble = history.preamble();
     out.write_all(preamble.as_bytes())?;
     stats.bytes += preamble.len() as u64;
-    let total = history.rows();
+    let first = u64::from(opts.first_day) * (DAY_S as u64) / HISTORY_ROW_S as u64;
+    let total = first + history.rows();
     let threads = match opts.threads {
         0 => std::thread::available_parallelism()
             .map_or(1, |n| n.get())
@@ -1621,7 +1627,7 @@ pub fn write_history_with_progress(
     };
     // Each worker makes one chunk of rows per round; chunks are written in order.
     const CHUNK_ROWS: u64 = 720;
-    let mut next = 0u64;
+    let mut next = first;
     while next < total {
         let ranges: Vec<(u64, u64)> = (0..threads as u64)
             .map(|i| {
@@ -1653,7 +1659,7 @@ pub fn write_history_with_progress(
             stats.add(st);
         }
         next = ranges.last().map_or(total, |r| r.1);
-        progress(next, total);
+        progress(next - first, total - first);
     }
     out.flush()?;
     Ok(stats)

@@ -202,6 +202,16 @@ pub struct ReactorSettings {
     pub watch: WatchSettings,
     /// Each reaction written out canonically (for results; worked out once).
     pub reaction_labels: Vec<String>,
+    pub bed_rise: Option<BedRiseSettings>,
+}
+
+/// The bed temperature rise check (see [`crate::bedrise`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct BedRiseSettings {
+    /// Index into `temperatures` of the inlet thermocouple (left out of the outlet mean).
+    pub inlet: usize,
+    /// Inlet CO and CO2 mole fractions, when configured.
+    pub inlet_co_co2: Option<(f64, f64)>,
 }
 
 // ---------------------------------------------------------------------------
@@ -484,6 +494,19 @@ pub struct RawReactor {
     pub alerts: Option<RawAlerts>,
     #[serde(default)]
     pub alarm: Vec<RawAlarm>,
+    pub bed_rise: Option<RawBedRise>,
+}
+
+/// `[reactors.<id>.bed_rise]`: the methanator's bed temperature rise check.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawBedRise {
+    /// Tag of the reactor's `[[temperature]]` entry that measures the bed inlet.
+    pub inlet_temperature: String,
+    /// Design (or measured-elsewhere) inlet CO and CO2, e.g. `{ CO = "0.18 mol%", CO2 = "0.05 mol%" }`.
+    pub inlet: Option<BTreeMap<String, String>>,
+    /// Alert when the bed rises this much more than the inlet would explain, e.g. `"8 K"`.
+    pub alert_above_expected: Option<String>,
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -2275,7 +2298,7 @@ fn reactor(
         }
     }
 
-    let watch = watch::watch(
+    let mut watch = watch::watch(
         p,
         &path,
         raw.drift.as_ref(),
@@ -2284,6 +2307,10 @@ fn reactor(
         raw.offline_below.as_deref(),
         atmosphere_bar,
     );
+    let bed_rise = raw
+        .bed_rise
+        .as_ref()
+        .and_then(|b| bed_rise(p, &format!("{path}.bed_rise"), b, &temperatures, &mut watch));
     if p.len() > start {
         return None;
     }
@@ -2313,6 +2340,75 @@ fn reactor(
         transient_k_per_min,
         watch,
         reaction_labels,
+        bed_rise,
+    })
+}
+
+fn bed_rise(
+    p: &mut Problems,
+    path: &str,
+    raw: &RawBedRise,
+    temperatures: &[ScalarSettings],
+    watch: &mut WatchSettings,
+) -> Option<BedRiseSettings> {
+    let tag = raw.inlet_temperature.trim();
+    let Some(inlet) = temperatures.iter().position(|t| t.tag == tag) else {
+        let known: Vec<&str> = temperatures.iter().map(|t| t.tag.as_str()).collect();
+        p.add(
+            format!("{path}.inlet_temperature"),
+            format!(
+                "\"{tag}\" is not the tag of one of this reactor's [[temperature]] entries ({})",
+                known.join(", ")
+            ),
+        );
+        return None;
+    };
+    if temperatures.len() < 2 {
+        p.add(
+            format!("{path}.inlet_temperature"),
+            "the reactor needs an outlet thermocouple besides the inlet one",
+        );
+        return None;
+    }
+    let mut co_co2 = (None, None);
+    for (sp, text) in raw.inlet.iter().flatten() {
+        let key = key_path(&format!("{path}.inlet"), sp);
+        let slot = match sp.trim() {
+            "CO" => &mut co_co2.0,
+            "CO2" => &mut co_co2.1,
+            other => {
+                p.add(key, format!("\"{other}\" is not CO or CO2"));
+                continue;
+            }
+        };
+        match composition_amount("inlet amount", text) {
+            Ok(f) if (0.0..0.2).contains(&f) => *slot = Some(f),
+            Ok(_) => p.add(key, format!("\"{text}\" must be from 0 to 20 mol%")),
+            Err(m) => p.add(key, m),
+        }
+    }
+    let inlet_co_co2 = match co_co2 {
+        (None, None) => None,
+        (co, co2) => Some((co.unwrap_or(0.0), co2.unwrap_or(0.0))),
+    };
+    if let Some(t) = &raw.alert_above_expected {
+        let key = format!("{path}.alert_above_expected");
+        if inlet_co_co2.is_none() {
+            p.add(
+                key,
+                "needs the inlet CO and CO2 (bed_rise.inlet) to know what to expect",
+            );
+        } else {
+            match watch::kelvin_difference(p, &key, t) {
+                Some(v) if v > 0.0 => watch.alerts.bed_rise_excess_k = Some(v),
+                Some(v) => p.add(key, format!("{v} K must be above zero")),
+                None => {}
+            }
+        }
+    }
+    Some(BedRiseSettings {
+        inlet,
+        inlet_co_co2,
     })
 }
 

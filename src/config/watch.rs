@@ -131,6 +131,10 @@ fn ms(d: Duration) -> i64 {
 }
 
 /// A temperature difference in K (`"20 K"`; a `degC` is the same size, a `degF` 5/9 of it).
+pub(super) fn kelvin_difference(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
+    kelvin(p, path, text)
+}
+
 fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
     match split_quantity("temperature difference", text)
         .ok()

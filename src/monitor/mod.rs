@@ -137,6 +137,8 @@ pub struct Evaluation {
     /// equilibrium amount is below the analyser's detection limit: the key component's
     /// measured slip is the headline figure.
     pub approach_not_meaningful: bool,
+    /// The bed temperature rise check, where configured and the inlet was measured.
+    pub bed_rise: Option<crate::bedrise::BedRise>,
 }
 
 /// What happened to an input.
@@ -344,8 +346,11 @@ impl ReactorMonitor {
             }
         }
 
-        // Temperature: average of the fresh thermocouples at the sample time.
+        // Temperature: average of the fresh thermocouples at the sample time (the bed
+        // inlet thermocouple of a bed-rise check apart).
         let mut t_values = Vec::new();
+        let inlet_index = s.bed_rise.as_ref().map(|b| b.inlet);
+        let mut inlet_k = None;
         for (i, ts) in s.temperatures.iter().enumerate() {
             let look = self.temperatures[i].at(t_sample, ms(ts.max_age));
             let (value, age_ms, used) = match look {
@@ -369,7 +374,11 @@ impl ReactorMonitor {
                                 format!("{} reports uncertain quality", ts.tag),
                             );
                         }
-                        t_values.push(value);
+                        if inlet_index == Some(i) {
+                            inlet_k = Some(value);
+                        } else {
+                            t_values.push(value);
+                        }
                         (Some(value), Some(age_ms), true)
                     }
                 }
@@ -547,6 +556,7 @@ impl ReactorMonitor {
             key_measured: None,
             key_equilibrium: None,
             approach_not_meaningful: false,
+            bed_rise: None,
         };
         let complete = comps.len() == s.composition.components.len();
         let wet = if complete {
@@ -709,6 +719,11 @@ impl ReactorMonitor {
                 .map(|i| w.y[i]);
             eval.mole_fractions.clone_from(&w.y);
             not_meaningful_below_detection(s, &mut eval, &mut push);
+            if let (Some(b), Some(t_in)) = (&s.bed_rise, inlet_k) {
+                let gas = model.species().iter().copied().zip(w.y.iter().copied());
+                eval.bed_rise = crate::bedrise::rise_per_mol_percent(db, gas, 0.5 * (t_in + t))
+                    .map(|r| crate::bedrise::BedRise::new(t_in, t, r, b.inlet_co_co2));
+            }
         }
         eval.quality = reasons
             .iter()
@@ -836,14 +851,21 @@ fn aligned(
             });
             used.then_some(value)
         }
-        _ => {
+        other => {
+            let what = match other {
+                Lookup::Stale { nearest_ts_ms } => format!(
+                    "the nearest reading is {} s from the sample time, over its max age of {} s",
+                    (nearest_ts_ms - t_sample).abs() / 1000,
+                    input.max_age.as_secs()
+                ),
+                _ => "no reading has arrived yet".to_string(),
+            };
             push(
                 stale_code,
                 Quality::Bad,
                 format!(
-                    "{}: no reading within {} s of the sample time",
-                    input.tag,
-                    input.max_age.as_secs()
+                    "{}: {what}; check the transmitter and its topic {}",
+                    input.tag, input.topic
                 ),
             );
             inputs.push(InputUse {

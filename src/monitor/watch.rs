@@ -126,6 +126,8 @@ pub struct AlertSettings {
     pub data_quality_after_ms: Option<i64>,
     /// Chattering and stale-alarm alerts for the operator alarms.
     pub self_monitoring: bool,
+    /// Raise when the bed rises this much (K) more than its inlet CO and CO2 explain.
+    pub bed_rise_excess_k: Option<f64>,
 }
 
 impl Default for AlertSettings {
@@ -136,6 +138,7 @@ impl Default for AlertSettings {
             cusum: false,
             data_quality_after_ms: None,
             self_monitoring: true,
+            bed_rise_excess_k: None,
         }
     }
 }
@@ -212,6 +215,8 @@ enum Source {
     DataQuality,
     /// The unit's pressure against `offline_below` (one state change per trip).
     Offline,
+    /// The bed rise above what the inlet CO and CO2 explain, K.
+    BedRise,
     /// Chattering of the alarm at this index.
     Chatter(usize),
     /// Stale alarm at this index.
@@ -508,6 +513,21 @@ impl ReactorWatch {
                 Source::DataQuality,
             )?;
         }
+        if let Some(excess) = al.bed_rise_excess_k {
+            let mut c = alert_config("bed-rise", excess, Direction::High, 0.25 * excess);
+            c.on_delay_samples = 2;
+            c.off_delay_samples = 2;
+            add(
+                Class::Alert,
+                c,
+                "K",
+                format!(
+                    "bed rises more than {} K above what the inlet CO and CO2 explain: carbon oxides breaking through from upstream? check the CO2 removal and the shift converters, and the methanator temperatures",
+                    fmt_num(excess, 3)
+                ),
+                Source::BedRise,
+            )?;
+        }
         if let Some(limit) = s.offline_below_bar {
             // One alert per trip and return; it is never suppressed itself.
             add(
@@ -696,12 +716,12 @@ impl ReactorWatch {
         let mut out = Vec::new();
         // Suppression by design follows the analysis quality.
         let bad = (e.quality == Quality::Bad).then(|| {
-            let codes: Vec<&str> = e
-                .reasons
-                .iter()
-                .filter(|r| r.severity == Quality::Bad)
-                .map(|r| r.code)
-                .collect();
+            let mut codes: Vec<&str> = Vec::new();
+            for r in e.reasons.iter().filter(|r| r.severity == Quality::Bad) {
+                if !codes.contains(&r.code) {
+                    codes.push(r.code);
+                }
+            }
             format!("analysis bad: {}", codes.join(", "))
         });
         if bad != self.analysis_bad {
@@ -752,6 +772,10 @@ impl ReactorWatch {
                     }
                     Some(fig.standing_step_k.unwrap_or(0.0))
                 }
+                Source::BedRise => e
+                    .bed_rise
+                    .and_then(|b| b.excess_k())
+                    .filter(|_| e.quality != Quality::Bad && !self.offline),
                 // Time-based ones are fed by `tick`; the off-line one by `pressure`.
                 Source::DataQuality | Source::Chatter(_) | Source::Stale(_) | Source::Offline => {
                     continue;
@@ -1363,6 +1387,7 @@ mod tests {
             key_measured: Some(5e-6),
             key_equilibrium: None,
             approach_not_meaningful: false,
+            bed_rise: None,
         }
     }
 
@@ -1684,6 +1709,7 @@ mod tests {
                 cusum: true,
                 data_quality_after_ms: Some(30 * MINUTE_MS),
                 self_monitoring: false,
+                bed_rise_excess_k: None,
             },
             alarms: vec![alarm_spec("approach-high", 20.0, 0)],
             offline_below_bar: Some(5.0),
@@ -1813,6 +1839,7 @@ mod tests {
                 cusum: true,
                 data_quality_after_ms: Some(2 * H),
                 self_monitoring: false,
+                bed_rise_excess_k: None,
             },
             alarms: vec![alarm_spec("approach-high", 20.0, 2)],
             offline_below_bar: Some(5.0),
