@@ -209,6 +209,7 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
             equilibrium_temperature_k: None,
             approach_k: None,
             approach_uncertainty_k: None,
+            uncertainty_budget_k: None,
             ln_q_uncertainty: 0.0,
             flags: Flags::default(),
         };
