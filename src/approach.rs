@@ -5,13 +5,19 @@
 //! - Activity a_i = φ_i y_i P/p° with p° = 1 bar; Q = Π a_i^ν_i; ln K from a [`KModel`].
 //! - T_eq solves ln K(T_eq) = ln Q with φ held at the measured T and P.
 //! - Approach ΔT = T − T_eq for endothermic reactions and T_eq − T for exothermic
-//!   ones (sign of ΔH° at the measured T), so ΔT > 0 means "short of equilibrium"
-//!   either way. A negative ΔT (Q beyond K) is reported as it is and flagged, never clipped.
+//!   ones, so ΔT > 0 means "short of equilibrium" (Q < K, forward favoured) and ΔT < 0
+//!   means Q > K, the same rule as the direction. This holds only while ln K is
+//!   monotonic between T and T_eq: ΔH° must have one sign at T, at T_eq and between
+//!   them (sampled), else no approach is published and the result says why
+//!   ([`Flags::ENTHALPY_SIGN_CHANGE`]). A negative ΔT is reported as it is, never
+//!   clipped; it is flagged beyond equilibrium only when it exceeds its own ± (else
+//!   "at equilibrium within uncertainty").
 //! - Affinity A = R T ln(K/Q) in J per mol of reaction as written.
 //! - Uncertainty: first-order propagation of the stated ± half-widths, combined in
 //!   quadrature: δln Q from the analyser (relative, per component), the steam ratio
 //!   and the pressure; δT_eq = δln Q / |d ln K/dT| at T_eq; the thermocouple goes one
-//!   for one into ΔT.
+//!   for one into ΔT. Each input's share is kept ([`UncertaintyBudget`]): the
+//!   root-sum-square of the shares is the approach's ±.
 //!
 //! The hot path ([`ReactorModel::evaluate`]) does not allocate: the caller owns a
 //! [`Scratch`] made once per reactor. Pure: no I/O, no clock.
@@ -61,8 +67,12 @@ impl Flags {
     pub const ZERO_COMPONENT: u32 = 1 << 7;
     pub const COMPOSITION_NORMALISED: u32 = 1 << 8;
     pub const BAD_INPUT: u32 = 1 << 9;
+    /// Q > K, but the negative approach is within its own ± (not a data problem shown).
+    pub const AT_EQUILIBRIUM_WITHIN_UNCERTAINTY: u32 = 1 << 10;
+    /// ΔH° differs in sign between T and T_eq (or changes sign between them): no approach.
+    pub const ENTHALPY_SIGN_CHANGE: u32 = 1 << 11;
 
-    const NAMES: [(u32, &'static str); 10] = [
+    const NAMES: [(u32, &'static str); 12] = [
         (
             Self::TEMPERATURE_OUTSIDE_DATA,
             "temperature_outside_data_range",
@@ -82,6 +92,11 @@ impl Flags {
         (Self::ZERO_COMPONENT, "zero_component"),
         (Self::COMPOSITION_NORMALISED, "composition_normalised"),
         (Self::BAD_INPUT, "bad_input"),
+        (
+            Self::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY,
+            "at_equilibrium_within_uncertainty",
+        ),
+        (Self::ENTHALPY_SIGN_CHANGE, "enthalpy_sign_change"),
     ];
 
     pub fn set(&mut self, bit: u32) {
@@ -100,6 +115,13 @@ impl Flags {
             .filter(move |(b, _)| self.0 & b != 0)
             .map(|(_, n)| n)
     }
+    /// The bit of a flag name from [`Self::names`].
+    pub fn bit_of(name: &str) -> Option<u32> {
+        Self::NAMES
+            .into_iter()
+            .find(|(_, n)| *n == name)
+            .map(|(b, _)| b)
+    }
     /// What a plant engineer should look at for each flag.
     pub fn explain(bit: u32) -> &'static str {
         match bit {
@@ -111,7 +133,13 @@ impl Flags {
             }
             Self::NO_EQUILIBRIUM_TEMPERATURE => "no temperature in range makes K equal Q",
             Self::BEYOND_EQUILIBRIUM => {
-                "Q is beyond K: check the analyser, thermocouple, gauge/absolute pressure, steam ratio or fugacity model"
+                "Q is beyond K by more than the figure's uncertainty: check the analyser, thermocouple, gauge/absolute pressure, steam ratio or fugacity model"
+            }
+            Self::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY => {
+                "Q is past K, but by less than the figure's uncertainty: the gas is at equilibrium as far as the measurements can tell"
+            }
+            Self::ENTHALPY_SIGN_CHANGE => {
+                "ΔH° has a different sign at the measured and the equilibrium temperature (or changes sign between them), so no temperature approach is meaningful"
             }
             Self::THERMONEUTRAL => "ΔH° is nearly zero: a temperature approach means little",
             Self::EOS_MULTIPLE_ROOTS => {
@@ -148,6 +176,36 @@ impl Uncertainty {
     }
 }
 
+/// How much of the approach's ± comes from each input, K. The root-sum-square of the
+/// four is [`Approach::approach_uncertainty_k`].
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct UncertaintyBudget {
+    /// Analyser (every component's relative ±), through ln Q and T_eq.
+    pub composition_k: f64,
+    /// Steam-to-dry-gas ratio (rebuilt water and the dilution of the dry gas).
+    pub steam_ratio_k: f64,
+    /// Pressure transmitter, through P^Δν in Q.
+    pub pressure_k: f64,
+    /// Thermocouple, one for one.
+    pub temperature_k: f64,
+}
+
+impl UncertaintyBudget {
+    /// The shares with their input names, in a fixed order.
+    pub fn parts(&self) -> [(&'static str, f64); 4] {
+        [
+            ("composition", self.composition_k),
+            ("steam_ratio", self.steam_ratio_k),
+            ("pressure", self.pressure_k),
+            ("temperature", self.temperature_k),
+        ]
+    }
+    /// Root-sum-square of the shares, K.
+    pub fn total_k(&self) -> f64 {
+        self.parts().iter().map(|(_, x)| x * x).sum::<f64>().sqrt()
+    }
+}
+
 /// A measured gas in the model's species order.
 #[derive(Debug, Clone, Copy)]
 pub struct GasState<'a> {
@@ -176,6 +234,8 @@ pub struct Approach {
     pub equilibrium_temperature_k: Option<f64>,
     pub approach_k: Option<f64>,
     pub approach_uncertainty_k: Option<f64>,
+    /// Each input's share of `approach_uncertainty_k` (present with it).
+    pub uncertainty_budget_k: Option<UncertaintyBudget>,
     pub ln_q_uncertainty: f64,
     pub flags: Flags,
 }
@@ -348,7 +408,10 @@ impl ReactorModel {
         let props = term.k.properties(t);
         let ln_p = p.ln();
         let mut ln_q = 0.0;
-        let mut var_ln_q = 0.0;
+        // Variance of ln Q by input: analyser, steam ratio, pressure.
+        let mut var_composition = 0.0;
+        let mut var_steam = 0.0;
+        let mut var_pressure = 0.0;
         let water = state.steam_ratio.map(|(_, i)| i);
         let mut nu_dry = 0.0;
         for (i, &nu) in term.nu.iter().enumerate() {
@@ -362,17 +425,18 @@ impl ReactorModel {
             ln_q += nu * (scratch.ln_phi[i] + y.ln() + ln_p);
             if Some(i) != water {
                 nu_dry += nu;
-                var_ln_q += (nu * unc.composition_rel).powi(2);
+                var_composition += (nu * unc.composition_rel).powi(2);
             }
         }
         if let Some((s, w)) = state.steam_ratio {
             // d ln Q / d ln S = ν_w/(1+S) − S/(1+S) Σ_dry ν_i (DOMAIN §5 basis algebra).
             let d = term.nu[w] / (1.0 + s) - s / (1.0 + s) * nu_dry;
-            var_ln_q += (d * unc.steam_ratio_rel).powi(2);
+            var_steam = (d * unc.steam_ratio_rel).powi(2);
         }
         if p > 0.0 {
-            var_ln_q += (term.delta_nu * unc.pressure_bar / p).powi(2);
+            var_pressure = (term.delta_nu * unc.pressure_bar / p).powi(2);
         }
+        let var_ln_q = var_composition + var_steam + var_pressure;
         let ln_q_uncertainty = var_ln_q.sqrt();
         let ln_k = props.ln_k;
         let endothermic = props.delta_h_j_per_mol > 0.0;
@@ -389,6 +453,7 @@ impl ReactorModel {
             equilibrium_temperature_k: None,
             approach_k: None,
             approach_uncertainty_k: None,
+            uncertainty_budget_k: None,
             ln_q_uncertainty,
             flags,
         };
@@ -411,14 +476,55 @@ impl ReactorModel {
         } else if d < 0.0 {
             Direction::Forward
         } else {
-            out.flags.set(Flags::BEYOND_EQUILIBRIUM);
             Direction::Reverse
         };
         // Thermoneutral: |ΔH°| below 1 kJ/mol makes T_eq meaningless [common practice threshold].
         if props.delta_h_j_per_mol.abs() < 1000.0 {
             out.flags.set(Flags::THERMONEUTRAL);
-            return out;
+        } else {
+            self.temperature_approach(
+                term,
+                t,
+                ln_q,
+                unc,
+                [var_composition, var_steam, var_pressure],
+                &mut out,
+            );
         }
+        if out.direction == Direction::Reverse {
+            // Q past K: beyond equilibrium only if by more than the figure's own ±.
+            let within = match (out.approach_k, out.approach_uncertainty_k) {
+                (Some(a), Some(u)) if u > 0.0 => -a <= u,
+                (Some(_), _) => false,
+                // No approach: the same test on ln(Q/K), with the thermocouple's share
+                // through d ln K/dT at the measured T.
+                (None, _) => {
+                    let from_t = props.d_ln_k_dt_per_k * unc.temperature_k;
+                    let u_ln = (var_ln_q + from_t * from_t).sqrt();
+                    u_ln > 0.0 && d <= u_ln
+                }
+            };
+            out.flags.set(if within {
+                Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY
+            } else {
+                Flags::BEYOND_EQUILIBRIUM
+            });
+        }
+        out
+    }
+
+    /// T_eq, the approach and its ± with each input's share, into `out` (whose
+    /// direction is already set). `var_ln_q`: variance of ln Q from the analyser, the
+    /// steam ratio and the pressure. No allocation.
+    fn temperature_approach(
+        &self,
+        term: &ReactionTerm,
+        t: f64,
+        ln_q: f64,
+        unc: &Uncertainty,
+        var_ln_q: [f64; 3],
+        out: &mut Approach,
+    ) {
         let (lo, hi) = term.k.search_range_k();
         // Newton in u = 1/T: ln K is nearly linear in 1/T (van 't Hoff), so this
         // converges in two or three steps from the measured temperature.
@@ -427,28 +533,69 @@ impl ReactorModel {
             let (lk, slope) = term.k.ln_k_and_slope(tt);
             (lk - ln_q, -slope * tt * tt)
         };
-        match newton_bracketed(f, 1.0 / hi, 1.0 / lo, 1.0 / t, 1e-13 / t, 60) {
-            RootOutcome::Converged { x, .. } | RootOutcome::NotConverged { x, .. } => {
-                let t_eq = 1.0 / x;
-                out.equilibrium_temperature_k = Some(t_eq);
-                if !term.k.in_range(t_eq) {
-                    out.flags.set(Flags::EQUILIBRIUM_TEMPERATURE_OUTSIDE_DATA);
-                }
-                let dt = if endothermic { t - t_eq } else { t_eq - t };
-                out.approach_k = Some(dt);
-                let slope = term.k.d_ln_k_dt(t_eq).abs();
-                let u_teq = if slope > 0.0 {
-                    ln_q_uncertainty / slope
-                } else {
-                    f64::INFINITY
-                };
-                out.approach_uncertainty_k =
-                    Some((unc.temperature_k.powi(2) + u_teq.powi(2)).sqrt());
+        let t_eq = match newton_bracketed(f, 1.0 / hi, 1.0 / lo, 1.0 / t, 1e-13 / t, 60) {
+            RootOutcome::Converged { x, .. } | RootOutcome::NotConverged { x, .. } => 1.0 / x,
+            _ => {
+                out.flags.set(Flags::NO_EQUILIBRIUM_TEMPERATURE);
+                return;
             }
-            _ => out.flags.set(Flags::NO_EQUILIBRIUM_TEMPERATURE),
+        };
+        out.equilibrium_temperature_k = Some(t_eq);
+        if !term.k.in_range(t_eq) {
+            out.flags.set(Flags::EQUILIBRIUM_TEMPERATURE_OUTSIDE_DATA);
         }
-        out
+        if !one_enthalpy_sign(&term.k, t, t_eq) {
+            out.flags.set(Flags::ENTHALPY_SIGN_CHANGE);
+            return;
+        }
+        let dt = if out.endothermic { t - t_eq } else { t_eq - t };
+        // With ln K monotonic the sign follows the direction; a root estimate that
+        // missed (iteration budget spent) could break that: publish no approach then.
+        let inconsistent = match out.direction {
+            Direction::Forward => dt <= 0.0,
+            Direction::Reverse => dt >= 0.0,
+            Direction::AtEquilibrium => false,
+        };
+        if inconsistent {
+            out.flags.set(Flags::NO_EQUILIBRIUM_TEMPERATURE);
+            out.equilibrium_temperature_k = None;
+            return;
+        }
+        out.approach_k = Some(dt);
+        let slope = term.k.d_ln_k_dt(t_eq).abs();
+        let share = |var: f64| {
+            if var == 0.0 {
+                0.0
+            } else if slope > 0.0 {
+                var.sqrt() / slope
+            } else {
+                f64::INFINITY
+            }
+        };
+        let budget = UncertaintyBudget {
+            composition_k: share(var_ln_q[0]),
+            steam_ratio_k: share(var_ln_q[1]),
+            pressure_k: share(var_ln_q[2]),
+            temperature_k: unc.temperature_k,
+        };
+        out.approach_uncertainty_k = Some(budget.total_k());
+        out.uncertainty_budget_k = Some(budget);
     }
+}
+
+/// Interior points (in 1/T) at which ΔH° is sampled between T and T_eq, besides the ends.
+const SIGN_SAMPLES: u32 = 7;
+
+/// Whether ΔH° (the sign of d ln K/dT) is the same at `t`, at `t_eq` and at
+/// [`SIGN_SAMPLES`] points between them, so that ln K is monotonic there.
+fn one_enthalpy_sign(k: &KModel, t: f64, t_eq: f64) -> bool {
+    let at_t = k.d_ln_k_dt(t);
+    let (u0, u1) = (1.0 / t, 1.0 / t_eq);
+    (1..=SIGN_SAMPLES + 1).all(|i| {
+        let u = u0 + (u1 - u0) * f64::from(i) / f64::from(SIGN_SAMPLES + 1);
+        let s = k.d_ln_k_dt(1.0 / u);
+        s != 0.0 && s.signum() == at_t.signum()
+    }) && at_t != 0.0
 }
 
 #[cfg(test)]
@@ -661,5 +808,268 @@ mod tests {
         };
         let a = model.evaluate(0, &nan, &s, &Uncertainty::default());
         assert!(a.flags.has(Flags::BAD_INPUT) && a.approach_k.is_none());
+    }
+
+    /// The DOMAIN §8 LTS gas (dry, S/D 0.36312, 30 bar abs) at `t` kelvin.
+    fn lts_gas_at(t: f64, source: KSourceId, unc: &Uncertainty) -> Approach {
+        let db = SpeciesDb::builtin();
+        let r = parse_reaction("CO + H2O = CO2 + H2", &db).unwrap();
+        let k = KModel::from_correlation(source, &r, &db).unwrap();
+        let c = parse_components(
+            "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921",
+            CompositionUnit::Percent,
+        )
+        .unwrap();
+        let w = to_wet(
+            &db,
+            &c,
+            Basis::Dry,
+            Some(WaterSource::SteamRatio(0.36312)),
+            0.02,
+        )
+        .unwrap();
+        let model = ReactorModel::new(&db, vec![(r, k)], &w.species, EosKind::Ideal, None).unwrap();
+        let state = GasState {
+            temperature_k: t,
+            pressure_bar: 30.0,
+            y: &w.y,
+            steam_ratio: w.steam_ratio.zip(w.added_water),
+        };
+        let mut s = model.scratch();
+        model.fugacity(&state, &mut s);
+        model.evaluate(0, &state, &s, unc)
+    }
+
+    /// README quick start: thermocouple ±2 K, analyser ±2 % of reading, steam ratio ±5 %.
+    const README_UNC: Uncertainty = Uncertainty {
+        temperature_k: 2.0,
+        pressure_bar: 0.0,
+        composition_rel: 0.02,
+        steam_ratio_rel: 0.05,
+    };
+
+    #[test]
+    fn sign_direction_and_beyond_flag_table() {
+        // DOMAIN §8 [derived]: with Moe K this gas is at equilibrium at 220 °C + 12.00 K
+        // = 505.15 K. Read at other temperatures the approach is T_eq − T (exothermic);
+        // its ± with README_UNC is about 3.9 K (README quick start: 3.936563 K).
+        let none = Uncertainty::default();
+        struct Case {
+            t: f64,
+            unc: Uncertainty,
+            approach: Option<f64>,
+            direction: Direction,
+            beyond: bool,
+            within: bool,
+        }
+        let cases = [
+            // Short of equilibrium: +12.00 K, forward.
+            Case {
+                t: 493.15,
+                unc: README_UNC,
+                approach: Some(12.00),
+                direction: Direction::Forward,
+                beyond: false,
+                within: false,
+            },
+            // 2.85 K past T_eq with a ±3.9 K figure: at equilibrium within uncertainty.
+            Case {
+                t: 508.0,
+                unc: README_UNC,
+                approach: Some(-2.85),
+                direction: Direction::Reverse,
+                beyond: false,
+                within: true,
+            },
+            // 9.85 K past T_eq: beyond its ±3.9 K.
+            Case {
+                t: 515.0,
+                unc: README_UNC,
+                approach: Some(-9.85),
+                direction: Direction::Reverse,
+                beyond: true,
+                within: false,
+            },
+            // No uncertainty given: any Q past K beyond the band stays beyond equilibrium.
+            Case {
+                t: 508.0,
+                unc: none,
+                approach: Some(-2.85),
+                direction: Direction::Reverse,
+                beyond: true,
+                within: false,
+            },
+        ];
+        for c in cases {
+            let a = lts_gas_at(c.t, KSourceId::Moe1962, &c.unc);
+            match (c.approach, a.approach_k) {
+                (Some(want), Some(got)) => assert!((got - want).abs() < 0.01, "T {}: {a:?}", c.t),
+                (want, got) => assert_eq!(want.is_some(), got.is_some(), "T {}: {a:?}", c.t),
+            }
+            assert_eq!(a.direction, c.direction, "T {}", c.t);
+            assert_eq!(
+                a.flags.has(Flags::BEYOND_EQUILIBRIUM),
+                c.beyond,
+                "T {}: {a:?}",
+                c.t
+            );
+            assert_eq!(
+                a.flags.has(Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY),
+                c.within,
+                "T {}: {a:?}",
+                c.t
+            );
+        }
+    }
+
+    #[test]
+    fn no_approach_where_the_enthalpy_changes_sign() {
+        // The NASA fits (TM-4513) hold to 6000 K; extrapolated to 7000 K the shift's
+        // ΔH° comes out positive, while at the gas's T_eq near 510 K it is about −39 kJ/mol
+        // (NASA data). The old rule took "endothermic" at 7000 K and printed +6490 K beside
+        // direction reverse; now no approach is given, and the flags say why.
+        let a = lts_gas_at(7000.0, KSourceId::SpeciesData, &README_UNC);
+        assert!(a.delta_h_j_per_mol > 0.0, "{a:?}");
+        assert_eq!(a.direction, Direction::Reverse);
+        assert!(
+            a.approach_k.is_none() && a.approach_uncertainty_k.is_none(),
+            "{a:?}"
+        );
+        assert!(a.uncertainty_budget_k.is_none());
+        assert!(a.flags.has(Flags::ENTHALPY_SIGN_CHANGE), "{a:?}");
+        assert!(a.flags.has(Flags::TEMPERATURE_OUTSIDE_DATA), "{a:?}");
+        // Q is far past K there (ln(Q/K) ≫ its ±): beyond equilibrium, by ln(Q/K).
+        assert!(a.flags.has(Flags::BEYOND_EQUILIBRIUM), "{a:?}");
+        // Moe's correlation has one sign of ΔH° everywhere: a (large) negative approach.
+        let m = lts_gas_at(7000.0, KSourceId::Moe1962, &README_UNC);
+        assert!(m.approach_k.unwrap() < -6000.0, "{m:?}");
+        assert!(!m.flags.has(Flags::ENTHALPY_SIGN_CHANGE));
+    }
+
+    #[test]
+    fn uncertainty_budget_adds_up_in_quadrature() {
+        let a = lts_gas_at(493.15, KSourceId::Moe1962, &README_UNC);
+        let b = a.uncertainty_budget_k.unwrap();
+        let u = a.approach_uncertainty_k.unwrap();
+        let sum: f64 = b.parts().iter().map(|(_, x)| x * x).sum();
+        assert!((sum - u * u).abs() < 1e-9, "{b:?} vs {u}");
+        // README quick start (this code's output before the budget existed): ±3.936563 K.
+        assert!((u - 3.936563).abs() < 1e-6, "{u}");
+        assert_eq!(b.temperature_k, 2.0);
+        assert_eq!(b.pressure_k, 0.0, "no pressure ± given");
+        // The analyser share alone is the ln Q part over |d ln K/dT| at T_eq: with only
+        // the analyser given, the whole ± is that share.
+        let only = Uncertainty {
+            composition_rel: 0.02,
+            ..Default::default()
+        };
+        let c = lts_gas_at(493.15, KSourceId::Moe1962, &only);
+        assert!((c.approach_uncertainty_k.unwrap() - b.composition_k).abs() < 1e-12);
+    }
+
+    #[test]
+    fn demo_reformer_budget_is_dominated_by_the_steam_ratio() {
+        // config/demo-plant.toml ref1 (invented): ±2 K, ±0.2 bar, ±2 % of reading, ±5 %
+        // steam ratio; gas of DOMAIN §8 (dry, S/D 0.63549) read at 808 °C and 30 bar abs.
+        // The issue "Alerts and figures a plant engineer can trust" saw 3.8 K of 5.1 K
+        // from the steam ratio for this reformer.
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml");
+        let settings = crate::config::load(&path).unwrap();
+        let r = settings.reactors.iter().find(|r| r.id == "ref1").unwrap();
+        let db = SpeciesDb::builtin();
+        let c = parse_components(
+            "CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668",
+            CompositionUnit::Percent,
+        )
+        .unwrap();
+        let w = to_wet(
+            &db,
+            &c,
+            Basis::Dry,
+            Some(WaterSource::SteamRatio(0.63549)),
+            0.02,
+        )
+        .unwrap();
+        assert_eq!(w.species, r.model.species(), "gas in the model's order");
+        let state = GasState {
+            temperature_k: 808.0 + 273.15,
+            pressure_bar: 30.0,
+            y: &w.y,
+            steam_ratio: w.steam_ratio.zip(w.added_water),
+        };
+        let mut s = r.model.scratch();
+        r.model.fugacity(&state, &mut s);
+        let a = r.model.evaluate(0, &state, &s, &r.uncertainty);
+        let b = a.uncertainty_budget_k.unwrap();
+        let u = a.approach_uncertainty_k.unwrap();
+        let sum: f64 = b.parts().iter().map(|(_, x)| x * x).sum();
+        assert!((sum - u * u).abs() < 1e-9);
+        for (name, x) in b.parts() {
+            assert!(
+                name == "steam_ratio" || x < b.steam_ratio_k,
+                "{name} {x} vs {b:?}"
+            );
+        }
+        assert!((b.steam_ratio_k - 3.8).abs() < 0.1, "{b:?}");
+        assert!((u - 5.1).abs() < 0.1, "{u}");
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(256))]
+        /// For any gas and temperature: approach > 0 exactly when Q < K (outside the
+        /// band), beyond equilibrium only when −approach exceeds its ±, and the budget's
+        /// squares add up to the ±².
+        #[test]
+        fn approach_sign_follows_direction(
+            y in proptest::collection::vec(1e-4f64..1.0, 5),
+            t in 300.0f64..7000.0,
+            which in 0usize..3,
+            comp_rel in 0.0f64..0.1,
+            t_unc in 0.0f64..5.0,
+            p_unc in 0.0f64..1.0,
+        ) {
+            let db = SpeciesDb::builtin();
+            let (eq, src) = [
+                ("CO + H2O = CO2 + H2", KSourceId::Moe1962),
+                ("CO + H2O = CO2 + H2", KSourceId::SpeciesData),
+                ("CH4 + H2O = CO + 3 H2", KSourceId::SpeciesData),
+            ][which];
+            let r = parse_reaction(eq, &db).unwrap();
+            let k = KModel::from_correlation(src, &r, &db).unwrap();
+            let names = ["CH4", "CO", "CO2", "H2", "H2O"];
+            let sum: f64 = y.iter().sum();
+            let text: Vec<String> = names.iter().zip(&y).map(|(n, v)| format!("{n}={}", v / sum)).collect();
+            let c = parse_components(&text.join(","), CompositionUnit::Fraction).unwrap();
+            let w = to_wet(&db, &c, Basis::Wet, None, 0.02).unwrap();
+            let model = ReactorModel::new(&db, vec![(r, k)], &w.species, EosKind::Ideal, None).unwrap();
+            let state = GasState { temperature_k: t, pressure_bar: 30.0, y: &w.y, steam_ratio: None };
+            let mut s = model.scratch();
+            model.fugacity(&state, &mut s);
+            let unc = Uncertainty { temperature_k: t_unc, pressure_bar: p_unc, composition_rel: comp_rel, steam_ratio_rel: 0.0 };
+            let a = model.evaluate(0, &state, &s, &unc);
+            let d = a.ln_q - a.ln_k;
+            let beyond = a.flags.has(Flags::BEYOND_EQUILIBRIUM);
+            let within = a.flags.has(Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY);
+            proptest::prop_assert!(!(beyond && within));
+            if beyond || within {
+                proptest::prop_assert_eq!(a.direction, Direction::Reverse);
+            }
+            if let Some(x) = a.approach_k {
+                let u = a.approach_uncertainty_k.unwrap();
+                if d.abs() > model.band_ln {
+                    proptest::prop_assert_eq!(x > 0.0, d < 0.0, "{:?}", a);
+                    proptest::prop_assert_eq!(x > 0.0, a.direction == Direction::Forward);
+                }
+                if a.direction == Direction::Reverse {
+                    proptest::prop_assert_eq!(beyond, u == 0.0 || -x > u, "{:?}", a);
+                    proptest::prop_assert_eq!(within, !beyond);
+                }
+                let b = a.uncertainty_budget_k.unwrap();
+                let sq: f64 = b.parts().iter().map(|(_, v)| v * v).sum();
+                proptest::prop_assert!((sq - u * u).abs() <= 1e-9 * (u * u).max(1.0), "{:?}", b);
+            } else {
+                proptest::prop_assert!(a.uncertainty_budget_k.is_none());
+            }
+        }
     }
 }

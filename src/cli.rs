@@ -14,7 +14,8 @@ use crate::thermo::ksource::{KModel, KSourceId};
 use crate::thermo::reaction::{Reaction, parse_reaction, unknown_hint};
 use crate::thermo::species::{ELEMENTS, SpeciesDb};
 use crate::units::{
-    CompositionUnit, parse_pressure_with_atmosphere, parse_temperature, split_quantity,
+    CompositionUnit, TemperatureUnit, parse_pressure_with_atmosphere, parse_temperature,
+    split_quantity,
 };
 
 #[derive(Debug, Error)]
@@ -173,6 +174,47 @@ fn approach_keys(m: &mut Map<String, Value>, a: &Approach) {
         opt(a.approach_uncertainty_k),
     );
     m.insert("ln_q_uncertainty".into(), finite(a.ln_q_uncertainty));
+    m.insert(
+        "uncertainty_budget_k".into(),
+        a.uncertainty_budget_k.map_or(Value::Null, |b| {
+            Value::Object(
+                b.parts()
+                    .iter()
+                    .map(|(n, x)| ((*n).to_string(), finite(*x)))
+                    .collect(),
+            )
+        }),
+    );
+}
+
+/// The ± inputs as given (`null` when none was given).
+fn uncertainty_given(u: Option<&Uncertainty>) -> Value {
+    u.map_or(Value::Null, |u| {
+        json!({
+            "temperature_k": u.temperature_k,
+            "pressure_bar": u.pressure_bar,
+            "composition_relative": u.composition_rel,
+            "steam_ratio_relative": u.steam_ratio_rel,
+        })
+    })
+}
+
+/// One sentence per reaction whose K is used outside its source's valid range.
+fn range_warnings(t: f64, rx: &[(Reaction, KModel)]) -> Value {
+    Value::Array(
+        rx.iter()
+            .filter(|(_, k)| !k.in_range(t))
+            .map(|(r, k)| {
+                let (lo, hi) = k.valid_range_k();
+                json!(format!(
+                    "{t:.2} K is outside the valid range {lo:.0}-{hi:.0} K of K source {} ({}) for {}: K is extrapolated, do not rely on these figures",
+                    k.id().as_str(),
+                    k.id().citation(),
+                    r.canonical()
+                ))
+            })
+            .collect(),
+    )
 }
 
 /// `eqwatch calc`: returns the JSON object (the table view is made from it).
@@ -209,6 +251,7 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
             equilibrium_temperature_k: None,
             approach_k: None,
             approach_uncertainty_k: None,
+            uncertainty_budget_k: None,
             ln_q_uncertainty: 0.0,
             flags: Flags::default(),
         };
@@ -218,6 +261,7 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
             flags.set(Flags::TEMPERATURE_OUTSIDE_DATA);
         }
         out.insert("flags".into(), flag_list(flags));
+        out.insert("warnings".into(), range_warnings(t, &rx[..1]));
         if let Some(p) = &inp.pressure {
             let p = parse_pressure_with_atmosphere(p, atmosphere)
                 .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
@@ -307,6 +351,11 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
     standard_keys(&mut out, r0, k0, &results[0]);
     approach_keys(&mut out, &results[0]);
     out.insert("flags".into(), flag_list(results[0].flags));
+    out.insert("warnings".into(), range_warnings(t, &rx));
+    out.insert(
+        "uncertainty_given".into(),
+        uncertainty_given(inp.uncertainty.as_ref().map(|_| &unc)),
+    );
     out.insert("pressure_bar".into(), json!(p));
     out.insert("eos".into(), json!(eos.as_str()));
     out.insert("compressibility_factor".into(), finite(scratch.z));
@@ -681,4 +730,539 @@ pub fn table(v: &Value) -> String {
         }
     }
     out
+}
+
+/// The unit of a `--temperature` text (kelvin if it cannot be read; `calc` has
+/// refused such a text already).
+pub fn temperature_unit_of(text: &str) -> TemperatureUnit {
+    split_quantity("temperature", text)
+        .ok()
+        .and_then(|(_, u)| TemperatureUnit::parse(u).ok())
+        .unwrap_or(TemperatureUnit::Kelvin)
+}
+
+/// A temperature in the unit the user gave, to 0.01.
+fn temperature_text(k: f64, unit: TemperatureUnit) -> String {
+    match unit {
+        TemperatureUnit::Kelvin => format!("{k:.2} K"),
+        TemperatureUnit::Celsius => format!("{:.2} °C", k - 273.15),
+        TemperatureUnit::Fahrenheit => format!("{:.2} °F", (k - 273.15) * 1.8 + 32.0),
+        TemperatureUnit::Rankine => format!("{:.2} °R", k * 1.8),
+    }
+}
+
+/// A temperature difference ± u in K, with °F/°R beside it for those units.
+fn difference_text(dk: f64, u: f64, unit: TemperatureUnit, sign: &str) -> String {
+    let k = format!("{sign}{dk:.2} ± {u:.2} K");
+    match unit {
+        TemperatureUnit::Kelvin | TemperatureUnit::Celsius => k,
+        TemperatureUnit::Fahrenheit => format!("{k} ({sign}{:.2} ± {:.2} °F)", dk * 1.8, u * 1.8),
+        TemperatureUnit::Rankine => format!("{k} ({sign}{:.2} ± {:.2} °R)", dk * 1.8, u * 1.8),
+    }
+}
+
+/// `n` significant figures; plain notation from 1e-4 to below 1e6, else scientific.
+fn significant(x: f64, n: usize) -> String {
+    if !x.is_finite() {
+        return "-".into();
+    }
+    if x == 0.0 {
+        return "0".into();
+    }
+    let e = x.abs().log10().floor() as i32;
+    if !(-4..6).contains(&e) {
+        return format!("{:.*e}", n.saturating_sub(1), x);
+    }
+    let decimals = (n as i32 - 1 - e).max(0) as usize;
+    format!("{x:.decimals$}")
+}
+
+fn number(m: &Value, key: &str) -> Option<f64> {
+    m.get(key).and_then(Value::as_f64)
+}
+
+fn kj(m: &Value, key: &str) -> String {
+    number(m, key).map_or("-".into(), |x| format!("{:.2} kJ/mol", x / 1000.0))
+}
+
+/// Budget keys as a plant engineer names the inputs.
+fn input_words(key: &str) -> &str {
+    match key {
+        "composition" => "analyser",
+        "steam_ratio" => "steam ratio",
+        "temperature" => "thermocouple",
+        other => other,
+    }
+}
+
+fn direction_words(d: &str) -> &'static str {
+    match d {
+        "forward" => {
+            "forward: Q < K, short of equilibrium (the reaction as written can still proceed)"
+        }
+        "reverse" => {
+            "reverse: Q > K, the gas is past equilibrium (the reverse reaction is favoured)"
+        }
+        "at_equilibrium" => "at equilibrium: Q within the band around K",
+        _ => "-",
+    }
+}
+
+/// Flags as words, one per line with what to look at.
+fn flag_rows(out: &mut String, m: &Value) {
+    let names: Vec<&str> = m["flags"]
+        .as_array()
+        .map(|a| a.iter().filter_map(Value::as_str).collect())
+        .unwrap_or_default();
+    if names.is_empty() {
+        out.push_str("  flags             none\n");
+    }
+    for (i, n) in names.iter().enumerate() {
+        let why = Flags::bit_of(n).map_or("", Flags::explain);
+        let label = if i == 0 { "flags" } else { "" };
+        out.push_str(&format!("  {label:<17} {}: {why}\n", n.replace('_', " ")));
+    }
+}
+
+/// The headline rows of one reaction: approach ± u with its budget, T_eq, Q/K, direction, flags.
+fn reaction_rows(out: &mut String, m: &Value, unit: TemperatureUnit, given: bool) {
+    match number(m, "approach_k") {
+        Some(a) => {
+            let u = number(m, "approach_uncertainty_k");
+            let sign = if a > 0.0 { "+" } else { "" };
+            let text = match (u, given) {
+                (Some(u), true) => difference_text(a, u, unit, sign),
+                (None, true) => format!("{sign}{a:.2} K ± (not finite)"),
+                _ => format!("{sign}{a:.2} K   (no uncertainty given)"),
+            };
+            out.push_str(&format!("  approach          {text}\n"));
+            if let (true, Some(b)) = (given, m["uncertainty_budget_k"].as_object()) {
+                let mut parts: Vec<(&str, f64)> = b
+                    .iter()
+                    .filter_map(|(k, v)| v.as_f64().map(|x| (k.as_str(), x)))
+                    .filter(|(_, x)| *x > 0.0)
+                    .collect();
+                parts.sort_by(|a, b| b.1.total_cmp(&a.1));
+                let text: Vec<String> = parts
+                    .iter()
+                    .map(|(k, x)| format!("{} {x:.2} K", input_words(k)))
+                    .collect();
+                if !text.is_empty() {
+                    out.push_str(&format!("  ± from            {}\n", text.join(", ")));
+                }
+            }
+        }
+        None => {
+            let why = [
+                "enthalpy_sign_change",
+                "no_equilibrium_temperature",
+                "thermoneutral",
+            ]
+            .iter()
+            .find(|f| {
+                m["flags"]
+                    .as_array()
+                    .is_some_and(|a| a.iter().any(|x| x == **f))
+            })
+            .and_then(|f| Flags::bit_of(f))
+            .map_or("not available", Flags::explain);
+            out.push_str(&format!("  approach          none: {why}\n"));
+        }
+    }
+    let t_eq =
+        number(m, "equilibrium_temperature_k").map_or("-".into(), |x| temperature_text(x, unit));
+    out.push_str(&format!("  T equilibrium     {t_eq}\n"));
+    let qk = number(m, "q_over_k").map_or("-".into(), |x| significant(x, 4));
+    out.push_str(&format!("  Q/K               {qk}\n"));
+    out.push_str(&format!(
+        "  direction         {}\n",
+        direction_words(m["direction"].as_str().unwrap_or(""))
+    ));
+    flag_rows(out, m);
+}
+
+/// Mole per cent with four significant figures.
+fn mol_percent(x: Option<f64>) -> String {
+    x.map_or("-".into(), |x| {
+        format!("{} mol %", significant(x * 100.0, 4))
+    })
+}
+
+/// The `eqwatch calc` table: warnings, a headline block (approach ± u, temperatures in
+/// the user's unit, Q/K, direction in words, key component on the analyser's basis,
+/// flags in words) for each reaction, then the details.
+pub fn calc_table(v: &Value, unit: TemperatureUnit) -> String {
+    let mut o = String::new();
+    o.push_str("eqwatch calc: advisory figures only; not a safety function\n");
+    if let Some(w) = v["warnings"].as_array().filter(|w| !w.is_empty()) {
+        o.push('\n');
+        for x in w {
+            o.push_str(&format!("WARNING: {}\n", x.as_str().unwrap_or("")));
+        }
+    }
+    o.push('\n');
+    let t = number(v, "temperature_k").unwrap_or(f64::NAN);
+    let reactions: Vec<&Value> = std::iter::once(v)
+        .chain(v["other_reactions"].as_array().into_iter().flatten())
+        .collect();
+    let head = |o: &mut String, i: usize, m: &Value| {
+        let endo = match m["endothermic"].as_bool() {
+            Some(true) => "endothermic",
+            Some(false) => "exothermic",
+            None => "-",
+        };
+        let label = if reactions.len() > 1 {
+            format!("Reaction {} of {}: ", i + 1, reactions.len())
+        } else {
+            "Reaction: ".into()
+        };
+        o.push_str(&format!(
+            "{label}{}   [K: {}; {endo} at T, ΔH° {}]\n",
+            m["reaction"].as_str().unwrap_or("-"),
+            m["k_source"].as_str().unwrap_or("-"),
+            kj(m, "delta_h_j_per_mol")
+        ));
+    };
+    if v.get("ln_q").is_none() {
+        // K only.
+        o.push_str(&format!("At {}\n", temperature_text(t, unit)));
+        head(&mut o, 0, v);
+        let lnk = number(v, "ln_k").unwrap_or(f64::NAN);
+        o.push_str(&format!(
+            "  K                 {}\n",
+            significant(lnk.exp(), 4)
+        ));
+        o.push_str(&format!("  ln K              {lnk:.4}\n"));
+        o.push_str(&format!(
+            "  ΔG°               {}\n",
+            kj(v, "delta_g_j_per_mol")
+        ));
+        o.push_str(&format!(
+            "  ΔS°               {}\n",
+            number(v, "delta_s_j_per_mol_k").map_or("-".into(), |x| format!("{x:.2} J/(mol K)"))
+        ));
+        flag_rows(&mut o, v);
+        o.push_str(&format!(
+            "  K source          {}\n",
+            v["k_source_citation"].as_str().unwrap_or("-")
+        ));
+        return o;
+    }
+    let given = !v["uncertainty_given"].is_null();
+    let dry = v["basis"] == "dry";
+    o.push_str(&format!(
+        "At {} and {:.2} bar abs; {} gas; {} analysis{}\n\n",
+        temperature_text(t, unit),
+        number(v, "pressure_bar").unwrap_or(f64::NAN),
+        v["eos"].as_str().unwrap_or("-"),
+        v["basis"].as_str().unwrap_or("-"),
+        number(v, "steam_ratio").map_or(String::new(), |s| format!(", steam/dry gas {s:.4}"))
+    ));
+    for (i, m) in reactions.iter().enumerate() {
+        head(&mut o, i, m);
+        reaction_rows(&mut o, m, unit, given);
+        o.push('\n');
+    }
+    let key = v["key_component"].as_str().unwrap_or("-");
+    let (measured, equilibrium, basis) = if dry && v.get("key_measured_dry_mole_fraction").is_some()
+    {
+        (
+            number(v, "key_measured_dry_mole_fraction"),
+            number(v, "key_equilibrium_dry_mole_fraction"),
+            "dry",
+        )
+    } else {
+        (
+            number(v, "key_measured_mole_fraction"),
+            number(v, "key_equilibrium_mole_fraction"),
+            "wet",
+        )
+    };
+    o.push_str(&format!(
+        "Key component {key} ({basis} basis): measured {}, at equilibrium {}\n",
+        mol_percent(measured),
+        mol_percent(equilibrium)
+    ));
+    if v["equilibrium_converged"] == false {
+        o.push_str(&format!(
+            "  equilibrium composition not found: {}\n",
+            v["equilibrium_reason"].as_str().unwrap_or("-")
+        ));
+    }
+    // Details.
+    o.push_str("\nDetails\n");
+    for (i, m) in reactions.iter().enumerate() {
+        o.push_str(&format!(
+            "  reaction {}: {}\n",
+            i + 1,
+            m["reaction"].as_str().unwrap_or("-")
+        ));
+        let range = m["k_valid_range_k"]
+            .as_array()
+            .map(|r| {
+                format!(
+                    "{:.0}-{:.0} K",
+                    r.first().and_then(Value::as_f64).unwrap_or(f64::NAN),
+                    r.get(1).and_then(Value::as_f64).unwrap_or(f64::NAN)
+                )
+            })
+            .unwrap_or_default();
+        o.push_str(&format!(
+            "    K source        {}: {}\n    K valid         {range}\n",
+            m["k_source"].as_str().unwrap_or("-"),
+            m["k_source_citation"].as_str().unwrap_or("-")
+        ));
+        let ln_q_pm = match number(m, "ln_q_uncertainty") {
+            Some(x) if given => format!(" (ln Q ± {x:.4})"),
+            _ => String::new(),
+        };
+        o.push_str(&format!(
+            "    ln K, ln Q      {:.4}, {:.4}{ln_q_pm}\n",
+            number(m, "ln_k").unwrap_or(f64::NAN),
+            number(m, "ln_q").unwrap_or(f64::NAN),
+        ));
+        o.push_str(&format!(
+            "    ΔG°, ΔH°, ΔS°   {}, {}, {}\n",
+            kj(m, "delta_g_j_per_mol"),
+            kj(m, "delta_h_j_per_mol"),
+            number(m, "delta_s_j_per_mol_k").map_or("-".into(), |x| format!("{x:.2} J/(mol K)"))
+        ));
+        o.push_str(&format!(
+            "    affinity        {} (R T ln(K/Q))\n",
+            kj(m, "affinity_j_per_mol")
+        ));
+        o.push_str(&format!(
+            "    T, T_eq         {:.2} K, {}\n",
+            t,
+            number(m, "equilibrium_temperature_k").map_or("-".into(), |x| format!("{x:.2} K"))
+        ));
+    }
+    o.push_str(&format!(
+        "  gas               {} (Z {}); wet mole fractions in mol %\n",
+        v["eos"].as_str().unwrap_or("-"),
+        number(v, "compressibility_factor").map_or("-".into(), |z| format!("{z:.4}"))
+    ));
+    o.push_str(&format!(
+        "    {:<8} {:>12} {:>14} {:>8}\n",
+        "species", "measured", "equilibrium", "φ"
+    ));
+    if let Some(y) = v["mole_fractions"].as_object() {
+        for (n, x) in y {
+            let pct = |val: &Value| {
+                val.as_f64()
+                    .map_or("-".into(), |x| significant(x * 100.0, 5))
+            };
+            o.push_str(&format!(
+                "    {n:<8} {:>12} {:>14} {:>8}\n",
+                pct(x),
+                pct(&v["equilibrium_mole_fractions"][n]),
+                v["fugacity_coefficients"][n]
+                    .as_f64()
+                    .map_or("-".into(), |p| format!("{p:.4}"))
+            ));
+        }
+    }
+    if let Some(s) = v["sensitivity"].as_object() {
+        let pct = |k: &str| {
+            s.get(k)
+                .and_then(Value::as_f64)
+                .map_or("-".into(), |x| significant(x * 100.0, 4))
+        };
+        o.push_str(&format!(
+            "  sensitivity       equilibrium {} (wet mol %): {} now; T −5 K {}, T +5 K {}, P +10 bar {}, steam/dry gas +0.1 {}\n",
+            s.get("key_component").and_then(Value::as_str).unwrap_or("-"),
+            pct("base"),
+            pct("temperature_minus_5_k"),
+            pct("temperature_plus_5_k"),
+            pct("pressure_plus_10_bar"),
+            pct("steam_ratio_plus_0_1")
+        ));
+    }
+    if let Some(u) = v["uncertainty_given"].as_object() {
+        let g = |k: &str| u.get(k).and_then(Value::as_f64).unwrap_or(f64::NAN);
+        o.push_str(&format!(
+            "  ± given           thermocouple {} K, pressure {} bar, analyser {} % of reading, steam ratio {} %\n",
+            g("temperature_k"),
+            g("pressure_bar"),
+            g("composition_relative") * 100.0,
+            g("steam_ratio_relative") * 100.0
+        ));
+    }
+    o
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// README quick start: the LTS outlet with Moe's K, ±2 K, ±2 % of reading, ±5 % steam.
+    fn lts(temperature: &str, k_source: &str, uncertainty: Option<&str>) -> CalcInput {
+        CalcInput {
+            reactions: vec!["CO + H2O = CO2 + H2".into()],
+            k_sources: vec![k_source.into()],
+            temperature: temperature.into(),
+            pressure: Some("29 barg".into()),
+            composition: Some("H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921".into()),
+            composition_unit: "mol%".into(),
+            basis: "dry".into(),
+            steam_ratio: Some(0.36312),
+            eos: "ideal".into(),
+            uncertainty: uncertainty.map(Into::into),
+            sum_tolerance: "2 mol%".into(),
+            ..Default::default()
+        }
+    }
+
+    const README_UNC: &str = "temperature=2K,composition=2%,steam-ratio=5%";
+
+    #[test]
+    fn calc_json_keeps_its_keys_and_adds_the_budget() {
+        let db = SpeciesDb::builtin();
+        let v = calc(&db, &lts("220 degC", "moe-1962", Some(README_UNC))).unwrap();
+        // Keys the README and scripts/crosscheck_*.py read stay as they were.
+        for k in [
+            "temperature_k",
+            "ln_k",
+            "ln_q",
+            "q_over_k",
+            "direction",
+            "approach_k",
+            "approach_uncertainty_k",
+            "equilibrium_temperature_k",
+            "delta_g_j_per_mol",
+            "delta_h_j_per_mol",
+            "delta_s_j_per_mol_k",
+            "pressure_bar",
+            "fugacity_coefficients",
+            "mole_fractions",
+            "compressibility_factor",
+            "flags",
+            "key_measured_dry_mole_fraction",
+            "key_equilibrium_dry_mole_fraction",
+        ] {
+            assert!(v.get(k).is_some(), "{k} missing");
+        }
+        // README quick start figures (this program's output, recorded there).
+        assert!((v["approach_k"].as_f64().unwrap() - 11.999225).abs() < 1e-6);
+        let u = v["approach_uncertainty_k"].as_f64().unwrap();
+        assert!((u - 3.936563).abs() < 1e-6);
+        let b = v["uncertainty_budget_k"].as_object().unwrap();
+        let sq: f64 = ["composition", "steam_ratio", "pressure", "temperature"]
+            .iter()
+            .map(|k| b[*k].as_f64().unwrap().powi(2))
+            .sum();
+        assert!((sq - u * u).abs() < 1e-9, "{b:?}");
+        assert_eq!(v["warnings"], json!([]));
+        assert_eq!(v["uncertainty_given"]["composition_relative"], 0.02);
+    }
+
+    #[test]
+    fn table_leads_with_the_headline_in_the_users_unit() {
+        let db = SpeciesDb::builtin();
+        let v = calc(&db, &lts("220 degC", "moe-1962", Some(README_UNC))).unwrap();
+        let t = calc_table(&v, temperature_unit_of("220 degC"));
+        let details = t.find("Details").unwrap();
+        // DOMAIN §8 [derived]: approach 12.00 K, T_eq 220 °C + 12 K, measured CO 0.28697 %
+        // dry against 0.23128 % dry at equilibrium, Q/K ≈ 0.802.
+        for want in [
+            "At 220.00 °C",
+            "approach          +12.00 ± 3.94 K",
+            "T equilibrium     232.00 °C",
+            "Q/K               0.8021",
+            "direction         forward: Q < K",
+            "Key component CO (dry basis): measured 0.2870 mol %, at equilibrium 0.2313 mol %",
+            "flags             none",
+        ] {
+            let at = t
+                .find(want)
+                .unwrap_or_else(|| panic!("`{want}` not in\n{t}"));
+            assert!(at < details, "`{want}` after the details");
+        }
+        // Each input's share, largest first: the steam ratio here.
+        assert!(
+            t.contains(
+                "± from            steam ratio 2.79 K, thermocouple 2.00 K, analyser 1.93 K"
+            ),
+            "{t}"
+        );
+        assert!(!t.contains("0.000000"), "{t}");
+    }
+
+    #[test]
+    fn table_without_uncertainty_has_no_zero_plus_minus_and_rows_per_reaction() {
+        let db = SpeciesDb::builtin();
+        let inp = CalcInput {
+            reactions: vec!["CH4 + H2O = CO + 3 H2".into(), "CO + H2O = CO2 + H2".into()],
+            k_sources: vec!["xu-froment-1989".into()],
+            temperature: "1081.15 K".into(),
+            pressure: Some("30 bara".into()),
+            composition: Some("CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668".into()),
+            composition_unit: "mol%".into(),
+            basis: "dry".into(),
+            steam_ratio: Some(0.63549),
+            eos: "ideal".into(),
+            sum_tolerance: "2 mol%".into(),
+            ..Default::default()
+        };
+        let v = calc(&db, &inp).unwrap();
+        let t = calc_table(&v, temperature_unit_of(&inp.temperature));
+        // README: reforming +12.00 K, the shift −12.0 K beyond equilibrium (no ± given).
+        assert!(t.contains("Reaction 1 of 2: CH4 + H2O = CO + 3 H2"), "{t}");
+        assert!(t.contains("Reaction 2 of 2: CO + H2O = CO2 + H2"), "{t}");
+        assert!(
+            t.contains("approach          +12.00 K   (no uncertainty given)"),
+            "{t}"
+        );
+        assert!(
+            t.contains("approach          -12.00 K   (no uncertainty given)"),
+            "{t}"
+        );
+        assert!(t.contains("T equilibrium     1069.15 K"), "{t}");
+        assert!(t.contains("beyond equilibrium: Q is beyond K"), "{t}");
+        assert!(!t.contains('±'), "no ± without an uncertainty:\n{t}");
+        assert!(!t.contains('{'), "no JSON in the table:\n{t}");
+    }
+
+    #[test]
+    fn out_of_range_temperature_is_a_warning_on_top() {
+        let db = SpeciesDb::builtin();
+        let v = calc(&db, &lts("7000 K", "species-data", Some(README_UNC))).unwrap();
+        let w = v["warnings"].as_array().unwrap();
+        assert_eq!(w.len(), 1, "{w:?}");
+        let w = w[0].as_str().unwrap();
+        // NASA TM-4513 fits of the built-in data cover 200-6000 K.
+        assert!(
+            w.contains("200-6000 K") && w.contains("species-data"),
+            "{w}"
+        );
+        assert!(
+            v["flags"]
+                .as_array()
+                .unwrap()
+                .contains(&json!("temperature_outside_data_range"))
+        );
+        // ΔH° changes sign between 7000 K and T_eq: no approach, and why.
+        assert!(v["approach_k"].is_null());
+        assert!(
+            v["flags"]
+                .as_array()
+                .unwrap()
+                .contains(&json!("enthalpy_sign_change"))
+        );
+        let t = calc_table(&v, TemperatureUnit::Kelvin);
+        let warn = t.find("WARNING: 7000.00 K is outside").unwrap();
+        assert!(warn < t.find("Reaction:").unwrap(), "{t}");
+        assert!(
+            t.contains("approach          none: ΔH° has a different sign"),
+            "{t}"
+        );
+        // K only, no composition: the same warning.
+        let k_only = CalcInput {
+            composition: None,
+            ..lts("7000 K", "species-data", None)
+        };
+        let v = calc(&db, &k_only).unwrap();
+        assert_eq!(v["warnings"].as_array().unwrap().len(), 1);
+        assert!(calc_table(&v, TemperatureUnit::Kelvin).contains("WARNING: 7000.00 K"));
+    }
 }

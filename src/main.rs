@@ -326,7 +326,17 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 sensitivity,
                 atmosphere,
             };
-            Ok((cli::calc(&db, &inp)?, json))
+            let unit = cli::temperature_unit_of(&inp.temperature);
+            let v = cli::calc(&db, &inp)?;
+            // Out-of-range warnings go to stderr whatever the output format.
+            for w in v["warnings"].as_array().into_iter().flatten() {
+                eprintln!("eqwatch: warning: {}", w.as_str().unwrap_or_default());
+            }
+            if json {
+                Ok((v, true))
+            } else {
+                Ok((serde_json::Value::String(cli::calc_table(&v, unit)), false))
+            }
         }
         Command::Equilibrium {
             species,

@@ -394,6 +394,26 @@ struct InputOut<'a> {
     used: bool,
 }
 
+/// Each input's share of the approach's ± (K), by input name.
+#[derive(Serialize)]
+struct BudgetOut {
+    composition: Option<f64>,
+    steam_ratio: Option<f64>,
+    pressure: Option<f64>,
+    temperature: Option<f64>,
+}
+
+impl From<&crate::approach::UncertaintyBudget> for BudgetOut {
+    fn from(b: &crate::approach::UncertaintyBudget) -> Self {
+        Self {
+            composition: finite(b.composition_k),
+            steam_ratio: finite(b.steam_ratio_k),
+            pressure: finite(b.pressure_k),
+            temperature: finite(b.temperature_k),
+        }
+    }
+}
+
 #[derive(Serialize)]
 struct ReactionOut<'a> {
     reaction: &'a str,
@@ -408,6 +428,7 @@ struct ReactionOut<'a> {
     equilibrium_temperature_k: Option<f64>,
     approach_k: Option<f64>,
     approach_uncertainty_k: Option<f64>,
+    uncertainty_budget_k: Option<BudgetOut>,
     flags: Vec<&'static str>,
 }
 
@@ -528,6 +549,7 @@ struct ResultOut<'a> {
     equilibrium_temperature_k: Option<f64>,
     approach_k: Option<f64>,
     approach_uncertainty_k: Option<f64>,
+    uncertainty_budget_k: Option<BudgetOut>,
     reactions: Vec<ReactionOut<'a>>,
     temperature_k: Option<f64>,
     temperature_spread_k: Option<f64>,
@@ -581,6 +603,7 @@ pub fn encode_result(
             equilibrium_temperature_k: finite_opt(a.equilibrium_temperature_k),
             approach_k: finite_opt(a.approach_k),
             approach_uncertainty_k: finite_opt(a.approach_uncertainty_k),
+            uncertainty_budget_k: a.uncertainty_budget_k.as_ref().map(BudgetOut::from),
             flags: a.flags.names().collect(),
         })
         .collect();
@@ -620,6 +643,9 @@ pub fn encode_result(
         equilibrium_temperature_k: first.and_then(|a| finite_opt(a.equilibrium_temperature_k)),
         approach_k: usable.and_then(|a| finite_opt(a.approach_k)),
         approach_uncertainty_k: usable.and_then(|a| finite_opt(a.approach_uncertainty_k)),
+        uncertainty_budget_k: usable
+            .and_then(|a| a.uncertainty_budget_k.as_ref())
+            .map(BudgetOut::from),
         reactions,
         temperature_k: finite_opt(e.temperature_k),
         temperature_spread_k: finite_opt(e.temperature_spread_k),
@@ -735,5 +761,54 @@ mod tests {
         assert_eq!(with_delivery("{}", 8, true), "{\"seq\":8,\"late\":true}");
         let v: Value = serde_json::from_str(&with_delivery("{ \"a\" : [1] }", 9, true)).unwrap();
         assert_eq!(v["seq"], 9);
+    }
+
+    #[test]
+    fn result_carries_the_uncertainty_budget() {
+        // Demo lts1 (config/demo-plant.toml, invented) with the DOMAIN §8 LTS gas at
+        // 220 °C: the shares by input add up in quadrature to approach_uncertainty_k.
+        use crate::monitor::{Input, Outcome, ReactorMonitor};
+        let s = crate::config::from_str(
+            include_str!("../../config/demo-plant.toml"),
+            std::path::Path::new("."),
+        )
+        .unwrap();
+        let r = s.reactors.iter().find(|r| r.id == "lts1").unwrap();
+        let mut m = ReactorMonitor::new(r);
+        let at = 1_796_083_200_000;
+        let sc = |v| ScalarReading {
+            ts_ms: at,
+            value: v,
+            quality: SourceQuality::Good,
+        };
+        for i in 0..r.temperatures.len() {
+            m.accept(r, &s.species, Input::Temperature(i, sc(493.15)), at);
+        }
+        m.accept(r, &s.species, Input::Pressure(sc(30.01325)), at);
+        m.accept(r, &s.species, Input::SteamRatio(sc(0.36312)), at);
+        let lag = i64::try_from(r.composition.lag.as_millis()).unwrap();
+        let v = [61.0536, 18.98637, 0.28697, 19.38096, 0.2921, 0.0];
+        let a = AnalysisReading {
+            ts_ms: at + lag,
+            values: v.iter().map(|x| Some(x / 100.0)).collect(),
+            basis: Some(Basis::Dry),
+            quality: SourceQuality::Good,
+        };
+        let Outcome::Evaluated(e) = m.accept(r, &s.species, Input::Analysis(a), at + lag) else {
+            panic!("no evaluation");
+        };
+        let out: Value = serde_json::from_str(&encode_result(r, &s.species, &e, at, None)).unwrap();
+        let u = out["approach_uncertainty_k"].as_f64().unwrap();
+        for b in [
+            &out["uncertainty_budget_k"],
+            &out["reactions"][0]["uncertainty_budget_k"],
+        ] {
+            let sq: f64 = ["composition", "steam_ratio", "pressure", "temperature"]
+                .iter()
+                .map(|k| b[*k].as_f64().unwrap().powi(2))
+                .sum();
+            assert!((sq - u * u).abs() < 1e-9, "{b} vs {u}");
+            assert_eq!(b["temperature"], 2.0, "demo lts1 thermocouple ±2 K");
+        }
     }
 }

@@ -663,12 +663,37 @@ impl ReactorMonitor {
                     );
                 }
                 if ap.flags.has(Flags::BEYOND_EQUILIBRIUM) {
+                    let by = match (ap.approach_k, ap.approach_uncertainty_k) {
+                        (Some(a), Some(u)) if u > 0.0 => format!("approach {a:.2} ± {u:.2} K"),
+                        (Some(a), _) => format!("approach {a:.2} K, no uncertainty configured"),
+                        (None, _) => format!("Q/K = {:.4}", ap.q_over_k),
+                    };
                     push(
                         "beyond_equilibrium",
                         Quality::Uncertain,
                         format!(
-                            "{label}: Q is beyond K (approach {:.2} K); check the analyser, thermocouple, pressure basis or steam ratio",
-                            ap.approach_k.unwrap_or(f64::NAN)
+                            "{label}: Q is beyond K ({by}); check the analyser, thermocouple, pressure basis or steam ratio"
+                        ),
+                    );
+                }
+                if ap.flags.has(Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY) {
+                    // Informational: a negative approach inside its own ± is no data problem.
+                    push(
+                        "at_equilibrium_within_uncertainty",
+                        Quality::Good,
+                        format!(
+                            "{label}: Q is past K by less than the uncertainty (approach {:.2} ± {:.2} K): at equilibrium as far as the measurements tell",
+                            ap.approach_k.unwrap_or(f64::NAN),
+                            ap.approach_uncertainty_k.unwrap_or(f64::NAN)
+                        ),
+                    );
+                }
+                if ap.flags.has(Flags::ENTHALPY_SIGN_CHANGE) {
+                    push(
+                        "enthalpy_sign_change",
+                        Quality::Uncertain,
+                        format!(
+                            "{label}: ΔH° changes sign between {t:.1} K and the equilibrium temperature; no temperature approach"
                         ),
                     );
                 }
@@ -1008,6 +1033,33 @@ mod tests {
             m.accept(r, &s.species, Input::Analysis(lts_analysis(sample)), sample),
             Outcome::OutOfOrder { .. }
         ));
+    }
+
+    #[test]
+    fn negative_approach_within_its_uncertainty_keeps_the_result_good() {
+        // DOMAIN §8 [derived]: this gas is at equilibrium (Moe K) at 505.15 K. Read at
+        // 508 K the approach is −2.85 K against a ± of about 4 K (demo lts1: ±2 K, ±0.2
+        // bar, ±2 %, ±5 %): informational, still good. At 520 K (−14.85 K) it is beyond.
+        let s = settings();
+        let r = reactor(&s, "lts1");
+        let lag = ms(r.composition.lag);
+        let mut m = ReactorMonitor::new(r);
+        let mut run = |at: i64, t_k: f64| {
+            feed_lts(&mut m, &s, at, t_k);
+            evaluated(m.accept(
+                r,
+                &s.species,
+                Input::Analysis(lts_analysis(at + lag)),
+                at + lag,
+            ))
+        };
+        let e = run(T0 + 10 * MIN, 508.0);
+        assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
+        assert_eq!(codes(&e), vec!["at_equilibrium_within_uncertainty"]);
+        assert!(e.reactions[0].approach_k.unwrap() < 0.0);
+        let e = run(T0 + 20 * MIN, 520.0);
+        assert_eq!(e.quality, Quality::Uncertain, "{:?}", e.reasons);
+        assert_eq!(codes(&e), vec!["beyond_equilibrium"]);
     }
 
     #[test]

@@ -1359,6 +1359,7 @@ mod tests {
             equilibrium_temperature_k: None,
             approach_k: approach,
             approach_uncertainty_k: None,
+            uncertainty_budget_k: None,
             ln_q_uncertainty: 0.0,
             flags: Flags::default(),
         };
