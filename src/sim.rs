@@ -95,14 +95,25 @@ const YEAR_MTH_BREAKTHROUGH_S: (f64, f64) =
 /// breakthrough window the CO slip climbs to about 9 ppm (ramps of 5 min either side).
 /// `wobble` in [−1, 1] moves it by ±0.3 ppm. Invented for the demo.
 fn methanator_slip(t_s: f64, window: (f64, f64), wobble: f64) -> (f64, f64) {
-    let up = smoothstep((t_s - window.0) / 300.0);
-    let down = 1.0 - smoothstep((t_s - window.1) / 300.0);
-    let extra = 7.2 * up.min(down);
+    let extra = 7.2 * breakthrough(t_s, window);
     (
         (1.8 + 0.3 * wobble + extra) * 1e-6,
         (0.9 + 0.2 * wobble) * 1e-6,
     )
 }
+
+/// 0 outside the window, 1 inside it, with 5-minute ramps.
+fn breakthrough(t_s: f64, window: (f64, f64)) -> f64 {
+    let up = smoothstep((t_s - window.0) / 300.0);
+    let down = 1.0 - smoothstep((t_s - window.1) / 300.0);
+    up.min(down)
+}
+
+/// The methanator bed's rise with its design inlet (0.18 mol % CO, 0.05 mol % CO2, as in
+/// the demo configuration; about 73 and 60 K per mol %), K. Invented for the demo.
+pub const MTH_DESIGN_RISE_K: f64 = 16.1;
+/// Extra rise during a breakthrough (inlet CO up by about 0.32 mol %), K.
+const MTH_BREAKTHROUGH_RISE_K: f64 = 23.0;
 
 /// Puts the methanator's kinetic CO/CO2 slip into `y` (reported components' truth, in
 /// `reported` order), scaled to the dry gas of the other components.
@@ -193,6 +204,8 @@ struct Reactor {
 #[derive(Debug, Clone, Copy, PartialEq)]
 enum Kind {
     Temperature,
+    /// A bed inlet thermocouple (the methanator's bed-rise check).
+    InletTemperature,
     Pressure,
     /// Steam-to-dry-gas ratio as a bare number.
     RatioBare,
@@ -712,6 +725,7 @@ impl Plant {
             GC_CYCLE_S,
         );
         add("baw1/mth1/TI-405", Kind::Temperature, "mth1", 10.0);
+        add("baw1/mth1/TI-401", Kind::InletTemperature, "mth1", 10.0);
         add("baw1/mth1/PI-402", Kind::Pressure, "mth1", 10.0);
         add("baw1/amc1/AI-501", Kind::Analyser, "amc1", GC_CYCLE_S);
         add("baw1/amc1/TI-505", Kind::Temperature, "amc1", 10.0);
@@ -760,8 +774,18 @@ impl Plant {
             retain,
         };
         match inst.kind {
-            Kind::Temperature => {
-                let t_c = r.t_k - 273.15 + TI_NOISE_K * self.noise(i, k, 0);
+            Kind::Temperature | Kind::InletTemperature => {
+                // The methanator's outlet follows its bed rise; its inlet sits below it.
+                let rise = if r.id == "mth1" {
+                    MTH_BREAKTHROUGH_RISE_K * breakthrough(sample_s, MTH_BREAKTHROUGH_S)
+                } else {
+                    0.0
+                };
+                let base = match inst.kind {
+                    Kind::InletTemperature => r.t_k - MTH_DESIGN_RISE_K,
+                    _ => r.t_k + rise,
+                };
+                let t_c = base - 273.15 + TI_NOISE_K * self.noise(i, k, 0);
                 out.push(msg(
                     inst.topic.clone(),
                     format!(
@@ -1227,7 +1251,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     },
     HistoryTags {
         reactor: "mth1",
-        temperatures: &["BAW1-TI-405"],
+        temperatures: &["BAW1-TI-405", "BAW1-TI-401"],
         pressure: "BAW1-PI-402",
         steam_ratio: None,
         analyser: "BAW1-AI-401",
@@ -1530,8 +1554,17 @@ impl History {
                     && j == 1
                     && t_s >= LTS_TI_B_FAILED_S.0
                     && t_s < LTS_TI_B_FAILED_S.1;
+                // The methanator's second thermocouple is its bed inlet, the design rise
+                // below the outlet; a breakthrough lifts the outlet.
+                let below = match (tags.reactor, j) {
+                    ("mth1", 1) => MTH_DESIGN_RISE_K,
+                    ("mth1", _) => {
+                        -MTH_BREAKTHROUGH_RISE_K * breakthrough(t_s, YEAR_MTH_BREAKTHROUGH_S)
+                    }
+                    _ => 0.0,
+                };
                 if !failed {
-                    let x = t_k - 273.15
+                    let x = t_k - below - 273.15
                         + TI_NOISE_K * self.noise(tags.stream, CH_TEMPERATURE + j as u64, m);
                     push_fixed(out, x, 2);
                     st.values += 1;
@@ -1790,7 +1823,7 @@ mod tests {
                 assert_eq!(v["basis"], basis);
             }
         }
-        assert_eq!(topics.len(), 24, "{topics:?}");
+        assert_eq!(topics.len(), 25, "{topics:?}");
         for t in [
             "baw1/ref1/TI-105B",
             "baw1/lts1/FY-310",

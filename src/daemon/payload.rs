@@ -442,6 +442,32 @@ struct HeadlineOut {
     text: String,
 }
 
+/// The bed temperature rise check (methanator breakthrough).
+#[derive(Serialize)]
+struct BedRiseOut {
+    inlet_temperature_k: Option<f64>,
+    rise_k: Option<f64>,
+    expected_rise_k: Option<f64>,
+    excess_rise_k: Option<f64>,
+    rise_per_mol_pct_co_k: Option<f64>,
+    rise_per_mol_pct_co2_k: Option<f64>,
+    implied_inlet_co_equivalent_mol_pct: Option<f64>,
+}
+
+impl From<&crate::bedrise::BedRise> for BedRiseOut {
+    fn from(b: &crate::bedrise::BedRise) -> Self {
+        Self {
+            inlet_temperature_k: finite(b.inlet_k),
+            rise_k: finite(b.rise_k),
+            expected_rise_k: finite_opt(b.expected_k),
+            excess_rise_k: finite_opt(b.excess_k()),
+            rise_per_mol_pct_co_k: finite(b.per_percent.co_k),
+            rise_per_mol_pct_co2_k: finite(b.per_percent.co2_k),
+            implied_inlet_co_equivalent_mol_pct: finite(b.implied_co_equivalent_mol_pct),
+        }
+    }
+}
+
 /// The advisory notice every result and status message carries.
 pub const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plant's alarm and safety systems, local codes and licensed engineering practice govern";
 
@@ -566,6 +592,8 @@ struct ResultOut<'a> {
     key_equilibrium_on_basis_mole_fraction: Option<f64>,
     key_detection_limit_mole_fraction: Option<f64>,
     headline: HeadlineOut,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    bed_rise: Option<BedRiseOut>,
     advisory: &'static str,
     mole_fractions: BySpecies<'a>,
     equilibrium_mole_fractions: BySpecies<'a>,
@@ -674,6 +702,7 @@ pub fn encode_result(
         )),
         key_detection_limit_mole_fraction: key_dl,
         headline: headline(r, e, key_name, approach, key_basis, key_dl),
+        bed_rise: e.bed_rise.as_ref().map(BedRiseOut::from),
         advisory: ADVISORY_SHORT,
         mole_fractions: BySpecies(names, &e.mole_fractions),
         equilibrium_mole_fractions: BySpecies(names, &e.equilibrium_mole_fractions),

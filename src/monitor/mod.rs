@@ -1273,4 +1273,47 @@ mod tests {
         assert!((e.key_measured.unwrap() - 0.5e-6).abs() < 0.05e-6);
         assert_eq!(e.quality, Quality::Good);
     }
+
+    #[test]
+    fn methanator_bed_rise_against_its_inlet() {
+        // The demo methanator with its inlet thermocouple 40 K below the outlet (invented):
+        // the design inlet (0.18 % CO, 0.05 % CO2 in demo-plant.toml) explains about 16 K.
+        let s = settings();
+        let r = reactor(&s, "mth1");
+        let b = r.bed_rise.as_ref().expect("bed rise configured");
+        assert_eq!(r.temperatures[b.inlet].tag, "BAW1-TI-401");
+        let mut m = ReactorMonitor::new(r);
+        let at = T0 + 10 * MIN;
+        for i in 0..r.temperatures.len() {
+            let t = if i == b.inlet { 560.0 } else { 600.0 };
+            m.accept(r, &s.species, Input::Temperature(i, scalar(at, t)), at);
+        }
+        m.accept(r, &s.species, Input::Pressure(scalar(at, 28.0)), at);
+        let lag = ms(r.composition.lag);
+        let mut last = Outcome::Stored;
+        for (i, n) in r.composition.components.iter().enumerate() {
+            let v = match n.as_str() {
+                "H2" => 0.744,
+                "N2" => 0.245,
+                "CH4" => 0.0075,
+                "Ar" => 0.0035,
+                _ => 2e-6,
+            };
+            last = m.accept(
+                r,
+                &s.species,
+                Input::Component(i, scalar(at + lag, v)),
+                at + lag,
+            );
+        }
+        let e = evaluated(last);
+        // The inlet is not averaged into the outlet temperature.
+        assert_eq!(e.temperature_k, Some(600.0));
+        let br = e.bed_rise.expect("bed rise");
+        assert_eq!(br.rise_k, 40.0);
+        let expected = 0.18 * br.per_percent.co_k + 0.05 * br.per_percent.co2_k;
+        assert!((br.expected_k.unwrap() - expected).abs() < 1e-9);
+        assert!((expected - 16.1).abs() < 0.6, "expected rise {expected} K");
+        assert!(br.excess_k().unwrap() > 23.0);
+    }
 }
