@@ -7,7 +7,7 @@
 //! Shape: `{"schema":"eqwatch.state/1","saved_at":...,"reactors":{"<id>":{"settings":
 //! "<drift settings as text>","run_start_ms":...,"learn":[n,mean,m2],"baseline":{...},
 //! "ewma":[z,n],"cusum":{"reference_k","upper":[s,n,sum,since_ms],"lower":[...]},"step":
-//! [since_ms,from_k,to_k,samples,detected_ms],"step_reference_k","segment":[n,sum],
+//! [since_ms,from_k,to_k,samples,detected_ms],"step_reference_k",
 //! "bucket":[start_ms,n,sum],"aggregates":[[day,K],...]}}}`.
 //! A reactor whose drift settings changed since the save starts a new run.
 
@@ -129,7 +129,6 @@ pub fn encode(engine: &Engine, now_ms: i64) -> String {
                     st.shift.since_ms, st.shift.from_k, st.shift.to_k, st.shift.samples, st.detected_ms
                 ])),
                 "step_reference_k": s.step_reference_k,
-                "segment": [s.segment.0, s.segment.1],
                 "bucket": s.bucket.map(|(a, n, sum)| json!([a, n, sum])),
                 "aggregates": s.aggregates.iter().map(|(d, v)| json!([d, v])).collect::<Vec<_>>(),
                 "alarms": alarms,
@@ -209,10 +208,6 @@ fn snapshot(v: &Value) -> Option<DriftSnapshot> {
             detected_ms: a.get(4)?.as_i64()?,
         }),
     };
-    let segment = match pair(v.get("segment"))? {
-        None => (0, 0.0),
-        Some(a) => (u32::try_from(a.first()?.as_u64()?).ok()?, f(a.get(1)?)?),
-    };
     let mut aggregates = Vec::new();
     for a in v.get("aggregates")?.as_array()? {
         let a = a.as_array()?;
@@ -228,7 +223,6 @@ fn snapshot(v: &Value) -> Option<DriftSnapshot> {
         cusum,
         step,
         step_reference_k: v.get("step_reference_k").and_then(Value::as_f64),
-        segment,
         bucket,
         aggregates,
     })

@@ -432,7 +432,9 @@ impl ReactorMonitor {
                 .temperatures
                 .iter()
                 .zip(&s.temperatures)
-                .filter_map(|(b, ts)| match b.at(t_sample - lag, ms(ts.max_age)) {
+                .enumerate()
+                .filter(|(i, _)| inlet_index != Some(*i))
+                .filter_map(|(_, (b, ts))| match b.at(t_sample - lag, ms(ts.max_age)) {
                     Lookup::Value { value, .. } => Some(value),
                     _ => None,
                 })
@@ -445,8 +447,8 @@ impl ReactorMonitor {
                         "transient",
                         Quality::Uncertain,
                         format!(
-                            "temperature moved {rate:.1} K/min over the analyser lag (limit {} K/min)",
-                            s.transient_k_per_min
+                            "temperature moved {rate:.1} K/min over the analyser lag (limit {} K/min): the gas analysed was not at this temperature; the result is left out of the trend",
+                            crate::units::fmt_num(s.transient_k_per_min, 3)
                         ),
                     );
                 }

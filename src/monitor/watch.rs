@@ -79,6 +79,10 @@ pub struct DriftSettings {
     /// A level shift at least this large (K) is a step: the trend and the end-of-run
     /// forecast start again after it, and the `cusum` alert watches it. None: h (in K).
     pub step_min_k: Option<f64>,
+    /// A step is a level change of at least `step_min_k` within this time (ms): the
+    /// CUSUM's successive shifts within it add up (a 6-hour ramp is one step), while a
+    /// slow drift, whose shifts are far apart, never makes one.
+    pub step_window_ms: i64,
     pub trend: TrendMethod,
     /// Steady-state aggregate period (ms): one trend point per period.
     pub aggregate_ms: i64,
@@ -106,6 +110,7 @@ impl Default for DriftSettings {
             cusum_k_sigma: 0.5,
             cusum_h_sigma: 5.0,
             step_min_k: None,
+            step_window_ms: 86_400_000,
             trend: TrendMethod::LeastSquares,
             aggregate_ms: 86_400_000,
             min_per_aggregate: 6,
@@ -246,8 +251,6 @@ pub struct DriftSnapshot {
     /// The last step and the level before a standing upward one.
     pub step: Option<Step>,
     pub step_reference_k: Option<f64>,
-    /// Samples since the last step: count and sum (K).
-    pub segment: (u32, f64),
     /// Open aggregate: start, count, sum.
     pub bucket: Option<(i64, usize, f64)>,
     /// Closed aggregates: (day since the run start, mean approach K).
@@ -397,11 +400,11 @@ pub struct ReactorWatch {
     last_ewma: Option<EwmaPoint>,
     cusum: Option<Cusum>,
     cusum_last: Option<CusumPoint>,
-    /// The last step, the level before a standing upward step, and the running mean of
-    /// the samples since the last step (count, sum).
+    /// The last step, and the level before a standing upward step.
     step: Option<Step>,
     step_reference_k: Option<f64>,
-    segment: (u32, f64),
+    /// The CUSUM's shifts within the step window, with when each was found.
+    recent_shifts: VecDeque<(Shift, i64)>,
     bucket: Option<Bucket>,
     /// (day since run start at the bucket middle, mean approach, bucket start ms)
     aggregates: Vec<(f64, f64)>,
@@ -573,7 +576,7 @@ impl ReactorWatch {
             cusum_last: None,
             step: None,
             step_reference_k: None,
-            segment: (0, 0.0),
+            recent_shifts: VecDeque::new(),
             bucket: None,
             aggregates: Vec::new(),
             trend: None,
@@ -942,11 +945,8 @@ impl ReactorWatch {
             self.last_ewma = Some(ewma.push(x));
             let point = cusum.push(x, t);
             self.cusum_last = Some(point);
-            self.segment = (self.segment.0.saturating_add(1), self.segment.1 + x);
             if let (Some(shift), Some(min)) = (point.shift, self.step_min_k(s)) {
-                if (shift.to_k - shift.from_k).abs() >= min {
-                    self.new_step(s, shift, t, min, start);
-                }
+                self.shifted(s, shift, t, min, start);
             }
         }
         // Steady-state aggregates of the run (the learning window included).
@@ -980,16 +980,58 @@ impl ReactorWatch {
             .or_else(|| self.baseline.map(|b| s.cusum_h_sigma * b.sigma_k))
     }
 
-    /// The level since the last step minus the level before a standing upward step.
+    /// The present level (the CUSUM's reference, moved at each shift) minus the level
+    /// before a standing upward step.
     fn standing_step_k(&self) -> Option<f64> {
-        let (n, sum) = self.segment;
-        let r = self.step_reference_k?;
-        (n > 0).then(|| sum / f64::from(n) - r)
+        Some(self.cusum.as_ref()?.reference() - self.step_reference_k?)
+    }
+
+    /// A CUSUM shift: a step when the level moved by at least `min` within the step
+    /// window; a step that continues the last one (same direction, within the window)
+    /// extends it.
+    fn shifted(&mut self, s: &DriftSettings, shift: Shift, t: i64, min: f64, start: i64) {
+        let window = s.step_window_ms.max(0);
+        self.recent_shifts.push_back((shift, t));
+        while self
+            .recent_shifts
+            .front()
+            .is_some_and(|(_, at)| t - at > window)
+        {
+            self.recent_shifts.pop_front();
+        }
+        // The level is back near where it stood before the upward step: no step stands.
+        if self
+            .step_reference_k
+            .is_some_and(|r| shift.to_k - r < 0.25 * min)
+        {
+            self.step_reference_k = None;
+        }
+        let Some(&(oldest, _)) = self.recent_shifts.front() else {
+            return;
+        };
+        let change = shift.to_k - oldest.from_k;
+        if change.abs() < min {
+            return;
+        }
+        let mut step = Shift {
+            since_ms: oldest.since_ms,
+            from_k: oldest.from_k,
+            ..shift
+        };
+        if let Some(last) = self.step {
+            let last_change = last.shift.to_k - last.shift.from_k;
+            if t - last.detected_ms <= window && last_change.signum() == change.signum() {
+                step.since_ms = last.shift.since_ms;
+                step.from_k = last.shift.from_k;
+            }
+        }
+        self.recent_shifts.clear();
+        self.new_step(s, step, t, start);
     }
 
     /// A step: the trend and forecast start again from the change point, and the level
     /// before an upward step is kept until the level comes back down to it.
-    fn new_step(&mut self, s: &DriftSettings, shift: Shift, t: i64, min: f64, start: i64) {
+    fn new_step(&mut self, s: &DriftSettings, shift: Shift, t: i64, start: i64) {
         self.step = Some(Step {
             shift,
             detected_ms: t,
@@ -997,13 +1039,6 @@ impl ReactorWatch {
         if shift.to_k > shift.from_k {
             self.step_reference_k.get_or_insert(shift.from_k);
         }
-        if self
-            .step_reference_k
-            .is_some_and(|r| shift.to_k - r < 0.25 * min)
-        {
-            self.step_reference_k = None;
-        }
-        self.segment = (shift.samples, shift.to_k * f64::from(shift.samples));
         self.refit(s, start);
     }
 
@@ -1087,7 +1122,6 @@ impl ReactorWatch {
             cusum: self.cusum.as_ref().map(Cusum::state),
             step: self.step,
             step_reference_k: self.step_reference_k,
-            segment: self.segment,
             bucket: self.bucket.as_ref().map(|b| (b.start_ms, b.n, b.sum)),
             aggregates: self.aggregates.clone(),
         }
@@ -1130,9 +1164,6 @@ impl ReactorWatch {
         }
         self.step = snap.step;
         self.step_reference_k = snap.step_reference_k.filter(|r| r.is_finite());
-        if snap.segment.1.is_finite() {
-            self.segment = snap.segment;
-        }
         self.bucket = snap
             .bucket
             .map(|(start_ms, n, sum)| Bucket { start_ms, n, sum });
@@ -1194,7 +1225,7 @@ impl ReactorWatch {
         self.cusum_last = None;
         self.step = None;
         self.step_reference_k = None;
-        self.segment = (0, 0.0);
+        self.recent_shifts.clear();
         self.bucket = None;
         self.aggregates.clear();
         self.trend = None;

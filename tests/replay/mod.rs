@@ -334,3 +334,135 @@ fn a_daemon_restart_keeps_the_learned_baseline() {
     assert_eq!(next["drift"]["baseline"], "learned", "{next}");
     assert_eq!(next["drift"]["baseline_k"].as_f64().unwrap(), baseline);
 }
+
+/// Replays days `first_day..first_day + days` of the invented demo year (src/sim.rs,
+/// `YEAR_SCENARIO`) through the demo configuration; returns every alert and alarm event
+/// as (time, reactor, alarm, event, value, limit).
+fn scenario_events(first_day: u32, days: u32) -> Vec<(String, String, String, String, f64, f64)> {
+    let dir = tempfile::tempdir().unwrap();
+    let input = dir.path().join("weeks.csv");
+    let mut f = std::io::BufWriter::new(std::fs::File::create(&input).unwrap());
+    let opts = eqwatch::sim::HistoryOptions {
+        first_day,
+        days,
+        ..Default::default()
+    };
+    eqwatch::sim::write_history(&opts, &mut f).unwrap();
+    drop(f);
+    let config = Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml");
+    let out = dir.path().join("out.jsonl");
+    let (code, stdout, stderr) = replay(&config, &input, &out, None);
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    let text = std::fs::read_to_string(&out).unwrap();
+    let mut events = Vec::new();
+    for line in text.lines() {
+        let v: Value = serde_json::from_str(line).unwrap();
+        let p = &v["payload"];
+        if p["schema"] != "eqwatch.event/1" {
+            continue;
+        }
+        let s = |k: &str| p[k].as_str().unwrap_or_default().to_string();
+        events.push((
+            s("at"),
+            s("reactor"),
+            s("alarm"),
+            s("event"),
+            p["value"].as_f64().unwrap_or(f64::NAN),
+            p["limit"].as_f64().unwrap_or(f64::NAN),
+        ));
+    }
+    events
+}
+
+/// (reactor, alarm, event) of each event, without the routine ones named.
+fn names(ev: &[(String, String, String, String, f64, f64)]) -> Vec<(&str, &str, &str)> {
+    ev.iter()
+        .map(|e| (e.1.as_str(), e.2.as_str(), e.3.as_str()))
+        .collect()
+}
+
+#[test]
+fn weeks_of_history_raise_what_an_engineer_should_see_and_nothing_else() {
+    // Days 113-157 of the invented year: the reformer's sulphur poisoning (day 120 08:00,
+    // 8 -> 25 K over 6 h, recovering over two weeks), the methanator's CO breakthrough
+    // (day 150 10:00-16:00), weekly LTS analyser calibrations (bad quality), LTS ageing.
+    let ev = scenario_events(113, 45);
+    // Every raised value is past its limit.
+    for e in ev.iter().filter(|e| e.3 == "raised") {
+        assert!(e.4 > e.5, "{e:?}");
+    }
+    let mut seen = names(&ev);
+    // Weekly calibrations: the LTS operator alarm is suppressed by design and back, once
+    // each week (7 in the window), and nothing else for them.
+    let calib = seen
+        .iter()
+        .filter(|n| n.0 == "lts1" && (n.2 == "suppressed" || n.2 == "unsuppressed"))
+        .count();
+    assert_eq!(calib, 14, "{seen:?}");
+    seen.retain(|n| n.0 != "lts1" || !(n.2 == "suppressed" || n.2 == "unsuppressed"));
+    assert_eq!(
+        seen,
+        [
+            // One bad amc1 analysis: its operator alarm suppressed and back.
+            ("amc1", "beyond-equilibrium", "suppressed"),
+            ("amc1", "beyond-equilibrium", "unsuppressed"),
+            // The poisoning is a step (one level-shift alert), not a trend: no trend or
+            // end-of-run alert; the operator alarm at 20 K, stale after 24 h, cleared.
+            ("ref1", "cusum", "raised"),
+            ("ref1", "approach-high", "raised"),
+            ("ref1", "stale:approach-high", "raised"),
+            ("ref1", "approach-high", "cleared"),
+            ("ref1", "stale:approach-high", "cleared"),
+            // One bad ref1 analysis later on.
+            ("ref1", "approach-high", "suppressed"),
+            ("ref1", "approach-high", "unsuppressed"),
+            // The breakthrough: the CO slip alarm (5 ppm) and the bed-rise alert.
+            ("mth1", "co-slip-high", "raised"),
+            ("mth1", "bed-rise", "raised"),
+            ("mth1", "co-slip-high", "cleared"),
+            ("mth1", "bed-rise", "cleared"),
+        ],
+        "{ev:#?}"
+    );
+    let at = |alarm: &str| {
+        ev.iter()
+            .find(|e| e.2 == alarm && e.3 == "raised")
+            .unwrap()
+            .0
+            .clone()
+    };
+    assert!(at("cusum").starts_with("2026-05-01T0") || at("cusum").starts_with("2026-05-01T1"));
+    assert!(
+        at("co-slip-high").starts_with("2026-05-31T10"),
+        "{}",
+        at("co-slip-high")
+    );
+
+    // A trip (day 300 06:00, 3 days down): one off-line change per unit each way and no
+    // per-alarm suppression events. The analysers come back about 4.7 h after the pressure
+    // (the scenario's restart), past the 4 h data-quality limit of on-line time: one
+    // data-quality alert per unit, cleared by the first analysis.
+    let ev = scenario_events(296, 10);
+    let seen = names(&ev);
+    let count =
+        |alarm: &str, event: &str| seen.iter().filter(|n| n.1 == alarm && n.2 == event).count();
+    assert_eq!(count("off-line", "raised"), 5, "{seen:?}");
+    assert_eq!(count("off-line", "cleared"), 5, "{seen:?}");
+    assert_eq!(count("data-quality", "raised"), 5, "{seen:?}");
+    assert_eq!(count("data-quality", "cleared"), 5, "{seen:?}");
+    // ... and the two weekly LTS calibrations of the window.
+    assert_eq!(count("approach-high", "suppressed"), 2, "{seen:?}");
+    assert_eq!(count("approach-high", "unsuppressed"), 2, "{seen:?}");
+    assert_eq!(seen.len(), 24, "{seen:?}");
+
+    // The reformer analyser out all day 200: one data-quality alert, nothing else.
+    let ev = scenario_events(193, 10);
+    assert_eq!(
+        names(&ev),
+        [
+            ("ref1", "data-quality", "raised"),
+            ("ref1", "data-quality", "cleared")
+        ],
+        "{ev:?}"
+    );
+}
