@@ -142,6 +142,13 @@ enum Command {
         log_level: String,
     },
     /// The one-command demo: embedded broker, simulated plant, the daemon, a live table.
+    ///
+    /// The demo works in a folder of its own: the daemon's journal (var/journal), its log
+    /// (eqwatch.log: the live table owns the terminal, so nothing is logged on it) and,
+    /// if the folder is kept, SVG plots of the run (plots/). By default that is a new
+    /// temporary folder, removed at exit with no plots written; --keep keeps it, and a
+    /// folder given with --workdir is always kept. After a failure the folder is kept
+    /// for its log. The folder is named at the start and at the end.
     Demo {
         /// Simulated seconds per wall-clock second.
         #[arg(long, default_value_t = 60.0)]
@@ -152,6 +159,13 @@ enum Command {
         /// Use this broker instead of the embedded one, e.g. mqtt://127.0.0.1:1883.
         #[arg(long)]
         broker: Option<String>,
+        /// Work in this folder (new or empty; kept, with the log and plots) instead of a
+        /// temporary one.
+        #[arg(long)]
+        workdir: Option<PathBuf>,
+        /// Keep the temporary folder (journal, log, plots) at exit.
+        #[arg(long)]
+        keep: bool,
         #[command(flatten)]
         log: LogArgs,
     },
@@ -167,7 +181,8 @@ struct LogArgs {
     log_level: String,
 }
 
-fn init_tracing(log: &LogArgs) -> Result<(), CliError> {
+/// Sets up logging: on stderr (colour only on a terminal), or into `file` (no colour).
+fn init_tracing(log: &LogArgs, file: Option<&std::path::Path>) -> Result<(), CliError> {
     let level: tracing::Level = log.log_level.parse().map_err(|_| {
         CliError::Input(format!(
             "--log-level `{}`: expected error, warn, info, debug or trace",
@@ -186,28 +201,46 @@ fn init_tracing(log: &LogArgs) -> Result<(), CliError> {
     let filter = tracing_subscriber::filter::Targets::new()
         .with_default(level)
         .with_target("rumqttd", broker_level);
-    let result = match log.log_format.as_str() {
-        "text" => tracing_subscriber::registry()
-            .with(
-                tracing_subscriber::fmt::layer()
-                    .with_writer(std::io::stderr)
-                    .with_target(false),
-            )
-            .with(filter)
-            .try_init(),
-        "json" => tracing_subscriber::registry()
-            .with(
-                tracing_subscriber::fmt::layer()
-                    .json()
-                    .with_writer(std::io::stderr),
-            )
-            .with(filter)
-            .try_init(),
+    use std::io::IsTerminal;
+    use tracing_subscriber::fmt::writer::BoxMakeWriter;
+    let json = match log.log_format.as_str() {
+        "text" => false,
+        "json" => true,
         other => {
             return Err(CliError::Input(format!(
                 "--log-format `{other}`: expected text or json"
             )));
         }
+    };
+    let (writer, ansi) = match file {
+        Some(path) => {
+            let f = std::fs::OpenOptions::new()
+                .create(true)
+                .append(true)
+                .open(path)
+                .map_err(|e| CliError::Internal(format!("log file {}: {e}", path.display())))?;
+            (BoxMakeWriter::new(std::sync::Mutex::new(f)), false)
+        }
+        None => (
+            BoxMakeWriter::new(std::io::stderr),
+            std::io::stderr().is_terminal(),
+        ),
+    };
+    let result = if json {
+        tracing_subscriber::registry()
+            .with(tracing_subscriber::fmt::layer().json().with_writer(writer))
+            .with(filter)
+            .try_init()
+    } else {
+        tracing_subscriber::registry()
+            .with(
+                tracing_subscriber::fmt::layer()
+                    .with_writer(writer)
+                    .with_ansi(ansi)
+                    .with_target(false),
+            )
+            .with(filter)
+            .try_init()
     };
     result.map_err(|e| CliError::Internal(format!("logging: {e}")))
 }
@@ -251,7 +284,7 @@ fn run_daemon(
     broker: Option<String>,
     log: &LogArgs,
 ) -> Result<(), CliError> {
-    init_tracing(log)?;
+    init_tracing(log, None)?;
     let mut settings = load_config(config)?;
     if let Some(url) = broker {
         eqwatch::config::override_broker(&mut settings, &url)
@@ -385,10 +418,13 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             threads,
             log_level,
         } => {
-            init_tracing(&LogArgs {
-                log_format: "text".into(),
-                log_level,
-            })?;
+            init_tracing(
+                &LogArgs {
+                    log_format: "text".into(),
+                    log_level,
+                },
+                None,
+            )?;
             let text = eqwatch::replay::command(
                 &config,
                 &input,
@@ -402,11 +438,17 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             speed,
             duration,
             broker,
+            workdir,
+            keep,
             log,
         } => {
-            init_tracing(&log)?;
+            let work = eqwatch::daemon::demo::Workdir::prepare(workdir, keep)?;
+            if let Err(e) = init_tracing(&log, Some(&work.log_file())) {
+                let _ = work.discard();
+                return Err(e);
+            }
             let rt = runtime()?;
-            rt.block_on(eqwatch::daemon::demo::run(speed, &duration, broker))?;
+            rt.block_on(eqwatch::daemon::demo::run(speed, &duration, broker, work))?;
             Ok((serde_json::Value::Null, false))
         }
     }

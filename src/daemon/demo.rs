@@ -162,6 +162,9 @@ struct SeenEvent {
     unit: String,
     direction: String,
     reason: Option<String>,
+    /// What the alert watches, or an operator alarm's rationale (why it exists and what
+    /// the operator does), as the payload says.
+    description: String,
 }
 
 impl SeenEvent {
@@ -209,6 +212,71 @@ impl SeenEvent {
         }
         s
     }
+
+    /// The rationale shown under an operator alarm's raised or re-alarmed event: the
+    /// operator sees why the alarm exists and what to do where the alarm appears.
+    fn rationale(&self) -> Option<&str> {
+        (self.class == "alarm" && self.raised() && !self.description.is_empty())
+            .then_some(self.description.as_str())
+    }
+
+    /// `  ! <line>` and, for an operator alarm raised, `      rationale: ...`, filled to
+    /// at most `width` characters a line.
+    fn lines(&self, start_ms: i64, width: usize) -> Vec<String> {
+        let mut out = fill(&self.line(start_ms), "  ! ", EVENT_INDENT, width);
+        if let Some(r) = self.rationale() {
+            out.extend(fill(
+                &format!("rationale: {r}"),
+                EVENT_INDENT,
+                EVENT_INDENT,
+                width,
+            ));
+        }
+        out
+    }
+}
+
+/// Continuation lines of an event.
+const EVENT_INDENT: &str = "      ";
+
+/// Fills `text` into lines of at most `width` characters: the first starts with `first`,
+/// the others with `rest`; words are kept whole unless one is longer than a line.
+fn fill(text: &str, first: &str, rest: &str, width: usize) -> Vec<String> {
+    let mut lines = Vec::new();
+    let mut cur = first.to_string();
+    let mut empty = true;
+    let room = |prefix: &str| width.saturating_sub(prefix.chars().count()).max(1);
+    for word in text.split_whitespace() {
+        let mut word: Vec<char> = word.chars().collect();
+        loop {
+            let used = cur.chars().count();
+            let need = word.len() + usize::from(!empty);
+            if used + need <= width {
+                if !empty {
+                    cur.push(' ');
+                }
+                cur.extend(word.iter());
+                empty = false;
+                break;
+            }
+            if empty {
+                // A word longer than a whole line: cut it.
+                let take = room(&cur).min(word.len());
+                cur.extend(word.drain(..take));
+                lines.push(std::mem::replace(&mut cur, rest.to_string()));
+                if word.is_empty() {
+                    break;
+                }
+                continue;
+            }
+            lines.push(std::mem::replace(&mut cur, rest.to_string()));
+            empty = true;
+        }
+    }
+    if !empty {
+        lines.push(cur);
+    }
+    lines
 }
 
 /// What the console knows about one reactor.
@@ -333,6 +401,7 @@ impl Seen {
             unit: text("unit"),
             direction: text("direction"),
             reason: v["reason"].as_str().map(str::to_string),
+            description: text("description"),
         });
     }
 }
@@ -458,6 +527,11 @@ fn end_of_run_cell(drift: Option<&Value>, now_ms: i64) -> String {
 
 /// What is annunciating on a reactor, from its retained `eqwatch.alarms/1` state:
 /// operator alarms one by one with their state, then the engineering alerts.
+///
+/// An operator alarm that returned to normal stays until acknowledged (it needs the
+/// operator: `cleared, unack`). An engineering alert that cleared needs nobody's
+/// acknowledgement, so it leaves the column (its `cleared` event stays in the lines
+/// below the table).
 fn flags(states: &Value) -> Vec<String> {
     let mut out = Vec::new();
     if states["offline"] == true {
@@ -485,10 +559,7 @@ fn flags(states: &Value) -> Vec<String> {
             (Some("alarm"), false) if a["condition"] == true && mode != "active" => {
                 out.push(format!("ALARM {id} ({mode})"));
             }
-            (Some("alert"), true) if state.starts_with("returned") => {
-                alerts.push(format!("{id} (cleared)"));
-            }
-            (Some("alert"), true) => alerts.push(id.to_string()),
+            (Some("alert"), true) if a["condition"] == true => alerts.push(id.to_string()),
             _ => {}
         }
     }
@@ -518,6 +589,9 @@ fn wrap(items: &[String], width: usize) -> Vec<String> {
     lines
 }
 
+/// Under the column headings: what the sign of the approach means.
+const APPROACH_LEGEND: &str = "approach K > 0: short of equilibrium by that much; < 0: beyond it (flagged: check the instruments)";
+
 struct View<'a> {
     ids: &'a [String],
     start_ms: i64,
@@ -525,6 +599,8 @@ struct View<'a> {
     link_up: bool,
     /// Event lines under the table (terminal).
     recent: usize,
+    /// The last line (where the log is), if any.
+    footer: Option<&'a str>,
 }
 
 fn table(seen: &Seen, view: &View) -> String {
@@ -549,6 +625,8 @@ fn table(seen: &Seen, view: &View) -> String {
         "end of run",
         "alarms and alerts annunciating"
     ));
+    s.push_str(APPROACH_LEGEND);
+    s.push('\n');
     let indent = " ".repeat(FLAGS_COLUMN);
     for id in view.ids {
         let Some(u) = seen.units.get(id) else {
@@ -607,8 +685,15 @@ fn table(seen: &Seen, view: &View) -> String {
             s.push_str("latest alert and alarm events (plant time):\n");
         }
         for e in &seen.events[from..] {
-            s.push_str(&format!("  ! {}\n", e.line(view.start_ms)));
+            for l in e.lines(view.start_ms, TABLE_WIDTH) {
+                s.push_str(&l);
+                s.push('\n');
+            }
         }
+    }
+    if let Some(f) = view.footer {
+        s.push_str(f);
+        s.push('\n');
     }
     s
 }
@@ -766,17 +851,159 @@ fn write_plots(dir: &Path, plots: &[ReactorPlot], title: &str) -> std::io::Resul
 // The demo
 // ---------------------------------------------------------------------------------------------
 
-/// Runs the demo for `duration` (wall clock) at `speed` simulated seconds per second.
-pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(), CliError> {
+/// The demo's log file, in its folder: the live table owns the terminal.
+pub const LOG_FILE: &str = "eqwatch.log";
+
+/// The demo's folder: the journal (`var/journal`) and watch state, the log
+/// ([`LOG_FILE`]) and, when the folder is kept, the plots (`plots/`).
+///
+/// A folder the user names (`--workdir`) must be new or empty and is kept. Otherwise the
+/// demo makes a new temporary folder and removes it at the end of a run unless `--keep`;
+/// plots are only written into a folder that is kept (they would vanish with it).
+#[derive(Debug)]
+pub struct Workdir {
+    path: PathBuf,
+    keep: bool,
+}
+
+impl Workdir {
+    /// Makes the folder: `given` (created if missing; must be empty), or a new one in the
+    /// system's temporary folder.
+    pub fn prepare(given: Option<PathBuf>, keep: bool) -> Result<Self, CliError> {
+        let Some(path) = given else {
+            let base = std::env::temp_dir();
+            let pid = std::process::id();
+            for n in 0..100u32 {
+                let name = if n == 0 {
+                    format!("eqwatch-demo-{pid}")
+                } else {
+                    format!("eqwatch-demo-{pid}-{n}")
+                };
+                let path = base.join(name);
+                match std::fs::create_dir(&path) {
+                    Ok(()) => return Ok(Self { path, keep }),
+                    Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => continue,
+                    Err(e) => return Err(internal("demo folder")(e)),
+                }
+            }
+            return Err(CliError::Internal(format!(
+                "no free demo folder name in {}",
+                base.display()
+            )));
+        };
+        let shown = path.display().to_string();
+        if path.exists() {
+            if !path.is_dir() {
+                return Err(CliError::Input(format!(
+                    "--workdir `{shown}` is not a folder"
+                )));
+            }
+            let mut entries = std::fs::read_dir(&path).map_err(input("--workdir"))?;
+            if entries.next().is_some() {
+                return Err(CliError::Input(format!(
+                    "--workdir `{shown}` is not empty: give a new or empty folder (the demo writes its journal, log and plots there)"
+                )));
+            }
+        } else {
+            std::fs::create_dir_all(&path).map_err(input("--workdir"))?;
+        }
+        let path = std::fs::canonicalize(&path).map_err(input("--workdir"))?;
+        Ok(Self { path, keep: true })
+    }
+
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    pub fn log_file(&self) -> PathBuf {
+        self.path.join(LOG_FILE)
+    }
+
+    /// Whether the folder stays after the run.
+    pub fn kept(&self) -> bool {
+        self.keep
+    }
+
+    /// Removes the folder unless it is kept; says whether it did.
+    pub fn discard(&self) -> std::io::Result<bool> {
+        if self.keep {
+            return Ok(false);
+        }
+        std::fs::remove_dir_all(&self.path).map(|()| true)
+    }
+
+    /// The start-up line that names the folder and what becomes of it.
+    fn start_line(&self) -> String {
+        let fate = if self.keep {
+            "kept at exit, with SVG plots of the run in plots/"
+        } else {
+            "removed at exit; --keep or --workdir DIR keeps it, with SVG plots of the run"
+        };
+        format!(
+            "demo folder {} (journal in var/journal, log in {LOG_FILE}): {fate}",
+            self.path.display()
+        )
+    }
+}
+
+/// Runs the demo for `duration` (wall clock) at `speed` simulated seconds per second in
+/// `work`, logging into [`Workdir::log_file`] (the caller set the log up); at the end the
+/// folder is removed unless kept. After a failure it is kept, for its log.
+pub async fn run(
+    speed: f64,
+    duration: &str,
+    broker: Option<String>,
+    work: Workdir,
+) -> Result<(), CliError> {
+    match live(speed, duration, broker, &work).await {
+        Ok(()) => {
+            if work.kept() {
+                println!(
+                    "demo folder kept: {} ({LOG_FILE}, plots/, var/journal)",
+                    work.path().display()
+                );
+            } else {
+                match work.discard() {
+                    Ok(_) => println!(
+                        "demo folder {} removed (journal and log; no plots written): --keep or --workdir DIR keeps it, with SVG plots of the run",
+                        work.path().display()
+                    ),
+                    Err(e) => println!(
+                        "demo folder {} could not be removed: {e}",
+                        work.path().display()
+                    ),
+                }
+            }
+            println!("advisory figures only: not a safety function.");
+            Ok(())
+        }
+        // Bad options: the run did not start, nothing in the folder is worth keeping.
+        Err(e @ CliError::Input(_)) => {
+            let _ = work.discard();
+            Err(e)
+        }
+        Err(CliError::Internal(m)) => Err(CliError::Internal(format!(
+            "{m} (the demo folder is kept for its log: {})",
+            work.log_file().display()
+        ))),
+    }
+}
+
+async fn live(
+    speed: f64,
+    duration: &str,
+    broker: Option<String>,
+    work: &Workdir,
+) -> Result<(), CliError> {
     if !(speed.is_finite() && speed > 0.0 && speed <= 3600.0) {
         return Err(CliError::Input(
             "--speed must be above 0 and at most 3600 (simulated seconds per second)".into(),
         ));
     }
     let duration = crate::config::parse_duration(duration).map_err(input("--duration"))?;
-    let workdir = std::env::temp_dir().join(format!("eqwatch-demo-{}", std::process::id()));
-    std::fs::create_dir_all(&workdir).map_err(internal("demo folder"))?;
-    let mut settings = crate::config::from_str(DEMO_CONFIG, &workdir)
+    let workdir = work.path();
+    let log_file = work.log_file();
+    let mut settings = crate::config::from_str(DEMO_CONFIG, workdir)
         .map_err(|e| CliError::Internal(format!("demo configuration: {e}")))?;
     settings.http_listen = None;
     let compressed = compress_watch(&mut settings);
@@ -812,7 +1039,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
     let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
     println!("{}", crate::sim::SCENARIO);
     println!(
-        "broker {upstream} ({}), daemon through a drop-out proxy on 127.0.0.1:{}, speed x{speed}, {} s; journal in {}",
+        "broker {upstream} ({}), daemon through a drop-out proxy on 127.0.0.1:{}, speed x{speed}, {} s",
         if broker.is_some() {
             "given"
         } else {
@@ -820,10 +1047,23 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
         },
         proxy.port(),
         duration.as_secs(),
-        workdir.join("var/journal").display()
+    );
+    println!("{}", work.start_line());
+    println!(
+        "log: {} (the daemon's log goes there: the live table owns the terminal)",
+        log_file.display()
     );
     println!("{compressed}");
-    println!("advisory figures only: not a safety function.");
+    for l in fill(super::ADVISORY, "", "  ", TABLE_WIDTH) {
+        println!("{l}");
+    }
+    let footer = fill(
+        &format!("log: {}", log_file.display()),
+        "",
+        "  ",
+        TABLE_WIDTH,
+    )
+    .join("\n");
 
     // Compressed plant time drives the daemon's clock too, so ages and lags are in plant time.
     let start_wall = Instant::now();
@@ -884,7 +1124,21 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
     let mut drawn_lines = 0usize;
     let mut events_printed = 0usize;
     let mut tick = tokio::time::interval(Duration::from_millis(100));
-    while start_wall.elapsed() < duration {
+    // Ctrl-C ends the run early (summary, plots, clean-up as at the end); a second one
+    // leaves at once.
+    let interrupted = CancellationToken::new();
+    {
+        let i = interrupted.clone();
+        tokio::spawn(async move {
+            if tokio::signal::ctrl_c().await.is_ok() {
+                i.cancel();
+                if tokio::signal::ctrl_c().await.is_ok() {
+                    std::process::exit(130);
+                }
+            }
+        });
+    }
+    while start_wall.elapsed() < duration && !interrupted.is_cancelled() {
         tick.tick().await;
         let wall = start_wall.elapsed().as_secs_f64();
         let sim_s = wall * speed;
@@ -917,7 +1171,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
         // Not on a terminal, every new alert or alarm event becomes a line of its own.
         if !tty {
             for e in &seen_now.events[events_printed.min(seen_now.events.len())..] {
-                notes.push(format!("  ! {}", e.line(start_ms)));
+                notes.extend(e.lines(start_ms, TABLE_WIDTH));
             }
             events_printed = seen_now.events.len();
         }
@@ -941,6 +1195,7 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
                     now_ms: clock(),
                     link_up,
                     recent: if tty { RECENT_EVENTS } else { 0 },
+                    footer: tty.then_some(footer.as_str()),
                 };
                 let t = table(&seen_now, &view);
                 drawn_lines = t.lines().count();
@@ -953,6 +1208,9 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
         }
     }
     proxy.set_up(true);
+    if interrupted.is_cancelled() {
+        println!("interrupted: ending the run early");
+    }
     println!("stopping the daemon (delivering what is journaled, then offline) ...");
     cancel.cancel();
     match tokio::time::timeout(Duration::from_secs(30), daemon).await {
@@ -969,7 +1227,10 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
         let mut text = String::new();
         if !tty {
             for e in &seen.events[events_printed.min(seen.events.len())..] {
-                text.push_str(&format!("  ! {}\n", e.line(start_ms)));
+                for l in e.lines(start_ms, TABLE_WIDTH) {
+                    text.push_str(&l);
+                    text.push('\n');
+                }
             }
         }
         text.push_str(&summary(&seen, &ids, start_ms, end_ms));
@@ -980,25 +1241,28 @@ pub async fn run(speed: f64, duration: &str, broker: Option<String>) -> Result<(
     };
     print!("{summary_text}");
 
-    // Rendering and writing files is blocking work: off the async thread.
-    let plot_dir: PathBuf = workdir.join("plots");
-    let dir = plot_dir.clone();
-    let written = tokio::task::spawn_blocking(move || {
-        write_plots(
-            &dir,
-            &plots,
-            "Brackwater Ammonia Works, train 1 (simulated): demo run in compressed time",
-        )
-    })
-    .await
-    .map_err(internal("plot task"))?
-    .map_err(|e| CliError::Internal(format!("plots in {}: {e}", plot_dir.display())))?;
-    println!("plots: {}/ ({})", plot_dir.display(), written.join(" "));
+    // Plots only into a folder that stays (they would vanish with a temporary one).
+    if work.kept() {
+        // Rendering and writing files is blocking work: off the async thread.
+        let plot_dir: PathBuf = workdir.join("plots");
+        let dir = plot_dir.clone();
+        let written = tokio::task::spawn_blocking(move || {
+            write_plots(
+                &dir,
+                &plots,
+                "Brackwater Ammonia Works, train 1 (simulated): demo run in compressed time",
+            )
+        })
+        .await
+        .map_err(internal("plot task"))?
+        .map_err(|e| CliError::Internal(format!("plots in {}: {e}", plot_dir.display())))?;
+        println!("plots: {}/ ({})", plot_dir.display(), written.join(" "));
+        println!("log: {}", log_file.display());
+    }
     println!(
         "retained results stay on {prefix}/<unit>/result; status on {prefix}/status (offline now)."
     );
     println!("alert and alarm states stay on {prefix}/<unit>/alarms (retained).");
-    println!("advisory figures only: not a safety function.");
     Ok(())
 }
 
@@ -1143,11 +1407,26 @@ mod tests {
             {"alarm": "cusum", "class": "alert", "state": "normal", "mode": "active", "condition": false, "annunciating": false},
             {"alarm": "end-of-run", "class": "alert", "state": "returned-to-normal unacknowledged", "mode": "active", "condition": false, "annunciating": true}
         ]});
+        // The end-of-run alert cleared: it needs no acknowledgement and is not shown.
         assert_eq!(
             flags(&st),
             vec![
                 "ALARM approach-high (unack)".to_string(),
-                "alert trend, end-of-run (cleared)".to_string()
+                "alert trend".to_string()
+            ]
+        );
+        // An operator alarm that cleared stays until acknowledged; an alert acknowledged
+        // while its condition is on stays too.
+        let st = json!({"reactor": "ref1", "alarms": [
+            {"alarm": "approach-high", "class": "alarm", "state": "returned-to-normal unacknowledged", "mode": "active", "condition": false, "annunciating": true},
+            {"alarm": "cusum", "class": "alert", "state": "acknowledged", "mode": "active", "condition": true, "annunciating": true},
+            {"alarm": "data-quality", "class": "alert", "state": "returned-to-normal unacknowledged", "mode": "active", "condition": false, "annunciating": true}
+        ]});
+        assert_eq!(
+            flags(&st),
+            vec![
+                "ALARM approach-high (cleared, unack)".to_string(),
+                "alert cusum".to_string()
             ]
         );
         // Malformed state messages give nothing rather than a panic.
@@ -1173,6 +1452,106 @@ mod tests {
             seen.events[0].line(start),
             "+42 min ref1 ALARM approach-high raised (25.1 K > 20 K)"
         );
+        // No rationale in the payload: one line.
+        assert_eq!(
+            seen.events[0].lines(start, 100),
+            vec!["  ! +42 min ref1 ALARM approach-high raised (25.1 K > 20 K)".to_string()]
+        );
+    }
+
+    #[test]
+    fn an_operator_alarm_shows_its_rationale_where_it_is_raised() {
+        // The rationale of ref1's approach-high in config/demo-plant.toml.
+        let rationale = "Methane slip far above design: reformer catalyst poisoned (sulphur slip from the desulphuriser) or tubes overheating. Operator: check desulphuriser outlet sulphur, tube-wall temperatures, and reduce firing or rate per procedure.";
+        let mut seen = Seen::default();
+        let ev = |id: &str, class: &str, event: &str, description: &str| {
+            json!({"id": id, "reactor": "ref1", "class": class, "alarm": "approach-high",
+                "event": event, "at": "2026-12-01T00:42:00Z", "value": 25.08, "limit": 20.0,
+                "direction": "high", "unit": "K", "description": description})
+        };
+        seen.take("p/ref1/alarm", &ev("a#1@1", "alarm", "raised", rationale));
+        seen.take("p/ref1/alarm", &ev("a#2@2", "alarm", "cleared", rationale));
+        seen.take(
+            "p/ref1/alert",
+            &ev(
+                "a#3@3",
+                "alert",
+                "raised",
+                "approach rising faster than 0.5 K/d",
+            ),
+        );
+        let start = parse_rfc3339("2026-12-01T00:00:00Z").expect("time");
+        let lines = seen.events[0].lines(start, 100);
+        assert_eq!(
+            lines[0],
+            "  ! +42 min ref1 ALARM approach-high raised (25.1 K > 20 K)"
+        );
+        assert!(
+            lines[1].starts_with("      rationale: Methane slip"),
+            "{lines:?}"
+        );
+        assert!(lines.iter().all(|l| l.chars().count() <= 100), "{lines:?}");
+        let words: Vec<&str> = lines[1..]
+            .iter()
+            .flat_map(|l| l.split_whitespace())
+            .skip(1)
+            .collect();
+        assert_eq!(words.join(" "), rationale, "every word, in order");
+        // Cleared, and engineering alerts: no rationale lines.
+        assert_eq!(seen.events[1].lines(start, 100).len(), 1);
+        assert_eq!(seen.events[2].lines(start, 100).len(), 1);
+    }
+
+    #[test]
+    fn fill_keeps_words_and_cuts_only_overlong_ones() {
+        let lines = fill("aa bbb cc dddd", "> ", "  ", 8);
+        assert_eq!(lines, vec!["> aa bbb", "  cc", "  dddd"]);
+        let lines = fill("abcdefghij", "> ", "  ", 6);
+        assert_eq!(lines, vec!["> abcd", "  efgh", "  ij"]);
+        assert!(fill("", "> ", "  ", 6).is_empty());
+    }
+
+    #[test]
+    fn the_table_says_what_a_positive_approach_means_and_where_the_log_is() {
+        let seen = Seen::default();
+        let ids = vec!["ref1".to_string()];
+        let view = View {
+            ids: &ids,
+            start_ms: 0,
+            now_ms: 0,
+            link_up: true,
+            recent: 6,
+            footer: Some("log: /tmp/x/eqwatch.log"),
+        };
+        let t = table(&seen, &view);
+        let lines: Vec<&str> = t.lines().collect();
+        assert!(lines[1].starts_with("unit "), "{t}");
+        assert!(lines[2].contains("> 0: short of equilibrium"), "{t}");
+        assert_eq!(lines.last(), Some(&"log: /tmp/x/eqwatch.log"), "{t}");
+        assert!(
+            lines.iter().all(|l| l.chars().count() <= TABLE_WIDTH),
+            "{t}"
+        );
+    }
+
+    #[test]
+    fn a_given_work_folder_must_be_empty_and_is_kept() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let w = Workdir::prepare(Some(dir.path().join("new")), false).expect("a new folder");
+        assert!(w.kept() && w.path().is_dir());
+        assert_eq!(
+            w.discard().ok(),
+            Some(false),
+            "a given folder is not removed"
+        );
+        std::fs::write(w.path().join("x"), "x").expect("write");
+        let e = Workdir::prepare(Some(w.path().to_path_buf()), false).expect_err("not empty");
+        assert!(e.to_string().contains("not empty"), "{e}");
+        // A temporary folder is removed unless kept.
+        let t = Workdir::prepare(None, false).expect("a temporary folder");
+        assert!(!t.kept() && t.path().is_dir());
+        assert_eq!(t.discard().ok(), Some(true));
+        assert!(!t.path().exists());
     }
 
     #[test]

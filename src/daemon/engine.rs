@@ -340,7 +340,7 @@ impl Engine {
                 Ok(input) => self.accept(r, input, raw.arrival_ms, now_ms, out),
                 Err(e) => {
                     self.metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
-                    warn!(reactor = %self.settings.reactors[r].id, topic = %raw.topic, reason = e.reason(), error = %e, "input rejected");
+                    warn!(reactor = %self.settings.reactors[r].id, topic = %raw.topic, reason = %e.reason(), error = %e, "input rejected");
                 }
             }
         }
@@ -399,7 +399,7 @@ impl Plant {
             return;
         }
         for e in &ev {
-            warn!(event = ?e.kind, rate = self.watch.rate(), "alarm flood alert");
+            warn!(event = %wp::event_name(&e.kind), rate = self.watch.rate(), "alarm flood alert");
             out.push(Append {
                 topic: self.alert_topic.clone(),
                 retain: false,
@@ -477,7 +477,7 @@ impl Unit {
                 .filter(|x| x.severity != Quality::Good)
                 .map(|x| x.code)
                 .collect();
-            warn!(reactor = %rs.id, quality = e.quality.as_str(), reasons = ?codes, "evaluation not good");
+            warn!(reactor = %rs.id, quality = %e.quality.as_str(), reasons = %codes.join(","), "evaluation not good");
         } else {
             debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
         }
@@ -559,7 +559,9 @@ impl Unit {
                     }
                     info!(reactor = %rs_id, alert = %id, value = x.value.unwrap_or(f64::NAN), "alert raised");
                 }
-                _ => info!(reactor = %rs_id, alarm = %id, event = ?e.event.kind, "alarm event"),
+                _ => {
+                    info!(reactor = %rs_id, class = %e.class.as_str(), alarm = %id, event = %wp::event_name(&e.event.kind), "alert or alarm event")
+                }
             }
             let topic = match e.class {
                 Class::Alert => self.topics.alert.clone(),
@@ -658,7 +660,7 @@ impl Unit {
                 c.user.as_deref().unwrap_or("(none)"),
                 c.client_id.as_deref().unwrap_or("(none)")
             );
-            warn!(reactor = %rs.id, command = name, user = ?c.user, client_id = ?c.client_id, "command refused: not allowed");
+            warn!(reactor = %rs.id, command = %name, user = %c.user.as_deref().unwrap_or("(none)"), client_id = %c.client_id.as_deref().unwrap_or("(none)"), "command refused: not allowed");
             answer(
                 Some(name),
                 c.alarm.as_deref(),
@@ -681,7 +683,7 @@ impl Unit {
             .command(&rs.watch, &c.action, c.alarm.as_deref(), &by, now_ms)
         {
             Ok((m, events)) => {
-                info!(reactor = %rs.id, command = name, alarm = ?c.alarm, by = %by, "command carried out");
+                info!(reactor = %rs.id, command = %name, alarm = %c.alarm.as_deref().unwrap_or("-"), by = %by, "command carried out");
                 answer(
                     Some(name),
                     c.alarm.as_deref(),
@@ -700,7 +702,7 @@ impl Unit {
             }
             Err(e) => {
                 let m = e.to_string();
-                warn!(reactor = %rs.id, command = name, alarm = ?c.alarm, by = %by, error = %m, "command refused");
+                warn!(reactor = %rs.id, command = %name, alarm = %c.alarm.as_deref().unwrap_or("-"), by = %by, error = %m, "command refused");
                 answer(
                     Some(name),
                     c.alarm.as_deref(),

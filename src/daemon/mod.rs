@@ -134,10 +134,10 @@ async fn evaluate_loop(
         match state::apply(&mut engine, &text) {
             Ok(r) => {
                 if !r.restored.is_empty() {
-                    info!(reactors = ?r.restored, "runs carried over from the saved watch state (baselines, statistics, aggregates)");
+                    info!(reactors = %r.restored.join(","), "runs carried over from the saved watch state (baselines, statistics, aggregates)");
                 }
                 if !r.alarms.is_empty() {
-                    info!(alarms = ?r.alarms, "alert and alarm states carried over (acknowledgements, shelves, out of service)");
+                    info!(alarms = %r.alarms.join(","), "alert and alarm states carried over (acknowledgements, shelves, out of service)");
                 }
                 for (id, why) in r.skipped {
                     warn!(reactor = %id, reason = %why, "saved watch state not used: a new run starts");

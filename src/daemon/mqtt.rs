@@ -89,6 +89,18 @@ pub fn options(
     Ok(o)
 }
 
+/// How long a connection stayed up, for the log: `42 s`, `3.5 min`, `2.0 h`.
+fn up_for(d: Duration) -> String {
+    let s = d.as_secs_f64();
+    if s < 120.0 {
+        format!("{s:.0} s")
+    } else if s < 7200.0 {
+        format!("{:.1} min", s / 60.0)
+    } else {
+        format!("{:.1} h", s / 3600.0)
+    }
+}
+
 /// Small xorshift for backoff jitter (no cryptographic need).
 struct Jitter(u64);
 
@@ -134,7 +146,9 @@ impl Link {
         let mut input = Some(input);
         let mut drained = false;
         let mut connected_since: Option<Instant> = None;
+        let mut ever_connected = false;
         let mut failures: u32 = 0;
+        let broker = format!("{}:{}", self.broker.host, self.broker.port);
         let mut jitter = Jitter(now_ms() as u64 | 1);
         let mut stop_at: Option<Instant> = None;
         let mut tick = tokio::time::interval(Duration::from_millis(500));
@@ -192,7 +206,8 @@ impl Link {
                     Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
                         metrics.connected.store(true, Relaxed);
                         connected_since = Some(Instant::now());
-                        info!(session_present = ack.session_present, "connected to broker");
+                        ever_connected = true;
+                        info!(session_present = ack.session_present, "connected to broker {broker}");
                         if !ack.session_present {
                             outbox.on_new_session();
                         }
@@ -247,7 +262,12 @@ impl Link {
                         let cap = base.min(self.broker.reconnect_max.as_secs_f64());
                         // "Equal jitter": half fixed, half random.
                         let delay = Duration::from_secs_f64(cap * (0.5 + 0.5 * jitter.next_unit()));
-                        warn!(error = %e, retry_in_ms = delay.as_millis() as u64, "broker connection lost");
+                        let retry = format!("{:.1} s", delay.as_secs_f64());
+                        match was_up {
+                            Some(t) => warn!(error = %e, retry_in = %retry, "connection to broker {broker} lost after {}", up_for(t.elapsed())),
+                            None if ever_connected => warn!(error = %e, retry_in = %retry, attempt = failures, "could not reconnect to broker {broker}"),
+                            None => warn!(error = %e, retry_in = %retry, attempt = failures, "could not connect to broker {broker} (never connected since start)"),
+                        }
                         let sleep_until = stop_at.map_or(delay, |at| delay.min(at.saturating_duration_since(Instant::now())));
                         tokio::select! {
                             _ = tokio::time::sleep(sleep_until) => {}

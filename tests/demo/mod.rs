@@ -1,7 +1,8 @@
 //! `eqwatch demo --broker` against a separate mosquitto: every demo reactor leaves a
 //! retained result with a numeric approach, the status ends `offline`, the console shows
-//! the operator alarm and engineering alerts the invented scenario raises, and the plots
-//! written at exit parse as SVG.
+//! the operator alarm (with its rationale) and engineering alerts the invented scenario
+//! raises, the log goes to the demo folder's file and not to the terminal, the plots
+//! written at exit into a kept folder parse as SVG, and a temporary folder is removed.
 
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -30,6 +31,15 @@ fn plots_dir(stdout: &str) -> Option<PathBuf> {
     })
 }
 
+/// The folder the demo names at the start: `demo folder <dir> (journal in ...`.
+fn demo_folder(stdout: &str) -> Option<PathBuf> {
+    stdout.lines().find_map(|l| {
+        let rest = l.strip_prefix("demo folder ")?;
+        let (dir, _) = rest.split_once(" (journal in ")?;
+        Some(PathBuf::from(dir))
+    })
+}
+
 /// Reads and parses one plot; returns its text and how many `approach` groups it has
 /// (`<g id="approach">` on a reactor chart, `<g class="approach">` per overview row).
 fn parse_svg(path: &Path) -> (String, usize) {
@@ -54,6 +64,8 @@ fn parse_svg(path: &Path) -> (String, usize) {
 #[test]
 fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
     let broker = Mosquitto::start();
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let work = tmp.path().join("demo-run");
     // 35 s at 120 simulated s per s: 70 minutes of plant time. The invented demo
     // scenario (src/sim.rs): the reformer's sulphur step at 30 min takes ref1 from 8 K to
     // 25 K over 5 min; TI-305B on lts1 stops reporting at 15 min; analyses every 5 min.
@@ -66,24 +78,51 @@ fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
             "35 s",
             "--broker",
             &broker.url(),
-            "--log-level",
-            "error",
+            "--workdir",
         ])
+        .arg(&work)
         .output()
         .expect("run the demo");
     let stdout = String::from_utf8_lossy(&out.stdout);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(0), "{stdout}\n{stderr}");
+    // Nothing is logged where the table is drawn: the log is the folder's file.
+    assert!(stderr.trim().is_empty(), "stderr: {stderr}");
+    let work = std::fs::canonicalize(&work).expect("the work folder stays");
     assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{stdout}\n{}",
-        String::from_utf8_lossy(&out.stderr)
+        demo_folder(&stdout).as_deref(),
+        Some(work.as_path()),
+        "{stdout}"
     );
+    let log_path = work.join("eqwatch.log");
+    assert!(
+        stdout.contains(&format!("log: {}", log_path.display())),
+        "{stdout}"
+    );
+    let log = std::fs::read_to_string(&log_path).expect("the log file");
+    // The advisory notice (src/daemon/mod.rs ADVISORY) opens the daemon's log.
+    assert!(
+        log.contains("eqwatch is an advisory monitoring tool: it is not a safety function"),
+        "{log}"
+    );
+    // For people: no colour codes, no Rust debug output; the broker named, and the
+    // simulated drop-out said as a lost connection.
+    assert!(!log.contains('\u{1b}'), "ANSI escape in the log");
+    assert!(!log.contains("Some("), "{log}");
+    assert!(!log.contains("Raised") && !log.contains("Cleared"), "{log}");
+    assert!(log.contains("connected to broker 127.0.0.1:"), "{log}");
+    assert!(log.contains("connection to broker 127.0.0.1:"), "{log}");
+    assert!(log.contains(" lost after "), "{log}");
     assert!(stdout.contains("summary"), "{stdout}");
     assert!(
         stdout.contains("statistics windows compressed for the demo"),
         "{stdout}"
     );
     assert!(stdout.contains("not a safety function"), "{stdout}");
+    assert!(
+        stdout.contains("eqwatch is an advisory monitoring tool"),
+        "the full advisory notice on screen\n{stdout}"
+    );
 
     // ref1's operator alarm (config/demo-plant.toml: above 20 K for 2 analyses): the
     // analyses sampled at 35 and 40 min are past 20 K, the second reported at 41 min.
@@ -91,6 +130,18 @@ fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
     assert!(
         alarm.is_some_and(|m| (35..=46).contains(&m)),
         "alarm at {alarm:?}\n{stdout}"
+    );
+    // Its rationale (config/demo-plant.toml) is on the line after it.
+    let after = stdout
+        .lines()
+        .skip_while(|l| !l.contains("ref1 ALARM approach-high raised"))
+        .nth(1)
+        .unwrap_or("");
+    assert!(
+        after
+            .trim_start()
+            .starts_with("rationale: Methane slip far above design"),
+        "{after}\n{stdout}"
     );
     // Engineering alerts: no good lts1 result since TI-305B went silent (uncertain from
     // 20 min on; 20 min compressed data-quality window), and ref1's end of run forecast
@@ -105,8 +156,13 @@ fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
         eor.is_some_and(|m| m > 30),
         "end-of-run at {eor:?}\n{stdout}"
     );
-    // The live table: trend and end-of-run columns, the alarm annunciating.
+    // The live table: trend and end-of-run columns, the alarm annunciating, and what the
+    // sign of the approach means.
     assert!(stdout.contains("trend K/d"), "{stdout}");
+    assert!(
+        stdout.contains("approach K > 0: short of equilibrium"),
+        "{stdout}"
+    );
     assert!(stdout.contains("end of run"), "{stdout}");
     assert!(stdout.contains("ALARM approach-high (unack)"), "{stdout}");
     // The summary lists what was raised per reactor.
@@ -123,6 +179,8 @@ fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
     // Plots written at exit.
     let units = ["ref1", "hts1", "lts1", "mth1", "amc1"];
     let dir = plots_dir(&stdout).unwrap_or_else(|| panic!("no plots line\n{stdout}"));
+    assert_eq!(dir, work.join("plots"), "plots in the given folder");
+    assert!(stdout.contains("demo folder kept: "), "{stdout}");
     for unit in units.iter().chain(&["overview"]) {
         assert!(dir.join(format!("{unit}.svg")).is_file(), "{unit}.svg");
     }
@@ -181,12 +239,50 @@ fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
         .find(|(t, _, _)| t.ends_with("/status"))
         .unwrap();
     assert!(status.contains("\"offline\""), "{status}");
+}
 
-    // The demo's folder (journal and plots) is a temporary one of its own.
-    if let Some(work) = dir.parent().filter(|p| {
-        p.file_name()
-            .is_some_and(|n| n.to_string_lossy().starts_with("eqwatch-demo-"))
-    }) {
-        let _ = std::fs::remove_dir_all(work);
-    }
+#[test]
+fn demo_removes_its_temporary_folder_unless_kept() {
+    let broker = Mosquitto::start();
+    let out = Command::new(env!("CARGO_BIN_EXE_eqwatch"))
+        .args([
+            "demo",
+            "--speed",
+            "120",
+            "--duration",
+            "4 s",
+            "--broker",
+            &broker.url(),
+        ])
+        .output()
+        .expect("run the demo");
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(0), "{stdout}\n{stderr}");
+    assert!(stderr.trim().is_empty(), "stderr: {stderr}");
+    let dir = demo_folder(&stdout).unwrap_or_else(|| panic!("no demo folder line\n{stdout}"));
+    assert!(!dir.exists(), "{} left behind\n{stdout}", dir.display());
+    assert!(stdout.contains("removed"), "{stdout}");
+    assert!(
+        plots_dir(&stdout).is_none(),
+        "no plots into a removed folder\n{stdout}"
+    );
+    assert!(stdout.contains("summary"), "{stdout}");
+
+    // A given folder that is not empty is refused (exit 1), and left as it was.
+    let busy = tempfile::tempdir().expect("temp dir");
+    std::fs::write(busy.path().join("notes.txt"), "mine").expect("write");
+    let out = Command::new(env!("CARGO_BIN_EXE_eqwatch"))
+        .args(["demo", "--broker", &broker.url(), "--workdir"])
+        .arg(busy.path())
+        .output()
+        .expect("run the demo");
+    assert_eq!(out.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("not empty"));
+    let left: Vec<_> = std::fs::read_dir(busy.path())
+        .expect("read")
+        .filter_map(Result::ok)
+        .map(|e| e.file_name())
+        .collect();
+    assert_eq!(left, vec![std::ffi::OsString::from("notes.txt")]);
 }
