@@ -648,9 +648,20 @@ fn table(seen: &Seen, view: &View) -> String {
             .as_f64()
             .map_or("-".into(), |t| format!("{:.1}", t - 273.15));
         let drift = u.drift();
+        // Where the approach is not meaningful (equilibrium below the analyser's detection
+        // limit) the key component's measured slip stands in its column.
+        let slip = (v["headline"]["figure"] == "key-measured").then(|| {
+            format!(
+                "{} {}",
+                v["headline"]["value"]
+                    .as_f64()
+                    .map_or("-".into(), |x| crate::units::fmt_num(x, 2)),
+                v["headline"]["unit"].as_str().unwrap_or("")
+            )
+        });
         s.push_str(&format!(
             "{id:<5} {:>10} {:>5} {:>6} {:<9} {:>9} {:>10}  {}\n",
-            fmt_opt(&v["approach_k"], 2),
+            slip.unwrap_or_else(|| fmt_opt(&v["approach_k"], 2)),
             fmt_opt(&v["approach_uncertainty_k"], 1),
             t_c,
             v["quality"].as_str().unwrap_or("-"),
@@ -661,20 +672,27 @@ fn table(seen: &Seen, view: &View) -> String {
         for l in flag_lines.iter().skip(1) {
             s.push_str(&format!("{indent}{l}\n"));
         }
-        let reasons: Vec<String> = v["reasons"]
-            .as_array()
-            .map(|a| {
-                a.iter()
-                    .filter(|r| r["severity"] != "good")
-                    .filter_map(|r| r["code"].as_str().map(str::to_string))
-                    .collect()
-            })
-            .unwrap_or_default();
-        if !reasons.is_empty() {
-            let lines = wrap(&[reasons.join(", ")], TABLE_WIDTH - 16);
-            for l in lines {
-                s.push_str(&format!("      reasons: {l}\n"));
+        // Why a result is not good, in words (each message once).
+        let mut reasons: Vec<String> = Vec::new();
+        for r in v["reasons"].as_array().into_iter().flatten() {
+            if r["severity"] == "good" {
+                continue;
             }
+            if let Some(m) = r["message"].as_str().map(str::to_string) {
+                if !reasons.contains(&m) {
+                    reasons.push(m);
+                }
+            }
+        }
+        for (i, r) in reasons.iter().take(2).enumerate() {
+            let first = if i == 0 { "      why: " } else { "           " };
+            for l in fill(r, first, "           ", TABLE_WIDTH) {
+                s.push_str(&l);
+                s.push('\n');
+            }
+        }
+        if reasons.len() > 2 {
+            s.push_str(&format!("           (and {} more)\n", reasons.len() - 2));
         }
     }
     if view.recent > 0 {
