@@ -595,10 +595,23 @@ fn linear_axis(min: f64, max: f64, target: usize) -> Axis {
     let n = ((hi - lo) / step).round().clamp(1.0, 60.0) as i64;
     let dec = decimals_for(step);
     let k0 = (lo / step).round();
+    // Steps below 0.0001 read better as "1.2e-7" than as "0.00000012".
+    let top = lo.abs().max(hi.abs());
+    let sci = dec > 4 && top < 1e-3;
+    let mantissa = if sci {
+        (top.log10().floor() - step.log10().floor()).clamp(0.0, 6.0) as usize
+    } else {
+        0
+    };
     let ticks = (0..=n)
         .map(|i| {
             let v = (k0 + i as f64) * step;
-            (v, fmt_fixed(v, dec))
+            let text = if sci && v != 0.0 {
+                format!("{v:.mantissa$e}")
+            } else {
+                fmt_fixed(v, dec)
+            };
+            (v, text)
         })
         .collect();
     Axis {
@@ -1562,10 +1575,10 @@ fn fit_text(s: &str, size: f64, max_px: f64) -> String {
 /// Column offsets inside one column of the event list: number (right-aligned), time, who,
 /// what; and the width of the whole column.
 const EV_COL_W: f64 = 484.0;
-const EV_N_RIGHT: f64 = 22.0;
-const EV_TIME_X: f64 = 28.0;
-const EV_WHO_X: f64 = 130.0;
-const EV_WHAT_X: f64 = 318.0;
+const EV_N_RIGHT: f64 = 30.0;
+const EV_TIME_X: f64 = 36.0;
+const EV_WHO_X: f64 = 138.0;
+const EV_WHAT_X: f64 = 300.0;
 const EV_FONT: f64 = 10.0;
 
 /// The numbered list of events under the chart (`<g id="events">`, one `g.event-row` per
@@ -2380,7 +2393,7 @@ fn approach_chart(
     out.push_str("</g>");
 
     projection_groups(out, p, &proj, d, &ts, &ys, range.is_some());
-    limit_groups(out, p, &ys, area, range.is_some());
+    limit_groups(out, p, &ts, &ys, area, range.is_some());
 
     // Approach line (with envelope when decimated).
     w!(out, "<g id=\"approach\" {clip}>");
@@ -2601,7 +2614,14 @@ fn projection_groups(
 /// `limit` (the end-of-run limit) and `alarm-limits` (one `g.alarm-limit` per operator
 /// alarm, with `data-id` and `data-limit-k`): horizontal lines labelled at the right end;
 /// the labels are stacked so that they never overprint each other.
-fn limit_groups(out: &mut String, p: &ReactorPlot, ys: &YScale, area: Area, has_axis: bool) {
+fn limit_groups(
+    out: &mut String,
+    p: &ReactorPlot,
+    ts: &TimeScale,
+    ys: &YScale,
+    area: Area,
+    has_axis: bool,
+) {
     // (line y, label text, the alarm; `None` for the end-of-run limit)
     let mut lines: Vec<(f64, String, Option<&AlarmLimit>)> = Vec::new();
     if let Some((l, y)) = p
@@ -2645,6 +2665,19 @@ fn limit_groups(out: &mut String, p: &ReactorPlot, ys: &YScale, area: Area, has_
         label_y[i] = label_y[i].min(next - 12.0);
         next = label_y[i];
     }
+    // Right-aligned at the right edge, or left of the end-of-run line when that is near it.
+    let widest = lines
+        .iter()
+        .map(|l| text_width(&l.1, 10.0))
+        .fold(0.0, f64::max);
+    let label_x = p
+        .projection
+        .as_ref()
+        .and_then(|pr| pr.end_of_run_ms)
+        .filter(|&e| sane_t(e) && ts.contains(e))
+        .map(|e| ts.x(e))
+        .filter(|&ex| ex > area.x1 - widest - 8.0 && ex - 6.0 - widest > area.x0)
+        .map_or(area.x1 - 4.0, |ex| ex - 6.0);
     let path = |out: &mut String, y: f64, colour: &str, dash: &str, width: &str| {
         w!(
             out,
@@ -2660,7 +2693,7 @@ fn limit_groups(out: &mut String, p: &ReactorPlot, ys: &YScale, area: Area, has_
             out,
             "<text x=\"{}\" y=\"{}\" text-anchor=\"end\" font-size=\"10\" fill=\"{colour}\" stroke=\"#fff\" \
              stroke-width=\"3\" paint-order=\"stroke\">{}</text>",
-            N(area.x1 - 4.0),
+            N(label_x),
             N(y),
             Esc(text)
         );
@@ -4043,7 +4076,7 @@ mod tests {
             }
             xs.sort_by(f64::total_cmp);
             let (boxes, lanes) = number_boxes(&xs, lo, hi);
-            assert!(lanes >= 1 && lanes <= MAX_LANES, "{lanes}");
+            assert!((1..=MAX_LANES).contains(&lanes), "{lanes}");
             let mut expect = 1;
             for (i, b) in boxes.iter().enumerate() {
                 assert_eq!(b.first, expect, "case {case}");
@@ -4407,6 +4440,15 @@ mod tests {
         assert_eq!(nice_step(1.0), 1.0);
         assert_eq!(nice_step(1.5), 2.0);
         assert_eq!(nice_step(7.0), 10.0);
+        // Tiny values (a methanator's CO as a fraction, invented) get exponent labels that
+        // read back as their tick values.
+        let tiny = linear_axis(1.0e-7, 1.4e-7, 5);
+        assert!(tiny.ticks.len() >= 4);
+        for (v, t) in &tiny.ticks {
+            assert!(t.contains("e-"), "{t}");
+            let back: f64 = t.parse().unwrap_or(f64::NAN);
+            assert!((back - v).abs() < 1e-10, "{t} for {v}");
+        }
         let a = linear_axis(0.0, 37.0, 6);
         let labels: Vec<&str> = a.ticks.iter().map(|(_, s)| s.as_str()).collect();
         assert_eq!(labels, ["0", "10", "20", "30", "40"]);
@@ -4587,6 +4629,33 @@ mod tests {
                 label: "analyser recalibrated".into(),
             },
         ];
+        // Close events, alarm limits, an off-line period and daily means (invented).
+        for i in 0..6 {
+            p.markers.push(Marker {
+                t_ms: T0 + 24 * DAY_MS + (i + 1) * 40 * MINUTE_MS,
+                kind: MarkerKind::ALL[i as usize % 4],
+                source: "alarm approach-high".into(),
+                label: "acknowledged by op1".into(),
+            });
+        }
+        p.alarm_limits = vec![AlarmLimit {
+            id: "approach-high".into(),
+            limit_k: 18.0,
+            high: true,
+        }];
+        p.offline = vec![OfflineSpan {
+            from_ms: T0 + 12 * DAY_MS + 12 * HOUR_MS,
+            to_ms: T0 + 13 * DAY_MS + 18 * HOUR_MS,
+        }];
+        p.aggregates = (0..29)
+            .map(|d| AggregatePoint {
+                t_ms: T0 + d * DAY_MS + 12 * HOUR_MS,
+                approach_k: 8.0 + 0.2 * d as f64,
+                in_fit: d >= 7,
+            })
+            .collect();
+        p.aggregate_period_ms = DAY_MS;
+        p.key_basis = Some("dry".into());
         let mut m = plot_n(30 * 24, HOUR_MS);
         m.title = "Methanator (meth1)".into();
         m.reactor = "meth1".into();

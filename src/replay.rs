@@ -905,13 +905,18 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         .iter()
         .map(|p| {
             let (mut km, mut ke) = (expand(p.key_measured), expand(p.key_equilibrium));
+            let approach = expand(p.approach_k);
+            if approach.is_none() {
+                // A bad analysis (e.g. calibration gas) is a gap here too, as on the approach.
+                (km, ke) = (None, None);
+            }
             if on_dry {
                 km = dry(km, expand(p.water_measured));
                 ke = dry(ke, expand(p.water_equilibrium));
             }
             PlotPoint {
                 t_ms: p.t_ms,
-                approach_k: expand(p.approach_k),
+                approach_k: approach,
                 uncertainty_k: expand(p.uncertainty_k),
                 good: p.good,
                 key_measured: km,
