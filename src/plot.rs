@@ -1182,6 +1182,7 @@ fn draw_y_axis(out: &mut String, area: Area, ys: &YScale, label: &str) {
 /// Vertical grid lines at the time ticks, with labels below the area when `labels`.
 fn draw_time_grid(out: &mut String, area: Area, ta: &TimeAxis, labels: bool) {
     out.push_str("<g class=\"x-axis\">");
+    let mut last_right = f64::NEG_INFINITY;
     for (t, text) in &ta.ticks {
         let x = ta.scale.x(*t);
         w!(
@@ -1193,11 +1194,24 @@ fn draw_time_grid(out: &mut String, area: Area, ta: &TimeAxis, labels: bool) {
         );
         if labels {
             // A label that would run off the right edge ends at its tick instead.
-            let anchor = if x + 0.5 * text_width(text, 11.0) > WIDTH - 4.0 {
-                "end"
+            let tw = text_width(text, 11.0);
+            let (anchor, left) = if x + 0.5 * tw > WIDTH - 4.0 {
+                ("end", x - tw)
             } else {
-                "middle"
+                ("middle", x - 0.5 * tw)
             };
+            // A label that would touch the one before it is left out (its tick stays).
+            if left < last_right + 8.0 {
+                w!(
+                    out,
+                    "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{C_FRAME}\"/>",
+                    N(area.y1),
+                    N(area.y1 + 4.0),
+                    x = N(x)
+                );
+                continue;
+            }
+            last_right = left + tw;
             w!(
                 out,
                 "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{C_FRAME}\"/>\
@@ -4401,6 +4415,38 @@ mod tests {
         // chart's title below the top chart's tick labels.
         let svg = reactor_svg(&p);
         let doc = parse(&svg);
+        // Time labels never touch each other, at any span (invented spans, 1 h to 3 years).
+        for span in [
+            HOUR_MS,
+            7 * HOUR_MS,
+            9 * HOUR_MS + 50 * MINUTE_MS,
+            3 * DAY_MS,
+            400 * DAY_MS,
+            1100 * DAY_MS,
+        ] {
+            let q = plot_n(60, span / 59);
+            let d_s = reactor_svg(&q);
+            let d = parse(&d_s);
+            let mut boxes: Vec<(f64, f64)> = d
+                .descendants()
+                .filter(|n| has_class(n, "x-axis"))
+                .take(1)
+                .flat_map(|g| g.children().filter(|n| n.has_tag_name("text")))
+                .map(|n| {
+                    let (x, tw) = (num(&n, "x"), text_width(n.text().unwrap_or_default(), 11.0));
+                    if n.attribute("text-anchor") == Some("end") {
+                        (x - tw, x)
+                    } else {
+                        (x - 0.5 * tw, x + 0.5 * tw)
+                    }
+                })
+                .collect();
+            boxes.sort_by(|a, b| a.0.total_cmp(&b.0));
+            assert!(boxes.len() >= 2, "span {span}");
+            for w in boxes.windows(2) {
+                assert!(w[0].1 <= w[1].0, "span {span}: {boxes:?}");
+            }
+        }
         let tick_ys: Vec<f64> = doc
             .descendants()
             .filter(|n| has_class(n, "x-axis"))
