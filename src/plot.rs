@@ -17,9 +17,15 @@
 //! line. Coordinates carry one decimal place.
 //!
 //! Stable structure for tests and users: `<g id="approach">` (`path.line`, and in decimated
-//! mode `path.envelope`), `uncertainty`, `uncertain-quality`, `gaps`, `baseline`, `trend`,
-//! `projection`, `limit`, `end-of-run`, `markers` (children `g.marker.alert|alarm|cleared|operator`,
-//! each with a `<title>`), `key-measured`, `key-equilibrium`, `legend`. The root carries a
+//! mode `path.envelope`), `uncertainty`, `uncertain-quality`, `gaps`, `offline` and
+//! `key-offline` (`rect.offline`), `baseline`, `trend`, `projection`, `limit`, `alarm-limits`
+//! (`g.alarm-limit` with `data-id`, `data-limit-k`), `aggregates` (`rect.aggregate`, class
+//! `in-fit` when the trend was fitted on it), `end-of-run`, `markers` (children
+//! `g.marker.alert|alarm|cleared|operator` with `data-n`, each with a `<title>`),
+//! `marker-numbers` (`g.number-box`: the numbers above the chart, stacked in lanes, a run of
+//! close markers sharing one box "3–5"), `events` (`g.event-row` with `data-n`: number, time,
+//! who, what), `key-measured`, `key-equilibrium`, `legend`. Times are labelled in UTC or a
+//! fixed offset ([`TimeZone`]; no summer-time rules), the zone written in the axis title. The root carries a
 //! `<title>` with the plot title and a `<desc>` saying the chart is advisory, not a safety
 //! function. Meaning is never carried by colour alone: series also differ in dash pattern and
 //! markers in shape.
