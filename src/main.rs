@@ -133,6 +133,10 @@ enum Command {
         /// Write SVG plots (one per reactor and an overview) into this folder.
         #[arg(long)]
         plot: Option<PathBuf>,
+        /// Time zone of the plots' time axes and event lists: UTC or a fixed offset such
+        /// as +01:00 or -05:30 (no named zones, no summer time).
+        #[arg(long, default_value = "UTC")]
+        plot_tz: String,
         /// Worker threads for the reactors (default: the machine's cores). The output
         /// does not depend on it.
         #[arg(long)]
@@ -415,9 +419,12 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             input,
             out,
             plot,
+            plot_tz,
             threads,
             log_level,
         } => {
+            let plot_tz = eqwatch::plot::TimeZone::parse(&plot_tz)
+                .map_err(|e| CliError::Input(format!("--plot-tz: {e}")))?;
             init_tracing(
                 &LogArgs {
                     log_format: "text".into(),
@@ -430,6 +437,7 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 &input,
                 out.as_deref(),
                 plot.as_deref(),
+                plot_tz,
                 threads,
             )?;
             Ok((serde_json::Value::String(text), false))

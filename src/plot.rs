@@ -17,9 +17,15 @@
 //! line. Coordinates carry one decimal place.
 //!
 //! Stable structure for tests and users: `<g id="approach">` (`path.line`, and in decimated
-//! mode `path.envelope`), `uncertainty`, `uncertain-quality`, `gaps`, `baseline`, `trend`,
-//! `projection`, `limit`, `end-of-run`, `markers` (children `g.marker.alert|alarm|cleared|operator`,
-//! each with a `<title>`), `key-measured`, `key-equilibrium`, `legend`. The root carries a
+//! mode `path.envelope`), `uncertainty`, `uncertain-quality`, `gaps`, `offline` and
+//! `key-offline` (`rect.offline`), `baseline`, `trend`, `projection`, `limit`, `alarm-limits`
+//! (`g.alarm-limit` with `data-id`, `data-limit-k`), `aggregates` (`rect.aggregate`, class
+//! `in-fit` when the trend was fitted on it), `end-of-run`, `markers` (children
+//! `g.marker.alert|alarm|cleared|operator` with `data-n`, each with a `<title>`),
+//! `marker-numbers` (`g.number-box`: the numbers above the chart, stacked in lanes, a run of
+//! close markers sharing one box "3–5"), `events` (`g.event-row` with `data-n`: number, time,
+//! who, what), `key-measured`, `key-equilibrium`, `legend`. Times are labelled in UTC or a
+//! fixed offset ([`TimeZone`]; no summer-time rules), the zone written in the axis title. The root carries a
 //! `<title>` with the plot title and a `<desc>` saying the chart is advisory, not a safety
 //! function. Meaning is never carried by colour alone: series also differ in dash pattern and
 //! markers in shape.
@@ -91,13 +97,43 @@ pub enum MarkerKind {
     Operator,
 }
 
-/// An event on the time axis (alert raised, alarm, cleared, operator note).
+/// An event on the time axis (alert raised, alarm, cleared, operator note). Markers are
+/// numbered in time order on the chart and listed with these texts under it.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Marker {
     pub t_ms: i64,
     pub kind: MarkerKind,
-    /// Shown as the marker's tooltip (`<title>`) and, when there are few markers, beside it.
+    /// Who: the reactor and alarm or alert, e.g. "alarm approach-high".
+    pub source: String,
+    /// What happened, e.g. "raised" or "acknowledged by op1".
     pub label: String,
+}
+
+/// An operator alarm limit on the approach, drawn as a horizontal line with its id.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AlarmLimit {
+    /// The alarm's id within the reactor, e.g. "approach-high".
+    pub id: String,
+    pub limit_k: f64,
+    /// `true` for a high alarm (raised above the limit), `false` for a low one.
+    pub high: bool,
+}
+
+/// A steady-state aggregate (mean approach over one aggregate period) as the trend sees it.
+#[derive(Clone, Copy, Debug, PartialEq, Default)]
+pub struct AggregatePoint {
+    /// Middle of the aggregate period, epoch ms.
+    pub t_ms: i64,
+    pub approach_k: f64,
+    /// Whether the current trend was fitted on it (filled marker) or not (hollow).
+    pub in_fit: bool,
+}
+
+/// A period when the unit was off line (pressure below its off-line limit), shaded.
+#[derive(Clone, Copy, Debug, PartialEq, Default)]
+pub struct OfflineSpan {
+    pub from_ms: i64,
+    pub to_ms: i64,
 }
 
 /// Everything drawn for one reactor.
@@ -116,6 +152,103 @@ pub struct ReactorPlot {
     pub baselines: Vec<BaselineSpan>,
     pub projection: Option<Projection>,
     pub markers: Vec<Marker>,
+    /// Operator alarm limits on the approach (the reactor's configured alarms).
+    pub alarm_limits: Vec<AlarmLimit>,
+    /// Off-line periods of the unit.
+    pub offline: Vec<OfflineSpan>,
+    /// Steady-state aggregates the trend is fitted on.
+    pub aggregates: Vec<AggregatePoint>,
+    /// Length of one aggregate period (ms), for the legend ("daily mean"); 0 = not known.
+    pub aggregate_period_ms: i64,
+    /// Basis of the key-component values ("dry" or "wet"), written in the axis title.
+    pub key_basis: Option<String>,
+}
+
+/// A fixed offset from UTC for the time-axis labels. Fixed offsets only: no daylight-saving
+/// rules (a zone that changes its offset in summer is shown at one of its offsets).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub struct TimeZone {
+    offset_min: i32,
+}
+
+/// A time zone text that is not "UTC" or a fixed offset such as "+01:00".
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct TimeZoneError(pub String);
+
+impl fmt::Display for TimeZoneError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "time zone \"{}\" is not UTC or a fixed offset such as +01:00 or -05:30 \
+             (offsets up to ±23:59; no named zones or summer time)",
+            self.0
+        )
+    }
+}
+
+impl std::error::Error for TimeZoneError {}
+
+impl TimeZone {
+    pub const UTC: TimeZone = TimeZone { offset_min: 0 };
+
+    /// A zone `offset_min` minutes ahead of UTC; `None` beyond ±23:59 (the RFC 3339 range).
+    pub fn fixed(offset_min: i32) -> Option<TimeZone> {
+        (offset_min.abs() < 24 * 60).then_some(TimeZone { offset_min })
+    }
+
+    /// "UTC", "Z", "+01:00", "-0530", "+01", "UTC+01:00" (case-insensitive prefix).
+    pub fn parse(text: &str) -> Result<TimeZone, TimeZoneError> {
+        let err = || TimeZoneError(text.to_string());
+        let t = text.trim();
+        if t.eq_ignore_ascii_case("utc") || t.eq_ignore_ascii_case("z") {
+            return Ok(TimeZone::UTC);
+        }
+        let t = match t.get(..3) {
+            Some(p) if p.eq_ignore_ascii_case("utc") => &t[3..],
+            _ => t,
+        };
+        let (sign, rest) = match t.as_bytes().first() {
+            Some(b'+') => (1, &t[1..]),
+            Some(b'-') => (-1, &t[1..]),
+            _ => return Err(err()),
+        };
+        let digits = |s: &str| s.len() == 2 && s.bytes().all(|b| b.is_ascii_digit());
+        let (hh, mm) = match rest.split_once(':') {
+            Some((h, m)) if digits(h) && digits(m) => (h, m),
+            None if rest.len() == 4
+                && rest.is_ascii()
+                && digits(&rest[..2])
+                && digits(&rest[2..]) =>
+            {
+                (&rest[..2], &rest[2..])
+            }
+            None if digits(rest) => (rest, "00"),
+            _ => return Err(err()),
+        };
+        let (h, m): (i32, i32) = match (hh.parse(), mm.parse()) {
+            (Ok(h), Ok(m)) if h < 24 && m < 60 => (h, m),
+            _ => return Err(err()),
+        };
+        TimeZone::fixed(sign * (h * 60 + m)).ok_or_else(err)
+    }
+
+    pub fn offset_minutes(&self) -> i32 {
+        self.offset_min
+    }
+
+    fn offset_ms(&self) -> i64 {
+        i64::from(self.offset_min) * MINUTE_MS
+    }
+
+    /// "UTC" or "UTC+01:00".
+    pub fn name(&self) -> String {
+        if self.offset_min == 0 {
+            return "UTC".to_string();
+        }
+        let sign = if self.offset_min < 0 { '-' } else { '+' };
+        let a = self.offset_min.unsigned_abs();
+        format!("UTC{sign}{:02}:{:02}", a / 60, a % 60)
+    }
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -141,8 +274,6 @@ const T_HI: i64 = 253_402_300_799_999;
 const V_MAX: f64 = 1e15;
 /// The projection may extend the time axis by at most the data span divided by this.
 const PROJECTION_DIVISOR: i64 = 2;
-/// Marker labels are written beside the markers (not only as tooltips) up to this count.
-const MARKER_TEXT_MAX: usize = 15;
 
 const C_TEXT: &str = "#222";
 const C_MUTED: &str = "#666";
@@ -157,6 +288,9 @@ const C_PROJ_BAND: &str = "#e69f00";
 const C_LIMIT: &str = "#b2182b";
 const C_END_OF_RUN: &str = "#333";
 const C_MEASURED: &str = "#0072b2";
+const C_OFFLINE: &str = "#8c6d31";
+const C_ALARM_LIMIT: &str = "#762a83";
+const C_AGGREGATE: &str = "#1a1a1a";
 const C_EQUILIBRIUM: &str = "#cc79a7";
 
 const DASH_BASELINE: &str = "9 3 2 3";
@@ -165,6 +299,7 @@ const DASH_FORWARD: &str = "2 3";
 const DASH_LIMIT: &str = "12 4";
 const DASH_END_OF_RUN: &str = "3 3";
 const DASH_EQUILIBRIUM: &str = "6 3";
+const DASH_ALARM_LIMIT: &str = "10 3 2 3 2 3";
 
 impl MarkerKind {
     fn class(self) -> &'static str {
@@ -251,20 +386,22 @@ impl fmt::Display for N {
     }
 }
 
-/// Rough width of `s` in px at `size` px font (sans-serif averages ~0.56 em per character).
+/// Width of `s` in px at `size` px font, estimated on the generous side per character
+/// class (digits of common sans-serif faces are about 0.64 em wide, from memory), so that
+/// boxes placed with it do not overlap when rendered.
 fn text_width(s: &str, size: f64) -> f64 {
-    s.chars().count() as f64 * size * 0.56
-}
-
-/// First `n` characters of `s`, with "…" when cut.
-fn truncate(s: &str, n: usize) -> String {
-    if s.chars().count() <= n {
-        s.to_string()
-    } else {
-        let mut t: String = s.chars().take(n.saturating_sub(1)).collect();
-        t.push('…');
-        t
-    }
+    let em: f64 = s
+        .chars()
+        .map(|c| match c {
+            '0'..='9' => 0.64,
+            ' ' | '.' | ',' | ':' | ';' | '\'' | '|' | '!' => 0.34,
+            'i' | 'j' | 'l' | 'f' | 't' | 'r' | '-' | '(' | ')' => 0.42,
+            'm' | 'w' | 'M' | 'W' | '%' | '—' => 0.9,
+            'A'..='Z' | '–' | '±' | '→' | '←' => 0.72,
+            _ => 0.62,
+        })
+        .sum();
+    em * size
 }
 
 /// `v` with `dec` decimals, "0" instead of "-0.0", exponent form for huge magnitudes.
@@ -342,6 +479,11 @@ fn civil(ms: i64) -> Civil {
         h: sod / 3600,
         mi: sod % 3600 / 60,
     }
+}
+
+/// The zone offset of an axis (0 without one), ms.
+fn tz_ms(ta: Option<&TimeAxis>) -> i64 {
+    ta.map_or(0, |t| t.tz.offset_ms())
 }
 
 /// "2026-03-01".
@@ -459,10 +601,23 @@ fn linear_axis(min: f64, max: f64, target: usize) -> Axis {
     let n = ((hi - lo) / step).round().clamp(1.0, 60.0) as i64;
     let dec = decimals_for(step);
     let k0 = (lo / step).round();
+    // Steps below 0.0001 read better as "1.2e-7" than as "0.00000012".
+    let top = lo.abs().max(hi.abs());
+    let sci = dec > 4 && top < 1e-3;
+    let mantissa = if sci {
+        (top.log10().floor() - step.log10().floor()).clamp(0.0, 6.0) as usize
+    } else {
+        0
+    };
     let ticks = (0..=n)
         .map(|i| {
             let v = (k0 + i as f64) * step;
-            (v, fmt_fixed(v, dec))
+            let text = if sci && v != 0.0 {
+                format!("{v:.mantissa$e}")
+            } else {
+                fmt_fixed(v, dec)
+            };
+            (v, text)
         })
         .collect();
     Axis {
@@ -679,37 +834,42 @@ fn time_label(t: i64, step: TimeStep) -> String {
     }
 }
 
-/// Ticks and labels of a time axis, plus the x-axis caption ("time (UTC)", with the year
-/// when the tick labels leave it out).
+/// Ticks and labels of a time axis in a fixed-offset zone, plus the x-axis caption
+/// ("time (UTC)", "time (UTC+01:00)", with the year when the tick labels leave it out).
+/// Ticks fall on whole local units (local midnight, the first of a local month).
 struct TimeAxis {
     scale: TimeScale,
     step: TimeStep,
     ticks: Vec<(i64, String)>,
     caption: String,
+    tz: TimeZone,
 }
 
-fn time_axis(scale: TimeScale) -> TimeAxis {
+fn time_axis(scale: TimeScale, tz: TimeZone) -> TimeAxis {
+    let off = tz.offset_ms();
     let step = choose_time_step(scale.t1 - scale.t0, 9);
-    let ticks = time_ticks(scale.t0, scale.t1, step)
+    let ticks = time_ticks(scale.t0 + off, scale.t1 + off, step)
         .into_iter()
-        .map(|t| (t, time_label(t, step)))
+        .map(|local| (local - off, time_label(local, step)))
         .collect();
+    let zone = tz.name();
     let caption = match step {
         TimeStep::Ms(s) if s < DAY_MS => {
-            let (a, b) = (civil(scale.t0).y, civil(scale.t1).y);
+            let (a, b) = (civil(scale.t0 + off).y, civil(scale.t1 + off).y);
             if a == b {
-                format!("time (UTC), {a}")
+                format!("time ({zone}), {a}")
             } else {
-                format!("time (UTC), {a}–{b}")
+                format!("time ({zone}), {a}–{b}")
             }
         }
-        _ => "time (UTC)".to_string(),
+        _ => format!("time ({zone})"),
     };
     TimeAxis {
         scale,
         step,
         ticks,
         caption,
+        tz,
     }
 }
 
@@ -717,9 +877,17 @@ impl TimeAxis {
     /// Date text for a label on this axis: with the time of day when ticks are sub-day.
     fn when(&self, t: i64) -> String {
         match self.step {
-            TimeStep::Ms(s) if s < DAY_MS => fmt_datetime(t),
-            _ => fmt_date(t),
+            TimeStep::Ms(s) if s < DAY_MS => self.datetime(t),
+            _ => self.date(t),
         }
+    }
+    /// "2026-03-01" in the axis's zone.
+    fn date(&self, t: i64) -> String {
+        fmt_date(t + self.tz.offset_ms())
+    }
+    /// "2026-03-01 12:00" in the axis's zone.
+    fn datetime(&self, t: i64) -> String {
+        fmt_datetime(t + self.tz.offset_ms())
     }
 }
 
@@ -1001,7 +1169,10 @@ fn draw_y_axis(out: &mut String, area: Area, ys: &YScale, label: &str) {
             y = N(y)
         );
     }
-    let (lx, ly) = (LEFT - 62.0, area.mid_y());
+    // The rotated title (12 px: about 9 px left and 3 px right of its baseline) clear of
+    // the widest tick label.
+    let lx = (area.x0 - 5.0 - tick_label_w(&ys.axis) - 8.0 - 3.0).max(12.0);
+    let ly = area.mid_y();
     w!(
         out,
         "<text class=\"axis-label\" x=\"{}\" y=\"{}\" transform=\"rotate(-90 {} {})\" \
@@ -1017,6 +1188,7 @@ fn draw_y_axis(out: &mut String, area: Area, ys: &YScale, label: &str) {
 /// Vertical grid lines at the time ticks, with labels below the area when `labels`.
 fn draw_time_grid(out: &mut String, area: Area, ta: &TimeAxis, labels: bool) {
     out.push_str("<g class=\"x-axis\">");
+    let mut last_right = f64::NEG_INFINITY;
     for (t, text) in &ta.ticks {
         let x = ta.scale.x(*t);
         w!(
@@ -1028,11 +1200,24 @@ fn draw_time_grid(out: &mut String, area: Area, ta: &TimeAxis, labels: bool) {
         );
         if labels {
             // A label that would run off the right edge ends at its tick instead.
-            let anchor = if x + 0.5 * text_width(text, 11.0) > WIDTH - 4.0 {
-                "end"
+            let tw = text_width(text, 11.0);
+            let (anchor, left) = if x + 0.5 * tw > WIDTH - 4.0 {
+                ("end", x - tw)
             } else {
-                "middle"
+                ("middle", x - 0.5 * tw)
             };
+            // A label that would touch the one before it is left out (its tick stays).
+            if left < last_right + 8.0 {
+                w!(
+                    out,
+                    "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{C_FRAME}\"/>",
+                    N(area.y1),
+                    N(area.y1 + 4.0),
+                    x = N(x)
+                );
+                continue;
+            }
+            last_right = left + tw;
             w!(
                 out,
                 "<line x1=\"{x}\" y1=\"{}\" x2=\"{x}\" y2=\"{}\" stroke=\"{C_FRAME}\"/>\
@@ -1118,31 +1303,42 @@ fn marker_shape(out: &mut String, kind: MarkerKind, x: f64, y: f64, r: f64) {
     }
 }
 
-/// Markers inside the time range as vertical lines with a shape at the top, each in a
-/// `<g class="marker KIND">` with a `<title>`; labels are also written beside them when
-/// `with_text` (few markers, room for text). Returns how many fell outside the range.
+/// Markers inside the time range, sorted by time (stable), numbered from 1.
+fn shown_markers<'a>(markers: &'a [Marker], ts: &TimeScale) -> Vec<&'a Marker> {
+    let mut v: Vec<&Marker> = markers
+        .iter()
+        .filter(|m| sane_t(m.t_ms) && ts.contains(m.t_ms))
+        .collect();
+    v.sort_by_key(|m| m.t_ms);
+    v
+}
+
+/// The markers as vertical lines with a shape at the top, each in a
+/// `<g class="marker KIND">` with a `<title>` (and its number when `numbered`).
 fn draw_markers(
     out: &mut String,
-    markers: &[Marker],
+    shown: &[&Marker],
     ta: &TimeAxis,
     area: Area,
     r: f64,
-    with_text: bool,
-) -> usize {
-    let mut outside = 0;
-    for m in markers {
-        if !sane_t(m.t_ms) || !ta.scale.contains(m.t_ms) {
-            outside += 1;
-            continue;
-        }
+    numbered: bool,
+) {
+    let zone = ta.tz.name();
+    for (i, m) in shown.iter().enumerate() {
         let x = ta.scale.x(m.t_ms);
         let kind = m.kind;
+        let number = if numbered {
+            format!("{}. ", i + 1)
+        } else {
+            String::new()
+        };
         w!(
             out,
-            "<g class=\"marker {}\"><title>{} {} UTC: {}</title>",
+            "<g class=\"marker {}\" data-n=\"{}\"><title>{number}{} {zone}: {} {}</title>",
             kind.class(),
-            kind.class(),
-            fmt_datetime(m.t_ms),
+            i + 1,
+            ta.datetime(m.t_ms),
+            Esc(&m.source),
             Esc(&m.label)
         );
         w!(
@@ -1160,22 +1356,310 @@ fn draw_markers(
             x = N(x)
         );
         marker_shape(out, kind, x, area.y0, r);
-        if with_text && !m.label.trim().is_empty() {
-            let (tx, ty) = (x + 3.5, area.y0 + 10.0);
-            w!(
-                out,
-                "<text x=\"{}\" y=\"{}\" transform=\"rotate(90 {} {})\" font-size=\"9\" fill=\"{C_TEXT}\" \
-                 stroke=\"#fff\" stroke-width=\"3\" paint-order=\"stroke\">{}</text>",
-                N(tx),
-                N(ty),
-                N(tx),
-                N(ty),
-                Esc(&truncate(&m.label, 40))
-            );
-        }
         out.push_str("</g>");
     }
-    outside
+}
+
+/// Font size of the marker numbers above the approach chart.
+const NUMBER_FONT: f64 = 9.0;
+/// Height of one lane of marker numbers.
+const LANE_H: f64 = 14.0;
+/// Lanes of marker numbers at most; closer markers share a box ("3–5").
+const MAX_LANES: usize = 3;
+/// A number box may sit at most this far (px) beside its markers.
+const MAX_SHIFT_PX: f64 = 24.0;
+/// Free space between two number boxes in a lane (px).
+const BOX_GAP: f64 = 2.0;
+/// Events listed under the chart at most; the rest are counted.
+const EVENT_ROWS_MAX: usize = 40;
+/// Height of one row of the event list.
+const EVENT_ROW_H: f64 = 14.0;
+
+/// A numbered box above the approach chart for one marker, or for a run of markers close
+/// in time ("3–5").
+#[derive(Clone, Debug, PartialEq)]
+struct NumberBox {
+    /// First and last marker number (from 1, time order).
+    first: usize,
+    last: usize,
+    /// The markers' x extent (px).
+    mx0: f64,
+    mx1: f64,
+    /// Box left and right (px) and lane (0 next to the chart).
+    x0: f64,
+    x1: f64,
+    lane: usize,
+}
+
+impl NumberBox {
+    fn text(&self) -> String {
+        number_text(self.first, self.last)
+    }
+}
+
+fn number_text(first: usize, last: usize) -> String {
+    if first == last {
+        first.to_string()
+    } else {
+        format!("{first}–{last}")
+    }
+}
+
+/// Number boxes for markers at `xs` (px, ascending) inside [lo, hi], with the lane count.
+/// Boxes never overlap and never leave [lo, hi]: first each marker gets its own box, in the
+/// lowest lane where it fits at (or at most [`MAX_SHIFT_PX`] beside) its marker; where that
+/// fails, markers closer than a growing distance share a box, until everything fits.
+fn number_boxes(xs: &[f64], lo: f64, hi: f64) -> (Vec<NumberBox>, usize) {
+    if xs.is_empty() || hi <= lo {
+        return (Vec::new(), 0);
+    }
+    let mut merge_px = 0.0;
+    while merge_px <= 2.0 * (hi - lo) {
+        if let Some(found) = place_numbers(xs, lo, hi, merge_px) {
+            return found;
+        }
+        merge_px = if merge_px == 0.0 { 4.0 } else { merge_px * 2.0 };
+    }
+    // One box for everything (reached only when a single box cannot fit either).
+    let text = number_text(1, xs.len());
+    let w = (text_width(&text, NUMBER_FONT) + 6.0).min(hi - lo);
+    let (mx0, mx1) = (xs[0], xs[xs.len() - 1]);
+    let x0 = (0.5 * (mx0 + mx1) - 0.5 * w).clamp(lo, hi - w);
+    (
+        vec![NumberBox {
+            first: 1,
+            last: xs.len(),
+            mx0,
+            mx1,
+            x0,
+            x1: x0 + w,
+            lane: 0,
+        }],
+        1,
+    )
+}
+
+/// One attempt of [`number_boxes`]: markers within `merge_px` of a run's first marker share
+/// its box. `None` when a box finds no place.
+fn place_numbers(xs: &[f64], lo: f64, hi: f64, merge_px: f64) -> Option<(Vec<NumberBox>, usize)> {
+    let mut runs: Vec<(usize, usize)> = Vec::new();
+    let mut start = 0;
+    for i in 1..xs.len() {
+        if xs[i] - xs[start] > merge_px {
+            runs.push((start, i - 1));
+            start = i;
+        }
+    }
+    runs.push((start, xs.len() - 1));
+    let mut lane_right: Vec<f64> = Vec::new();
+    let mut boxes = Vec::with_capacity(runs.len());
+    for (a, b) in runs {
+        let text = number_text(a + 1, b + 1);
+        let w = text_width(&text, NUMBER_FONT) + 6.0;
+        if w > hi - lo {
+            return None;
+        }
+        let ideal = (0.5 * (xs[a] + xs[b]) - 0.5 * w).clamp(lo, hi - w);
+        // The lowest lane where the box fits where it belongs; else a new lane; else the
+        // lane where it moves least.
+        let mut exact = None;
+        let mut shifted: Option<(usize, f64)> = None;
+        for (l, &right) in lane_right.iter().enumerate() {
+            let left = ideal.max(right + BOX_GAP);
+            if left + w > hi {
+                continue;
+            }
+            if left - ideal < 0.05 {
+                exact = Some((l, left));
+                break;
+            }
+            if shifted.is_none_or(|(_, s)| left < s) {
+                shifted = Some((l, left));
+            }
+        }
+        let (lane, left) = match (exact, shifted) {
+            (Some(e), _) => e,
+            _ if lane_right.len() < MAX_LANES => {
+                lane_right.push(f64::NEG_INFINITY);
+                (lane_right.len() - 1, ideal)
+            }
+            (None, Some((l, left))) if left - ideal <= MAX_SHIFT_PX => (l, left),
+            _ => return None,
+        };
+        lane_right[lane] = left + w;
+        boxes.push(NumberBox {
+            first: a + 1,
+            last: b + 1,
+            mx0: xs[a],
+            mx1: xs[b],
+            x0: left,
+            x1: left + w,
+            lane,
+        });
+    }
+    Some((boxes, lane_right.len()))
+}
+
+/// Height of the strip of marker numbers above the approach chart for `lanes` lanes.
+fn number_strip_h(lanes: usize) -> f64 {
+    if lanes == 0 {
+        0.0
+    } else {
+        lanes as f64 * LANE_H + 8.0
+    }
+}
+
+/// The number boxes above `area` (`<g id="marker-numbers">`, each `g.number-box` with a
+/// `rect` and its `text`), with a thin leader from each box to its markers.
+fn draw_number_boxes(out: &mut String, boxes: &[NumberBox], shown: &[&Marker], area: Area) {
+    out.push_str("<g id=\"marker-numbers\">");
+    for b in boxes {
+        let top = area.y0 - 8.0 - (b.lane + 1) as f64 * LANE_H;
+        let (h, cx) = (LANE_H - 2.0, 0.5 * (b.x0 + b.x1));
+        // The colour of the box's first marker (meaning is also in the list and shapes).
+        let colour = shown
+            .get(b.first.saturating_sub(1))
+            .map_or(C_TEXT, |m| m.kind.colour());
+        w!(
+            out,
+            "<g class=\"number-box\" data-first=\"{}\" data-last=\"{}\">",
+            b.first,
+            b.last
+        );
+        // Leader: from the box down to the middle of its markers (and along them when several).
+        w!(
+            out,
+            "<path d=\"M{},{} L{},{}",
+            N(cx),
+            N(top + h),
+            N(0.5 * (b.mx0 + b.mx1)),
+            N(area.y0 - 6.0)
+        );
+        if b.mx1 - b.mx0 > 1.0 {
+            w!(out, " M{},{} H{}", N(b.mx0), N(area.y0 - 6.0), N(b.mx1));
+        }
+        w!(
+            out,
+            "\" stroke=\"{C_MUTED}\" stroke-width=\"0.8\" fill=\"none\"/>"
+        );
+        w!(
+            out,
+            "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" rx=\"2\" fill=\"#fff\" stroke=\"{colour}\" stroke-width=\"1\"/>\
+             <text x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"{NUMBER_FONT}\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text></g>",
+            N(b.x0),
+            N(top),
+            N(b.x1 - b.x0),
+            N(h),
+            N(cx),
+            N(top + h - 3.0),
+            Esc(&b.text())
+        );
+    }
+    out.push_str("</g>");
+}
+
+/// Rows the event list under the chart takes for `n` shown markers (two columns).
+fn event_list_rows(n: usize) -> usize {
+    let listed = n.min(EVENT_ROWS_MAX);
+    listed.div_ceil(2) + usize::from(n > EVENT_ROWS_MAX)
+}
+
+/// Height of the event list (heading included) for `n` shown markers.
+fn event_list_h(n: usize) -> f64 {
+    if n == 0 {
+        0.0
+    } else {
+        24.0 + event_list_rows(n) as f64 * EVENT_ROW_H + 6.0
+    }
+}
+
+/// `s` cut (with "…") so that it fits in `max_px` at `size` px.
+fn fit_text(s: &str, size: f64, max_px: f64) -> String {
+    if text_width(s, size) <= max_px {
+        return s.to_string();
+    }
+    let mut t = String::new();
+    for c in s.chars() {
+        let mut next = t.clone();
+        next.push(c);
+        next.push('…');
+        if text_width(&next, size) > max_px {
+            break;
+        }
+        t.push(c);
+    }
+    t.push('…');
+    t
+}
+
+/// Column offsets inside one column of the event list: number (right-aligned), time, who,
+/// what; and the width of the whole column.
+const EV_COL_W: f64 = 484.0;
+const EV_N_RIGHT: f64 = 30.0;
+const EV_TIME_X: f64 = 36.0;
+const EV_WHO_X: f64 = 138.0;
+const EV_WHAT_X: f64 = 300.0;
+const EV_FONT: f64 = 10.0;
+
+/// The numbered list of events under the chart (`<g id="events">`, one `g.event-row` per
+/// event with its number in `data-n`), in two columns, times in the axis's zone.
+fn draw_event_list(out: &mut String, shown: &[&Marker], ta: &TimeAxis, y0: f64) {
+    out.push_str("<g id=\"events\">");
+    if shown.is_empty() {
+        out.push_str("</g>");
+        return;
+    }
+    w!(
+        out,
+        "<text class=\"chart-title\" x=\"16\" y=\"{}\" font-size=\"12\" font-weight=\"bold\" fill=\"{C_TEXT}\">\
+         Events (numbers as on the chart; times {})</text>",
+        N(y0 + 14.0),
+        Esc(&ta.tz.name())
+    );
+    let listed = shown.len().min(EVENT_ROWS_MAX);
+    let per_col = listed.div_ceil(2);
+    for (i, m) in shown.iter().take(listed).enumerate() {
+        let (col, row) = (i / per_col.max(1), i % per_col.max(1));
+        let x = 16.0 + col as f64 * EV_COL_W;
+        let y = y0 + 24.0 + (row + 1) as f64 * EVENT_ROW_H - 3.0;
+        w!(
+            out,
+            "<g class=\"event-row {}\" data-n=\"{}\" font-size=\"{EV_FONT}\" fill=\"{C_TEXT}\">",
+            m.kind.class(),
+            i + 1
+        );
+        marker_shape(out, m.kind, x + 4.0, y - 3.5, 3.5);
+        w!(
+            out,
+            "<text x=\"{}\" y=\"{}\" text-anchor=\"end\" font-weight=\"bold\">{}</text>\
+             <text x=\"{}\" y=\"{}\">{}</text><text x=\"{}\" y=\"{}\">{}</text><text x=\"{}\" y=\"{}\">{}</text></g>",
+            N(x + EV_N_RIGHT),
+            N(y),
+            i + 1,
+            N(x + EV_TIME_X),
+            N(y),
+            ta.datetime(m.t_ms),
+            N(x + EV_WHO_X),
+            N(y),
+            Esc(&fit_text(&m.source, EV_FONT, EV_WHAT_X - EV_WHO_X - 8.0)),
+            N(x + EV_WHAT_X),
+            N(y),
+            Esc(&fit_text(&m.label, EV_FONT, EV_COL_W - EV_WHAT_X - 12.0))
+        );
+    }
+    if shown.len() > listed {
+        w!(
+            out,
+            "<text class=\"note\" x=\"16\" y=\"{}\" font-size=\"{EV_FONT}\" fill=\"{C_MUTED}\">\
+             … and {} more event{} (numbers {}–{}); every event is in the results</text>",
+            N(y0 + 24.0 + (per_col + 1) as f64 * EVENT_ROW_H - 3.0),
+            shown.len() - listed,
+            if shown.len() - listed == 1 { "" } else { "s" },
+            listed + 1,
+            shown.len()
+        );
+    }
+    out.push_str("</g>");
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -1193,6 +1677,10 @@ enum Swatch {
     Band(&'static str, f64),
     Hollow(&'static str),
     Marker(MarkerKind),
+    /// The off-line hatch.
+    Hatch,
+    /// An aggregate point: filled (in the trend fit) or hollow.
+    Square(bool),
 }
 
 struct LegendItem {
@@ -1254,6 +1742,13 @@ fn draw_legend_items(out: &mut String, items: &[LegendItem], pos: &[(f64, f64)])
                 N(x + 11.0),
                 N(sy)
             ),
+            Swatch::Hatch => w!(
+                out,
+                "<rect x=\"{}\" y=\"{}\" width=\"22\" height=\"10\" fill=\"url(#hatch-offline)\" stroke=\"{C_OFFLINE}\" stroke-opacity=\"0.5\"/>",
+                N(x),
+                N(sy - 5.0)
+            ),
+            Swatch::Square(filled) => aggregate_shape(out, x + 11.0, sy, filled),
             Swatch::Marker(kind) => {
                 w!(
                     out,
@@ -1401,9 +1896,30 @@ fn reactor_domain(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Optio
 // reactor_svg
 // ---------------------------------------------------------------------------------------------
 
-/// One SVG document for one reactor: the approach to equilibrium (top) and the key component,
-/// measured and at equilibrium (bottom), on a shared UTC time axis. About 1000×640 px.
+/// One SVG document for one reactor, times in UTC: see [`reactor_svg_tz`].
 pub fn reactor_svg(p: &ReactorPlot) -> String {
+    reactor_svg_tz(p, TimeZone::UTC)
+}
+
+/// Widest tick label of an axis (px at 11 px).
+fn tick_label_w(axis: &Axis) -> f64 {
+    axis.ticks
+        .iter()
+        .map(|(_, t)| text_width(t, 11.0))
+        .fold(0.0, f64::max)
+}
+
+/// Left edge of the plot areas: room for the widest tick label, a gap, and the rotated
+/// axis title (never less than [`LEFT`]).
+fn left_for(label_w: f64) -> f64 {
+    LEFT.max((5.0 + label_w + 8.0 + 12.0 + 6.0).ceil())
+}
+
+/// One SVG document for one reactor: the approach to equilibrium (top) and the key component,
+/// measured and at equilibrium (bottom), on a shared time axis labelled in `tz`; numbered
+/// event markers with their list under the charts. 1000 px wide, 640 px high plus the room
+/// that marker numbers and the event list take.
+pub fn reactor_svg_tz(p: &ReactorPlot, tz: TimeZone) -> String {
     let mut out = String::with_capacity(96 * 1024);
     let pts = sorted_points(&p.points);
     let proj_all = p
@@ -1422,38 +1938,73 @@ pub fn reactor_svg(p: &ReactorPlot) -> String {
     } else {
         p.title.as_str()
     };
+    let basis = p
+        .key_basis
+        .as_deref()
+        .map(str::trim)
+        .filter(|b| !b.is_empty());
+
+    // Left margin from the widest tick label of either chart (same for both).
+    let left = match &domain {
+        Some(d) => {
+            let ts = TimeScale::new(d.t0, d.t1, LEFT, RIGHT);
+            let proj = clip_projection(&proj_all, ts.t0, ts.t1);
+            let a = approach_y_range(p, &pts, &proj, &ts)
+                .map_or(0.0, |(lo, hi)| tick_label_w(&linear_axis(lo, hi, 6)));
+            let k = key_axis(&key_values(&pts)).map_or(0.0, |(_, _, ax)| tick_label_w(&ax));
+            left_for(a.max(k))
+        }
+        None => LEFT,
+    };
+    let ta = domain
+        .as_ref()
+        .map(|d| time_axis(TimeScale::new(d.t0, d.t1, left, RIGHT), tz));
+    let shown: Vec<&Marker> = ta
+        .as_ref()
+        .map(|ta| shown_markers(&p.markers, &ta.scale))
+        .unwrap_or_default();
+    let xs: Vec<f64> = match &ta {
+        Some(ta) => shown.iter().map(|m| ta.scale.x(m.t_ms)).collect(),
+        None => Vec::new(),
+    };
+    let (boxes, lanes) = number_boxes(&xs, 0.0 + 4.0, WIDTH - 4.0);
+    let strip = number_strip_h(lanes);
+    let list_h = event_list_h(shown.len());
+    let height = (HEIGHT + strip + list_h).ceil();
 
     w!(
         out,
         "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\" \
          font-family=\"sans-serif\" font-size=\"11\" role=\"img\" aria-labelledby=\"svg-title svg-desc\">",
         w = WIDTH,
-        h = HEIGHT
+        h = height
     );
     w!(out, "<title id=\"svg-title\">{}</title>", Esc(title));
     w!(
         out,
         "<desc id=\"svg-desc\">advisory: not a safety function. Approach to equilibrium of reactor {} \
-         and its key component {}, measured and at equilibrium.</desc>",
+         and its key component {}, measured and at equilibrium{}.</desc>",
         Esc(&p.reactor),
-        Esc(key)
+        Esc(key),
+        basis.map_or(String::new(), |b| format!(" ({} basis)", Esc(b)))
     );
 
     // Legend first (its height sets where the top chart starts); drawn at the end.
     let items = approach_legend(p, &pts, &proj_all);
-    let (legend_pos, rows) = legend_layout(&items, LEFT, RIGHT, 44.0);
+    let (legend_pos, rows) = legend_layout(&items, left, RIGHT, 44.0);
     let heading_y = 44.0 + 16.0 * rows.max(1) as f64 + 4.0;
+    let dy = strip;
     let top = Area {
-        x0: LEFT,
-        y0: heading_y + 10.0,
+        x0: left,
+        y0: heading_y + 10.0 + strip,
         x1: RIGHT,
-        y1: 370.0,
+        y1: 370.0 + dy,
     };
     let bottom = Area {
-        x0: LEFT,
-        y0: 420.0,
+        x0: left,
+        y0: 420.0 + dy,
         x1: RIGHT,
-        y1: 578.0,
+        y1: 578.0 + dy,
     };
     let key_items = vec![
         legend_item(
@@ -1473,20 +2024,29 @@ pub fn reactor_svg(p: &ReactorPlot) -> String {
             format!("{key} at equilibrium"),
         ),
     ];
-    let key_heading = format!("{key}: measured and at equilibrium");
-    // Bold heading text is wider than the 0.56 em average of `text_width`.
-    let key_legend_x = (LEFT + 1.15 * text_width(&key_heading, 13.0) + 24.0).min(RIGHT - 300.0);
-    let (key_pos, _) = legend_layout(&key_items, key_legend_x, RIGHT, 410.0);
+    let key_heading = match basis {
+        Some(b) => format!("{key} ({b} basis): measured and at equilibrium"),
+        None => format!("{key}: measured and at equilibrium"),
+    };
+    // Bold heading text is wider than plain text.
+    let key_legend_x = (left + 1.1 * text_width(&key_heading, 13.0) + 24.0).min(RIGHT - 300.0);
+    let (key_pos, _) = legend_layout(&key_items, key_legend_x, RIGHT, 410.0 + dy);
 
     out.push_str("<defs>");
     clip_rect(&mut out, "clip-approach", top);
     clip_rect(&mut out, "clip-key", bottom);
+    w!(
+        out,
+        "<pattern id=\"hatch-offline\" width=\"6\" height=\"6\" patternUnits=\"userSpaceOnUse\" \
+         patternTransform=\"rotate(45)\"><rect width=\"6\" height=\"6\" fill=\"{C_OFFLINE}\" fill-opacity=\"0.12\"/>\
+         <line x1=\"0\" y1=\"0\" x2=\"0\" y2=\"6\" stroke=\"{C_OFFLINE}\" stroke-width=\"1.6\" stroke-opacity=\"0.45\"/></pattern>"
+    );
     out.push_str("</defs>");
     w!(
         out,
         "<rect width=\"{}\" height=\"{}\" fill=\"#fff\"/>",
         WIDTH,
-        HEIGHT
+        height
     );
     w!(
         out,
@@ -1496,60 +2056,74 @@ pub fn reactor_svg(p: &ReactorPlot) -> String {
     w!(
         out,
         "<text class=\"chart-title\" x=\"{}\" y=\"{}\" font-size=\"13\" font-weight=\"bold\" fill=\"{C_TEXT}\">Approach to equilibrium</text>",
-        N(LEFT),
+        N(left),
         N(heading_y)
     );
     w!(
         out,
-        "<text class=\"chart-title\" x=\"{}\" y=\"410\" font-size=\"13\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
-        N(LEFT),
+        "<text class=\"chart-title\" x=\"{}\" y=\"{}\" font-size=\"13\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
+        N(left),
+        N(410.0 + dy),
         Esc(&key_heading)
     );
 
-    match domain {
-        Some(d) => {
-            let ta = time_axis(TimeScale::new(d.t0, d.t1, LEFT, RIGHT));
-            approach_chart(&mut out, p, &pts, &proj_all, &d, &ta, top);
-            key_chart(&mut out, &pts, key, &ta, bottom);
+    let caption_y = 612.0 + dy;
+    match (&domain, &ta) {
+        (Some(d), Some(ta)) => {
+            approach_chart(&mut out, p, &pts, &proj_all, d, ta, top, &shown);
+            draw_number_boxes(&mut out, &boxes, &shown, top);
+            key_chart(&mut out, p, &pts, key, basis, ta, bottom);
             w!(
                 out,
-                "<text class=\"axis-label\" x=\"{}\" y=\"612\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text>",
+                "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text>",
                 N(bottom.mid_x()),
+                N(caption_y),
                 Esc(&ta.caption)
             );
+            draw_event_list(&mut out, &shown, ta, caption_y + 8.0);
         }
-        None => {
+        _ => {
             for id in [
+                "offline",
                 "gaps",
                 "uncertainty",
                 "baseline",
                 "projection",
                 "trend",
                 "limit",
+                "alarm-limits",
                 "approach",
+                "aggregates",
                 "uncertain-quality",
                 "end-of-run",
                 "markers",
+                "marker-numbers",
+                "events",
             ] {
                 w!(out, "<g id=\"{id}\"/>");
             }
-            out.push_str("<g id=\"key-measured\"/><g id=\"key-equilibrium\"/>");
+            out.push_str(
+                "<g id=\"key-offline\"/><g id=\"key-measured\"/><g id=\"key-equilibrium\"/>",
+            );
             draw_frame(&mut out, top);
             draw_message(&mut out, top, "no data");
             draw_frame(&mut out, bottom);
             draw_message(&mut out, bottom, "no data");
             w!(
                 out,
-                "<text class=\"axis-label\" x=\"{}\" y=\"612\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">time (UTC)</text>",
-                N(bottom.mid_x())
+                "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">time ({})</text>",
+                N(bottom.mid_x()),
+                N(caption_y),
+                Esc(&tz.name())
             );
         }
     }
 
     w!(
         out,
-        "<text class=\"footer\" x=\"16\" y=\"632\" font-size=\"10\" fill=\"{C_MUTED}\">advisory: not a safety function. \
+        "<text class=\"footer\" x=\"16\" y=\"{}\" font-size=\"10\" fill=\"{C_MUTED}\">advisory: not a safety function. \
          eqwatch{}{}</text>",
+        N(height - 8.0),
         if p.reactor.is_empty() {
             ""
         } else {
@@ -1586,6 +2160,12 @@ fn approach_legend(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Vec<
     if pts.iter().any(|q| !q.approach_k.is_some_and(usable)) {
         v.push(legend_item(Swatch::Band(C_GAP, 0.3), "bad quality (gap)"));
     }
+    if p.offline
+        .iter()
+        .any(|o| sane_t(o.from_ms) && sane_t(o.to_ms))
+    {
+        v.push(legend_item(Swatch::Hatch, "unit off line"));
+    }
     if p.baselines.iter().any(|b| usable(b.approach_k)) {
         v.push(legend_item(
             Swatch::Line {
@@ -1618,6 +2198,20 @@ fn approach_legend(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Vec<
             "prediction band",
         ));
     }
+    let aggs = || p.aggregates.iter().filter(|a| usable(a.approach_k));
+    let mean = aggregate_name(p.aggregate_period_ms);
+    if aggs().any(|a| a.in_fit) {
+        v.push(legend_item(
+            Swatch::Square(true),
+            format!("{mean} (trend fit)"),
+        ));
+    }
+    if aggs().any(|a| !a.in_fit) {
+        v.push(legend_item(
+            Swatch::Square(false),
+            format!("{mean} (not in fit)"),
+        ));
+    }
     if p.limit_k.is_some_and(usable) {
         v.push(legend_item(
             Swatch::Line {
@@ -1626,6 +2220,16 @@ fn approach_legend(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Vec<
                 width: 1.6,
             },
             "end-of-run limit",
+        ));
+    }
+    if p.alarm_limits.iter().any(|a| usable(a.limit_k)) {
+        v.push(legend_item(
+            Swatch::Line {
+                colour: C_ALARM_LIMIT,
+                dash: DASH_ALARM_LIMIT,
+                width: 1.4,
+            },
+            "operator alarm limit",
         ));
     }
     if p.projection
@@ -1666,6 +2270,7 @@ fn approach_y_range(
         .chain(baselines.clone().map(|b| b.approach_k))
         .chain(proj.iter().map(|q| q.fit))
         .chain(p.limit_k)
+        .chain(p.alarm_limits.iter().map(|a| a.limit_k))
         .filter(|v| usable(*v));
     let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
     for v in core {
@@ -1701,6 +2306,7 @@ fn approach_y_range(
 }
 
 /// The top chart. Groups are always written (possibly empty) so that the structure is stable.
+#[allow(clippy::too_many_arguments)]
 fn approach_chart(
     out: &mut String,
     p: &ReactorPlot,
@@ -1709,6 +2315,7 @@ fn approach_chart(
     d: &Domain,
     ta: &TimeAxis,
     area: Area,
+    shown: &[&Marker],
 ) {
     let ts = ta.scale;
     let proj = clip_projection(proj_all, ts.t0, ts.t1);
@@ -1722,10 +2329,18 @@ fn approach_chart(
         bottom: area.y1,
     };
     draw_time_grid(out, area, ta, true);
+    offline_group(
+        out,
+        "id=\"offline\"",
+        &p.offline,
+        &ts,
+        area,
+        "clip-approach",
+    );
     if range.is_some() {
         draw_y_axis(out, area, &ys, "approach to equilibrium (K)");
     } else {
-        let (lx, ly) = (LEFT - 62.0, area.mid_y());
+        let (lx, ly) = (area.x0 - 30.0, area.mid_y());
         w!(
             out,
             "<text class=\"axis-label\" x=\"{}\" y=\"{}\" transform=\"rotate(-90 {} {})\" text-anchor=\"middle\" \
@@ -1798,7 +2413,7 @@ fn approach_chart(
     out.push_str("</g>");
 
     projection_groups(out, p, &proj, d, &ts, &ys, range.is_some());
-    limit_group(out, p, &ys, area, range.is_some());
+    limit_groups(out, p, &ts, &ys, area, range.is_some());
 
     // Approach line (with envelope when decimated).
     w!(out, "<g id=\"approach\" {clip}>");
@@ -1839,16 +2454,13 @@ fn approach_chart(
     }
     out.push_str("</g>");
 
-    baselines_group(out, p, &ts, &ys, area, range.is_some());
+    aggregates_group(out, p, &ts, &ys, range.is_some());
+    baselines_group(out, p, ta, &ys, area, range.is_some());
     end_of_run_group(out, p, ta, &ys, area, range.is_some());
 
     out.push_str("<g id=\"markers\">");
-    let n_in = p
-        .markers
-        .iter()
-        .filter(|m| sane_t(m.t_ms) && ts.contains(m.t_ms))
-        .count();
-    let outside = draw_markers(out, &p.markers, ta, area, 5.5, n_in <= MARKER_TEXT_MAX);
+    draw_markers(out, shown, ta, area, 5.5, true);
+    let outside = p.markers.len() - shown.len();
     if outside > 0 {
         w!(
             out,
@@ -1870,11 +2482,12 @@ fn approach_chart(
 fn baselines_group(
     out: &mut String,
     p: &ReactorPlot,
-    ts: &TimeScale,
+    ta: &TimeAxis,
     ys: &YScale,
     area: Area,
     has_axis: bool,
 ) {
+    let ts = &ta.scale;
     w!(out, "<g id=\"baseline\" clip-path=\"url(#clip-approach)\">");
     for b in p.baselines.iter().filter(|_| has_axis) {
         if !usable(b.approach_k) || !sane_t(b.from_ms) || !sane_t(b.to_ms) {
@@ -1894,11 +2507,12 @@ fn baselines_group(
         let sigma = b.sigma_k.filter(|s| usable(*s)).map(f64::abs);
         w!(
             out,
-            "<g class=\"baseline-span\"><title>baseline {} K{} from {} to {} UTC</title>",
+            "<g class=\"baseline-span\"><title>baseline {} K{} from {} to {} {}</title>",
             fmt_sig(b.approach_k, 3),
             sigma.map_or(String::new(), |s| format!(" ± {}", fmt_sig(s, 2))),
-            fmt_datetime(b.from_ms.min(b.to_ms)),
-            fmt_datetime(b.from_ms.max(b.to_ms))
+            ta.datetime(b.from_ms.min(b.to_ms)),
+            ta.datetime(b.from_ms.max(b.to_ms)),
+            ta.tz.name()
         );
         if let Some((yh, yl)) =
             sigma.and_then(|s| ys.y(b.approach_k + s).zip(ys.y(b.approach_k - s)))
@@ -2017,29 +2631,197 @@ fn projection_groups(
     out.push_str("</g>");
 }
 
-fn limit_group(out: &mut String, p: &ReactorPlot, ys: &YScale, area: Area, has_axis: bool) {
-    out.push_str("<g id=\"limit\">");
+/// `limit` (the end-of-run limit) and `alarm-limits` (one `g.alarm-limit` per operator
+/// alarm, with `data-id` and `data-limit-k`): horizontal lines labelled at the right end;
+/// the labels are stacked so that they never overprint each other.
+fn limit_groups(
+    out: &mut String,
+    p: &ReactorPlot,
+    ts: &TimeScale,
+    ys: &YScale,
+    area: Area,
+    has_axis: bool,
+) {
+    // (line y, label text, the alarm; `None` for the end-of-run limit)
+    let mut lines: Vec<(f64, String, Option<&AlarmLimit>)> = Vec::new();
     if let Some((l, y)) = p
         .limit_k
         .filter(|l| has_axis && usable(*l))
         .and_then(|l| ys.y(l).map(|y| (l, y)))
     {
+        lines.push((y, format!("end-of-run limit {} K", fmt_sig(l, 3)), None));
+    }
+    for a in p
+        .alarm_limits
+        .iter()
+        .filter(|a| has_axis && usable(a.limit_k))
+    {
+        if let Some(y) = ys.y(a.limit_k) {
+            lines.push((
+                y,
+                format!(
+                    "operator alarm {} ({}) {} K",
+                    a.id,
+                    if a.high { "high" } else { "low" },
+                    fmt_sig(a.limit_k, 3)
+                ),
+                Some(a),
+            ));
+        }
+    }
+    // Labels just below their lines (the end-of-run interval bar sits on the limit line),
+    // at least 12 px apart, inside the area.
+    let mut order: Vec<usize> = (0..lines.len()).collect();
+    order.sort_by(|&i, &j| lines[i].0.total_cmp(&lines[j].0));
+    let mut label_y = vec![0.0; lines.len()];
+    let mut prev = f64::NEG_INFINITY;
+    for &i in &order {
+        let y = (lines[i].0 + 13.0).max(prev + 12.0).max(area.y0 + 12.0);
+        label_y[i] = y;
+        prev = y;
+    }
+    let mut next = area.y1 - 3.0 + 12.0;
+    for &i in order.iter().rev() {
+        label_y[i] = label_y[i].min(next - 12.0);
+        next = label_y[i];
+    }
+    // Right-aligned at the right edge, or left of the end-of-run line when that is near it.
+    let widest = lines
+        .iter()
+        .map(|l| text_width(&l.1, 10.0))
+        .fold(0.0, f64::max);
+    let label_x = p
+        .projection
+        .as_ref()
+        .and_then(|pr| pr.end_of_run_ms)
+        .filter(|&e| sane_t(e) && ts.contains(e))
+        .map(|e| ts.x(e))
+        .filter(|&ex| ex > area.x1 - widest - 8.0 && ex - 6.0 - widest > area.x0)
+        .map_or(area.x1 - 4.0, |ex| ex - 6.0);
+    let path = |out: &mut String, y: f64, colour: &str, dash: &str, width: &str| {
         w!(
             out,
-            "<path class=\"line\" d=\"M{},{} H{}\" stroke=\"{C_LIMIT}\" stroke-width=\"1.6\"{} fill=\"none\"/>",
+            "<path class=\"line\" d=\"M{},{} H{}\" stroke=\"{colour}\" stroke-width=\"{width}\"{} fill=\"none\"/>",
             N(area.x0),
             N(y),
             N(area.x1),
-            dash_attr(DASH_LIMIT)
+            dash_attr(dash)
         );
+    };
+    let label = |out: &mut String, y: f64, colour: &str, text: &str| {
         w!(
             out,
-            "<text x=\"{}\" y=\"{}\" text-anchor=\"end\" font-size=\"10\" fill=\"{C_LIMIT}\" stroke=\"#fff\" \
-             stroke-width=\"3\" paint-order=\"stroke\">end-of-run limit {} K</text>",
-            N(area.x1 - 4.0),
-            // Below the line: the end-of-run interval bar sits on it.
-            N(y + 13.0),
-            fmt_sig(l, 3)
+            "<text x=\"{}\" y=\"{}\" text-anchor=\"end\" font-size=\"10\" fill=\"{colour}\" stroke=\"#fff\" \
+             stroke-width=\"3\" paint-order=\"stroke\">{}</text>",
+            N(label_x),
+            N(y),
+            Esc(text)
+        );
+    };
+    out.push_str("<g id=\"limit\">");
+    for (i, (y, text, _)) in lines.iter().enumerate().filter(|(_, l)| l.2.is_none()) {
+        path(out, *y, C_LIMIT, DASH_LIMIT, "1.6");
+        label(out, label_y[i], C_LIMIT, text);
+    }
+    out.push_str("</g><g id=\"alarm-limits\">");
+    for (i, (y, text, alarm)) in lines.iter().enumerate() {
+        let Some(a) = alarm else { continue };
+        w!(
+            out,
+            "<g class=\"alarm-limit\" data-id=\"{}\" data-limit-k=\"{}\"><title>operator alarm {}: {} K</title>",
+            Esc(&a.id),
+            fmt_sig(a.limit_k, 6),
+            Esc(&a.id),
+            fmt_sig(a.limit_k, 6)
+        );
+        path(out, *y, C_ALARM_LIMIT, DASH_ALARM_LIMIT, "1.4");
+        label(out, label_y[i], C_ALARM_LIMIT, text);
+        out.push_str("</g>");
+    }
+    out.push_str("</g>");
+}
+
+/// "daily mean" for one-day aggregates, "6-h mean" and so on, else "period mean".
+fn aggregate_name(period_ms: i64) -> String {
+    if period_ms > 0 && period_ms % DAY_MS == 0 {
+        match period_ms / DAY_MS {
+            1 => "daily mean".to_string(),
+            7 => "weekly mean".to_string(),
+            n => format!("{n}-day mean"),
+        }
+    } else if period_ms > 0 && period_ms % HOUR_MS == 0 {
+        format!("{}-h mean", period_ms / HOUR_MS)
+    } else {
+        "period mean".to_string()
+    }
+}
+
+/// The aggregate marker: a small square, filled (in the trend fit) or hollow.
+fn aggregate_shape(out: &mut String, x: f64, y: f64, filled: bool) {
+    w!(
+        out,
+        "<rect class=\"aggregate{}\" x=\"{}\" y=\"{}\" width=\"5\" height=\"5\" fill=\"{}\" stroke=\"{C_AGGREGATE}\" stroke-width=\"1\"/>",
+        if filled { " in-fit" } else { "" },
+        N(x - 2.5),
+        N(y - 2.5),
+        if filled { C_TREND } else { "#fff" }
+    );
+}
+
+/// `aggregates`: one `rect.aggregate` per steady-state aggregate inside the time range.
+fn aggregates_group(
+    out: &mut String,
+    p: &ReactorPlot,
+    ts: &TimeScale,
+    ys: &YScale,
+    has_axis: bool,
+) {
+    out.push_str("<g id=\"aggregates\" clip-path=\"url(#clip-approach)\">");
+    for a in &p.aggregates {
+        if !has_axis || !usable(a.approach_k) || !sane_t(a.t_ms) || !ts.contains(a.t_ms) {
+            continue;
+        }
+        if let Some(y) = ys.y(a.approach_k) {
+            aggregate_shape(out, ts.x(a.t_ms), y, a.in_fit);
+        }
+    }
+    out.push_str("</g>");
+}
+
+/// Off-line periods as hatched rectangles over the whole height of `area`, in a `<g>` with
+/// the attribute `group` (`id="offline"`), one `rect.offline` per period in the time range.
+fn offline_group(
+    out: &mut String,
+    group: &str,
+    spans: &[OfflineSpan],
+    ts: &TimeScale,
+    area: Area,
+    clip: &str,
+) {
+    w!(out, "<g {group} clip-path=\"url(#{clip})\">");
+    for o in spans {
+        if !sane_t(o.from_ms) || !sane_t(o.to_ms) {
+            continue;
+        }
+        let (a, b) = (o.from_ms.min(o.to_ms), o.from_ms.max(o.to_ms));
+        if b < ts.t0 || a > ts.t1 {
+            continue;
+        }
+        let (xa, xb) = (ts.x(a.max(ts.t0)), ts.x(b.min(ts.t1)));
+        let (xa, xb) = if xb - xa < 1.0 {
+            let mid = 0.5 * (xa + xb);
+            (mid - 0.5, mid + 0.5)
+        } else {
+            (xa, xb)
+        };
+        w!(
+            out,
+            "<rect class=\"offline\" x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"url(#hatch-offline)\">\
+             <title>unit off line</title></rect>",
+            N(xa),
+            N(area.y0),
+            N(xb - xa),
+            N(area.h())
         );
     }
     out.push_str("</g>");
@@ -2071,10 +2853,11 @@ fn end_of_run_group(
             let (xa, xb) = (ts.x(ca), ts.x(cb));
             w!(
                 out,
-                "<g class=\"range\"><title>end of run between {} and {} UTC</title>\
+                "<g class=\"range\"><title>end of run between {} and {} {}</title>\
                  <path d=\"M{},{} H{}\" stroke=\"{C_END_OF_RUN}\" stroke-width=\"4\" stroke-opacity=\"0.55\"/>",
-                fmt_datetime(a),
-                fmt_datetime(b),
+                ta.datetime(a),
+                ta.datetime(b),
+                ta.tz.name(),
                 N(xa),
                 N(y),
                 N(xb)
@@ -2116,13 +2899,13 @@ fn end_of_run_group(
         } else {
             let (text, x, anchor) = if e > ts.t1 {
                 (
-                    format!("end of run beyond chart: {} →", fmt_date(e)),
+                    format!("end of run beyond chart: {} →", ta.date(e)),
                     area.x1 - 6.0,
                     "end",
                 )
             } else {
                 (
-                    format!("← end of run before chart: {}", fmt_date(e)),
+                    format!("← end of run before chart: {}", ta.date(e)),
                     area.x0 + 6.0,
                     "start",
                 )
@@ -2155,7 +2938,7 @@ fn key_axis(values: &[f64]) -> Option<(f64, &'static str, Axis)> {
     let (scale, unit) = if max_abs < 1e-3 {
         (1e6, "ppm")
     } else {
-        (100.0, "mol%")
+        (100.0, "mol %")
     };
     let pos = vals.iter().filter(|v| **v > 0.0);
     let (pmin, pmax) = pos.fold((f64::INFINITY, 0.0f64), |(a, b), v| (a.min(*v), b.max(*v)));
@@ -2170,22 +2953,43 @@ fn key_axis(values: &[f64]) -> Option<(f64, &'static str, Axis)> {
     Some((scale, unit, linear_axis(lo * scale, hi * scale, 5)))
 }
 
-fn key_chart(out: &mut String, pts: &[&PlotPoint], key: &str, ta: &TimeAxis, area: Area) {
-    let ts = ta.scale;
-    let values: Vec<f64> = pts
-        .iter()
+/// Every key-component value of the points (measured and at equilibrium).
+fn key_values(pts: &[&PlotPoint]) -> Vec<f64> {
+    pts.iter()
         .flat_map(|q| [q.key_measured, q.key_equilibrium])
         .flatten()
-        .collect();
-    let axis = key_axis(&values);
+        .collect()
+}
+
+/// The key-component axis title: "CO, mol % dry basis", "CO, ppm, log scale".
+fn key_label(key: &str, unit: &str, basis: Option<&str>, log: bool) -> String {
+    let mut s = format!("{key}, {unit}");
+    if let Some(b) = basis {
+        s.push_str(&format!(" {b} basis"));
+    }
+    if log {
+        s.push_str(", log scale");
+    }
+    s
+}
+
+fn key_chart(
+    out: &mut String,
+    p: &ReactorPlot,
+    pts: &[&PlotPoint],
+    key: &str,
+    basis: Option<&str>,
+    ta: &TimeAxis,
+    area: Area,
+) {
+    let ts = ta.scale;
+    let axis = key_axis(&key_values(pts));
+    offline_group(out, "id=\"key-offline\"", &p.offline, &ts, area, "clip-key");
     draw_time_grid(out, area, ta, true);
     let mut drawn = 0usize;
     match axis {
         Some((scale, unit, axis)) => {
-            let label = format!(
-                "{key} ({unit}{})",
-                if axis.log { ", log scale" } else { "" }
-            );
+            let label = key_label(key, unit, basis, axis.log);
             let ys = YScale {
                 axis,
                 top: area.y0,
@@ -2255,9 +3059,14 @@ fn key_chart(out: &mut String, pts: &[&PlotPoint], key: &str, ta: &TimeAxis, are
 // overview_svg
 // ---------------------------------------------------------------------------------------------
 
-/// Small multiples, one row per reactor: approach with gaps, limit line and markers, on a
-/// shared UTC time axis (the span of all reactors' data).
+/// Small multiples, times in UTC: see [`overview_svg_tz`].
 pub fn overview_svg(plots: &[ReactorPlot], title: &str) -> String {
+    overview_svg_tz(plots, title, TimeZone::UTC)
+}
+
+/// Small multiples, one row per reactor: approach with gaps, off-line periods, limit line
+/// and markers, on a shared time axis labelled in `tz` (the span of all reactors' data).
+pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> String {
     let n = plots.len();
     let panel_h = if n == 0 {
         120.0
@@ -2280,6 +3089,9 @@ pub fn overview_svg(plots: &[ReactorPlot], title: &str) -> String {
         .any(|q| !q.approach_k.is_some_and(usable))
     {
         items.push(legend_item(Swatch::Band(C_GAP, 0.3), "bad quality (gap)"));
+    }
+    if plots.iter().any(|p| !p.offline.is_empty()) {
+        items.push(legend_item(Swatch::Hatch, "unit off line"));
     }
     if plots.iter().any(|p| p.limit_k.is_some_and(usable)) {
         items.push(legend_item(
@@ -2330,6 +3142,12 @@ pub fn overview_svg(plots: &[ReactorPlot], title: &str) -> String {
     for i in 0..n {
         clip_rect(&mut out, &format!("clip-panel-{}", i + 1), panel_area(i));
     }
+    w!(
+        out,
+        "<pattern id=\"hatch-offline\" width=\"6\" height=\"6\" patternUnits=\"userSpaceOnUse\" \
+         patternTransform=\"rotate(45)\"><rect width=\"6\" height=\"6\" fill=\"{C_OFFLINE}\" fill-opacity=\"0.12\"/>\
+         <line x1=\"0\" y1=\"0\" x2=\"0\" y2=\"6\" stroke=\"{C_OFFLINE}\" stroke-width=\"1.6\" stroke-opacity=\"0.45\"/></pattern>"
+    );
     out.push_str("</defs>");
     w!(
         out,
@@ -2350,7 +3168,7 @@ pub fn overview_svg(plots: &[ReactorPlot], title: &str) -> String {
     }
     let ta = t0
         .zip(t1)
-        .map(|(a, b)| time_axis(TimeScale::new(a, b, LEFT, RIGHT)));
+        .map(|(a, b)| time_axis(TimeScale::new(a, b, LEFT, RIGHT), tz));
 
     if n == 0 {
         let a = panel_area(0);
@@ -2362,13 +3180,15 @@ pub fn overview_svg(plots: &[ReactorPlot], title: &str) -> String {
         let last = i + 1 == n;
         overview_panel(&mut out, i + 1, p, pts, ta.as_ref(), area, last);
     }
-    let caption = ta.as_ref().map_or("time (UTC)", |t| t.caption.as_str());
+    let caption = ta
+        .as_ref()
+        .map_or(format!("time ({})", tz.name()), |t| t.caption.clone());
     w!(
         out,
         "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text>",
         N(0.5 * (LEFT + RIGHT)),
         N(height - 26.0),
-        Esc(caption)
+        Esc(&caption)
     );
     w!(
         out,
@@ -2408,7 +3228,7 @@ fn overview_panel(
         .and_then(|pr| pr.end_of_run_ms)
         .filter(|&e| sane_t(e))
     {
-        heading.push_str(&format!(" — end of run {}", fmt_date(e)));
+        heading.push_str(&format!(" — end of run {}", fmt_date(e + tz_ms(ta))));
     }
     w!(
         out,
@@ -2450,6 +3270,14 @@ fn overview_panel(
         top: area.y0,
         bottom: area.y1,
     };
+    offline_group(
+        out,
+        "class=\"offline\"",
+        &p.offline,
+        &ts,
+        area,
+        &format!("clip-panel-{index}"),
+    );
     draw_time_grid(out, area, ta, last);
     if has_axis {
         draw_y_axis(out, area, &ys, "approach (K)");
@@ -2523,7 +3351,7 @@ fn overview_panel(
         );
     }
     out.push_str("</g><g class=\"markers\">");
-    draw_markers(out, &p.markers, ta, area, 4.0, false);
+    draw_markers(out, &shown_markers(&p.markers, &ts), ta, area, 4.0, false);
     out.push_str("</g>");
     draw_frame(out, area);
     if !series.iter().any(|q| q.y.is_some()) {
@@ -2632,7 +3460,13 @@ mod tests {
         assert!(desc.contains("advisory: not a safety function"));
     }
 
-    const IDS: [&str; 15] = [
+    const IDS: [&str; 21] = [
+        "offline",
+        "key-offline",
+        "alarm-limits",
+        "aggregates",
+        "marker-numbers",
+        "events",
         "approach",
         "uncertainty",
         "uncertain-quality",
@@ -2668,7 +3502,7 @@ mod tests {
         for want in [
             "Approach to equilibrium",
             "approach to equilibrium (K)",
-            "CO (mol%)",
+            "CO, mol %",
             "CO measured",
             "CO at equilibrium",
             "end-of-run limit 25 K",
@@ -2732,6 +3566,7 @@ mod tests {
             .map(|(i, &kind)| Marker {
                 t_ms: T0 + (5 + 10 * i as i64) * HOUR_MS,
                 kind,
+                source: "alarm test".into(),
                 label: format!("event {i} for {}", kind.class()),
             })
             .collect();
@@ -2739,6 +3574,7 @@ mod tests {
         p.markers.push(Marker {
             t_ms: T0 - 30 * DAY_MS,
             kind: MarkerKind::Operator,
+            source: "alarm test".into(),
             label: "old note".into(),
         });
         let svg = reactor_svg(&p);
@@ -2786,7 +3622,7 @@ mod tests {
         let svg = reactor_svg(&p);
         let doc = parse(&svg);
         let t = texts(&doc);
-        assert!(t.iter().any(|s| s == "CO (ppm, log scale)"), "{t:?}");
+        assert!(t.iter().any(|s| s == "CO, ppm, log scale"), "{t:?}");
         // Decade ticks from 1e-4 ppm to 10 ppm.
         for tick in ["1e-4", "0.001", "0.01", "0.1", "1", "10"] {
             assert!(t.iter().any(|s| s == tick), "tick {tick}");
@@ -2801,16 +3637,16 @@ mod tests {
     fn key_unit_and_scale_choice() {
         // Values invented to sit either side of the 0.1 mol% and two-decade thresholds.
         let a = key_axis(&[0.003, 0.0025]);
-        assert!(matches!(a, Some((s, "mol%", ref ax)) if s == 100.0 && !ax.log));
+        assert!(matches!(a, Some((s, "mol %", ref ax)) if s == 100.0 && !ax.log));
         let b = key_axis(&[500e-6, 300e-6]);
         assert!(matches!(b, Some((s, "ppm", ref ax)) if s == 1e6 && !ax.log));
         let c = key_axis(&[0.05, 0.0001]);
-        assert!(matches!(c, Some((_, "mol%", ref ax)) if ax.log));
+        assert!(matches!(c, Some((_, "mol %", ref ax)) if ax.log));
         assert!(key_axis(&[f64::NAN, f64::INFINITY]).is_none());
         // A mole fraction of -1 or 2 is not a reading: not plotted, does not set the axis.
         assert!(key_axis(&[-1.0, 2.0]).is_none());
         let d = key_axis(&[-1.0, 0.003, 0.0025]);
-        assert!(matches!(d, Some((_, "mol%", ref ax)) if ax.lo >= 0.0));
+        assert!(matches!(d, Some((_, "mol %", ref ax)) if ax.lo >= 0.0));
         assert!(key_axis(&[]).is_none());
     }
 
@@ -2858,11 +3694,13 @@ mod tests {
             Marker {
                 t_ms: T0 + 200 * DAY_MS,
                 kind: MarkerKind::Alert,
+                source: "alarm test".into(),
                 label: "approach drift".into(),
             },
             Marker {
                 t_ms: T0 + 220 * DAY_MS,
                 kind: MarkerKind::Cleared,
+                source: "alarm test".into(),
                 label: "back within baseline".into(),
             },
         ];
@@ -2934,6 +3772,7 @@ mod tests {
         extreme.markers.push(Marker {
             t_ms: i64::MIN,
             kind: MarkerKind::Alarm,
+            source: "alarm test".into(),
             label: String::new(),
         });
         extreme.baselines.push(BaselineSpan {
@@ -2957,6 +3796,7 @@ mod tests {
         only_markers.markers.push(Marker {
             t_ms: T0,
             kind: MarkerKind::Operator,
+            source: "alarm test".into(),
             label: "catalyst change".into(),
         });
         only_markers.projection = Some(Projection::default());
@@ -2993,6 +3833,7 @@ mod tests {
         p.markers.push(Marker {
             t_ms: T0 + HOUR_MS,
             kind: MarkerKind::Operator,
+            source: "alarm test".into(),
             label: "<script>alert(1)</script> & \u{1}bell".into(),
         });
         let svg = reactor_svg(&p);
@@ -3094,6 +3935,556 @@ mod tests {
         );
     }
 
+    fn num(n: &Node, attr: &str) -> f64 {
+        n.attribute(attr)
+            .and_then(|v| v.parse::<f64>().ok())
+            .unwrap_or(f64::NAN)
+    }
+
+    /// (x, y, width, height) of the `rect`s directly in `g.number-box` groups.
+    fn number_rects(doc: &Document) -> Vec<(f64, f64, f64, f64, String)> {
+        by_id(doc, "marker-numbers")
+            .children()
+            .filter(|n| has_class(n, "number-box"))
+            .map(|g| {
+                let r = g.children().find(|n| n.has_tag_name("rect"));
+                let t = g
+                    .children()
+                    .find(|n| n.has_tag_name("text"))
+                    .and_then(|n| n.text())
+                    .unwrap_or_default()
+                    .to_string();
+                match r {
+                    Some(r) => (
+                        num(&r, "x"),
+                        num(&r, "y"),
+                        num(&r, "width"),
+                        num(&r, "height"),
+                        t,
+                    ),
+                    None => (f64::NAN, f64::NAN, f64::NAN, f64::NAN, t),
+                }
+            })
+            .collect()
+    }
+
+    fn assert_no_overlap(rects: &[(f64, f64, f64, f64, String)]) {
+        for (i, a) in rects.iter().enumerate() {
+            assert!(
+                a.0 >= 0.0 && a.0 + a.2 <= WIDTH,
+                "box {a:?} leaves the width"
+            );
+            // The text must fit its box (estimated generously, see text_width).
+            assert!(text_width(&a.4, NUMBER_FONT) <= a.2, "{a:?}");
+            for b in &rects[i + 1..] {
+                let apart =
+                    a.0 + a.2 <= b.0 || b.0 + b.2 <= a.0 || a.1 + a.3 <= b.1 || b.1 + b.3 <= a.1;
+                assert!(apart, "boxes overlap: {a:?} and {b:?}");
+            }
+        }
+    }
+
+    /// Numbers named by the boxes ("4" or "3–5"), expanded, in box order.
+    fn numbers_of(rects: &[(f64, f64, f64, f64, String)]) -> Vec<usize> {
+        let mut v = Vec::new();
+        for r in rects {
+            let (a, b) = match r.4.split_once('–') {
+                Some((a, b)) => (a.parse().unwrap_or(0), b.parse().unwrap_or(0)),
+                None => {
+                    let n: usize = r.4.parse().unwrap_or(0);
+                    (n, n)
+                }
+            };
+            v.extend(a..=b);
+        }
+        v.sort_unstable();
+        v
+    }
+
+    #[test]
+    fn close_events_get_numbers_that_never_overlap_and_a_list() {
+        // 30 days of hourly data (invented); events: a burst of 12 within 3 hours, two 20
+        // minutes apart at the very start and two at the very end, and a lone one.
+        let mut p = plot_n(30 * 24, HOUR_MS);
+        let end = T0 + (30 * 24 - 1) * HOUR_MS;
+        let mut times: Vec<i64> = (0..12)
+            .map(|i| T0 + 10 * DAY_MS + i * 15 * MINUTE_MS)
+            .collect();
+        times.extend([
+            T0,
+            T0 + 20 * MINUTE_MS,
+            end - 20 * MINUTE_MS,
+            end,
+            T0 + 20 * DAY_MS,
+        ]);
+        p.markers = times
+            .iter()
+            .enumerate()
+            .map(|(i, &t)| Marker {
+                t_ms: t,
+                kind: MarkerKind::ALL[i % 4],
+                source: format!("alarm approach-high-{i}"),
+                label: "raised".into(),
+            })
+            .collect();
+        let svg = reactor_svg(&p);
+        check_valid(&svg);
+        let doc = parse(&svg);
+        let rects = number_rects(&doc);
+        assert!(!rects.is_empty());
+        assert_no_overlap(&rects);
+        // Every marker is numbered exactly once, 1..=17.
+        assert_eq!(numbers_of(&rects), (1..=17).collect::<Vec<_>>());
+        // The list under the chart has one row per event, numbered in time order.
+        let rows: Vec<Node> = by_id(&doc, "events")
+            .children()
+            .filter(|n| has_class(n, "event-row"))
+            .collect();
+        assert_eq!(rows.len(), 17);
+        let mut sorted = times.clone();
+        sorted.sort_unstable();
+        for (i, r) in rows.iter().enumerate() {
+            assert_eq!(r.attribute("data-n"), Some((i + 1).to_string().as_str()));
+            let cells: Vec<&str> = r
+                .children()
+                .filter(|n| n.has_tag_name("text"))
+                .filter_map(|n| n.text())
+                .collect();
+            assert_eq!(cells[0], (i + 1).to_string());
+            assert_eq!(cells[1], fmt_datetime(sorted[i]));
+            assert!(cells[2].starts_with("alarm approach-high-"), "{cells:?}");
+            assert_eq!(cells[3], "raised");
+        }
+        // The SVG grew to hold the numbers and the list; the footer is still the last line.
+        let h = num(&doc.root_element(), "height");
+        assert!(h > HEIGHT, "{h}");
+        let list_bottom = rows
+            .iter()
+            .flat_map(|r| r.children().filter(|n| n.has_tag_name("text")))
+            .map(|n| num(&n, "y"))
+            .fold(0.0, f64::max);
+        let footer = doc
+            .descendants()
+            .find(|n| has_class(n, "footer"))
+            .map_or(f64::NAN, |n| num(&n, "y"));
+        assert!(
+            list_bottom + 10.0 <= footer && footer <= h,
+            "{list_bottom} {footer} {h}"
+        );
+    }
+
+    #[test]
+    fn number_boxes_fit_for_many_layouts() {
+        // Pseudo-random marker positions (a linear congruential generator, Knuth's MMIX
+        // constants, from memory): 1 to 300 markers, clustered or spread, near the edges.
+        let mut state = 0x2545_f491_4f6c_dd1du64;
+        let mut next = || {
+            state = state
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
+            (state >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let (lo, hi) = (4.0, WIDTH - 4.0);
+        for case in 0..200 {
+            let n = 1 + (next() * 300.0) as usize;
+            let spread = if case % 3 == 0 { 20.0 } else { 900.0 };
+            let base = next() * (900.0 - spread) + 84.0;
+            let mut xs: Vec<f64> = (0..n).map(|_| base + next() * spread).collect();
+            if case % 5 == 0 {
+                xs.push(84.0);
+                xs.push(976.0);
+            }
+            xs.sort_by(f64::total_cmp);
+            let (boxes, lanes) = number_boxes(&xs, lo, hi);
+            assert!((1..=MAX_LANES).contains(&lanes), "{lanes}");
+            let mut expect = 1;
+            for (i, b) in boxes.iter().enumerate() {
+                assert_eq!(b.first, expect, "case {case}");
+                assert!(b.last >= b.first);
+                expect = b.last + 1;
+                assert!(b.x0 >= lo && b.x1 <= hi, "case {case}: {b:?}");
+                assert!(text_width(&b.text(), NUMBER_FONT) < b.x1 - b.x0);
+                for c in &boxes[i + 1..] {
+                    assert!(
+                        c.lane != b.lane || c.x0 >= b.x1 || c.x1 <= b.x0,
+                        "case {case}: {b:?} and {c:?}"
+                    );
+                }
+            }
+            assert_eq!(expect, xs.len() + 1, "case {case}");
+        }
+    }
+
+    #[test]
+    fn operator_alarm_limit_is_drawn_with_its_value() {
+        let mut p = plot_n(48, HOUR_MS);
+        p.limit_k = Some(25.0);
+        p.alarm_limits = vec![AlarmLimit {
+            id: "approach-high".into(),
+            limit_k: 15.0,
+            high: true,
+        }];
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let g: Vec<Node> = by_id(&doc, "alarm-limits")
+            .children()
+            .filter(|n| has_class(n, "alarm-limit"))
+            .collect();
+        assert_eq!(g.len(), 1);
+        assert_eq!(g[0].attribute("data-id"), Some("approach-high"));
+        assert_eq!(g[0].attribute("data-limit-k"), Some("15"));
+        let d = path_d(g[0], "line").unwrap_or_default();
+        // The line sits at the y of the "15" tick of the approach axis (tick text is drawn
+        // 3.5 px below its grid line).
+        let tick_y = doc
+            .descendants()
+            .filter(|n| has_class(n, "y-axis"))
+            .take(1)
+            .flat_map(|a| a.children().filter(|n| n.has_tag_name("text")))
+            .find(|n| n.text() == Some("15"))
+            .map_or(f64::NAN, |n| num(&n, "y") - 3.5);
+        let line_y: f64 = d
+            .trim_start_matches('M')
+            .split([',', ' '])
+            .nth(1)
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(f64::NAN);
+        assert!((line_y - tick_y).abs() < 0.11, "{d} vs tick at {tick_y}");
+        let t = texts(&doc);
+        assert!(
+            t.iter()
+                .any(|s| s == "operator alarm approach-high (high) 15 K"),
+            "{t:?}"
+        );
+        assert!(t.iter().any(|s| s == "end-of-run limit 25 K"));
+        assert!(t.iter().any(|s| s == "operator alarm limit"));
+        // The two labels at the right end do not overprint (12 px apart at least).
+        let ys: Vec<f64> = ["alarm-limits", "limit"]
+            .iter()
+            .flat_map(|id| {
+                by_id(&doc, id)
+                    .descendants()
+                    .filter(|n| n.has_tag_name("text"))
+            })
+            .map(|n| num(&n, "y"))
+            .collect();
+        assert_eq!(ys.len(), 2);
+        assert!((ys[0] - ys[1]).abs() >= 12.0, "{ys:?}");
+    }
+
+    #[test]
+    fn alarm_labels_close_together_are_stacked_apart() {
+        let mut p = plot_n(48, HOUR_MS);
+        p.limit_k = Some(20.0);
+        p.alarm_limits = vec![
+            AlarmLimit {
+                id: "approach-high".into(),
+                limit_k: 19.9,
+                high: true,
+            },
+            AlarmLimit {
+                id: "approach-high-high".into(),
+                limit_k: 20.1,
+                high: true,
+            },
+        ];
+        let doc_s = reactor_svg(&p);
+        let doc = parse(&doc_s);
+        let mut ys: Vec<f64> = ["alarm-limits", "limit"]
+            .iter()
+            .flat_map(|id| {
+                by_id(&doc, id)
+                    .descendants()
+                    .filter(|n| n.has_tag_name("text"))
+            })
+            .map(|n| num(&n, "y"))
+            .collect();
+        ys.sort_by(f64::total_cmp);
+        assert_eq!(ys.len(), 3);
+        assert!(ys.windows(2).all(|w| w[1] - w[0] >= 12.0), "{ys:?}");
+    }
+
+    #[test]
+    fn offline_periods_are_shaded_over_their_span() {
+        // Ten hourly points (invented), off line from hour 2 to hour 4.
+        let mut p = plot_n(10, HOUR_MS);
+        p.offline = vec![OfflineSpan {
+            from_ms: T0 + 2 * HOUR_MS,
+            to_ms: T0 + 4 * HOUR_MS,
+        }];
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let per_hour = (RIGHT - LEFT) / 9.0;
+        for id in ["offline", "key-offline"] {
+            let rects: Vec<Node> = by_id(&doc, id)
+                .children()
+                .filter(|n| has_class(n, "offline"))
+                .collect();
+            assert_eq!(rects.len(), 1, "{id}");
+            let (x, w) = (num(&rects[0], "x"), num(&rects[0], "width"));
+            assert!((x - (LEFT + 2.0 * per_hour)).abs() < 0.11, "{id}: x {x}");
+            assert!((w - 2.0 * per_hour).abs() < 0.11, "{id}: width {w}");
+        }
+        assert!(texts(&doc).iter().any(|s| s == "unit off line"));
+        // A period running past the data is cut at the chart's end.
+        p.offline[0].to_ms = T0 + 40 * HOUR_MS;
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let r = by_id(&doc, "offline")
+            .children()
+            .find(|n| has_class(n, "offline"));
+        let right = r.map_or(f64::NAN, |r| num(&r, "x") + num(&r, "width"));
+        assert!((right - RIGHT).abs() < 0.11, "{right}");
+    }
+
+    #[test]
+    fn aggregate_points_match_the_aggregates() {
+        let mut p = plot_n(20 * 24, HOUR_MS);
+        // Daily means (invented): 19 inside the data, one before it (not drawn).
+        p.aggregates = (0..19)
+            .map(|d| AggregatePoint {
+                t_ms: T0 + d * DAY_MS + 12 * HOUR_MS,
+                approach_k: 9.0 + 0.2 * d as f64,
+                in_fit: d >= 4,
+            })
+            .collect();
+        p.aggregates.push(AggregatePoint {
+            t_ms: T0 - 3 * DAY_MS,
+            approach_k: 9.0,
+            in_fit: false,
+        });
+        p.aggregate_period_ms = DAY_MS;
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        let g = by_id(&doc, "aggregates");
+        let pts: Vec<Node> = g.children().filter(|n| has_class(n, "aggregate")).collect();
+        assert_eq!(pts.len(), 19);
+        assert_eq!(pts.iter().filter(|n| has_class(n, "in-fit")).count(), 15);
+        let t = texts(&doc);
+        assert!(t.iter().any(|s| s == "daily mean (trend fit)"), "{t:?}");
+        assert!(t.iter().any(|s| s == "daily mean (not in fit)"));
+    }
+
+    #[test]
+    fn key_chart_names_its_basis() {
+        let mut p = plot_n(10, HOUR_MS);
+        p.key_basis = Some("dry".into());
+        let doc_s = reactor_svg(&p);
+        let doc = parse(&doc_s);
+        let t = texts(&doc);
+        assert!(t.iter().any(|s| s == "CO, mol % dry basis"), "{t:?}");
+        assert!(
+            t.iter()
+                .any(|s| s == "CO (dry basis): measured and at equilibrium")
+        );
+    }
+
+    #[test]
+    fn time_zone_parsing() {
+        for (text, minutes) in [
+            ("UTC", 0),
+            ("z", 0),
+            ("+01:00", 60),
+            ("-05:30", -330),
+            ("+0545", 345),
+            ("UTC+02", 120),
+            ("utc-03:00", -180),
+            ("+23:59", 1439),
+        ] {
+            assert_eq!(
+                TimeZone::parse(text).map(|z| z.offset_minutes()),
+                Ok(minutes),
+                "{text}"
+            );
+        }
+        for bad in [
+            "",
+            "CET",
+            "+1",
+            "+24:00",
+            "+01:60",
+            "01:00",
+            "+01:00:00",
+            "Europe/Berlin",
+        ] {
+            assert!(TimeZone::parse(bad).is_err(), "{bad}");
+        }
+        assert_eq!(
+            TimeZone::parse("+01:00").map(|z| z.name()),
+            Ok("UTC+01:00".to_string())
+        );
+        assert_eq!(
+            TimeZone::parse("-05:30").map(|z| z.name()),
+            Ok("UTC-05:30".to_string())
+        );
+        assert_eq!(TimeZone::UTC.name(), "UTC");
+    }
+
+    /// (label, x) of the tick labels under the top chart.
+    fn x_ticks_at(doc: &Document) -> Vec<(String, f64)> {
+        doc.descendants()
+            .filter(|n| has_class(n, "x-axis"))
+            .take(1)
+            .flat_map(|g| g.children().filter(|n| n.has_tag_name("text")))
+            .map(|n| (n.text().unwrap_or_default().to_string(), num(&n, "x")))
+            .collect()
+    }
+
+    #[test]
+    fn a_time_zone_shifts_the_labels() {
+        // 48 hourly points from 2026-01-01T00:00Z (invented): six-hour ticks.
+        let mut p = plot_n(48, HOUR_MS);
+        p.markers = vec![Marker {
+            t_ms: T0 + 5 * HOUR_MS,
+            kind: MarkerKind::Alarm,
+            source: "alarm approach-high".into(),
+            label: "raised".into(),
+        }];
+        let utc = reactor_svg(&p);
+        let plus1 = reactor_svg_tz(&p, TimeZone::parse("+01:00").unwrap_or_default());
+        let (du, dp) = (parse(&utc), parse(&plus1));
+        let per_hour = (RIGHT - LEFT) / 47.0;
+        let at = |ticks: &[(String, f64)], label: &str| {
+            ticks
+                .iter()
+                .find(|t| t.0 == label)
+                .map_or(f64::NAN, |t| t.1)
+        };
+        let (tu, tp) = (x_ticks_at(&du), x_ticks_at(&dp));
+        // "01-01 06:00" is 06:00 UTC on one chart and 05:00 UTC on the other.
+        assert!(
+            (at(&tu, "01-01 06:00") - (LEFT + 6.0 * per_hour)).abs() < 0.11,
+            "{tu:?}"
+        );
+        assert!(
+            (at(&tp, "01-01 06:00") - (LEFT + 5.0 * per_hour)).abs() < 0.11,
+            "{tp:?}"
+        );
+        assert!(texts(&dp).iter().any(|s| s == "time (UTC+01:00), 2026"));
+        assert!(texts(&du).iter().any(|s| s == "time (UTC), 2026"));
+        // The event list and the marker's tooltip give local time: 05:00Z is 06:00 at +01:00.
+        let t = texts(&dp);
+        assert!(t.iter().any(|s| s == "2026-01-01 06:00"), "{t:?}");
+        assert!(t.iter().any(|s| s.ends_with("times UTC+01:00)")));
+        let title = by_id(&dp, "markers")
+            .descendants()
+            .find(|n| n.has_tag_name("title"))
+            .and_then(|n| n.text())
+            .unwrap_or_default()
+            .to_string();
+        assert!(title.contains("2026-01-01 06:00 UTC+01:00"), "{title}");
+        // Overview too.
+        let o = overview_svg_tz(&[p], "x", TimeZone::parse("-05:00").unwrap_or_default());
+        assert!(
+            texts(&parse(&o))
+                .iter()
+                .any(|s| s == "time (UTC-05:00), 2025–2026")
+        );
+    }
+
+    #[test]
+    fn axis_titles_clear_the_tick_labels() {
+        // Tiny approach values (invented) give long tick labels such as "0.0001".
+        let mut p = plot_n(40, HOUR_MS);
+        p.limit_k = None;
+        for (i, q) in p.points.iter_mut().enumerate() {
+            q.approach_k = Some(0.0001 + 0.00001 * (i % 7) as f64);
+            q.uncertainty_k = None;
+            q.key_measured = Some(123_456.0e-6 + 1e-6 * i as f64);
+        }
+        for svg in [reactor_svg(&p), overview_svg(&[p.clone()], "x")] {
+            let doc = parse(&svg);
+            let mut long = 0;
+            for axis in doc.descendants().filter(|n| has_class(n, "y-axis")) {
+                let labels: Vec<Node> =
+                    axis.children().filter(|n| n.has_tag_name("text")).collect();
+                let Some((title, ticks)) = labels.split_last() else {
+                    continue;
+                };
+                assert!(has_class(title, "axis-label"));
+                let leftmost = ticks
+                    .iter()
+                    .map(|n| num(n, "x") - text_width(n.text().unwrap_or_default(), 11.0))
+                    .fold(f64::INFINITY, f64::min);
+                // The rotated 12 px title reaches about 3 px right of its x.
+                let title_right = num(title, "x") + 3.0;
+                assert!(title_right + 4.0 <= leftmost, "{title_right} vs {leftmost}");
+                assert!(num(title, "x") - 9.0 >= 0.0);
+                long += ticks
+                    .iter()
+                    .filter(|n| n.text().is_some_and(|s| s.len() >= 6))
+                    .count();
+            }
+            assert!(long > 0, "the case has long tick labels");
+        }
+        // Bottom: the time caption is below the tick labels of the key chart, and the key
+        // chart's title below the top chart's tick labels.
+        let svg = reactor_svg(&p);
+        let doc = parse(&svg);
+        // Time labels never touch each other, at any span (invented spans, 1 h to 3 years).
+        for span in [
+            HOUR_MS,
+            7 * HOUR_MS,
+            9 * HOUR_MS + 50 * MINUTE_MS,
+            3 * DAY_MS,
+            400 * DAY_MS,
+            1100 * DAY_MS,
+        ] {
+            let q = plot_n(60, span / 59);
+            let d_s = reactor_svg(&q);
+            let d = parse(&d_s);
+            let mut boxes: Vec<(f64, f64)> = d
+                .descendants()
+                .filter(|n| has_class(n, "x-axis"))
+                .take(1)
+                .flat_map(|g| g.children().filter(|n| n.has_tag_name("text")))
+                .map(|n| {
+                    let (x, tw) = (num(&n, "x"), text_width(n.text().unwrap_or_default(), 11.0));
+                    if n.attribute("text-anchor") == Some("end") {
+                        (x - tw, x)
+                    } else {
+                        (x - 0.5 * tw, x + 0.5 * tw)
+                    }
+                })
+                .collect();
+            boxes.sort_by(|a, b| a.0.total_cmp(&b.0));
+            assert!(boxes.len() >= 2, "span {span}");
+            for w in boxes.windows(2) {
+                assert!(w[0].1 <= w[1].0, "span {span}: {boxes:?}");
+            }
+        }
+        let tick_ys: Vec<f64> = doc
+            .descendants()
+            .filter(|n| has_class(n, "x-axis"))
+            .map(|g| {
+                g.children()
+                    .filter(|n| n.has_tag_name("text"))
+                    .map(|n| num(&n, "y"))
+                    .fold(0.0, f64::max)
+            })
+            .collect();
+        assert_eq!(tick_ys.len(), 2);
+        let caption = doc
+            .descendants()
+            .filter(|n| has_class(n, "axis-label") && n.attribute("transform").is_none())
+            .map(|n| num(&n, "y"))
+            .fold(0.0, f64::max);
+        // 12 px caption: its top is about 9 px above the baseline; 11 px labels go 3 px below.
+        assert!(
+            caption - 9.0 >= tick_ys[1] + 3.0 + 2.0,
+            "{caption} {tick_ys:?}"
+        );
+        let titles: Vec<f64> = doc
+            .descendants()
+            .filter(|n| has_class(n, "chart-title"))
+            .map(|n| num(&n, "y"))
+            .collect();
+        assert!(
+            titles[1] - 10.0 >= tick_ys[0] + 3.0 + 2.0,
+            "{titles:?} {tick_ys:?}"
+        );
+    }
+
     #[test]
     fn axis_helpers() {
         // Expected values worked by hand from the 1-2-5 rule.
@@ -3101,6 +4492,15 @@ mod tests {
         assert_eq!(nice_step(1.0), 1.0);
         assert_eq!(nice_step(1.5), 2.0);
         assert_eq!(nice_step(7.0), 10.0);
+        // Tiny values (a methanator's CO as a fraction, invented) get exponent labels that
+        // read back as their tick values.
+        let tiny = linear_axis(1.0e-7, 1.4e-7, 5);
+        assert!(tiny.ticks.len() >= 4);
+        for (v, t) in &tiny.ticks {
+            assert!(t.contains("e-"), "{t}");
+            let back: f64 = t.parse().unwrap_or(f64::NAN);
+            assert!((back - v).abs() < 1e-10, "{t} for {v}");
+        }
         let a = linear_axis(0.0, 37.0, 6);
         let labels: Vec<&str> = a.ticks.iter().map(|(_, s)| s.as_str()).collect();
         assert_eq!(labels, ["0", "10", "20", "30", "40"]);
@@ -3159,6 +4559,7 @@ mod tests {
         b.markers.push(Marker {
             t_ms: T0 + 10 * HOUR_MS,
             kind: MarkerKind::Alarm,
+            source: "alarm test".into(),
             label: "approach above limit".into(),
         });
         let c = ReactorPlot {
@@ -3258,24 +4659,55 @@ mod tests {
             Marker {
                 t_ms: T0 + 18 * DAY_MS,
                 kind: MarkerKind::Alert,
+                source: "alarm test".into(),
                 label: "approach rising faster than baseline".into(),
             },
             Marker {
                 t_ms: T0 + 24 * DAY_MS,
                 kind: MarkerKind::Alarm,
+                source: "alarm test".into(),
                 label: "approach 3 sigma above baseline".into(),
             },
             Marker {
                 t_ms: T0 + 26 * DAY_MS,
                 kind: MarkerKind::Cleared,
+                source: "alarm test".into(),
                 label: "alarm cleared".into(),
             },
             Marker {
                 t_ms: T0 + 12 * DAY_MS,
                 kind: MarkerKind::Operator,
+                source: "alarm test".into(),
                 label: "analyser recalibrated".into(),
             },
         ];
+        // Close events, alarm limits, an off-line period and daily means (invented).
+        for i in 0..6 {
+            p.markers.push(Marker {
+                t_ms: T0 + 24 * DAY_MS + (i + 1) * 40 * MINUTE_MS,
+                kind: MarkerKind::ALL[i as usize % 4],
+                source: "alarm approach-high".into(),
+                label: "acknowledged by op1".into(),
+            });
+        }
+        p.alarm_limits = vec![AlarmLimit {
+            id: "approach-high".into(),
+            limit_k: 18.0,
+            high: true,
+        }];
+        p.offline = vec![OfflineSpan {
+            from_ms: T0 + 12 * DAY_MS + 12 * HOUR_MS,
+            to_ms: T0 + 13 * DAY_MS + 18 * HOUR_MS,
+        }];
+        p.aggregates = (0..29)
+            .map(|d| AggregatePoint {
+                t_ms: T0 + d * DAY_MS + 12 * HOUR_MS,
+                approach_k: 8.0 + 0.2 * d as f64,
+                in_fit: d >= 7,
+            })
+            .collect();
+        p.aggregate_period_ms = DAY_MS;
+        p.key_basis = Some("dry".into());
         let mut m = plot_n(30 * 24, HOUR_MS);
         m.title = "Methanator (meth1)".into();
         m.reactor = "meth1".into();

@@ -877,22 +877,51 @@ impl Write for Pipe {
     }
 }
 
-/// The plot of one reactor from its replay trace.
+/// A wet mole fraction on a dry basis, given the wet water fraction of the same gas:
+/// y_dry = y_wet / (1 − y_H2O) (DOMAIN §5, dry basis = the gas with its water knocked out).
+/// `None` without a usable water fraction: a value on the wrong basis is not plotted.
+fn dry(wet: Option<f64>, water: Option<f64>) -> Option<f64> {
+    match (wet, water) {
+        (Some(y), Some(w)) if (0.0..1.0).contains(&w) => Some(y / (1.0 - w)),
+        _ => None,
+    }
+}
+
+/// The plot of one reactor from its replay trace. The key component is plotted on the
+/// analyser's basis: dry values are worked out from the wet ones and the water of the
+/// same gas (measured gas: the water rebuilt from the steam ratio; equilibrium: its own).
 pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPlot {
-    use crate::monitor::alarm::EventKind;
-    use crate::monitor::watch::{Class, Forecast};
-    use crate::plot::{BaselineSpan, Marker, MarkerKind, PlotPoint, Projection, ReactorPlot};
+    use crate::composition::Basis;
+    use crate::monitor::alarm::{Direction, EventKind};
+    use crate::monitor::watch::{Class, Figure, Forecast};
+    use crate::plot::{
+        AggregatePoint, AlarmLimit, BaselineSpan, Marker, MarkerKind, OfflineSpan, PlotPoint,
+        Projection, ReactorPlot,
+    };
     let rs = &s.reactors[r];
+    let on_dry = rs.composition.basis == Basis::Dry;
     let points = t
         .points
         .iter()
-        .map(|p| PlotPoint {
-            t_ms: p.t_ms,
-            approach_k: expand(p.approach_k),
-            uncertainty_k: expand(p.uncertainty_k),
-            good: p.good,
-            key_measured: expand(p.key_measured),
-            key_equilibrium: expand(p.key_equilibrium),
+        .map(|p| {
+            let (mut km, mut ke) = (expand(p.key_measured), expand(p.key_equilibrium));
+            let approach = expand(p.approach_k);
+            if approach.is_none() {
+                // A bad analysis (e.g. calibration gas) is a gap here too, as on the approach.
+                (km, ke) = (None, None);
+            }
+            if on_dry {
+                km = dry(km, expand(p.water_measured));
+                ke = dry(ke, expand(p.water_equilibrium));
+            }
+            PlotPoint {
+                t_ms: p.t_ms,
+                approach_k: approach,
+                uncertainty_k: expand(p.uncertainty_k),
+                good: p.good,
+                key_measured: km,
+                key_equilibrium: ke,
+            }
         })
         .collect();
     let baselines = t
@@ -923,16 +952,56 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
                 _ => return None,
             };
             let what = crate::daemon::watch_payload::event_name(&e.kind);
+            let by = match &e.kind {
+                EventKind::Acknowledged { by }
+                | EventKind::Shelved { by, .. }
+                | EventKind::OutOfService { by, .. }
+                | EventKind::ReturnedToService { by } => format!(" by {by}"),
+                _ => String::new(),
+            };
             Some(Marker {
                 t_ms: e.t_ms,
                 kind,
-                label: format!(
-                    "{} {} {what} {}",
-                    e.class.as_str(),
-                    e.alarm,
-                    crate::timefmt::format_rfc3339(e.t_ms)
-                ),
+                source: format!("{} {}", e.class.as_str(), e.alarm),
+                label: format!("{what}{by}"),
             })
+        })
+        .collect();
+    let alarm_limits = rs
+        .watch
+        .alarms
+        .iter()
+        .filter(|a| a.figure == Figure::Approach && a.scale > 0.0)
+        .map(|a| AlarmLimit {
+            id: a.config.id.clone(),
+            limit_k: a.config.limit / a.scale,
+            high: a.config.direction == Direction::High,
+        })
+        .collect();
+    let data_end = t.points.last().map(|p| p.t_ms);
+    let offline = t
+        .offline
+        .iter()
+        .filter_map(|&(from, to)| {
+            let to = to.or(data_end.map(|e| e.max(from)))?;
+            Some(OfflineSpan {
+                from_ms: from,
+                to_ms: to,
+            })
+        })
+        .collect();
+    // The current trend was fitted on the aggregates of the last run between its first
+    // and last fitted points (a trend window may leave older ones out).
+    let fitted = t.last_drift.and_then(|d| d.trend);
+    let aggregates = t
+        .aggregates
+        .iter()
+        .map(|&(t_ms, k)| AggregatePoint {
+            t_ms,
+            approach_k: k,
+            in_fit: fitted.is_some_and(|f| {
+                t_ms >= f.origin_ms && t_ms >= f.first_ms - 1 && t_ms <= f.last_ms + 1
+            }),
         })
         .collect();
     let projection = t.last_drift.and_then(|d| {
@@ -983,15 +1052,22 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         baselines,
         projection,
         markers,
+        alarm_limits,
+        offline,
+        aggregates,
+        aggregate_period_ms: rs.watch.drift.aggregate_ms,
+        key_basis: Some(rs.composition.basis.as_str().to_string()),
     }
 }
 
-/// Writes `<reactor>.svg` per reactor and `overview.svg` into `dir`; returns the paths.
+/// Writes `<reactor>.svg` per reactor and `overview.svg` into `dir`, times on the axes in
+/// `tz`; returns the paths.
 pub fn write_plots(
     s: &Settings,
     traces: &[Trace],
     dir: &std::path::Path,
     title: &str,
+    tz: crate::plot::TimeZone,
 ) -> std::io::Result<Vec<std::path::PathBuf>> {
     std::fs::create_dir_all(dir)?;
     let plots: Vec<crate::plot::ReactorPlot> = traces
@@ -1002,11 +1078,11 @@ pub fn write_plots(
     let mut paths = Vec::new();
     for p in &plots {
         let path = dir.join(format!("{}.svg", p.reactor));
-        std::fs::write(&path, crate::plot::reactor_svg(p))?;
+        std::fs::write(&path, crate::plot::reactor_svg_tz(p, tz))?;
         paths.push(path);
     }
     let path = dir.join("overview.svg");
-    std::fs::write(&path, crate::plot::overview_svg(&plots, title))?;
+    std::fs::write(&path, crate::plot::overview_svg_tz(&plots, title, tz))?;
     paths.push(path);
     Ok(paths)
 }
@@ -1017,6 +1093,7 @@ pub fn command(
     input: &std::path::Path,
     out: Option<&std::path::Path>,
     plot_dir: Option<&std::path::Path>,
+    plot_tz: crate::plot::TimeZone,
     threads: Option<usize>,
 ) -> Result<String, crate::cli::CliError> {
     use crate::cli::CliError;
@@ -1159,7 +1236,7 @@ pub fn command(
     }
     if let (Some(dir), Some(traces)) = (plot_dir, traces) {
         let title = format!("{}: replay of {}", settings.site, input.display());
-        let paths = write_plots(&settings, &traces, dir, &title)
+        let paths = write_plots(&settings, &traces, dir, &title, plot_tz)
             .map_err(|e| CliError::Input(format!("plots in {}: {e}", dir.display())))?;
         let _ = writeln!(text, "plots: {} files in {}", paths.len(), dir.display());
     }

@@ -824,13 +824,20 @@ fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> Re
             Some(Marker {
                 t_ms: e.at_ms,
                 kind,
-                label: format!(
-                    "{} {} {}",
-                    e.what(),
-                    e.event,
-                    plant_minutes(e.at_ms, start_ms)
-                ),
+                source: e.what(),
+                label: format!("{} ({})", e.event, plant_minutes(e.at_ms, start_ms)),
             })
+        })
+        .collect();
+    let alarm_limits = rs
+        .watch
+        .alarms
+        .iter()
+        .filter(|a| a.figure == crate::monitor::watch::Figure::Approach && a.scale > 0.0)
+        .map(|a| crate::plot::AlarmLimit {
+            id: a.config.id.clone(),
+            limit_k: a.config.limit / a.scale,
+            high: a.config.direction == crate::monitor::alarm::Direction::High,
         })
         .collect();
     ReactorPlot {
@@ -845,6 +852,11 @@ fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> Re
         baselines,
         projection: projection(u, rs.watch.drift.aggregate_ms),
         markers,
+        alarm_limits,
+        // The console's points carry the results' key-component values as published:
+        // mole fractions of the wet gas.
+        key_basis: Some("wet".into()),
+        ..ReactorPlot::default()
     }
 }
 

@@ -84,6 +84,10 @@ pub struct TracePoint {
     pub uncertainty_k: f32,
     pub key_measured: f32,
     pub key_equilibrium: f32,
+    /// Wet H2O mole fraction of the gas as evaluated and at equilibrium (NaN when the
+    /// model has no water), to put the key component on a dry basis.
+    pub water_measured: f32,
+    pub water_equilibrium: f32,
 }
 
 fn compact(x: Option<f64>) -> f32 {
@@ -121,6 +125,12 @@ pub struct Trace {
     pub events: Vec<TraceEvent>,
     pub baselines: Vec<TraceBaseline>,
     pub last_drift: Option<DriftFigures>,
+    /// Off-line periods (from, to; `None` = still off line at the end).
+    pub offline: Vec<(i64, Option<i64>)>,
+    /// Steady-state aggregates of every run: (middle of the period ms, mean approach K).
+    pub aggregates: Vec<(i64, f64)>,
+    /// The run and the number of its aggregates already copied into `aggregates`.
+    pub aggregates_seen: (Option<i64>, usize),
 }
 
 struct Topics {
@@ -428,6 +438,18 @@ impl Unit {
         let rm = &metrics.reactors[self.r];
         if let Input::Pressure(p) = &input {
             let ev = self.watch.pressure(&rs.watch, p.value, now_ms);
+            if let Some(t) = self.trace.as_mut() {
+                let open = matches!(t.offline.last(), Some((_, None)));
+                match (self.watch.offline(), open) {
+                    (true, false) => t.offline.push((now_ms, None)),
+                    (false, true) => {
+                        if let Some(last) = t.offline.last_mut() {
+                            last.1 = Some(now_ms);
+                        }
+                    }
+                    _ => {}
+                }
+            }
             if !ev.is_empty() {
                 info!(reactor = %rs.id, offline = self.watch.offline(), "unit on/off line");
                 self.publish_events(ev, now_ms, sink);
@@ -498,6 +520,11 @@ impl Unit {
         };
         rm.end_of_run_days.store(days.to_bits(), Relaxed);
         if let Some(t) = self.trace.as_mut() {
+            let water = settings
+                .species
+                .index_of("H2O")
+                .and_then(|w| rs.model.species().iter().position(|&x| x == w));
+            let at = |v: &[f64]| compact(water.and_then(|i| v.get(i).copied()));
             t.points.push(TracePoint {
                 t_ms: e.sample_ts_ms,
                 good: e.quality == Quality::Good,
@@ -509,7 +536,20 @@ impl Unit {
                 ),
                 key_measured: compact(e.key_measured),
                 key_equilibrium: compact(e.key_equilibrium),
+                water_measured: at(&e.mole_fractions),
+                water_equilibrium: at(&e.equilibrium_mole_fractions),
             });
+            let (run, aggs) = self.watch.aggregates();
+            if t.aggregates_seen.0 != run || aggs.len() < t.aggregates_seen.1 {
+                t.aggregates_seen = (run, 0);
+            }
+            if let Some(start) = run {
+                for &(day, k) in &aggs[t.aggregates_seen.1..] {
+                    t.aggregates
+                        .push((start + (day * 86_400_000.0).round() as i64, k));
+                }
+            }
+            t.aggregates_seen.1 = aggs.len();
             if let Some(b) = fig.baseline {
                 match t.baselines.last_mut() {
                     Some(last) if last.from_ms == b.since_ms => last.to_ms = e.sample_ts_ms,

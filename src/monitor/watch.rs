@@ -1298,6 +1298,12 @@ impl ReactorWatch {
             out,
         ))
     }
+
+    /// The run's start (ms) and its closed steady-state aggregates (day since the run
+    /// start, mean approach K): what the trend is fitted on (read-only, for plots).
+    pub fn aggregates(&self) -> (Option<i64>, &[(f64, f64)]) {
+        (self.run_start_ms, &self.aggregates)
+    }
 }
 
 /// Plant-wide self-monitoring: operator alarm activations in the last 10 minutes and
