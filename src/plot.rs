@@ -2374,7 +2374,21 @@ fn approach_chart(
             }
         })
         .collect();
-    let gaps = gap_spans(&samples, area);
+    // A gap is a time without a usable result; a result whose approach is only not
+    // meaningful (the key component still measured, as at a methanator) is no gap.
+    let has_data: Vec<Px> = samples
+        .iter()
+        .zip(pts.iter())
+        .map(|(px, q)| Px {
+            y: px.y.or_else(|| {
+                q.key_measured
+                    .filter(|k| usable_fraction(*k))
+                    .map(|_| area.mid_y())
+            }),
+            ..*px
+        })
+        .collect();
+    let gaps = gap_spans(&has_data, area);
     let (series, decimated) = drawable(samples, area);
     let clip = "clip-path=\"url(#clip-approach)\"";
 
@@ -2475,7 +2489,11 @@ fn approach_chart(
 
     draw_frame(out, area);
     if n_valid == 0 {
-        draw_message(out, area, "no data: no valid approach value");
+        draw_message(
+            out,
+            area,
+            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
+        );
     }
 }
 
@@ -3355,7 +3373,11 @@ fn overview_panel(
     out.push_str("</g>");
     draw_frame(out, area);
     if !series.iter().any(|q| q.y.is_some()) {
-        draw_message(out, area, "no data: no valid approach value");
+        draw_message(
+            out,
+            area,
+            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
+        );
     }
     out.push_str("</g>");
 }

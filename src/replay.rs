@@ -906,7 +906,7 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         .map(|p| {
             let (mut km, mut ke) = (expand(p.key_measured), expand(p.key_equilibrium));
             let approach = expand(p.approach_k);
-            if approach.is_none() {
+            if p.bad {
                 // A bad analysis (e.g. calibration gas) is a gap here too, as on the approach.
                 (km, ke) = (None, None);
             }

@@ -80,6 +80,9 @@ pub fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
 pub struct TracePoint {
     pub t_ms: i64,
     pub good: bool,
+    /// A bad result: a gap in both charts (an approach that is only not meaningful, as
+    /// at a methanator, leaves the key component chart drawn).
+    pub bad: bool,
     pub approach_k: f32,
     pub uncertainty_k: f32,
     pub key_measured: f32,
@@ -528,6 +531,7 @@ impl Unit {
             t.points.push(TracePoint {
                 t_ms: e.sample_ts_ms,
                 good: e.quality == Quality::Good,
+                bad: e.quality == Quality::Bad,
                 approach_k: compact(approach),
                 uncertainty_k: compact(
                     first

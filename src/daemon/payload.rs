@@ -473,20 +473,13 @@ pub const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plan
 
 /// The key component's wet mole fraction on the analyser's basis.
 fn key_on_basis(r: &ReactorSettings, wet: &[f64], y: Option<f64>) -> Option<f64> {
-    let y = y?;
-    match r.composition.basis {
-        crate::composition::Basis::Wet => Some(y),
-        crate::composition::Basis::Dry => {
-            let w = r
-                .model
-                .names()
-                .iter()
-                .position(|n| n == "H2O")
-                .and_then(|i| wet.get(i).copied())
-                .unwrap_or(0.0);
-            (w < 1.0).then(|| y / (1.0 - w))
-        }
-    }
+    let water = r
+        .model
+        .names()
+        .iter()
+        .position(|n| n == "H2O")
+        .and_then(|i| wet.get(i).copied());
+    y.map(|y| crate::monitor::on_basis(y, water, r.composition.basis))
 }
 
 fn headline(
@@ -641,7 +634,7 @@ pub fn encode_result(
     let key_name = &db.get(r.key_component).name;
     let key_index = r.composition.components.iter().position(|c| c == key_name);
     let key_dl = key_index.and_then(|i| r.composition.detection_limits.get(i).copied().flatten());
-    let key_basis = key_on_basis(r, &e.mole_fractions, e.key_measured);
+    let key_basis = e.key_measured_on_basis;
     let approach =
         usable.and_then(|a| finite_opt(a.approach_k).map(|x| (x, a.approach_uncertainty_k)));
     let out = ResultOut {

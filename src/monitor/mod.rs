@@ -133,6 +133,8 @@ pub struct Evaluation {
     pub equilibrium_mole_fractions: Vec<f64>,
     pub key_measured: Option<f64>,
     pub key_equilibrium: Option<f64>,
+    /// The measured key component on the analyser's basis (what its ppm alarm compares).
+    pub key_measured_on_basis: Option<f64>,
     /// The temperature approach was withdrawn for at least one reaction because the
     /// equilibrium amount is below the analyser's detection limit: the key component's
     /// measured slip is the headline figure.
@@ -557,6 +559,7 @@ impl ReactorMonitor {
             equilibrium_mole_fractions: Vec::new(),
             key_measured: None,
             key_equilibrium: None,
+            key_measured_on_basis: None,
             approach_not_meaningful: false,
             bed_rise: None,
         };
@@ -744,6 +747,14 @@ impl ReactorMonitor {
                 .iter()
                 .position(|x| *x == s.key_component)
                 .map(|i| w.y[i]);
+            let water = model
+                .names()
+                .iter()
+                .position(|n| n == "H2O")
+                .map(|i| w.y[i]);
+            eval.key_measured_on_basis = eval
+                .key_measured
+                .map(|y| on_basis(y, water, s.composition.basis));
             eval.mole_fractions.clone_from(&w.y);
             not_meaningful_below_detection(s, &mut eval, &mut push);
             if let (Some(b), Some(t_in)) = (&s.bed_rise, inlet_k) {
@@ -775,7 +786,7 @@ pub fn fmt_fraction(y: f64) -> String {
 }
 
 /// A mole fraction of the wet gas on the analyser's basis (dry: water taken out).
-fn on_basis(y: f64, water: Option<f64>, basis: Basis) -> f64 {
+pub(crate) fn on_basis(y: f64, water: Option<f64>, basis: Basis) -> f64 {
     match (basis, water) {
         (Basis::Dry, Some(w)) if w < 1.0 => y / (1.0 - w),
         _ => y,

@@ -749,8 +749,9 @@ impl ReactorWatch {
                 Source::Figure(Figure::Approach, k) => approach
                     .filter(|_| e.quality != Quality::Bad)
                     .map(|a| a * k),
+                // On the analyser's basis: the ppm the analyser shows.
                 Source::Figure(Figure::KeyMeasured, k) => e
-                    .key_measured
+                    .key_measured_on_basis
                     .filter(|_| e.quality != Quality::Bad)
                     .map(|a| a * k),
                 Source::Trend => {
@@ -1424,6 +1425,7 @@ mod tests {
             equilibrium_mole_fractions: Vec::new(),
             key_measured: Some(5e-6),
             key_equilibrium: None,
+            key_measured_on_basis: Some(5e-6),
             approach_not_meaningful: false,
             bed_rise: None,
         }
