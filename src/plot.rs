@@ -3537,7 +3537,9 @@ mod tests {
     #[test]
     fn a_gap_breaks_the_line_and_is_shaded() {
         let mut p = plot_n(10, HOUR_MS);
+        // A missing result: no approach and no key component (as replay writes a bad one).
         p.points[4].approach_k = None;
+        p.points[4].key_measured = None;
         let svg = reactor_svg(&p);
         let doc = parse(&svg);
         let line = path_d(by_id(&doc, "approach"), "line").unwrap_or_default();
@@ -3685,15 +3687,17 @@ mod tests {
         let n = 105_120usize;
         let mut p = plot_n(n, FIVE_MIN);
         for (i, q) in p.points.iter_mut().enumerate() {
-            if (50_000..50_864).contains(&i) {
-                q.approach_k = None;
-            }
             if i % 97 == 0 {
                 q.good = false;
             }
             let f = i as f64 / n as f64;
             q.key_measured = Some(0.002 + 0.001 * f);
             q.key_equilibrium = Some(0.0015 + 0.0008 * f);
+            // A 3-day hole without results: neither figure.
+            if (50_000..50_864).contains(&i) {
+                q.approach_k = None;
+                q.key_measured = None;
+            }
         }
         let end = T0 + n as i64 * FIVE_MIN;
         p.projection = Some(Projection {
