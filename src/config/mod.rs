@@ -2399,7 +2399,7 @@ fn bed_rise(
                 "needs the inlet CO and CO2 (bed_rise.inlet) to know what to expect",
             );
         } else {
-            match watch::kelvin_difference(p, &key, t) {
+            match watch::kelvin(p, &key, t) {
                 Some(v) if v > 0.0 => watch.alerts.bed_rise_excess_k = Some(v),
                 Some(v) => p.add(key, format!("{v} K must be above zero")),
                 None => {}

@@ -131,11 +131,7 @@ fn ms(d: Duration) -> i64 {
 }
 
 /// A temperature difference in K (`"20 K"`; a `degC` is the same size, a `degF` 5/9 of it).
-pub(super) fn kelvin_difference(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
-    kelvin(p, path, text)
-}
-
-fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
+pub(super) fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
     match split_quantity("temperature difference", text)
         .ok()
         .and_then(|(v, u)| super::kelvin_per_degree(u).map(|k| v * k))
