@@ -975,7 +975,11 @@ mod tests {
         // from the steam ratio for this reformer.
         let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml");
         let settings = crate::config::load(&path).unwrap();
-        let r = settings.reactors.iter().find(|r| r.id == "ref1").unwrap();
+        let r = settings
+            .reactors
+            .iter()
+            .find(|r| r.spec.id == "ref1")
+            .unwrap();
         let db = SpeciesDb::builtin();
         let c = parse_components(
             "CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668",
@@ -990,16 +994,20 @@ mod tests {
             0.02,
         )
         .unwrap();
-        assert_eq!(w.species, r.model.species(), "gas in the model's order");
+        assert_eq!(
+            w.species,
+            r.spec.model.species(),
+            "gas in the model's order"
+        );
         let state = GasState {
             temperature_k: 808.0 + 273.15,
             pressure_bar: 30.0,
             y: &w.y,
             steam_ratio: w.steam_ratio.zip(w.added_water),
         };
-        let mut s = r.model.scratch();
-        r.model.fugacity(&state, &mut s);
-        let a = r.model.evaluate(0, &state, &s, &r.uncertainty);
+        let mut s = r.spec.model.scratch();
+        r.spec.model.fugacity(&state, &mut s);
+        let a = r.spec.model.evaluate(0, &state, &s, &r.spec.uncertainty);
         let b = a.uncertainty_budget_k.unwrap();
         let u = a.approach_uncertainty_k.unwrap();
         let sum: f64 = b.parts().iter().map(|(_, x)| x * x).sum();

@@ -30,11 +30,12 @@ use std::sync::Arc;
 
 use thiserror::Error;
 
-use crate::config::{ScalarUnit, Settings, SteamRatioSettings};
+use crate::config::{ScalarUnit, Settings};
 use crate::daemon::Append;
 use crate::daemon::engine::{Engine, Trace, expand};
 use crate::daemon::metrics::Metrics;
 use crate::daemon::payload::convert;
+use crate::monitor::spec::SteamRatioSpec;
 use crate::monitor::{AnalysisReading, Input, ScalarReading, SourceQuality};
 use crate::timefmt::parse_rfc3339;
 use crate::units::{CompositionUnit, PressureUnit, TemperatureUnit};
@@ -118,14 +119,14 @@ fn names(s: &Settings) -> HashMap<String, Column> {
                 Column::ScalarQuality { reactor: r, kind },
             );
         };
-        for (i, t) in rs.temperatures.iter().enumerate() {
+        for (i, t) in rs.spec.temperatures.iter().enumerate() {
             scalar(&t.tag, ScalarKind::Temperature(i));
         }
-        scalar(&rs.pressure.tag, ScalarKind::Pressure);
-        if let Some(SteamRatioSettings::Measured(ss)) = &rs.steam_ratio {
+        scalar(&rs.spec.pressure.tag, ScalarKind::Pressure);
+        if let Some(SteamRatioSpec::Measured(ss)) = &rs.spec.steam_ratio {
             scalar(&ss.tag, ScalarKind::SteamRatio);
         }
-        let c = &rs.composition;
+        let c = &rs.spec.composition;
         for (i, sp) in c.components.iter().enumerate() {
             m.insert(
                 format!("{}.{sp}", c.tag),
@@ -258,7 +259,7 @@ fn read_header(s: &Settings, header: &str, line: usize) -> Result<Layout, Replay
         components: s
             .reactors
             .iter()
-            .map(|r| r.composition.components.len())
+            .map(|r| r.spec.composition.components.len())
             .collect(),
     })
 }
@@ -266,8 +267,8 @@ fn read_header(s: &Settings, header: &str, line: usize) -> Result<Layout, Replay
 fn scalar_unit(s: &Settings, r: usize, kind: ScalarKind) -> ScalarUnit {
     let rs = &s.reactors[r];
     match kind {
-        ScalarKind::Temperature(i) => rs.temperatures[i].unit,
-        ScalarKind::Pressure => rs.pressure.unit,
+        ScalarKind::Temperature(i) => rs.spec.temperatures[i].unit,
+        ScalarKind::Pressure => rs.spec.pressure.unit,
         ScalarKind::SteamRatio => ScalarUnit::Ratio,
     }
 }
@@ -353,7 +354,11 @@ fn piece(sink: &mut crate::daemon::engine::Sink, bytes: &mut Vec<u8>) -> Option<
 
 impl Replay {
     pub fn new(settings: Arc<Settings>, keep_trace: bool) -> Result<Self, ReplayError> {
-        let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
+        let ids: Vec<String> = settings
+            .reactors
+            .iter()
+            .map(|r| r.spec.id.clone())
+            .collect();
         let metrics = Arc::new(Metrics::new(&ids));
         let mut engine =
             Engine::new(settings.clone(), metrics.clone()).map_err(ReplayError::Engine)?;
@@ -587,8 +592,8 @@ impl Replay {
 /// one ideal-gas reaction.
 fn assign_workers(s: &Settings, workers: usize) -> Vec<usize> {
     let cost = |r: &crate::config::ReactorSettings| {
-        let base = 100 + 25 * r.reactions.len().saturating_sub(1);
-        if r.eos == crate::equilibrium::EosKind::Ideal {
+        let base = 100 + 25 * r.spec.reactions.len().saturating_sub(1);
+        if r.spec.eos == crate::equilibrium::EosKind::Ideal {
             base
         } else {
             base * 16 / 10
@@ -778,7 +783,7 @@ fn read_rows(
                 Err(e) => {
                     metrics.decode_failures[e.reason_index()]
                         .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-                    tracing::warn!(line = n, reactor = %settings.reactors[r].id, error = %e, "reading refused");
+                    tracing::warn!(line = n, reactor = %settings.reactors[r].spec.id, error = %e, "reading refused");
                     continue;
                 }
             };
@@ -899,7 +904,7 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         Projection, ReactorPlot,
     };
     let rs = &s.reactors[r];
-    let on_dry = rs.composition.basis == Basis::Dry;
+    let on_dry = rs.spec.composition.basis == Basis::Dry;
     let points = t
         .points
         .iter()
@@ -968,6 +973,7 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         })
         .collect();
     let alarm_limits = rs
+        .spec
         .watch
         .alarms
         .iter()
@@ -1044,10 +1050,10 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         })
     });
     ReactorPlot {
-        reactor: rs.id.clone(),
-        title: format!("{} ({})", rs.name, rs.id),
-        key_component: s.species.get(rs.key_component).name.clone(),
-        limit_k: rs.watch.drift.end_of_run_limit_k,
+        reactor: rs.spec.id.clone(),
+        title: format!("{} ({})", rs.spec.name, rs.spec.id),
+        key_component: s.species.get(rs.spec.key_component).name.clone(),
+        limit_k: rs.spec.watch.drift.end_of_run_limit_k,
         points,
         baselines,
         projection,
@@ -1055,8 +1061,8 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
         alarm_limits,
         offline,
         aggregates,
-        aggregate_period_ms: rs.watch.drift.aggregate_ms,
-        key_basis: Some(rs.composition.basis.as_str().to_string()),
+        aggregate_period_ms: rs.spec.watch.drift.aggregate_ms,
+        key_basis: Some(rs.spec.composition.basis.as_str().to_string()),
     }
 }
 
@@ -1206,7 +1212,7 @@ pub fn command(
         let _ = writeln!(
             text,
             "  {:<6} evaluations good {} / uncertain {} / bad {}; alarms raised {}, alerts raised {}; trend {}; end of run {}",
-            rs.id,
+            rs.spec.id,
             rm.evaluations[0].load(Relaxed),
             rm.evaluations[1].load(Relaxed),
             rm.evaluations[2].load(Relaxed),

@@ -253,6 +253,16 @@ pub fn parse_pressure_with_atmosphere(text: &str, atmosphere_bar: f64) -> Result
     PressureUnit::parse(unit)?.to_bar_absolute(v, atmosphere_bar)
 }
 
+/// The unit a scalar input is configured in (a message's own `unit` field, where
+/// present, must agree in kind and overrides it).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum ScalarUnit {
+    Temperature(TemperatureUnit),
+    Pressure(PressureUnit),
+    /// Dimensionless (mol H2O per mol dry gas).
+    Ratio,
+}
+
 /// Units of one analyser component.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum CompositionUnit {

@@ -27,9 +27,13 @@ use toml::de::{DeTable, DeValue};
 use crate::approach::{DEFAULT_BAND_LN, ModelError, ReactorModel, Uncertainty};
 use crate::composition::Basis;
 use crate::equilibrium::{EosKind, EquilibriumError, EquilibriumSystem};
+use crate::monitor::spec::{
+    AnalysisSpec, BedRiseSpec, Delivery, InputSpec, ReactorSpec, SteamRatioSpec,
+};
 use crate::thermo::ksource::{KModel, KSourceId};
 use crate::thermo::reaction::{Reaction, parse_reaction, unknown_hint};
 use crate::thermo::species::SpeciesDb;
+pub use crate::units::ScalarUnit;
 use crate::units::{
     CompositionUnit, PressureUnit, STANDARD_ATMOSPHERE_BAR, TemperatureUnit, UnitError,
     split_quantity,
@@ -109,18 +113,9 @@ pub enum ScalarDecoder {
     },
 }
 
-/// The unit a scalar input is configured in (a message's own `unit` field, where
-/// present, must agree in kind and overrides it).
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub enum ScalarUnit {
-    Temperature(TemperatureUnit),
-    Pressure(PressureUnit),
-    /// Dimensionless (mol H2O per mol dry gas).
-    Ratio,
-}
-
+/// A scalar input as validated (split into its [`InputSpec`] and [`ScalarSource`]).
 #[derive(Debug, Clone, PartialEq)]
-pub struct ScalarSettings {
+struct ScalarSettings {
     /// Instrument tag or a short name, for results and logs (default: the topic).
     pub tag: String,
     pub topic: String,
@@ -150,8 +145,9 @@ pub enum CompositionSource {
     },
 }
 
+/// The analysis as validated (split into its [`AnalysisSpec`] and [`CompositionSource`]).
 #[derive(Debug, Clone)]
-pub struct CompositionSettings {
+struct CompositionSettings {
     pub tag: String,
     pub source: CompositionSource,
     /// Default unit of the values (a message may carry its own).
@@ -170,48 +166,86 @@ pub struct CompositionSettings {
 }
 
 #[derive(Debug, Clone)]
-pub enum SteamRatioSettings {
+enum SteamRatioSettings {
     Fixed(f64),
     Measured(ScalarSettings),
 }
 
-#[derive(Debug, Clone)]
-pub struct ReactorSettings {
-    /// Key in the config (`reactors.<id>`), used in topics: letters, digits, `-`, `_`.
-    pub id: String,
-    pub name: String,
-    pub reactions: Vec<(Reaction, KModel)>,
-    pub eos: EosKind,
-    /// The gas: the analyser's components, then H2O when the basis is dry.
-    pub model: ReactorModel,
-    /// Equilibrium of the measured gas (same species order as `model`).
-    pub equilibrium: EquilibriumSystem,
-    /// Species library index of the key component (default: the first reaction's
-    /// single product, else its first reactant).
-    pub key_component: usize,
-    pub composition: CompositionSettings,
-    /// One or more thermocouples (averaged; the spread is published).
-    pub temperatures: Vec<ScalarSettings>,
-    pub pressure: ScalarSettings,
-    /// Required when the basis is dry.
-    pub steam_ratio: Option<SteamRatioSettings>,
-    pub uncertainty: Uncertainty,
-    /// Temperature moving faster than this over the analyser lag flags a transient (K/min).
-    pub transient_k_per_min: f64,
-    /// Drift statistics, alerts and operator alarms.
-    pub watch: WatchSettings,
-    /// Each reaction written out canonically (for results; worked out once).
-    pub reaction_labels: Vec<String>,
-    pub bed_rise: Option<BedRiseSettings>,
+/// How a scalar input arrives: its topic and how its payload is decoded.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ScalarSource {
+    pub topic: String,
+    pub decoder: ScalarDecoder,
 }
 
-/// The bed temperature rise check (see [`crate::bedrise`]).
-#[derive(Debug, Clone, PartialEq)]
-pub struct BedRiseSettings {
-    /// Index into `temperatures` of the inlet thermocouple (left out of the outlet mean).
-    pub inlet: usize,
-    /// Inlet CO and CO2 mole fractions, when configured.
-    pub inlet_co_co2: Option<(f64, f64)>,
+/// Where a reactor's inputs arrive (same order as the spec's inputs).
+#[derive(Debug, Clone)]
+pub struct Wiring {
+    pub composition: CompositionSource,
+    pub temperatures: Vec<ScalarSource>,
+    pub pressure: ScalarSource,
+    /// Where the steam ratio is measured.
+    pub steam_ratio: Option<ScalarSource>,
+}
+
+/// One configured reactor: what the monitor needs ([`ReactorSpec`]) and where its
+/// inputs arrive ([`Wiring`]).
+#[derive(Debug, Clone)]
+pub struct ReactorSettings {
+    pub spec: ReactorSpec,
+    pub wiring: Wiring,
+}
+
+impl ScalarSettings {
+    fn split(self) -> (InputSpec, ScalarSource) {
+        (
+            InputSpec {
+                tag: self.tag,
+                origin: self.topic.clone(),
+                unit: self.unit,
+                max_age: self.max_age,
+            },
+            ScalarSource {
+                topic: self.topic,
+                decoder: self.decoder,
+            },
+        )
+    }
+}
+
+impl CompositionSettings {
+    fn split(self) -> (AnalysisSpec, CompositionSource) {
+        let delivery = match self.source {
+            CompositionSource::Analyser { .. } => Delivery::Whole,
+            CompositionSource::PerComponent { .. } => Delivery::PerComponent,
+        };
+        (
+            AnalysisSpec {
+                tag: self.tag,
+                delivery,
+                unit: self.unit,
+                basis: self.basis,
+                components: self.components,
+                sum_tolerance: self.sum_tolerance,
+                lag: self.lag,
+                max_age: self.max_age,
+                detection_limits: self.detection_limits,
+            },
+            self.source,
+        )
+    }
+}
+
+impl SteamRatioSettings {
+    fn split(self) -> (SteamRatioSpec, Option<ScalarSource>) {
+        match self {
+            Self::Fixed(v) => (SteamRatioSpec::Fixed(v), None),
+            Self::Measured(m) => {
+                let (spec, source) = m.split();
+                (SteamRatioSpec::Measured(spec), Some(source))
+            }
+        }
+    }
 }
 
 // ---------------------------------------------------------------------------
@@ -2324,23 +2358,39 @@ fn reactor(
         .iter()
         .map(|t| t.reaction.canonical())
         .collect();
+    let (composition, composition_source) = composition.split();
+    let (temperatures, temperature_sources): (Vec<_>, Vec<_>) =
+        temperatures.into_iter().map(ScalarSettings::split).unzip();
+    let (pressure, pressure_source) = pressure.split();
+    let (steam_ratio, steam_ratio_source) = match steam_ratio.map(SteamRatioSettings::split) {
+        Some((spec, source)) => (Some(spec), source),
+        None => (None, None),
+    };
     Some(ReactorSettings {
-        id: id.to_string(),
-        name,
-        reactions,
-        eos,
-        model,
-        equilibrium,
-        key_component,
-        composition,
-        temperatures,
-        pressure,
-        steam_ratio,
-        uncertainty,
-        transient_k_per_min,
-        watch,
-        reaction_labels,
-        bed_rise,
+        spec: ReactorSpec {
+            id: id.to_string(),
+            name,
+            reactions,
+            eos,
+            model,
+            equilibrium,
+            key_component,
+            composition,
+            temperatures,
+            pressure,
+            steam_ratio,
+            uncertainty,
+            transient_k_per_min,
+            watch,
+            reaction_labels,
+            bed_rise,
+        },
+        wiring: Wiring {
+            composition: composition_source,
+            temperatures: temperature_sources,
+            pressure: pressure_source,
+            steam_ratio: steam_ratio_source,
+        },
     })
 }
 
@@ -2350,7 +2400,7 @@ fn bed_rise(
     raw: &RawBedRise,
     temperatures: &[ScalarSettings],
     watch: &mut WatchSettings,
-) -> Option<BedRiseSettings> {
+) -> Option<BedRiseSpec> {
     let tag = raw.inlet_temperature.trim();
     let Some(inlet) = temperatures.iter().position(|t| t.tag == tag) else {
         let known: Vec<&str> = temperatures.iter().map(|t| t.tag.as_str()).collect();
@@ -2406,7 +2456,7 @@ fn bed_rise(
             }
         }
     }
-    Some(BedRiseSettings {
+    Some(BedRiseSpec {
         inlet,
         inlet_co_co2,
     })
@@ -2517,7 +2567,7 @@ fn show_decoder(d: &ScalarDecoder) -> String {
     }
 }
 
-fn show_scalar(s: &ScalarSettings) -> String {
+fn show_scalar(s: &InputSpec, source: &ScalarSource) -> String {
     let unit = match s.unit {
         ScalarUnit::Temperature(t) => temperature_unit_label(t).to_string(),
         ScalarUnit::Pressure(p) => pressure_unit_label(p),
@@ -2526,8 +2576,8 @@ fn show_scalar(s: &ScalarSettings) -> String {
     format!(
         "{} on {} ({unit}, {}), stale after {}",
         s.tag,
-        s.topic,
-        show_decoder(&s.decoder),
+        source.topic,
+        show_decoder(&source.decoder),
         show_duration(s.max_age)
     )
 }
@@ -2646,7 +2696,8 @@ pub fn summary(settings: &Settings) -> String {
         ),
     );
     row("species", format!("{} in the library", s.species.len()));
-    for r in &s.reactors {
+    for settings in &s.reactors {
+        let (r, w) = (&settings.spec, &settings.wiring);
         row("", String::new());
         row("reactor", format!("{}: {}", r.id, r.name));
         for (reaction, k) in &r.reactions {
@@ -2676,7 +2727,7 @@ pub fn summary(settings: &Settings) -> String {
             ),
         );
         let c = &r.composition;
-        match &c.source {
+        match &w.composition {
             CompositionSource::Analyser { topic, .. } => row(
                 "  analysis",
                 format!("{} on {topic}: {}", c.tag, c.components.join(", ")),
@@ -2712,17 +2763,19 @@ pub fn summary(settings: &Settings) -> String {
             ""
         };
         row("  gas", format!("{}{water}", r.model.names().join(", ")));
-        for t in &r.temperatures {
-            row("  temperature", show_scalar(t));
+        for (t, source) in r.temperatures.iter().zip(&w.temperatures) {
+            row("  temperature", show_scalar(t, source));
         }
-        row("  pressure", show_scalar(&r.pressure));
-        match &r.steam_ratio {
-            None => {}
-            Some(SteamRatioSettings::Fixed(v)) => row(
+        row("  pressure", show_scalar(&r.pressure, &w.pressure));
+        match (&r.steam_ratio, &w.steam_ratio) {
+            (Some(SteamRatioSpec::Fixed(v)), _) => row(
                 "  steam ratio",
                 format!("fixed at {} mol H2O per mol dry gas", show_number(*v)),
             ),
-            Some(SteamRatioSettings::Measured(m)) => row("  steam ratio", show_scalar(m)),
+            (Some(SteamRatioSpec::Measured(m)), Some(source)) => {
+                row("  steam ratio", show_scalar(m, source));
+            }
+            _ => {}
         }
         row("  key", s.species.get(r.key_component).name.clone());
         let u = &r.uncertainty;
@@ -2891,62 +2944,68 @@ value = 0.48
             Some(SocketAddr::from(([127, 0, 0, 1], 9873)))
         );
 
-        let ids: Vec<&str> = s.reactors.iter().map(|r| r.id.as_str()).collect();
+        let ids: Vec<&str> = s.reactors.iter().map(|r| r.spec.id.as_str()).collect();
         assert_eq!(ids, ["ref1", "hts1", "lts1", "mth1", "amc1"], "file order");
-        let r = |id: &str| s.reactors.iter().find(|r| r.id == id).unwrap();
-        let key = |id: &str| s.species.get(r(id).key_component).name.clone();
+        let r = |id: &str| s.reactors.iter().find(|r| r.spec.id == id).unwrap();
+        let key = |id: &str| s.species.get(r(id).spec.key_component).name.clone();
 
         let ref1 = r("ref1");
-        assert_eq!(ref1.reactions.len(), 2);
+        assert_eq!(ref1.spec.reactions.len(), 2);
         assert!(
-            ref1.reactions
+            ref1.spec
+                .reactions
                 .iter()
                 .all(|(_, k)| k.id() == KSourceId::XuFroment1989)
         );
-        assert_eq!(ref1.composition.basis, Basis::Dry);
-        assert_eq!(ref1.model.names(), ["CH4", "CO", "CO2", "H2", "H2O"]);
-        assert_eq!(ref1.composition.lag, Duration::from_secs(60));
-        let tis: Vec<&str> = ref1.temperatures.iter().map(|t| t.topic.as_str()).collect();
+        assert_eq!(ref1.spec.composition.basis, Basis::Dry);
+        assert_eq!(ref1.spec.model.names(), ["CH4", "CO", "CO2", "H2", "H2O"]);
+        assert_eq!(ref1.spec.composition.lag, Duration::from_secs(60));
+        let tis: Vec<&str> = ref1
+            .wiring
+            .temperatures
+            .iter()
+            .map(|t| t.topic.as_str())
+            .collect();
         assert_eq!(tis, ["baw1/ref1/TI-105A", "baw1/ref1/TI-105B"]);
         assert_eq!(
-            ref1.temperatures[0].unit,
+            ref1.spec.temperatures[0].unit,
             ScalarUnit::Temperature(TemperatureUnit::Celsius)
         );
-        assert_eq!(ref1.pressure.topic, "baw1/ref1/PI-102");
+        assert_eq!(ref1.wiring.pressure.topic, "baw1/ref1/PI-102");
         assert_eq!(
-            ref1.pressure.unit,
+            ref1.spec.pressure.unit,
             ScalarUnit::Pressure(PressureUnit::parse("barg").unwrap())
         );
-        match &ref1.steam_ratio {
-            Some(SteamRatioSettings::Measured(m)) => {
-                assert_eq!(m.topic, "baw1/ref1/FY-110");
+        match (&ref1.spec.steam_ratio, &ref1.wiring.steam_ratio) {
+            (Some(SteamRatioSpec::Measured(m)), Some(source)) => {
+                assert_eq!(source.topic, "baw1/ref1/FY-110");
                 assert_eq!(m.tag, "BAW1-FY-110");
-                assert_eq!(m.decoder, ScalarDecoder::Number);
+                assert_eq!(source.decoder, ScalarDecoder::Number);
                 assert_eq!(m.unit, ScalarUnit::Ratio);
             }
             other => panic!("ref1 steam ratio: {other:?}"),
         }
         assert_eq!(key("ref1"), "CH4", "default: first reactant of reforming");
-        assert_eq!(ref1.eos, EosKind::Ideal);
-        assert_eq!(ref1.uncertainty.temperature_k, 2.0);
-        assert_eq!(ref1.uncertainty.pressure_bar, 0.2);
-        assert_eq!(ref1.uncertainty.composition_rel, 0.02);
-        assert_eq!(ref1.uncertainty.steam_ratio_rel, 0.05);
+        assert_eq!(ref1.spec.eos, EosKind::Ideal);
+        assert_eq!(ref1.spec.uncertainty.temperature_k, 2.0);
+        assert_eq!(ref1.spec.uncertainty.pressure_bar, 0.2);
+        assert_eq!(ref1.spec.uncertainty.composition_rel, 0.02);
+        assert_eq!(ref1.spec.uncertainty.steam_ratio_rel, 0.05);
 
         let hts1 = r("hts1");
         assert_eq!(
-            hts1.model.names(),
+            hts1.spec.model.names(),
             ["H2", "N2", "CO", "CO2", "CH4", "Ar", "H2O"]
         );
-        assert!(matches!(hts1.steam_ratio, Some(SteamRatioSettings::Fixed(v)) if v == 0.48));
+        assert!(matches!(hts1.spec.steam_ratio, Some(SteamRatioSpec::Fixed(v)) if v == 0.48));
         assert_eq!(key("hts1"), "CO");
 
         let lts1 = r("lts1");
-        assert_eq!(lts1.reactions[0].1.id(), KSourceId::Moe1962);
-        assert_eq!(lts1.temperatures.len(), 2);
-        assert_eq!(lts1.model.band_ln, 0.01);
-        assert_eq!(lts1.transient_k_per_min, 2.0);
-        match &lts1.composition.source {
+        assert_eq!(lts1.spec.reactions[0].1.id(), KSourceId::Moe1962);
+        assert_eq!(lts1.spec.temperatures.len(), 2);
+        assert_eq!(lts1.spec.model.band_ln, 0.01);
+        assert_eq!(lts1.spec.transient_k_per_min, 2.0);
+        match &lts1.wiring.composition {
             CompositionSource::Analyser {
                 topic,
                 values_pointer,
@@ -2959,8 +3018,8 @@ value = 0.48
             }
             other => panic!("lts1 source: {other:?}"),
         }
-        match &lts1.steam_ratio {
-            Some(SteamRatioSettings::Measured(m)) => {
+        match &lts1.wiring.steam_ratio {
+            Some(m) => {
                 assert_eq!(m.topic, "baw1/lts1/FY-310");
                 assert!(
                     matches!(&m.decoder, ScalarDecoder::Json { value_pointer, .. } if value_pointer == "/value")
@@ -2970,14 +3029,15 @@ value = 0.48
         }
 
         let mth1 = r("mth1");
-        assert_eq!(mth1.reactions.len(), 2);
+        assert_eq!(mth1.spec.reactions.len(), 2);
         assert!(
-            mth1.reactions
+            mth1.spec
+                .reactions
                 .iter()
                 .all(|(_, k)| k.id() == KSourceId::SpeciesData)
         );
-        assert_eq!(mth1.composition.unit, CompositionUnit::Percent);
-        match &mth1.composition.source {
+        assert_eq!(mth1.spec.composition.unit, CompositionUnit::Percent);
+        match &mth1.wiring.composition {
             CompositionSource::PerComponent { topics, decoder } => {
                 let expected: Vec<(String, String)> = ["H2", "N2", "CH4", "Ar", "CO", "CO2"]
                     .iter()
@@ -2988,14 +3048,14 @@ value = 0.48
             }
             other => panic!("mth1 source: {other:?}"),
         }
-        assert!(matches!(mth1.steam_ratio, Some(SteamRatioSettings::Fixed(v)) if v == 0.004));
+        assert!(matches!(mth1.spec.steam_ratio, Some(SteamRatioSpec::Fixed(v)) if v == 0.004));
         assert_eq!(key("mth1"), "CO");
 
         let amc1 = r("amc1");
-        assert_eq!(amc1.eos, EosKind::PengRobinson);
-        assert_eq!(amc1.composition.basis, Basis::Wet);
-        assert_eq!(amc1.model.names(), ["H2", "N2", "NH3", "Ar", "CH4"]);
-        assert!(amc1.steam_ratio.is_none());
+        assert_eq!(amc1.spec.eos, EosKind::PengRobinson);
+        assert_eq!(amc1.spec.composition.basis, Basis::Wet);
+        assert_eq!(amc1.spec.model.names(), ["H2", "N2", "NH3", "Ar", "CH4"]);
+        assert!(amc1.spec.steam_ratio.is_none());
         assert_eq!(key("amc1"), "NH3");
 
         let text = summary(&s);
@@ -3085,7 +3145,7 @@ value = 0.48
         // config/demo-plant.toml (invented): ref1 has one rationalised alarm, 20 K high
         // with a 2 K deadband and a 2-sample on-delay; lts1 forecasts end of run at 20 K.
         let s = load(&config_dir().join("demo-plant.toml")).unwrap();
-        let ref1 = &s.reactors[0].watch;
+        let ref1 = &s.reactors[0].spec.watch;
         assert_eq!(ref1.alarms.len(), 1);
         let a = &ref1.alarms[0].config;
         assert_eq!(
@@ -3093,13 +3153,13 @@ value = 0.48
             ("approach-high", 20.0, 2.0, 2)
         );
         assert_eq!(a.realarm_ms, Some(8 * 3_600_000));
-        let lts = &s.reactors[2].watch;
+        let lts = &s.reactors[2].spec.watch;
         assert_eq!(lts.drift.end_of_run_limit_k, Some(20.0));
         assert_eq!(lts.alerts.end_of_run_within_days, Some(90.0));
         // 20 barg on a 1.01325 bar atmosphere.
         assert!((ref1.offline_below_bar.unwrap() - 21.01325).abs() < 1e-12);
         // The methanator alarm is in ppm: 5 ppm = 5e-6 mole fraction.
-        let m = &s.reactors[3].watch.alarms[0];
+        let m = &s.reactors[3].spec.watch.alarms[0];
         assert_eq!((m.config.limit, m.unit), (5.0, "ppm"));
         assert!((m.scale - 1e6).abs() < 1e-6);
         assert_eq!(s.commands.allowed_users, ["op-demo", "eng-demo"]);
@@ -3697,7 +3757,7 @@ value = 0.48
         );
         let s = check(&text).unwrap();
         assert_eq!(
-            s.reactors[0].temperatures[0].decoder,
+            s.reactors[0].wiring.temperatures[0].decoder,
             ScalarDecoder::Json {
                 value_pointer: "/data/0/v".into(),
                 ts_pointer: None,
@@ -3785,7 +3845,7 @@ lag = "2 min"
 sum_tolerance = "0.5 %""#,
         );
         let s = check(&text).unwrap();
-        let c = &s.reactors[0].composition;
+        let c = &s.reactors[0].spec.composition;
         assert_eq!(
             c.tag, "baw1/hts1/AI-201",
             "default tag: the topics' common prefix"
@@ -3793,7 +3853,7 @@ sum_tolerance = "0.5 %""#,
         assert_eq!(c.unit, CompositionUnit::Ppm);
         assert_eq!(c.lag, Duration::from_secs(120));
         assert!((c.sum_tolerance - 0.005).abs() < 1e-15);
-        match &c.source {
+        match &s.reactors[0].wiring.composition {
             CompositionSource::PerComponent { topics, decoder } => {
                 assert_eq!(*decoder, ScalarDecoder::Number);
                 assert_eq!(
@@ -3803,9 +3863,9 @@ sum_tolerance = "0.5 %""#,
             }
             other => panic!("{other:?}"),
         }
-        assert_eq!(s.reactors[0].name, "hts1", "default name: the id");
+        assert_eq!(s.reactors[0].spec.name, "hts1", "default name: the id");
         assert_eq!(
-            s.reactors[0].pressure.tag, "baw1/hts1/PI-202",
+            s.reactors[0].spec.pressure.tag, "baw1/hts1/PI-202",
             "default tag: the topic"
         );
     }
@@ -3819,13 +3879,13 @@ sum_tolerance = "0.5 %""#,
         );
         let s = check(&text).unwrap();
         let r = &s.reactors[0];
-        assert!((r.uncertainty.temperature_k - 2.0).abs() < 1e-12);
-        assert!((r.uncertainty.pressure_bar - 0.689_475_729_3).abs() < 1e-9);
-        assert!((r.uncertainty.composition_rel - 0.015).abs() < 1e-15);
-        assert!((r.uncertainty.steam_ratio_rel - 0.04).abs() < 1e-15);
-        assert!((r.transient_k_per_min - 6.0).abs() < 1e-12);
-        assert_eq!(r.model.band_ln, 0.02);
-        assert_eq!(s.species.get(r.key_component).name, "H2");
+        assert!((r.spec.uncertainty.temperature_k - 2.0).abs() < 1e-12);
+        assert!((r.spec.uncertainty.pressure_bar - 0.689_475_729_3).abs() < 1e-9);
+        assert!((r.spec.uncertainty.composition_rel - 0.015).abs() < 1e-15);
+        assert!((r.spec.uncertainty.steam_ratio_rel - 0.04).abs() < 1e-15);
+        assert!((r.spec.transient_k_per_min - 6.0).abs() < 1e-12);
+        assert_eq!(r.spec.model.band_ln, 0.02);
+        assert_eq!(s.species.get(r.spec.key_component).name, "H2");
 
         let bad = text.replace("key_component = \"H2\"", "key_component = \"N2\"");
         assert_problems(

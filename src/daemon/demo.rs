@@ -105,7 +105,7 @@ fn broker_addr(url: &str) -> Result<SocketAddr, CliError> {
 /// the demo's plant time; returns the console line that says so.
 pub fn compress_watch(settings: &mut Settings) -> String {
     for r in &mut settings.reactors {
-        let d = &mut r.watch.drift;
+        let d = &mut r.spec.watch.drift;
         if let BaselineSpec::Learn { .. } = d.baseline {
             d.baseline = BaselineSpec::Learn {
                 window_ms: DEMO_BASELINE_WINDOW_MS,
@@ -116,7 +116,7 @@ pub fn compress_watch(settings: &mut Settings) -> String {
         d.min_per_aggregate = DEMO_MIN_PER_AGGREGATE;
         d.trend_window_ms = None;
         d.min_aggregates = DEMO_MIN_AGGREGATES;
-        let a = &mut r.watch.alerts;
+        let a = &mut r.spec.watch.alerts;
         if let Some(x) = a.trend_above_k_per_day.as_mut() {
             *x *= DEMO_DAY_FACTOR;
         }
@@ -126,7 +126,7 @@ pub fn compress_watch(settings: &mut Settings) -> String {
         if a.data_quality_after_ms.is_some() {
             a.data_quality_after_ms = Some(DEMO_DATA_QUALITY_AFTER_MS);
         }
-        if r.id == "lts1" && d.end_of_run_limit_k.is_some() {
+        if r.spec.id == "lts1" && d.end_of_run_limit_k.is_some() {
             a.end_of_run_within_days = Some(DEMO_LTS_END_OF_RUN_WITHIN_DAYS);
         }
     }
@@ -787,11 +787,11 @@ fn projection(u: &UnitSeen, aggregate_ms: i64) -> Option<Projection> {
 
 fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> ReactorPlot {
     let rs = &settings.reactors[r];
-    let Some(u) = seen.units.get(&rs.id) else {
+    let Some(u) = seen.units.get(&rs.spec.id) else {
         return ReactorPlot {
-            reactor: rs.id.clone(),
-            title: format!("{} ({})", rs.name, rs.id),
-            key_component: settings.species.get(rs.key_component).name.clone(),
+            reactor: rs.spec.id.clone(),
+            title: format!("{} ({})", rs.spec.name, rs.spec.id),
+            key_component: settings.species.get(rs.spec.key_component).name.clone(),
             ..ReactorPlot::default()
         };
     };
@@ -810,7 +810,7 @@ fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> Re
     let markers = seen
         .events
         .iter()
-        .filter(|e| e.reactor == rs.id)
+        .filter(|e| e.reactor == rs.spec.id)
         .filter_map(|e| {
             let kind = match e.event.as_str() {
                 "raised" | "re-alarmed" if e.class == "alarm" => MarkerKind::Alarm,
@@ -830,6 +830,7 @@ fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> Re
         })
         .collect();
     let alarm_limits = rs
+        .spec
         .watch
         .alarms
         .iter()
@@ -841,16 +842,16 @@ fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> Re
         })
         .collect();
     ReactorPlot {
-        reactor: rs.id.clone(),
-        title: format!("{} ({})", rs.name, rs.id),
+        reactor: rs.spec.id.clone(),
+        title: format!("{} ({})", rs.spec.name, rs.spec.id),
         key_component: u
             .key_component
             .clone()
-            .unwrap_or_else(|| settings.species.get(rs.key_component).name.clone()),
-        limit_k: u.limit_k.or(rs.watch.drift.end_of_run_limit_k),
+            .unwrap_or_else(|| settings.species.get(rs.spec.key_component).name.clone()),
+        limit_k: u.limit_k.or(rs.spec.watch.drift.end_of_run_limit_k),
         points: u.points.values().copied().collect(),
         baselines,
-        projection: projection(u, rs.watch.drift.aggregate_ms),
+        projection: projection(u, rs.spec.watch.drift.aggregate_ms),
         markers,
         alarm_limits,
         // The console's points carry the results' key-component values as published:
@@ -1066,7 +1067,11 @@ async fn live(
     settings.broker.tls = false;
     settings.broker.reconnect_max = Duration::from_secs(2);
     let prefix = settings.topic_prefix.clone();
-    let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
+    let ids: Vec<String> = settings
+        .reactors
+        .iter()
+        .map(|r| r.spec.id.clone())
+        .collect();
     println!("{}", crate::sim::SCENARIO);
     println!(
         "broker {upstream} ({}), daemon through a drop-out proxy on 127.0.0.1:{}, speed x{speed}, {} s",
@@ -1378,25 +1383,41 @@ mod tests {
     #[test]
     fn compression_shortens_every_window_and_keeps_the_alarms() {
         let mut s = demo_settings();
-        let before: Vec<_> = s.reactors.iter().map(|r| r.watch.alarms.clone()).collect();
+        let before: Vec<_> = s
+            .reactors
+            .iter()
+            .map(|r| r.spec.watch.alarms.clone())
+            .collect();
         let line = compress_watch(&mut s);
         assert!(line.contains("compressed for the demo"), "{line}");
         for (r, alarms) in s.reactors.iter().zip(before) {
-            let d = &r.watch.drift;
-            assert_eq!(d.aggregate_ms, DEMO_AGGREGATE_MS, "{}", r.id);
-            assert_eq!(d.min_aggregates, DEMO_MIN_AGGREGATES, "{}", r.id);
-            assert_eq!(d.trend_window_ms, None, "{}", r.id);
+            let d = &r.spec.watch.drift;
+            assert_eq!(d.aggregate_ms, DEMO_AGGREGATE_MS, "{}", r.spec.id);
+            assert_eq!(d.min_aggregates, DEMO_MIN_AGGREGATES, "{}", r.spec.id);
+            assert_eq!(d.trend_window_ms, None, "{}", r.spec.id);
             if let BaselineSpec::Learn { window_ms, .. } = d.baseline {
-                assert_eq!(window_ms, DEMO_BASELINE_WINDOW_MS, "{}", r.id);
+                assert_eq!(window_ms, DEMO_BASELINE_WINDOW_MS, "{}", r.spec.id);
             }
-            assert_eq!(r.watch.alarms, alarms, "{}: alarms untouched", r.id);
+            assert_eq!(
+                r.spec.watch.alarms, alarms,
+                "{}: alarms untouched",
+                r.spec.id
+            );
         }
-        let lts = s.reactors.iter().find(|r| r.id == "lts1").expect("lts1");
-        assert_eq!(lts.watch.alerts.end_of_run_within_days, Some(3.0));
+        let lts = s
+            .reactors
+            .iter()
+            .find(|r| r.spec.id == "lts1")
+            .expect("lts1");
+        assert_eq!(lts.spec.watch.alerts.end_of_run_within_days, Some(3.0));
         // ref1's operator alarm: above 20 K, two samples (config/demo-plant.toml).
-        let ref1 = s.reactors.iter().find(|r| r.id == "ref1").expect("ref1");
-        assert_eq!(ref1.watch.alarms[0].config.limit, 20.0);
-        assert_eq!(ref1.watch.alarms[0].config.on_delay_samples, 2);
+        let ref1 = s
+            .reactors
+            .iter()
+            .find(|r| r.spec.id == "ref1")
+            .expect("ref1");
+        assert_eq!(ref1.spec.watch.alarms[0].config.limit, 20.0);
+        assert_eq!(ref1.spec.watch.alarms[0].config.on_delay_samples, 2);
     }
 
     #[test]

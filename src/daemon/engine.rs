@@ -15,8 +15,9 @@ use super::metrics::Metrics;
 use super::payload::{self, DecodeError};
 use super::watch_payload::{self as wp, Command};
 use super::{Append, RawInput};
-use crate::config::{CompositionSource, Settings, SteamRatioSettings};
+use crate::config::{CompositionSource, Settings};
 use crate::monitor::alarm::{Event, EventKind};
+use crate::monitor::spec::SteamRatioSpec;
 use crate::monitor::watch::{Class, DriftFigures, PlantWatch, ReactorWatch, WatchEvent};
 use crate::monitor::{Evaluation, Input, Outcome, Quality, ReactorMonitor};
 
@@ -35,26 +36,27 @@ pub enum Route {
 pub fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
     let mut m: HashMap<String, Vec<Route>> = HashMap::new();
     for (r, rs) in s.reactors.iter().enumerate() {
-        for (i, t) in rs.temperatures.iter().enumerate() {
+        for (i, t) in rs.wiring.temperatures.iter().enumerate() {
             m.entry(t.topic.clone())
                 .or_default()
                 .push(Route::Temperature(r, i));
         }
-        m.entry(rs.pressure.topic.clone())
+        m.entry(rs.wiring.pressure.topic.clone())
             .or_default()
             .push(Route::Pressure(r));
-        if let Some(SteamRatioSettings::Measured(ss)) = &rs.steam_ratio {
+        if let Some(ss) = &rs.wiring.steam_ratio {
             m.entry(ss.topic.clone())
                 .or_default()
                 .push(Route::SteamRatio(r));
         }
-        match &rs.composition.source {
+        match &rs.wiring.composition {
             CompositionSource::Analyser { topic, .. } => {
                 m.entry(topic.clone()).or_default().push(Route::Analysis(r))
             }
             CompositionSource::PerComponent { topics, .. } => {
                 for (species, topic) in topics {
                     if let Some(c) = rs
+                        .spec
                         .composition
                         .components
                         .iter()
@@ -67,7 +69,7 @@ pub fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
                 }
             }
         }
-        m.entry(format!("{}/{}/command", s.topic_prefix, rs.id))
+        m.entry(format!("{}/{}/command", s.topic_prefix, rs.spec.id))
             .or_default()
             .push(Route::Command(r));
     }
@@ -211,15 +213,15 @@ impl Engine {
                 r,
                 settings: settings.clone(),
                 metrics: metrics.clone(),
-                monitor: ReactorMonitor::new(rs),
-                watch: ReactorWatch::new(&rs.watch)
-                    .map_err(|e| format!("reactors.{}: {e}", rs.id))?,
+                monitor: ReactorMonitor::new(&rs.spec),
+                watch: ReactorWatch::new(&rs.spec.watch)
+                    .map_err(|e| format!("reactors.{}: {e}", rs.spec.id))?,
                 topics: Topics {
-                    result: format!("{p}/{}/result", rs.id),
-                    alert: format!("{p}/{}/alert", rs.id),
-                    alarm: format!("{p}/{}/alarm", rs.id),
-                    alarms: format!("{p}/{}/alarms", rs.id),
-                    outcome: format!("{p}/{}/command/outcome", rs.id),
+                    result: format!("{p}/{}/result", rs.spec.id),
+                    alert: format!("{p}/{}/alert", rs.spec.id),
+                    alarm: format!("{p}/{}/alarm", rs.spec.id),
+                    alarms: format!("{p}/{}/alarms", rs.spec.id),
+                    outcome: format!("{p}/{}/command/outcome", rs.spec.id),
                 },
                 trace: None,
             });
@@ -266,8 +268,8 @@ impl Engine {
             .map(|u| {
                 let rs = &self.settings.reactors[u.r];
                 (
-                    rs.id.clone(),
-                    format!("{:?}", rs.watch.drift),
+                    rs.spec.id.clone(),
+                    format!("{:?}", rs.spec.watch.drift),
                     u.watch.drift_snapshot(),
                 )
             })
@@ -286,7 +288,7 @@ impl Engine {
             .iter()
             .map(|u| {
                 (
-                    self.settings.reactors[u.r].id.clone(),
+                    self.settings.reactors[u.r].spec.id.clone(),
                     u.watch.alarm_snapshots(),
                 )
             })
@@ -301,7 +303,7 @@ impl Engine {
         config: &str,
         snap: &crate::monitor::alarm::AlarmSnapshot,
     ) -> bool {
-        match self.settings.reactors.iter().position(|r| r.id == id) {
+        match self.settings.reactors.iter().position(|r| r.spec.id == id) {
             Some(r) => self.units[r].watch.restore_alarm(alarm, config, snap),
             None => false,
         }
@@ -310,10 +312,10 @@ impl Engine {
     /// Restores reactor `id`'s run; false when refused (damaged numbers, unknown id).
     pub fn restore_drift(&mut self, id: &str, snap: &crate::monitor::watch::DriftSnapshot) -> bool {
         let settings = Arc::clone(&self.settings);
-        match settings.reactors.iter().position(|r| r.id == id) {
+        match settings.reactors.iter().position(|r| r.spec.id == id) {
             Some(r) => self.units[r]
                 .watch
-                .restore_drift(&settings.reactors[r].watch.drift, snap),
+                .restore_drift(&settings.reactors[r].spec.watch.drift, snap),
             None => false,
         }
     }
@@ -353,7 +355,7 @@ impl Engine {
                 Ok(input) => self.accept(r, input, raw.arrival_ms, now_ms, out),
                 Err(e) => {
                     self.metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
-                    warn!(reactor = %self.settings.reactors[r].id, topic = %raw.topic, reason = %e.reason(), error = %e, "input rejected");
+                    warn!(reactor = %self.settings.reactors[r].spec.id, topic = %raw.topic, reason = %e.reason(), error = %e, "input rejected");
                 }
             }
         }
@@ -440,7 +442,7 @@ impl Unit {
         let metrics = Arc::clone(&self.metrics);
         let rm = &metrics.reactors[self.r];
         if let Input::Pressure(p) = &input {
-            let ev = self.watch.pressure(&rs.watch, p.value, now_ms);
+            let ev = self.watch.pressure(&rs.spec.watch, p.value, now_ms);
             if let Some(t) = self.trace.as_mut() {
                 let open = matches!(t.offline.last(), Some((_, None)));
                 match (self.watch.offline(), open) {
@@ -454,22 +456,22 @@ impl Unit {
                 }
             }
             if !ev.is_empty() {
-                info!(reactor = %rs.id, offline = self.watch.offline(), "unit on/off line");
+                info!(reactor = %rs.spec.id, offline = self.watch.offline(), "unit on/off line");
                 self.publish_events(ev, now_ms, sink);
             }
         }
         match self
             .monitor
-            .accept(rs, &settings.species, input, arrival_ms)
+            .accept(&rs.spec, &settings.species, input, arrival_ms)
         {
             Outcome::Stored => {}
             Outcome::Duplicate => {
                 rm.duplicates.fetch_add(1, Relaxed);
-                debug!(reactor = %rs.id, "duplicate analysis ignored");
+                debug!(reactor = %rs.spec.id, "duplicate analysis ignored");
             }
             Outcome::OutOfOrder { last_ts_ms } => {
                 rm.out_of_order.fetch_add(1, Relaxed);
-                warn!(reactor = %rs.id, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
+                warn!(reactor = %rs.spec.id, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
             }
             Outcome::TooOld => {
                 rm.too_old.fetch_add(1, Relaxed);
@@ -502,11 +504,11 @@ impl Unit {
                 .filter(|x| x.severity != Quality::Good)
                 .map(|x| x.code)
                 .collect();
-            warn!(reactor = %rs.id, quality = %e.quality.as_str(), reasons = %codes.join(","), "evaluation not good");
+            warn!(reactor = %rs.spec.id, quality = %e.quality.as_str(), reasons = %codes.join(","), "evaluation not good");
         } else {
-            debug!(reactor = %rs.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
+            debug!(reactor = %rs.spec.id, approach_k = approach.unwrap_or(f64::NAN), "evaluated");
         }
-        let (fig, events) = self.watch.observe(&rs.watch, e, now_ms);
+        let (fig, events) = self.watch.observe(&rs.spec.watch, e, now_ms);
         if fig.excluded.is_some() {
             rm.drift_excluded.fetch_add(1, Relaxed);
         }
@@ -526,7 +528,7 @@ impl Unit {
             let water = settings
                 .species
                 .index_of("H2O")
-                .and_then(|w| rs.model.species().iter().position(|&x| x == w));
+                .and_then(|w| rs.spec.model.species().iter().position(|&x| x == w));
             let at = |v: &[f64]| compact(water.and_then(|i| v.get(i).copied()));
             t.points.push(TracePoint {
                 t_ms: e.sample_ts_ms,
@@ -582,7 +584,7 @@ impl Unit {
         if events.is_empty() {
             return;
         }
-        let rs_id = &self.settings.reactors[self.r].id;
+        let rs_id = &self.settings.reactors[self.r].spec.id;
         let rm = &self.metrics.reactors[self.r];
         for e in &events {
             let x = &self.watch.watched[e.index];
@@ -637,7 +639,11 @@ impl Unit {
         Append {
             topic: self.topics.alarms.clone(),
             retain: true,
-            payload: wp::encode_states(&self.settings.reactors[self.r].id, &self.watch, now_ms),
+            payload: wp::encode_states(
+                &self.settings.reactors[self.r].spec.id,
+                &self.watch,
+                now_ms,
+            ),
         }
     }
 
@@ -673,14 +679,22 @@ impl Unit {
                 topic: outcome_topic.clone(),
                 retain: false,
                 payload: wp::encode_outcome(
-                    &rs.id, rid, cmd, c_alarm, user, client, outcome, message, now_ms,
+                    &rs.spec.id,
+                    rid,
+                    cmd,
+                    c_alarm,
+                    user,
+                    client,
+                    outcome,
+                    message,
+                    now_ms,
                 ),
             });
         };
         let c: Command = match wp::decode_command(payload) {
             Ok(c) => c,
             Err((m, rid, user, client)) => {
-                warn!(reactor = %rs.id, error = %m, "command invalid");
+                warn!(reactor = %rs.spec.id, error = %m, "command invalid");
                 answer(
                     None,
                     None,
@@ -704,7 +718,7 @@ impl Unit {
                 c.user.as_deref().unwrap_or("(none)"),
                 c.client_id.as_deref().unwrap_or("(none)")
             );
-            warn!(reactor = %rs.id, command = %name, user = %c.user.as_deref().unwrap_or("(none)"), client_id = %c.client_id.as_deref().unwrap_or("(none)"), "command refused: not allowed");
+            warn!(reactor = %rs.spec.id, command = %name, user = %c.user.as_deref().unwrap_or("(none)"), client_id = %c.client_id.as_deref().unwrap_or("(none)"), "command refused: not allowed");
             answer(
                 Some(name),
                 c.alarm.as_deref(),
@@ -724,10 +738,10 @@ impl Unit {
             .unwrap_or_default();
         match self
             .watch
-            .command(&rs.watch, &c.action, c.alarm.as_deref(), &by, now_ms)
+            .command(&rs.spec.watch, &c.action, c.alarm.as_deref(), &by, now_ms)
         {
             Ok((m, events)) => {
-                info!(reactor = %rs.id, command = %name, alarm = %c.alarm.as_deref().unwrap_or("-"), by = %by, "command carried out");
+                info!(reactor = %rs.spec.id, command = %name, alarm = %c.alarm.as_deref().unwrap_or("-"), by = %by, "command carried out");
                 answer(
                     Some(name),
                     c.alarm.as_deref(),
@@ -746,7 +760,7 @@ impl Unit {
             }
             Err(e) => {
                 let m = e.to_string();
-                warn!(reactor = %rs.id, command = %name, alarm = %c.alarm.as_deref().unwrap_or("-"), by = %by, error = %m, "command refused");
+                warn!(reactor = %rs.spec.id, command = %name, alarm = %c.alarm.as_deref().unwrap_or("-"), by = %by, error = %m, "command refused");
                 answer(
                     Some(name),
                     c.alarm.as_deref(),
@@ -767,37 +781,52 @@ pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Inpu
     let atm = s.atmosphere_bar;
     match route {
         Route::Temperature(r, i) => {
-            let t = &s.reactors[r].temperatures[i];
+            let (rs, Some(source)) = (&s.reactors[r], s.reactors[r].wiring.temperatures.get(i))
+            else {
+                return (r, Err(DecodeError::Missing("(thermocouple)".into())));
+            };
+            let unit = &rs.spec.temperatures[i].unit;
             (
                 r,
-                payload::decode_scalar(&raw.payload, &t.decoder, &t.unit, atm, raw.arrival_ms)
+                payload::decode_scalar(&raw.payload, &source.decoder, unit, atm, raw.arrival_ms)
                     .map(|v| Input::Temperature(i, v)),
             )
         }
         Route::Pressure(r) => {
-            let p = &s.reactors[r].pressure;
+            let rs = &s.reactors[r];
+            let (source, unit) = (&rs.wiring.pressure, &rs.spec.pressure.unit);
             (
                 r,
-                payload::decode_scalar(&raw.payload, &p.decoder, &p.unit, atm, raw.arrival_ms)
+                payload::decode_scalar(&raw.payload, &source.decoder, unit, atm, raw.arrival_ms)
                     .map(Input::Pressure),
             )
         }
-        Route::SteamRatio(r) => match &s.reactors[r].steam_ratio {
-            Some(SteamRatioSettings::Measured(ss)) => (
+        Route::SteamRatio(r) => match (
+            &s.reactors[r].spec.steam_ratio,
+            &s.reactors[r].wiring.steam_ratio,
+        ) {
+            (Some(SteamRatioSpec::Measured(ss)), Some(source)) => (
                 r,
-                payload::decode_scalar(&raw.payload, &ss.decoder, &ss.unit, atm, raw.arrival_ms)
-                    .map(Input::SteamRatio),
+                payload::decode_scalar(
+                    &raw.payload,
+                    &source.decoder,
+                    &ss.unit,
+                    atm,
+                    raw.arrival_ms,
+                )
+                .map(Input::SteamRatio),
             ),
             _ => (r, Err(DecodeError::Missing("(steam ratio)".into()))),
         },
         Route::Analysis(r) => (
             r,
-            payload::decode_analysis(&raw.payload, &s.reactors[r].composition, raw.arrival_ms)
+            payload::decode_analysis(&raw.payload, &s.reactors[r], raw.arrival_ms)
                 .map(Input::Analysis),
         ),
         Route::Component(r, c) => {
-            let comp = &s.reactors[r].composition;
-            let CompositionSource::PerComponent { decoder, .. } = &comp.source else {
+            let comp = &s.reactors[r].spec.composition;
+            let CompositionSource::PerComponent { decoder, .. } = &s.reactors[r].wiring.composition
+            else {
                 return (r, Err(DecodeError::Missing("(component source)".into())));
             };
             (

@@ -315,7 +315,11 @@ pub async fn run(
 ) -> Result<(), DaemonError> {
     info!(version = env!("CARGO_PKG_VERSION"), site = %settings.site, reactors = settings.reactors.len(), "eqwatch starting");
     warn!("{ADVISORY}");
-    let ids: Vec<String> = settings.reactors.iter().map(|r| r.id.clone()).collect();
+    let ids: Vec<String> = settings
+        .reactors
+        .iter()
+        .map(|r| r.spec.id.clone())
+        .collect();
     let metrics = Arc::new(Metrics::new(&ids));
     let journal = Journal::open(&settings.journal, clock())
         .map_err(|e| DaemonError::Journal(e.to_string()))?;

@@ -8,9 +8,7 @@ use serde_json::Value;
 use thiserror::Error;
 
 use crate::composition::Basis;
-use crate::config::{
-    CompositionSettings, CompositionSource, ReactorSettings, ScalarDecoder, ScalarUnit,
-};
+use crate::config::{CompositionSource, ReactorSettings, ScalarDecoder, ScalarUnit};
 use crate::monitor::{AnalysisReading, Evaluation, ScalarReading, SourceQuality};
 use crate::thermo::species::SpeciesDb;
 use crate::timefmt::{format_rfc3339, parse_rfc3339};
@@ -288,9 +286,10 @@ pub fn decode_component(
 /// Decodes a multi-component analyser message into mole fractions per configured component.
 pub fn decode_analysis(
     payload: &[u8],
-    c: &CompositionSettings,
+    reactor: &ReactorSettings,
     arrival_ms: i64,
 ) -> Result<AnalysisReading, DecodeError> {
+    let c = &reactor.spec.composition;
     let CompositionSource::Analyser {
         values_pointer,
         ts_pointer,
@@ -298,7 +297,7 @@ pub fn decode_analysis(
         basis_pointer,
         quality_pointer,
         ..
-    } = &c.source
+    } = &reactor.wiring.composition
     else {
         return Err(DecodeError::Missing("(analyser source)".into()));
     };
@@ -474,12 +473,13 @@ pub const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plan
 /// The key component's wet mole fraction on the analyser's basis.
 fn key_on_basis(r: &ReactorSettings, wet: &[f64], y: Option<f64>) -> Option<f64> {
     let water = r
+        .spec
         .model
         .names()
         .iter()
         .position(|n| n == "H2O")
         .and_then(|i| wet.get(i).copied());
-    y.map(|y| crate::monitor::on_basis(y, water, r.composition.basis))
+    y.map(|y| crate::monitor::on_basis(y, water, r.spec.composition.basis))
 }
 
 fn headline(
@@ -505,7 +505,7 @@ fn headline(
             Some(y) => (Some(y * 100.0), "mol%"),
             None => (None, ""),
         };
-        let basis = r.composition.basis.as_str();
+        let basis = r.spec.composition.basis.as_str();
         let dl_text = dl.map_or(String::new(), |d| {
             format!(", detection limit {}", crate::monitor::fmt_fraction(d))
         });
@@ -604,13 +604,14 @@ pub fn encode_result(
     evaluated_at_ms: i64,
     drift: Option<&crate::monitor::watch::DriftFigures>,
 ) -> String {
-    let names = r.model.names();
+    let names = r.spec.model.names();
     let reactions = r
+        .spec
         .model
         .reactions()
         .iter()
         .zip(&e.reactions)
-        .zip(&r.reaction_labels)
+        .zip(&r.spec.reaction_labels)
         .map(|((t, a), label)| ReactionOut {
             reaction: label,
             k_source: t.k.id().as_str(),
@@ -631,16 +632,28 @@ pub fn encode_result(
     let first = e.reactions.first();
     // A figure is published only from a usable analysis: bad results carry no approach.
     let usable = first.filter(|_| e.quality != crate::monitor::Quality::Bad);
-    let key_name = &db.get(r.key_component).name;
-    let key_index = r.composition.components.iter().position(|c| c == key_name);
-    let key_dl = key_index.and_then(|i| r.composition.detection_limits.get(i).copied().flatten());
+    let key_name = &db.get(r.spec.key_component).name;
+    let key_index = r
+        .spec
+        .composition
+        .components
+        .iter()
+        .position(|c| c == key_name);
+    let key_dl = key_index.and_then(|i| {
+        r.spec
+            .composition
+            .detection_limits
+            .get(i)
+            .copied()
+            .flatten()
+    });
     let key_basis = e.key_measured_on_basis;
     let approach =
         usable.and_then(|a| finite_opt(a.approach_k).map(|x| (x, a.approach_uncertainty_k)));
     let out = ResultOut {
         schema: RESULT_SCHEMA,
-        reactor: &r.id,
-        name: &r.name,
+        reactor: &r.spec.id,
+        name: &r.spec.name,
         analysis_ts: format_rfc3339(e.analysis_ts_ms),
         sample_ts: format_rfc3339(e.sample_ts_ms),
         evaluated_at: format_rfc3339(evaluated_at_ms),
@@ -654,8 +667,8 @@ pub fn encode_result(
                 message: &x.message,
             })
             .collect(),
-        k_source: r.model.reactions().first().map(|t| t.k.id().as_str()),
-        eos: r.eos.as_str(),
+        k_source: r.spec.model.reactions().first().map(|t| t.k.id().as_str()),
+        eos: r.spec.eos.as_str(),
         ln_k: first.and_then(|a| finite(a.ln_k)),
         ln_q: first.and_then(|a| finite(a.ln_q)),
         q_over_k: first.and_then(|a| finite(a.q_over_k)),
@@ -683,7 +696,7 @@ pub fn encode_result(
                 used: i.used,
             })
             .collect(),
-        basis: r.composition.basis.as_str(),
+        basis: r.spec.composition.basis.as_str(),
         key_component: key_name,
         key_measured_mole_fraction: finite_opt(e.key_measured),
         key_equilibrium_mole_fraction: finite_opt(e.key_equilibrium),
@@ -795,7 +808,8 @@ mod tests {
             std::path::Path::new("."),
         )
         .unwrap();
-        let r = s.reactors.iter().find(|r| r.id == "lts1").unwrap();
+        let rs = s.reactors.iter().find(|r| r.spec.id == "lts1").unwrap();
+        let r = &rs.spec;
         let mut m = ReactorMonitor::new(r);
         let at = 1_796_083_200_000;
         let sc = |v| ScalarReading {
@@ -819,7 +833,8 @@ mod tests {
         let Outcome::Evaluated(e) = m.accept(r, &s.species, Input::Analysis(a), at + lag) else {
             panic!("no evaluation");
         };
-        let out: Value = serde_json::from_str(&encode_result(r, &s.species, &e, at, None)).unwrap();
+        let out: Value =
+            serde_json::from_str(&encode_result(rs, &s.species, &e, at, None)).unwrap();
         let u = out["approach_uncertainty_k"].as_f64().unwrap();
         for b in [
             &out["uncertainty_budget_k"],

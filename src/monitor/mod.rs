@@ -9,15 +9,16 @@
 pub mod alarm;
 pub mod buffer;
 pub mod drift;
+pub mod spec;
 pub mod watch;
 
 use std::collections::BTreeMap;
 
 use buffer::{Lookup, Point, ScalarBuffer};
+use spec::{InputSpec, ReactorSpec, SteamRatioSpec};
 
 use crate::approach::{Approach, Flags, GasState, Scratch};
 use crate::composition::{Basis, Component, CompositionError, WaterSource, to_wet};
-use crate::config::{CompositionSource, ReactorSettings, ScalarSettings, SteamRatioSettings};
 use crate::thermo::species::SpeciesDb;
 use crate::units::CompositionUnit;
 
@@ -184,7 +185,7 @@ fn ms(d: std::time::Duration) -> i64 {
 }
 
 impl ReactorMonitor {
-    pub fn new(settings: &ReactorSettings) -> Self {
+    pub fn new(settings: &ReactorSpec) -> Self {
         Self {
             temperatures: settings
                 .temperatures
@@ -204,7 +205,7 @@ impl ReactorMonitor {
     /// Takes one input. Analyses (whole, or completed from components) are evaluated.
     pub fn accept(
         &mut self,
-        s: &ReactorSettings,
+        s: &ReactorSpec,
         db: &SpeciesDb,
         input: Input,
         now_ms: i64,
@@ -253,7 +254,7 @@ impl ReactorMonitor {
 
     fn analysis(
         &mut self,
-        s: &ReactorSettings,
+        s: &ReactorSpec,
         db: &SpeciesDb,
         a: AnalysisReading,
         now_ms: i64,
@@ -278,7 +279,7 @@ impl ReactorMonitor {
 
     fn evaluate(
         &mut self,
-        s: &ReactorSettings,
+        s: &ReactorSpec,
         db: &SpeciesDb,
         a: &AnalysisReading,
         now_ms: i64,
@@ -469,8 +470,8 @@ impl ReactorMonitor {
         );
         let steam_ratio = match &s.steam_ratio {
             None => None,
-            Some(SteamRatioSettings::Fixed(v)) => Some(*v),
-            Some(SteamRatioSettings::Measured(ss)) => aligned(
+            Some(SteamRatioSpec::Fixed(v)) => Some(*v),
+            Some(SteamRatioSpec::Measured(ss)) => aligned(
                 &self.steam,
                 ss,
                 t_sample,
@@ -799,7 +800,7 @@ pub(crate) fn on_basis(y: f64, water: Option<f64>, basis: Basis) -> f64 {
 /// with a reason) and the key component's measured slip is the headline figure
 /// [common practice at methanators: DOMAIN §10].
 fn not_meaningful_below_detection(
-    s: &ReactorSettings,
+    s: &ReactorSpec,
     eval: &mut Evaluation,
     push: &mut impl FnMut(&'static str, Quality, String),
 ) {
@@ -859,7 +860,7 @@ fn not_meaningful_below_detection(
 /// (stale, missing, or reported bad); the use is recorded either way.
 fn aligned(
     buffer: &ScalarBuffer,
-    input: &ScalarSettings,
+    input: &InputSpec,
     t_sample: i64,
     unit: &'static str,
     stale_code: &'static str,
@@ -903,7 +904,7 @@ fn aligned(
                 Quality::Bad,
                 format!(
                     "{}: {what}; check the transmitter and its topic {}",
-                    input.tag, input.topic
+                    input.tag, input.origin
                 ),
             );
             inputs.push(InputUse {
@@ -947,11 +948,6 @@ fn store(b: &mut ScalarBuffer, r: ScalarReading) -> Outcome {
     }
 }
 
-/// Whether the reactor's composition comes from per-component topics.
-pub fn per_component(s: &ReactorSettings) -> bool {
-    matches!(s.composition.source, CompositionSource::PerComponent { .. })
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -966,8 +962,12 @@ mod tests {
         .expect("demo config")
     }
 
-    fn reactor<'a>(s: &'a Settings, id: &str) -> &'a ReactorSettings {
-        s.reactors.iter().find(|r| r.id == id).expect("reactor")
+    fn reactor<'a>(s: &'a Settings, id: &str) -> &'a ReactorSpec {
+        &s.reactors
+            .iter()
+            .find(|r| r.spec.id == id)
+            .expect("reactor")
+            .spec
     }
 
     const T0: i64 = 1_796_083_200_000;
@@ -1177,7 +1177,7 @@ mod tests {
         // The demo methanator reports each component on its own topic (invented values).
         let s = settings();
         let r = reactor(&s, "mth1");
-        assert!(per_component(r));
+        assert!(r.per_component());
         let mut m = ReactorMonitor::new(r);
         let at = T0 + 10 * MIN;
         for i in 0..r.temperatures.len() {
