@@ -15,18 +15,15 @@
 //!
 //! Advisory only: eqwatch is not a safety function; see the README.
 
-pub mod approach;
-pub mod bedrise;
-pub mod composition;
+// The numeric core, re-exported so that `eqwatch::approach` and `crate::units` name
+// the same modules everywhere.
+pub use eqwatch_core::{
+    approach, bedrise, composition, equilibrium, monitor, solve, thermo, timefmt, units,
+};
+
 pub mod config;
-pub mod equilibrium;
-pub mod monitor;
 pub mod plot;
 pub mod sim;
-pub mod solve;
-pub mod thermo;
-pub mod timefmt;
-pub mod units;
 
 #[cfg(feature = "cli")]
 pub mod cli;

@@ -260,9 +260,7 @@ const HEIGHT: f64 = 640.0;
 const LEFT: f64 = 84.0;
 const RIGHT: f64 = 976.0;
 
-const MINUTE_MS: i64 = 60_000;
-const HOUR_MS: i64 = 3_600_000;
-const DAY_MS: i64 = 86_400_000;
+use crate::units::{DAY_MS, HOUR_MS, MINUTE_MS};
 const MONTH_MS_APPROX: i64 = 2_629_746_000; // 365.2425 / 12 days
 const YEAR_MS_APPROX: i64 = 31_556_952_000; // 365.2425 days
 

@@ -1,9 +1,11 @@
-//! Integration tests of the daemon against a real mosquitto started on a free loopback
-//! port (no mocked broker). One test binary; modules by subject.
+//! Integration tests: the daemon against a real mosquitto started on a free loopback
+//! port (no mocked broker), the demo, replay, and the core monitor on the demo plant's
+//! configuration. One test binary; modules by subject.
 
 mod support;
 
 mod alarms;
 mod daemon;
 mod demo;
+mod monitor;
 mod replay;

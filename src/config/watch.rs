@@ -126,9 +126,7 @@ pub(super) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSe
     }
 }
 
-fn ms(d: Duration) -> i64 {
-    i64::try_from(d.as_millis()).unwrap_or(i64::MAX)
-}
+use crate::units::duration_ms as ms;
 
 /// A temperature difference in K (`"20 K"`; a `degC` is the same size, a `degF` 5/9 of it).
 pub(super) fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {

@@ -34,9 +34,7 @@ use crate::timefmt::parse_rfc3339;
 /// The reference configuration of the demo plant (compiled in, so the demo runs from any folder).
 pub const DEMO_CONFIG: &str = include_str!("../../config/demo-plant.toml");
 
-const MINUTE_MS: i64 = 60_000;
-const HOUR_MS: i64 = 3_600_000;
-const DAY_MS: i64 = 86_400_000;
+use crate::units::{DAY_MS, HOUR_MS, MINUTE_MS};
 
 // The demo's compressed statistics windows. The configuration's windows are for a real
 // plant (a baseline learned over a week, one trend point a day); in a demo of about an

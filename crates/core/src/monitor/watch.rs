@@ -31,8 +31,9 @@ use super::drift::{Cusum, CusumPoint, CusumState, EndOfRun, Ewma, EwmaPoint, Shi
 use super::{Evaluation, Quality};
 use crate::units::fmt_num;
 
-const DAY_MS: f64 = 86_400_000.0;
-const MINUTE_MS: i64 = 60_000;
+use crate::units::MINUTE_MS;
+/// A day in milliseconds as a float (rates per day).
+const DAY_MS: f64 = crate::units::DAY_MS as f64;
 const OFFLINE_REASON: &str = "unit off line";
 
 /// How the trend line is fitted.

@@ -349,7 +349,7 @@ pub struct SpeciesDb {
     by_name: HashMap<String, usize>,
 }
 
-static BUILTIN: &str = include_str!("../../data/species.toml");
+static BUILTIN: &str = include_str!("../../../../data/species.toml");
 
 impl SpeciesDb {
     /// An empty library (for tests and for users who want only their own data).
@@ -592,7 +592,7 @@ mod tests {
         let n7 = db.by_name("N2").unwrap().clone();
         let n = db
             .merge_toml(
-                include_str!("../../config/species-nasa9.toml"),
+                include_str!("../../../../config/species-nasa9.toml"),
                 "species-nasa9.toml",
             )
             .unwrap();

@@ -11,6 +11,22 @@ use thiserror::Error;
 /// (ISO 2533; 101 325 Pa by definition).
 pub const STANDARD_ATMOSPHERE_BAR: f64 = 1.01325;
 
+// ---------------------------------------------------------------------------
+// Time: every timestamp and age in eqwatch is integer milliseconds since the Unix
+// epoch (UTC); these are the one set of constants for it.
+
+/// Milliseconds in a second, minute, hour and day (a day is 86,400 s: UTC, no leap seconds).
+pub const SECOND_MS: i64 = 1_000;
+pub const MINUTE_MS: i64 = 60 * SECOND_MS;
+pub const HOUR_MS: i64 = 60 * MINUTE_MS;
+pub const DAY_MS: i64 = 24 * HOUR_MS;
+
+/// A duration as whole milliseconds, saturating at `i64::MAX` (a configured age of
+/// centuries means "never stale", not a wrap to a negative age).
+pub fn duration_ms(d: std::time::Duration) -> i64 {
+    i64::try_from(d.as_millis()).unwrap_or(i64::MAX)
+}
+
 /// Problems with a quantity written by a user or sent by an instrument.
 #[derive(Debug, Clone, PartialEq, Error)]
 pub enum UnitError {
