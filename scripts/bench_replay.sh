@@ -6,18 +6,19 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 cargo build --release --quiet --example gen_history
 cargo build --release --quiet
+target=${CARGO_TARGET_DIR:-target}
 mkdir -p var/bench
 csv=var/bench/baw1-year.csv
 if [ ! -s "$csv" ]; then
-    target/release/examples/gen_history --out "$csv"
+    "$target/release/examples/gen_history" --out "$csv"
 fi
-python3 - "$csv" <<'PY'
+python3 - "$csv" "$target/release/eqwatch" <<'PY'
 import resource, subprocess, sys, time
-csv = sys.argv[1]
+csv, eqwatch = sys.argv[1], sys.argv[2]
 for label, extra in [("no output", []),
                      ("results + plots", ["--out", "var/bench/results.jsonl", "--plot", "var/bench/plots"])]:
     t = time.perf_counter()
-    r = subprocess.run(["target/release/eqwatch", "replay", "--config", "config/demo-plant.toml",
+    r = subprocess.run([eqwatch, "replay", "--config", "config/demo-plant.toml",
                         "--input", csv] + extra, capture_output=True, text=True)
     dt = time.perf_counter() - t
     rss = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024

@@ -26,22 +26,30 @@ fi
 step "cargo fmt --check"
 cargo fmt --all -- --check
 
-step "cargo clippy --all-targets -- -D warnings"
-cargo clippy --all-targets -- -D warnings
+# Build output goes where cargo puts it: CARGO_TARGET_DIR when set, else ./target.
+target=${CARGO_TARGET_DIR:-target}
 
-step "numeric core without the daemon (no tokio)"
-cargo build --lib --no-default-features
-if cargo tree --no-default-features -e normal --prefix none | grep -qE '^(tokio|rumqttc) '; then
-  echo "the numeric core pulls in tokio or rumqttc without the daemon feature" >&2
+step "cargo clippy --workspace --all-targets -- -D warnings"
+cargo clippy --workspace --all-targets -- -D warnings
+
+step "the numeric core (crates/core) builds alone, without a runtime"
+cargo build -p eqwatch-core
+if cargo tree -p eqwatch-core -e normal --prefix none | grep -qE '^(tokio|rumqttc|tracing|serde_json) '; then
+  echo "crates/core pulls in tokio, rumqttc, tracing or serde_json; it must not" >&2
   exit 1
 fi
 
-step "cargo test"
-cargo test --all-targets
+step "feature sets build: the calculator and check without the daemon; the daemon without the demo broker"
+cargo build --lib --no-default-features
+cargo build --no-default-features --features cli --bin eqwatch
+cargo build --no-default-features --features daemon --bin eqwatch
+
+step "cargo test --workspace"
+cargo test --workspace --all-targets
 
 step "release build for the cross-checks"
 cargo build --release --bin eqwatch
-bin=target/release/eqwatch
+bin=$target/release/eqwatch
 
 step "cross-check against Cantera"
 .venv/bin/python scripts/crosscheck_cantera.py --bin "$bin"

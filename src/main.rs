@@ -111,6 +111,7 @@ enum Command {
         config: PathBuf,
     },
     /// Run the monitoring daemon on a plant configuration.
+    #[cfg(feature = "daemon")]
     Run {
         #[arg(long)]
         config: PathBuf,
@@ -121,6 +122,7 @@ enum Command {
         log: LogArgs,
     },
     /// Run a CSV of plant history through the daemon's processing path; results and plots.
+    #[cfg(feature = "daemon")]
     Replay {
         #[arg(long)]
         config: PathBuf,
@@ -153,6 +155,7 @@ enum Command {
     /// temporary folder, removed at exit with no plots written; --keep keeps it, and a
     /// folder given with --workdir is always kept. After a failure the folder is kept
     /// for its log. The folder is named at the start and at the end.
+    #[cfg(feature = "demo-broker")]
     Demo {
         /// Simulated seconds per wall-clock second.
         #[arg(long, default_value_t = 60.0)]
@@ -175,6 +178,7 @@ enum Command {
     },
 }
 
+#[cfg(feature = "daemon")]
 #[derive(clap::Args, Debug, Clone)]
 struct LogArgs {
     /// Log format: text or json (one object per line, for journald and log shippers).
@@ -186,6 +190,7 @@ struct LogArgs {
 }
 
 /// Sets up logging: on stderr (colour only on a terminal), or into `file` (no colour).
+#[cfg(feature = "daemon")]
 fn init_tracing(log: &LogArgs, file: Option<&std::path::Path>) -> Result<(), CliError> {
     let level: tracing::Level = log.log_level.parse().map_err(|_| {
         CliError::Input(format!(
@@ -254,6 +259,7 @@ fn load_config(path: &std::path::Path) -> Result<eqwatch::config::Settings, CliE
 }
 
 /// Resolves on SIGINT or SIGTERM.
+#[cfg(feature = "daemon")]
 async fn shutdown_signal() {
     let ctrl_c = tokio::signal::ctrl_c();
     #[cfg(unix)]
@@ -276,6 +282,7 @@ async fn shutdown_signal() {
     }
 }
 
+#[cfg(feature = "daemon")]
 fn runtime() -> Result<tokio::runtime::Runtime, CliError> {
     tokio::runtime::Builder::new_current_thread()
         .enable_all()
@@ -283,6 +290,7 @@ fn runtime() -> Result<tokio::runtime::Runtime, CliError> {
         .map_err(|e| CliError::Internal(format!("tokio runtime: {e}")))
 }
 
+#[cfg(feature = "daemon")]
 fn run_daemon(
     config: &std::path::Path,
     broker: Option<String>,
@@ -406,6 +414,7 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 false,
             ))
         }
+        #[cfg(feature = "daemon")]
         Command::Run {
             config,
             broker,
@@ -414,6 +423,7 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             run_daemon(&config, broker, &log)?;
             Ok((serde_json::Value::Null, false))
         }
+        #[cfg(feature = "daemon")]
         Command::Replay {
             config,
             input,
@@ -442,6 +452,7 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             )?;
             Ok((serde_json::Value::String(text), false))
         }
+        #[cfg(feature = "demo-broker")]
         Command::Demo {
             speed,
             duration,

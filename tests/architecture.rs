@@ -1,0 +1,270 @@
+//! The shape of the house, checked: which modules of the crate and which external
+//! crates each part of the tree may use. A rule broken here is a design change; make
+//! it on purpose (change the table below and DEVELOPERS.md together), never by
+//! accident. The core crate's own Cargo.toml is checked too, so that the runtime, the
+//! MQTT client, logging and JSON stay out of it.
+
+use std::path::{Path, PathBuf};
+
+/// Every dependency name a source file could mention (as written in Rust paths).
+const DEPENDENCIES: &[&str] = &[
+    "anyhow",
+    "clap",
+    "eqwatch_core",
+    "nalgebra",
+    "rumqttc",
+    "rumqttd",
+    "serde",
+    "serde_json",
+    "thiserror",
+    "tokio",
+    "tokio_util",
+    "toml",
+    "tracing",
+    "tracing_subscriber",
+];
+
+/// One part of the tree: the `crate::` modules and the external crates it may use.
+struct Rule {
+    /// File or folder, relative to the repository root.
+    path: &'static str,
+    modules: &'static [&'static str],
+    crates: &'static [&'static str],
+}
+
+const CORE_MODULES: &[&str] = &[
+    "approach",
+    "bedrise",
+    "composition",
+    "equilibrium",
+    "monitor",
+    "solve",
+    "thermo",
+    "timefmt",
+    "units",
+];
+
+const RULES: &[Rule] = &[
+    // The numeric core: itself only; no runtime, network, logging or JSON.
+    Rule {
+        path: "crates/core/src",
+        modules: CORE_MODULES,
+        crates: &["thiserror", "serde", "toml", "nalgebra"],
+    },
+    // The configuration: the core's types, TOML; never the shell.
+    Rule {
+        path: "src/config",
+        modules: &[
+            "approach",
+            "composition",
+            "equilibrium",
+            "monitor",
+            "thermo",
+            "units",
+            "config",
+        ],
+        crates: &["thiserror", "serde", "toml"],
+    },
+    // SVG charts: numbers and times in, text out.
+    Rule {
+        path: "src/plot.rs",
+        modules: &["timefmt", "units", "plot"],
+        crates: &[],
+    },
+    // The invented plant: the core's models, JSON messages (its tests read the demo
+    // configuration as TOML).
+    Rule {
+        path: "src/sim.rs",
+        modules: &[
+            "approach",
+            "composition",
+            "equilibrium",
+            "thermo",
+            "timefmt",
+            "units",
+            "sim",
+        ],
+        crates: &["serde_json", "toml"],
+    },
+    // The calculator: the core and JSON; no daemon.
+    Rule {
+        path: "src/cli.rs",
+        modules: &[
+            "approach",
+            "composition",
+            "equilibrium",
+            "thermo",
+            "units",
+            "cli",
+        ],
+        crates: &["serde_json", "thiserror"],
+    },
+];
+
+/// `crate::x` module names and external crate names used in one file's code
+/// (comments and doc comments left out).
+fn uses(text: &str) -> (Vec<String>, Vec<String>) {
+    let mut modules = Vec::new();
+    let mut crates = Vec::new();
+    for line in text.lines() {
+        let code = match line.find("//") {
+            Some(i) => &line[..i],
+            None => line,
+        };
+        let mut rest = code;
+        while let Some(i) = rest.find("crate::") {
+            let after = &rest[i + "crate::".len()..];
+            let name: String = after
+                .chars()
+                .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
+                .collect();
+            // `eqwatch_core::` ends in `core::`, not `crate::`; a `crate::{a, b}` group
+            // names its modules inside the braces.
+            if name.is_empty() && after.starts_with('{') {
+                let group = after[1..].split('}').next().unwrap_or("");
+                for part in group.split(',') {
+                    let m: String = part
+                        .trim()
+                        .chars()
+                        .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
+                        .collect();
+                    if !m.is_empty() {
+                        modules.push(m);
+                    }
+                }
+            } else if !name.is_empty() {
+                modules.push(name);
+            }
+            rest = after;
+        }
+        for dep in DEPENDENCIES {
+            let mentioned = code.match_indices(dep).any(|(i, _)| {
+                let before = code[..i].chars().next_back();
+                let after = &code[i + dep.len()..];
+                let starts =
+                    before.is_none_or(|c| !(c.is_ascii_alphanumeric() || c == '_' || c == ':'));
+                starts && (after.starts_with("::") || after.starts_with(';'))
+            });
+            if mentioned {
+                crates.push((*dep).to_string());
+            }
+        }
+    }
+    (modules, crates)
+}
+
+/// Every rule broken by one file, in words.
+fn broken(rule: &Rule, file: &str, text: &str) -> Vec<String> {
+    let (modules, crates) = uses(text);
+    let mut out = Vec::new();
+    for m in modules {
+        if !rule.modules.contains(&m.as_str()) {
+            out.push(format!(
+                "{file}: uses crate::{m}, which {} may not",
+                rule.path
+            ));
+        }
+    }
+    for c in crates {
+        if !rule.crates.contains(&c.as_str()) {
+            out.push(format!(
+                "{file}: uses the crate {c}, which {} may not",
+                rule.path
+            ));
+        }
+    }
+    out.sort();
+    out.dedup();
+    out
+}
+
+fn rust_files(path: &Path, out: &mut Vec<PathBuf>) {
+    if path.is_file() {
+        out.push(path.to_path_buf());
+        return;
+    }
+    let Ok(entries) = std::fs::read_dir(path) else {
+        return;
+    };
+    for e in entries.flatten() {
+        let p = e.path();
+        if p.is_dir() {
+            rust_files(&p, out);
+        } else if p.extension().is_some_and(|x| x == "rs") {
+            out.push(p);
+        }
+    }
+}
+
+#[test]
+fn every_part_of_the_tree_keeps_to_its_imports() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let mut problems = Vec::new();
+    for rule in RULES {
+        let mut files = Vec::new();
+        rust_files(&root.join(rule.path), &mut files);
+        assert!(
+            !files.is_empty(),
+            "{} has no Rust files: update the rules",
+            rule.path
+        );
+        for f in files {
+            let text = std::fs::read_to_string(&f).expect("source file is UTF-8");
+            let name = f.strip_prefix(root).unwrap_or(&f).display().to_string();
+            problems.extend(broken(rule, &name, &text));
+        }
+    }
+    assert!(
+        problems.is_empty(),
+        "house rules broken:\n{}",
+        problems.join("\n")
+    );
+}
+
+#[test]
+fn the_core_crate_depends_on_no_runtime_client_logging_or_json() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let manifest =
+        std::fs::read_to_string(root.join("crates/core/Cargo.toml")).expect("core manifest");
+    let deps = manifest
+        .split("[dependencies]")
+        .nth(1)
+        .and_then(|s| s.split("\n[").next())
+        .expect("a [dependencies] table");
+    for line in deps.lines().map(str::trim) {
+        if line.starts_with('#') || line.is_empty() {
+            continue;
+        }
+        let name = line.split(['=', ' ']).next().unwrap_or("");
+        assert!(
+            ["thiserror", "serde", "toml", "nalgebra"].contains(&name),
+            "crates/core depends on {name}; the core takes no runtime, MQTT, logging or JSON"
+        );
+    }
+}
+
+#[test]
+fn the_checker_catches_a_broken_rule() {
+    // A core file that reached for the configuration, tokio and serde_json.
+    let rule = &RULES[0];
+    let text = "use crate::config::Settings;\nuse crate::{units, daemon};\nfn f() { tokio::spawn(async {}); let _ = serde_json::json!({}); }\n// crate::plot in a comment is fine\n";
+    let found = broken(rule, "x.rs", text);
+    assert_eq!(
+        found,
+        [
+            "x.rs: uses crate::config, which crates/core/src may not",
+            "x.rs: uses crate::daemon, which crates/core/src may not",
+            "x.rs: uses the crate serde_json, which crates/core/src may not",
+            "x.rs: uses the crate tokio, which crates/core/src may not",
+        ]
+    );
+    // The same file's allowed uses pass.
+    assert!(
+        broken(
+            rule,
+            "y.rs",
+            "use crate::units::duration_ms;\nuse thiserror::Error;\n"
+        )
+        .is_empty()
+    );
+}
