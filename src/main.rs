@@ -474,7 +474,16 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
 }
 
 fn main() -> ExitCode {
-    let args = Args::parse();
+    // A usage mistake is bad input (exit 1, as the README says); --help and --version
+    // print and exit 0.
+    let args = match Args::try_parse() {
+        Ok(a) => a,
+        Err(e) => {
+            let code = if e.use_stderr() { 1 } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
     match run(args) {
         Ok((value, json)) => {
             match value {
