@@ -145,26 +145,6 @@ pub enum CompositionSource {
     },
 }
 
-/// The analysis as validated (split into its [`AnalysisSpec`] and [`CompositionSource`]).
-#[derive(Debug, Clone)]
-struct CompositionSettings {
-    pub tag: String,
-    pub source: CompositionSource,
-    /// Default unit of the values (a message may carry its own).
-    pub unit: CompositionUnit,
-    pub basis: Basis,
-    /// Species names as the library spells them, in the analyser's order.
-    pub components: Vec<String>,
-    /// Fraction (0.02 = the components may sum to 100 ± 2 mol%).
-    pub sum_tolerance: f64,
-    /// Sample-to-report delay: the analysis is stamped at its sample time minus this.
-    pub lag: Duration,
-    pub max_age: Duration,
-    /// Per component (same order as `components`): the analyser's detection limit as a
-    /// mole fraction on the analyser's basis, where one is configured.
-    pub detection_limits: Vec<Option<f64>>,
-}
-
 #[derive(Debug, Clone)]
 enum SteamRatioSettings {
     Fixed(f64),
@@ -209,29 +189,6 @@ impl ScalarSettings {
                 topic: self.topic,
                 decoder: self.decoder,
             },
-        )
-    }
-}
-
-impl CompositionSettings {
-    fn split(self) -> (AnalysisSpec, CompositionSource) {
-        let delivery = match self.source {
-            CompositionSource::Analyser { .. } => Delivery::Whole,
-            CompositionSource::PerComponent { .. } => Delivery::PerComponent,
-        };
-        (
-            AnalysisSpec {
-                tag: self.tag,
-                delivery,
-                unit: self.unit,
-                basis: self.basis,
-                components: self.components,
-                sum_tolerance: self.sum_tolerance,
-                lag: self.lag,
-                max_age: self.max_age,
-                detection_limits: self.detection_limits,
-            },
-            self.source,
         )
     }
 }
@@ -1646,7 +1603,7 @@ fn composition(
     reactor_path: &str,
     raw: &RawComposition,
     basis: Option<Basis>,
-) -> Option<(CompositionSettings, Vec<usize>)> {
+) -> Option<(AnalysisSpec, CompositionSource, Vec<usize>)> {
     let path = format!("{reactor_path}.composition");
     let start = p.len();
     let unit = match raw.unit.as_deref() {
@@ -1863,10 +1820,14 @@ fn composition(
     if p.len() > start {
         return None;
     }
+    let delivery = match source {
+        CompositionSource::Analyser { .. } => Delivery::Whole,
+        CompositionSource::PerComponent { .. } => Delivery::PerComponent,
+    };
     Some((
-        CompositionSettings {
+        AnalysisSpec {
             tag,
-            source,
+            delivery,
             unit,
             basis,
             components: names,
@@ -1875,6 +1836,7 @@ fn composition(
             max_age,
             detection_limits,
         },
+        source,
         species,
     ))
 }
@@ -2287,7 +2249,7 @@ fn reactor(
     // The gas and the models.
     let mut model = None;
     let mut equilibrium = None;
-    if let (true, Some((comp, species))) = (reactions_ok, &composition) {
+    if let (true, Some((comp, _, species))) = (reactions_ok, &composition) {
         let mut gas = species.clone();
         if comp.basis == Basis::Dry {
             match db.index_of("H2O") {
@@ -2348,8 +2310,12 @@ fn reactor(
     if p.len() > start {
         return None;
     }
-    let (Some((composition, _)), Some(model), Some(equilibrium), Some(key_component)) =
-        (composition, model, equilibrium, key_component)
+    let (
+        Some((composition, composition_source, _)),
+        Some(model),
+        Some(equilibrium),
+        Some(key_component),
+    ) = (composition, model, equilibrium, key_component)
     else {
         return None;
     };
@@ -2358,7 +2324,6 @@ fn reactor(
         .iter()
         .map(|t| t.reaction.canonical())
         .collect();
-    let (composition, composition_source) = composition.split();
     let (temperatures, temperature_sources): (Vec<_>, Vec<_>) =
         temperatures.into_iter().map(ScalarSettings::split).unzip();
     let (pressure, pressure_source) = pressure.split();
