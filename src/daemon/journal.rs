@@ -95,6 +95,14 @@ pub struct Record {
     pub payload: String,
 }
 
+/// What [`Journal::append_batch`] did with each record.
+#[derive(Debug, Default)]
+pub struct Batch {
+    /// Per item, in order: its sequence number, or `None` when it was not kept.
+    pub seqs: Vec<Option<u64>>,
+    pub errors: Vec<JournalError>,
+}
+
 /// Counters for metrics and status. `dropped_*` and `corrupt_lines` count since `open`.
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
 pub struct JournalStats {
@@ -143,6 +151,14 @@ pub struct Journal {
     last_cursor_ms: i64,
     /// Bytes written to the current segment since its last fsync.
     unsynced: bool,
+    /// Lines of the batch being appended, not yet written to the current segment
+    /// (counted in its `bytes` and in `last_seq` already).
+    pending: Vec<u8>,
+    /// `last_seq` before the first pending line, and the batch items of the pending lines.
+    pending_from_seq: u64,
+    pending_items: Vec<usize>,
+    /// Reused buffer for one line.
+    line: String,
     dropped_records: u64,
     dropped_unpublished: u64,
     truncated_lines: u64,
@@ -231,6 +247,10 @@ impl Journal {
             last_fsync_ms: now_ms,
             last_cursor_ms: now_ms,
             unsynced: false,
+            pending: Vec::new(),
+            pending_from_seq: 0,
+            pending_items: Vec::new(),
+            line: String::new(),
             dropped_records: 0,
             dropped_unpublished: 0,
             truncated_lines,
@@ -243,13 +263,8 @@ impl Journal {
         Ok(journal)
     }
 
-    /// Appends one record with the next sequence number and returns that number.
-    ///
-    /// The line reaches the OS before this returns; it is fsynced when `fsync_interval`
-    /// has passed since the last fsync. A new segment starts when the UTC day changes or
-    /// the segment would exceed `max_file_bytes`; then whole oldest segments (never the
-    /// current one) are deleted until the total fits `max_total_bytes`. If an fsync fails
-    /// the line is already in the file (and `last_seq` counts it) but the error is returned.
+    /// Appends one record with the next sequence number and returns that number
+    /// (a batch of one: see [`Journal::append_batch`]).
     pub fn append(
         &mut self,
         now_ms: i64,
@@ -257,6 +272,69 @@ impl Journal {
         retain: bool,
         payload: &str,
     ) -> Result<u64, JournalError> {
+        let mut b = self.append_batch(now_ms, [(topic, retain, payload)]);
+        match (b.seqs.first().copied().flatten(), b.errors.pop()) {
+            (Some(seq), None) => Ok(seq),
+            (_, Some(e)) => Err(e),
+            // Not reached: every item gets a sequence number or an error.
+            (None, None) => Err(JournalError::Dir {
+                path: self.dir.clone(),
+                action: "append to",
+                source: io::Error::other("record neither written nor refused"),
+            }),
+        }
+    }
+
+    /// Appends records `(topic, retain, payload)` in order, each with the next sequence
+    /// number; `seqs[i]` is item `i`'s number, `None` when it was not kept (the reasons
+    /// are in `errors`, one per failed item or failed write).
+    ///
+    /// Durability, the same promise as one record at a time, per batch: the lines of the
+    /// batch are written with one `write` per segment they land in (not one per line),
+    /// and every line numbered in `seqs` has reached the OS before this returns; the
+    /// segment is fsynced when `fsync_interval` has passed since the last fsync (checked
+    /// once, after the batch), and always before a new segment starts. A line never
+    /// reaches the OS partially: a failed write cuts the segment back to its length
+    /// before the batch's lines, and those lines get `None` and give their sequence
+    /// numbers back. A new segment starts when the UTC day changes or the segment would
+    /// exceed `max_file_bytes`; then whole oldest segments (never the current one) are
+    /// deleted until the total fits `max_total_bytes`. If the fsync fails, the lines are
+    /// already in the file (and numbered) but the error is in `errors`.
+    pub fn append_batch<'a>(
+        &mut self,
+        now_ms: i64,
+        items: impl IntoIterator<Item = (&'a str, bool, &'a str)>,
+    ) -> Batch {
+        let mut out = Batch::default();
+        for (topic, retain, payload) in items {
+            let i = out.seqs.len();
+            out.seqs.push(None);
+            if let Err(e) = self.stage(now_ms, topic, retain, payload, i, &mut out) {
+                out.errors.push(e);
+            }
+        }
+        if let Err(e) = self.flush_pending(&mut out) {
+            out.errors.push(e);
+        }
+        if out.seqs.iter().any(Option::is_some) && self.fsync_due(now_ms) {
+            match self.sync_current() {
+                Ok(()) => self.last_fsync_ms = now_ms,
+                Err(e) => out.errors.push(e),
+            }
+        }
+        out
+    }
+
+    /// Checks one record and adds its line to the pending bytes of the current segment.
+    fn stage(
+        &mut self,
+        now_ms: i64,
+        topic: &str,
+        retain: bool,
+        payload: &str,
+        index: usize,
+        out: &mut Batch,
+    ) -> Result<(), JournalError> {
         if !(payload.starts_with('{') && payload.ends_with('}') && !payload.contains('\n')) {
             return Err(JournalError::BadPayload {
                 dir: self.dir.clone(),
@@ -272,21 +350,29 @@ impl Journal {
             });
         }
         let seq = self.last_seq + 1;
-        let mut line = line_prefix(seq, now_ms, topic, retain);
+        let mut line = std::mem::take(&mut self.line);
+        line.clear();
+        write_line_prefix(&mut line, seq, now_ms, topic, retain);
         line.push_str(payload);
         line.push_str("}\n");
         let len = line.len() as u64;
-
-        self.select_segment(day, seq, len)?;
-        self.make_room(len)?;
-        self.write_line(line.as_bytes())?;
-        self.last_seq = seq;
-
-        if self.fsync_due(now_ms) {
-            self.sync_current()?;
-            self.last_fsync_ms = now_ms;
+        let r = self
+            .select_segment(day, seq, len, out)
+            .and_then(|()| self.make_room(len));
+        if r.is_ok() {
+            if self.pending.is_empty() {
+                self.pending_from_seq = self.last_seq;
+            }
+            self.pending.extend_from_slice(line.as_bytes());
+            self.pending_items.push(index);
+            if let Some(seg) = self.segments.last_mut() {
+                seg.bytes += len;
+            }
+            self.last_seq = seq;
+            out.seqs[index] = Some(seq);
         }
-        Ok(seq)
+        self.line = line;
+        r
     }
 
     pub fn last_seq(&self) -> u64 {
@@ -445,7 +531,13 @@ impl Journal {
 
     /// Makes the last segment the right one for a line of `len` bytes with sequence `seq`
     /// written on UTC day `day`, and opens it for appending.
-    fn select_segment(&mut self, day: i64, seq: u64, len: u64) -> Result<(), JournalError> {
+    fn select_segment(
+        &mut self,
+        day: i64,
+        seq: u64,
+        len: u64,
+        out: &mut Batch,
+    ) -> Result<(), JournalError> {
         let rotate = match self.segments.last() {
             None => true,
             Some(seg) => {
@@ -455,6 +547,7 @@ impl Journal {
         };
         if rotate {
             // The finished segment is made durable before the next one exists.
+            self.flush_pending(out)?;
             self.sync_current()?;
             self.current = None;
             if self.segments.last().is_some_and(|seg| seg.bytes == 0) {
@@ -504,30 +597,48 @@ impl Journal {
         Ok(())
     }
 
-    /// Writes one whole line to the current segment; on failure cuts the segment back to
-    /// its previous length so no partial line stays behind.
-    fn write_line(&mut self, line: &[u8]) -> Result<(), JournalError> {
+    /// Writes the pending lines to the current segment in one go; on failure cuts the
+    /// segment back to its length before them (so no partial line stays behind), gives
+    /// their sequence numbers back and marks their items not kept.
+    fn flush_pending(&mut self, out: &mut Batch) -> Result<(), JournalError> {
+        if self.pending.is_empty() {
+            return Ok(());
+        }
+        let pending = self.pending.len() as u64;
         let (Some(file), Some(seg)) = (self.current.as_mut(), self.segments.last_mut()) else {
-            // select_segment always leaves an open current segment.
+            // Not reached: a line is staged only with an open current segment.
             return Err(JournalError::Dir {
                 path: self.dir.clone(),
                 action: "find the current segment in",
                 source: io::Error::other("no open segment"),
             });
         };
-        if let Err(source) = file.write_all(line) {
-            let _ = file.set_len(seg.bytes);
-            let path = seg.path.clone();
-            self.current = None;
-            return Err(JournalError::Io {
-                path,
-                action: "append to",
-                source,
-            });
+        let written = file.write_all(&self.pending);
+        self.pending.clear();
+        match written {
+            Ok(()) => {
+                self.pending_items.clear();
+                self.unsynced = true;
+                Ok(())
+            }
+            Err(source) => {
+                seg.bytes -= pending;
+                let _ = file.set_len(seg.bytes);
+                let path = seg.path.clone();
+                self.current = None;
+                self.last_seq = self.pending_from_seq;
+                for i in self.pending_items.drain(..) {
+                    if let Some(s) = out.seqs.get_mut(i) {
+                        *s = None;
+                    }
+                }
+                Err(JournalError::Io {
+                    path,
+                    action: "append to",
+                    source,
+                })
+            }
         }
-        seg.bytes += line.len() as u64;
-        self.unsynced = true;
-        Ok(())
     }
 
     /// Replaces a cursor file atomically: temporary file, fsync, rename, fsync directory.
@@ -729,10 +840,15 @@ fn sync_dir(dir: &Path) -> Result<(), JournalError> {
 /// Everything in a line before the payload text: `{"seq":..,"ts_ms":..,"topic":..,"retain":..,"payload":`.
 fn line_prefix(seq: u64, ts_ms: i64, topic: &str, retain: bool) -> String {
     let mut s = String::with_capacity(64 + topic.len());
-    let _ = write!(s, "{{\"seq\":{seq},\"ts_ms\":{ts_ms},\"topic\":");
-    push_json_string(&mut s, topic);
-    let _ = write!(s, ",\"retain\":{retain},\"payload\":");
+    write_line_prefix(&mut s, seq, ts_ms, topic, retain);
     s
+}
+
+/// [`line_prefix`] appended to `s`.
+fn write_line_prefix(s: &mut String, seq: u64, ts_ms: i64, topic: &str, retain: bool) {
+    let _ = write!(s, "{{\"seq\":{seq},\"ts_ms\":{ts_ms},\"topic\":");
+    push_json_string(s, topic);
+    let _ = write!(s, ",\"retain\":{retain},\"payload\":");
 }
 
 /// Appends `text` as a JSON string literal. Deterministic, so a line's prefix can be
@@ -891,6 +1007,47 @@ mod tests {
         let st = j.stats();
         assert_eq!((st.files, st.last_seq, st.backlog), (1, 3, 3));
         assert_eq!(st.bytes, text.len() as u64);
+    }
+
+    #[test]
+    fn a_batch_numbers_in_order_skips_refused_items_and_rotates_inside() {
+        let tmp = tempfile::tempdir().expect("tempdir");
+        // One line is about 110 bytes: two fit in 250.
+        let s = settings(tmp.path(), 250, 1 << 24, 0);
+        let mut j = Journal::open(&s, T0).expect("open");
+        let (p1, p2, p3, p4) = (payload(1), payload(2), payload(3), payload(4));
+        let b = j.append_batch(
+            T0,
+            [
+                ("t", false, p1.as_str()),
+                ("t", false, "not json"),
+                ("t", true, p2.as_str()),
+                ("t", false, p3.as_str()),
+                ("t", false, p4.as_str()),
+            ],
+        );
+        assert_eq!(b.seqs, vec![Some(1), None, Some(2), Some(3), Some(4)]);
+        assert_eq!(b.errors.len(), 1);
+        assert!(matches!(b.errors[0], JournalError::BadPayload { .. }));
+        assert_eq!(
+            segment_names(&s.dir),
+            vec![
+                "eqwatch-20240301-000000000001.jsonl",
+                "eqwatch-20240301-000000000003.jsonl",
+            ]
+        );
+        let all = j.read_after(0, 10).expect("read");
+        assert_eq!(seqs(&all), vec![1, 2, 3, 4]);
+        assert_eq!(
+            (all[1].payload.as_str(), all[1].retain),
+            (p2.as_str(), true)
+        );
+        let on_disk: u64 = segment_names(&s.dir)
+            .iter()
+            .map(|n| fs::metadata(s.dir.join(n)).expect("meta").len())
+            .sum();
+        assert_eq!(j.stats().bytes, on_disk);
+        assert_eq!(j.append(T0, "t", false, "{}").expect("append"), 5);
     }
 
     #[test]

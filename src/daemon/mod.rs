@@ -228,16 +228,29 @@ fn journal_thread(
     while let Some(cmd) = rx.blocking_recv() {
         match cmd {
             JournalCmd::Append(items) => {
+                // One write for the whole batch (see `Journal::append_batch`).
+                let now = clock();
+                let batch = j.append_batch(
+                    now,
+                    items
+                        .iter()
+                        .map(|a| (a.topic.as_str(), a.retain, a.payload.as_str())),
+                );
+                for e in &batch.errors {
+                    error!(error = %e, "journal append failed; result not kept");
+                }
                 let mut out = Vec::with_capacity(items.len());
-                for Append {
-                    topic,
-                    retain,
-                    payload,
-                } in items
+                for (
+                    Append {
+                        topic,
+                        retain,
+                        payload,
+                    },
+                    seq,
+                ) in items.into_iter().zip(batch.seqs)
                 {
-                    let now = clock();
-                    match j.append(now, &topic, retain, &payload) {
-                        Ok(seq) => out.push(Outgoing {
+                    match seq {
+                        Some(seq) => out.push(Outgoing {
                             seq,
                             ts_ms: now,
                             topic,
@@ -245,9 +258,8 @@ fn journal_thread(
                             payload,
                             replayed: false,
                         }),
-                        Err(e) => {
+                        None => {
                             metrics.journal_errors.fetch_add(1, Relaxed);
-                            error!(error = %e, topic = %topic, "journal append failed; result not kept");
                         }
                     }
                 }

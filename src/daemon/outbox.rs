@@ -41,6 +41,10 @@ pub struct Outbox {
     awaiting_pkid: VecDeque<u64>,
     by_pkid: HashMap<u16, u64>,
     acked_ahead: BTreeSet<u64>,
+    /// Ranges (first, last) the journal no longer holds (deleted by its size cap before
+    /// they were published): nothing will ever acknowledge them, so the watermark steps
+    /// over them.
+    lost: VecDeque<(u64, u64)>,
     watermark: u64,
     next_expected: u64,
     capacity: usize,
@@ -59,6 +63,7 @@ impl Outbox {
             awaiting_pkid: VecDeque::new(),
             by_pkid: HashMap::new(),
             acked_ahead: BTreeSet::new(),
+            lost: VecDeque::new(),
             watermark: published,
             next_expected: published + 1,
             capacity: capacity.max(1),
@@ -94,8 +99,18 @@ impl Outbox {
         if r.seq < self.next_expected {
             return Offer::Duplicate;
         }
-        if r.seq > self.next_expected || self.queue.len() >= self.capacity {
+        if self.queue.len() >= self.capacity {
             return Offer::Deferred;
+        }
+        if r.seq > self.next_expected {
+            if !r.replayed {
+                return Offer::Deferred;
+            }
+            // Read back from the journal after `next_expected - 1`: the journal returns its
+            // records in order, so the ones before this are no longer on disk (its size
+            // cap deleted them). Waiting for them would ask for the same read forever.
+            self.lost.push_back((self.next_expected, r.seq - 1));
+            self.advance();
         }
         self.next_expected = r.seq + 1;
         self.queue.push_back(r);
@@ -165,10 +180,25 @@ impl Outbox {
         }
         self.acked_ahead.insert(seq);
         let before = self.watermark;
-        while self.acked_ahead.remove(&(self.watermark + 1)) {
-            self.watermark += 1;
-        }
+        self.advance();
         (self.watermark != before).then_some(self.watermark)
+    }
+
+    /// Moves the watermark over everything acknowledged or lost just above it.
+    fn advance(&mut self) {
+        loop {
+            if self.acked_ahead.remove(&(self.watermark + 1)) {
+                self.watermark += 1;
+                continue;
+            }
+            match self.lost.front() {
+                Some(&(first, last)) if first <= self.watermark + 1 => {
+                    self.watermark = self.watermark.max(last);
+                    self.lost.pop_front();
+                }
+                _ => break,
+            }
+        }
     }
 
     /// The connection came back without the old session: what was handed and not
@@ -238,6 +268,31 @@ mod tests {
         assert_eq!(o.on_ack(7), Some(11));
         o.on_new_session();
         assert_eq!(send_all(&mut o, 10), vec![12, 13, 14, 15]);
+    }
+
+    #[test]
+    fn records_the_journal_no_longer_holds_are_stepped_over() {
+        // 1..=2 published; 3..=6 were deleted by the journal's size cap before they went
+        // out, so a read after 2 returns 7 first.
+        let mut o = Outbox::new(2, 100);
+        o.journal_at(8);
+        assert_eq!(o.wants_read(), Some(2));
+        let replayed = |s| Outgoing {
+            replayed: true,
+            ..rec(s)
+        };
+        assert_eq!(o.offer(replayed(7)), Offer::Accepted);
+        assert_eq!(o.offer(replayed(8)), Offer::Accepted);
+        o.read_done();
+        assert_eq!(o.wants_read(), None, "nothing more to read");
+        assert_eq!(o.watermark(), 6, "the lost range counts as done");
+        assert_eq!(send_all(&mut o, 10), vec![7, 8]);
+        o.on_outgoing(1);
+        o.on_outgoing(2);
+        assert_eq!(o.on_ack(2), None);
+        assert_eq!(o.on_ack(1), Some(8));
+        // A live record past a gap still waits for the read (the gap is on disk).
+        assert_eq!(o.offer(rec(10)), Offer::Deferred);
     }
 
     #[test]
