@@ -810,34 +810,50 @@ mod tests {
         assert!(a.flags.has(Flags::BAD_INPUT) && a.approach_k.is_none());
     }
 
-    /// The DOMAIN §8 LTS gas (dry, S/D 0.36312, 30 bar abs) at `t` kelvin.
-    fn lts_gas_at(t: f64, source: KSourceId, unc: &Uncertainty) -> Approach {
-        let db = SpeciesDb::builtin();
-        let r = parse_reaction("CO + H2O = CO2 + H2", &db).unwrap();
-        let k = KModel::from_correlation(source, &r, &db).unwrap();
-        let c = parse_components(
-            "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921",
-            CompositionUnit::Percent,
-        )
-        .unwrap();
+    /// The first reaction's approach for a dry analysis (mol%) with its steam ratio, at
+    /// `t_k` and `p_bar` absolute, ideal gas.
+    fn dry_gas_approach(
+        db: &SpeciesDb,
+        reactions: Vec<(Reaction, KModel)>,
+        dry: &str,
+        steam_ratio: f64,
+        (t_k, p_bar): (f64, f64),
+        unc: &Uncertainty,
+    ) -> Approach {
+        let c = parse_components(dry, CompositionUnit::Percent).unwrap();
         let w = to_wet(
-            &db,
+            db,
             &c,
             Basis::Dry,
-            Some(WaterSource::SteamRatio(0.36312)),
+            Some(WaterSource::SteamRatio(steam_ratio)),
             0.02,
         )
         .unwrap();
-        let model = ReactorModel::new(&db, vec![(r, k)], &w.species, EosKind::Ideal, None).unwrap();
+        let model = ReactorModel::new(db, reactions, &w.species, EosKind::Ideal, None).unwrap();
         let state = GasState {
-            temperature_k: t,
-            pressure_bar: 30.0,
+            temperature_k: t_k,
+            pressure_bar: p_bar,
             y: &w.y,
             steam_ratio: w.steam_ratio.zip(w.added_water),
         };
         let mut s = model.scratch();
         model.fugacity(&state, &mut s);
         model.evaluate(0, &state, &s, unc)
+    }
+
+    /// The DOMAIN §8 LTS gas (dry, S/D 0.36312, 30 bar abs) at `t` kelvin.
+    fn lts_gas_at(t: f64, source: KSourceId, unc: &Uncertainty) -> Approach {
+        let db = SpeciesDb::builtin();
+        let r = parse_reaction("CO + H2O = CO2 + H2", &db).unwrap();
+        let k = KModel::from_correlation(source, &r, &db).unwrap();
+        dry_gas_approach(
+            &db,
+            vec![(r, k)],
+            "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921",
+            0.36312,
+            (t, 30.0),
+            unc,
+        )
     }
 
     /// README quick start: thermocouple ±2 K, analyser ±2 % of reading, steam ratio ±5 %.
@@ -990,29 +1006,14 @@ mod tests {
             composition_rel: 0.02,
             steam_ratio_rel: 0.05,
         };
-        let c = parse_components(
-            "CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668",
-            CompositionUnit::Percent,
-        )
-        .unwrap();
-        let w = to_wet(
+        let a = dry_gas_approach(
             &db,
-            &c,
-            Basis::Dry,
-            Some(WaterSource::SteamRatio(0.63549)),
-            0.02,
-        )
-        .unwrap();
-        let model = ReactorModel::new(&db, reactions, &w.species, EosKind::Ideal, None).unwrap();
-        let state = GasState {
-            temperature_k: 808.0 + 273.15,
-            pressure_bar: 30.0,
-            y: &w.y,
-            steam_ratio: w.steam_ratio.zip(w.added_water),
-        };
-        let mut s = model.scratch();
-        model.fugacity(&state, &mut s);
-        let a = model.evaluate(0, &state, &s, &unc);
+            reactions,
+            "CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668",
+            0.63549,
+            (808.0 + 273.15, 30.0),
+            &unc,
+        );
         let b = a.uncertainty_budget_k.unwrap();
         let u = a.approach_uncertainty_k.unwrap();
         let sum: f64 = b.parts().iter().map(|(_, x)| x * x).sum();
