@@ -1,6 +1,6 @@
 //! Writes invented plant history for the demo plant (Brackwater Ammonia Works, train 1)
 //! as CSV for `eqwatch replay`: one row per minute, every input of
-//! config/demo-plant.toml, with the year scenario of `eqwatch::sim::YEAR_SCENARIO`.
+//! config/demo-plant.toml, with the year scenario of `eqwatch::demo::sim::YEAR_SCENARIO`.
 //!
 //! ```text
 //! cargo run --release --example gen_history -- [--start 2026-01-01T00:00:00Z] [--days 365]
@@ -15,7 +15,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 use std::time::Instant;
 
-use eqwatch::sim::{HistoryOptions, write_history_with_progress};
+use eqwatch::demo::sim::{HistoryOptions, write_history_with_progress};
 use eqwatch::timefmt::parse_rfc3339;
 
 const USAGE: &str = "\

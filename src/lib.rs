@@ -22,12 +22,16 @@ pub use eqwatch_core::{
 };
 
 pub mod config;
+pub mod demo;
 pub mod plot;
-pub mod sim;
 
 #[cfg(feature = "cli")]
 pub mod cli;
 #[cfg(feature = "daemon")]
 pub mod daemon;
-#[cfg(feature = "daemon")]
+#[cfg(feature = "cli")]
+pub mod pipeline;
+#[cfg(feature = "cli")]
 pub mod replay;
+#[cfg(feature = "cli")]
+pub mod wire;

@@ -122,7 +122,6 @@ enum Command {
         log: LogArgs,
     },
     /// Run a CSV of plant history through the daemon's processing path; results and plots.
-    #[cfg(feature = "daemon")]
     Replay {
         #[arg(long)]
         config: PathBuf,
@@ -178,7 +177,6 @@ enum Command {
     },
 }
 
-#[cfg(feature = "daemon")]
 #[derive(clap::Args, Debug, Clone)]
 struct LogArgs {
     /// Log format: text or json (one object per line, for journald and log shippers).
@@ -190,7 +188,6 @@ struct LogArgs {
 }
 
 /// Sets up logging: on stderr (colour only on a terminal), or into `file` (no colour).
-#[cfg(feature = "daemon")]
 fn init_tracing(log: &LogArgs, file: Option<&std::path::Path>) -> Result<(), CliError> {
     let level: tracing::Level = log.log_level.parse().map_err(|_| {
         CliError::Input(format!(
@@ -423,7 +420,6 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             run_daemon(&config, broker, &log)?;
             Ok((serde_json::Value::Null, false))
         }
-        #[cfg(feature = "daemon")]
         Command::Replay {
             config,
             input,
@@ -461,13 +457,13 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             keep,
             log,
         } => {
-            let work = eqwatch::daemon::demo::Workdir::prepare(workdir, keep)?;
+            let work = eqwatch::demo::runner::Workdir::prepare(workdir, keep)?;
             if let Err(e) = init_tracing(&log, Some(&work.log_file())) {
                 let _ = work.discard();
                 return Err(e);
             }
             let rt = runtime()?;
-            rt.block_on(eqwatch::daemon::demo::run(speed, &duration, broker, work))?;
+            rt.block_on(eqwatch::demo::runner::run(speed, &duration, broker, work))?;
             Ok((serde_json::Value::Null, false))
         }
     }

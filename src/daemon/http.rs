@@ -11,7 +11,7 @@ use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::net::TcpListener;
 use tokio_util::sync::CancellationToken;
 
-use super::metrics::Metrics;
+use crate::pipeline::metrics::Metrics;
 
 /// Binds the listener (errors here are configuration errors) and serves until cancelled.
 pub async fn bind(addr: SocketAddr) -> std::io::Result<TcpListener> {

@@ -12,19 +12,13 @@
 //! A result is in the journal before the link sees it; the link publishes with QoS 1 and
 //! tells the journal what the broker acknowledged, so a restart resends the rest.
 
-#[cfg(feature = "demo-broker")]
-pub mod broker;
-pub mod demo;
-pub mod engine;
 pub mod http;
 pub mod journal;
-pub mod metrics;
 pub mod mqtt;
 pub mod outbox;
-pub mod payload;
-pub mod proxy;
 pub mod state;
-pub mod watch_payload;
+
+pub use crate::pipeline::{Append, RawInput};
 
 use std::sync::Arc;
 use std::sync::atomic::Ordering::Relaxed;
@@ -35,8 +29,8 @@ use tokio_util::sync::CancellationToken;
 use tracing::{error, info, warn};
 
 use crate::config::Settings;
+use crate::pipeline::metrics::Metrics;
 use journal::Journal;
-use metrics::Metrics;
 use outbox::Outgoing;
 
 /// Milliseconds since the Unix epoch (the shell's one clock).
@@ -55,14 +49,6 @@ pub fn wall_clock() -> Clock {
     Arc::new(now_ms)
 }
 
-/// A message as it came from the broker.
-#[derive(Debug, Clone)]
-pub struct RawInput {
-    pub topic: String,
-    pub payload: Vec<u8>,
-    pub arrival_ms: i64,
-}
-
 /// Requests waiting for the journal thread at most (each holds one result).
 const JOURNAL_QUEUE: usize = 64;
 /// Inputs the evaluator takes per wake-up at most.
@@ -70,14 +56,6 @@ const EVALUATOR_BATCH: usize = 64;
 /// Batches of journal records (each at most one evaluator batch) waiting for the link
 /// at most: bounds the memory a flood can hold between journal and link.
 const LINK_QUEUE: usize = 128;
-
-/// One result to journal.
-#[derive(Debug)]
-pub struct Append {
-    pub topic: String,
-    pub retain: bool,
-    pub payload: String,
-}
 
 /// Requests to the journal thread.
 #[derive(Debug)]
@@ -124,7 +102,7 @@ pub enum DaemonError {
 /// Decodes, evaluates and journals until the input channel closes; ticks the watch
 /// timers (shelf expiry, data quality, chattering, stale, flood) once a second.
 async fn evaluate_loop(
-    mut engine: engine::Engine,
+    mut engine: crate::pipeline::Engine,
     mut rx: mpsc::Receiver<RawInput>,
     journal: mpsc::Sender<JournalCmd>,
     clock: Clock,
@@ -354,15 +332,15 @@ pub async fn run(
     let status_topic = format!("{}/status", settings.topic_prefix);
     let started = crate::timefmt::format_rfc3339(clock());
     let status = |state: &str, reason: &str| {
-        serde_json::json!({"state": state, "reason": reason, "version": env!("CARGO_PKG_VERSION"), "site": settings.site, "started": started, "advisory": payload::ADVISORY_SHORT}).to_string()
+        serde_json::json!({"state": state, "reason": reason, "version": env!("CARGO_PKG_VERSION"), "site": settings.site, "started": started, "advisory": crate::wire::result::ADVISORY_SHORT}).to_string()
     };
     let opts = mqtt::options(
         &settings.broker,
         &status_topic,
         &status("offline", "connection lost"),
     )?;
-    let engine =
-        engine::Engine::new(settings.clone(), metrics.clone()).map_err(DaemonError::Journal)?;
+    let engine = crate::pipeline::Engine::new(settings.clone(), metrics.clone())
+        .map_err(DaemonError::Journal)?;
     let topics = engine.subscriptions();
     let cap = usize::from(settings.broker.inflight) + topics.len() + 64;
     let (client, mut eventloop) = rumqttc::AsyncClient::new(opts, cap);

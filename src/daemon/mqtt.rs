@@ -21,11 +21,11 @@ use tokio::sync::mpsc;
 use tokio_util::sync::CancellationToken;
 use tracing::{debug, info, warn};
 
-use super::metrics::Metrics;
 use super::outbox::{Offer, Outbox};
-use super::payload::with_delivery;
 use super::{Clock, JournalCmd, RawInput, ToLink, now_ms};
 use crate::config::{BrokerSettings, MqttProtocol};
+use crate::pipeline::metrics::Metrics;
+use crate::wire::result::with_delivery;
 
 /// A connection that stayed up this long resets the backoff.
 const STABLE: Duration = Duration::from_secs(10);

@@ -13,10 +13,10 @@
 
 use serde_json::{Value, json};
 
-use super::engine::Engine;
 use crate::monitor::alarm::{AlarmSnapshot, Mode, State};
 use crate::monitor::drift::{CusumSide, CusumState, Shift};
 use crate::monitor::watch::{Baseline, DriftSnapshot, Step};
+use crate::pipeline::Engine;
 
 fn state_name(s: State) -> &'static str {
     match s {

@@ -67,7 +67,7 @@ fn demo_against_mosquitto_raises_an_alarm_and_alerts_and_writes_plots() {
     let tmp = tempfile::tempdir().expect("temp dir");
     let work = tmp.path().join("demo-run");
     // 35 s at 120 simulated s per s: 70 minutes of plant time. The invented demo
-    // scenario (src/sim.rs): the reformer's sulphur step at 30 min takes ref1 from 8 K to
+    // scenario (src/demo/sim.rs): the reformer's sulphur step at 30 min takes ref1 from 8 K to
     // 25 K over 5 min; TI-305B on lts1 stops reporting at 15 min; analyses every 5 min.
     let out = Command::new(env!("CARGO_BIN_EXE_eqwatch"))
         .args([

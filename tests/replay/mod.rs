@@ -234,11 +234,11 @@ fn a_day_of_demo_history_replays_byte_identically_with_plots() {
     let dir = tempfile::tempdir().unwrap();
     let input = dir.path().join("day.csv");
     let mut f = std::io::BufWriter::new(std::fs::File::create(&input).unwrap());
-    let opts = eqwatch::sim::HistoryOptions {
+    let opts = eqwatch::demo::sim::HistoryOptions {
         days: 1,
         ..Default::default()
     };
-    eqwatch::sim::write_history(&opts, &mut f).unwrap();
+    eqwatch::demo::sim::write_history(&opts, &mut f).unwrap();
     drop(f);
     let config = Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml");
     let (a, b) = (dir.path().join("a.jsonl"), dir.path().join("b.jsonl"));
@@ -251,7 +251,7 @@ fn a_day_of_demo_history_replays_byte_identically_with_plots() {
     let (x, y) = (std::fs::read(&a).unwrap(), std::fs::read(&b).unwrap());
     assert!(!x.is_empty());
     assert!(x == y, "two replays of the same file differ");
-    // 1440 rows, 288 analyses per analyser = 5 × 288 results [invented demo scenario, src/sim.rs].
+    // 1440 rows, 288 analyses per analyser = 5 × 288 results [invented demo scenario, src/demo/sim.rs].
     let text = String::from_utf8(x).unwrap();
     let results = text.lines().filter(|l| l.contains("/result\"")).count();
     assert_eq!(results, 5 * 288, "{stdout}");
@@ -342,19 +342,19 @@ fn a_daemon_restart_keeps_the_learned_baseline() {
     assert_eq!(next["drift"]["baseline_k"].as_f64().unwrap(), baseline);
 }
 
-/// Replays days `first_day..first_day + days` of the invented demo year (src/sim.rs,
+/// Replays days `first_day..first_day + days` of the invented demo year (src/demo/sim.rs,
 /// `YEAR_SCENARIO`) through the demo configuration; returns every alert and alarm event
 /// as (time, reactor, alarm, event, value, limit).
 fn scenario_events(first_day: u32, days: u32) -> Vec<(String, String, String, String, f64, f64)> {
     let dir = tempfile::tempdir().unwrap();
     let input = dir.path().join("weeks.csv");
     let mut f = std::io::BufWriter::new(std::fs::File::create(&input).unwrap());
-    let opts = eqwatch::sim::HistoryOptions {
+    let opts = eqwatch::demo::sim::HistoryOptions {
         first_day,
         days,
         ..Default::default()
     };
-    eqwatch::sim::write_history(&opts, &mut f).unwrap();
+    eqwatch::demo::sim::write_history(&opts, &mut f).unwrap();
     drop(f);
     let config = Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml");
     let out = dir.path().join("out.jsonl");

@@ -4,7 +4,7 @@
 use std::fmt::Write;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering::Relaxed};
 
-use super::payload::DecodeError;
+use crate::wire::input::DecodeError;
 
 /// Per-reactor figures.
 #[derive(Debug, Default)]

@@ -1,45 +1,20 @@
-//! The engineer's calculator: `eqwatch calc`, `eqwatch equilibrium`, `eqwatch species`.
-//!
-//! Turns command-line text into core calls and results into JSON (key names carry
-//! units, DESIGN §4) or a readable table. Errors are [`CliError::Input`] (exit 1,
-//! the message says what to fix) or [`CliError::Internal`] (exit 2).
+//! `eqwatch calc`: one analysis at one temperature and pressure against K(T): Q, Q/K,
+//! direction, affinity, equilibrium temperature and approach with its uncertainty,
+//! as JSON or as a table in the engineer's temperature unit.
 
 use serde_json::{Map, Value, json};
-use thiserror::Error;
 
+use super::{CliError, finite, input, opt, parse_eos, reactions_with_k};
 use crate::approach::{Approach, Flags, GasState, ReactorModel, Uncertainty};
 use crate::composition::{Basis, Component, WaterSource, parse_components, to_wet};
-use crate::equilibrium::{EosKind, EquilibriumSystem};
-use crate::thermo::ksource::{KModel, KSourceId};
-use crate::thermo::reaction::{Reaction, parse_reaction, unknown_hint};
-use crate::thermo::species::{ELEMENTS, SpeciesDb};
+use crate::equilibrium::EquilibriumSystem;
+use crate::thermo::ksource::KModel;
+use crate::thermo::reaction::{Reaction, unknown_hint};
+use crate::thermo::species::SpeciesDb;
 use crate::units::{
     CompositionUnit, TemperatureUnit, parse_pressure_with_atmosphere, parse_temperature,
     split_quantity,
 };
-
-#[derive(Debug, Error)]
-pub enum CliError {
-    /// Bad input or configuration: exit 1.
-    #[error("{0}")]
-    Input(String),
-    /// A failure of ours: exit 2.
-    #[error("internal error: {0}")]
-    Internal(String),
-}
-
-impl CliError {
-    pub fn exit_code(&self) -> i32 {
-        match self {
-            Self::Input(_) => 1,
-            Self::Internal(_) => 2,
-        }
-    }
-}
-
-fn input<E: std::fmt::Display>(e: E) -> CliError {
-    CliError::Input(e.to_string())
-}
 
 /// Inputs of `eqwatch calc`, as text from the command line.
 #[derive(Debug, Clone, Default)]
@@ -95,51 +70,6 @@ pub fn parse_uncertainty(text: &str) -> Result<Uncertainty, CliError> {
         }
     }
     Ok(u)
-}
-
-fn parse_eos(s: &str) -> Result<EosKind, CliError> {
-    EosKind::parse(s)
-        .ok_or_else(|| CliError::Input(format!("--eos `{s}`: expected ideal or peng-robinson")))
-}
-
-/// Parses the reactions and builds their K models (`k_sources`: none = species data,
-/// one = for every reaction, else one per reaction).
-fn reactions_with_k(
-    db: &SpeciesDb,
-    reactions: &[String],
-    k_sources: &[String],
-) -> Result<Vec<(Reaction, KModel)>, CliError> {
-    if reactions.is_empty() {
-        return Err(CliError::Input(
-            "give a reaction, e.g. --reaction \"N2 + 3 H2 = 2 NH3\"".into(),
-        ));
-    }
-    if k_sources.len() > 1 && k_sources.len() != reactions.len() {
-        return Err(CliError::Input(format!(
-            "{} K sources for {} reactions: give one for all, or one per reaction",
-            k_sources.len(),
-            reactions.len()
-        )));
-    }
-    let mut out = Vec::with_capacity(reactions.len());
-    for (i, text) in reactions.iter().enumerate() {
-        let r = parse_reaction(text, db).map_err(input)?;
-        let id = match k_sources.get(i).or_else(|| k_sources.first()) {
-            Some(s) => KSourceId::parse(s).map_err(input)?,
-            None => KSourceId::SpeciesData,
-        };
-        let k = KModel::from_correlation(id, &r, db).map_err(input)?;
-        out.push((r, k));
-    }
-    Ok(out)
-}
-
-fn finite(x: f64) -> Value {
-    if x.is_finite() { json!(x) } else { Value::Null }
-}
-
-fn opt(x: Option<f64>) -> Value {
-    x.map_or(Value::Null, finite)
 }
 
 fn flag_list(flags: Flags) -> Value {
@@ -498,240 +428,6 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
 }
 
 /// Inputs of `eqwatch equilibrium`.
-#[derive(Debug, Clone, Default)]
-pub struct EquilibriumInput {
-    pub species: String,
-    pub feed: String,
-    pub temperature: String,
-    pub pressure: String,
-    pub inert: Option<String>,
-    pub eos: String,
-    pub reactions: Vec<String>,
-    pub k_sources: Vec<String>,
-}
-
-fn species_list(db: &SpeciesDb, text: &str, what: &str) -> Result<Vec<usize>, CliError> {
-    let mut out = Vec::new();
-    for n in text.split(',').map(str::trim).filter(|s| !s.is_empty()) {
-        let i = db.index_of(n).ok_or_else(|| {
-            CliError::Input(format!(
-                "{what}: unknown species `{n}`{}",
-                unknown_hint(db, n)
-            ))
-        })?;
-        if out.contains(&i) {
-            return Err(CliError::Input(format!("{what}: {n} is listed twice")));
-        }
-        out.push(i);
-    }
-    Ok(out)
-}
-
-/// `eqwatch equilibrium`.
-pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliError> {
-    let t = parse_temperature(&inp.temperature)
-        .map_err(|e| CliError::Input(format!("--temperature: {e}")))?;
-    let p = parse_pressure_with_atmosphere(&inp.pressure, crate::units::STANDARD_ATMOSPHERE_BAR)
-        .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
-    let eos = parse_eos(&inp.eos)?;
-    let reactive = species_list(db, &inp.species, "--species")?;
-    if reactive.is_empty() {
-        return Err(CliError::Input(
-            "--species: give the species that may react, e.g. \"CH4,H2O,CO,CO2,H2\"".into(),
-        ));
-    }
-    let inert = match &inp.inert {
-        Some(t) => species_list(db, t, "--inert")?,
-        None => Vec::new(),
-    };
-    if let Some(s) = inert.iter().find(|s| reactive.contains(s)) {
-        return Err(CliError::Input(format!(
-            "{} is in --species and --inert; give it once",
-            db.get(*s).name
-        )));
-    }
-    let sys = if inp.reactions.is_empty() {
-        if !inp.k_sources.is_empty() {
-            return Err(CliError::Input(
-                "--k-source needs --reaction (species data are used otherwise)".into(),
-            ));
-        }
-        EquilibriumSystem::from_species(db, &reactive, &inert, eos, None).map_err(input)?
-    } else {
-        let rx = reactions_with_k(db, &inp.reactions, &inp.k_sources)?;
-        for (r, _) in &rx {
-            if let Some(s) = r.species.iter().find(|s| !reactive.contains(s)) {
-                return Err(CliError::Input(format!(
-                    "species {} of `{}` is not in --species",
-                    db.get(*s).name,
-                    r.canonical()
-                )));
-            }
-        }
-        let mut all = reactive.clone();
-        all.extend(&inert);
-        EquilibriumSystem::from_reactions(db, &rx, &all, eos, None).map_err(input)?
-    };
-    let feed = parse_components(&inp.feed, CompositionUnit::Fraction).map_err(input)?;
-    let mut moles = vec![0.0; sys.species().len()];
-    for c in &feed {
-        let i = db.index_of(&c.species).ok_or_else(|| {
-            CliError::Input(format!(
-                "--feed: unknown species `{}`{}",
-                c.species,
-                unknown_hint(db, &c.species)
-            ))
-        })?;
-        let pos = sys.species().iter().position(|s| *s == i).ok_or_else(|| {
-            CliError::Input(format!(
-                "--feed: {} is neither in --species nor in --inert",
-                db.get(i).name
-            ))
-        })?;
-        if !(c.value.is_finite() && c.value >= 0.0) {
-            return Err(CliError::Input(format!(
-                "--feed: {} = {} must be zero or more",
-                c.species, c.value
-            )));
-        }
-        moles[pos] += c.value * c.unit.fraction_per_unit();
-    }
-    if moles.iter().sum::<f64>() <= 0.0 {
-        return Err(CliError::Input(
-            "--feed: give some moles, e.g. \"CH4=1,H2O=3\"".into(),
-        ));
-    }
-    let r = sys.solve(db, t, p, &moles);
-    if !r.converged {
-        return Err(CliError::Internal(format!(
-            "equilibrium did not converge: {}",
-            r.reason
-        )));
-    }
-    let mut y = Map::new();
-    for (n, v) in sys.names().iter().zip(&r.mole_fractions) {
-        y.insert(n.clone(), finite(*v));
-    }
-    let mut out = Map::new();
-    out.insert("temperature_k".into(), json!(t));
-    out.insert("pressure_bar".into(), json!(p));
-    out.insert("eos".into(), json!(eos.as_str()));
-    out.insert("mole_fractions".into(), Value::Object(y));
-    if let Some(w) = sys.names().iter().position(|n| n == "H2O") {
-        let yw = r.mole_fractions[w];
-        let mut d = Map::new();
-        for (i, (n, v)) in sys.names().iter().zip(&r.mole_fractions).enumerate() {
-            if i != w {
-                d.insert(n.clone(), finite(v / (1.0 - yw)));
-            }
-        }
-        out.insert("dry_mole_fractions".into(), Value::Object(d));
-        out.insert("steam_to_dry_gas_ratio".into(), finite(yw / (1.0 - yw)));
-    }
-    let mut phi = Map::new();
-    for (n, lp) in sys.names().iter().zip(&r.ln_phi) {
-        phi.insert(n.clone(), finite(lp.exp()));
-    }
-    out.insert("fugacity_coefficients".into(), Value::Object(phi));
-    out.insert("iterations".into(), json!(r.iterations));
-    out.insert("converged".into(), json!(r.converged));
-    out.insert(
-        "k_source".into(),
-        json!(if inp.reactions.is_empty() {
-            "species-data".to_string()
-        } else {
-            inp.k_sources
-                .first()
-                .cloned()
-                .unwrap_or_else(|| "species-data".into())
-        }),
-    );
-    Ok(Value::Object(out))
-}
-
-/// `eqwatch species`: every species with its formula, range, standard state and source.
-pub fn species(db: &SpeciesDb) -> Value {
-    let list: Vec<Value> = db
-        .iter()
-        .map(|s| {
-            let formula: String = s
-                .elements
-                .iter()
-                .map(|(e, n)| if *n == 1.0 { ELEMENTS[*e].to_string() } else { format!("{}{}", ELEMENTS[*e], n) })
-                .collect();
-            json!({
-                "name": s.name,
-                "elements": formula,
-                "t_min_k": s.t_min_k(),
-                "t_max_k": s.t_max_k(),
-                "polynomial": if s.ranges.iter().all(|r| r.c[0] == 0.0 && r.c[1] == 0.0) { "nasa7-compatible" } else { "nasa9" },
-                "published_reference_pressure_bar": s.published_reference_pressure_bar,
-                "critical_constants": s.critical.as_ref().map(|c| json!({"tc_k": c.tc_k, "pc_bar": c.pc_bar, "omega": c.omega, "source": c.source})),
-                "source": s.source,
-                "origin": s.origin,
-            })
-        })
-        .collect();
-    json!({ "species": list })
-}
-
-/// A readable two-column view of a JSON result.
-pub fn table(v: &Value) -> String {
-    let mut out = String::new();
-    if let Value::Object(m) = v {
-        if let Some(Value::Array(list)) = m.get("species") {
-            out.push_str(&format!(
-                "{:<10} {:<10} {:>8} {:>8} {:>4}  {}\n",
-                "species", "elements", "T min K", "T max K", "PR", "source"
-            ));
-            for s in list {
-                out.push_str(&format!(
-                    "{:<10} {:<10} {:>8.0} {:>8.0} {:>4}  {}\n",
-                    s["name"].as_str().unwrap_or(""),
-                    s["elements"].as_str().unwrap_or(""),
-                    s["t_min_k"].as_f64().unwrap_or(f64::NAN),
-                    s["t_max_k"].as_f64().unwrap_or(f64::NAN),
-                    if s["critical_constants"].is_null() {
-                        "-"
-                    } else {
-                        "yes"
-                    },
-                    s["source"].as_str().unwrap_or("")
-                ));
-            }
-            return out;
-        }
-        let width = m.keys().map(|k| k.len()).max().unwrap_or(0);
-        for (k, val) in m {
-            let text = match val {
-                Value::Number(n) => {
-                    let x = n.as_f64().unwrap_or(f64::NAN);
-                    if x != 0.0 && (x.abs() < 1e-3 || x.abs() >= 1e7) {
-                        format!("{x:.6e}")
-                    } else {
-                        format!("{x:.6}")
-                    }
-                }
-                Value::String(s) => s.clone(),
-                Value::Null => "-".into(),
-                Value::Object(o) => o
-                    .iter()
-                    .map(|(a, b)| match b.as_f64() {
-                        Some(x) if x != 0.0 && x.abs() < 1e-3 => format!("{a}={x:.4e}"),
-                        Some(x) => format!("{a}={x:.6}"),
-                        None => format!("{a}={b}"),
-                    })
-                    .collect::<Vec<_>>()
-                    .join("  "),
-                Value::Array(a) if a.is_empty() => "(none)".into(),
-                other => other.to_string(),
-            };
-            out.push_str(&format!("{k:<width$}  {text}\n"));
-        }
-    }
-    out
-}
-
 /// The unit of a `--temperature` text (kelvin if it cannot be read; `calc` has
 /// refused such a text already).
 pub fn temperature_unit_of(text: &str) -> TemperatureUnit {

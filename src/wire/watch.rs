@@ -17,7 +17,7 @@
 use serde::Serialize;
 use serde_json::Value;
 
-use super::payload::{finite, finite_opt};
+use super::{finite, finite_opt};
 use crate::monitor::alarm::{Direction, Event, EventKind, Mode, Priority};
 use crate::monitor::watch::{Action, DriftFigures, Forecast, PlantWatch, ReactorWatch, WatchEvent};
 use crate::timefmt::format_rfc3339;

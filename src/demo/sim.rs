@@ -1374,7 +1374,7 @@ impl History {
         s.push_str(
             "# Brackwater Ammonia Works, train 1 (BAW1): plant history for `eqwatch replay`\n",
         );
-        s.push_str("# invented demo data, made by the eqwatch demo plant simulator (src/sim.rs); no real plant\n");
+        s.push_str("# invented demo data, made by the eqwatch demo plant simulator (src/demo/sim.rs); no real plant\n");
         s.push_str("# start ");
         push_rfc3339_seconds(&mut s, self.opts.start_epoch_s);
         s.push_str(&format!(
@@ -2229,7 +2229,7 @@ mod tests {
 
     #[test]
     fn history_header_matches_the_demo_configuration() {
-        let text = include_str!("../config/demo-plant.toml");
+        let text = include_str!("../../config/demo-plant.toml");
         let cfg: toml::Table = toml::from_str(text).expect("config/demo-plant.toml parses");
         let reactors = cfg["reactors"].as_table().expect("[reactors]");
         // Expected columns from the configuration, in the generator's reactor order.

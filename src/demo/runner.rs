@@ -23,12 +23,12 @@ use serde_json::Value;
 use tokio_util::sync::CancellationToken;
 
 use super::proxy::DropoutProxy;
-use super::{Clock, now_ms};
+use super::sim::Plant;
 use crate::cli::CliError;
 use crate::config::Settings;
+use crate::daemon::{Clock, now_ms};
 use crate::monitor::watch::BaselineSpec;
 use crate::plot::{BaselineSpan, Marker, MarkerKind, PlotPoint, Projection, ReactorPlot};
-use crate::sim::Plant;
 use crate::timefmt::parse_rfc3339;
 
 /// The reference configuration of the demo plant (compiled in, so the demo runs from any folder).
@@ -39,7 +39,7 @@ use crate::units::{DAY_MS, HOUR_MS, MINUTE_MS};
 // The demo's compressed statistics windows. The configuration's windows are for a real
 // plant (a baseline learned over a week, one trend point a day); in a demo of about an
 // hour and a half of plant time they would never fill. One analysis every 5 minutes
-// (invented demo scenario, src/sim.rs) gives a baseline after 15 minutes and a trend
+// (invented demo scenario, src/demo/sim.rs) gives a baseline after 15 minutes and a trend
 // after 5 more points. A trend point stands for a day of the configuration, so the alert
 // rates (K/d) are scaled up and the end-of-run horizons (d) down by the same factor:
 // unscaled, the noise of a handful of 5-minute points (tens of K/d) would raise the
@@ -59,7 +59,7 @@ pub const DEMO_DAY_FACTOR: f64 = DAY_MS as f64 / DEMO_AGGREGATE_MS as f64;
 /// Data-quality alert when no good result has come for this long.
 pub const DEMO_DATA_QUALITY_AFTER_MS: i64 = 20 * MINUTE_MS;
 /// lts1: end-of-run alert when the forecast is this close (not scaled). Its approach
-/// creeps 0.2 K/h from 10 K (invented demo scenario, src/sim.rs) towards its 20 K limit,
+/// creeps 0.2 K/h from 10 K (invented demo scenario, src/demo/sim.rs) towards its 20 K limit,
 /// about two days; within the demo that creep (0.3 K) is smaller than the analysis noise,
 /// so whether the forecast comes within 3 d depends on the noise.
 pub const DEMO_LTS_END_OF_RUN_WITHIN_DAYS: f64 = 3.0;
@@ -1070,7 +1070,7 @@ async fn live(
         .iter()
         .map(|r| r.spec.id.clone())
         .collect();
-    println!("{}", crate::sim::SCENARIO);
+    println!("{}", super::sim::SCENARIO);
     println!(
         "broker {upstream} ({}), daemon through a drop-out proxy on 127.0.0.1:{}, speed x{speed}, {} s",
         if broker.is_some() {
@@ -1087,7 +1087,7 @@ async fn live(
         log_file.display()
     );
     println!("{compressed}");
-    for l in fill(super::ADVISORY, "", "  ", TABLE_WIDTH) {
+    for l in fill(crate::daemon::ADVISORY, "", "  ", TABLE_WIDTH) {
         println!("{l}");
     }
     let footer = fill(
@@ -1105,7 +1105,11 @@ async fn live(
         Arc::new(move || start_ms + (start_wall.elapsed().as_secs_f64() * speed * 1000.0) as i64);
     let cancel = CancellationToken::new();
     let settings = Arc::new(settings);
-    let daemon = tokio::spawn(super::run(settings.clone(), cancel.clone(), clock.clone()));
+    let daemon = tokio::spawn(crate::daemon::run(
+        settings.clone(),
+        cancel.clone(),
+        clock.clone(),
+    ));
 
     // The simulated plant publishes straight to the broker.
     let mut o = MqttOptions::new(
@@ -1605,7 +1609,7 @@ mod tests {
 
     #[test]
     fn trend_line_is_drawn_where_it_was_fitted() {
-        // Analyses every 5 min from t = 0 (as src/sim.rs), all included: buckets 0..=7
+        // Analyses every 5 min from t = 0 (as src/demo/sim.rs), all included: buckets 0..=7
         // are closed (8 trend points), bucket 8 is open.
         let mut u = UnitSeen::default();
         for i in 0..=8 {

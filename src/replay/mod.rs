@@ -1,5 +1,5 @@
 //! Replay of plant history: a CSV of timestamped readings run through the daemon's own
-//! processing path ([`crate::daemon::engine::Engine`]: alignment, quality, evaluation,
+//! processing path ([`crate::pipeline::Engine`]: alignment, quality, evaluation,
 //! drift, alerts, alarms), deterministically, writing the records the daemon would
 //! publish and the traces for plots.
 //!
@@ -31,14 +31,15 @@ use std::sync::Arc;
 use thiserror::Error;
 
 use crate::config::{ScalarUnit, Settings};
-use crate::daemon::Append;
-use crate::daemon::engine::{Engine, Trace, expand};
-use crate::daemon::metrics::Metrics;
-use crate::daemon::payload::convert;
 use crate::monitor::spec::SteamRatioSpec;
 use crate::monitor::{AnalysisReading, Input, ScalarReading, SourceQuality};
+use crate::pipeline::Append;
+use crate::pipeline::engine::expand;
+use crate::pipeline::metrics::Metrics;
+use crate::pipeline::{Engine, Trace};
 use crate::timefmt::parse_rfc3339;
 use crate::units::{CompositionUnit, PressureUnit, TemperatureUnit};
+use crate::wire::input::convert;
 
 #[derive(Debug, Error)]
 pub enum ReplayError {
@@ -294,7 +295,7 @@ pub struct Summary {
     pub last_ms: Option<i64>,
 }
 
-/// One replay: the engine's units run on worker threads (each owns some reactors);
+/// One replay: the engine's lanes run on worker threads (each owns some reactors);
 /// the main thread reads the CSV, hands rows out, and merges what comes back in the
 /// order the daemon would have made it (inputs in row order, then the timer tick), with
 /// the plant-wide flood count in the same places. The output does not depend on the
@@ -312,7 +313,7 @@ pub struct Replay {
 const KEEP_PROBLEMS: usize = 50;
 /// Rows handed to the workers at once.
 const BATCH_ROWS: usize = 512;
-/// Order of a unit's timer tick within a row: after every input of the row.
+/// Order of a lane's timer tick within a row: after every input of the row.
 const TICK_ORDER: u32 = u32::MAX / 2;
 
 /// One row's inputs for one worker: (order within the row, reactor, input).
@@ -320,13 +321,13 @@ type RowItems = Vec<(u32, usize, Input)>;
 /// What a worker gives back for one row: (order, piece), non-empty pieces only.
 type RowOut = Vec<(u32, Piece)>;
 
-/// A unit's output for one input or tick.
+/// A lane's output for one input or tick.
 enum Piece {
     /// Records with no events among them, already written as JSON lines in the batch's
     /// byte buffer: (start, end, record count).
     Encoded(usize, usize, usize),
     /// Records with events: the plant-wide flood count must see them (main thread).
-    Events(crate::daemon::engine::Sink),
+    Events(crate::pipeline::Sink),
 }
 
 /// A worker's answer for one batch of rows.
@@ -335,8 +336,8 @@ struct BatchOut {
     rows: Vec<RowOut>,
 }
 
-/// Moves a unit's output into the batch: encoded in place when it holds no events.
-fn piece(sink: &mut crate::daemon::engine::Sink, bytes: &mut Vec<u8>) -> Option<Piece> {
+/// Moves a lane's output into the batch: encoded in place when it holds no events.
+fn piece(sink: &mut crate::pipeline::Sink, bytes: &mut Vec<u8>) -> Option<Piece> {
     if sink.is_empty() {
         return None;
     }
@@ -412,15 +413,14 @@ impl Replay {
             .engine
             .take()
             .ok_or_else(|| ReplayError::Engine("a replay runs once".into()))?;
-        let (units, mut plant) = engine.into_parts();
-        let workers = self.threads.min(units.len()).max(1);
+        let (lanes, mut plant) = engine.into_parts();
+        let workers = self.threads.min(lanes.len()).max(1);
         // Reactors to workers: longest estimated work first, each to the least loaded.
         let assign = assign_workers(&self.settings, workers);
-        let mut owned: Vec<Vec<crate::daemon::engine::Unit>> =
-            (0..workers).map(|_| Vec::new()).collect();
-        for u in units {
-            let w = assign[u.reactor()];
-            owned[w].push(u);
+        let mut owned: Vec<Vec<crate::pipeline::Lane>> = (0..workers).map(|_| Vec::new()).collect();
+        for lane in lanes {
+            let w = assign[lane.reactor()];
+            owned[w].push(lane);
         }
         let settings = self.settings.clone();
         let metrics = self.metrics.clone();
@@ -436,7 +436,7 @@ impl Replay {
                 handles.push(scope.spawn(move || {
                     let index: Vec<usize> = mine.iter().map(|u| u.reactor()).collect();
                     let find = |r: usize| index.iter().position(|&x| x == r);
-                    let mut sink = crate::daemon::engine::Sink::default();
+                    let mut sink = crate::pipeline::Sink::default();
                     for batch in rx {
                         let mut outs = BatchOut {
                             bytes: Vec::with_capacity(1 << 20),
@@ -469,7 +469,7 @@ impl Replay {
             let mut pending: std::collections::VecDeque<Vec<i64>> = Default::default();
             let mut records: Vec<Append> = Vec::new();
             let mut merge = |times: Vec<i64>,
-                             plant: &mut crate::daemon::engine::Plant,
+                             plant: &mut crate::pipeline::Plant,
                              out: &mut dyn Write,
                              sum: &mut Summary|
              -> Result<(), ReplayError> {
@@ -561,10 +561,10 @@ impl Replay {
                 }
             }
             drop(to_workers);
-            let mut units = Vec::new();
+            let mut lanes = Vec::new();
             for h in handles {
                 match h.join() {
-                    Ok(mine) => units.extend(mine),
+                    Ok(mine) => lanes.extend(mine),
                     Err(_) => {
                         if result.is_ok() {
                             result = Err(ReplayError::Engine("a replay worker panicked".into()));
@@ -572,14 +572,14 @@ impl Replay {
                     }
                 }
             }
-            units.sort_by_key(|u| u.reactor());
-            result.map(|()| (sum, units))
+            lanes.sort_by_key(|lane| lane.reactor());
+            result.map(|()| (sum, lanes))
         });
-        let (sum, mut units) = result?;
+        let (sum, mut lanes) = result?;
         self.traces = Some(
-            units
+            lanes
                 .iter_mut()
-                .map(|u| u.trace.take().unwrap_or_default())
+                .map(|lane| lane.trace.take().unwrap_or_default())
                 .collect(),
         );
         Ok(sum)
@@ -956,7 +956,7 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
                 ) => MarkerKind::Operator,
                 _ => return None,
             };
-            let what = crate::daemon::watch_payload::event_name(&e.kind);
+            let what = crate::wire::watch::event_name(&e.kind);
             let by = match &e.kind {
                 EventKind::Acknowledged { by }
                 | EventKind::Shelved { by, .. }

@@ -12,14 +12,15 @@ use std::sync::atomic::Ordering::Relaxed;
 use tracing::{debug, info, warn};
 
 use super::metrics::Metrics;
-use super::payload::{self, DecodeError};
-use super::watch_payload::{self as wp, Command};
 use super::{Append, RawInput};
 use crate::config::{CompositionSource, Settings};
 use crate::monitor::alarm::{Event, EventKind};
 use crate::monitor::spec::SteamRatioSpec;
 use crate::monitor::watch::{Class, DriftFigures, PlantWatch, ReactorWatch, WatchEvent};
 use crate::monitor::{Evaluation, Input, Outcome, Quality, ReactorMonitor};
+use crate::wire;
+use crate::wire::input::DecodeError;
+use crate::wire::watch::{self as wp, Command};
 
 /// What an input topic feeds.
 #[derive(Debug, Clone, Copy)]
@@ -146,7 +147,7 @@ struct Topics {
     outcome: String,
 }
 
-/// Records made by a [`Unit`], with the points at which the plant-wide self-monitoring
+/// Records made by a [`Lane`], with the points at which the plant-wide self-monitoring
 /// must look at the events published so far (see [`Plant::drain`]).
 #[derive(Debug, Default)]
 pub struct Sink {
@@ -173,8 +174,8 @@ impl Sink {
 }
 
 /// One reactor's processing: monitor, watch, encoding. Independent of the other
-/// reactors (replay runs units on several threads); what is plant-wide is in [`Plant`].
-pub struct Unit {
+/// reactors (replay runs lanes on several threads); what is plant-wide is in [`Plant`].
+pub struct Lane {
     r: usize,
     settings: Arc<Settings>,
     metrics: Arc<Metrics>,
@@ -185,7 +186,7 @@ pub struct Unit {
     pub trace: Option<Trace>,
 }
 
-/// The plant-wide part: alarm-flood self-monitoring over every unit's events.
+/// The plant-wide part: alarm-flood self-monitoring over every lane's events.
 pub struct Plant {
     watch: PlantWatch,
     metrics: Arc<Metrics>,
@@ -197,7 +198,7 @@ pub struct Plant {
 pub struct Engine {
     settings: Arc<Settings>,
     routes: HashMap<String, Vec<Route>>,
-    units: Vec<Unit>,
+    lanes: Vec<Lane>,
     plant: Plant,
     metrics: Arc<Metrics>,
     sink: Sink,
@@ -207,9 +208,9 @@ impl Engine {
     /// Builds the engine; the alarm configurations were validated with the settings.
     pub fn new(settings: Arc<Settings>, metrics: Arc<Metrics>) -> Result<Self, String> {
         let p = &settings.topic_prefix;
-        let mut units = Vec::with_capacity(settings.reactors.len());
+        let mut lanes = Vec::with_capacity(settings.reactors.len());
         for (r, rs) in settings.reactors.iter().enumerate() {
-            units.push(Unit {
+            lanes.push(Lane {
                 r,
                 settings: settings.clone(),
                 metrics: metrics.clone(),
@@ -228,7 +229,7 @@ impl Engine {
         }
         Ok(Self {
             routes: routes(&settings),
-            units,
+            lanes,
             plant: Plant {
                 watch: PlantWatch::new(),
                 metrics: metrics.clone(),
@@ -243,27 +244,27 @@ impl Engine {
 
     /// Keep a trace per reactor for plots.
     pub fn enable_trace(&mut self) {
-        for u in &mut self.units {
-            u.trace.get_or_insert_with(Trace::default);
+        for lane in &mut self.lanes {
+            lane.trace.get_or_insert_with(Trace::default);
         }
     }
 
     /// The traces (empty ones where tracing was off).
     pub fn take_traces(&mut self) -> Vec<Trace> {
-        self.units
+        self.lanes
             .iter_mut()
             .map(|u| u.trace.take().unwrap_or_default())
             .collect()
     }
 
-    /// The units and the plant part, to run the units on several threads (replay).
-    pub fn into_parts(self) -> (Vec<Unit>, Plant) {
-        (self.units, self.plant)
+    /// The lanes and the plant part, to run the lanes on several threads (replay).
+    pub fn into_parts(self) -> (Vec<Lane>, Plant) {
+        (self.lanes, self.plant)
     }
 
     /// Per reactor: id, its drift settings as text (to notice a change), the run's state.
     pub fn drift_snapshots(&self) -> Vec<(String, String, crate::monitor::watch::DriftSnapshot)> {
-        self.units
+        self.lanes
             .iter()
             .map(|u| {
                 let rs = &self.settings.reactors[u.r];
@@ -284,7 +285,7 @@ impl Engine {
         String,
         Vec<(String, String, crate::monitor::alarm::AlarmSnapshot)>,
     )> {
-        self.units
+        self.lanes
             .iter()
             .map(|u| {
                 (
@@ -304,7 +305,7 @@ impl Engine {
         snap: &crate::monitor::alarm::AlarmSnapshot,
     ) -> bool {
         match self.settings.reactors.iter().position(|r| r.spec.id == id) {
-            Some(r) => self.units[r].watch.restore_alarm(alarm, config, snap),
+            Some(r) => self.lanes[r].watch.restore_alarm(alarm, config, snap),
             None => false,
         }
     }
@@ -313,7 +314,7 @@ impl Engine {
     pub fn restore_drift(&mut self, id: &str, snap: &crate::monitor::watch::DriftSnapshot) -> bool {
         let settings = Arc::clone(&self.settings);
         match settings.reactors.iter().position(|r| r.spec.id == id) {
-            Some(r) => self.units[r]
+            Some(r) => self.lanes[r]
                 .watch
                 .restore_drift(&settings.reactors[r].spec.watch.drift, snap),
             None => false,
@@ -330,9 +331,9 @@ impl Engine {
     /// The retained alarm states of every reactor that has alerts or alarms (published
     /// at start-up: the daemon starts with every alarm normal and in service).
     pub fn states(&self, now_ms: i64, out: &mut Vec<Append>) {
-        for u in &self.units {
-            if !u.watch.watched.is_empty() {
-                out.push(u.states(now_ms));
+        for lane in &self.lanes {
+            if !lane.watch.watched.is_empty() {
+                out.push(lane.states(now_ms));
             }
         }
     }
@@ -346,7 +347,7 @@ impl Engine {
         let rts = rts.clone();
         for route in rts {
             if let Route::Command(r) = route {
-                self.units[r].command(&raw.payload, now_ms, &mut self.sink);
+                self.lanes[r].command(&raw.payload, now_ms, &mut self.sink);
                 self.plant.drain(&mut self.sink, out);
                 continue;
             }
@@ -370,14 +371,14 @@ impl Engine {
         now_ms: i64,
         out: &mut Vec<Append>,
     ) {
-        self.units[r].accept(input, arrival_ms, now_ms, &mut self.sink);
+        self.lanes[r].accept(input, arrival_ms, now_ms, &mut self.sink);
         self.plant.drain(&mut self.sink, out);
     }
 
     /// Advances the watches' timers (shelf expiry, data quality, chattering, stale, flood).
     pub fn tick(&mut self, now_ms: i64, out: &mut Vec<Append>) {
-        for u in &mut self.units {
-            u.tick(now_ms, &mut self.sink);
+        for lane in &mut self.lanes {
+            lane.tick(now_ms, &mut self.sink);
             self.plant.drain(&mut self.sink, out);
         }
         self.plant.tick(now_ms, out);
@@ -385,7 +386,7 @@ impl Engine {
 }
 
 impl Plant {
-    /// Moves a unit's records to `out`, running the flood count where the unit published
+    /// Moves a lane's records to `out`, running the flood count where the lane published
     /// events (so the flood alert lands right after the events that made it).
     pub fn drain(&mut self, sink: &mut Sink, out: &mut Vec<Append>) {
         let mut records = sink.records.drain(..);
@@ -429,7 +430,7 @@ impl Plant {
     }
 }
 
-impl Unit {
+impl Lane {
     /// Index of the reactor in the configuration.
     pub fn reactor(&self) -> usize {
         self.r
@@ -456,7 +457,7 @@ impl Unit {
                 }
             }
             if !ev.is_empty() {
-                info!(reactor = %rs.spec.id, offline = self.watch.offline(), "unit on/off line");
+                info!(reactor = %rs.spec.id, offline = self.watch.offline(), "process unit on/off line");
                 self.publish_events(ev, now_ms, sink);
             }
         }
@@ -569,7 +570,7 @@ impl Unit {
             }
             t.last_drift = Some(fig);
         }
-        let payload = payload::encode_result(rs, &settings.species, e, arrival_ms, Some(&fig));
+        let payload = wire::result::encode_result(rs, &settings.species, e, arrival_ms, Some(&fig));
         sink.records.push(Append {
             topic: self.topics.result.clone(),
             retain: true,
@@ -788,8 +789,14 @@ pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Inpu
             let unit = &rs.spec.temperatures[i].unit;
             (
                 r,
-                payload::decode_scalar(&raw.payload, &source.decoder, unit, atm, raw.arrival_ms)
-                    .map(|v| Input::Temperature(i, v)),
+                wire::input::decode_scalar(
+                    &raw.payload,
+                    &source.decoder,
+                    unit,
+                    atm,
+                    raw.arrival_ms,
+                )
+                .map(|v| Input::Temperature(i, v)),
             )
         }
         Route::Pressure(r) => {
@@ -797,8 +804,14 @@ pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Inpu
             let (source, unit) = (&rs.wiring.pressure, &rs.spec.pressure.unit);
             (
                 r,
-                payload::decode_scalar(&raw.payload, &source.decoder, unit, atm, raw.arrival_ms)
-                    .map(Input::Pressure),
+                wire::input::decode_scalar(
+                    &raw.payload,
+                    &source.decoder,
+                    unit,
+                    atm,
+                    raw.arrival_ms,
+                )
+                .map(Input::Pressure),
             )
         }
         Route::SteamRatio(r) => match (
@@ -807,7 +820,7 @@ pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Inpu
         ) {
             (Some(SteamRatioSpec::Measured(ss)), Some(source)) => (
                 r,
-                payload::decode_scalar(
+                wire::input::decode_scalar(
                     &raw.payload,
                     &source.decoder,
                     &ss.unit,
@@ -820,7 +833,7 @@ pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Inpu
         },
         Route::Analysis(r) => (
             r,
-            payload::decode_analysis(&raw.payload, &s.reactors[r], raw.arrival_ms)
+            wire::input::decode_analysis(&raw.payload, &s.reactors[r], raw.arrival_ms)
                 .map(Input::Analysis),
         ),
         Route::Component(r, c) => {
@@ -831,7 +844,7 @@ pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Inpu
             };
             (
                 r,
-                payload::decode_component(&raw.payload, decoder, comp.unit, raw.arrival_ms)
+                wire::input::decode_component(&raw.payload, decoder, comp.unit, raw.arrival_ms)
                     .map(|v| Input::Component(c, v)),
             )
         }

@@ -1,0 +1,162 @@
+//! `eqwatch equilibrium`: the equilibrium composition of a feed at a temperature and
+//! pressure (element constraints, several reactions, ideal gas or Peng-Robinson).
+
+use serde_json::{Map, Value, json};
+
+use super::{CliError, finite, input, parse_eos, reactions_with_k};
+use crate::composition::parse_components;
+use crate::equilibrium::EquilibriumSystem;
+use crate::thermo::reaction::unknown_hint;
+use crate::thermo::species::SpeciesDb;
+use crate::units::{CompositionUnit, parse_pressure_with_atmosphere, parse_temperature};
+
+#[derive(Debug, Clone, Default)]
+pub struct EquilibriumInput {
+    pub species: String,
+    pub feed: String,
+    pub temperature: String,
+    pub pressure: String,
+    pub inert: Option<String>,
+    pub eos: String,
+    pub reactions: Vec<String>,
+    pub k_sources: Vec<String>,
+}
+
+fn species_list(db: &SpeciesDb, text: &str, what: &str) -> Result<Vec<usize>, CliError> {
+    let mut out = Vec::new();
+    for n in text.split(',').map(str::trim).filter(|s| !s.is_empty()) {
+        let i = db.index_of(n).ok_or_else(|| {
+            CliError::Input(format!(
+                "{what}: unknown species `{n}`{}",
+                unknown_hint(db, n)
+            ))
+        })?;
+        if out.contains(&i) {
+            return Err(CliError::Input(format!("{what}: {n} is listed twice")));
+        }
+        out.push(i);
+    }
+    Ok(out)
+}
+
+/// `eqwatch equilibrium`.
+pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliError> {
+    let t = parse_temperature(&inp.temperature)
+        .map_err(|e| CliError::Input(format!("--temperature: {e}")))?;
+    let p = parse_pressure_with_atmosphere(&inp.pressure, crate::units::STANDARD_ATMOSPHERE_BAR)
+        .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
+    let eos = parse_eos(&inp.eos)?;
+    let reactive = species_list(db, &inp.species, "--species")?;
+    if reactive.is_empty() {
+        return Err(CliError::Input(
+            "--species: give the species that may react, e.g. \"CH4,H2O,CO,CO2,H2\"".into(),
+        ));
+    }
+    let inert = match &inp.inert {
+        Some(t) => species_list(db, t, "--inert")?,
+        None => Vec::new(),
+    };
+    if let Some(s) = inert.iter().find(|s| reactive.contains(s)) {
+        return Err(CliError::Input(format!(
+            "{} is in --species and --inert; give it once",
+            db.get(*s).name
+        )));
+    }
+    let sys = if inp.reactions.is_empty() {
+        if !inp.k_sources.is_empty() {
+            return Err(CliError::Input(
+                "--k-source needs --reaction (species data are used otherwise)".into(),
+            ));
+        }
+        EquilibriumSystem::from_species(db, &reactive, &inert, eos, None).map_err(input)?
+    } else {
+        let rx = reactions_with_k(db, &inp.reactions, &inp.k_sources)?;
+        for (r, _) in &rx {
+            if let Some(s) = r.species.iter().find(|s| !reactive.contains(s)) {
+                return Err(CliError::Input(format!(
+                    "species {} of `{}` is not in --species",
+                    db.get(*s).name,
+                    r.canonical()
+                )));
+            }
+        }
+        let mut all = reactive.clone();
+        all.extend(&inert);
+        EquilibriumSystem::from_reactions(db, &rx, &all, eos, None).map_err(input)?
+    };
+    let feed = parse_components(&inp.feed, CompositionUnit::Fraction).map_err(input)?;
+    let mut moles = vec![0.0; sys.species().len()];
+    for c in &feed {
+        let i = db.index_of(&c.species).ok_or_else(|| {
+            CliError::Input(format!(
+                "--feed: unknown species `{}`{}",
+                c.species,
+                unknown_hint(db, &c.species)
+            ))
+        })?;
+        let pos = sys.species().iter().position(|s| *s == i).ok_or_else(|| {
+            CliError::Input(format!(
+                "--feed: {} is neither in --species nor in --inert",
+                db.get(i).name
+            ))
+        })?;
+        if !(c.value.is_finite() && c.value >= 0.0) {
+            return Err(CliError::Input(format!(
+                "--feed: {} = {} must be zero or more",
+                c.species, c.value
+            )));
+        }
+        moles[pos] += c.value * c.unit.fraction_per_unit();
+    }
+    if moles.iter().sum::<f64>() <= 0.0 {
+        return Err(CliError::Input(
+            "--feed: give some moles, e.g. \"CH4=1,H2O=3\"".into(),
+        ));
+    }
+    let r = sys.solve(db, t, p, &moles);
+    if !r.converged {
+        return Err(CliError::Internal(format!(
+            "equilibrium did not converge: {}",
+            r.reason
+        )));
+    }
+    let mut y = Map::new();
+    for (n, v) in sys.names().iter().zip(&r.mole_fractions) {
+        y.insert(n.clone(), finite(*v));
+    }
+    let mut out = Map::new();
+    out.insert("temperature_k".into(), json!(t));
+    out.insert("pressure_bar".into(), json!(p));
+    out.insert("eos".into(), json!(eos.as_str()));
+    out.insert("mole_fractions".into(), Value::Object(y));
+    if let Some(w) = sys.names().iter().position(|n| n == "H2O") {
+        let yw = r.mole_fractions[w];
+        let mut d = Map::new();
+        for (i, (n, v)) in sys.names().iter().zip(&r.mole_fractions).enumerate() {
+            if i != w {
+                d.insert(n.clone(), finite(v / (1.0 - yw)));
+            }
+        }
+        out.insert("dry_mole_fractions".into(), Value::Object(d));
+        out.insert("steam_to_dry_gas_ratio".into(), finite(yw / (1.0 - yw)));
+    }
+    let mut phi = Map::new();
+    for (n, lp) in sys.names().iter().zip(&r.ln_phi) {
+        phi.insert(n.clone(), finite(lp.exp()));
+    }
+    out.insert("fugacity_coefficients".into(), Value::Object(phi));
+    out.insert("iterations".into(), json!(r.iterations));
+    out.insert("converged".into(), json!(r.converged));
+    out.insert(
+        "k_source".into(),
+        json!(if inp.reactions.is_empty() {
+            "species-data".to_string()
+        } else {
+            inp.k_sources
+                .first()
+                .cloned()
+                .unwrap_or_else(|| "species-data".into())
+        }),
+    );
+    Ok(Value::Object(out))
+}

@@ -1,0 +1,22 @@
+//! Every JSON shape in and out of eqwatch: input messages ([`input`]), the result
+//! message ([`result`]), and the watch's events, alarm states, commands and outcomes
+//! ([`watch`]). The core never sees JSON.
+//!
+//! Rules of this folder (checked by `tests/architecture.rs`): the core and
+//! [`crate::config`] only; never `crate::pipeline`, `crate::daemon`, `crate::replay`,
+//! `crate::demo`, `crate::plot` or `crate::cli`; no tokio, rumqttc or I/O. Within the
+//! folder the order is one way: `result` may use `watch` (a result carries the drift
+//! figures), `watch` never uses `result`; both use the number helpers here.
+
+pub mod input;
+pub mod result;
+pub mod watch;
+
+/// Non-finite numbers go out as `null` (JSON has no NaN), never as a made-up value.
+pub(crate) fn finite(x: f64) -> Option<f64> {
+    x.is_finite().then_some(x)
+}
+
+pub(crate) fn finite_opt(x: Option<f64>) -> Option<f64> {
+    x.and_then(finite)
+}
