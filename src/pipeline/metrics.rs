@@ -5,6 +5,7 @@ use std::fmt::Write;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering::Relaxed};
 
 use crate::wire::input::DecodeError;
+use crate::wire::watch::Verdict;
 
 /// Per-reactor figures.
 #[derive(Debug, Default)]
@@ -49,7 +50,7 @@ pub struct Metrics {
     pub chattering: AtomicU64,
     pub stale: AtomicU64,
     /// Commands by outcome: accepted, refused, not-allowed, invalid.
-    pub commands: [AtomicU64; 4],
+    pub commands: [AtomicU64; Verdict::ALL.len()],
     pub reactors: Vec<ReactorMetrics>,
 }
 
@@ -187,14 +188,12 @@ impl Metrics {
             s,
             "# HELP eqwatch_commands_total Operator commands by outcome.\n# TYPE eqwatch_commands_total counter"
         );
-        for (i, o) in ["accepted", "refused", "not-allowed", "invalid"]
-            .iter()
-            .enumerate()
-        {
+        for v in Verdict::ALL {
             let _ = writeln!(
                 s,
-                "eqwatch_commands_total{{outcome=\"{o}\"}} {}",
-                self.commands[i].load(Relaxed)
+                "eqwatch_commands_total{{outcome=\"{}\"}} {}",
+                v.as_str(),
+                self.commands[v.index()].load(Relaxed)
             );
         }
         for (name, help, kind, get) in [

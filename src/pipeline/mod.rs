@@ -10,10 +10,19 @@
 //! `crate::daemon`, `crate::replay`, `crate::demo`, `crate::plot` or `crate::cli`.
 //! Logging goes through the `tracing` facade only.
 
+mod command;
 pub mod engine;
+mod lane;
 pub mod metrics;
+mod plant;
+mod route;
+pub mod trace;
 
-pub use engine::{Engine, Lane, Plant, Route, Sink, Trace};
+pub use engine::Engine;
+pub use lane::{Lane, Sink};
+pub use plant::Plant;
+pub use route::{Route, decode, routes};
+pub use trace::{Trace, TraceBaseline, TraceEvent, TracePoint, expand};
 
 /// A message as it came from the broker (or a test).
 #[derive(Debug, Clone)]
@@ -29,4 +38,159 @@ pub struct Append {
     pub topic: String,
     pub retain: bool,
     pub payload: String,
+}
+
+#[cfg(test)]
+mod tests {
+    //! The pipeline driven directly, without a broker or the binary: messages in,
+    //! records and counters out. The plant is the invented demo plant
+    //! (config/demo-plant.toml); every value below is invented for the test.
+
+    use std::sync::Arc;
+    use std::sync::atomic::Ordering::Relaxed;
+
+    use serde_json::Value;
+
+    use super::metrics::Metrics;
+    use super::{Append, Engine, RawInput};
+    use crate::wire::watch::Verdict;
+
+    const T0_MS: i64 = 1_796_083_200_000; // 2026-12-01T00:00:00Z
+
+    fn engine() -> (Engine, Arc<Metrics>) {
+        let text = include_str!("../../config/demo-plant.toml");
+        let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("config");
+        let settings = crate::config::from_str(text, &dir).expect("demo configuration is valid");
+        let ids: Vec<String> = settings
+            .reactors
+            .iter()
+            .map(|r| r.spec.id.clone())
+            .collect();
+        let metrics = Arc::new(Metrics::new(&ids));
+        let engine = Engine::new(Arc::new(settings), Arc::clone(&metrics)).expect("engine");
+        (engine, metrics)
+    }
+
+    fn send(engine: &mut Engine, topic: &str, payload: &str, at_ms: i64) -> Vec<Append> {
+        let raw = RawInput {
+            topic: topic.into(),
+            payload: payload.as_bytes().to_vec(),
+            arrival_ms: at_ms,
+        };
+        let mut out = Vec::new();
+        engine.message(&raw, at_ms, &mut out);
+        out
+    }
+
+    fn json(a: &Append) -> Value {
+        serde_json::from_str(&a.payload).expect("records are JSON")
+    }
+
+    fn outcome_of(records: &[Append]) -> Value {
+        let o = records
+            .iter()
+            .find(|a| a.topic.ends_with("/command/outcome"))
+            .expect("an outcome record");
+        json(o)
+    }
+
+    #[test]
+    fn an_unrouted_topic_is_counted_and_makes_nothing() {
+        let (mut e, m) = engine();
+        assert!(send(&mut e, "baw1/nowhere", "1", T0_MS).is_empty());
+        assert_eq!(m.unrouted.load(Relaxed), 1);
+    }
+
+    #[test]
+    fn a_bad_reading_is_counted_by_reason_and_makes_no_result() {
+        let (mut e, m) = engine();
+        let out = send(&mut e, "baw1/hts1/TI-205", "{\"value\":\"hot\"}", T0_MS);
+        assert!(out.is_empty());
+        let reasons = crate::wire::input::DecodeError::REASONS;
+        let i = reasons
+            .iter()
+            .position(|r| *r == "not_numeric")
+            .expect("reason");
+        assert_eq!(m.decode_failures[i].load(Relaxed), 1);
+    }
+
+    #[test]
+    fn a_complete_set_of_readings_gives_one_retained_result() {
+        let (mut e, _m) = engine();
+        let t = T0_MS;
+        // HTS outlet: invented dry analysis near equilibrium at 430 degC, 30 barg.
+        for (topic, payload) in [
+            (
+                "baw1/hts1/TI-205",
+                format!(r#"{{"ts":{t},"value":430,"unit":"degC"}}"#),
+            ),
+            (
+                "baw1/hts1/PI-202",
+                format!(r#"{{"ts":{t},"value":30,"unit":"barg"}}"#),
+            ),
+        ] {
+            assert!(send(&mut e, topic, &payload, t).is_empty());
+        }
+        let analysis = format!(
+            r#"{{"ts":{t},"values":{{"H2":56.0,"N2":20.0,"CO":3.5,"CO2":16.0,"CH4":0.3,"Ar":0.2}},"unit":"mol%"}}"#
+        );
+        // Reported one lag (60 s) after its sample time.
+        let out = send(&mut e, "baw1/hts1/AI-201", &analysis, t + 60_000);
+        let results: Vec<&Append> = out
+            .iter()
+            .filter(|a| a.topic.ends_with("/result"))
+            .collect();
+        assert_eq!(results.len(), 1, "{out:?}");
+        assert!(results[0].retain);
+        let v = json(results[0]);
+        assert_eq!(v["reactor"], "hts1");
+        assert!(v["quality"].is_string(), "{v}");
+    }
+
+    #[test]
+    fn commands_end_in_a_typed_verdict_with_an_outcome_and_a_counter() {
+        let (mut e, m) = engine();
+        let topic = "eqwatch/baw1/lts1/command";
+        let cases = [
+            ("not json", Verdict::Invalid, None),
+            (
+                r#"{"command":"acknowledge","alarm":"approach-high","user":"visitor"}"#,
+                Verdict::NotAllowed,
+                Some("visitor"),
+            ),
+            (
+                r#"{"command":"reset-latch","alarm":"no-such-alarm","user":"op-demo","request_id":"r7"}"#,
+                Verdict::Refused,
+                Some("op-demo"),
+            ),
+            (
+                r#"{"command":"shelve","alarm":"approach-high","user":"op-demo","duration":"1 h","reason":"analyser work"}"#,
+                Verdict::Accepted,
+                Some("op-demo"),
+            ),
+        ];
+        for (payload, verdict, user) in cases {
+            let out = send(&mut e, topic, payload, T0_MS);
+            let o = outcome_of(&out);
+            assert_eq!(o["outcome"], verdict.as_str(), "{payload}: {o}");
+            assert_eq!(o["accepted"], verdict == Verdict::Accepted);
+            assert_eq!(o["user"].as_str(), user);
+            assert_eq!(o["reactor"], "lts1");
+            if verdict == Verdict::Accepted {
+                // The outcome first, then the retained states the command changed.
+                let at = |suffix: &str| out.iter().position(|a| a.topic.ends_with(suffix));
+                assert!(at("/command/outcome") < at("/alarms"), "{out:?}");
+            }
+        }
+        for v in Verdict::ALL {
+            assert_eq!(m.commands[v.index()].load(Relaxed), 1, "{}", v.as_str());
+        }
+        let refused = send(
+            &mut e,
+            topic,
+            r#"{"command":"reset-latch","alarm":"no-such-alarm","user":"op-demo","request_id":"r7"}"#,
+            T0_MS,
+        );
+        assert_eq!(outcome_of(&refused)["request_id"], "r7");
+    }
 }

@@ -34,7 +34,7 @@ use crate::config::{ScalarUnit, Settings};
 use crate::monitor::spec::SteamRatioSpec;
 use crate::monitor::{AnalysisReading, Input, ScalarReading, SourceQuality};
 use crate::pipeline::Append;
-use crate::pipeline::engine::expand;
+use crate::pipeline::expand;
 use crate::pipeline::metrics::Metrics;
 use crate::pipeline::{Engine, Trace};
 use crate::timefmt::parse_rfc3339;

@@ -370,36 +370,66 @@ pub fn encode_states(reactor: &str, w: &ReactorWatch, at_ms: i64) -> String {
     serde_json::to_string(&out).unwrap_or_else(|_| "{}".into())
 }
 
+/// Who sent a command, as far as the message could be read (a refusal names them).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Sender {
+    pub request_id: Option<String>,
+    pub user: Option<String>,
+    pub client_id: Option<String>,
+}
+
+impl Sender {
+    /// The name an accepted command is carried out by: the user, else the client id.
+    pub fn name(&self) -> &str {
+        self.user
+            .as_deref()
+            .or(self.client_id.as_deref())
+            .unwrap_or_default()
+    }
+}
+
 /// A decoded command.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Command {
     pub action: Action,
     pub alarm: Option<String>,
-    pub user: Option<String>,
-    pub client_id: Option<String>,
-    pub request_id: Option<String>,
+    pub sender: Sender,
 }
 
-/// A command that could not be read: what to fix, and the request id, user and client
-/// id if they could be read, so the refusal can name them.
-pub type CommandProblem = (String, Option<String>, Option<String>, Option<String>);
+/// A command that could not be read: what to fix, and whoever sent it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CommandProblem {
+    pub message: String,
+    pub sender: Sender,
+}
 
 /// Reads a command message; the error says what to fix.
 pub fn decode_command(payload: &[u8]) -> Result<Command, CommandProblem> {
+    let unread = |message: String| CommandProblem {
+        message,
+        sender: Sender::default(),
+    };
     let v: Value = match serde_json::from_slice(payload) {
         Ok(v @ Value::Object(_)) => v,
-        Ok(_) => return Err(("a command is a JSON object".into(), None, None, None)),
-        Err(e) => return Err((format!("not JSON: {e}"), None, None, None)),
+        Ok(_) => return Err(unread("a command is a JSON object".into())),
+        Err(e) => return Err(unread(format!("not JSON: {e}"))),
     };
     let text = |k: &str| {
         v.get(k)
             .and_then(Value::as_str)
             .map(|s| s.trim().to_string())
     };
-    let request_id = text("request_id");
-    let user = text("user").filter(|s| !s.is_empty());
-    let client_id = text("client_id").filter(|s| !s.is_empty());
-    let fail = |m: String| Err((m, request_id.clone(), user.clone(), client_id.clone()));
+    let sender = Sender {
+        request_id: text("request_id"),
+        user: text("user").filter(|s| !s.is_empty()),
+        client_id: text("client_id").filter(|s| !s.is_empty()),
+    };
+    let fail = |message: String| {
+        Err(CommandProblem {
+            message,
+            sender: sender.clone(),
+        })
+    };
     let reason = text("reason").unwrap_or_default();
     let action = match text("command").as_deref() {
         Some("acknowledge" | "ack") => Action::Acknowledge,
@@ -431,10 +461,60 @@ pub fn decode_command(payload: &[u8]) -> Result<Command, CommandProblem> {
     Ok(Command {
         action,
         alarm: text("alarm").filter(|s| !s.is_empty()),
-        user,
-        client_id,
-        request_id,
+        sender,
     })
+}
+
+/// What became of a command.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Verdict {
+    /// Carried out.
+    Accepted,
+    /// Read and allowed, but the alarm's state does not allow it.
+    Refused,
+    /// The user or client is not in the allow list.
+    NotAllowed,
+    /// The message could not be read as a command.
+    Invalid,
+}
+
+impl Verdict {
+    /// Every verdict, in the order of the metrics' counters.
+    pub const ALL: [Verdict; 4] = [
+        Verdict::Accepted,
+        Verdict::Refused,
+        Verdict::NotAllowed,
+        Verdict::Invalid,
+    ];
+
+    /// The word on the wire and the metrics label.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Verdict::Accepted => "accepted",
+            Verdict::Refused => "refused",
+            Verdict::NotAllowed => "not-allowed",
+            Verdict::Invalid => "invalid",
+        }
+    }
+
+    /// Position in [`Verdict::ALL`] (the metrics' counter).
+    pub fn index(self) -> usize {
+        self as usize
+    }
+}
+
+/// One command's answer, as published on `<prefix>/<reactor>/command/outcome`.
+#[derive(Debug, Clone, Copy)]
+pub struct Outcome<'a> {
+    pub reactor: &'a str,
+    pub sender: &'a Sender,
+    /// The command's name, when it could be read.
+    pub command: Option<&'a str>,
+    pub alarm: Option<&'a str>,
+    pub verdict: Verdict,
+    /// What was done, or what to fix.
+    pub message: &'a str,
+    pub at_ms: i64,
 }
 
 #[derive(Serialize)]
@@ -452,32 +532,20 @@ struct OutcomeOut<'a> {
     at: String,
 }
 
-/// What became of a command: `outcome` is accepted, refused (the alarm's state does not
-/// allow it), not-allowed (user/client not in the allow list) or invalid.
-#[allow(clippy::too_many_arguments)]
-pub fn encode_outcome(
-    reactor: &str,
-    request_id: Option<&str>,
-    command: Option<&str>,
-    alarm: Option<&str>,
-    user: Option<&str>,
-    client_id: Option<&str>,
-    outcome: &'static str,
-    message: &str,
-    at_ms: i64,
-) -> String {
+/// The outcome message (schema [`OUTCOME_SCHEMA`]).
+pub fn encode_outcome(o: &Outcome<'_>) -> String {
     let out = OutcomeOut {
         schema: OUTCOME_SCHEMA,
-        reactor,
-        request_id,
-        command,
-        alarm,
-        user,
-        client_id,
-        accepted: outcome == "accepted",
-        outcome,
-        message,
-        at: format_rfc3339(at_ms),
+        reactor: o.reactor,
+        request_id: o.sender.request_id.as_deref(),
+        command: o.command,
+        alarm: o.alarm,
+        user: o.sender.user.as_deref(),
+        client_id: o.sender.client_id.as_deref(),
+        accepted: o.verdict == Verdict::Accepted,
+        outcome: o.verdict.as_str(),
+        message: o.message,
+        at: format_rfc3339(o.at_ms),
     };
     serde_json::to_string(&out).unwrap_or_else(|_| "{}".into())
 }
@@ -500,7 +568,8 @@ mod tests {
                 reason: "analyser work".into()
             }
         );
-        assert_eq!(c.request_id.as_deref(), Some("r1"));
+        assert_eq!(c.sender.request_id.as_deref(), Some("r1"));
+        assert_eq!(c.sender.name(), "op1");
         for (bad, says) in [
             (
                 &br#"{"command":"shelve","alarm":"a","user":"u"}"#[..],
@@ -512,7 +581,7 @@ mod tests {
             (br#"{"alarm":"a"}"#, "missing \"command\""),
         ] {
             let e = decode_command(bad).unwrap_err();
-            assert!(e.0.contains(says), "{}", e.0);
+            assert!(e.message.contains(says), "{}", e.message);
         }
     }
 }
