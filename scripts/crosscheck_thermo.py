@@ -61,7 +61,7 @@ RTOL_Z = 1e-6
 # (|sum nu| <= 4 here, so 4e-6), plus the echo of P.
 TOL_LNQ = 5e-6
 
-# DOMAIN reference values quoted in the project brief (thermo 0.6.1 PRMIX,
+# Reference values of docs/domain.md §4 (thermo 0.6.1 PRMIX,
 # chemicals' default critical constants), given to 4 decimals: the setup must
 # reproduce them to half a unit in the last digit, 5e-5.
 DOMAIN_700K_150BAR = {"H2": 1.0356, "N2": 1.0546, "NH3": 0.9886, "Z": 1.0330}
@@ -117,7 +117,7 @@ def main():
     if len(consts) != len(all_names):
         tally.finish()
 
-    # Setup proof: thermo reproduces the DOMAIN values.
+    # Setup proof: thermo reproduces the docs/domain.md §4 values.
     phi, z, _ = thermo_pr(consts, AMMONIA_LOOP, 700.0, 150e5)
     print("DOMAIN reference, 700 K / 150 bar, thermo PRMIX: "
           + ", ".join(f"phi_{k} = {v}" for k, v in DOMAIN_700K_150BAR.items() if k != "Z")

@@ -382,3 +382,15 @@ fn the_checker_catches_a_broken_rule() {
         .is_empty()
     );
 }
+
+#[test]
+fn every_reason_code_is_explained_in_the_readme() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let readme = std::fs::read_to_string(root.join("README.md")).expect("README.md");
+    let missing: Vec<&str> = eqwatch::monitor::ReasonCode::ALL
+        .iter()
+        .map(|c| c.as_str())
+        .filter(|c| !readme.contains(&format!("`{c}`")))
+        .collect();
+    assert!(missing.is_empty(), "README lacks reason codes: {missing:?}");
+}

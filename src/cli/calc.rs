@@ -858,7 +858,7 @@ mod tests {
         let v = calc(&db, &lts("220 degC", "moe-1962", Some(README_UNC))).unwrap();
         let t = calc_table(&v, temperature_unit_of("220 degC"));
         let details = t.find("Details").unwrap();
-        // DOMAIN §8 [derived]: approach 12.00 K, T_eq 220 °C + 12 K, measured CO 0.28697 %
+        // docs/domain.md §8 [derived]: approach 12.00 K, T_eq 220 °C + 12 K, measured CO 0.28697 %
         // dry against 0.23128 % dry at equilibrium, Q/K ≈ 0.802.
         for want in [
             "At 220.00 °C",

@@ -198,7 +198,7 @@ impl Lane {
                 .reasons
                 .iter()
                 .filter(|x| x.severity != Quality::Good)
-                .map(|x| x.code)
+                .map(|x| x.code.as_str())
                 .collect();
             warn!(reactor = %self.id(), quality = %e.quality.as_str(), reasons = %codes.join(","), "evaluation not good");
         } else {

@@ -883,7 +883,7 @@ impl Write for Pipe {
 }
 
 /// A wet mole fraction on a dry basis, given the wet water fraction of the same gas:
-/// y_dry = y_wet / (1 − y_H2O) (DOMAIN §5, dry basis = the gas with its water knocked out).
+/// y_dry = y_wet / (1 − y_H2O) (docs/domain.md §5, dry basis = the gas with its water knocked out).
 /// `None` without a usable water fraction: a value on the wrong basis is not plotted.
 fn dry(wet: Option<f64>, water: Option<f64>) -> Option<f64> {
     match (wet, water) {

@@ -314,7 +314,7 @@ pub fn encode_result(
             .reasons
             .iter()
             .map(|x| ReasonOut {
-                code: x.code,
+                code: x.code.as_str(),
                 severity: x.severity.as_str(),
                 message: &x.message,
             })
@@ -404,7 +404,7 @@ mod tests {
 
     #[test]
     fn result_carries_the_uncertainty_budget() {
-        // Demo lts1 (config/demo-plant.toml, invented) with the DOMAIN §8 LTS gas at
+        // Demo lts1 (config/demo-plant.toml, invented) with the docs/domain.md §8 LTS gas at
         // 220 °C: the shares by input add up in quadrature to approach_uncertainty_k.
         use crate::monitor::{Input, Outcome, ReactorMonitor};
         let s = crate::config::from_str(

@@ -19,7 +19,9 @@ use serde_json::Value;
 
 use super::{finite, finite_opt};
 use crate::monitor::alarm::{Direction, Event, EventKind, Mode, Priority};
-use crate::monitor::watch::{Action, DriftFigures, Forecast, PlantWatch, ReactorWatch, WatchEvent};
+use crate::monitor::watch::{
+    Action, DriftFigures, Exclusion, Forecast, PlantWatch, ReactorWatch, WatchEvent,
+};
 use crate::timefmt::format_rfc3339;
 
 pub const EVENT_SCHEMA: &str = "eqwatch.event/1";
@@ -101,7 +103,7 @@ impl From<&DriftFigures> for DriftOut {
         };
         Self {
             included: f.excluded.is_none(),
-            excluded_because: f.excluded,
+            excluded_because: f.excluded.map(Exclusion::as_str),
             baseline: match f.baseline {
                 None => "learning",
                 Some(b) if b.given => "given",

@@ -9,8 +9,8 @@ use serde_json::Value;
 
 use crate::support::*;
 
-/// One LTS (invented test plant) with a rationalised approach alarm at 10 K: the DOMAIN
-/// §8 LTS gas read at 220 °C is 12.00 K from equilibrium (Moe 1962 K; DOMAIN §8), so the
+/// One LTS (invented test plant) with a rationalised approach alarm at 10 K: the docs/domain.md
+/// §8 LTS gas read at 220 °C is 12.00 K from equilibrium (Moe 1962 K; docs/domain.md §8), so the
 /// first analysis raises it.
 fn write_config(dir: &Path, port: u16, http_port: u16) -> PathBuf {
     write_lts_plant(
@@ -76,7 +76,7 @@ fn commands_need_an_allowed_user_and_change_the_retained_state() {
     assert!(wait_for(&got, Duration::from_secs(10), |m| m.iter().any(
         |(t, pl, _)| t == "eqwatch/test/status" && pl.contains("online")
     )));
-    // DOMAIN §8 LTS gas at 220 °C, 29 barg, steam ratio 0.36312.
+    // docs/domain.md §8 LTS gas at 220 °C, 29 barg, steam ratio 0.36312.
     let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
     p.publish(&rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
     p.publish(&rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));

@@ -145,7 +145,7 @@ fn plant(extra_broker: &str) -> Plant {
     }
 }
 
-/// Publishes the LTS case of DOMAIN §8 at minute `m` (T and steam ratio before the analysis).
+/// Publishes the LTS case of docs/domain.md §8 at minute `m` (T and steam ratio before the analysis).
 fn lts_case(p: &Publisher, rt: &tokio::runtime::Runtime, m: i64, t_c: f64) {
     p.publish(rt, "t/lts1/ti", &scalar(ts(m) - 60_000, t_c, "degC"));
     p.publish(rt, "t/lts1/pi", &scalar(ts(m) - 60_000, 29.0, "barg"));
@@ -170,7 +170,7 @@ fn published_results_equal_the_calculator() {
     assert!(wait_for(&got, Duration::from_secs(10), |m| m.iter().any(
         |(t, pl, _)| t == "eqwatch/test/status" && pl.contains("online")
     )));
-    // Reformer, wet basis (DOMAIN §8 gas read at 808 °C, 30 bar abs).
+    // Reformer, wet basis (docs/domain.md §8 gas read at 808 °C, 30 bar abs).
     pubr.publish(&p.rt, "t/ref1/ti", &scalar(ts(0), 808.0, "degC"));
     pubr.publish(&p.rt, "t/ref1/pi", &scalar(ts(0), 30.0, "bara"));
     pubr.publish(
@@ -285,7 +285,7 @@ fn published_results_equal_the_calculator() {
         assert_eq!(last["direction"], expected["direction"]);
         assert!(last["seq"].as_u64().is_some());
     }
-    // The LTS approach is the DOMAIN §8 figure: 12.00 K.
+    // The LTS approach is the docs/domain.md §8 figure: 12.00 K.
     let lts = results(&got, "lts1");
     assert!((lts[0]["approach_k"].as_f64().unwrap() - 12.0).abs() < 0.01);
 }

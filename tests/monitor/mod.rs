@@ -36,7 +36,7 @@ fn scalar(ts: i64, v: f64) -> ScalarReading {
     }
 }
 
-/// The LTS gas of DOMAIN §8 in the demo's lts1 component order (H2, N2, CO, CO2, CH4, Ar).
+/// The LTS gas of docs/domain.md §8 in the demo's lts1 component order (H2, N2, CO, CO2, CH4, Ar).
 fn lts_analysis(ts: i64) -> AnalysisReading {
     let v = [61.0536, 18.98637, 0.28697, 19.38096, 0.2921, 0.0];
     AnalysisReading {
@@ -64,12 +64,12 @@ fn evaluated(o: Outcome) -> Evaluation {
 }
 
 fn codes(e: &Evaluation) -> Vec<&'static str> {
-    e.reasons.iter().map(|r| r.code).collect()
+    e.reasons.iter().map(|r| r.code.as_str()).collect()
 }
 
 #[test]
 fn aligned_good_analysis_matches_the_worked_example() {
-    // DOMAIN §8 [derived]: with Moe's K at 220 °C the LTS approach is 12.00 K.
+    // docs/domain.md §8 [derived]: with Moe's K at 220 °C the LTS approach is 12.00 K.
     // Ar = 0 here, which is allowed (inert, not in the reaction).
     let s = settings();
     let r = reactor(&s, "lts1");
@@ -105,7 +105,7 @@ fn aligned_good_analysis_matches_the_worked_example() {
 
 #[test]
 fn negative_approach_within_its_uncertainty_keeps_the_result_good() {
-    // DOMAIN §8 [derived]: this gas is at equilibrium (Moe K) at 505.15 K. Read at
+    // docs/domain.md §8 [derived]: this gas is at equilibrium (Moe K) at 505.15 K. Read at
     // 508 K the approach is −2.85 K against a ± of about 4 K (demo lts1: ±2 K, ±0.2
     // bar, ±2 %, ±5 %): informational, still good. At 520 K (−14.85 K) it is beyond.
     let s = settings();
@@ -313,7 +313,7 @@ fn no_temperature_approach_where_equilibrium_is_below_detection() {
     // 1.6 ppm CO at 600 K and 28 bar: the equilibrium CO is ~1e-7 ppm, far below the
     // demo analyser's 0.5 ppm detection limit (demo-plant.toml), so the approach
     // (which would read ~380 K) is withdrawn for both reactions, the result stays good
-    // and says why [common practice at methanators, DOMAIN §10].
+    // and says why [common practice at methanators, docs/domain.md §10].
     let e = methanator(1.6e-6, 0.8e-6);
     assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
     assert!(e.approach_not_meaningful);
@@ -325,7 +325,7 @@ fn no_temperature_approach_where_equilibrium_is_below_detection() {
     let why: Vec<&Reason> = e
         .reasons
         .iter()
-        .filter(|r| r.code == "approach_not_meaningful")
+        .filter(|r| r.code == ReasonCode::ApproachNotMeaningful)
         .collect();
     assert_eq!(why.len(), 2, "{:?}", e.reasons);
     assert!(
@@ -341,7 +341,7 @@ fn no_temperature_approach_where_equilibrium_is_below_detection() {
     assert!(
         e.reasons
             .iter()
-            .any(|r| r.code == "below_detection_limit" && r.message.contains("0.2 ppm")),
+            .any(|r| r.code == ReasonCode::BelowDetectionLimit && r.message.contains("0.2 ppm")),
         "{:?}",
         e.reasons
     );

@@ -31,7 +31,7 @@ end_of_run_limit = "20 K"
 }
 
 const GAS: [(&str, f64); 5] = [
-    // DOMAIN §8 LTS gas (dry mol%).
+    // docs/domain.md §8 LTS gas (dry mol%).
     ("H2", 61.0536),
     ("N2", 18.98637),
     ("CO", 0.28697),

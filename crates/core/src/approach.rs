@@ -1,7 +1,7 @@
 //! Approach to equilibrium of a measured gas: Q, Q/K, direction, affinity, the
 //! equilibrium temperature and the temperature approach with its uncertainty.
 //!
-//! Conventions (DESIGN §3, DOMAIN §2):
+//! Conventions (docs/domain.md §2):
 //! - Activity a_i = φ_i y_i P/p° with p° = 1 bar; Q = Π a_i^ν_i; ln K from a [`KModel`].
 //! - T_eq solves ln K(T_eq) = ln Q with φ held at the measured T and P.
 //! - Approach ΔT = T − T_eq for endothermic reactions and T_eq − T for exothermic
@@ -429,7 +429,7 @@ impl ReactorModel {
             }
         }
         if let Some((s, w)) = state.steam_ratio {
-            // d ln Q / d ln S = ν_w/(1+S) − S/(1+S) Σ_dry ν_i (DOMAIN §5 basis algebra).
+            // d ln Q / d ln S = ν_w/(1+S) − S/(1+S) Σ_dry ν_i (docs/domain.md §5 basis algebra).
             let d = term.nu[w] / (1.0 + s) - s / (1.0 + s) * nu_dry;
             var_steam = (d * unc.steam_ratio_rel).powi(2);
         }
@@ -638,7 +638,7 @@ mod tests {
 
     #[test]
     fn reformer_worked_example() {
-        // DOMAIN §8 [derived]: gas at equilibrium at 796 °C, 30 bar abs, Xu–Froment K;
+        // docs/domain.md §8 [derived]: gas at equilibrium at 796 °C, 30 bar abs, Xu–Froment K;
         // measured exit 808 °C → methane approach 12.00 K, Q/K(808 °C) ≈ 0.757.
         let (a, _, _) = evaluate(
             "CH4 + H2O = CO + 3 H2",
@@ -669,7 +669,7 @@ mod tests {
 
     #[test]
     fn lts_worked_example_and_source_dependence() {
-        // DOMAIN §8 [derived]: LTS outlet dry mol% with S/D 0.36312: Q = 113.55; at 220 °C
+        // docs/domain.md §8 [derived]: LTS outlet dry mol% with S/D 0.36312: Q = 113.55; at 220 °C
         // the approach is 12.00 K with Moe K and 8.66 K with Xu–Froment K; Q/K ≈ 0.802 (Moe).
         let comp = "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921";
         let run = |src| {
@@ -716,7 +716,7 @@ mod tests {
 
     #[test]
     fn peng_robinson_ammonia_loop() {
-        // DOMAIN §4: H2 0.60 / N2 0.20 / NH3 0.15 / Ar 0.03 / CH4 0.02 at 700 K, 150 bar:
+        // docs/domain.md §4: H2 0.60 / N2 0.20 / NH3 0.15 / Ar 0.03 / CH4 0.02 at 700 K, 150 bar:
         // φ_H2 = 1.0356, φ_N2 = 1.0546, φ_NH3 = 0.9886 (thermo 0.6.1 PRMIX, default
         // critical constants). Tolerance 1e-4 (values quoted to 4 decimals).
         let (_, names, ln_phi) = evaluate(
@@ -737,7 +737,7 @@ mod tests {
 
     #[test]
     fn uncertainty_follows_the_sensitivity() {
-        // DOMAIN §2 [derived]: a 10 % error in Q moves T_eq by about 9 K at an HTS (400 °C).
+        // docs/domain.md §2 [derived]: a 10 % error in Q moves T_eq by about 9 K at an HTS (400 °C).
         // First order: δT = δln Q · R T²/|ΔH°|; with ±10 % on a single reactant's reading
         // (ν = −1) δln Q = 0.1, so the approach ± is close to 9 K.
         let db = SpeciesDb::builtin();
@@ -766,7 +766,7 @@ mod tests {
         let t_eq = a.equilibrium_temperature_k.unwrap();
         let expected = 0.1 / k_slope(&model, t_eq);
         assert!((u - expected).abs() < 1e-9);
-        // DOMAIN §2 [derived]: a 10 % error in Q at 400 °C moves T_eq by about 9 K.
+        // docs/domain.md §2 [derived]: a 10 % error in Q at 400 °C moves T_eq by about 9 K.
         let at_400c = 1.1f64.ln() / k_slope(&model, 673.15);
         assert!((at_400c - 9.0).abs() < 0.5, "{at_400c}");
         // Thermocouple ± adds in quadrature.
@@ -841,7 +841,7 @@ mod tests {
         model.evaluate(0, &state, &s, unc)
     }
 
-    /// The DOMAIN §8 LTS gas (dry, S/D 0.36312, 30 bar abs) at `t` kelvin.
+    /// The docs/domain.md §8 LTS gas (dry, S/D 0.36312, 30 bar abs) at `t` kelvin.
     fn lts_gas_at(t: f64, source: KSourceId, unc: &Uncertainty) -> Approach {
         let db = SpeciesDb::builtin();
         let r = parse_reaction("CO + H2O = CO2 + H2", &db).unwrap();
@@ -866,7 +866,7 @@ mod tests {
 
     #[test]
     fn sign_direction_and_beyond_flag_table() {
-        // DOMAIN §8 [derived]: with Moe K this gas is at equilibrium at 220 °C + 12.00 K
+        // docs/domain.md §8 [derived]: with Moe K this gas is at equilibrium at 220 °C + 12.00 K
         // = 505.15 K. Read at other temperatures the approach is T_eq − T (exothermic);
         // its ± with README_UNC is about 3.9 K (README quick start: 3.936563 K).
         let none = Uncertainty::default();
@@ -986,7 +986,7 @@ mod tests {
     #[test]
     fn demo_reformer_budget_is_dominated_by_the_steam_ratio() {
         // config/demo-plant.toml ref1 (invented): ±2 K, ±0.2 bar, ±2 % of reading, ±5 %
-        // steam ratio; gas of DOMAIN §8 (dry, S/D 0.63549) read at 808 °C and 30 bar abs.
+        // steam ratio; gas of docs/domain.md §8 (dry, S/D 0.63549) read at 808 °C and 30 bar abs.
         // The issue "Alerts and figures a plant engineer can trust" saw 3.8 K of 5.1 K
         // from the steam ratio for this reformer.
         // The model is built here as the configuration builds ref1 (reforming and shift,

@@ -17,12 +17,12 @@
 //! mixture of the measured gas. First order: the change of moles (−2 and −2 per mole
 //! converted) and of c_p along the bed are neglected, which is within about 1 % at the
 //! fractions of a percent a methanator sees. In hydrogen-rich synthesis gas near 300 °C
-//! this gives about 73 K per mol % CO and 60 K per mol % CO2 (DOMAIN §10 [derived]).
+//! this gives about 73 K per mol % CO and 60 K per mol % CO2 (docs/domain.md §10 [derived]).
 //!
 //! # References
 //! - B. J. McBride, S. Gordon, M. A. Reno, NASA TM-4513 (1993): the species polynomials
 //!   (as transcribed in `data/species.toml`).
-//! - DOMAIN §10: the rule of thumb of about 73 K per mol % CO and 60 K per mol % CO2
+//! - docs/domain.md §10: the rule of thumb of about 73 K per mol % CO and 60 K per mol % CO2
 //!   converted [derived there from NASA data with c_p ≈ 29.8 J/(mol K)].
 
 use crate::thermo::species::SpeciesDb;
@@ -134,7 +134,7 @@ mod tests {
 
     #[test]
     fn about_73_k_per_percent_co_and_60_k_per_percent_co2() {
-        // DOMAIN §10 [derived]: ~73 K per mol % CO and ~60 K per mol % CO2 near 300 °C with
+        // docs/domain.md §10 [derived]: ~73 K per mol % CO and ~60 K per mol % CO2 near 300 °C with
         // c_p ≈ 29.8 J/(mol K). Our c_p of this gas from the NASA data differs a little from
         // that round figure, so the check is to 3 %.
         let db = SpeciesDb::builtin();

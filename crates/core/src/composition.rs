@@ -280,7 +280,7 @@ mod tests {
 
     #[test]
     fn dry_basis_with_steam_ratio() {
-        // DOMAIN §8 LTS example: dry H2 61.0536, N2 18.98637, CO 0.28697, CO2 19.38096,
+        // docs/domain.md §8 LTS example: dry H2 61.0536, N2 18.98637, CO 0.28697, CO2 19.38096,
         // CH4 0.2921 mol%, S/D 0.36312: wet y = dry y / (1 + S/D), water S/D/(1 + S/D).
         let db = SpeciesDb::builtin();
         let c = parse_components(

@@ -840,7 +840,7 @@ mod tests {
     #[test]
     fn larson_dodge_ammonia_with_fugacity() {
         // Equilibrium NH3 from a 3:1 H2:N2 feed, no inerts (Larson & Dodge measurements as
-        // tabulated in textbooks, DOMAIN §4 [secondary]): 16.4 % at 450 °C/100 atm,
+        // tabulated in textbooks, docs/domain.md §4 [secondary]): 16.4 % at 450 °C/100 atm,
         // 47 % at 400 °C/300 atm, 26.4 % at 500 °C/300 atm. NASA data + Peng–Robinson
         // with k_ij = 0; tolerance 1.5 mol% absolute (NH3 data spread ~7 % in K and
         // PR without k_ij; measured values themselves ±0.5 %).

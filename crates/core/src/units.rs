@@ -3,7 +3,7 @@
 //! Everything is converted once, at the edge, to the fixed units the core works in:
 //! kelvin, bar absolute and mole fraction. Nothing here reads a clock or a file.
 //! Ambiguous pressure units (`psi`, `kg/cm2`) are refused: gauge/absolute confusion
-//! is one of the commonest causes of a wrong approach figure (DOMAIN §5).
+//! is one of the commonest causes of a wrong approach figure (docs/domain.md §5).
 
 use thiserror::Error;
 

@@ -12,7 +12,7 @@
 //!   only when `value > limit` (High; Low mirrored), so the on-delay counts only samples
 //!   past the limit and a raised event's value is always past its limit; once raised, a
 //!   sample counts as clear only when `value < limit − deadband`, so the deadband (and
-//!   the off-delay) govern the clear (ISA-18.2 terms; DOMAIN §10). Missing data (`None`)
+//!   the off-delay) govern the clear (ISA-18.2 terms; docs/domain.md §10). Missing data (`None`)
 //!   and non-finite values are bad data: they never change the condition and they break
 //!   the continuity of a pending on/off delay.
 //! - On-delay / off-delay: the raw condition must differ from the debounced condition
@@ -1339,7 +1339,7 @@ mod tests {
         /// A raise (or re-raise) only ever happens on a sample past the limit, and every
         /// sample the on-delay counted was past the limit too, for any delay and deadband
         /// (ISA-18.2: the on-delay counts samples in alarm; the deadband only governs the
-        /// clear; DOMAIN §10, common practice).
+        /// clear; docs/domain.md §10, common practice).
         #[test]
         fn raised_value_is_always_past_the_limit(
             steps in values(),

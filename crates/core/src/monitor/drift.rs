@@ -425,7 +425,7 @@ impl Trend {
 mod tests {
     use super::*;
 
-    /// DOMAIN §7 check vectors [derived]: ten 10.0 then ten 12.0.
+    /// docs/domain.md §7 check vectors [derived]: ten 10.0 then ten 12.0.
     fn series() -> Vec<f64> {
         std::iter::repeat_n(10.0, 10)
             .chain(std::iter::repeat_n(12.0, 10))
@@ -435,7 +435,7 @@ mod tests {
     #[test]
     fn ewma_first_signal_at_sample_14() {
         // μ0 = 10, σ = 1, λ = 0.2, L = 3 → first signal at sample 14 with z = 11.1808
-        // (DOMAIN §7 [derived], Roberts 1959 limits).
+        // (docs/domain.md §7 [derived], Roberts 1959 limits).
         let mut e = Ewma::new(10.0, 1.0, 0.2, 3.0).unwrap();
         let mut first = None;
         for (i, x) in series().into_iter().enumerate() {
@@ -452,7 +452,7 @@ mod tests {
 
     #[test]
     fn cusum_first_signal_at_sample_14() {
-        // k = 0.5, h = 5 on the same series → first signal at sample 14 (DOMAIN §7 [derived]).
+        // k = 0.5, h = 5 on the same series → first signal at sample 14 (docs/domain.md §7 [derived]).
         let mut c = Cusum::new(10.0, 0.5, 5.0).unwrap();
         let points: Vec<CusumPoint> = series()
             .into_iter()
@@ -517,7 +517,7 @@ mod tests {
 
     #[test]
     fn linear_end_of_run() {
-        // DOMAIN §7 [derived]: days [0..180 by 30], approach [5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4]
+        // docs/domain.md §7 [derived]: days [0..180 by 30], approach [5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4]
         // → slope 0.018929 K/day, intercept 5.010714, a 20 K limit at day 791.89.
         let days = [0.0, 30.0, 60.0, 90.0, 120.0, 150.0, 180.0];
         let y = [5.0, 5.6, 6.1, 6.8, 7.2, 7.9, 8.4];
@@ -549,7 +549,7 @@ mod tests {
 
     #[test]
     fn theil_sen() {
-        // DOMAIN §7 days and approaches: 21 pairwise slopes, median 0.0188889 K/day,
+        // docs/domain.md §7 days and approaches: 21 pairwise slopes, median 0.0188889 K/day,
         // intercept 5.0, Sen's interval ranks 4 and 18 → [0.0177778, 0.0200000]
         // [derived: computed with Python 3.11 statistics.median over the pairs].
         let p: Vec<(f64, f64)> = [0.0, 30.0, 60.0, 90.0, 120.0, 150.0, 180.0]
@@ -579,7 +579,7 @@ mod tests {
 
     #[test]
     fn least_squares_slope_interval() {
-        // DOMAIN §7 data: s = 0.0956 from the fit, t(5) = 2.571 (NIST/SEMATECH table),
+        // docs/domain.md §7 data: s = 0.0956 from the fit, t(5) = 2.571 (NIST/SEMATECH table),
         // Sxx = 25200 → half-width 2.571·s/√Sxx [derived].
         let p: Vec<(f64, f64)> = [0.0, 30.0, 60.0, 90.0, 120.0, 150.0, 180.0]
             .into_iter()

@@ -9,16 +9,19 @@
 pub mod alarm;
 pub mod buffer;
 pub mod drift;
+pub mod reason;
 pub mod spec;
 pub mod watch;
 
 use std::collections::BTreeMap;
 
 use buffer::{Lookup, Point, ScalarBuffer};
+use reason::Findings;
+pub use reason::{Reason, ReasonCode};
 use spec::{InputSpec, ReactorSpec, SteamRatioSpec};
 
 use crate::approach::{Approach, Flags, GasState, Scratch};
-use crate::composition::{Basis, Component, CompositionError, WaterSource, to_wet};
+use crate::composition::{Basis, Component, CompositionError, WaterSource, WetComposition, to_wet};
 use crate::thermo::species::SpeciesDb;
 use crate::units::CompositionUnit;
 
@@ -60,14 +63,6 @@ impl Quality {
             Self::Bad => "bad",
         }
     }
-}
-
-/// Why a result is not good: a stable code and a message for the engineer.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Reason {
-    pub code: &'static str,
-    pub severity: Quality,
-    pub message: String,
 }
 
 /// A scalar reading in fixed units (K, bar absolute, or a ratio).
@@ -275,84 +270,137 @@ impl ReactorMonitor {
         Outcome::Evaluated(Box::new(self.evaluate(s, db, &a, now_ms)))
     }
 
+    /// The evaluation of one analysis, phase by phase: the analysis itself (source
+    /// quality, age, stuck analyser, basis), the thermocouples and the transient check,
+    /// pressure and steam ratio at the sample time, the components, the wet gas, then
+    /// per reaction the approach, the equilibrium composition and the key component.
     fn evaluate(
         &mut self,
-        s: &ReactorSpec,
+        spec: &ReactorSpec,
         db: &SpeciesDb,
         a: &AnalysisReading,
         now_ms: i64,
     ) -> Evaluation {
-        let lag = ms(s.composition.lag);
+        let lag = ms(spec.composition.lag);
         let t_sample = a.ts_ms - lag;
-        let mut reasons: Vec<Reason> = Vec::new();
-        let mut push = |code: &'static str, severity: Quality, message: String| {
-            reasons.push(Reason {
-                code,
-                severity,
-                message,
-            })
+        let mut case = Case {
+            spec,
+            db,
+            found: Findings::default(),
+            inputs: Vec::new(),
         };
-        let mut inputs = Vec::new();
+        self.check_analysis(&mut case, a, now_ms);
+        let temperatures = self.temperatures(&mut case, t_sample);
+        self.check_transient(&mut case, t_sample, lag, temperatures.mean_k);
+        let (pressure_bar, steam_ratio) = self.pressure_and_steam(&mut case, t_sample);
+        let comps = components(&mut case, a);
+        let wet = wet_gas(&mut case, &comps, steam_ratio);
+        let mut eval = Evaluation {
+            analysis_ts_ms: a.ts_ms,
+            sample_ts_ms: t_sample,
+            quality: Quality::Good,
+            reasons: Vec::new(),
+            temperature_k: temperatures.mean_k,
+            temperature_spread_k: temperatures.spread_k,
+            pressure_bar,
+            steam_ratio,
+            inputs: std::mem::take(&mut case.inputs),
+            mole_fractions: Vec::new(),
+            fugacity_coefficients: Vec::new(),
+            compressibility_factor: None,
+            reactions: Vec::new(),
+            equilibrium_mole_fractions: Vec::new(),
+            key_measured: None,
+            key_equilibrium: None,
+            key_measured_on_basis: None,
+            approach_not_meaningful: false,
+            bed_rise: None,
+        };
+        if let (Some(w), Some(t), Some(p)) = (&wet, temperatures.mean_k, pressure_bar) {
+            let state = GasState {
+                temperature_k: t,
+                pressure_bar: p,
+                y: &w.y,
+                steam_ratio: w.steam_ratio.zip(w.added_water),
+            };
+            self.reactions(&mut case, &state, &mut eval);
+            equilibrium_figures(&mut case, &state, &mut eval);
+            key_figures(&mut case, w, temperatures.inlet_k, t, &mut eval);
+        }
+        eval.quality = case.found.worst();
+        if eval.reactions.is_empty() {
+            eval.quality = Quality::Bad;
+        }
+        eval.reasons = case.found.into_vec();
+        eval
+    }
 
+    /// The analysis itself: its source quality, its age on arrival, a stuck analyser,
+    /// the basis it says against the configured one.
+    fn check_analysis(&self, case: &mut Case<'_>, a: &AnalysisReading, now_ms: i64) {
+        let spec = case.spec;
         // Source quality and freshness of the analysis itself.
         match a.quality {
             SourceQuality::Good => {}
-            SourceQuality::Uncertain => push(
-                "source_uncertain",
+            SourceQuality::Uncertain => case.found.push(
+                ReasonCode::SourceUncertain,
                 Quality::Uncertain,
-                format!("{} reports uncertain quality", s.composition.tag),
+                format!("{} reports uncertain quality", spec.composition.tag),
             ),
-            SourceQuality::Bad => push(
-                "source_bad",
+            SourceQuality::Bad => case.found.push(
+                ReasonCode::SourceBad,
                 Quality::Bad,
-                format!("{} reports bad quality", s.composition.tag),
+                format!("{} reports bad quality", spec.composition.tag),
             ),
         }
         let age = now_ms - a.ts_ms;
-        if age > ms(s.composition.max_age) {
-            push(
-                "stale_analysis",
+        if age > ms(spec.composition.max_age) {
+            case.found.push(
+                ReasonCode::StaleAnalysis,
                 Quality::Uncertain,
                 format!(
                     "{} analysis is {} s old on arrival (max age {} s)",
-                    s.composition.tag,
+                    spec.composition.tag,
                     age / 1000,
-                    s.composition.max_age.as_secs()
+                    spec.composition.max_age.as_secs()
                 ),
             );
         }
         if self.repeats >= STUCK_REPEATS {
-            push(
-                "analyser_stuck",
+            case.found.push(
+                ReasonCode::AnalyserStuck,
                 Quality::Bad,
                 format!(
                     "{} has repeated identical values {} times: analyser stuck?",
-                    s.composition.tag,
+                    spec.composition.tag,
                     self.repeats + 1
                 ),
             );
         }
         if let Some(b) = a.basis {
-            if b != s.composition.basis {
-                push(
-                    "basis_mismatch",
+            if b != spec.composition.basis {
+                case.found.push(
+                    ReasonCode::BasisMismatch,
                     Quality::Bad,
                     format!(
                         "{} says basis {} but the reactor is configured {}",
-                        s.composition.tag,
+                        spec.composition.tag,
                         b.as_str(),
-                        s.composition.basis.as_str()
+                        spec.composition.basis.as_str()
                     ),
                 );
             }
         }
+    }
 
-        // Temperature: average of the fresh thermocouples at the sample time (the bed
-        // inlet thermocouple of a bed-rise check apart).
+    /// Temperature: the average of the fresh thermocouples at the sample time (the bed
+    /// inlet thermocouple of a bed-rise check apart), their spread, and the inlet.
+    fn temperatures(&self, case: &mut Case<'_>, t_sample: i64) -> Temperatures {
+        let spec = case.spec;
         let mut t_values = Vec::new();
-        let inlet_index = s.bed_rise.as_ref().map(|b| b.inlet);
+        let inlet_index = spec.bed_rise.as_ref().map(|b| b.inlet);
         let mut inlet_k = None;
-        for (i, ts) in s.temperatures.iter().enumerate() {
+        for (i, ts) in spec.temperatures.iter().enumerate() {
             let look = self.temperatures[i].at(t_sample, ms(ts.max_age));
             let (value, age_ms, used) = match look {
                 Lookup::Value {
@@ -361,16 +409,16 @@ impl ReactorMonitor {
                     age_ms,
                 } => {
                     if quality == SourceQuality::Bad {
-                        push(
-                            "source_bad",
+                        case.found.push(
+                            ReasonCode::SourceBad,
                             Quality::Uncertain,
                             format!("{} reports bad quality; left out", ts.tag),
                         );
                         (Some(value), Some(age_ms), false)
                     } else {
                         if quality == SourceQuality::Uncertain {
-                            push(
-                                "source_uncertain",
+                            case.found.push(
+                                ReasonCode::SourceUncertain,
                                 Quality::Uncertain,
                                 format!("{} reports uncertain quality", ts.tag),
                             );
@@ -384,28 +432,28 @@ impl ReactorMonitor {
                     }
                 }
                 Lookup::Stale { nearest_ts_ms } => {
-                    push(
-                        "stale_temperature",
-                        Quality::Uncertain,
-                        format!(
-                            "{}: no reading within {} s of the sample time (nearest {} s away); left out",
-                            ts.tag,
-                            ts.max_age.as_secs(),
-                            (nearest_ts_ms - t_sample).abs() / 1000
-                        ),
-                    );
+                    case.found.push(
+                    ReasonCode::StaleTemperature,
+                    Quality::Uncertain,
+                    format!(
+                        "{}: no reading within {} s of the sample time (nearest {} s away); left out",
+                        ts.tag,
+                        ts.max_age.as_secs(),
+                        (nearest_ts_ms - t_sample).abs() / 1000
+                    ),
+                );
                     (None, None, false)
                 }
                 Lookup::Empty => {
-                    push(
-                        "stale_temperature",
+                    case.found.push(
+                        ReasonCode::StaleTemperature,
                         Quality::Uncertain,
                         format!("{}: no reading yet; left out", ts.tag),
                     );
                     (None, None, false)
                 }
             };
-            inputs.push(InputUse {
+            case.inputs.push(InputUse {
                 tag: ts.tag.clone(),
                 value,
                 unit: "K",
@@ -414,8 +462,8 @@ impl ReactorMonitor {
             });
         }
         let temperature_k = if t_values.is_empty() {
-            push(
-                "no_temperature",
+            case.found.push(
+                ReasonCode::NoTemperature,
                 Quality::Bad,
                 "no usable outlet temperature at the sample time".into(),
             );
@@ -427,12 +475,28 @@ impl ReactorMonitor {
             t_values.iter().fold(f64::NEG_INFINITY, |m, v| m.max(*v))
                 - t_values.iter().fold(f64::INFINITY, |m, v| m.min(*v))
         });
-        // Transient: the temperature moved faster than the threshold over the lag window.
-        if lag > 0 && !s.temperatures.is_empty() {
+        Temperatures {
+            mean_k: temperature_k,
+            spread_k: temperature_spread_k,
+            inlet_k,
+        }
+    }
+
+    /// Transient: the temperature moved faster than the threshold over the lag window.
+    fn check_transient(
+        &self,
+        case: &mut Case<'_>,
+        t_sample: i64,
+        lag: i64,
+        temperature_k: Option<f64>,
+    ) {
+        let spec = case.spec;
+        let inlet_index = spec.bed_rise.as_ref().map(|b| b.inlet);
+        if lag > 0 && !spec.temperatures.is_empty() {
             let earlier: Vec<f64> = self
                 .temperatures
                 .iter()
-                .zip(&s.temperatures)
+                .zip(&spec.temperatures)
                 .enumerate()
                 .filter(|(i, _)| inlet_index != Some(*i))
                 .filter_map(|(_, (b, ts))| match b.at(t_sample - lag, ms(ts.max_age)) {
@@ -443,335 +507,424 @@ impl ReactorMonitor {
             if let (Some(now_t), false) = (temperature_k, earlier.is_empty()) {
                 let then_t = earlier.iter().sum::<f64>() / earlier.len() as f64;
                 let rate = (now_t - then_t).abs() / (lag as f64 / 60_000.0);
-                if rate > s.transient_k_per_min {
-                    push(
-                        "transient",
-                        Quality::Uncertain,
-                        format!(
-                            "temperature moved {rate:.1} K/min over the analyser lag (limit {} K/min): the gas analysed was not at this temperature; the result is left out of the trend",
-                            crate::units::fmt_num(s.transient_k_per_min, 3)
-                        ),
-                    );
+                if rate > spec.transient_k_per_min {
+                    case.found.push(
+                    ReasonCode::Transient,
+                    Quality::Uncertain,
+                    format!(
+                        "temperature moved {rate:.1} K/min over the analyser lag (limit {} K/min): the gas analysed was not at this temperature; the result is left out of the trend",
+                        crate::units::fmt_num(spec.transient_k_per_min, 3)
+                    ),
+                );
                 }
             }
         }
+    }
 
-        // Pressure, and the steam ratio of a dry analysis, at the sample time.
-        let pressure_bar = aligned(
+    /// Pressure, and the steam ratio of a dry analysis, at the sample time.
+    fn pressure_and_steam(&self, case: &mut Case<'_>, t_sample: i64) -> (Option<f64>, Option<f64>) {
+        let spec = case.spec;
+        let pressure_bar = case.aligned(
             &self.pressure,
-            &s.pressure,
+            &spec.pressure,
             t_sample,
             "bar",
-            "stale_pressure",
-            &mut push,
-            &mut inputs,
+            ReasonCode::StalePressure,
         );
-        let steam_ratio = match &s.steam_ratio {
+        let steam_ratio = match &spec.steam_ratio {
             None => None,
             Some(SteamRatioSpec::Fixed(v)) => Some(*v),
-            Some(SteamRatioSpec::Measured(ss)) => aligned(
+            Some(SteamRatioSpec::Measured(ss)) => case.aligned(
                 &self.steam,
                 ss,
                 t_sample,
                 "mol/mol",
-                "stale_steam_ratio",
-                &mut push,
-                &mut inputs,
+                ReasonCode::StaleSteamRatio,
             ),
         };
+        (pressure_bar, steam_ratio)
+    }
 
-        // The analysis: every component present, finite and not negative.
-        let mut comps = Vec::with_capacity(a.values.len());
-        for (name, v) in s.composition.components.iter().zip(&a.values) {
-            match v {
-                None => push(
-                    "missing_component",
-                    Quality::Bad,
-                    format!(
-                        "{} is missing from the {} analysis",
-                        name, s.composition.tag
-                    ),
+    /// Fugacity coefficients at this state, then the approach of every reaction with
+    /// what its flags say.
+    fn reactions(&mut self, case: &mut Case<'_>, state: &GasState<'_>, eval: &mut Evaluation) {
+        let spec = case.spec;
+        let t = state.temperature_k;
+        let model = &spec.model;
+        let eos_flags = model.fugacity(state, &mut self.scratch);
+        if eos_flags.has(Flags::EOS_FAILED) {
+            case.found.push(
+                ReasonCode::EosProblem,
+                Quality::Uncertain,
+                "Peng-Robinson failed at this state; ideal gas used".into(),
+            );
+        }
+        if eos_flags.has(Flags::EOS_MULTIPLE_ROOTS) {
+            case.found.push(
+                ReasonCode::EosProblem,
+                Quality::Uncertain,
+                "Peng-Robinson has two roots: a liquid may be present".into(),
+            );
+        }
+        for (i, term) in model.reactions().iter().enumerate() {
+            let ap = model.evaluate(i, state, &self.scratch, &spec.uncertainty);
+            let label = term.reaction.canonical();
+            if ap.flags.has(Flags::ZERO_COMPONENT) {
+                case.found.push(
+                ReasonCode::ZeroComponent,
+                Quality::Bad,
+                format!(
+                    "{label}: a species is zero, Q is 0 or infinite; report values below detection at the detection limit"
                 ),
-                Some(x) if !x.is_finite() => push(
-                    "bad_value",
-                    Quality::Bad,
+            );
+            }
+            if ap.flags.has(Flags::TEMPERATURE_OUTSIDE_DATA) {
+                case.found.push(
+                    ReasonCode::TemperatureOutsideDataRange,
+                    Quality::Uncertain,
                     format!(
-                        "{name} is not a number in the {} analysis",
-                        s.composition.tag
+                        "{label}: {t:.1} K is outside the {} range",
+                        term.k.id().as_str()
                     ),
+                );
+            }
+            if ap.flags.has(Flags::BEYOND_EQUILIBRIUM) {
+                let by = match (ap.approach_k, ap.approach_uncertainty_k) {
+                    (Some(a), Some(u)) if u > 0.0 => format!("approach {a:.2} ± {u:.2} K"),
+                    (Some(a), _) => format!("approach {a:.2} K, no uncertainty configured"),
+                    (None, _) => format!("Q/K = {:.4}", ap.q_over_k),
+                };
+                case.found.push(
+                ReasonCode::BeyondEquilibrium,
+                Quality::Uncertain,
+                format!(
+                    "{label}: Q is beyond K ({by}); check the analyser, thermocouple, pressure basis or steam ratio"
                 ),
-                Some(x) if *x < 0.0 => push(
-                    "negative_value",
-                    Quality::Bad,
-                    format!(
-                        "{name} = {x} is negative in the {} analysis",
-                        s.composition.tag
-                    ),
+            );
+            }
+            if ap.flags.has(Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY) {
+                // Informational: a negative approach inside its own ± is no data problem.
+                case.found.push(
+                ReasonCode::AtEquilibriumWithinUncertainty,
+                Quality::Good,
+                format!(
+                    "{label}: Q is past K by less than the uncertainty (approach {:.2} ± {:.2} K): at equilibrium as far as the measurements tell",
+                    ap.approach_k.unwrap_or(f64::NAN),
+                    ap.approach_uncertainty_k.unwrap_or(f64::NAN)
                 ),
-                Some(x) => {
-                    let limit = s
-                        .composition
-                        .detection_limits
-                        .get(comps.len())
-                        .copied()
-                        .flatten();
-                    let value = match limit {
-                        // Below the detection limit: taken at the limit (so Q stays finite)
-                        // and said so [common practice for reporting non-detects].
-                        Some(dl) if *x < dl => {
-                            push(
-                                "below_detection_limit",
-                                Quality::Good,
-                                format!(
-                                    "{name} {} is below the {} detection limit of {}; taken at the limit",
-                                    fmt_fraction(*x),
-                                    s.composition.tag,
-                                    fmt_fraction(dl)
-                                ),
-                            );
-                            dl
-                        }
-                        _ => *x,
-                    };
-                    comps.push(Component {
-                        species: name.clone(),
-                        value,
-                        unit: CompositionUnit::Fraction,
-                    })
+            );
+            }
+            if ap.flags.has(Flags::ENTHALPY_SIGN_CHANGE) {
+                case.found.push(
+                ReasonCode::EnthalpySignChange,
+                Quality::Uncertain,
+                format!(
+                    "{label}: ΔH° changes sign between {t:.1} K and the equilibrium temperature; no temperature approach"
+                ),
+            );
+            }
+            if ap.flags.has(Flags::NO_EQUILIBRIUM_TEMPERATURE) {
+                case.found.push(
+                    ReasonCode::NoEquilibriumTemperature,
+                    Quality::Uncertain,
+                    format!("{label}: no temperature in range has K = Q"),
+                );
+            }
+            eval.reactions.push(ap);
+        }
+        eval.fugacity_coefficients = self.scratch.ln_phi.iter().map(|x| x.exp()).collect();
+        eval.compressibility_factor = Some(self.scratch.z);
+    }
+}
+
+/// One analysis being evaluated: what it is checked against, and what was found and
+/// used so far.
+struct Case<'a> {
+    spec: &'a ReactorSpec,
+    db: &'a SpeciesDb,
+    found: Findings,
+    inputs: Vec<InputUse>,
+}
+
+impl Case<'_> {
+    /// One required scalar input at the sample time: its value, or `None` with a bad reason
+    /// (stale, missing, or reported bad); the use is recorded either way.
+    fn aligned(
+        &mut self,
+        buffer: &ScalarBuffer,
+        input: &InputSpec,
+        t_sample: i64,
+        unit: &'static str,
+        stale_code: ReasonCode,
+    ) -> Option<f64> {
+        match buffer.at(t_sample, ms(input.max_age)) {
+            Lookup::Value {
+                value,
+                quality,
+                age_ms,
+            } => {
+                let used = quality != SourceQuality::Bad;
+                if !used {
+                    self.found.push(
+                        ReasonCode::SourceBad,
+                        Quality::Bad,
+                        format!("{} reports bad quality", input.tag),
+                    );
                 }
+                self.inputs.push(InputUse {
+                    tag: input.tag.clone(),
+                    value: Some(value),
+                    unit,
+                    age_ms: Some(age_ms),
+                    used,
+                });
+                used.then_some(value)
+            }
+            other => {
+                let what = match other {
+                    Lookup::Stale { nearest_ts_ms } => format!(
+                        "the nearest reading is {} s from the sample time, over its max age of {} s",
+                        (nearest_ts_ms - t_sample).abs() / 1000,
+                        input.max_age.as_secs()
+                    ),
+                    _ => "no reading has arrived yet".to_string(),
+                };
+                self.found.push(
+                    stale_code,
+                    Quality::Bad,
+                    format!(
+                        "{}: {what}; check the transmitter and its topic {}",
+                        input.tag, input.origin
+                    ),
+                );
+                self.inputs.push(InputUse {
+                    tag: input.tag.clone(),
+                    value: None,
+                    unit,
+                    age_ms: None,
+                    used: false,
+                });
+                None
             }
         }
-        let mut eval = Evaluation {
-            analysis_ts_ms: a.ts_ms,
-            sample_ts_ms: t_sample,
-            quality: Quality::Good,
-            reasons: Vec::new(),
-            temperature_k,
-            temperature_spread_k,
-            pressure_bar,
-            steam_ratio,
-            inputs,
-            mole_fractions: Vec::new(),
-            fugacity_coefficients: Vec::new(),
-            compressibility_factor: None,
-            reactions: Vec::new(),
-            equilibrium_mole_fractions: Vec::new(),
-            key_measured: None,
-            key_equilibrium: None,
-            key_measured_on_basis: None,
-            approach_not_meaningful: false,
-            bed_rise: None,
-        };
-        let complete = comps.len() == s.composition.components.len();
-        let wet = if complete {
-            let water = match s.composition.basis {
-                Basis::Dry => steam_ratio.map(WaterSource::SteamRatio),
-                Basis::Wet => None,
-            };
-            if s.composition.basis == Basis::Dry && water.is_none() {
-                None
-            } else {
-                match to_wet(
-                    db,
-                    &comps,
-                    s.composition.basis,
-                    water,
-                    s.composition.sum_tolerance,
-                ) {
-                    Ok(w) => {
-                        if (w.analysed_sum - 1.0).abs() > 1e-9 {
-                            push(
-                                "composition_normalised",
-                                Quality::Good,
-                                format!(
-                                    "{} summed to {:.3} mol%; normalised",
-                                    s.composition.tag,
-                                    w.analysed_sum * 100.0
-                                ),
-                            );
-                        }
-                        Some(w)
-                    }
-                    Err(CompositionError::Sum {
-                        sum_percent,
-                        tolerance_percent,
-                        ..
-                    }) => {
-                        push(
-                            "sum_outside_tolerance",
-                            Quality::Bad,
+    }
+}
+
+/// The thermocouples at the sample time.
+struct Temperatures {
+    /// Average of the usable outlet thermocouples.
+    mean_k: Option<f64>,
+    /// Highest minus lowest of them (two or more).
+    spread_k: Option<f64>,
+    /// The bed inlet of a bed-rise check.
+    inlet_k: Option<f64>,
+}
+
+/// The analysis: every component present, finite and not negative (below a detection
+/// limit: taken at the limit).
+fn components(case: &mut Case<'_>, a: &AnalysisReading) -> Vec<Component> {
+    let spec = case.spec;
+    // The analysis: every component present, finite and not negative.
+    let mut comps = Vec::with_capacity(a.values.len());
+    for (name, v) in spec.composition.components.iter().zip(&a.values) {
+        match v {
+            None => case.found.push(
+                ReasonCode::MissingComponent,
+                Quality::Bad,
+                format!(
+                    "{} is missing from the {} analysis",
+                    name, spec.composition.tag
+                ),
+            ),
+            Some(x) if !x.is_finite() => case.found.push(
+                ReasonCode::BadValue,
+                Quality::Bad,
+                format!(
+                    "{name} is not a number in the {} analysis",
+                    spec.composition.tag
+                ),
+            ),
+            Some(x) if *x < 0.0 => case.found.push(
+                ReasonCode::NegativeValue,
+                Quality::Bad,
+                format!(
+                    "{name} = {x} is negative in the {} analysis",
+                    spec.composition.tag
+                ),
+            ),
+            Some(x) => {
+                let limit = spec
+                    .composition
+                    .detection_limits
+                    .get(comps.len())
+                    .copied()
+                    .flatten();
+                let value = match limit {
+                    // Below the detection limit: taken at the limit (so Q stays finite)
+                    // and said so [common practice for reporting non-detects].
+                    Some(dl) if *x < dl => {
+                        case.found.push(
+                            ReasonCode::BelowDetectionLimit,
+                            Quality::Good,
                             format!(
-                                "{} sums to {sum_percent:.3} mol%, outside 100 ± {tolerance_percent} mol%",
-                                s.composition.tag
+                                "{name} {} is below the {} detection limit of {}; taken at the limit",
+                                fmt_fraction(*x),
+                                spec.composition.tag,
+                                fmt_fraction(dl)
                             ),
                         );
-                        None
+                        dl
                     }
-                    Err(e) => {
-                        push(
-                            "bad_value",
-                            Quality::Bad,
-                            format!("{}: {e}", s.composition.tag),
-                        );
-                        None
-                    }
-                }
+                    _ => *x,
+                };
+                comps.push(Component {
+                    species: name.clone(),
+                    value,
+                    unit: CompositionUnit::Fraction,
+                })
             }
-        } else {
-            None
-        };
+        }
+    }
+    comps
+}
 
-        if let (Some(w), Some(t), Some(p)) = (&wet, temperature_k, pressure_bar) {
-            let model = &s.model;
-            let state = GasState {
-                temperature_k: t,
-                pressure_bar: p,
-                y: &w.y,
-                steam_ratio: w.steam_ratio.zip(w.added_water),
-            };
-            let eos_flags = model.fugacity(&state, &mut self.scratch);
-            if eos_flags.has(Flags::EOS_FAILED) {
-                push(
-                    "eos_problem",
-                    Quality::Uncertain,
-                    "Peng-Robinson failed at this state; ideal gas used".into(),
-                );
-            }
-            if eos_flags.has(Flags::EOS_MULTIPLE_ROOTS) {
-                push(
-                    "eos_problem",
-                    Quality::Uncertain,
-                    "Peng-Robinson has two roots: a liquid may be present".into(),
-                );
-            }
-            for (i, term) in model.reactions().iter().enumerate() {
-                let ap = model.evaluate(i, &state, &self.scratch, &s.uncertainty);
-                let label = term.reaction.canonical();
-                if ap.flags.has(Flags::ZERO_COMPONENT) {
-                    push(
-                        "zero_component",
+/// The wet gas of a complete analysis (a dry one with its steam ratio), normalised
+/// inside the sum tolerance; `None` with a reason otherwise.
+fn wet_gas(
+    case: &mut Case<'_>,
+    comps: &[Component],
+    steam_ratio: Option<f64>,
+) -> Option<WetComposition> {
+    let (spec, db) = (case.spec, case.db);
+    let complete = comps.len() == spec.composition.components.len();
+    if complete {
+        let water = match spec.composition.basis {
+            Basis::Dry => steam_ratio.map(WaterSource::SteamRatio),
+            Basis::Wet => None,
+        };
+        if spec.composition.basis == Basis::Dry && water.is_none() {
+            None
+        } else {
+            match to_wet(
+                db,
+                comps,
+                spec.composition.basis,
+                water,
+                spec.composition.sum_tolerance,
+            ) {
+                Ok(w) => {
+                    if (w.analysed_sum - 1.0).abs() > 1e-9 {
+                        case.found.push(
+                            ReasonCode::CompositionNormalised,
+                            Quality::Good,
+                            format!(
+                                "{} summed to {:.3} mol%; normalised",
+                                spec.composition.tag,
+                                w.analysed_sum * 100.0
+                            ),
+                        );
+                    }
+                    Some(w)
+                }
+                Err(CompositionError::Sum {
+                    sum_percent,
+                    tolerance_percent,
+                    ..
+                }) => {
+                    case.found.push(
+                        ReasonCode::SumOutsideTolerance,
                         Quality::Bad,
                         format!(
-                            "{label}: a species is zero, Q is 0 or infinite; report values below detection at the detection limit"
+                            "{} sums to {sum_percent:.3} mol%, outside 100 ± {tolerance_percent} mol%",
+                            spec.composition.tag
                         ),
                     );
+                    None
                 }
-                if ap.flags.has(Flags::TEMPERATURE_OUTSIDE_DATA) {
-                    push(
-                        "temperature_outside_data_range",
-                        Quality::Uncertain,
-                        format!(
-                            "{label}: {t:.1} K is outside the {} range",
-                            term.k.id().as_str()
-                        ),
+                Err(e) => {
+                    case.found.push(
+                        ReasonCode::BadValue,
+                        Quality::Bad,
+                        format!("{}: {e}", spec.composition.tag),
                     );
+                    None
                 }
-                if ap.flags.has(Flags::BEYOND_EQUILIBRIUM) {
-                    let by = match (ap.approach_k, ap.approach_uncertainty_k) {
-                        (Some(a), Some(u)) if u > 0.0 => format!("approach {a:.2} ± {u:.2} K"),
-                        (Some(a), _) => format!("approach {a:.2} K, no uncertainty configured"),
-                        (None, _) => format!("Q/K = {:.4}", ap.q_over_k),
-                    };
-                    push(
-                        "beyond_equilibrium",
-                        Quality::Uncertain,
-                        format!(
-                            "{label}: Q is beyond K ({by}); check the analyser, thermocouple, pressure basis or steam ratio"
-                        ),
-                    );
-                }
-                if ap.flags.has(Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY) {
-                    // Informational: a negative approach inside its own ± is no data problem.
-                    push(
-                        "at_equilibrium_within_uncertainty",
-                        Quality::Good,
-                        format!(
-                            "{label}: Q is past K by less than the uncertainty (approach {:.2} ± {:.2} K): at equilibrium as far as the measurements tell",
-                            ap.approach_k.unwrap_or(f64::NAN),
-                            ap.approach_uncertainty_k.unwrap_or(f64::NAN)
-                        ),
-                    );
-                }
-                if ap.flags.has(Flags::ENTHALPY_SIGN_CHANGE) {
-                    push(
-                        "enthalpy_sign_change",
-                        Quality::Uncertain,
-                        format!(
-                            "{label}: ΔH° changes sign between {t:.1} K and the equilibrium temperature; no temperature approach"
-                        ),
-                    );
-                }
-                if ap.flags.has(Flags::NO_EQUILIBRIUM_TEMPERATURE) {
-                    push(
-                        "no_equilibrium_temperature",
-                        Quality::Uncertain,
-                        format!("{label}: no temperature in range has K = Q"),
-                    );
-                }
-                eval.reactions.push(ap);
-            }
-            eval.fugacity_coefficients = self.scratch.ln_phi.iter().map(|x| x.exp()).collect();
-            eval.compressibility_factor = Some(self.scratch.z);
-            // Equilibrium at the measured T and P, same element inventory.
-            let eq = s
-                .equilibrium
-                .solve(db, t, p, &reorder(&s.equilibrium, model.species(), &w.y));
-            if eq.converged {
-                let key_eq = s
-                    .equilibrium
-                    .species()
-                    .iter()
-                    .position(|x| *x == s.key_component);
-                eval.key_equilibrium = key_eq.map(|i| eq.mole_fractions[i]);
-                eval.equilibrium_mole_fractions = model
-                    .species()
-                    .iter()
-                    .map(|sp| {
-                        s.equilibrium
-                            .species()
-                            .iter()
-                            .position(|x| x == sp)
-                            .map_or(f64::NAN, |i| eq.mole_fractions[i])
-                    })
-                    .collect();
-            } else {
-                push(
-                    "equilibrium_not_converged",
-                    Quality::Uncertain,
-                    format!("equilibrium composition not found: {}", eq.reason),
-                );
-            }
-            eval.key_measured = model
-                .species()
-                .iter()
-                .position(|x| *x == s.key_component)
-                .map(|i| w.y[i]);
-            let water = model
-                .names()
-                .iter()
-                .position(|n| n == "H2O")
-                .map(|i| w.y[i]);
-            eval.key_measured_on_basis = eval
-                .key_measured
-                .map(|y| on_basis(y, water, s.composition.basis));
-            eval.mole_fractions.clone_from(&w.y);
-            not_meaningful_below_detection(s, &mut eval, &mut push);
-            if let (Some(b), Some(t_in)) = (&s.bed_rise, inlet_k) {
-                let gas = model.species().iter().copied().zip(w.y.iter().copied());
-                eval.bed_rise = crate::bedrise::rise_per_mol_percent(db, gas, 0.5 * (t_in + t))
-                    .map(|r| crate::bedrise::BedRise::new(t_in, t, r, b.inlet_co_co2));
             }
         }
-        eval.quality = reasons
+    } else {
+        None
+    }
+}
+
+/// The equilibrium composition at the measured T and P with the same element inventory,
+/// and the key component's equilibrium fraction.
+fn equilibrium_figures(case: &mut Case<'_>, state: &GasState<'_>, eval: &mut Evaluation) {
+    let (spec, db) = (case.spec, case.db);
+    let model = &spec.model;
+    let (t, p) = (state.temperature_k, state.pressure_bar);
+    let eq = spec.equilibrium.solve(
+        db,
+        t,
+        p,
+        &reorder(&spec.equilibrium, model.species(), state.y),
+    );
+    if eq.converged {
+        let key_eq = spec
+            .equilibrium
+            .species()
             .iter()
-            .map(|r| r.severity)
-            .max()
-            .unwrap_or(Quality::Good);
-        if eval.reactions.is_empty() {
-            eval.quality = Quality::Bad;
-        }
-        eval.reasons = reasons;
-        eval
+            .position(|x| *x == spec.key_component);
+        eval.key_equilibrium = key_eq.map(|i| eq.mole_fractions[i]);
+        eval.equilibrium_mole_fractions = model
+            .species()
+            .iter()
+            .map(|sp| {
+                spec.equilibrium
+                    .species()
+                    .iter()
+                    .position(|x| x == sp)
+                    .map_or(f64::NAN, |i| eq.mole_fractions[i])
+            })
+            .collect();
+    } else {
+        case.found.push(
+            ReasonCode::EquilibriumNotConverged,
+            Quality::Uncertain,
+            format!("equilibrium composition not found: {}", eq.reason),
+        );
+    }
+}
+
+/// The key component measured (and on the analyser's basis), the wet mole fractions,
+/// approaches withdrawn below detection, and the methanator bed rise.
+fn key_figures(
+    case: &mut Case<'_>,
+    w: &WetComposition,
+    inlet_k: Option<f64>,
+    t: f64,
+    eval: &mut Evaluation,
+) {
+    let (spec, db) = (case.spec, case.db);
+    let model = &spec.model;
+    eval.key_measured = model
+        .species()
+        .iter()
+        .position(|x| *x == spec.key_component)
+        .map(|i| w.y[i]);
+    let water = model
+        .names()
+        .iter()
+        .position(|n| n == "H2O")
+        .map(|i| w.y[i]);
+    eval.key_measured_on_basis = eval
+        .key_measured
+        .map(|y| on_basis(y, water, spec.composition.basis));
+    eval.mole_fractions.clone_from(&w.y);
+    not_meaningful_below_detection(spec, eval, &mut case.found);
+    if let (Some(b), Some(t_in)) = (&spec.bed_rise, inlet_k) {
+        let gas = model.species().iter().copied().zip(w.y.iter().copied());
+        eval.bed_rise = crate::bedrise::rise_per_mol_percent(db, gas, 0.5 * (t_in + t))
+            .map(|r| crate::bedrise::BedRise::new(t_in, t, r, b.inlet_co_co2));
     }
 }
 
@@ -796,12 +949,8 @@ pub fn on_basis(y: f64, water: Option<f64>, basis: Basis) -> f64 {
 /// reaction is below the analyser's detection limit, no measurement can tell how close
 /// the gas is to equilibrium, so that reaction's temperature approach is withdrawn (null
 /// with a reason) and the key component's measured slip is the headline figure
-/// [common practice at methanators: DOMAIN §10].
-fn not_meaningful_below_detection(
-    s: &ReactorSpec,
-    eval: &mut Evaluation,
-    push: &mut impl FnMut(&'static str, Quality, String),
-) {
+/// [common practice at methanators: docs/domain.md §10].
+fn not_meaningful_below_detection(s: &ReactorSpec, eval: &mut Evaluation, found: &mut Findings) {
     if s.composition.detection_limits.iter().all(Option::is_none)
         || eval.equilibrium_mole_fractions.is_empty()
     {
@@ -839,8 +988,8 @@ fn not_meaningful_below_detection(
         ap.approach_uncertainty_k = None;
         ap.equilibrium_temperature_k = None;
         eval.approach_not_meaningful = true;
-        push(
-            "approach_not_meaningful",
+        found.push(
+            ReasonCode::ApproachNotMeaningful,
             Quality::Good,
             format!(
                 "{}: equilibrium {c} is {} ({} basis), below the {} detection limit of {}, so no analysis can show the approach; watch the measured {c} slip against its limit instead",
@@ -851,69 +1000,6 @@ fn not_meaningful_below_detection(
                 fmt_fraction(dl)
             ),
         );
-    }
-}
-
-/// One required scalar input at the sample time: its value, or `None` with a bad reason
-/// (stale, missing, or reported bad); the use is recorded either way.
-fn aligned(
-    buffer: &ScalarBuffer,
-    input: &InputSpec,
-    t_sample: i64,
-    unit: &'static str,
-    stale_code: &'static str,
-    push: &mut impl FnMut(&'static str, Quality, String),
-    inputs: &mut Vec<InputUse>,
-) -> Option<f64> {
-    match buffer.at(t_sample, ms(input.max_age)) {
-        Lookup::Value {
-            value,
-            quality,
-            age_ms,
-        } => {
-            let used = quality != SourceQuality::Bad;
-            if !used {
-                push(
-                    "source_bad",
-                    Quality::Bad,
-                    format!("{} reports bad quality", input.tag),
-                );
-            }
-            inputs.push(InputUse {
-                tag: input.tag.clone(),
-                value: Some(value),
-                unit,
-                age_ms: Some(age_ms),
-                used,
-            });
-            used.then_some(value)
-        }
-        other => {
-            let what = match other {
-                Lookup::Stale { nearest_ts_ms } => format!(
-                    "the nearest reading is {} s from the sample time, over its max age of {} s",
-                    (nearest_ts_ms - t_sample).abs() / 1000,
-                    input.max_age.as_secs()
-                ),
-                _ => "no reading has arrived yet".to_string(),
-            };
-            push(
-                stale_code,
-                Quality::Bad,
-                format!(
-                    "{}: {what}; check the transmitter and its topic {}",
-                    input.tag, input.origin
-                ),
-            );
-            inputs.push(InputUse {
-                tag: input.tag.clone(),
-                value: None,
-                unit,
-                age_ms: None,
-                used: false,
-            });
-            None
-        }
     }
 }
 

@@ -9,10 +9,10 @@
 //! # What goes into the statistics
 //! Only good or uncertain evaluations with an approach figure, not flagged `transient`,
 //! taken while the unit is on line. Bad ones, transients and shutdowns are counted as
-//! excluded and leave the baseline, EWMA, CUSUM and aggregates untouched (DOMAIN §7:
+//! excluded and leave the baseline, EWMA, CUSUM and aggregates untouched (docs/domain.md §7:
 //! leave shutdowns and rate cuts out).
 //!
-//! # Alerts and alarms (DOMAIN §6)
+//! # Alerts and alarms (docs/domain.md §6)
 //! Both use the ISA-18.2 state machine of [`super::alarm`]. Alerts are for the engineer
 //! (trend rate, end of run near, CUSUM signal, data quality, chattering, stale); alarms
 //! are for the operator, only those configured with a rationale. Operator alarms are
@@ -22,13 +22,13 @@
 //! # References
 //! - ISA-18.2-2016 / IEC 62682:2014 alarm states; EEMUA 191 (3rd ed.) performance
 //!   figures: flood > 10 alarms in 10 min per operator, chattering ≥ 3 activations a
-//!   minute, stale > 24 h (as summarised in DOMAIN §6).
+//!   minute, stale > 24 h (as summarised in docs/domain.md §6).
 
 use std::collections::VecDeque;
 
 use super::alarm::{Alarm, AlarmConfig, AlarmError, Direction, Event, EventKind, Priority};
 use super::drift::{Cusum, CusumPoint, CusumState, EndOfRun, Ewma, EwmaPoint, Shift, Trend};
-use super::{Evaluation, Quality};
+use super::{Evaluation, Quality, ReasonCode};
 use crate::units::fmt_num;
 
 use crate::units::MINUTE_MS;
@@ -311,11 +311,36 @@ pub struct TrendFigures {
     pub fit: Trend,
 }
 
+/// Why an evaluation was left out of the drift statistics.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Exclusion {
+    /// The process unit is off line (pressure below its threshold).
+    UnitOffline,
+    /// The evaluation is bad.
+    BadQuality,
+    /// The temperature moved too fast over the analyser lag.
+    Transient,
+    /// No finite approach to watch.
+    NoApproach,
+}
+
+impl Exclusion {
+    /// The word on the wire (`drift.excluded_because`).
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::UnitOffline => "unit_offline",
+            Self::BadQuality => "bad_quality",
+            Self::Transient => "transient",
+            Self::NoApproach => "no_approach",
+        }
+    }
+}
+
 /// The drift figures after one evaluation.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct DriftFigures {
     /// Why the sample was left out of the statistics, if it was.
-    pub excluded: Option<&'static str>,
+    pub excluded: Option<Exclusion>,
     pub learning: bool,
     pub baseline: Option<Baseline>,
     pub ewma: Option<EwmaPoint>,
@@ -705,15 +730,15 @@ impl ReactorWatch {
         let t = e.sample_ts_ms;
         self.started_ms.get_or_insert(t);
         let approach = e.reactions.first().and_then(|a| a.approach_k);
-        let transient = e.reasons.iter().any(|r| r.code == "transient");
+        let transient = e.reasons.iter().any(|r| r.code == ReasonCode::Transient);
         let excluded = if self.offline {
-            Some("unit_offline")
+            Some(Exclusion::UnitOffline)
         } else if e.quality == Quality::Bad {
-            Some("bad_quality")
+            Some(Exclusion::BadQuality)
         } else if transient {
-            Some("transient")
+            Some(Exclusion::Transient)
         } else if approach.is_none_or(|a| !a.is_finite()) {
-            Some("no_approach")
+            Some(Exclusion::NoApproach)
         } else {
             None
         };
@@ -722,8 +747,8 @@ impl ReactorWatch {
         let bad = (e.quality == Quality::Bad).then(|| {
             let mut codes: Vec<&str> = Vec::new();
             for r in e.reasons.iter().filter(|r| r.severity == Quality::Bad) {
-                if !codes.contains(&r.code) {
-                    codes.push(r.code);
+                if !codes.contains(&r.code.as_str()) {
+                    codes.push(r.code.as_str());
                 }
             }
             format!("analysis bad: {}", codes.join(", "))
@@ -1383,7 +1408,7 @@ mod tests {
         t: i64,
         approach: Option<f64>,
         quality: Quality,
-        code: Option<&'static str>,
+        code: Option<ReasonCode>,
     ) -> Evaluation {
         let a = Approach {
             ln_k: 0.0,
@@ -1468,10 +1493,10 @@ mod tests {
 
     #[test]
     fn daily_aggregates_give_the_domain_trend_and_end_of_run() {
-        // DOMAIN §7 [derived]: aggregates on days 0, 30, ..., 180 with approach 5.0 ... 8.4
+        // docs/domain.md §7 [derived]: aggregates on days 0, 30, ..., 180 with approach 5.0 ... 8.4
         // → slope 0.018929 K/day, intercept 5.010714, 20 K at day 791.89. Here each
         // aggregate is 12 hourly samples of that value in a 1-day period whose middle
-        // falls on the DOMAIN day + 0.5; the date shifts by half a day accordingly.
+        // falls on the docs/domain.md §7 day + 0.5; the date shifts by half a day accordingly.
         let s = WatchSettings {
             drift: DriftSettings {
                 baseline: BaselineSpec::Given {
@@ -1495,7 +1520,7 @@ mod tests {
                 last = Some(fig);
             }
         }
-        // The day-210 bucket is still open: the fit holds the seven DOMAIN points.
+        // The day-210 bucket is still open: the fit holds the seven docs/domain.md §7 points.
         let fig = last.unwrap();
         let tr = fig.trend.unwrap();
         assert_eq!(tr.points, 7);
@@ -1545,16 +1570,26 @@ mod tests {
         assert_eq!(b.sigma_k, 0.2);
         let (fig, _) = w.observe(
             &s,
-            &eval(t + H, Some(40.0), Quality::Bad, Some("stale_analysis")),
+            &eval(
+                t + H,
+                Some(40.0),
+                Quality::Bad,
+                Some(ReasonCode::StaleAnalysis),
+            ),
             t + H,
         );
-        assert_eq!(fig.excluded, Some("bad_quality"));
+        assert_eq!(fig.excluded, Some(Exclusion::BadQuality));
         let (fig, _) = w.observe(
             &s,
-            &eval(t + 2 * H, Some(40.0), Quality::Uncertain, Some("transient")),
+            &eval(
+                t + 2 * H,
+                Some(40.0),
+                Quality::Uncertain,
+                Some(ReasonCode::Transient),
+            ),
             t + 2 * H,
         );
-        assert_eq!(fig.excluded, Some("transient"));
+        assert_eq!(fig.excluded, Some(Exclusion::Transient));
         assert_eq!(fig.cusum_k, Some(0.0));
         assert_eq!(w.excluded(), 2);
         // A sustained rise of 2σ + k signals the CUSUM after h/(x − μ0 − k) samples:
@@ -1591,7 +1626,12 @@ mod tests {
         // Bad analysis: suppressed by design, state still visible.
         let (_, ev) = w.observe(
             &s,
-            &eval(t0 + 600_000, None, Quality::Bad, Some("source_bad")),
+            &eval(
+                t0 + 600_000,
+                None,
+                Quality::Bad,
+                Some(ReasonCode::SourceBad),
+            ),
             t0 + 600_000,
         );
         assert!(
@@ -1664,7 +1704,7 @@ mod tests {
 
     #[test]
     fn chattering_stale_and_flood_alerts() {
-        // Common practice (DOMAIN §6): chattering = 3 activations in a minute; stale = 24 h;
+        // Common practice (docs/domain.md §6): chattering = 3 activations in a minute; stale = 24 h;
         // flood = more than 10 alarm activations in 10 minutes.
         let s = WatchSettings {
             alarms: vec![alarm_spec("approach-high", 20.0, 0)],
@@ -1788,7 +1828,7 @@ mod tests {
         assert!(w.watched.iter().all(|x| x.alarm.config().id == "off-line"
             || matches!(x.alarm.mode(), Mode::SuppressedByDesign { .. })));
         let (fig, _) = w.observe(&s, &eval(t1 + H, Some(30.0), Quality::Good, None), t1 + H);
-        assert_eq!(fig.excluded, Some("unit_offline"));
+        assert_eq!(fig.excluded, Some(Exclusion::UnitOffline));
         w.pressure(&s, 30.0, t1 + 2 * H);
         // Re-baseline: drift alerts clear, learning starts afresh.
         let (msg, ev) = w
@@ -1992,7 +2032,11 @@ mod tests {
             t += 5 * MINUTE_MS;
             trip_events.extend(w.pressure(&s, 1.0, t));
             trip_events.extend(w.tick(t));
-            let (_, ev) = w.observe(&s, &eval(t, None, Quality::Bad, Some("stale_analysis")), t);
+            let (_, ev) = w.observe(
+                &s,
+                &eval(t, None, Quality::Bad, Some(ReasonCode::StaleAnalysis)),
+                t,
+            );
             trip_events.extend(ev);
         }
         let k = kinds(&trip_events, &w);

@@ -582,7 +582,7 @@ mod tests {
 
     #[test]
     fn correlations_reproduce_their_check_values() {
-        // DOMAIN §3 [derived from the published formulas; recomputed here from the formula]:
+        // docs/domain.md §3 [derived from the published formulas; recomputed here from the formula]:
         // Moe K(700) = 9.11, K(1000) = 1.28 (quoted to 3 figures).
         let moe = model("CO + H2O = CO2 + H2", KSourceId::Moe1962);
         check(
@@ -610,7 +610,7 @@ mod tests {
             1e-4,
             "gillespie-beattie",
         );
-        // Graaf 1986, log10 K = 3066/T − 10.592 bar^-2 (formula, DOMAIN §3).
+        // Graaf 1986, log10 K = 3066/T − 10.592 bar^-2 (formula, docs/domain.md §3).
         let g = model("CO2 + 3 H2 = CH3OH + H2O", KSourceId::Graaf1986);
         check(
             g.ln_k(500.0),
@@ -677,8 +677,8 @@ mod tests {
     #[test]
     fn species_data_against_correlations() {
         // Independent data sets agree within their spread: shift K from NASA data vs
-        // Moe at 700 K (DOMAIN §3 quotes 9.11) within 15 %; ammonia vs Gillespie-Beattie
-        // at 723.15 K within 10 % (the NH3 ΔfH° spread alone is about 7 % in K, DOMAIN §3).
+        // Moe at 700 K (docs/domain.md §3 quotes 9.11) within 15 %; ammonia vs Gillespie-Beattie
+        // at 723.15 K within 10 % (the NH3 ΔfH° spread alone is about 7 % in K, docs/domain.md §3).
         let db = SpeciesDb::builtin();
         let k = |eq: &str| KModel::from_species(&parse_reaction(eq, &db).unwrap(), &db).unwrap();
         check(

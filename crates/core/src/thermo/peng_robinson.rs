@@ -8,7 +8,7 @@
 //! - D.-Y. Peng, D. B. Robinson, Ind. Eng. Chem. Fundam. 15 (1976) 59: the equation,
 //!   κ = 0.37464 + 1.54226 ω − 0.26992 ω², and the fugacity-coefficient expression.
 //! - Ωa = 0.45723553, Ωb = 0.07779607: the exact roots of the critical conditions
-//!   (the rounded 0.45724/0.07780 move φ by about 1e-5, DOMAIN §4).
+//!   (the rounded 0.45724/0.07780 move φ by about 1e-5, docs/domain.md §4).
 
 use thiserror::Error;
 
