@@ -15,6 +15,10 @@
 //!
 //! Advisory only: eqwatch is not a safety function; see the README.
 
+// Items marked `pub` are reachable from outside; everything else is `pub(crate)` or private
+// (checked with the full feature set, where every module is built).
+#![cfg_attr(feature = "daemon", warn(unreachable_pub))]
+
 // The numeric core, re-exported so that `eqwatch::approach` and `crate::units` name
 // the same modules everywhere.
 pub use eqwatch_core::{
@@ -30,8 +34,8 @@ pub mod cli;
 #[cfg(feature = "daemon")]
 pub mod daemon;
 #[cfg(feature = "cli")]
-pub mod pipeline;
+pub(crate) mod pipeline;
 #[cfg(feature = "cli")]
 pub mod replay;
 #[cfg(feature = "cli")]
-pub mod wire;
+pub(crate) mod wire;

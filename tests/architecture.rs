@@ -147,7 +147,7 @@ const RULES: &[Rule] = &[
     Rule {
         path: "src/demo",
         modules: &[
-            "cli", "config", "daemon", "monitor", "plot", "timefmt", "units", "demo",
+            "cli", "config", "daemon", "monitor", "plot", "replay", "timefmt", "units", "demo",
         ],
         crates: &[
             "tokio",

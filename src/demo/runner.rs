@@ -859,23 +859,6 @@ fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> Re
     }
 }
 
-/// Writes `<reactor>.svg` per reactor and `overview.svg` into `dir`; returns the file names.
-fn write_plots(dir: &Path, plots: &[ReactorPlot], title: &str) -> std::io::Result<Vec<String>> {
-    std::fs::create_dir_all(dir)?;
-    let mut names = Vec::new();
-    for p in plots {
-        let name = format!("{}.svg", p.reactor);
-        std::fs::write(dir.join(&name), crate::plot::reactor_svg(p))?;
-        names.push(name);
-    }
-    std::fs::write(
-        dir.join("overview.svg"),
-        crate::plot::overview_svg(plots, title),
-    )?;
-    names.push("overview.svg".into());
-    Ok(names)
-}
-
 // ---------------------------------------------------------------------------------------------
 // The demo
 // ---------------------------------------------------------------------------------------------
@@ -1284,16 +1267,22 @@ async fn live(
         let plot_dir: PathBuf = workdir.join("plots");
         let dir = plot_dir.clone();
         let written = tokio::task::spawn_blocking(move || {
-            write_plots(
+            crate::replay::write_svgs(
                 &dir,
                 &plots,
                 "Brackwater Ammonia Works, train 1 (simulated): demo run in compressed time",
+                crate::plot::TimeZone::UTC,
             )
         })
         .await
         .map_err(internal("plot task"))?
         .map_err(|e| CliError::Internal(format!("plots in {}: {e}", plot_dir.display())))?;
-        println!("plots: {}/ ({})", plot_dir.display(), written.join(" "));
+        let names: Vec<String> = written
+            .iter()
+            .filter_map(|p| p.file_name())
+            .map(|n| n.to_string_lossy().into_owned())
+            .collect();
+        println!("plots: {}/ ({})", plot_dir.display(), names.join(" "));
         println!("log: {}", log_file.display());
     }
     println!(

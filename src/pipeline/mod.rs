@@ -10,19 +10,22 @@
 //! `crate::daemon`, `crate::replay`, `crate::demo`, `crate::plot` or `crate::cli`.
 //! Logging goes through the `tracing` facade only.
 
+// Without the daemon (`--features cli`: replay only) the MQTT entry points (routing,
+// raw messages, commands) have no caller.
+#![cfg_attr(not(feature = "daemon"), allow(dead_code))]
+
 mod command;
-pub mod engine;
+pub(crate) mod engine;
 mod lane;
-pub mod metrics;
+pub(crate) mod metrics;
 mod plant;
 mod route;
-pub mod trace;
+pub(crate) mod trace;
 
-pub use engine::Engine;
-pub use lane::{Lane, Sink};
-pub use plant::Plant;
-pub use route::{Route, decode, routes};
-pub use trace::{Trace, TraceBaseline, TraceEvent, TracePoint, expand};
+pub(crate) use engine::Engine;
+pub(crate) use lane::{Lane, Sink};
+pub(crate) use plant::Plant;
+pub(crate) use trace::{Trace, expand};
 
 /// A message as it came from the broker (or a test).
 #[derive(Debug, Clone)]

@@ -12,7 +12,7 @@ use crate::wire::input::DecodeError;
 
 /// What an input topic feeds.
 #[derive(Debug, Clone, Copy)]
-pub enum Route {
+pub(crate) enum Route {
     Temperature(usize, usize),
     Pressure(usize),
     SteamRatio(usize),
@@ -22,7 +22,7 @@ pub enum Route {
 }
 
 /// Topic → routes for every input and command topic of the configuration.
-pub fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
+pub(crate) fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
     let mut m: HashMap<String, Vec<Route>> = HashMap::new();
     for (r, rs) in s.reactors.iter().enumerate() {
         for (i, t) in rs.wiring.temperatures.iter().enumerate() {
@@ -66,7 +66,11 @@ pub fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
 }
 
 /// Decodes one message for its route.
-pub fn decode(s: &Settings, route: Route, raw: &RawInput) -> (usize, Result<Input, DecodeError>) {
+pub(crate) fn decode(
+    s: &Settings,
+    route: Route,
+    raw: &RawInput,
+) -> (usize, Result<Input, DecodeError>) {
     let atm = s.atmosphere_bar;
     match route {
         Route::Temperature(r, i) => {

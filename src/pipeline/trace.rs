@@ -28,7 +28,7 @@ pub(super) fn compact(x: Option<f64>) -> f32 {
 }
 
 /// `None` for NaN.
-pub fn expand(x: f32) -> Option<f64> {
+pub(crate) fn expand(x: f32) -> Option<f64> {
     (!x.is_nan()).then_some(f64::from(x))
 }
 

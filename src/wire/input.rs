@@ -14,7 +14,7 @@ use crate::units::{CompositionUnit, PressureUnit, TemperatureUnit};
 
 /// Why a message could not be decoded. `reason()` is the metrics label.
 #[derive(Debug, Clone, PartialEq, Error)]
-pub enum DecodeError {
+pub(crate) enum DecodeError {
     #[error("payload is not UTF-8 text")]
     NotText,
     #[error("payload `{0}` is not a number")]
@@ -40,7 +40,7 @@ pub enum DecodeError {
 }
 
 impl DecodeError {
-    pub const REASONS: [&'static str; 11] = [
+    pub(crate) const REASONS: [&'static str; 11] = [
         "not_text",
         "not_a_number",
         "not_json",
@@ -54,7 +54,7 @@ impl DecodeError {
         "not_physical",
     ];
 
-    pub fn reason_index(&self) -> usize {
+    pub(crate) fn reason_index(&self) -> usize {
         match self {
             Self::NotText => 0,
             Self::NotANumber(_) => 1,
@@ -70,7 +70,7 @@ impl DecodeError {
         }
     }
 
-    pub fn reason(&self) -> &'static str {
+    pub(crate) fn reason(&self) -> &'static str {
         Self::REASONS[self.reason_index()]
     }
 }
@@ -87,7 +87,7 @@ fn json(payload: &[u8]) -> Result<Value, DecodeError> {
 
 /// A timestamp field: RFC 3339 text, or epoch milliseconds (values below 1e11 are taken
 /// as epoch seconds).
-pub fn timestamp(v: &Value) -> Result<i64, DecodeError> {
+pub(crate) fn timestamp(v: &Value) -> Result<i64, DecodeError> {
     match v {
         Value::String(s) => parse_rfc3339(s)
             .or_else(|| s.trim().parse::<f64>().ok().and_then(epoch_number))
@@ -243,7 +243,7 @@ fn read_scalar(
 }
 
 /// Decodes a scalar input (temperature, pressure, steam ratio) to fixed units.
-pub fn decode_scalar(
+pub(crate) fn decode_scalar(
     payload: &[u8],
     decoder: &ScalarDecoder,
     unit: &ScalarUnit,
@@ -260,7 +260,7 @@ pub fn decode_scalar(
 
 /// Decodes one component of a per-component analyser: a mole fraction. Negative values
 /// are kept: the monitor reports them as bad data on the result.
-pub fn decode_component(
+pub(crate) fn decode_component(
     payload: &[u8],
     decoder: &ScalarDecoder,
     default_unit: CompositionUnit,
@@ -279,7 +279,7 @@ pub fn decode_component(
 }
 
 /// Decodes a multi-component analyser message into mole fractions per configured component.
-pub fn decode_analysis(
+pub(crate) fn decode_analysis(
     payload: &[u8],
     reactor: &ReactorSettings,
     arrival_ms: i64,

@@ -8,9 +8,9 @@
 //! folder the order is one way: `result` may use `watch` (a result carries the drift
 //! figures), `watch` never uses `result`; both use the number helpers here.
 
-pub mod input;
-pub mod result;
-pub mod watch;
+pub(crate) mod input;
+pub(crate) mod result;
+pub(crate) mod watch;
 
 /// Non-finite numbers go out as `null` (JSON has no NaN), never as a made-up value.
 pub(crate) fn finite(x: f64) -> Option<f64> {

@@ -11,7 +11,7 @@ use crate::thermo::species::SpeciesDb;
 use crate::timefmt::format_rfc3339;
 
 /// Version of the result payload; bump on any incompatible change.
-pub const RESULT_SCHEMA: &str = "eqwatch.result/1";
+pub(crate) const RESULT_SCHEMA: &str = "eqwatch.result/1";
 
 /// Mole fractions (or φ) by species name, as a JSON object; `null` when there are none.
 struct BySpecies<'a>(&'a [String], &'a [f64]);
@@ -120,7 +120,7 @@ impl From<&crate::bedrise::BedRise> for BedRiseOut {
 }
 
 /// The advisory notice every result and status message carries.
-pub const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plant's alarm and safety systems, local codes and licensed engineering practice govern";
+pub(crate) const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plant's alarm and safety systems, local codes and licensed engineering practice govern";
 
 /// The key component's wet mole fraction on the analyser's basis.
 fn key_on_basis(r: &ReactorSettings, wet: &[f64], y: Option<f64>) -> Option<f64> {
@@ -249,7 +249,7 @@ struct ResultOut<'a> {
 }
 
 /// The result JSON for one evaluation (published retained on `<prefix>/<reactor>/result`).
-pub fn encode_result(
+pub(crate) fn encode_result(
     r: &ReactorSettings,
     db: &SpeciesDb,
     e: &Evaluation,
@@ -373,7 +373,8 @@ pub fn encode_result(
 }
 
 /// Adds the journal sequence number and the late mark at the front of a payload object.
-pub fn with_delivery(payload: &str, seq: u64, late: bool) -> String {
+#[cfg_attr(not(feature = "daemon"), allow(dead_code))]
+pub(crate) fn with_delivery(payload: &str, seq: u64, late: bool) -> String {
     let body = payload.trim();
     let rest = body.strip_prefix('{').unwrap_or(body);
     let sep = if rest.trim_start().starts_with('}') {

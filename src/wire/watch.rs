@@ -24,12 +24,12 @@ use crate::monitor::watch::{
 };
 use crate::timefmt::format_rfc3339;
 
-pub const EVENT_SCHEMA: &str = "eqwatch.event/1";
-pub const STATES_SCHEMA: &str = "eqwatch.alarms/1";
-pub const OUTCOME_SCHEMA: &str = "eqwatch.outcome/1";
+pub(crate) const EVENT_SCHEMA: &str = "eqwatch.event/1";
+pub(crate) const STATES_SCHEMA: &str = "eqwatch.alarms/1";
+pub(crate) const OUTCOME_SCHEMA: &str = "eqwatch.outcome/1";
 
 #[derive(Serialize)]
-pub struct EndOfRunOut {
+pub(crate) struct EndOfRunOut {
     state: &'static str,
     limit_k: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -41,7 +41,7 @@ pub struct EndOfRunOut {
 }
 
 #[derive(Serialize)]
-pub struct StepOut {
+pub(crate) struct StepOut {
     /// Estimated change point, when the CUSUM found it, and the levels either side (K).
     since: String,
     detected: String,
@@ -50,7 +50,7 @@ pub struct StepOut {
 }
 
 #[derive(Serialize)]
-pub struct DriftOut {
+pub(crate) struct DriftOut {
     included: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
     excluded_because: Option<&'static str>,
@@ -162,7 +162,7 @@ fn priority(p: Priority) -> u8 {
 }
 
 /// The event's name on the wire (`raised`, `cleared`, `out-of-service`, ...).
-pub fn event_name(k: &EventKind) -> &'static str {
+pub(crate) fn event_name(k: &EventKind) -> &'static str {
     match k {
         EventKind::Raised => "raised",
         EventKind::Cleared => "cleared",
@@ -207,7 +207,7 @@ struct EventOut<'a> {
 
 /// The event JSON. Its id is stable across redelivery and unique across restarts:
 /// `<reactor>/<alarm>#<seq>@<epoch ms>`.
-pub fn encode_event(reactor: &str, w: &ReactorWatch, e: &WatchEvent) -> String {
+pub(crate) fn encode_event(reactor: &str, w: &ReactorWatch, e: &WatchEvent) -> String {
     let x = &w.watched[e.index];
     let cfg = x.alarm.config();
     let (by, reason, until, auto) = match &e.event.kind {
@@ -259,7 +259,7 @@ pub fn encode_event(reactor: &str, w: &ReactorWatch, e: &WatchEvent) -> String {
 }
 
 /// The plant-wide flood alert event (`<prefix>/alert`).
-pub fn encode_flood_event(w: &PlantWatch, e: &Event) -> String {
+pub(crate) fn encode_flood_event(w: &PlantWatch, e: &Event) -> String {
     serde_json::json!({
         "schema": EVENT_SCHEMA,
         "id": format!("plant/{}@{}", e.id, e.at_ms),
@@ -277,7 +277,7 @@ pub fn encode_flood_event(w: &PlantWatch, e: &Event) -> String {
 }
 
 /// The plant-wide retained state (`<prefix>/alarms`).
-pub fn encode_plant_states(w: &PlantWatch, at_ms: i64) -> String {
+pub(crate) fn encode_plant_states(w: &PlantWatch, at_ms: i64) -> String {
     serde_json::json!({
         "schema": STATES_SCHEMA,
         "at": format_rfc3339(at_ms),
@@ -321,7 +321,7 @@ struct StatesOut<'a> {
 }
 
 /// Current states of every alert and alarm of a reactor (retained).
-pub fn encode_states(reactor: &str, w: &ReactorWatch, at_ms: i64) -> String {
+pub(crate) fn encode_states(reactor: &str, w: &ReactorWatch, at_ms: i64) -> String {
     let alarms = w
         .watched
         .iter()
@@ -374,7 +374,7 @@ pub fn encode_states(reactor: &str, w: &ReactorWatch, at_ms: i64) -> String {
 
 /// Who sent a command, as far as the message could be read (a refusal names them).
 #[derive(Debug, Clone, Default, PartialEq)]
-pub struct Sender {
+pub(crate) struct Sender {
     pub request_id: Option<String>,
     pub user: Option<String>,
     pub client_id: Option<String>,
@@ -382,7 +382,7 @@ pub struct Sender {
 
 impl Sender {
     /// The name an accepted command is carried out by: the user, else the client id.
-    pub fn name(&self) -> &str {
+    pub(crate) fn name(&self) -> &str {
         self.user
             .as_deref()
             .or(self.client_id.as_deref())
@@ -392,7 +392,7 @@ impl Sender {
 
 /// A decoded command.
 #[derive(Debug, Clone, PartialEq)]
-pub struct Command {
+pub(crate) struct Command {
     pub action: Action,
     pub alarm: Option<String>,
     pub sender: Sender,
@@ -400,13 +400,13 @@ pub struct Command {
 
 /// A command that could not be read: what to fix, and whoever sent it.
 #[derive(Debug, Clone, PartialEq)]
-pub struct CommandProblem {
+pub(crate) struct CommandProblem {
     pub message: String,
     pub sender: Sender,
 }
 
 /// Reads a command message; the error says what to fix.
-pub fn decode_command(payload: &[u8]) -> Result<Command, CommandProblem> {
+pub(crate) fn decode_command(payload: &[u8]) -> Result<Command, CommandProblem> {
     let unread = |message: String| CommandProblem {
         message,
         sender: Sender::default(),
@@ -507,7 +507,7 @@ impl Verdict {
 
 /// One command's answer, as published on `<prefix>/<reactor>/command/outcome`.
 #[derive(Debug, Clone, Copy)]
-pub struct Outcome<'a> {
+pub(crate) struct Outcome<'a> {
     pub reactor: &'a str,
     pub sender: &'a Sender,
     /// The command's name, when it could be read.
@@ -535,7 +535,7 @@ struct OutcomeOut<'a> {
 }
 
 /// The outcome message (schema [`OUTCOME_SCHEMA`]).
-pub fn encode_outcome(o: &Outcome<'_>) -> String {
+pub(crate) fn encode_outcome(o: &Outcome<'_>) -> String {
     let out = OutcomeOut {
         schema: OUTCOME_SCHEMA,
         reactor: o.reactor,

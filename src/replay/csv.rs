@@ -1,0 +1,458 @@
+//! The replay CSV: its header (columns named by input tags, units in brackets) and
+//! its rows, checked whole, turned into the engine's inputs in the daemon's order.
+
+use super::runner::*;
+use super::*;
+use crate::config::{ScalarUnit, Settings};
+use crate::monitor::spec::SteamRatioSpec;
+use crate::monitor::{AnalysisReading, Input, ScalarReading, SourceQuality};
+use crate::pipeline::metrics::Metrics;
+use crate::timefmt::parse_rfc3339;
+use crate::units::{CompositionUnit, PressureUnit, TemperatureUnit};
+use crate::wire::input::convert;
+use std::collections::HashMap;
+use std::io::BufRead;
+
+#[derive(Debug, Clone, Copy)]
+pub(super) enum Column {
+    Time,
+    Scalar {
+        reactor: usize,
+        kind: ScalarKind,
+        unit_override: Option<ScalarUnitText>,
+    },
+    ScalarQuality {
+        reactor: usize,
+        kind: ScalarKind,
+    },
+    Component {
+        reactor: usize,
+        index: usize,
+        per_fraction: f64,
+    },
+    AnalyserQuality {
+        reactor: usize,
+    },
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(super) enum ScalarKind {
+    Temperature(usize),
+    Pressure,
+    SteamRatio,
+}
+
+/// A unit override as parsed (`[degC]`).
+#[derive(Debug, Clone, Copy)]
+pub(super) enum ScalarUnitText {
+    Temperature(TemperatureUnit),
+    Pressure(PressureUnit),
+}
+
+/// What the CSV columns mean for a configuration.
+pub(super) struct Layout {
+    columns: Vec<Column>,
+    reactors: usize,
+    components: Vec<usize>,
+}
+
+pub(super) fn names(s: &Settings) -> HashMap<String, Column> {
+    let mut m = HashMap::new();
+    for (r, rs) in s.reactors.iter().enumerate() {
+        let mut scalar = |tag: &str, kind| {
+            m.insert(
+                tag.to_string(),
+                Column::Scalar {
+                    reactor: r,
+                    kind,
+                    unit_override: None,
+                },
+            );
+            m.insert(
+                format!("{tag}.quality"),
+                Column::ScalarQuality { reactor: r, kind },
+            );
+        };
+        for (i, t) in rs.spec.temperatures.iter().enumerate() {
+            scalar(&t.tag, ScalarKind::Temperature(i));
+        }
+        scalar(&rs.spec.pressure.tag, ScalarKind::Pressure);
+        if let Some(SteamRatioSpec::Measured(ss)) = &rs.spec.steam_ratio {
+            scalar(&ss.tag, ScalarKind::SteamRatio);
+        }
+        let c = &rs.spec.composition;
+        for (i, sp) in c.components.iter().enumerate() {
+            m.insert(
+                format!("{}.{sp}", c.tag),
+                Column::Component {
+                    reactor: r,
+                    index: i,
+                    per_fraction: c.unit.fraction_per_unit(),
+                },
+            );
+        }
+        m.insert(
+            format!("{}.quality", c.tag),
+            Column::AnalyserQuality { reactor: r },
+        );
+    }
+    m
+}
+
+pub(super) fn read_header(s: &Settings, header: &str, line: usize) -> Result<Layout, ReplayError> {
+    let known = names(s);
+    let err = |message: String| ReplayError::Header { line, message };
+    let mut columns = Vec::new();
+    let mut seen: HashMap<String, usize> = HashMap::new();
+    for (i, raw) in header.split(',').enumerate() {
+        let raw = raw.trim();
+        let (name, unit) = match raw.split_once(" [") {
+            Some((n, u)) => match u.strip_suffix(']') {
+                Some(u) => (n.trim(), Some(u.trim())),
+                None => {
+                    return Err(err(format!(
+                        "column {}: \"{raw}\" opens `[` for a unit but does not close it",
+                        i + 1
+                    )));
+                }
+            },
+            None => (raw, None),
+        };
+        if let Some(first) = seen.insert(name.to_string(), i + 1) {
+            return Err(err(format!(
+                "column {} \"{name}\" repeats column {first}",
+                i + 1
+            )));
+        }
+        if name.eq_ignore_ascii_case("time") {
+            columns.push(Column::Time);
+            continue;
+        }
+        let Some(col) = known.get(name) else {
+            let mut close: Vec<&str> = known
+                .keys()
+                .filter(|k| {
+                    let stem = name.split('.').next().unwrap_or(name);
+                    k.starts_with(stem) || name.starts_with(k.split('.').next().unwrap_or(k))
+                })
+                .map(String::as_str)
+                .collect();
+            close.sort_unstable();
+            close.truncate(8);
+            return Err(err(format!(
+                "column {} \"{name}\" is no input of the configuration{}",
+                i + 1,
+                if close.is_empty() {
+                    "; columns are input tags (e.g. a thermocouple tag) or <analyser tag>.<species>"
+                        .to_string()
+                } else {
+                    format!("; did you mean one of: {}", close.join(", "))
+                }
+            )));
+        };
+        let col = match (*col, unit) {
+            (c, None) => c,
+            (Column::Scalar { reactor, kind, .. }, Some(u)) => {
+                let cfg = scalar_unit(s, reactor, kind);
+                let over = match cfg {
+                    ScalarUnit::Temperature(_) => TemperatureUnit::parse(u)
+                        .ok()
+                        .map(ScalarUnitText::Temperature),
+                    ScalarUnit::Pressure(_) => {
+                        PressureUnit::parse(u).ok().map(ScalarUnitText::Pressure)
+                    }
+                    ScalarUnit::Ratio => None,
+                };
+                let Some(over) = over else {
+                    return Err(err(format!(
+                        "column {} \"{name}\": unit \"{u}\" is not a {} unit",
+                        i + 1,
+                        match cfg {
+                            ScalarUnit::Temperature(_) => "temperature",
+                            ScalarUnit::Pressure(_) => "pressure (say absolute or gauge)",
+                            ScalarUnit::Ratio => "ratio (a steam ratio has no unit)",
+                        }
+                    )));
+                };
+                Column::Scalar {
+                    reactor,
+                    kind,
+                    unit_override: Some(over),
+                }
+            }
+            (Column::Component { reactor, index, .. }, Some(u)) => {
+                match CompositionUnit::parse(u) {
+                    Ok(cu) => Column::Component {
+                        reactor,
+                        index,
+                        per_fraction: cu.fraction_per_unit(),
+                    },
+                    Err(_) => {
+                        return Err(err(format!(
+                            "column {} \"{name}\": unit \"{u}\" is not a composition unit (mol%, ppm, fraction, ...)",
+                            i + 1
+                        )));
+                    }
+                }
+            }
+            (_, Some(u)) => {
+                return Err(err(format!(
+                    "column {} \"{name}\" takes no unit (got \"{u}\")",
+                    i + 1
+                )));
+            }
+        };
+        columns.push(col);
+    }
+    if !columns.iter().any(|c| matches!(c, Column::Time)) {
+        return Err(err("no \"time\" column".into()));
+    }
+    Ok(Layout {
+        columns,
+        reactors: s.reactors.len(),
+        components: s
+            .reactors
+            .iter()
+            .map(|r| r.spec.composition.components.len())
+            .collect(),
+    })
+}
+
+pub(super) fn scalar_unit(s: &Settings, r: usize, kind: ScalarKind) -> ScalarUnit {
+    let rs = &s.reactors[r];
+    match kind {
+        ScalarKind::Temperature(i) => rs.spec.temperatures[i].unit,
+        ScalarKind::Pressure => rs.spec.pressure.unit,
+        ScalarKind::SteamRatio => ScalarUnit::Ratio,
+    }
+}
+
+pub(super) fn parse_time(text: &str) -> Option<i64> {
+    let t = text.trim();
+    if !t.is_empty() && t.bytes().all(|b| b.is_ascii_digit()) {
+        return t.parse().ok();
+    }
+    parse_rfc3339(t)
+}
+
+/// Reads the CSV: header, then rows checked whole; good rows become per-worker input
+/// lists (in the daemon's order: scalars in column order, then one analysis per
+/// analyser) handed to `batch` in groups of [`BATCH_ROWS`].
+#[allow(clippy::type_complexity, clippy::too_many_arguments)]
+pub(super) fn read_rows(
+    settings: &Settings,
+    input: &mut dyn BufRead,
+    sum: &mut Summary,
+    progress: &mut dyn FnMut(u64),
+    problem: &mut dyn FnMut(&RowProblem),
+    batch: &mut dyn FnMut(Vec<(i64, Vec<RowItems>)>, &mut Summary) -> Result<(), ReplayError>,
+    workers: usize,
+    assign: &[usize],
+    metrics: &Metrics,
+) -> Result<(), ReplayError> {
+    let mut line = String::new();
+    let mut bytes = 0u64;
+    let mut layout: Option<Layout> = None;
+    let mut last_time: Option<i64> = None;
+    let mut analyses: Vec<Vec<Option<f64>>> = Vec::new();
+    let mut a_quality: Vec<SourceQuality> = Vec::new();
+    let mut a_present: Vec<bool> = Vec::new();
+    let mut s_quality: Vec<(usize, ScalarKind, SourceQuality)> = Vec::new();
+    let mut scalars: Vec<(usize, ScalarKind, f64, Option<ScalarUnitText>)> = Vec::new();
+    let mut pending: Vec<(i64, Vec<RowItems>)> = Vec::with_capacity(BATCH_ROWS);
+    let mut n = 0usize;
+    loop {
+        line.clear();
+        let got = input.read_line(&mut line)?;
+        if got == 0 {
+            break;
+        }
+        bytes += got as u64;
+        n += 1;
+        sum.lines = n;
+        let text = line.trim_end_matches(['\n', '\r']);
+        if text.trim().is_empty() || text.starts_with('#') {
+            continue;
+        }
+        let Some(lay) = &layout else {
+            let l = read_header(settings, text, n)?;
+            analyses = l.components.iter().map(|&c| vec![None; c]).collect();
+            a_quality = vec![SourceQuality::Good; l.reactors];
+            a_present = vec![false; l.reactors];
+            layout = Some(l);
+            continue;
+        };
+        let cells: Vec<&str> = text.split(',').collect();
+        let mut skip = |sum: &mut Summary, message: String| {
+            let p = RowProblem { line: n, message };
+            problem(&p);
+            sum.skipped_total += 1;
+            if sum.skipped.len() < KEEP_PROBLEMS {
+                sum.skipped.push(p);
+            }
+        };
+        if cells.len() != lay.columns.len() {
+            skip(
+                sum,
+                format!(
+                    "{} cells where the header has {} columns",
+                    cells.len(),
+                    lay.columns.len()
+                ),
+            );
+            continue;
+        }
+        // Read and check every cell; nothing reaches the engine from a bad row.
+        let mut time: Option<i64> = None;
+        let mut bad: Option<String> = None;
+        scalars.clear();
+        s_quality.clear();
+        for v in analyses.iter_mut() {
+            v.fill(None);
+        }
+        a_present.fill(false);
+        a_quality.fill(SourceQuality::Good);
+        for (i, (col, cell)) in lay.columns.iter().zip(&cells).enumerate() {
+            let cell = cell.trim();
+            if cell.is_empty() {
+                continue;
+            }
+            let not_number = || Some(format!("column {}: \"{cell}\" is not a number", i + 1));
+            let not_quality = || {
+                Some(format!(
+                    "column {}: quality \"{cell}\" is not good, uncertain or bad",
+                    i + 1
+                ))
+            };
+            match *col {
+                Column::Time => match parse_time(cell) {
+                    Some(t) => time = Some(t),
+                    None => {
+                        bad = Some(format!(
+                            "column {}: time \"{cell}\" is neither RFC 3339 nor epoch milliseconds",
+                            i + 1
+                        ))
+                    }
+                },
+                Column::Scalar {
+                    reactor,
+                    kind,
+                    unit_override,
+                } => match number(cell) {
+                    Some(v) => scalars.push((reactor, kind, v, unit_override)),
+                    None => bad = not_number(),
+                },
+                Column::Component {
+                    reactor,
+                    index,
+                    per_fraction,
+                } => match number(cell) {
+                    Some(v) => {
+                        analyses[reactor][index] = Some(v * per_fraction);
+                        a_present[reactor] = true;
+                    }
+                    None => bad = not_number(),
+                },
+                Column::ScalarQuality { reactor, kind } => match SourceQuality::parse(cell) {
+                    Some(q) => s_quality.push((reactor, kind, q)),
+                    None => bad = not_quality(),
+                },
+                Column::AnalyserQuality { reactor } => match SourceQuality::parse(cell) {
+                    Some(q) => a_quality[reactor] = q,
+                    None => bad = not_quality(),
+                },
+            }
+            if bad.is_some() {
+                break;
+            }
+        }
+        if bad.is_none() && time.is_none() {
+            bad = Some("no time".into());
+        }
+        if let (None, Some(t), Some(prev)) = (&bad, time, last_time) {
+            if t < prev {
+                bad = Some(format!(
+                    "time {} is earlier than the row before ({})",
+                    crate::timefmt::format_rfc3339(t),
+                    crate::timefmt::format_rfc3339(prev)
+                ));
+            }
+        }
+        if let Some(m) = bad {
+            skip(sum, m);
+            continue;
+        }
+        let Some(t) = time else { continue };
+        last_time = Some(t);
+        sum.rows += 1;
+        sum.first_ms.get_or_insert(t);
+        sum.last_ms = Some(t);
+        // The row's inputs, in the order the daemon takes them.
+        let mut per_worker: Vec<RowItems> = (0..workers).map(|_| Vec::new()).collect();
+        let mut order = 0u32;
+        for &(r, kind, v, over) in &scalars {
+            order += 1;
+            let unit = match over {
+                Some(ScalarUnitText::Temperature(u)) => ScalarUnit::Temperature(u),
+                Some(ScalarUnitText::Pressure(u)) => ScalarUnit::Pressure(u),
+                None => scalar_unit(settings, r, kind),
+            };
+            let quality = s_quality
+                .iter()
+                .find(|(qr, qk, _)| *qr == r && *qk == kind)
+                .map_or(SourceQuality::Good, |x| x.2);
+            sum.readings += 1;
+            let value = match convert(v, &unit, None, settings.atmosphere_bar) {
+                Ok(x) => x,
+                Err(e) => {
+                    metrics.decode_failures[e.reason_index()]
+                        .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                    tracing::warn!(line = n, reactor = %settings.reactors[r].spec.id, error = %e, "reading refused");
+                    continue;
+                }
+            };
+            let reading = ScalarReading {
+                ts_ms: t,
+                value,
+                quality,
+            };
+            let input = match kind {
+                ScalarKind::Temperature(i) => Input::Temperature(i, reading),
+                ScalarKind::Pressure => Input::Pressure(reading),
+                ScalarKind::SteamRatio => Input::SteamRatio(reading),
+            };
+            per_worker[assign[r]].push((order, r, input));
+        }
+        for r in 0..lay.reactors {
+            order += 1;
+            if !a_present[r] {
+                continue;
+            }
+            sum.readings += 1;
+            let input = Input::Analysis(AnalysisReading {
+                ts_ms: t,
+                values: analyses[r].clone(),
+                basis: None,
+                quality: a_quality[r],
+            });
+            per_worker[assign[r]].push((order, r, input));
+        }
+        pending.push((t, per_worker));
+        if pending.len() >= BATCH_ROWS {
+            batch(std::mem::take(&mut pending), sum)?;
+            progress(bytes);
+        }
+    }
+    if layout.is_none() {
+        return Err(ReplayError::NoHeader);
+    }
+    if !pending.is_empty() {
+        batch(pending, sum)?;
+    }
+    progress(bytes);
+    Ok(())
+}
+
+pub(super) fn number(cell: &str) -> Option<f64> {
+    cell.parse::<f64>().ok().filter(|v| v.is_finite())
+}
