@@ -235,30 +235,188 @@ pub(super) fn parse_time(text: &str) -> Option<i64> {
     parse_rfc3339(t)
 }
 
+/// Where good rows go: the workers that own each reactor, and the counters for readings
+/// refused on conversion.
+pub(super) struct RowPlan<'a> {
+    pub(super) settings: &'a Settings,
+    pub(super) workers: usize,
+    /// Worker of each reactor.
+    pub(super) assign: &'a [usize],
+    pub(super) metrics: &'a Metrics,
+}
+
+/// What the reader reports as it goes: bytes read, each skipped row, and each batch
+/// of [`BATCH_ROWS`] good rows (per row: its time and its inputs per worker).
+pub(super) struct RowHooks<'a> {
+    pub(super) progress: &'a mut dyn FnMut(u64),
+    pub(super) problem: &'a mut dyn FnMut(&RowProblem),
+    pub(super) batch: &'a mut RowBatch<'a>,
+}
+
+/// Takes a batch of rows (each with its time and its inputs per worker).
+pub(super) type RowBatch<'a> =
+    dyn FnMut(Vec<(i64, Vec<RowItems>)>, &mut Summary) -> Result<(), ReplayError> + 'a;
+
+/// One row's cells as read and checked, reused from row to row.
+#[derive(Default)]
+struct RowCells {
+    /// Per reactor, per component: the value as a mole fraction.
+    analyses: Vec<Vec<Option<f64>>>,
+    analysis_quality: Vec<SourceQuality>,
+    analysis_present: Vec<bool>,
+    scalar_quality: Vec<(usize, ScalarKind, SourceQuality)>,
+    scalars: Vec<(usize, ScalarKind, f64, Option<ScalarUnitText>)>,
+}
+
+impl RowCells {
+    fn for_layout(layout: &Layout) -> Self {
+        Self {
+            analyses: layout.components.iter().map(|&c| vec![None; c]).collect(),
+            analysis_quality: vec![SourceQuality::Good; layout.reactors],
+            analysis_present: vec![false; layout.reactors],
+            ..Self::default()
+        }
+    }
+
+    fn clear(&mut self) {
+        self.scalars.clear();
+        self.scalar_quality.clear();
+        for v in &mut self.analyses {
+            v.fill(None);
+        }
+        self.analysis_present.fill(false);
+        self.analysis_quality.fill(SourceQuality::Good);
+    }
+
+    /// Reads every cell of a row; the row's time, or what is wrong with the row
+    /// (nothing reaches the engine from a bad row).
+    fn read(&mut self, layout: &Layout, cells: &[&str]) -> Result<Option<i64>, String> {
+        self.clear();
+        let mut time = None;
+        for (i, (col, cell)) in layout.columns.iter().zip(cells).enumerate() {
+            let cell = cell.trim();
+            if cell.is_empty() {
+                continue;
+            }
+            let not_number = || format!("column {}: \"{cell}\" is not a number", i + 1);
+            let not_quality = || {
+                format!(
+                    "column {}: quality \"{cell}\" is not good, uncertain or bad",
+                    i + 1
+                )
+            };
+            match *col {
+                Column::Time => {
+                    time = Some(parse_time(cell).ok_or_else(|| {
+                        format!(
+                            "column {}: time \"{cell}\" is neither RFC 3339 nor epoch milliseconds",
+                            i + 1
+                        )
+                    })?)
+                }
+                Column::Scalar {
+                    reactor,
+                    kind,
+                    unit_override,
+                } => {
+                    let v = number(cell).ok_or_else(not_number)?;
+                    self.scalars.push((reactor, kind, v, unit_override));
+                }
+                Column::Component {
+                    reactor,
+                    index,
+                    per_fraction,
+                } => {
+                    let v = number(cell).ok_or_else(not_number)?;
+                    self.analyses[reactor][index] = Some(v * per_fraction);
+                    self.analysis_present[reactor] = true;
+                }
+                Column::ScalarQuality { reactor, kind } => {
+                    let q = SourceQuality::parse(cell).ok_or_else(not_quality)?;
+                    self.scalar_quality.push((reactor, kind, q));
+                }
+                Column::AnalyserQuality { reactor } => {
+                    self.analysis_quality[reactor] =
+                        SourceQuality::parse(cell).ok_or_else(not_quality)?;
+                }
+            }
+        }
+        Ok(time)
+    }
+
+    /// The row's inputs per worker, in the order the daemon takes them: scalars in
+    /// column order, then one analysis per analyser. A scalar whose unit conversion
+    /// fails is counted and logged, and left out.
+    fn inputs(&self, plan: &RowPlan<'_>, t: i64, line: usize, sum: &mut Summary) -> Vec<RowItems> {
+        let settings = plan.settings;
+        let mut per_worker: Vec<RowItems> = (0..plan.workers).map(|_| Vec::new()).collect();
+        let mut order = 0u32;
+        for &(r, kind, v, over) in &self.scalars {
+            order += 1;
+            let unit = match over {
+                Some(ScalarUnitText::Temperature(u)) => ScalarUnit::Temperature(u),
+                Some(ScalarUnitText::Pressure(u)) => ScalarUnit::Pressure(u),
+                None => scalar_unit(settings, r, kind),
+            };
+            let quality = self
+                .scalar_quality
+                .iter()
+                .find(|(qr, qk, _)| *qr == r && *qk == kind)
+                .map_or(SourceQuality::Good, |x| x.2);
+            sum.readings += 1;
+            let value = match convert(v, &unit, None, settings.atmosphere_bar) {
+                Ok(x) => x,
+                Err(e) => {
+                    plan.metrics.decode_failures[e.reason_index()]
+                        .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                    tracing::warn!(line, reactor = %settings.reactors[r].spec.id, error = %e, "reading refused");
+                    continue;
+                }
+            };
+            let reading = ScalarReading {
+                ts_ms: t,
+                value,
+                quality,
+            };
+            let input = match kind {
+                ScalarKind::Temperature(i) => Input::Temperature(i, reading),
+                ScalarKind::Pressure => Input::Pressure(reading),
+                ScalarKind::SteamRatio => Input::SteamRatio(reading),
+            };
+            per_worker[plan.assign[r]].push((order, r, input));
+        }
+        for (r, values) in self.analyses.iter().enumerate() {
+            order += 1;
+            if !self.analysis_present[r] {
+                continue;
+            }
+            sum.readings += 1;
+            let input = Input::Analysis(AnalysisReading {
+                ts_ms: t,
+                values: values.clone(),
+                basis: None,
+                quality: self.analysis_quality[r],
+            });
+            per_worker[plan.assign[r]].push((order, r, input));
+        }
+        per_worker
+    }
+}
+
 /// Reads the CSV: header, then rows checked whole; good rows become per-worker input
 /// lists (in the daemon's order: scalars in column order, then one analysis per
-/// analyser) handed to `batch` in groups of [`BATCH_ROWS`].
-#[allow(clippy::type_complexity, clippy::too_many_arguments)]
+/// analyser) handed to the batch hook in groups of [`BATCH_ROWS`].
 pub(super) fn read_rows(
-    settings: &Settings,
+    plan: &RowPlan<'_>,
     input: &mut dyn BufRead,
     sum: &mut Summary,
-    progress: &mut dyn FnMut(u64),
-    problem: &mut dyn FnMut(&RowProblem),
-    batch: &mut dyn FnMut(Vec<(i64, Vec<RowItems>)>, &mut Summary) -> Result<(), ReplayError>,
-    workers: usize,
-    assign: &[usize],
-    metrics: &Metrics,
+    hooks: &mut RowHooks<'_>,
 ) -> Result<(), ReplayError> {
     let mut line = String::new();
     let mut bytes = 0u64;
     let mut layout: Option<Layout> = None;
     let mut last_time: Option<i64> = None;
-    let mut analyses: Vec<Vec<Option<f64>>> = Vec::new();
-    let mut a_quality: Vec<SourceQuality> = Vec::new();
-    let mut a_present: Vec<bool> = Vec::new();
-    let mut s_quality: Vec<(usize, ScalarKind, SourceQuality)> = Vec::new();
-    let mut scalars: Vec<(usize, ScalarKind, f64, Option<ScalarUnitText>)> = Vec::new();
+    let mut cells_read = RowCells::default();
     let mut pending: Vec<(i64, Vec<RowItems>)> = Vec::with_capacity(BATCH_ROWS);
     let mut n = 0usize;
     loop {
@@ -275,181 +433,60 @@ pub(super) fn read_rows(
             continue;
         }
         let Some(lay) = &layout else {
-            let l = read_header(settings, text, n)?;
-            analyses = l.components.iter().map(|&c| vec![None; c]).collect();
-            a_quality = vec![SourceQuality::Good; l.reactors];
-            a_present = vec![false; l.reactors];
+            let l = read_header(plan.settings, text, n)?;
+            cells_read = RowCells::for_layout(&l);
             layout = Some(l);
             continue;
         };
         let cells: Vec<&str> = text.split(',').collect();
-        let mut skip = |sum: &mut Summary, message: String| {
-            let p = RowProblem { line: n, message };
-            problem(&p);
-            sum.skipped_total += 1;
-            if sum.skipped.len() < KEEP_PROBLEMS {
-                sum.skipped.push(p);
-            }
+        let checked = if cells.len() != lay.columns.len() {
+            Err(format!(
+                "{} cells where the header has {} columns",
+                cells.len(),
+                lay.columns.len()
+            ))
+        } else {
+            cells_read.read(lay, &cells).and_then(|time| {
+                let t = time.ok_or_else(|| "no time".to_string())?;
+                match last_time {
+                    Some(prev) if t < prev => Err(format!(
+                        "time {} is earlier than the row before ({})",
+                        crate::timefmt::format_rfc3339(t),
+                        crate::timefmt::format_rfc3339(prev)
+                    )),
+                    _ => Ok(t),
+                }
+            })
         };
-        if cells.len() != lay.columns.len() {
-            skip(
-                sum,
-                format!(
-                    "{} cells where the header has {} columns",
-                    cells.len(),
-                    lay.columns.len()
-                ),
-            );
-            continue;
-        }
-        // Read and check every cell; nothing reaches the engine from a bad row.
-        let mut time: Option<i64> = None;
-        let mut bad: Option<String> = None;
-        scalars.clear();
-        s_quality.clear();
-        for v in analyses.iter_mut() {
-            v.fill(None);
-        }
-        a_present.fill(false);
-        a_quality.fill(SourceQuality::Good);
-        for (i, (col, cell)) in lay.columns.iter().zip(&cells).enumerate() {
-            let cell = cell.trim();
-            if cell.is_empty() {
+        let t = match checked {
+            Ok(t) => t,
+            Err(message) => {
+                let p = RowProblem { line: n, message };
+                (hooks.problem)(&p);
+                sum.skipped_total += 1;
+                if sum.skipped.len() < KEEP_PROBLEMS {
+                    sum.skipped.push(p);
+                }
                 continue;
             }
-            let not_number = || Some(format!("column {}: \"{cell}\" is not a number", i + 1));
-            let not_quality = || {
-                Some(format!(
-                    "column {}: quality \"{cell}\" is not good, uncertain or bad",
-                    i + 1
-                ))
-            };
-            match *col {
-                Column::Time => match parse_time(cell) {
-                    Some(t) => time = Some(t),
-                    None => {
-                        bad = Some(format!(
-                            "column {}: time \"{cell}\" is neither RFC 3339 nor epoch milliseconds",
-                            i + 1
-                        ))
-                    }
-                },
-                Column::Scalar {
-                    reactor,
-                    kind,
-                    unit_override,
-                } => match number(cell) {
-                    Some(v) => scalars.push((reactor, kind, v, unit_override)),
-                    None => bad = not_number(),
-                },
-                Column::Component {
-                    reactor,
-                    index,
-                    per_fraction,
-                } => match number(cell) {
-                    Some(v) => {
-                        analyses[reactor][index] = Some(v * per_fraction);
-                        a_present[reactor] = true;
-                    }
-                    None => bad = not_number(),
-                },
-                Column::ScalarQuality { reactor, kind } => match SourceQuality::parse(cell) {
-                    Some(q) => s_quality.push((reactor, kind, q)),
-                    None => bad = not_quality(),
-                },
-                Column::AnalyserQuality { reactor } => match SourceQuality::parse(cell) {
-                    Some(q) => a_quality[reactor] = q,
-                    None => bad = not_quality(),
-                },
-            }
-            if bad.is_some() {
-                break;
-            }
-        }
-        if bad.is_none() && time.is_none() {
-            bad = Some("no time".into());
-        }
-        if let (None, Some(t), Some(prev)) = (&bad, time, last_time) {
-            if t < prev {
-                bad = Some(format!(
-                    "time {} is earlier than the row before ({})",
-                    crate::timefmt::format_rfc3339(t),
-                    crate::timefmt::format_rfc3339(prev)
-                ));
-            }
-        }
-        if let Some(m) = bad {
-            skip(sum, m);
-            continue;
-        }
-        let Some(t) = time else { continue };
+        };
         last_time = Some(t);
         sum.rows += 1;
         sum.first_ms.get_or_insert(t);
         sum.last_ms = Some(t);
-        // The row's inputs, in the order the daemon takes them.
-        let mut per_worker: Vec<RowItems> = (0..workers).map(|_| Vec::new()).collect();
-        let mut order = 0u32;
-        for &(r, kind, v, over) in &scalars {
-            order += 1;
-            let unit = match over {
-                Some(ScalarUnitText::Temperature(u)) => ScalarUnit::Temperature(u),
-                Some(ScalarUnitText::Pressure(u)) => ScalarUnit::Pressure(u),
-                None => scalar_unit(settings, r, kind),
-            };
-            let quality = s_quality
-                .iter()
-                .find(|(qr, qk, _)| *qr == r && *qk == kind)
-                .map_or(SourceQuality::Good, |x| x.2);
-            sum.readings += 1;
-            let value = match convert(v, &unit, None, settings.atmosphere_bar) {
-                Ok(x) => x,
-                Err(e) => {
-                    metrics.decode_failures[e.reason_index()]
-                        .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-                    tracing::warn!(line = n, reactor = %settings.reactors[r].spec.id, error = %e, "reading refused");
-                    continue;
-                }
-            };
-            let reading = ScalarReading {
-                ts_ms: t,
-                value,
-                quality,
-            };
-            let input = match kind {
-                ScalarKind::Temperature(i) => Input::Temperature(i, reading),
-                ScalarKind::Pressure => Input::Pressure(reading),
-                ScalarKind::SteamRatio => Input::SteamRatio(reading),
-            };
-            per_worker[assign[r]].push((order, r, input));
-        }
-        for r in 0..lay.reactors {
-            order += 1;
-            if !a_present[r] {
-                continue;
-            }
-            sum.readings += 1;
-            let input = Input::Analysis(AnalysisReading {
-                ts_ms: t,
-                values: analyses[r].clone(),
-                basis: None,
-                quality: a_quality[r],
-            });
-            per_worker[assign[r]].push((order, r, input));
-        }
-        pending.push((t, per_worker));
+        pending.push((t, cells_read.inputs(plan, t, n, sum)));
         if pending.len() >= BATCH_ROWS {
-            batch(std::mem::take(&mut pending), sum)?;
-            progress(bytes);
+            (hooks.batch)(std::mem::take(&mut pending), sum)?;
+            (hooks.progress)(bytes);
         }
     }
     if layout.is_none() {
         return Err(ReplayError::NoHeader);
     }
     if !pending.is_empty() {
-        batch(pending, sum)?;
+        (hooks.batch)(pending, sum)?;
     }
-    progress(bytes);
+    (hooks.progress)(bytes);
     Ok(())
 }
 

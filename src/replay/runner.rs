@@ -249,40 +249,42 @@ impl Replay {
                 Ok(())
             };
             let mut sum = Summary::default();
-            let read = read_rows(
-                &settings,
-                input,
-                &mut sum,
+            let mut batch = |batch: Vec<(i64, Vec<RowItems>)>, sum: &mut Summary| {
+                let times: Vec<i64> = batch.iter().map(|(t, _)| *t).collect();
+                // Split each row's items by worker.
+                let mut split: Vec<Vec<(i64, RowItems)>> = (0..workers)
+                    .map(|_| Vec::with_capacity(batch.len()))
+                    .collect();
+                for (t, per_worker) in batch {
+                    for (w, items) in per_worker.into_iter().enumerate() {
+                        split[w].push((t, items));
+                    }
+                }
+                for (w, b) in split.into_iter().enumerate() {
+                    to_workers[w]
+                        .send(b)
+                        .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?;
+                }
+                pending.push_back(times);
+                if pending.len() > 2 {
+                    if let Some(times) = pending.pop_front() {
+                        merge(times, &mut plant, out, sum)?;
+                    }
+                }
+                Ok(())
+            };
+            let plan = RowPlan {
+                settings: &settings,
+                workers,
+                assign: &assign,
+                metrics: &metrics,
+            };
+            let mut hooks = RowHooks {
                 progress,
                 problem,
-                &mut |batch: Vec<(i64, Vec<RowItems>)>, sum: &mut Summary| {
-                    let times: Vec<i64> = batch.iter().map(|(t, _)| *t).collect();
-                    // Split each row's items by worker.
-                    let mut split: Vec<Vec<(i64, RowItems)>> = (0..workers)
-                        .map(|_| Vec::with_capacity(batch.len()))
-                        .collect();
-                    for (t, per_worker) in batch {
-                        for (w, items) in per_worker.into_iter().enumerate() {
-                            split[w].push((t, items));
-                        }
-                    }
-                    for (w, b) in split.into_iter().enumerate() {
-                        to_workers[w]
-                            .send(b)
-                            .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?;
-                    }
-                    pending.push_back(times);
-                    if pending.len() > 2 {
-                        if let Some(times) = pending.pop_front() {
-                            merge(times, &mut plant, out, sum)?;
-                        }
-                    }
-                    Ok(())
-                },
-                workers,
-                &assign,
-                &metrics,
-            );
+                batch: &mut batch,
+            };
+            let read = read_rows(&plan, input, &mut sum, &mut hooks);
             let mut result = read;
             while let Some(times) = pending.pop_front() {
                 if result.is_ok() {
