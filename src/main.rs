@@ -438,14 +438,14 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 },
                 None,
             )?;
-            let text = eqwatch::replay::command(
-                &config,
-                &input,
-                out.as_deref(),
-                plot.as_deref(),
+            let text = eqwatch::replay::command(&eqwatch::replay::ReplayArgs {
+                config: &config,
+                input: &input,
+                out: out.as_deref(),
+                plot_dir: plot.as_deref(),
                 plot_tz,
                 threads,
-            )?;
+            })?;
             Ok((serde_json::Value::String(text), false))
         }
         #[cfg(feature = "demo-broker")]

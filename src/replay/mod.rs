@@ -32,9 +32,16 @@ pub use plots::{reactor_plot, write_plots, write_svgs};
 use runner::Pipe;
 pub use runner::{Replay, Summary};
 
-use std::io::Write;
+use std::fmt::Write as _;
+use std::io::{IsTerminal, Write};
+use std::path::Path;
 use std::sync::Arc;
+
 use thiserror::Error;
+
+use crate::cli::CliError;
+use crate::config::Settings;
+use crate::pipeline::metrics::Metrics;
 
 #[derive(Debug, Error)]
 pub enum ReplayError {
@@ -55,75 +62,134 @@ pub struct RowProblem {
     pub message: String,
 }
 
+/// What `eqwatch replay` was asked to do.
+#[derive(Debug, Clone)]
+pub struct ReplayArgs<'a> {
+    pub config: &'a Path,
+    pub input: &'a Path,
+    /// The JSON lines file of every record, if wanted.
+    pub out: Option<&'a Path>,
+    /// The folder for SVG plots, if wanted.
+    pub plot_dir: Option<&'a Path>,
+    pub plot_tz: crate::plot::TimeZone,
+    /// Worker threads (default: the machine's cores).
+    pub threads: Option<usize>,
+}
+
 /// `eqwatch replay`: runs the file, writes the outputs, returns the summary text.
-pub fn command(
-    config: &std::path::Path,
-    input: &std::path::Path,
-    out: Option<&std::path::Path>,
-    plot_dir: Option<&std::path::Path>,
-    plot_tz: crate::plot::TimeZone,
-    threads: Option<usize>,
-) -> Result<String, crate::cli::CliError> {
-    use crate::cli::CliError;
-    use std::fmt::Write as _;
-    use std::io::IsTerminal;
-    let settings = crate::config::load(config)
-        .map_err(|e| CliError::Input(format!("{}:\n{e}", config.display())))?;
+pub fn command(args: &ReplayArgs<'_>) -> Result<String, CliError> {
+    let input = args.input;
+    let settings = crate::config::load(args.config)
+        .map_err(|e| CliError::Input(format!("{}:\n{e}", args.config.display())))?;
     let settings = Arc::new(settings);
     let file = std::fs::File::open(input)
         .map_err(|e| CliError::Input(format!("{}: {e}", input.display())))?;
     let size = file.metadata().map(|m| m.len()).unwrap_or(0);
     let mut reader = std::io::BufReader::with_capacity(1 << 20, file);
-    // Results are written by a second thread (the disk works while the next rows are
-    // evaluated); the order is that of the records.
-    let (mut sink, writer): (
-        Box<dyn Write>,
-        Option<std::thread::JoinHandle<std::io::Result<()>>>,
-    ) = match out {
-        Some(p) => {
-            if let Some(d) = p.parent().filter(|d| !d.as_os_str().is_empty()) {
-                std::fs::create_dir_all(d)
-                    .map_err(|e| CliError::Input(format!("{}: {e}", d.display())))?;
-            }
-            let mut file = std::fs::File::create(p)
-                .map_err(|e| CliError::Input(format!("{}: {e}", p.display())))?;
-            let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<u8>>(8);
-            let handle = std::thread::Builder::new()
-                .name("eqwatch-replay-writer".into())
-                .spawn(move || {
-                    for chunk in rx {
-                        file.write_all(&chunk)?;
-                    }
-                    file.flush()
-                })
-                .map_err(|e| CliError::Internal(format!("writer thread: {e}")))?;
-            (Box::new(Pipe::new(tx)), Some(handle))
-        }
-        None => (Box::new(std::io::sink()), None),
-    };
-    let mut replay = Replay::new(settings.clone(), plot_dir.is_some())
+    let mut results = ResultsFile::open(args.out)?;
+    let mut replay = Replay::new(settings.clone(), args.plot_dir.is_some())
         .map_err(|e| CliError::Input(e.to_string()))?;
-    if let Some(n) = threads {
+    if let Some(n) = args.threads {
         replay = replay.with_threads(n);
     }
     let started = std::time::Instant::now();
     let tty = std::io::stderr().is_terminal();
-    let mut last_pct = u64::MAX;
-    let mut progress = |b: u64| {
-        if tty && size > 0 {
-            let pct = b.saturating_mul(100) / size;
-            if pct != last_pct {
-                last_pct = pct;
-                let bar = "#".repeat((pct / 4) as usize);
-                eprint!("\rreplay [{bar:<25}] {pct:>3}%");
-                if pct >= 100 {
-                    eprintln!();
+    let mut progress = progress_bar(tty, size);
+    let mut problem = row_reporter(tty, input);
+    let sum = replay
+        .run(&mut reader, &mut results.sink, &mut progress, &mut problem)
+        .map_err(|e| match e {
+            ReplayError::Read(_) => CliError::Internal(format!("{}: {e}", input.display())),
+            e => CliError::Input(format!("{}: {e}", input.display())),
+        })?;
+    results.finish()?;
+    let mut text = summary_text(&settings, &sum, replay.metrics(), started.elapsed());
+    if let Some(o) = args.out {
+        let _ = writeln!(text, "results: {}", o.display());
+    }
+    if let (Some(dir), Some(traces)) = (args.plot_dir, replay.traces()) {
+        let title = format!("{}: replay of {}", settings.site, input.display());
+        let paths = write_plots(&settings, &traces, dir, &title, args.plot_tz)
+            .map_err(|e| CliError::Input(format!("plots in {}: {e}", dir.display())))?;
+        let _ = writeln!(text, "plots: {} files in {}", paths.len(), dir.display());
+    }
+    Ok(text)
+}
+
+/// Where the records go: a file written by a second thread (the disk works while the
+/// next rows are evaluated; the order is that of the records), or nowhere.
+struct ResultsFile {
+    sink: Box<dyn Write>,
+    writer: Option<std::thread::JoinHandle<std::io::Result<()>>>,
+}
+
+impl ResultsFile {
+    fn open(out: Option<&Path>) -> Result<Self, CliError> {
+        let Some(p) = out else {
+            return Ok(Self {
+                sink: Box::new(std::io::sink()),
+                writer: None,
+            });
+        };
+        if let Some(d) = p.parent().filter(|d| !d.as_os_str().is_empty()) {
+            std::fs::create_dir_all(d)
+                .map_err(|e| CliError::Input(format!("{}: {e}", d.display())))?;
+        }
+        let mut file = std::fs::File::create(p)
+            .map_err(|e| CliError::Input(format!("{}: {e}", p.display())))?;
+        let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<u8>>(8);
+        let handle = std::thread::Builder::new()
+            .name("eqwatch-replay-writer".into())
+            .spawn(move || {
+                for chunk in rx {
+                    file.write_all(&chunk)?;
                 }
+                file.flush()
+            })
+            .map_err(|e| CliError::Internal(format!("writer thread: {e}")))?;
+        Ok(Self {
+            sink: Box::new(Pipe::new(tx)),
+            writer: Some(handle),
+        })
+    }
+
+    /// Flushes and waits for the writer: every record is on disk, or the error says why.
+    fn finish(self) -> Result<(), CliError> {
+        let Self { mut sink, writer } = self;
+        sink.flush()
+            .map_err(|e| CliError::Internal(format!("writing results: {e}")))?;
+        drop(sink);
+        match writer.map(std::thread::JoinHandle::join) {
+            None | Some(Ok(Ok(()))) => Ok(()),
+            Some(Ok(Err(e))) => Err(CliError::Internal(format!("writing results: {e}"))),
+            Some(Err(_)) => Err(CliError::Internal("the writer thread failed".into())),
+        }
+    }
+}
+
+/// A percentage bar on a terminal's stderr (nothing when stderr is not a terminal).
+fn progress_bar(tty: bool, size: u64) -> impl FnMut(u64) {
+    let mut last_pct = u64::MAX;
+    move |bytes: u64| {
+        if !tty || size == 0 {
+            return;
+        }
+        let pct = bytes.saturating_mul(100) / size;
+        if pct != last_pct {
+            last_pct = pct;
+            let bar = "#".repeat((pct / 4) as usize);
+            eprint!("\rreplay [{bar:<25}] {pct:>3}%");
+            if pct >= 100 {
+                eprintln!();
             }
         }
-    };
+    }
+}
+
+/// The first 20 skipped rows on stderr with their line; the rest are counted.
+fn row_reporter(tty: bool, input: &Path) -> impl FnMut(&RowProblem) + '_ {
     let mut shown = 0usize;
-    let mut problem = |p: &RowProblem| {
+    move |p: &RowProblem| {
         if shown < 20 {
             if tty {
                 eprint!("\r");
@@ -133,24 +199,18 @@ pub fn command(
             eprintln!("(more skipped rows are counted in the summary)");
         }
         shown += 1;
-    };
-    let sum = replay
-        .run(&mut reader, &mut sink, &mut progress, &mut problem)
-        .map_err(|e| match e {
-            ReplayError::Read(_) => CliError::Internal(format!("{}: {e}", input.display())),
-            e => CliError::Input(format!("{}: {e}", input.display())),
-        })?;
-    sink.flush()
-        .map_err(|e| CliError::Internal(format!("writing results: {e}")))?;
-    drop(sink);
-    if let Some(w) = writer {
-        match w.join() {
-            Ok(Ok(())) => {}
-            Ok(Err(e)) => return Err(CliError::Internal(format!("writing results: {e}"))),
-            Err(_) => return Err(CliError::Internal("the writer thread failed".into())),
-        }
     }
-    let elapsed = started.elapsed();
+}
+
+/// The summary: rows, readings and time span, then per reactor the evaluations by
+/// quality, alarms, alerts, trend and end of run, then the plant-wide counts.
+fn summary_text(
+    settings: &Settings,
+    sum: &Summary,
+    m: &Metrics,
+    elapsed: std::time::Duration,
+) -> String {
+    use std::sync::atomic::Ordering::Relaxed;
     let mut text = String::new();
     let fmt = |t: Option<i64>| t.map_or("-".to_string(), crate::timefmt::format_rfc3339);
     let _ = writeln!(
@@ -164,11 +224,7 @@ pub fn command(
         sum.skipped_total,
         sum.records
     );
-    let traces = replay.traces();
-    let m = replay.metrics();
-    use std::sync::atomic::Ordering::Relaxed;
-    for (r, rs) in settings.reactors.iter().enumerate() {
-        let rm = &m.reactors[r];
+    for (rs, rm) in settings.reactors.iter().zip(&m.reactors) {
         let trend = f64::from_bits(rm.trend_k_per_day.load(Relaxed));
         let eor = f64::from_bits(rm.end_of_run_days.load(Relaxed));
         let _ = writeln!(
@@ -199,14 +255,5 @@ pub fn command(
         m.chattering.load(Relaxed),
         m.stale.load(Relaxed)
     );
-    if let Some(o) = out {
-        let _ = writeln!(text, "results: {}", o.display());
-    }
-    if let (Some(dir), Some(traces)) = (plot_dir, traces) {
-        let title = format!("{}: replay of {}", settings.site, input.display());
-        let paths = write_plots(&settings, &traces, dir, &title, plot_tz)
-            .map_err(|e| CliError::Input(format!("plots in {}: {e}", dir.display())))?;
-        let _ = writeln!(text, "plots: {} files in {}", paths.len(), dir.display());
-    }
-    Ok(text)
+    text
 }

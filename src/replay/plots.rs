@@ -1,9 +1,17 @@
 //! Plots of a run: a trace per reactor turned into the charts' model, and the one SVG
 //! writer the replay and the demo share.
 
-use crate::config::Settings;
+use crate::composition::Basis;
+use crate::config::{ReactorSettings, Settings};
+use crate::monitor::alarm::{Direction, EventKind};
+use crate::monitor::watch::{Class, Figure, Forecast};
 use crate::pipeline::Trace;
 use crate::pipeline::expand;
+use crate::plot::{
+    AggregatePoint, AlarmLimit, BaselineSpan, Marker, MarkerKind, OfflineSpan, PlotPoint,
+    Projection, ReactorPlot,
+};
+use crate::units::DAY_MS;
 
 /// A wet mole fraction on a dry basis, given the wet water fraction of the same gas:
 /// y_dry = y_wet / (1 − y_H2O) (docs/domain.md §5, dry basis = the gas with its water knocked out).
@@ -18,18 +26,37 @@ pub(super) fn dry(wet: Option<f64>, water: Option<f64>) -> Option<f64> {
 /// The plot of one reactor from its replay trace. The key component is plotted on the
 /// analyser's basis: dry values are worked out from the wet ones and the water of the
 /// same gas (measured gas: the water rebuilt from the steam ratio; equilibrium: its own).
-pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPlot {
-    use crate::composition::Basis;
-    use crate::monitor::alarm::{Direction, EventKind};
-    use crate::monitor::watch::{Class, Figure, Forecast};
-    use crate::plot::{
-        AggregatePoint, AlarmLimit, BaselineSpan, Marker, MarkerKind, OfflineSpan, PlotPoint,
-        Projection, ReactorPlot,
-    };
+pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> ReactorPlot {
     let rs = &s.reactors[r];
     let on_dry = rs.spec.composition.basis == Basis::Dry;
-    let points = t
-        .points
+    let points = plot_points(t, on_dry);
+    let baselines = baseline_spans(t);
+    let markers = markers(t);
+    let alarm_limits = alarm_limits(rs);
+    let offline = offline_spans(t);
+    let aggregates = aggregate_points(t);
+    let projection = projection(t);
+    ReactorPlot {
+        reactor: rs.spec.id.clone(),
+        title: format!("{} ({})", rs.spec.name, rs.spec.id),
+        key_component: s.species.get(rs.spec.key_component).name.clone(),
+        limit_k: rs.spec.watch.drift.end_of_run_limit_k,
+        points,
+        baselines,
+        projection,
+        markers,
+        alarm_limits,
+        offline,
+        aggregates,
+        aggregate_period_ms: rs.spec.watch.drift.aggregate_ms,
+        key_basis: Some(rs.spec.composition.basis.as_str().to_string()),
+    }
+}
+
+/// The evaluations as chart points; the key component on the analyser's basis, and a
+/// gap where the analysis was bad.
+fn plot_points(t: &Trace, on_dry: bool) -> Vec<PlotPoint> {
+    t.points
         .iter()
         .map(|p| {
             let (mut km, mut ke) = (expand(p.key_measured), expand(p.key_equilibrium));
@@ -51,9 +78,12 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
                 key_equilibrium: ke,
             }
         })
-        .collect();
-    let baselines = t
-        .baselines
+        .collect()
+}
+
+/// The baselines in force, span by span.
+fn baseline_spans(t: &Trace) -> Vec<BaselineSpan> {
+    t.baselines
         .iter()
         .map(|b| BaselineSpan {
             from_ms: b.from_ms,
@@ -61,9 +91,12 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
             approach_k: b.approach_k,
             sigma_k: Some(b.sigma_k),
         })
-        .collect();
-    let markers = t
-        .events
+        .collect()
+}
+
+/// Alert and alarm events and operator actions as markers (other events are left out).
+fn markers(t: &Trace) -> Vec<Marker> {
+    t.events
         .iter()
         .filter_map(|e| {
             let kind = match (&e.kind, e.class) {
@@ -94,9 +127,12 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
                 label: format!("{what}{by}"),
             })
         })
-        .collect();
-    let alarm_limits = rs
-        .spec
+        .collect()
+}
+
+/// The approach alarms' limits, in K, to draw on the approach chart.
+fn alarm_limits(rs: &ReactorSettings) -> Vec<AlarmLimit> {
+    rs.spec
         .watch
         .alarms
         .iter()
@@ -106,10 +142,13 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
             limit_k: a.config.limit / a.scale,
             high: a.config.direction == Direction::High,
         })
-        .collect();
+        .collect()
+}
+
+/// Off-line spans; one still open ends with the data.
+fn offline_spans(t: &Trace) -> Vec<OfflineSpan> {
     let data_end = t.points.last().map(|p| p.t_ms);
-    let offline = t
-        .offline
+    t.offline
         .iter()
         .filter_map(|&(from, to)| {
             let to = to.or(data_end.map(|e| e.max(from)))?;
@@ -118,12 +157,15 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
                 to_ms: to,
             })
         })
-        .collect();
-    // The current trend was fitted on the aggregates of the last run between its first
-    // and last fitted points (a trend window may leave older ones out).
+        .collect()
+}
+
+/// The daily aggregates, marked where the current trend was fitted on them: the
+/// aggregates of the last run between its first and last fitted points (a trend window
+/// may leave older ones out).
+fn aggregate_points(t: &Trace) -> Vec<AggregatePoint> {
     let fitted = t.last_drift.and_then(|d| d.trend);
-    let aggregates = t
-        .aggregates
+    t.aggregates
         .iter()
         .map(|&(t_ms, k)| AggregatePoint {
             t_ms,
@@ -132,61 +174,50 @@ pub fn reactor_plot(s: &Settings, r: usize, t: &Trace) -> crate::plot::ReactorPl
                 t_ms >= f.origin_ms && t_ms >= f.first_ms - 1 && t_ms <= f.last_ms + 1
             }),
         })
-        .collect();
-    let projection = t.last_drift.and_then(|d| {
-        let tr = d.trend?;
-        let day = 86_400_000.0;
-        let (end, range) = match d.forecast {
-            Forecast::At {
-                at_ms,
-                earliest_ms,
-                latest_ms,
-            } => (Some(at_ms), Some((earliest_ms, latest_ms.unwrap_or(at_ms)))),
-            _ => (None, None),
-        };
-        let span = (tr.last_ms - tr.first_ms).max(1);
-        // At most half the data span ahead: a far-off forecast must not squash the data
-        // (the chart names the date when it is beyond).
-        let data_span = t
-            .points
-            .first()
-            .zip(t.points.last())
-            .map_or(span, |(a, b)| (b.t_ms - a.t_ms).max(span));
-        let to = end
-            .unwrap_or(tr.last_ms + data_span / 4)
-            .min(tr.last_ms + data_span / 2);
-        let steps = 60;
-        let pts = (0..=steps)
-            .map(|i| {
-                let tm = tr.first_ms + (to - tr.first_ms) * i / steps;
-                let x = (tm - tr.origin_ms) as f64 / day;
-                let y = tr.intercept_k + tr.slope_k_per_day * x;
-                let b = tr.fit.band(x);
-                (tm, y, y - b, y + b)
-            })
-            .collect();
-        Some(Projection {
-            points: pts,
-            slope_k_per_day: tr.slope_k_per_day,
-            end_of_run_ms: end,
-            end_of_run_range_ms: range,
+        .collect()
+}
+
+/// The trend line with its band, up to the end-of-run forecast or at most half the
+/// data span ahead.
+fn projection(t: &Trace) -> Option<Projection> {
+    let d = t.last_drift?;
+    let tr = d.trend?;
+    let day = DAY_MS as f64;
+    let (end, range) = match d.forecast {
+        Forecast::At {
+            at_ms,
+            earliest_ms,
+            latest_ms,
+        } => (Some(at_ms), Some((earliest_ms, latest_ms.unwrap_or(at_ms)))),
+        _ => (None, None),
+    };
+    let span = (tr.last_ms - tr.first_ms).max(1);
+    // At most half the data span ahead: a far-off forecast must not squash the data
+    // (the chart names the date when it is beyond).
+    let data_span = t
+        .points
+        .first()
+        .zip(t.points.last())
+        .map_or(span, |(a, b)| (b.t_ms - a.t_ms).max(span));
+    let to = end
+        .unwrap_or(tr.last_ms + data_span / 4)
+        .min(tr.last_ms + data_span / 2);
+    let steps = 60;
+    let pts = (0..=steps)
+        .map(|i| {
+            let tm = tr.first_ms + (to - tr.first_ms) * i / steps;
+            let x = (tm - tr.origin_ms) as f64 / day;
+            let y = tr.intercept_k + tr.slope_k_per_day * x;
+            let b = tr.fit.band(x);
+            (tm, y, y - b, y + b)
         })
-    });
-    ReactorPlot {
-        reactor: rs.spec.id.clone(),
-        title: format!("{} ({})", rs.spec.name, rs.spec.id),
-        key_component: s.species.get(rs.spec.key_component).name.clone(),
-        limit_k: rs.spec.watch.drift.end_of_run_limit_k,
-        points,
-        baselines,
-        projection,
-        markers,
-        alarm_limits,
-        offline,
-        aggregates,
-        aggregate_period_ms: rs.spec.watch.drift.aggregate_ms,
-        key_basis: Some(rs.spec.composition.basis.as_str().to_string()),
-    }
+        .collect();
+    Some(Projection {
+        points: pts,
+        slope_k_per_day: tr.slope_k_per_day,
+        end_of_run_ms: end,
+        end_of_run_range_ms: range,
+    })
 }
 
 /// Writes `<reactor>.svg` per reactor and `overview.svg` into `dir` for a replay's
