@@ -279,7 +279,7 @@ fn fill(text: &str, first: &str, rest: &str, width: usize) -> Vec<String> {
 
 /// What the console knows about one reactor.
 #[derive(Debug, Default)]
-struct UnitSeen {
+struct ReactorSeen {
     /// The result with the newest sample time, and its sample time.
     latest: Option<(i64, Value)>,
     results: u64,
@@ -295,7 +295,7 @@ struct UnitSeen {
     limit_k: Option<f64>,
 }
 
-impl UnitSeen {
+impl ReactorSeen {
     fn drift(&self) -> Option<&Value> {
         self.latest
             .as_ref()
@@ -306,7 +306,7 @@ impl UnitSeen {
 
 #[derive(Debug, Default)]
 struct Seen {
-    units: BTreeMap<String, UnitSeen>,
+    reactors: BTreeMap<String, ReactorSeen>,
     /// Alert and alarm events in arrival order.
     events: Vec<SeenEvent>,
     event_ids: HashSet<String>,
@@ -330,7 +330,7 @@ impl Seen {
         let Some(t) = v["sample_ts"].as_str().and_then(parse_rfc3339) else {
             return;
         };
-        let u = self.units.entry(id.to_string()).or_default();
+        let u = self.reactors.entry(id.to_string()).or_default();
         u.results += 1;
         let quality = v["quality"].as_str().unwrap_or("bad");
         u.points.insert(
@@ -372,7 +372,7 @@ impl Seen {
             return;
         };
         let at = v["at"].as_str().and_then(parse_rfc3339).unwrap_or(i64::MIN);
-        let u = self.units.entry(id.to_string()).or_default();
+        let u = self.reactors.entry(id.to_string()).or_default();
         if u.states.as_ref().is_none_or(|(t, _)| at >= *t) {
             u.states = Some((at, v.clone()));
         }
@@ -627,7 +627,7 @@ fn table(seen: &Seen, view: &View) -> String {
     s.push('\n');
     let indent = " ".repeat(FLAGS_COLUMN);
     for id in view.ids {
-        let Some(u) = seen.units.get(id) else {
+        let Some(u) = seen.reactors.get(id) else {
             s.push_str(&format!("{id:<5} {:>10}\n", "waiting"));
             continue;
         };
@@ -726,7 +726,7 @@ fn table(seen: &Seen, view: &View) -> String {
 /// drawn where it was fitted. If they do not add up to the published number of trend
 /// points (a result missed), the line is anchored on the last point instead. The band is
 /// the published ± half-width at the last trend point, drawn at that width throughout.
-fn projection(u: &UnitSeen, aggregate_ms: i64) -> Option<Projection> {
+fn projection(u: &ReactorSeen, aggregate_ms: i64) -> Option<Projection> {
     let d = u.drift()?;
     let slope = d["trend_k_per_day"].as_f64()?;
     let fitted = d["trend_fitted_k"].as_f64()?;
@@ -785,7 +785,7 @@ fn projection(u: &UnitSeen, aggregate_ms: i64) -> Option<Projection> {
 
 fn reactor_plot(seen: &Seen, settings: &Settings, r: usize, start_ms: i64) -> ReactorPlot {
     let rs = &settings.reactors[r];
-    let Some(u) = seen.units.get(&rs.spec.id) else {
+    let Some(u) = seen.reactors.get(&rs.spec.id) else {
         return ReactorPlot {
             reactor: rs.spec.id.clone(),
             title: format!("{} ({})", rs.spec.name, rs.spec.id),
@@ -1013,34 +1013,12 @@ async fn live(
         ));
     }
     let duration = crate::config::parse_duration(duration).map_err(input("--duration"))?;
-    let workdir = work.path();
-    let log_file = work.log_file();
-    let mut settings = crate::config::from_str(DEMO_CONFIG, workdir)
+    let mut settings = crate::config::from_str(DEMO_CONFIG, work.path())
         .map_err(|e| CliError::Internal(format!("demo configuration: {e}")))?;
     settings.http_listen = None;
     let compressed = compress_watch(&mut settings);
-
-    // The broker: embedded unless one is given.
-    #[cfg(feature = "demo-broker")]
-    let mut _embedded = None;
-    let upstream = match &broker {
-        Some(url) => broker_addr(url)?,
-        None => {
-            #[cfg(feature = "demo-broker")]
-            {
-                let b = super::broker::start_embedded_broker(super::broker::free_port())
-                    .map_err(internal("embedded broker"))?;
-                let a = b.addr();
-                _embedded = Some(b);
-                a
-            }
-            #[cfg(not(feature = "demo-broker"))]
-            {
-                return Err(CliError::Input("this build has no embedded broker (feature demo-broker); give --broker mqtt://host:port".into()));
-            }
-        }
-    };
-    let proxy = DropoutProxy::start(0, upstream)
+    let upstream = Upstream::start(broker.as_deref())?;
+    let proxy = DropoutProxy::start(0, upstream.addr)
         .await
         .map_err(internal("drop-out proxy"))?;
     settings.broker.host = "127.0.0.1".into();
@@ -1053,33 +1031,7 @@ async fn live(
         .iter()
         .map(|r| r.spec.id.clone())
         .collect();
-    println!("{}", super::sim::SCENARIO);
-    println!(
-        "broker {upstream} ({}), daemon through a drop-out proxy on 127.0.0.1:{}, speed x{speed}, {} s",
-        if broker.is_some() {
-            "given"
-        } else {
-            "embedded"
-        },
-        proxy.port(),
-        duration.as_secs(),
-    );
-    println!("{}", work.start_line());
-    println!(
-        "log: {} (the daemon's log goes there: the live table owns the terminal)",
-        log_file.display()
-    );
-    println!("{compressed}");
-    for l in fill(crate::daemon::ADVISORY, "", "  ", TABLE_WIDTH) {
-        println!("{l}");
-    }
-    let footer = fill(
-        &format!("log: {}", log_file.display()),
-        "",
-        "  ",
-        TABLE_WIDTH,
-    )
-    .join("\n");
+    print_banner(&upstream, proxy.port(), speed, duration, work, &compressed);
 
     // Compressed plant time drives the daemon's clock too, so ages and lags are in plant time.
     let start_wall = Instant::now();
@@ -1093,139 +1045,45 @@ async fn live(
         cancel.clone(),
         clock.clone(),
     ));
+    let sim_client = plant_client(upstream.addr);
+    let seen = console(upstream.addr, &prefix);
+    let interrupted = interrupt_token();
 
-    // The simulated plant publishes straight to the broker.
-    let mut o = MqttOptions::new(
-        format!("baw1-plant-sim-{}", std::process::id()),
-        upstream.ip().to_string(),
-        upstream.port(),
-    );
-    o.set_keep_alive(Duration::from_secs(10));
-    o.set_max_packet_size(1 << 20, 1 << 20);
-    let (sim_client, mut sim_ev) = AsyncClient::new(o, 1024);
-    tokio::spawn(async move {
-        loop {
-            if sim_ev.poll().await.is_err() {
-                tokio::time::sleep(Duration::from_millis(200)).await;
-            }
-        }
-    });
-    let mut o = MqttOptions::new(
-        format!("baw1-demo-console-{}", std::process::id()),
-        upstream.ip().to_string(),
-        upstream.port(),
-    );
-    o.set_keep_alive(Duration::from_secs(10));
-    o.set_max_packet_size(1 << 20, 1 << 20);
-    let seen: Shared = Arc::new(Mutex::new(Seen::default()));
-    listen(
-        AsyncClient::new(o, 64),
-        vec![
-            format!("{prefix}/+/result"),
-            format!("{prefix}/+/alarms"),
-            format!("{prefix}/+/alert"),
-            format!("{prefix}/+/alarm"),
-            format!("{prefix}/alert"),
-        ],
-        seen.clone(),
-    );
-
-    let mut plant = Plant::new(20_261_201, start_ms);
-    let tty = std::io::stdout().is_terminal();
-    // One broker drop-out of about 4 simulated minutes (between 1 and 8 s of wall time),
-    // early enough that several analyses follow it.
-    let dropout = (
-        duration.as_secs_f64() * 0.4,
-        (240.0 / speed).clamp(1.0, 8.0),
-    );
-    let mut link_up = true;
-    let mut last_sim = 0.0;
-    let mut last_draw = Instant::now() - Duration::from_secs(60);
-    let mut drawn_lines = 0usize;
-    let mut events_printed = 0usize;
+    let mut run = Run {
+        plant: Plant::new(20_261_201, start_ms),
+        sim_client,
+        proxy: &proxy,
+        speed,
+        // One broker drop-out of about 4 simulated minutes (between 1 and 8 s of wall
+        // time), early enough that several analyses follow it.
+        dropout: (
+            duration.as_secs_f64() * 0.4,
+            (240.0 / speed).clamp(1.0, 8.0),
+        ),
+        link_up: true,
+        last_sim_s: 0.0,
+    };
+    let mut screen = Screen::new(std::io::stdout().is_terminal());
+    let footer = fill(
+        &format!("log: {}", work.log_file().display()),
+        "",
+        "  ",
+        TABLE_WIDTH,
+    )
+    .join("\n");
     let mut tick = tokio::time::interval(Duration::from_millis(100));
-    // Ctrl-C ends the run early (summary, plots, clean-up as at the end); a second one
-    // leaves at once.
-    let interrupted = CancellationToken::new();
-    {
-        let i = interrupted.clone();
-        tokio::spawn(async move {
-            if tokio::signal::ctrl_c().await.is_ok() {
-                i.cancel();
-                if tokio::signal::ctrl_c().await.is_ok() {
-                    std::process::exit(130);
-                }
-            }
-        });
-    }
     while start_wall.elapsed() < duration && !interrupted.is_cancelled() {
         tick.tick().await;
-        let wall = start_wall.elapsed().as_secs_f64();
-        let sim_s = wall * speed;
-        for m in plant.step(sim_s) {
-            let _ = sim_client
-                .publish(m.topic, QoS::AtLeastOnce, m.retain, m.payload)
-                .await;
-        }
-        let mut notes = Vec::new();
-        for e in plant.events_between(last_sim, sim_s) {
-            notes.push(format!(
-                "  * +{:.0} min {}: {}",
-                e.at_s / 60.0,
-                e.reactor,
-                e.description
-            ));
-        }
-        last_sim = sim_s;
-        let want_up = !(wall >= dropout.0 && wall < dropout.0 + dropout.1);
-        if want_up != link_up {
-            proxy.set_up(want_up);
-            link_up = want_up;
-            notes.push(if want_up {
-                "  * broker link restored: the daemon reconnects and sends what it journaled meanwhile (marked late)".into()
-            } else {
-                format!("  * broker link cut for {:.0} s (simulated drop-out): results keep being computed and journaled", dropout.1)
-            });
-        }
-        let seen_now = lock(&seen);
-        // Not on a terminal, every new alert or alarm event becomes a line of its own.
-        if !tty {
-            for e in &seen_now.events[events_printed.min(seen_now.events.len())..] {
-                notes.extend(e.lines(start_ms, TABLE_WIDTH));
-            }
-            events_printed = seen_now.events.len();
-        }
-        let redraw = if tty {
-            last_draw.elapsed() >= Duration::from_millis(500)
-        } else {
-            last_draw.elapsed() >= Duration::from_secs(10)
+        let notes = run.step(start_wall.elapsed().as_secs_f64()).await;
+        let view = View {
+            ids: &ids,
+            start_ms,
+            now_ms: clock(),
+            link_up: run.link_up,
+            recent: if screen.tty { RECENT_EVENTS } else { 0 },
+            footer: screen.tty.then_some(footer.as_str()),
         };
-        if !notes.is_empty() || redraw {
-            let mut out = std::io::stdout().lock();
-            if tty && drawn_lines > 0 {
-                let _ = write!(out, "\x1b[{drawn_lines}A\x1b[J");
-            }
-            for n in &notes {
-                let _ = writeln!(out, "{n}");
-            }
-            if tty || redraw {
-                let view = View {
-                    ids: &ids,
-                    start_ms,
-                    now_ms: clock(),
-                    link_up,
-                    recent: if tty { RECENT_EVENTS } else { 0 },
-                    footer: tty.then_some(footer.as_str()),
-                };
-                let t = table(&seen_now, &view);
-                drawn_lines = t.lines().count();
-                let _ = write!(out, "{t}");
-                last_draw = Instant::now();
-            } else {
-                drawn_lines = 0;
-            }
-            let _ = out.flush();
-        }
+        screen.draw(notes, &lock(&seen), &view);
     }
     proxy.set_up(true);
     if interrupted.is_cancelled() {
@@ -1241,54 +1099,288 @@ async fn live(
     }
     tokio::time::sleep(Duration::from_millis(300)).await;
     let end_ms = clock();
-
-    let (summary_text, plots) = {
+    let plots = {
         let seen = lock(&seen);
+        print!("{}", screen.closing(&seen, &ids, start_ms, end_ms));
+        (0..settings.reactors.len())
+            .map(|r| reactor_plot(&seen, &settings, r, start_ms))
+            .collect()
+    };
+    write_demo_plots(work, plots).await?;
+    println!(
+        "retained results stay on {prefix}/<reactor>/result; status on {prefix}/status (offline now)."
+    );
+    println!("alert and alarm states stay on {prefix}/<reactor>/alarms (retained).");
+    Ok(())
+}
+
+/// The broker the demo talks to: the embedded one, or one given with `--broker`.
+struct Upstream {
+    addr: SocketAddr,
+    given: bool,
+    /// Kept alive for the run.
+    #[cfg(feature = "demo-broker")]
+    _embedded: Option<super::broker::EmbeddedBroker>,
+}
+
+impl Upstream {
+    fn start(url: Option<&str>) -> Result<Self, CliError> {
+        if let Some(url) = url {
+            return Ok(Self {
+                addr: broker_addr(url)?,
+                given: true,
+                #[cfg(feature = "demo-broker")]
+                _embedded: None,
+            });
+        }
+        #[cfg(feature = "demo-broker")]
+        {
+            let b = super::broker::start_embedded_broker(super::broker::free_port())
+                .map_err(internal("embedded broker"))?;
+            Ok(Self {
+                addr: b.addr(),
+                given: false,
+                _embedded: Some(b),
+            })
+        }
+        #[cfg(not(feature = "demo-broker"))]
+        {
+            Err(CliError::Input("this build has no embedded broker (feature demo-broker); give --broker mqtt://host:port".into()))
+        }
+    }
+}
+
+/// What the demo is, where it works and logs, and the advisory notice.
+fn print_banner(
+    upstream: &Upstream,
+    proxy_port: u16,
+    speed: f64,
+    duration: Duration,
+    work: &Workdir,
+    compressed: &str,
+) {
+    println!("{}", super::sim::SCENARIO);
+    println!(
+        "broker {} ({}), daemon through a drop-out proxy on 127.0.0.1:{proxy_port}, speed x{speed}, {} s",
+        upstream.addr,
+        if upstream.given { "given" } else { "embedded" },
+        duration.as_secs(),
+    );
+    println!("{}", work.start_line());
+    println!(
+        "log: {} (the daemon's log goes there: the live table owns the terminal)",
+        work.log_file().display()
+    );
+    println!("{compressed}");
+    for l in fill(crate::daemon::ADVISORY, "", "  ", TABLE_WIDTH) {
+        println!("{l}");
+    }
+}
+
+fn client_options(name: &str, upstream: SocketAddr) -> MqttOptions {
+    let mut o = MqttOptions::new(
+        format!("{name}-{}", std::process::id()),
+        upstream.ip().to_string(),
+        upstream.port(),
+    );
+    o.set_keep_alive(Duration::from_secs(10));
+    o.set_max_packet_size(1 << 20, 1 << 20);
+    o
+}
+
+/// The simulated plant's client: it publishes straight to the broker.
+fn plant_client(upstream: SocketAddr) -> AsyncClient {
+    let (client, mut ev) = AsyncClient::new(client_options("baw1-plant-sim", upstream), 1024);
+    tokio::spawn(async move {
+        loop {
+            if ev.poll().await.is_err() {
+                tokio::time::sleep(Duration::from_millis(200)).await;
+            }
+        }
+    });
+    client
+}
+
+/// The console's client: what the table shows comes from these subscriptions only.
+fn console(upstream: SocketAddr, prefix: &str) -> Shared {
+    let seen: Shared = Arc::new(Mutex::new(Seen::default()));
+    listen(
+        AsyncClient::new(client_options("baw1-demo-console", upstream), 64),
+        vec![
+            format!("{prefix}/+/result"),
+            format!("{prefix}/+/alarms"),
+            format!("{prefix}/+/alert"),
+            format!("{prefix}/+/alarm"),
+            format!("{prefix}/alert"),
+        ],
+        seen.clone(),
+    );
+    seen
+}
+
+/// Ctrl-C ends the run early (summary, plots, clean-up as at the end); a second one
+/// leaves at once.
+fn interrupt_token() -> CancellationToken {
+    let interrupted = CancellationToken::new();
+    let i = interrupted.clone();
+    tokio::spawn(async move {
+        if tokio::signal::ctrl_c().await.is_ok() {
+            i.cancel();
+            if tokio::signal::ctrl_c().await.is_ok() {
+                std::process::exit(130);
+            }
+        }
+    });
+    interrupted
+}
+
+/// The simulated plant and the drop-out, stepped with wall time.
+struct Run<'a> {
+    plant: Plant,
+    sim_client: AsyncClient,
+    proxy: &'a DropoutProxy,
+    speed: f64,
+    /// Start and length of the drop-out, wall seconds.
+    dropout: (f64, f64),
+    link_up: bool,
+    last_sim_s: f64,
+}
+
+impl Run<'_> {
+    /// Publishes what the instruments report up to now, cuts or restores the link;
+    /// returns the lines to print (plant events, link changes).
+    async fn step(&mut self, wall_s: f64) -> Vec<String> {
+        let sim_s = wall_s * self.speed;
+        for m in self.plant.step(sim_s) {
+            let _ = self
+                .sim_client
+                .publish(m.topic, QoS::AtLeastOnce, m.retain, m.payload)
+                .await;
+        }
+        let mut notes: Vec<String> = self
+            .plant
+            .events_between(self.last_sim_s, sim_s)
+            .into_iter()
+            .map(|e| {
+                format!(
+                    "  * +{:.0} min {}: {}",
+                    e.at_s / 60.0,
+                    e.reactor,
+                    e.description
+                )
+            })
+            .collect();
+        self.last_sim_s = sim_s;
+        let (from, length) = self.dropout;
+        let want_up = !(wall_s >= from && wall_s < from + length);
+        if want_up != self.link_up {
+            self.proxy.set_up(want_up);
+            self.link_up = want_up;
+            notes.push(if want_up {
+                "  * broker link restored: the daemon reconnects and sends what it journaled meanwhile (marked late)".into()
+            } else {
+                format!("  * broker link cut for {length:.0} s (simulated drop-out): results keep being computed and journaled")
+            });
+        }
+        notes
+    }
+}
+
+/// The terminal (a table redrawn in place) or a log of lines (not a terminal).
+struct Screen {
+    tty: bool,
+    drawn_lines: usize,
+    events_printed: usize,
+    last_draw: Instant,
+}
+
+impl Screen {
+    fn new(tty: bool) -> Self {
+        Self {
+            tty,
+            drawn_lines: 0,
+            events_printed: 0,
+            last_draw: Instant::now() - Duration::from_secs(60),
+        }
+    }
+
+    /// Prints the notes, then redraws the table (twice a second on a terminal, every
+    /// 10 s otherwise, where every new alert or alarm event is also a line of its own).
+    fn draw(&mut self, mut notes: Vec<String>, seen: &Seen, view: &View<'_>) {
+        if !self.tty {
+            for e in &seen.events[self.events_printed.min(seen.events.len())..] {
+                notes.extend(e.lines(view.start_ms, TABLE_WIDTH));
+            }
+            self.events_printed = seen.events.len();
+        }
+        let redraw = if self.tty {
+            self.last_draw.elapsed() >= Duration::from_millis(500)
+        } else {
+            self.last_draw.elapsed() >= Duration::from_secs(10)
+        };
+        if notes.is_empty() && !redraw {
+            return;
+        }
+        let mut out = std::io::stdout().lock();
+        if self.tty && self.drawn_lines > 0 {
+            let _ = write!(out, "\x1b[{}A\x1b[J", self.drawn_lines);
+        }
+        for n in &notes {
+            let _ = writeln!(out, "{n}");
+        }
+        if self.tty || redraw {
+            let t = table(seen, view);
+            self.drawn_lines = t.lines().count();
+            let _ = write!(out, "{t}");
+            self.last_draw = Instant::now();
+        } else {
+            self.drawn_lines = 0;
+        }
+        let _ = out.flush();
+    }
+
+    /// The events not printed yet (not a terminal), then the end-of-run summary.
+    fn closing(&self, seen: &Seen, ids: &[String], start_ms: i64, end_ms: i64) -> String {
         let mut text = String::new();
-        if !tty {
-            for e in &seen.events[events_printed.min(seen.events.len())..] {
+        if !self.tty {
+            for e in &seen.events[self.events_printed.min(seen.events.len())..] {
                 for l in e.lines(start_ms, TABLE_WIDTH) {
                     text.push_str(&l);
                     text.push('\n');
                 }
             }
         }
-        text.push_str(&summary(&seen, &ids, start_ms, end_ms));
-        let plots: Vec<ReactorPlot> = (0..settings.reactors.len())
-            .map(|r| reactor_plot(&seen, &settings, r, start_ms))
-            .collect();
-        (text, plots)
-    };
-    print!("{summary_text}");
-
-    // Plots only into a folder that stays (they would vanish with a temporary one).
-    if work.kept() {
-        // Rendering and writing files is blocking work: off the async thread.
-        let plot_dir: PathBuf = workdir.join("plots");
-        let dir = plot_dir.clone();
-        let written = tokio::task::spawn_blocking(move || {
-            crate::replay::write_svgs(
-                &dir,
-                &plots,
-                "Brackwater Ammonia Works, train 1 (simulated): demo run in compressed time",
-                crate::plot::TimeZone::UTC,
-            )
-        })
-        .await
-        .map_err(internal("plot task"))?
-        .map_err(|e| CliError::Internal(format!("plots in {}: {e}", plot_dir.display())))?;
-        let names: Vec<String> = written
-            .iter()
-            .filter_map(|p| p.file_name())
-            .map(|n| n.to_string_lossy().into_owned())
-            .collect();
-        println!("plots: {}/ ({})", plot_dir.display(), names.join(" "));
-        println!("log: {}", log_file.display());
+        text.push_str(&summary(seen, ids, start_ms, end_ms));
+        text
     }
-    println!(
-        "retained results stay on {prefix}/<unit>/result; status on {prefix}/status (offline now)."
-    );
-    println!("alert and alarm states stay on {prefix}/<unit>/alarms (retained).");
+}
+
+/// Plots only into a folder that stays (they would vanish with a temporary one);
+/// rendering and writing files is blocking work, off the async thread.
+async fn write_demo_plots(work: &Workdir, plots: Vec<ReactorPlot>) -> Result<(), CliError> {
+    if !work.kept() {
+        return Ok(());
+    }
+    let plot_dir: PathBuf = work.path().join("plots");
+    let dir = plot_dir.clone();
+    let written = tokio::task::spawn_blocking(move || {
+        crate::replay::write_svgs(
+            &dir,
+            &plots,
+            "Brackwater Ammonia Works, train 1 (simulated): demo run in compressed time",
+            crate::plot::TimeZone::UTC,
+        )
+    })
+    .await
+    .map_err(internal("plot task"))?
+    .map_err(|e| CliError::Internal(format!("plots in {}: {e}", plot_dir.display())))?;
+    let names: Vec<String> = written
+        .iter()
+        .filter_map(|p| p.file_name())
+        .map(|n| n.to_string_lossy().into_owned())
+        .collect();
+    println!("plots: {}/ ({})", plot_dir.display(), names.join(" "));
+    println!("log: {}", work.log_file().display());
     Ok(())
 }
 
@@ -1304,7 +1396,7 @@ fn summary(seen: &Seen, ids: &[String], start_ms: i64, end_ms: i64) -> String {
     );
     for id in ids {
         match seen
-            .units
+            .reactors
             .get(id)
             .and_then(|u| u.latest.as_ref().map(|l| (u, &l.1)))
         {
@@ -1600,7 +1692,7 @@ mod tests {
     fn trend_line_is_drawn_where_it_was_fitted() {
         // Analyses every 5 min from t = 0 (as src/demo/sim.rs), all included: buckets 0..=7
         // are closed (8 trend points), bucket 8 is open.
-        let mut u = UnitSeen::default();
+        let mut u = ReactorSeen::default();
         for i in 0..=8 {
             let t = i * 5 * MINUTE_MS;
             u.included.insert(t);
