@@ -157,109 +157,21 @@ impl Replay {
             let mut to_workers = Vec::with_capacity(workers);
             let mut from_workers = Vec::with_capacity(workers);
             let mut handles = Vec::with_capacity(workers);
-            for mut mine in owned {
+            for mine in owned {
                 let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<(i64, RowItems)>>(4);
                 let (rtx, rrx) = std::sync::mpsc::sync_channel::<BatchOut>(4);
                 to_workers.push(tx);
                 from_workers.push(rrx);
-                handles.push(scope.spawn(move || {
-                    let index: Vec<usize> = mine.iter().map(|u| u.reactor()).collect();
-                    let find = |r: usize| index.iter().position(|&x| x == r);
-                    let mut sink = crate::pipeline::Sink::default();
-                    for batch in rx {
-                        let mut outs = BatchOut {
-                            bytes: Vec::with_capacity(1 << 20),
-                            rows: Vec::with_capacity(batch.len()),
-                        };
-                        for (t, items) in batch {
-                            let mut row: RowOut = Vec::new();
-                            for (order, r, input) in items {
-                                let Some(k) = find(r) else { continue };
-                                mine[k].accept(input, t, t, &mut sink);
-                                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
-                                    row.push((order, p));
-                                }
-                            }
-                            for u in mine.iter_mut() {
-                                u.tick(t, &mut sink);
-                                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
-                                    row.push((TICK_ORDER + u.reactor() as u32, p));
-                                }
-                            }
-                            outs.rows.push(row);
-                        }
-                        if rtx.send(outs).is_err() {
-                            break;
-                        }
-                    }
-                    mine
-                }));
+                handles.push(scope.spawn(move || work(mine, &rx, &rtx)));
             }
             let mut pending: std::collections::VecDeque<Vec<i64>> = Default::default();
-            let mut records: Vec<Append> = Vec::new();
-            let mut merge = |times: Vec<i64>,
-                             plant: &mut crate::pipeline::Plant,
-                             out: &mut dyn Write,
-                             sum: &mut Summary|
-             -> Result<(), ReplayError> {
-                let mut got: Vec<BatchOut> = Vec::with_capacity(workers);
-                for rx in &from_workers {
-                    got.push(
-                        rx.recv()
-                            .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?,
-                    );
-                }
-                let bytes: Vec<Vec<u8>> = got
-                    .iter_mut()
-                    .map(|b| std::mem::take(&mut b.bytes))
-                    .collect();
-                let mut per: Vec<std::vec::IntoIter<RowOut>> =
-                    got.into_iter().map(|b| b.rows.into_iter()).collect();
-                let mut row: Vec<(u32, usize, Piece)> = Vec::new();
-                for t in times {
-                    row.clear();
-                    for (w, it) in per.iter_mut().enumerate() {
-                        row.extend(
-                            it.next()
-                                .unwrap_or_default()
-                                .into_iter()
-                                .map(|(o, p)| (o, w, p)),
-                        );
-                    }
-                    row.sort_by_key(|(order, _, _)| *order);
-                    for (_, w, p) in row.drain(..) {
-                        match p {
-                            Piece::Encoded(a, b, n) => {
-                                out.write_all(&bytes[w][a..b])?;
-                                sum.records += n;
-                            }
-                            Piece::Events(mut sink) => plant.drain(&mut sink, &mut records),
-                        }
-                        sum.records += records.len();
-                        for rec in records.drain(..) {
-                            write_record(out, &rec)?;
-                        }
-                    }
-                    plant.tick(t, &mut records);
-                    sum.records += records.len();
-                    for rec in records.drain(..) {
-                        write_record(out, &rec)?;
-                    }
-                }
-                Ok(())
+            let mut merger = Merger {
+                from_workers,
+                records: Vec::new(),
             };
             let mut sum = Summary::default();
             let mut batch = |batch: Vec<(i64, Vec<RowItems>)>, sum: &mut Summary| {
-                let times: Vec<i64> = batch.iter().map(|(t, _)| *t).collect();
-                // Split each row's items by worker.
-                let mut split: Vec<Vec<(i64, RowItems)>> = (0..workers)
-                    .map(|_| Vec::with_capacity(batch.len()))
-                    .collect();
-                for (t, per_worker) in batch {
-                    for (w, items) in per_worker.into_iter().enumerate() {
-                        split[w].push((t, items));
-                    }
-                }
+                let (times, split) = split_by_worker(batch, workers);
                 for (w, b) in split.into_iter().enumerate() {
                     to_workers[w]
                         .send(b)
@@ -268,7 +180,7 @@ impl Replay {
                 pending.push_back(times);
                 if pending.len() > 2 {
                     if let Some(times) = pending.pop_front() {
-                        merge(times, &mut plant, out, sum)?;
+                        merger.merge(times, &mut plant, out, sum)?;
                     }
                 }
                 Ok(())
@@ -288,7 +200,7 @@ impl Replay {
             let mut result = read;
             while let Some(times) = pending.pop_front() {
                 if result.is_ok() {
-                    result = merge(times, &mut plant, out, &mut sum);
+                    result = merger.merge(times, &mut plant, out, &mut sum);
                 }
             }
             drop(to_workers);
@@ -314,6 +226,129 @@ impl Replay {
                 .collect(),
         );
         Ok(sum)
+    }
+}
+
+/// One worker thread: its lanes take each row's inputs in order, then tick to the
+/// row's time; what they make is encoded into the batch's bytes where it holds no
+/// events, or kept for the plant-wide flood count. Returns its lanes at the end.
+fn work(
+    mut mine: Vec<crate::pipeline::Lane>,
+    rx: &std::sync::mpsc::Receiver<Vec<(i64, RowItems)>>,
+    tx: &std::sync::mpsc::SyncSender<BatchOut>,
+) -> Vec<crate::pipeline::Lane> {
+    let index: Vec<usize> = mine.iter().map(|lane| lane.reactor()).collect();
+    let find = |r: usize| index.iter().position(|&x| x == r);
+    let mut sink = crate::pipeline::Sink::default();
+    for batch in rx {
+        let mut outs = BatchOut {
+            bytes: Vec::with_capacity(1 << 20),
+            rows: Vec::with_capacity(batch.len()),
+        };
+        for (t, items) in batch {
+            let mut row: RowOut = Vec::new();
+            for (order, r, input) in items {
+                let Some(k) = find(r) else { continue };
+                mine[k].accept(input, t, t, &mut sink);
+                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
+                    row.push((order, p));
+                }
+            }
+            for lane in mine.iter_mut() {
+                lane.tick(t, &mut sink);
+                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
+                    row.push((TICK_ORDER + lane.reactor() as u32, p));
+                }
+            }
+            outs.rows.push(row);
+        }
+        if tx.send(outs).is_err() {
+            break;
+        }
+    }
+    mine
+}
+
+/// Each row's time, and its items split by worker.
+#[allow(clippy::type_complexity)]
+fn split_by_worker(
+    batch: Vec<(i64, Vec<RowItems>)>,
+    workers: usize,
+) -> (Vec<i64>, Vec<Vec<(i64, RowItems)>>) {
+    let times: Vec<i64> = batch.iter().map(|(t, _)| *t).collect();
+    let mut split: Vec<Vec<(i64, RowItems)>> = (0..workers)
+        .map(|_| Vec::with_capacity(batch.len()))
+        .collect();
+    for (t, per_worker) in batch {
+        for (w, items) in per_worker.into_iter().enumerate() {
+            split[w].push((t, items));
+        }
+    }
+    (times, split)
+}
+
+/// Puts the workers' output back in the daemon's order, row by row: the pieces of a
+/// row by input order, the plant-wide flood count over events as they come, then the
+/// plant's tick at the row's time.
+struct Merger {
+    from_workers: Vec<std::sync::mpsc::Receiver<BatchOut>>,
+    records: Vec<Append>,
+}
+
+impl Merger {
+    fn merge(
+        &mut self,
+        times: Vec<i64>,
+        plant: &mut crate::pipeline::Plant,
+        out: &mut dyn Write,
+        sum: &mut Summary,
+    ) -> Result<(), ReplayError> {
+        let mut got: Vec<BatchOut> = Vec::with_capacity(self.from_workers.len());
+        for rx in &self.from_workers {
+            got.push(
+                rx.recv()
+                    .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?,
+            );
+        }
+        let bytes: Vec<Vec<u8>> = got
+            .iter_mut()
+            .map(|b| std::mem::take(&mut b.bytes))
+            .collect();
+        let mut per: Vec<std::vec::IntoIter<RowOut>> =
+            got.into_iter().map(|b| b.rows.into_iter()).collect();
+        let mut row: Vec<(u32, usize, Piece)> = Vec::new();
+        let records = &mut self.records;
+        for t in times {
+            row.clear();
+            for (w, it) in per.iter_mut().enumerate() {
+                row.extend(
+                    it.next()
+                        .unwrap_or_default()
+                        .into_iter()
+                        .map(|(o, p)| (o, w, p)),
+                );
+            }
+            row.sort_by_key(|(order, _, _)| *order);
+            for (_, w, p) in row.drain(..) {
+                match p {
+                    Piece::Encoded(a, b, n) => {
+                        out.write_all(&bytes[w][a..b])?;
+                        sum.records += n;
+                    }
+                    Piece::Events(mut sink) => plant.drain(&mut sink, records),
+                }
+                sum.records += records.len();
+                for rec in records.drain(..) {
+                    write_record(out, &rec)?;
+                }
+            }
+            plant.tick(t, records);
+            sum.records += records.len();
+            for rec in records.drain(..) {
+                write_record(out, &rec)?;
+            }
+        }
+        Ok(())
     }
 }
 
