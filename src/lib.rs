@@ -1,17 +1,18 @@
 //! eqwatch: how far a catalytic reactor's outlet is from chemical equilibrium.
 //!
-//! Crate map (the numeric core builds with `--no-default-features`, without tokio):
-//! - [`units`]: plant units to K, bar absolute and mole fraction.
-//! - [`thermo`]: species data (NASA 7/9 polynomials), reactions, K(T) sources, Peng–Robinson.
-//! - [`composition`]: analyser compositions, wet/dry basis, sum checks.
-//! - [`approach`]: Q, Q/K, direction, affinity, equilibrium temperature, approach ± uncertainty.
-//! - [`equilibrium`]: equilibrium composition with element constraints (several reactions).
-//! - [`monitor`]: per-reactor alignment of inputs, quality checks and evaluation (time passed in).
-//! - [`solve`]: bracketed scalar solvers.
-//! - [`timefmt`]: RFC 3339 and epoch-millisecond timestamps.
-//! - [`plot`]: SVG charts (approach, trend, key component; overview) rendered as strings.
+//! The numeric core is its own crate (`eqwatch-core`, re-exported here: [`units`],
+//! [`thermo`], [`composition`], [`approach`], [`equilibrium`], [`monitor`], ...). This
+//! crate puts it to work; the data walk one way:
 //! - [`config`]: the plant configuration file, validated into settings with key paths.
+//! - `wire` (crate-private, feature `cli`): every JSON shape in and out.
+//! - `pipeline` (crate-private, feature `cli`): route, decode, monitor, watch, commands.
+//! - `replay` (feature `cli`): CSV history through the pipeline; results and plots.
+//! - [`plot`]: SVG charts rendered as strings.
+//! - `daemon` (feature `daemon`): MQTT, journal, HTTP, signals; the only tokio.
 //! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
+//! - [`demo`]: the invented plant ([`demo::sim`]) and the one-command demo (feature `daemon`).
+//!
+//! Each folder's own docs say what it may not import; `tests/architecture.rs` checks it.
 //!
 //! Advisory only: eqwatch is not a safety function; see the README.
 

@@ -1,7 +1,11 @@
 //! Replay of plant history: a CSV of timestamped readings run through the daemon's own
-//! processing path ([`crate::pipeline::Engine`]: alignment, quality, evaluation,
+//! processing path (`pipeline::Engine`: alignment, quality, evaluation,
 //! drift, alerts, alarms), deterministically, writing the records the daemon would
 //! publish and the traces for plots.
+//!
+//! Rules of this folder (checked by `tests/architecture.rs`): the core, the
+//! configuration, the pipeline, the wire formats and the charts; never the daemon
+//! (replay builds without tokio) or the demo. Files and threads are std only.
 //!
 //! # The CSV format
 //! - UTF-8, comma-separated, no quoting; lines starting with `#` are comments; blank
