@@ -39,9 +39,15 @@ if cargo tree -p eqwatch-core -e normal --prefix none | grep -qE '^(tokio|rumqtt
   exit 1
 fi
 
-step "feature sets build: the calculator and check without the daemon; the daemon without the demo broker"
+step "feature sets build: calculator, check and replay without the daemon; the daemon without the demo broker"
 cargo build --lib --no-default-features
 cargo build --no-default-features --features cli --bin eqwatch
+if cargo tree -p eqwatch --no-default-features --features cli -e normal --prefix none | grep -qE '^(tokio|rumqttc|rumqttd) '; then
+  echo "the cli feature set (calc, check, replay) pulls in tokio or an MQTT crate; it must not" >&2
+  exit 1
+fi
+"$target/debug/eqwatch" replay --help >/dev/null
+"$target/debug/eqwatch" check --config config/demo-plant.toml >/dev/null
 cargo build --no-default-features --features daemon --bin eqwatch
 
 step "cargo test --workspace"
