@@ -2349,6 +2349,7 @@ fn reactor(
             watch,
             reaction_labels,
             bed_rise,
+            clock: crate::monitor::spec::ClockWindow::default(),
         },
         wiring: Wiring {
             composition: composition_source,

@@ -114,6 +114,12 @@ impl Lane {
         let rs = &settings.reactors[self.r];
         let metrics = Arc::clone(&self.metrics);
         let rm = &metrics.reactors[self.r];
+        // A reading from a misset clock touches nothing: not the on/off-line state, not
+        // the monitor's ordering (the monitor checks again, for callers without a lane).
+        if let Some(ahead_ms) = rs.spec.clock.outside(input.ts_ms(), arrival_ms) {
+            self.off_clock(ahead_ms);
+            return;
+        }
         if let Input::Pressure(p) = &input {
             let ev = self.watch.pressure(&rs.spec.watch, p.value, now_ms);
             if let Some(t) = self.trace.as_mut() {
@@ -149,8 +155,22 @@ impl Lane {
             Outcome::TooOld => {
                 rm.too_old.fetch_add(1, Relaxed);
             }
+            Outcome::OffClock { ahead_ms } => self.off_clock(ahead_ms),
             Outcome::Evaluated(e) => self.evaluated(&e, arrival_ms, now_ms, sink),
         }
+    }
+
+    /// Counts and logs a reading refused for its timestamp.
+    fn off_clock(&self, ahead_ms: i64) {
+        self.metrics.reactors[self.r]
+            .off_clock
+            .fetch_add(1, Relaxed);
+        let (way, by) = if ahead_ms >= 0 {
+            ("ahead of", ahead_ms)
+        } else {
+            ("behind", ahead_ms.saturating_neg())
+        };
+        warn!(reactor = %self.id(), by_s = by / 1000, "reading refused: stamped {way} the daemon's clock by more than the configured window (check the instrument's or gateway's clock)");
     }
 
     /// One evaluation: counted and logged, watched (drift, alerts, alarms), traced for

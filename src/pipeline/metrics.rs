@@ -18,6 +18,8 @@ pub struct ReactorMetrics {
     pub duplicates: AtomicU64,
     pub out_of_order: AtomicU64,
     pub too_old: AtomicU64,
+    /// Readings stamped outside the clock window.
+    pub off_clock: AtomicU64,
     /// Evaluations left out of the drift statistics (bad, transient, off line).
     pub drift_excluded: AtomicU64,
     /// Trend of the approach, K/day, f64 bits (NaN when none).
@@ -175,6 +177,7 @@ impl Metrics {
                 ("duplicate", &r.duplicates),
                 ("out_of_order", &r.out_of_order),
                 ("too_old", &r.too_old),
+                ("off_clock", &r.off_clock),
             ] {
                 let _ = writeln!(
                     s,

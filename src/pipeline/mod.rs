@@ -196,4 +196,57 @@ mod tests {
         );
         assert_eq!(outcome_of(&refused)["request_id"], "r7");
     }
+
+    #[test]
+    fn readings_stamped_in_the_year_9999_are_refused_and_counted() {
+        // Issue 10 §1, reproduced: before the clock window a 9999 analysis was evaluated
+        // and every later one refused as out of order.
+        let (mut e, m) = engine();
+        let t = T0_MS;
+        let future = "9999-12-31T23:59:59Z";
+        for (topic, payload) in [
+            (
+                "baw1/hts1/TI-205",
+                format!(r#"{{"ts":"{future}","value":1e6,"unit":"degC"}}"#),
+            ),
+            (
+                "baw1/hts1/PI-202",
+                format!(r#"{{"ts":"{future}","value":-1,"unit":"barg"}}"#),
+            ),
+            (
+                "baw1/hts1/AI-201",
+                format!(
+                    r#"{{"ts":"{future}","values":{{"H2":56.0,"N2":20.0,"CO":3.5,"CO2":16.0,"CH4":0.3,"Ar":0.2}},"unit":"mol%"}}"#
+                ),
+            ),
+        ] {
+            assert!(send(&mut e, topic, &payload, t).is_empty(), "{topic}");
+        }
+        let hts = m.reactors.iter().find(|r| r.id == "hts1").expect("hts1");
+        assert_eq!(hts.off_clock.load(Relaxed), 3);
+        // The unit did not go off line on the refused pressure, and the next set of
+        // readings gives a result as usual.
+        for (topic, payload) in [
+            (
+                "baw1/hts1/TI-205",
+                format!(r#"{{"ts":{t},"value":430,"unit":"degC"}}"#),
+            ),
+            (
+                "baw1/hts1/PI-202",
+                format!(r#"{{"ts":{t},"value":30,"unit":"barg"}}"#),
+            ),
+        ] {
+            assert!(send(&mut e, topic, &payload, t).is_empty(), "{topic}");
+        }
+        let analysis = format!(
+            r#"{{"ts":{t},"values":{{"H2":56.0,"N2":20.0,"CO":3.5,"CO2":16.0,"CH4":0.3,"Ar":0.2}},"unit":"mol%"}}"#
+        );
+        let out = send(&mut e, "baw1/hts1/AI-201", &analysis, t + 60_000);
+        assert_eq!(
+            out.iter().filter(|a| a.topic.ends_with("/result")).count(),
+            1,
+            "{out:?}"
+        );
+        assert!(out.iter().all(|a| !a.payload.contains("9999")), "{out:?}");
+    }
 }

@@ -367,3 +367,143 @@ fn methanator_bed_rise_against_its_inlet() {
     assert!((expected - 16.1).abs() < 0.6, "expected rise {expected} K");
     assert!(br.excess_k().unwrap() > 23.0);
 }
+
+// Issue 10 §1: one reading stamped far from the clock must never take a reactor out of
+// service. 9999-12-31T23:59:59Z = 253,402,300,799,000 ms (RFC 3339; epoch arithmetic).
+const YEAR_9999_MS: i64 = 253_402_300_799_000;
+
+#[test]
+fn a_far_future_analysis_is_refused_and_later_analyses_still_evaluate() {
+    let s = settings();
+    let r = reactor(&s, "lts1");
+    let mut m = ReactorMonitor::new(r);
+    let lag = ms(r.composition.lag);
+    let sample = T0 + 10 * MIN;
+    feed_lts(&mut m, &s, sample, 493.15);
+    let refused = m.accept(
+        r,
+        &s.species,
+        Input::Analysis(lts_analysis(YEAR_9999_MS)),
+        sample + lag,
+    );
+    assert!(matches!(refused, Outcome::OffClock { .. }), "{refused:?}");
+    let e = evaluated(m.accept(
+        r,
+        &s.species,
+        Input::Analysis(lts_analysis(sample + lag)),
+        sample + lag,
+    ));
+    assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
+}
+
+#[test]
+fn far_future_scalars_do_not_poison_the_buffers() {
+    let s = settings();
+    let r = reactor(&s, "lts1");
+    let mut m = ReactorMonitor::new(r);
+    let lag = ms(r.composition.lag);
+    let sample = T0 + 10 * MIN;
+    // 256 thermocouple readings, a pressure and a steam ratio from the year 9999.
+    for k in 0..256 {
+        let o = m.accept(
+            r,
+            &s.species,
+            Input::Temperature(0, scalar(YEAR_9999_MS + k, 1e6)),
+            sample,
+        );
+        assert!(matches!(o, Outcome::OffClock { .. }), "{o:?}");
+    }
+    m.accept(
+        r,
+        &s.species,
+        Input::Pressure(scalar(YEAR_9999_MS, 1e6)),
+        sample,
+    );
+    m.accept(
+        r,
+        &s.species,
+        Input::SteamRatio(scalar(YEAR_9999_MS, 50.0)),
+        sample,
+    );
+    feed_lts(&mut m, &s, sample, 493.15);
+    let e = evaluated(m.accept(
+        r,
+        &s.species,
+        Input::Analysis(lts_analysis(sample + lag)),
+        sample + lag,
+    ));
+    assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
+    // docs/domain.md §8 [derived]: 12.00 K at 220 °C with Moe's K.
+    assert!((e.reactions[0].approach_k.unwrap() - 12.00).abs() < 0.01);
+}
+
+#[test]
+fn far_future_components_do_not_stop_a_per_component_analyser() {
+    let s = settings();
+    let r = reactor(&s, "mth1");
+    let mut m = ReactorMonitor::new(r);
+    let at = T0 + 10 * MIN;
+    for i in 0..r.temperatures.len() {
+        m.accept(r, &s.species, Input::Temperature(i, scalar(at, 600.0)), at);
+    }
+    m.accept(r, &s.species, Input::Pressure(scalar(at, 28.0)), at);
+    let lag = ms(r.composition.lag);
+    // Eight partial analyses stamped 9999 (one component each).
+    for k in 0..8 {
+        let o = m.accept(
+            r,
+            &s.species,
+            Input::Component(0, scalar(YEAR_9999_MS + k, 0.7)),
+            at + lag,
+        );
+        assert!(matches!(o, Outcome::OffClock { .. }), "{o:?}");
+    }
+    // Invented methanator outlet, as in per_component_analysis_assembles_by_timestamp.
+    let values = [0.744, 0.245, 0.0075, 0.0035, 2e-6, 1e-6];
+    let names = ["H2", "N2", "CH4", "Ar", "CO", "CO2"];
+    let mut last = Outcome::Stored;
+    for (i, n) in r.composition.components.iter().enumerate() {
+        let v = names
+            .iter()
+            .position(|x| x == n)
+            .map(|k| values[k])
+            .expect("component");
+        last = m.accept(
+            r,
+            &s.species,
+            Input::Component(i, scalar(at + lag, v)),
+            at + lag,
+        );
+    }
+    let e = evaluated(last);
+    assert!(!e.reactions.is_empty(), "{:?}", e.reasons);
+}
+
+#[test]
+fn the_clock_window_is_taken_from_the_spec_both_ways() {
+    let s = settings();
+    let r = reactor(&s, "lts1");
+    let mut m = ReactorMonitor::new(r);
+    let now = T0;
+    let ahead = ms(r.clock.max_ahead);
+    let behind = ms(r.clock.max_behind);
+    let t = |ts| Input::Temperature(0, scalar(ts, 500.0));
+    assert_eq!(
+        m.accept(r, &s.species, t(now + ahead), now),
+        Outcome::Stored
+    );
+    let o = m.accept(r, &s.species, t(now + ahead + 1), now);
+    assert_eq!(
+        o,
+        Outcome::OffClock {
+            ahead_ms: ahead + 1
+        }
+    );
+    let o = m.accept(r, &s.species, t(now - behind - 1), now);
+    assert_eq!(
+        o,
+        Outcome::OffClock {
+            ahead_ms: -behind - 1
+        }
+    );
+}

@@ -96,6 +96,19 @@ pub enum Input {
     Component(usize, ScalarReading),
 }
 
+impl Input {
+    /// The reading's own timestamp (for an analysis: its report time).
+    pub fn ts_ms(&self) -> i64 {
+        match self {
+            Input::Temperature(_, r)
+            | Input::Pressure(r)
+            | Input::SteamRatio(r)
+            | Input::Component(_, r) => r.ts_ms,
+            Input::Analysis(a) => a.ts_ms,
+        }
+    }
+}
+
 /// An input as used in an evaluation.
 #[derive(Debug, Clone, PartialEq)]
 pub struct InputUse {
@@ -153,6 +166,9 @@ pub enum Outcome {
     OutOfOrder { last_ts_ms: i64 },
     /// A scalar too old to be used.
     TooOld,
+    /// A reading stamped outside the clock window ([`spec::ClockWindow`]): refused
+    /// before it can touch any ordering state. `ahead_ms` is negative when behind.
+    OffClock { ahead_ms: i64 },
 }
 
 /// Repeats of an identical analysis that mark the analyser as stuck (3 identical
@@ -195,7 +211,8 @@ impl ReactorMonitor {
         }
     }
 
-    /// Takes one input. Analyses (whole, or completed from components) are evaluated.
+    /// Takes one input received at `now_ms`. Analyses (whole, or completed from
+    /// components) are evaluated; a reading stamped outside the clock window is refused.
     pub fn accept(
         &mut self,
         s: &ReactorSpec,
@@ -203,6 +220,9 @@ impl ReactorMonitor {
         input: Input,
         now_ms: i64,
     ) -> Outcome {
+        if let Some(ahead_ms) = s.clock.outside(input.ts_ms(), now_ms) {
+            return Outcome::OffClock { ahead_ms };
+        }
         match input {
             Input::Temperature(i, r) => match self.temperatures.get_mut(i) {
                 Some(b) => store(b, r),

@@ -100,6 +100,42 @@ pub struct ReactorSpec {
     /// Each reaction written out canonically (for results; worked out once).
     pub reaction_labels: Vec<String>,
     pub bed_rise: Option<BedRiseSpec>,
+    /// How far from the receiving clock a reading's timestamp may be.
+    pub clock: ClockWindow,
+}
+
+/// Readings stamped further than this from the time they arrive are refused: one
+/// reading from a misset clock (or a year-9999 test message) must never poison the
+/// ordering of those that follow.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct ClockWindow {
+    /// Ahead of the receiving clock (clock skew, an analyser stamping its report).
+    pub max_ahead: Duration,
+    /// Behind it (a broker delivering what it held through an outage).
+    pub max_behind: Duration,
+}
+
+impl Default for ClockWindow {
+    /// 5 min ahead, 7 d behind [common practice: NTP-synchronised plant clocks agree to
+    /// well under a second; a persistent MQTT session holds inputs through outages of
+    /// days].
+    fn default() -> Self {
+        Self {
+            max_ahead: Duration::from_secs(5 * 60),
+            max_behind: Duration::from_secs(7 * 24 * 3600),
+        }
+    }
+}
+
+impl ClockWindow {
+    /// How far `ts_ms` is ahead of `now_ms` (negative: behind) when that is outside the
+    /// window; `None` inside it.
+    pub fn outside(&self, ts_ms: i64, now_ms: i64) -> Option<i64> {
+        let ahead = ts_ms.saturating_sub(now_ms);
+        let max_ahead = crate::units::duration_ms(self.max_ahead);
+        let max_behind = crate::units::duration_ms(self.max_behind);
+        (ahead > max_ahead || ahead < max_behind.saturating_neg()).then_some(ahead)
+    }
 }
 
 impl ReactorSpec {
