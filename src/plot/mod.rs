@@ -4629,7 +4629,7 @@ mod tests {
     #[test]
     fn pure_and_deterministic() {
         // The module (tests excluded) names no file, network, clock or runtime API.
-        let src = include_str!("plot.rs");
+        let src = include_str!("mod.rs");
         let code = src.split("#[cfg(test)]").next().unwrap_or_default();
         for needle in [
             ["std", "::fs"].concat(),
