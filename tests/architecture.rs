@@ -67,7 +67,7 @@ const RULES: &[Rule] = &[
     },
     // SVG charts: numbers and times in, text out.
     Rule {
-        path: "src/plot.rs",
+        path: "src/plot",
         modules: &["timefmt", "units", "plot"],
         crates: &[],
     },
