@@ -8,7 +8,7 @@ use super::axes::{TimeAxis, TimeScale, YScale, draw_time_grid, draw_y_axis, line
 use super::legend::{LegendItem, Swatch, legend_item};
 use super::markers::draw_markers;
 use super::model::{AlarmLimit, Marker, MarkerKind, OfflineSpan, PlotPoint, ReactorPlot};
-use super::prepare::{Domain, ProjPt, clip_projection};
+use super::prepare::{Domain, Prepared, ProjPt, clip_projection};
 use super::series::{Px, band_path, drawable, envelope, gap_spans, line_path};
 use super::style::{
     C_AGGREGATE, C_ALARM_LIMIT, C_APPROACH, C_BAND, C_BASELINE, C_END_OF_RUN, C_GAP, C_LIMIT,
@@ -192,20 +192,29 @@ pub(super) fn approach_y_range(
     Some((lo, hi))
 }
 
-/// The top chart. Groups are always written (possibly empty) so that the structure is stable.
-#[allow(clippy::too_many_arguments)]
-pub(super) fn approach_chart(
-    out: &mut String,
-    p: &ReactorPlot,
-    pts: &[&PlotPoint],
-    proj_all: &[ProjPt],
-    d: &Domain,
-    ta: &TimeAxis,
+/// Where the approach chart goes in the document: its time axis, its area and the markers
+/// shown on it.
+pub(super) struct ApproachFrame<'a> {
+    pub(super) ta: &'a TimeAxis,
+    pub(super) area: Area,
+    pub(super) shown: &'a [&'a Marker],
+}
+
+/// What every layer of the approach chart is drawn against.
+struct Layers<'a> {
+    plot: &'a ReactorPlot,
+    ta: &'a TimeAxis,
+    ys: &'a YScale,
     area: Area,
-    shown: &[&Marker],
-) {
+    /// Some value gave the chart a y axis; without one, layers that need values draw nothing.
+    has_axis: bool,
+}
+
+/// The top chart. Groups are always written (possibly empty) so that the structure is stable.
+pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, frame: &ApproachFrame) {
+    let (p, pts, ta, area) = (data.plot, &data.points[..], frame.ta, frame.area);
     let ts = ta.scale;
-    let proj = clip_projection(proj_all, ts.t0, ts.t1);
+    let proj = clip_projection(&data.projection, ts.t0, ts.t1);
     let range = approach_y_range(p, pts, &proj, &ts);
     let ys = YScale {
         axis: match range {
@@ -238,6 +247,13 @@ pub(super) fn approach_chart(
             N(ly)
         );
     }
+    let layers = Layers {
+        plot: p,
+        ta,
+        ys: &ys,
+        area,
+        has_axis: range.is_some(),
+    };
 
     let samples: Vec<Px> = pts
         .iter()
@@ -313,8 +329,8 @@ pub(super) fn approach_chart(
     }
     out.push_str("</g>");
 
-    projection_groups(out, p, &proj, d, &ts, &ys, range.is_some());
-    limit_groups(out, p, &ts, &ys, area, range.is_some());
+    projection_groups(out, &layers, &proj, d);
+    limit_groups(out, &layers);
 
     // Approach line (with envelope when decimated).
     w!(out, "<g id=\"approach\" {clip}>");
@@ -355,12 +371,26 @@ pub(super) fn approach_chart(
     }
     out.push_str("</g>");
 
-    aggregates_group(out, p, &ts, &ys, range.is_some());
-    baselines_group(out, p, ta, &ys, area, range.is_some());
-    end_of_run_group(out, p, ta, &ys, area, range.is_some());
+    aggregates_group(out, &layers);
+    baselines_group(out, &layers);
+    end_of_run_group(out, &layers);
+    markers_group(out, p, frame);
 
+    draw_frame(out, area);
+    if n_valid == 0 {
+        draw_message(
+            out,
+            area,
+            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
+        );
+    }
+}
+
+/// The markers shown, and a note counting those outside the time range.
+fn markers_group(out: &mut String, p: &ReactorPlot, frame: &ApproachFrame) {
+    let (shown, area) = (frame.shown, frame.area);
     out.push_str("<g id=\"markers\">");
-    draw_markers(out, shown, ta, area, 5.5, true);
+    draw_markers(out, shown, frame.ta, area, 5.5, true);
     let outside = p.markers.len() - shown.len();
     if outside > 0 {
         w!(
@@ -373,25 +403,16 @@ pub(super) fn approach_chart(
         );
     }
     out.push_str("</g>");
-
-    draw_frame(out, area);
-    if n_valid == 0 {
-        draw_message(
-            out,
-            area,
-            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
-        );
-    }
 }
 
-fn baselines_group(
-    out: &mut String,
-    p: &ReactorPlot,
-    ta: &TimeAxis,
-    ys: &YScale,
-    area: Area,
-    has_axis: bool,
-) {
+fn baselines_group(out: &mut String, layers: &Layers) {
+    let (p, ta, ys, area, has_axis) = (
+        layers.plot,
+        layers.ta,
+        layers.ys,
+        layers.area,
+        layers.has_axis,
+    );
     let ts = &ta.scale;
     w!(out, "<g id=\"baseline\" clip-path=\"url(#clip-approach)\">");
     for b in p.baselines.iter().filter(|_| has_axis) {
@@ -452,15 +473,8 @@ fn baselines_group(
 }
 
 /// `trend` (the fit over the data) and `projection` (prediction band and the fit forward).
-fn projection_groups(
-    out: &mut String,
-    p: &ReactorPlot,
-    proj: &[ProjPt],
-    d: &Domain,
-    ts: &TimeScale,
-    ys: &YScale,
-    has_axis: bool,
-) {
+fn projection_groups(out: &mut String, layers: &Layers, proj: &[ProjPt], d: &Domain) {
+    let (p, ts, ys, has_axis) = (layers.plot, &layers.ta.scale, layers.ys, layers.has_axis);
     let to_px = |v: &[ProjPt], band: bool| -> Vec<Px> {
         v.iter()
             .map(|q| Px {
@@ -539,70 +553,19 @@ fn projection_groups(
 /// `limit` (the end-of-run limit) and `alarm-limits` (one `g.alarm-limit` per operator
 /// alarm, with `data-id` and `data-limit-k`): horizontal lines labelled at the right end;
 /// the labels are stacked so that they never overprint each other.
-fn limit_groups(
-    out: &mut String,
-    p: &ReactorPlot,
-    ts: &TimeScale,
-    ys: &YScale,
-    area: Area,
-    has_axis: bool,
-) {
-    // (line y, label text, the alarm; `None` for the end-of-run limit)
-    let mut lines: Vec<(f64, String, Option<&AlarmLimit>)> = Vec::new();
-    if let Some((l, y)) = p
-        .limit_k
-        .filter(|l| has_axis && usable(*l))
-        .and_then(|l| ys.y(l).map(|y| (l, y)))
-    {
-        lines.push((y, format!("end-of-run limit {} K", fmt_sig(l, 3)), None));
-    }
-    for a in p
-        .alarm_limits
-        .iter()
-        .filter(|a| has_axis && usable(a.limit_k))
-    {
-        if let Some(y) = ys.y(a.limit_k) {
-            lines.push((
-                y,
-                format!(
-                    "operator alarm {} ({}) {} K",
-                    a.id,
-                    if a.high { "high" } else { "low" },
-                    fmt_sig(a.limit_k, 3)
-                ),
-                Some(a),
-            ));
-        }
-    }
-    // Labels just below their lines (the end-of-run interval bar sits on the limit line),
-    // at least 12 px apart, inside the area.
-    let mut order: Vec<usize> = (0..lines.len()).collect();
-    order.sort_by(|&i, &j| lines[i].0.total_cmp(&lines[j].0));
-    let mut label_y = vec![0.0; lines.len()];
-    let mut prev = f64::NEG_INFINITY;
-    for &i in &order {
-        let y = (lines[i].0 + 13.0).max(prev + 12.0).max(area.y0 + 12.0);
-        label_y[i] = y;
-        prev = y;
-    }
-    let mut next = area.y1 - 3.0 + 12.0;
-    for &i in order.iter().rev() {
-        label_y[i] = label_y[i].min(next - 12.0);
-        next = label_y[i];
-    }
-    // Right-aligned at the right edge, or left of the end-of-run line when that is near it.
-    let widest = lines
-        .iter()
-        .map(|l| text_width(&l.1, 10.0))
-        .fold(0.0, f64::max);
-    let label_x = p
-        .projection
-        .as_ref()
-        .and_then(|pr| pr.end_of_run_ms)
-        .filter(|&e| sane_t(e) && ts.contains(e))
-        .map(|e| ts.x(e))
-        .filter(|&ex| ex > area.x1 - widest - 8.0 && ex - 6.0 - widest > area.x0)
-        .map_or(area.x1 - 4.0, |ex| ex - 6.0);
+/// One horizontal limit line: where it is, its label, and its alarm (`None` for the
+/// end-of-run limit).
+struct LimitLine<'a> {
+    y: f64,
+    text: String,
+    alarm: Option<&'a AlarmLimit>,
+}
+
+fn limit_groups(out: &mut String, layers: &Layers) {
+    let (p, area) = (layers.plot, layers.area);
+    let lines = limit_lines(layers);
+    let label_y = limit_label_ys(&lines, area);
+    let label_x = limit_label_x(p, &lines, &layers.ta.scale, area);
     let path = |out: &mut String, y: f64, colour: &str, dash: &str, width: &str| {
         w!(
             out,
@@ -624,13 +587,13 @@ fn limit_groups(
         );
     };
     out.push_str("<g id=\"limit\">");
-    for (i, (y, text, _)) in lines.iter().enumerate().filter(|(_, l)| l.2.is_none()) {
-        path(out, *y, C_LIMIT, DASH_LIMIT, "1.6");
-        label(out, label_y[i], C_LIMIT, text);
+    for (i, line) in lines.iter().enumerate().filter(|(_, l)| l.alarm.is_none()) {
+        path(out, line.y, C_LIMIT, DASH_LIMIT, "1.6");
+        label(out, label_y[i], C_LIMIT, &line.text);
     }
     out.push_str("</g><g id=\"alarm-limits\">");
-    for (i, (y, text, alarm)) in lines.iter().enumerate() {
-        let Some(a) = alarm else { continue };
+    for (i, line) in lines.iter().enumerate() {
+        let Some(a) = line.alarm else { continue };
         w!(
             out,
             "<g class=\"alarm-limit\" data-id=\"{}\" data-limit-k=\"{}\"><title>operator alarm {}: {} K</title>",
@@ -639,11 +602,84 @@ fn limit_groups(
             Esc(&a.id),
             fmt_sig(a.limit_k, 6)
         );
-        path(out, *y, C_ALARM_LIMIT, DASH_ALARM_LIMIT, "1.4");
-        label(out, label_y[i], C_ALARM_LIMIT, text);
+        path(out, line.y, C_ALARM_LIMIT, DASH_ALARM_LIMIT, "1.4");
+        label(out, label_y[i], C_ALARM_LIMIT, &line.text);
         out.push_str("</g>");
     }
     out.push_str("</g>");
+}
+
+/// The end-of-run limit and the operator alarm limits inside the value axis.
+fn limit_lines<'a>(layers: &Layers<'a>) -> Vec<LimitLine<'a>> {
+    let (p, ys, has_axis) = (layers.plot, layers.ys, layers.has_axis);
+    let mut lines = Vec::new();
+    if let Some((l, y)) = p
+        .limit_k
+        .filter(|l| has_axis && usable(*l))
+        .and_then(|l| ys.y(l).map(|y| (l, y)))
+    {
+        lines.push(LimitLine {
+            y,
+            text: format!("end-of-run limit {} K", fmt_sig(l, 3)),
+            alarm: None,
+        });
+    }
+    for a in p
+        .alarm_limits
+        .iter()
+        .filter(|a| has_axis && usable(a.limit_k))
+    {
+        if let Some(y) = ys.y(a.limit_k) {
+            lines.push(LimitLine {
+                y,
+                text: format!(
+                    "operator alarm {} ({}) {} K",
+                    a.id,
+                    if a.high { "high" } else { "low" },
+                    fmt_sig(a.limit_k, 3)
+                ),
+                alarm: Some(a),
+            });
+        }
+    }
+    lines
+}
+
+/// Label heights, in the order of `lines`.
+fn limit_label_ys(lines: &[LimitLine], area: Area) -> Vec<f64> {
+    // Labels just below their lines (the end-of-run interval bar sits on the limit line),
+    // at least 12 px apart, inside the area.
+    let mut order: Vec<usize> = (0..lines.len()).collect();
+    order.sort_by(|&i, &j| lines[i].y.total_cmp(&lines[j].y));
+    let mut label_y = vec![0.0; lines.len()];
+    let mut prev = f64::NEG_INFINITY;
+    for &i in &order {
+        let y = (lines[i].y + 13.0).max(prev + 12.0).max(area.y0 + 12.0);
+        label_y[i] = y;
+        prev = y;
+    }
+    let mut next = area.y1 - 3.0 + 12.0;
+    for &i in order.iter().rev() {
+        label_y[i] = label_y[i].min(next - 12.0);
+        next = label_y[i];
+    }
+    label_y
+}
+
+/// Where the labels end.
+fn limit_label_x(p: &ReactorPlot, lines: &[LimitLine], ts: &TimeScale, area: Area) -> f64 {
+    // Right-aligned at the right edge, or left of the end-of-run line when that is near it.
+    let widest = lines
+        .iter()
+        .map(|l| text_width(&l.text, 10.0))
+        .fold(0.0, f64::max);
+    p.projection
+        .as_ref()
+        .and_then(|pr| pr.end_of_run_ms)
+        .filter(|&e| sane_t(e) && ts.contains(e))
+        .map(|e| ts.x(e))
+        .filter(|&ex| ex > area.x1 - widest - 8.0 && ex - 6.0 - widest > area.x0)
+        .map_or(area.x1 - 4.0, |ex| ex - 6.0)
 }
 
 /// "daily mean" for one-day aggregates, "6-h mean" and so on, else "period mean".
@@ -674,13 +710,8 @@ pub(super) fn aggregate_shape(out: &mut String, x: f64, y: f64, filled: bool) {
 }
 
 /// `aggregates`: one `rect.aggregate` per steady-state aggregate inside the time range.
-fn aggregates_group(
-    out: &mut String,
-    p: &ReactorPlot,
-    ts: &TimeScale,
-    ys: &YScale,
-    has_axis: bool,
-) {
+fn aggregates_group(out: &mut String, layers: &Layers) {
+    let (p, ts, ys, has_axis) = (layers.plot, &layers.ta.scale, layers.ys, layers.has_axis);
     out.push_str("<g id=\"aggregates\" clip-path=\"url(#clip-approach)\">");
     for a in &p.aggregates {
         if !has_axis || !usable(a.approach_k) || !sane_t(a.t_ms) || !ts.contains(a.t_ms) {
@@ -732,14 +763,14 @@ pub(super) fn offline_group(
     out.push_str("</g>");
 }
 
-fn end_of_run_group(
-    out: &mut String,
-    p: &ReactorPlot,
-    ta: &TimeAxis,
-    ys: &YScale,
-    area: Area,
-    has_axis: bool,
-) {
+fn end_of_run_group(out: &mut String, layers: &Layers) {
+    let (p, ta, ys, area, has_axis) = (
+        layers.plot,
+        layers.ta,
+        layers.ys,
+        layers.area,
+        layers.has_axis,
+    );
     let ts = ta.scale;
     out.push_str("<g id=\"end-of-run\">");
     let Some(pr) = &p.projection else {

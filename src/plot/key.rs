@@ -5,7 +5,8 @@ use std::fmt::Write as _;
 
 use super::approach::offline_group;
 use super::axes::{Axis, TimeAxis, YScale, draw_time_grid, draw_y_axis, linear_axis, log_axis};
-use super::model::{PlotPoint, ReactorPlot};
+use super::model::PlotPoint;
+use super::prepare::Prepared;
 use super::series::{Px, drawable, envelope, line_path};
 use super::style::{C_EQUILIBRIUM, C_MEASURED, DASH_EQUILIBRIUM};
 use super::svg::{Area, N, dash_attr, draw_frame, draw_message, usable_fraction};
@@ -60,15 +61,8 @@ fn key_label(key: &str, unit: &str, basis: Option<&str>, log: bool) -> String {
     s
 }
 
-pub(super) fn key_chart(
-    out: &mut String,
-    p: &ReactorPlot,
-    pts: &[&PlotPoint],
-    key: &str,
-    basis: Option<&str>,
-    ta: &TimeAxis,
-    area: Area,
-) {
+pub(super) fn key_chart(out: &mut String, data: &Prepared, ta: &TimeAxis, area: Area) {
+    let (p, pts, key, basis) = (data.plot, &data.points[..], data.key, data.basis);
     let ts = ta.scale;
     let axis = key_axis(&key_values(pts));
     offline_group(out, "id=\"key-offline\"", &p.offline, &ts, area, "clip-key");

@@ -7,7 +7,7 @@ use super::axes::{
     TimeAxis, TimeScale, YScale, draw_time_grid, draw_y_axis, fmt_date, linear_axis, time_axis,
     tz_ms,
 };
-use super::legend::{Swatch, draw_legend_items, legend_item, legend_layout};
+use super::legend::{LegendItem, Swatch, draw_legend_items, legend_item, legend_layout};
 use super::markers::{draw_markers, shown_markers};
 use super::model::{MarkerKind, PlotPoint, ReactorPlot, TimeZone};
 use super::prepare::sorted_points;
@@ -34,44 +34,8 @@ pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> Stri
         (540.0 / n as f64).clamp(90.0, 160.0)
     };
     let legend_y = 44.0;
-    let mut items = vec![legend_item(
-        Swatch::Line {
-            colour: C_APPROACH,
-            dash: "",
-            width: 1.8,
-        },
-        "approach (K)",
-    )];
     let sorted: Vec<Vec<&PlotPoint>> = plots.iter().map(|p| sorted_points(&p.points)).collect();
-    if sorted
-        .iter()
-        .flatten()
-        .any(|q| !q.approach_k.is_some_and(usable))
-    {
-        items.push(legend_item(Swatch::Band(C_GAP, 0.3), "bad quality (gap)"));
-    }
-    if plots.iter().any(|p| !p.offline.is_empty()) {
-        items.push(legend_item(Swatch::Hatch, "unit off line"));
-    }
-    if plots.iter().any(|p| p.limit_k.is_some_and(usable)) {
-        items.push(legend_item(
-            Swatch::Line {
-                colour: C_LIMIT,
-                dash: DASH_LIMIT,
-                width: 1.6,
-            },
-            "end-of-run limit",
-        ));
-    }
-    for kind in MarkerKind::ALL {
-        if plots
-            .iter()
-            .flat_map(|p| &p.markers)
-            .any(|m| m.kind == kind)
-        {
-            items.push(legend_item(Swatch::Marker(kind), kind.class()));
-        }
-    }
+    let items = overview_legend(plots, &sorted);
     let (legend_pos, rows) = legend_layout(&items, LEFT, RIGHT, legend_y);
     let panels_top = legend_y + 16.0 * rows.max(1) as f64 + 4.0;
     let height = (panels_top + n.max(1) as f64 * panel_h + 56.0).ceil();
@@ -138,7 +102,13 @@ pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> Stri
     for (i, (p, pts)) in plots.iter().zip(&sorted).enumerate() {
         let area = panel_area(i);
         let last = i + 1 == n;
-        overview_panel(&mut out, i + 1, p, pts, ta.as_ref(), area, last);
+        let place = PanelPlace {
+            index: i + 1,
+            ta: ta.as_ref(),
+            area,
+            last,
+        };
+        overview_panel(&mut out, p, pts, &place);
     }
     let caption = ta
         .as_ref()
@@ -161,17 +131,61 @@ pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> Stri
     out
 }
 
-/// One reactor's row of the overview, in `<g class="panel" id="panel-N">` with classes
-/// (not ids, which must be unique) for its parts.
-fn overview_panel(
-    out: &mut String,
+/// Legend entries of the overview: only what some panel has.
+fn overview_legend(plots: &[ReactorPlot], sorted: &[Vec<&PlotPoint>]) -> Vec<LegendItem> {
+    let mut items = vec![legend_item(
+        Swatch::Line {
+            colour: C_APPROACH,
+            dash: "",
+            width: 1.8,
+        },
+        "approach (K)",
+    )];
+    if sorted
+        .iter()
+        .flatten()
+        .any(|q| !q.approach_k.is_some_and(usable))
+    {
+        items.push(legend_item(Swatch::Band(C_GAP, 0.3), "bad quality (gap)"));
+    }
+    if plots.iter().any(|p| !p.offline.is_empty()) {
+        items.push(legend_item(Swatch::Hatch, "unit off line"));
+    }
+    if plots.iter().any(|p| p.limit_k.is_some_and(usable)) {
+        items.push(legend_item(
+            Swatch::Line {
+                colour: C_LIMIT,
+                dash: DASH_LIMIT,
+                width: 1.6,
+            },
+            "end-of-run limit",
+        ));
+    }
+    for kind in MarkerKind::ALL {
+        if plots
+            .iter()
+            .flat_map(|p| &p.markers)
+            .any(|m| m.kind == kind)
+        {
+            items.push(legend_item(Swatch::Marker(kind), kind.class()));
+        }
+    }
+    items
+}
+
+/// Where one reactor's panel goes: its number (from 1), the shared time axis (`None` when
+/// no reactor has data), its area, and whether it is the last (the one with time labels).
+struct PanelPlace<'a> {
     index: usize,
-    p: &ReactorPlot,
-    pts: &[&PlotPoint],
-    ta: Option<&TimeAxis>,
+    ta: Option<&'a TimeAxis>,
     area: Area,
     last: bool,
-) {
+}
+
+/// One reactor's row of the overview, in `<g class="panel" id="panel-N">` with classes
+/// (not ids, which must be unique) for its parts.
+fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: &PanelPlace) {
+    let (index, ta, area, last) = (place.index, place.ta, place.area, place.last);
     w!(
         out,
         "<g class=\"panel\" id=\"panel-{index}\" data-reactor=\"{}\">",
@@ -207,29 +221,7 @@ fn overview_panel(
         return;
     };
     let ts = ta.scale;
-    let core = pts
-        .iter()
-        .filter_map(|q| q.approach_k)
-        .chain(p.limit_k)
-        .filter(|v| usable(*v));
-    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
-    for v in core {
-        lo = lo.min(v);
-        hi = hi.max(v);
-    }
-    let has_axis = lo <= hi;
-    if has_axis && lo >= 0.0 && lo <= 0.5 * hi {
-        lo = 0.0;
-    }
-    let ys = YScale {
-        axis: if has_axis {
-            linear_axis(lo, hi, 3)
-        } else {
-            linear_axis(0.0, 1.0, 3)
-        },
-        top: area.y0,
-        bottom: area.y1,
-    };
+    let (ys, has_axis) = panel_y_scale(p, pts, area);
     offline_group(
         out,
         "class=\"offline\"",
@@ -322,6 +314,35 @@ fn overview_panel(
         );
     }
     out.push_str("</g>");
+}
+
+/// The panel's value scale (approach and limit, from zero when that is near), and whether
+/// any value gave it an axis.
+fn panel_y_scale(p: &ReactorPlot, pts: &[&PlotPoint], area: Area) -> (YScale, bool) {
+    let core = pts
+        .iter()
+        .filter_map(|q| q.approach_k)
+        .chain(p.limit_k)
+        .filter(|v| usable(*v));
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    for v in core {
+        lo = lo.min(v);
+        hi = hi.max(v);
+    }
+    let has_axis = lo <= hi;
+    if has_axis && lo >= 0.0 && lo <= 0.5 * hi {
+        lo = 0.0;
+    }
+    let ys = YScale {
+        axis: if has_axis {
+            linear_axis(lo, hi, 3)
+        } else {
+            linear_axis(0.0, 1.0, 3)
+        },
+        top: area.y0,
+        bottom: area.y1,
+    };
+    (ys, has_axis)
 }
 
 #[cfg(test)]

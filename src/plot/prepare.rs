@@ -5,6 +5,59 @@ use super::model::{PlotPoint, Projection, ReactorPlot};
 use super::svg::{sane_t, usable};
 use crate::units::DAY_MS;
 
+/// One reactor's data ready to draw: the plot, its points in time order, its whole
+/// projection and time domain, and the names the document prints.
+pub(super) struct Prepared<'a> {
+    pub(super) plot: &'a ReactorPlot,
+    pub(super) points: Vec<&'a PlotPoint>,
+    /// The projection before it is clipped to the chart.
+    pub(super) projection: Vec<ProjPt>,
+    /// `None` when nothing has a plottable time.
+    pub(super) domain: Option<Domain>,
+    /// The key component's name ("key component" when the plot has none).
+    pub(super) key: &'a str,
+    /// The plot title, else the reactor.
+    pub(super) title: &'a str,
+    /// The key component's basis ("dry", "wet"), when given.
+    pub(super) basis: Option<&'a str>,
+}
+
+impl<'a> Prepared<'a> {
+    pub(super) fn new(p: &'a ReactorPlot) -> Prepared<'a> {
+        let points = sorted_points(&p.points);
+        let projection = p
+            .projection
+            .as_ref()
+            .map(projection_points)
+            .unwrap_or_default();
+        let domain = reactor_domain(p, &points, &projection);
+        let key = if p.key_component.trim().is_empty() {
+            "key component"
+        } else {
+            p.key_component.as_str()
+        };
+        let title = if p.title.trim().is_empty() {
+            p.reactor.as_str()
+        } else {
+            p.title.as_str()
+        };
+        let basis = p
+            .key_basis
+            .as_deref()
+            .map(str::trim)
+            .filter(|b| !b.is_empty());
+        Prepared {
+            plot: p,
+            points,
+            projection,
+            domain,
+            key,
+            title,
+            basis,
+        }
+    }
+}
+
 /// The projection may extend the time axis by at most the data span divided by this.
 const PROJECTION_DIVISOR: i64 = 2;
 
@@ -24,7 +77,7 @@ pub(super) struct ProjPt {
     pub(super) hi: f64,
 }
 
-pub(super) fn projection_points(pr: &Projection) -> Vec<ProjPt> {
+fn projection_points(pr: &Projection) -> Vec<ProjPt> {
     let mut v: Vec<ProjPt> = pr
         .points
         .iter()
@@ -76,11 +129,7 @@ pub(super) struct Domain {
     pub(super) data_end: i64,
 }
 
-pub(super) fn reactor_domain(
-    p: &ReactorPlot,
-    pts: &[&PlotPoint],
-    proj: &[ProjPt],
-) -> Option<Domain> {
+fn reactor_domain(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Option<Domain> {
     let (d0, d1) = match (pts.first(), pts.last()) {
         (Some(a), Some(b)) => (a.t_ms, b.t_ms),
         _ => {

@@ -3,15 +3,16 @@
 
 use std::fmt::Write as _;
 
-use super::approach::{approach_chart, approach_legend, approach_y_range};
-use super::axes::{TimeScale, left_for, linear_axis, tick_label_w, time_axis};
+use super::approach::{ApproachFrame, approach_chart, approach_legend, approach_y_range};
+use super::axes::{TimeAxis, TimeScale, left_for, linear_axis, tick_label_w, time_axis};
 use super::key::{key_axis, key_chart, key_values};
-use super::legend::{Swatch, draw_legend_items, legend_item, legend_layout};
+use super::legend::{LegendItem, Swatch, draw_legend_items, legend_item, legend_layout};
 use super::markers::{
-    draw_event_list, draw_number_boxes, event_list_h, number_boxes, number_strip_h, shown_markers,
+    NumberBox, draw_event_list, draw_number_boxes, event_list_h, number_boxes, number_strip_h,
+    shown_markers,
 };
 use super::model::{Marker, ReactorPlot, TimeZone};
-use super::prepare::{clip_projection, projection_points, reactor_domain, sorted_points};
+use super::prepare::{Domain, Prepared, clip_projection};
 use super::style::{
     C_EQUILIBRIUM, C_MEASURED, C_MUTED, C_OFFLINE, C_TEXT, DASH_EQUILIBRIUM, HEIGHT, LEFT, RIGHT,
     WIDTH,
@@ -28,38 +29,57 @@ pub fn reactor_svg(p: &ReactorPlot) -> String {
 /// event markers with their list under the charts. 1000 px wide, 640 px high plus the room
 /// that marker numbers and the event list take.
 pub fn reactor_svg_tz(p: &ReactorPlot, tz: TimeZone) -> String {
+    let data = Prepared::new(p);
+    let layout = reactor_layout(&data, tz);
     let mut out = String::with_capacity(96 * 1024);
-    let pts = sorted_points(&p.points);
-    let proj_all = p
-        .projection
-        .as_ref()
-        .map(projection_points)
-        .unwrap_or_default();
-    let domain = reactor_domain(p, &pts, &proj_all);
-    let key = if p.key_component.trim().is_empty() {
-        "key component"
-    } else {
-        p.key_component.as_str()
-    };
-    let title = if p.title.trim().is_empty() {
-        p.reactor.as_str()
-    } else {
-        p.title.as_str()
-    };
-    let basis = p
-        .key_basis
-        .as_deref()
-        .map(str::trim)
-        .filter(|b| !b.is_empty());
+    open_document(&mut out, &data, &layout);
+    match (&data.domain, &layout.ta) {
+        (Some(d), Some(ta)) => draw_charts(&mut out, &data, &layout, d, ta),
+        _ => draw_no_data(&mut out, &layout, tz),
+    }
+    close_document(&mut out, &data, &layout);
+    out
+}
 
+/// Where everything goes in the per-reactor document.
+struct Layout<'a> {
+    left: f64,
+    /// `None` when nothing has a plottable time.
+    ta: Option<TimeAxis>,
+    shown: Vec<&'a Marker>,
+    boxes: Vec<NumberBox>,
+    /// The height of the marker-number strip; the charts move down by it.
+    dy: f64,
+    height: f64,
+    items: Vec<LegendItem>,
+    legend_pos: Vec<(f64, f64)>,
+    heading_y: f64,
+    top: Area,
+    bottom: Area,
+    key_items: Vec<LegendItem>,
+    key_pos: Vec<(f64, f64)>,
+    key_heading: String,
+}
+
+/// The margins, the time axis, the markers shown with their numbers, the legends and the
+/// chart areas.
+fn reactor_layout<'a>(data: &Prepared<'a>, tz: TimeZone) -> Layout<'a> {
+    let (p, pts, proj_all, domain, key, basis) = (
+        data.plot,
+        &data.points,
+        &data.projection,
+        &data.domain,
+        data.key,
+        data.basis,
+    );
     // Left margin from the widest tick label of either chart (same for both).
-    let left = match &domain {
+    let left = match domain {
         Some(d) => {
             let ts = TimeScale::new(d.t0, d.t1, LEFT, RIGHT);
-            let proj = clip_projection(&proj_all, ts.t0, ts.t1);
-            let a = approach_y_range(p, &pts, &proj, &ts)
+            let proj = clip_projection(proj_all, ts.t0, ts.t1);
+            let a = approach_y_range(p, pts, &proj, &ts)
                 .map_or(0.0, |(lo, hi)| tick_label_w(&linear_axis(lo, hi, 6)));
-            let k = key_axis(&key_values(&pts)).map_or(0.0, |(_, _, ax)| tick_label_w(&ax));
+            let k = key_axis(&key_values(pts)).map_or(0.0, |(_, _, ax)| tick_label_w(&ax));
             left_for(a.max(k))
         }
         None => LEFT,
@@ -80,25 +100,8 @@ pub fn reactor_svg_tz(p: &ReactorPlot, tz: TimeZone) -> String {
     let list_h = event_list_h(shown.len());
     let height = (HEIGHT + strip + list_h).ceil();
 
-    w!(
-        out,
-        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\" \
-         font-family=\"sans-serif\" font-size=\"11\" role=\"img\" aria-labelledby=\"svg-title svg-desc\">",
-        w = WIDTH,
-        h = height
-    );
-    w!(out, "<title id=\"svg-title\">{}</title>", Esc(title));
-    w!(
-        out,
-        "<desc id=\"svg-desc\">advisory: not a safety function. Approach to equilibrium of reactor {} \
-         and its key component {}, measured and at equilibrium{}.</desc>",
-        Esc(&p.reactor),
-        Esc(key),
-        basis.map_or(String::new(), |b| format!(" ({} basis)", Esc(b)))
-    );
-
     // Legend first (its height sets where the top chart starts); drawn at the end.
-    let items = approach_legend(p, &pts, &proj_all);
+    let items = approach_legend(p, pts, proj_all);
     let (legend_pos, rows) = legend_layout(&items, left, RIGHT, 44.0);
     let heading_y = 44.0 + 16.0 * rows.max(1) as f64 + 4.0;
     let dy = strip;
@@ -140,9 +143,49 @@ pub fn reactor_svg_tz(p: &ReactorPlot, tz: TimeZone) -> String {
     let key_legend_x = (left + 1.1 * text_width(&key_heading, 13.0) + 24.0).min(RIGHT - 300.0);
     let (key_pos, _) = legend_layout(&key_items, key_legend_x, RIGHT, 410.0 + dy);
 
+    Layout {
+        left,
+        ta,
+        shown,
+        boxes,
+        dy,
+        height,
+        items,
+        legend_pos,
+        heading_y,
+        top,
+        bottom,
+        key_items,
+        key_pos,
+        key_heading,
+    }
+}
+
+/// The root element, title and description, clip paths, background and headings.
+fn open_document(out: &mut String, data: &Prepared, layout: &Layout) {
+    let (p, key, title, basis) = (data.plot, data.key, data.title, data.basis);
+    let (left, heading_y, dy, height) = (layout.left, layout.heading_y, layout.dy, layout.height);
+    let (top, bottom, key_heading) = (layout.top, layout.bottom, &layout.key_heading);
+    w!(
+        out,
+        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\" \
+         font-family=\"sans-serif\" font-size=\"11\" role=\"img\" aria-labelledby=\"svg-title svg-desc\">",
+        w = WIDTH,
+        h = height
+    );
+    w!(out, "<title id=\"svg-title\">{}</title>", Esc(title));
+    w!(
+        out,
+        "<desc id=\"svg-desc\">advisory: not a safety function. Approach to equilibrium of reactor {} \
+         and its key component {}, measured and at equilibrium{}.</desc>",
+        Esc(&p.reactor),
+        Esc(key),
+        basis.map_or(String::new(), |b| format!(" ({} basis)", Esc(b)))
+    );
+
     out.push_str("<defs>");
-    clip_rect(&mut out, "clip-approach", top);
-    clip_rect(&mut out, "clip-key", bottom);
+    clip_rect(out, "clip-approach", top);
+    clip_rect(out, "clip-key", bottom);
     w!(
         out,
         "<pattern id=\"hatch-offline\" width=\"6\" height=\"6\" patternUnits=\"userSpaceOnUse\" \
@@ -172,61 +215,76 @@ pub fn reactor_svg_tz(p: &ReactorPlot, tz: TimeZone) -> String {
         "<text class=\"chart-title\" x=\"{}\" y=\"{}\" font-size=\"13\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
         N(left),
         N(410.0 + dy),
-        Esc(&key_heading)
+        Esc(key_heading)
     );
+}
 
-    let caption_y = 612.0 + dy;
-    match (&domain, &ta) {
-        (Some(d), Some(ta)) => {
-            approach_chart(&mut out, p, &pts, &proj_all, d, ta, top, &shown);
-            draw_number_boxes(&mut out, &boxes, &shown, top);
-            key_chart(&mut out, p, &pts, key, basis, ta, bottom);
-            w!(
-                out,
-                "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text>",
-                N(bottom.mid_x()),
-                N(caption_y),
-                Esc(&ta.caption)
-            );
-            draw_event_list(&mut out, &shown, ta, caption_y + 8.0);
-        }
-        _ => {
-            for id in [
-                "offline",
-                "gaps",
-                "uncertainty",
-                "baseline",
-                "projection",
-                "trend",
-                "limit",
-                "alarm-limits",
-                "approach",
-                "aggregates",
-                "uncertain-quality",
-                "end-of-run",
-                "markers",
-                "marker-numbers",
-                "events",
-            ] {
-                w!(out, "<g id=\"{id}\"/>");
-            }
-            out.push_str(
-                "<g id=\"key-offline\"/><g id=\"key-measured\"/><g id=\"key-equilibrium\"/>",
-            );
-            draw_frame(&mut out, top);
-            draw_message(&mut out, top, "no data");
-            draw_frame(&mut out, bottom);
-            draw_message(&mut out, bottom, "no data");
-            w!(
-                out,
-                "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">time ({})</text>",
-                N(bottom.mid_x()),
-                N(caption_y),
-                Esc(&tz.name())
-            );
-        }
+/// Both charts, the marker numbers, the time caption and the event list.
+fn draw_charts(out: &mut String, data: &Prepared, layout: &Layout, d: &Domain, ta: &TimeAxis) {
+    let (top, bottom, shown, boxes) = (layout.top, layout.bottom, &layout.shown[..], &layout.boxes);
+    let caption_y = 612.0 + layout.dy;
+    approach_chart(
+        out,
+        data,
+        d,
+        &ApproachFrame {
+            ta,
+            area: top,
+            shown,
+        },
+    );
+    draw_number_boxes(out, boxes, shown, top);
+    key_chart(out, data, ta, bottom);
+    w!(
+        out,
+        "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">{}</text>",
+        N(bottom.mid_x()),
+        N(caption_y),
+        Esc(&ta.caption)
+    );
+    draw_event_list(out, shown, ta, caption_y + 8.0);
+}
+
+/// Every group empty, "no data" in both frames, and the time caption.
+fn draw_no_data(out: &mut String, layout: &Layout, tz: TimeZone) {
+    let (top, bottom) = (layout.top, layout.bottom);
+    let caption_y = 612.0 + layout.dy;
+    for id in [
+        "offline",
+        "gaps",
+        "uncertainty",
+        "baseline",
+        "projection",
+        "trend",
+        "limit",
+        "alarm-limits",
+        "approach",
+        "aggregates",
+        "uncertain-quality",
+        "end-of-run",
+        "markers",
+        "marker-numbers",
+        "events",
+    ] {
+        w!(out, "<g id=\"{id}\"/>");
     }
+    out.push_str("<g id=\"key-offline\"/><g id=\"key-measured\"/><g id=\"key-equilibrium\"/>");
+    draw_frame(out, top);
+    draw_message(out, top, "no data");
+    draw_frame(out, bottom);
+    draw_message(out, bottom, "no data");
+    w!(
+        out,
+        "<text class=\"axis-label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\" font-size=\"12\" fill=\"{C_TEXT}\">time ({})</text>",
+        N(bottom.mid_x()),
+        N(caption_y),
+        Esc(&tz.name())
+    );
+}
 
+/// The footer and both legends.
+fn close_document(out: &mut String, data: &Prepared, layout: &Layout) {
+    let (p, height) = (data.plot, layout.height);
     w!(
         out,
         "<text class=\"footer\" x=\"16\" y=\"{}\" font-size=\"10\" fill=\"{C_MUTED}\">advisory: not a safety function. \
@@ -240,10 +298,9 @@ pub fn reactor_svg_tz(p: &ReactorPlot, tz: TimeZone) -> String {
         Esc(&p.reactor)
     );
     out.push_str("<g id=\"legend\">");
-    draw_legend_items(&mut out, &items, &legend_pos);
-    draw_legend_items(&mut out, &key_items, &key_pos);
+    draw_legend_items(out, &layout.items, &layout.legend_pos);
+    draw_legend_items(out, &layout.key_items, &layout.key_pos);
     out.push_str("</g></svg>\n");
-    out
 }
 
 #[cfg(test)]
