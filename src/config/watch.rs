@@ -6,7 +6,8 @@ use std::time::Duration;
 
 use serde::Deserialize;
 
-use super::{Problems, parse_duration, show_duration};
+use crate::config::duration::{parse_duration, show_duration};
+use crate::config::error::Problems;
 use crate::monitor::alarm::{AlarmConfig, Direction, Priority};
 use crate::monitor::watch::{AlarmSpec, BaselineSpec, Figure, TrendMethod, WatchSettings};
 use crate::units::{CompositionUnit, PressureUnit, split_quantity};
@@ -14,7 +15,7 @@ use crate::units::{CompositionUnit, PressureUnit, split_quantity};
 /// `[reactors.<id>.drift]`
 #[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub struct RawDrift {
+pub(crate) struct RawDrift {
     /// `"learn"` (default) or a given approach such as `"8 K"`.
     pub baseline: Option<String>,
     /// σ of a given baseline, e.g. `"0.5 K"`.
@@ -40,7 +41,7 @@ pub struct RawDrift {
 /// `[reactors.<id>.alerts]`
 #[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub struct RawAlerts {
+pub(crate) struct RawAlerts {
     /// e.g. `"0.05 K/d"`.
     pub trend_above: Option<String>,
     /// e.g. `"90 d"`.
@@ -53,7 +54,7 @@ pub struct RawAlerts {
 /// An alarm priority as written: `priority = 2` or `priority = "2"`.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(untagged)]
-pub enum RawPriority {
+pub(crate) enum RawPriority {
     Number(i64),
     Text(String),
 }
@@ -61,7 +62,7 @@ pub enum RawPriority {
 /// `[[reactors.<id>.alarm]]`: one rationalised operator alarm.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub struct RawAlarm {
+pub(crate) struct RawAlarm {
     pub id: String,
     /// `"approach"` or `"key-measured"`.
     pub on: String,
@@ -81,7 +82,7 @@ pub struct RawAlarm {
 /// `[commands]`
 #[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub struct RawCommands {
+pub(crate) struct RawCommands {
     #[serde(default)]
     pub allowed_users: Vec<String>,
     #[serde(default)]
@@ -132,7 +133,7 @@ use crate::units::duration_ms as ms;
 pub(super) fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
     match split_quantity("temperature difference", text)
         .ok()
-        .and_then(|(v, u)| super::kelvin_per_degree(u).map(|k| v * k))
+        .and_then(|(v, u)| crate::config::validate::inputs::kelvin_per_degree(u).map(|k| v * k))
     {
         Some(v) => Some(v),
         None => {
@@ -681,4 +682,71 @@ pub(super) fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
         out.push(("  off line", format!("below {b:.3} bar abs")));
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    //! Check values: see `test_support` (the demo plant's own data, else invented).
+
+    use crate::config::files::load;
+    use crate::config::test_support::{broken, config_dir};
+
+    #[test]
+    fn drift_alert_and_alarm_sections_say_what_to_fix() {
+        let e = broken("bad-alarms.toml");
+        let msgs: Vec<String> = e
+            .problems
+            .iter()
+            .map(|p| format!("{}: {}", p.path, p.message))
+            .collect();
+        let has = |path: &str, text: &str| {
+            assert!(
+                e.problems
+                    .iter()
+                    .any(|p| p.path == path && p.message.contains(text)),
+                "no problem at {path} containing {text:?}; got:\n{}",
+                msgs.join("\n")
+            )
+        };
+        has("reactors.lts1.offline_below", "\"5 psi\"");
+        has("reactors.lts1.drift.trend", "unknown method \"spline\"");
+        has(
+            "reactors.lts1.drift.end_of_run_limit",
+            "not a temperature difference",
+        );
+        has("reactors.lts1.alerts.trend_above", "not a positive rate");
+        has(
+            "reactors.lts1.alarm[0]",
+            "exactly one of `above` and `below`",
+        );
+        has("reactors.lts1.alarm[0].rationale", "give the rationale");
+        has("reactors.lts1.alarm[1].above", "\"5 K\"");
+        has("reactors.lts1.alarm[1].on_delay", "\"3 samples\"");
+        assert_eq!(e.problems.len(), 8, "{}", msgs.join("\n"));
+    }
+
+    #[test]
+    fn the_demo_plant_watch_settings() {
+        // config/demo-plant.toml (invented): ref1 has one rationalised alarm, 20 K high
+        // with a 2 K deadband and a 2-sample on-delay; lts1 forecasts end of run at 20 K.
+        let s = load(&config_dir().join("demo-plant.toml")).unwrap();
+        let ref1 = &s.reactors[0].spec.watch;
+        assert_eq!(ref1.alarms.len(), 1);
+        let a = &ref1.alarms[0].config;
+        assert_eq!(
+            (a.id.as_str(), a.limit, a.deadband, a.on_delay_samples),
+            ("approach-high", 20.0, 2.0, 2)
+        );
+        assert_eq!(a.realarm_ms, Some(8 * 3_600_000));
+        let lts = &s.reactors[2].spec.watch;
+        assert_eq!(lts.drift.end_of_run_limit_k, Some(20.0));
+        assert_eq!(lts.alerts.end_of_run_within_days, Some(90.0));
+        // 20 barg on a 1.01325 bar atmosphere.
+        assert!((ref1.offline_below_bar.unwrap() - 21.01325).abs() < 1e-12);
+        // The methanator alarm is in ppm: 5 ppm = 5e-6 mole fraction.
+        let m = &s.reactors[3].spec.watch.alarms[0];
+        assert_eq!((m.config.limit, m.unit), (5.0, "ppm"));
+        assert!((m.scale - 1e6).abs() < 1e-6);
+        assert_eq!(s.commands.allowed_users, ["op-demo", "eng-demo"]);
+    }
 }
