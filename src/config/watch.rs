@@ -8,6 +8,7 @@ use serde::Deserialize;
 
 use crate::config::duration::{parse_duration, show_duration};
 use crate::config::error::Problems;
+use crate::config::raw::RawReactor;
 use crate::monitor::alarm::{AlarmConfig, Direction, Priority};
 use crate::monitor::watch::{AlarmSpec, BaselineSpec, Figure, TrendMethod, WatchSettings};
 use crate::units::{CompositionUnit, PressureUnit, split_quantity};
@@ -207,12 +208,15 @@ fn delay(p: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
 pub(super) fn watch(
     p: &mut Problems,
     path: &str,
-    drift: Option<&RawDrift>,
-    alerts: Option<&RawAlerts>,
-    alarms: &[RawAlarm],
-    offline_below: Option<&str>,
+    reactor: &RawReactor,
     atmosphere_bar: f64,
 ) -> WatchSettings {
+    let (drift, alerts, alarms, offline_below) = (
+        reactor.drift.as_ref(),
+        reactor.alerts.as_ref(),
+        &reactor.alarm[..],
+        reactor.offline_below.as_deref(),
+    );
     let mut s = WatchSettings::default();
     let raw = drift.cloned().unwrap_or_default();
     let d = &mut s.drift;

@@ -18,7 +18,7 @@ use crate::config::files::species_db;
 use crate::config::raw::{RawConfig, RawReactor};
 use crate::config::settings::Settings;
 use crate::config::validate::broker::{broker, journal};
-use crate::config::validate::reactor::reactor;
+use crate::config::validate::reactor::{ReactorEnv, reactor};
 use crate::units::{PressureUnit, STANDARD_ATMOSPHERE_BAR, split_quantity};
 
 pub(crate) fn validate(
@@ -91,16 +91,14 @@ pub(crate) fn validate(
             "no reactors; add at least one [reactors.<id>] table",
         );
     }
+    let env = ReactorEnv {
+        db: &species,
+        output_prefix: &topic_prefix,
+        atmosphere_bar,
+    };
     let mut reactors = Vec::with_capacity(ids.len());
     for (id, r) in ids {
-        if let Some(settings) = reactor(
-            &mut p,
-            &species,
-            &topic_prefix,
-            id.get_ref(),
-            r,
-            atmosphere_bar,
-        ) {
+        if let Some(settings) = reactor(&mut p, &env, id.get_ref(), r) {
             reactors.push(settings);
         }
     }

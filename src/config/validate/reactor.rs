@@ -11,7 +11,7 @@ use crate::config::validate::inputs::{
     steam_ratio, transient,
 };
 use crate::equilibrium::{EosKind, EquilibriumError, EquilibriumSystem};
-use crate::monitor::spec::{BedRiseSpec, ReactorSpec};
+use crate::monitor::spec::{AnalysisSpec, BedRiseSpec, ReactorSpec};
 use crate::monitor::watch::WatchSettings;
 use crate::thermo::ksource::{KModel, KSourceId};
 use crate::thermo::reaction::{Reaction, parse_reaction, unknown_hint};
@@ -116,23 +116,148 @@ fn equilibrium_error_path(reactor_path: &str, e: &EquilibriumError) -> String {
     }
 }
 
+/// What every reactor is validated against: the species data, the prefix of eqwatch's own
+/// topics (no input may use it) and the atmosphere for gauge pressures.
+pub(crate) struct ReactorEnv<'a> {
+    pub(crate) db: &'a SpeciesDb,
+    pub(crate) output_prefix: &'a str,
+    pub(crate) atmosphere_bar: f64,
+}
+
+/// The reactions of one reactor with their K sources; `ok` when every one was understood.
+struct Reactions {
+    list: Vec<(Reaction, KModel)>,
+    ok: bool,
+}
+
+/// The reactor's model options.
+struct ModelOptions {
+    eos: EosKind,
+    band_ln: f64,
+}
+
+/// Temperatures, pressure and steam ratio, as validated.
+struct ScalarInputs {
+    temperatures: Vec<ScalarSettings>,
+    pressure: ScalarSettings,
+    steam_ratio: Option<SteamRatioSettings>,
+}
+
 pub(crate) fn reactor(
     p: &mut Problems,
-    db: &SpeciesDb,
-    output_prefix: &str,
+    env: &ReactorEnv,
     id: &str,
     raw: &RawReactor,
-    atmosphere_bar: f64,
 ) -> Option<ReactorSettings> {
+    let db = env.db;
     let path = key_path("reactors", id);
     let start = p.len();
+    let name = reactor_name(p, &path, id, raw);
+    let reactions = reactions(p, db, &path, raw);
+    let options = model_options(p, &path, raw);
+    let transient_k_per_min = match raw.transient.as_deref() {
+        None => 2.0,
+        Some(t) => transient(p, &format!("{path}.transient"), t),
+    };
+    let uncertainty = uncertainty(p, &format!("{path}.uncertainty"), raw.uncertainty.as_ref());
+    let basis = analysis_basis(p, &path, raw);
+    let composition = composition(p, db, &path, &raw.composition, basis);
+    let inputs = scalar_inputs(p, &path, raw, basis);
+    check_input_topics(p, &path, raw, env.output_prefix);
+    let key_component = key_component(p, db, &path, raw, &reactions);
+
+    // The gas and the models.
+    let mut model = None;
+    let mut equilibrium = None;
+    if let (true, Some((comp, _, species))) = (reactions.ok, &composition) {
+        if let Some(gas) = gas_species(p, db, &path, (comp, species), &reactions.list) {
+            let inputs = ModelInputs {
+                reactions: &reactions.list,
+                gas: &gas,
+                options: &options,
+            };
+            (model, equilibrium) = models(p, db, &path, &inputs);
+        }
+    }
+
+    let mut watch = crate::config::watch::watch(p, &path, raw, env.atmosphere_bar);
+    let bed_rise = raw.bed_rise.as_ref().and_then(|b| {
+        bed_rise(
+            p,
+            &format!("{path}.bed_rise"),
+            b,
+            &inputs.temperatures,
+            &mut watch,
+        )
+    });
+    if p.len() > start {
+        return None;
+    }
+    let (
+        Some((composition, composition_source, _)),
+        Some(model),
+        Some(equilibrium),
+        Some(key_component),
+    ) = (composition, model, equilibrium, key_component)
+    else {
+        return None;
+    };
+    let reaction_labels = model
+        .reactions()
+        .iter()
+        .map(|t| t.reaction.canonical())
+        .collect();
+    let ScalarInputs {
+        temperatures,
+        pressure,
+        steam_ratio,
+    } = inputs;
+    let (reactions, eos) = (reactions.list, options.eos);
+    let (temperatures, temperature_sources): (Vec<_>, Vec<_>) =
+        temperatures.into_iter().map(ScalarSettings::split).unzip();
+    let (pressure, pressure_source) = pressure.split();
+    let (steam_ratio, steam_ratio_source) = match steam_ratio.map(SteamRatioSettings::split) {
+        Some((spec, source)) => (Some(spec), source),
+        None => (None, None),
+    };
+    Some(ReactorSettings {
+        spec: ReactorSpec {
+            id: id.to_string(),
+            name,
+            reactions,
+            eos,
+            model,
+            equilibrium,
+            key_component,
+            composition,
+            temperatures,
+            pressure,
+            steam_ratio,
+            uncertainty,
+            transient_k_per_min,
+            watch,
+            reaction_labels,
+            bed_rise,
+        },
+        wiring: Wiring {
+            composition: composition_source,
+            temperatures: temperature_sources,
+            pressure: pressure_source,
+            steam_ratio: steam_ratio_source,
+        },
+    })
+}
+
+/// The reactor's name (its id when none is given); the id must be fit for topics.
+fn reactor_name(p: &mut Problems, path: &str, id: &str, raw: &RawReactor) -> String {
+    let path = path.to_string();
     if id.is_empty() || !id.chars().all(is_name_char) {
         p.add(
             path.clone(),
             format!("reactor id \"{id}\" may use only letters, digits, `-` and `_` (it goes into topics)"),
         );
     }
-    let name = match &raw.name {
+    match &raw.name {
         None => id.to_string(),
         Some(n) if n.trim().is_empty() => {
             p.add(
@@ -142,9 +267,11 @@ pub(crate) fn reactor(
             String::new()
         }
         Some(n) => n.trim().to_string(),
-    };
+    }
+}
 
-    // Reactions and their K sources.
+/// The reactions and their K sources.
+fn reactions(p: &mut Problems, db: &SpeciesDb, path: &str, raw: &RawReactor) -> Reactions {
     let reactions_start = p.len();
     let mut reactions: Vec<(Reaction, KModel)> = Vec::with_capacity(raw.reactions.len());
     if raw.reactions.is_empty() {
@@ -176,8 +303,14 @@ pub(crate) fn reactor(
             Err(e) => p.add(format!("{rpath}.k_source"), e.to_string()),
         }
     }
-    let reactions_ok = p.len() == reactions_start;
+    Reactions {
+        ok: p.len() == reactions_start,
+        list: reactions,
+    }
+}
 
+/// The equation of state and the band of |ln(Q/K)| counted as at equilibrium.
+fn model_options(p: &mut Problems, path: &str, raw: &RawReactor) -> ModelOptions {
     let eos = match raw.eos.as_deref() {
         None => EosKind::Ideal,
         Some(s) => EosKind::parse(s).unwrap_or_else(|| {
@@ -201,15 +334,13 @@ pub(crate) fn reactor(
             DEFAULT_BAND_LN
         }
     };
-    let transient_k_per_min = match raw.transient.as_deref() {
-        None => 2.0,
-        Some(t) => transient(p, &format!("{path}.transient"), t),
-    };
-    let uncertainty = uncertainty(p, &format!("{path}.uncertainty"), raw.uncertainty.as_ref());
+    ModelOptions { eos, band_ln }
+}
 
-    // The analysis.
+/// The analysis's basis, dry or wet (required).
+fn analysis_basis(p: &mut Problems, path: &str, raw: &RawReactor) -> Option<Basis> {
     let cpath = format!("{path}.composition");
-    let basis = match raw.composition.basis.as_deref() {
+    match raw.composition.basis.as_deref() {
         None => {
             p.add(
                 format!("{cpath}.basis"),
@@ -227,10 +358,16 @@ pub(crate) fn reactor(
             }
             parsed
         }
-    };
-    let composition = composition(p, db, &path, &raw.composition, basis);
+    }
+}
 
-    // Scalar inputs.
+/// Temperatures (at least one), the pressure and, for a dry basis, the steam ratio.
+fn scalar_inputs(
+    p: &mut Problems,
+    path: &str,
+    raw: &RawReactor,
+    basis: Option<Basis>,
+) -> ScalarInputs {
     if raw.temperature.is_empty() {
         p.add(
             format!("{path}.temperature"),
@@ -275,8 +412,17 @@ pub(crate) fn reactor(
         (Some(Basis::Dry), Some(s)) => steam_ratio(p, &spath, s),
         _ => None,
     };
+    ScalarInputs {
+        temperatures,
+        pressure,
+        steam_ratio,
+    }
+}
 
-    // Topics: valid, and no two inputs of this reactor on one topic.
+/// Topics: valid, and no two inputs of this reactor on one topic.
+fn check_input_topics(p: &mut Problems, path: &str, raw: &RawReactor, output_prefix: &str) {
+    let cpath = format!("{path}.composition");
+    let spath = format!("{path}.steam_ratio");
     let mut topics: Vec<(String, &str)> = Vec::new();
     if let Some(t) = &raw.composition.topic {
         topics.push((format!("{cpath}.topic"), t));
@@ -304,9 +450,19 @@ pub(crate) fn reactor(
             );
         }
     }
+}
 
-    // Key component.
-    let key_component = match (&raw.key_component, reactions.first()) {
+/// The key component: the one given, else the reactions' default.
+fn key_component(
+    p: &mut Problems,
+    db: &SpeciesDb,
+    path: &str,
+    raw: &RawReactor,
+    reactions: &Reactions,
+) -> Option<usize> {
+    let reactions_ok = reactions.ok;
+    let reactions = &reactions.list;
+    match (&raw.key_component, reactions.first()) {
         (Some(k), _) => match db.index_of(k.trim()) {
             None => {
                 p.add(
@@ -326,119 +482,80 @@ pub(crate) fn reactor(
         },
         (None, Some((r, _))) => Some(default_key(r)),
         (None, None) => None,
-    };
+    }
+}
 
-    // The gas and the models.
-    let mut model = None;
-    let mut equilibrium = None;
-    if let (true, Some((comp, _, species))) = (reactions_ok, &composition) {
-        let mut gas = species.clone();
-        if comp.basis == Basis::Dry {
-            match db.index_of("H2O") {
-                Some(w) => gas.push(w),
-                None => p.add(
-                    format!("{cpath}.basis"),
-                    "a dry basis needs H2O in the species library",
-                ),
-            }
+/// The gas the models see: the analysed species, plus water on a dry basis; `None` (with
+/// problems) when a species of the reactions is not analysed.
+fn gas_species(
+    p: &mut Problems,
+    db: &SpeciesDb,
+    path: &str,
+    (comp, species): (&AnalysisSpec, &[usize]),
+    reactions: &[(Reaction, KModel)],
+) -> Option<Vec<usize>> {
+    let cpath = format!("{path}.composition");
+    let mut gas = species.to_vec();
+    if comp.basis == Basis::Dry {
+        match db.index_of("H2O") {
+            Some(w) => gas.push(w),
+            None => p.add(
+                format!("{cpath}.basis"),
+                "a dry basis needs H2O in the species library",
+            ),
         }
-        let before = p.len();
-        for (r, _) in &reactions {
-            for (s, n) in r.species.iter().zip(&r.names) {
-                if !gas.contains(s) {
-                    let hint = if comp.basis == Basis::Wet && n == "H2O" {
-                        " (a wet analysis reports its own water)"
-                    } else {
-                        ""
-                    };
-                    p.add(
-                        format!("{cpath}.components"),
-                        format!(
-                            "{n}, a species of `{}`, is not analysed; add it{hint}",
-                            r.text
-                        ),
-                    );
-                }
-            }
-        }
-        if p.len() == before {
-            match ReactorModel::new(db, reactions.clone(), &gas, eos, None) {
-                Ok(mut m) => {
-                    m.band_ln = band_ln;
-                    model = Some(m);
-                }
-                Err(e) => p.add(model_error_path(&path, &e), e.to_string()),
-            }
-            match EquilibriumSystem::from_reactions(db, &reactions, &gas, eos, None) {
-                Ok(s) => equilibrium = Some(s),
-                Err(e) => p.add(equilibrium_error_path(&path, &e), e.to_string()),
+    }
+    let before = p.len();
+    for (r, _) in reactions {
+        for (s, n) in r.species.iter().zip(&r.names) {
+            if !gas.contains(s) {
+                let hint = if comp.basis == Basis::Wet && n == "H2O" {
+                    " (a wet analysis reports its own water)"
+                } else {
+                    ""
+                };
+                p.add(
+                    format!("{cpath}.components"),
+                    format!(
+                        "{n}, a species of `{}`, is not analysed; add it{hint}",
+                        r.text
+                    ),
+                );
             }
         }
     }
+    (p.len() == before).then_some(gas)
+}
 
-    let mut watch = crate::config::watch::watch(
-        p,
-        &path,
-        raw.drift.as_ref(),
-        raw.alerts.as_ref(),
-        &raw.alarm,
-        raw.offline_below.as_deref(),
-        atmosphere_bar,
-    );
-    let bed_rise = raw
-        .bed_rise
-        .as_ref()
-        .and_then(|b| bed_rise(p, &format!("{path}.bed_rise"), b, &temperatures, &mut watch));
-    if p.len() > start {
-        return None;
+/// What the models are built from.
+struct ModelInputs<'a> {
+    reactions: &'a [(Reaction, KModel)],
+    gas: &'a [usize],
+    options: &'a ModelOptions,
+}
+
+/// The reactor model and the equilibrium system over the gas.
+fn models(
+    p: &mut Problems,
+    db: &SpeciesDb,
+    path: &str,
+    inputs: &ModelInputs,
+) -> (Option<ReactorModel>, Option<EquilibriumSystem>) {
+    let (reactions, gas) = (inputs.reactions, inputs.gas);
+    let (eos, band_ln) = (inputs.options.eos, inputs.options.band_ln);
+    let (mut model, mut equilibrium) = (None, None);
+    match ReactorModel::new(db, reactions.to_vec(), gas, eos, None) {
+        Ok(mut m) => {
+            m.band_ln = band_ln;
+            model = Some(m);
+        }
+        Err(e) => p.add(model_error_path(path, &e), e.to_string()),
     }
-    let (
-        Some((composition, composition_source, _)),
-        Some(model),
-        Some(equilibrium),
-        Some(key_component),
-    ) = (composition, model, equilibrium, key_component)
-    else {
-        return None;
-    };
-    let reaction_labels = model
-        .reactions()
-        .iter()
-        .map(|t| t.reaction.canonical())
-        .collect();
-    let (temperatures, temperature_sources): (Vec<_>, Vec<_>) =
-        temperatures.into_iter().map(ScalarSettings::split).unzip();
-    let (pressure, pressure_source) = pressure.split();
-    let (steam_ratio, steam_ratio_source) = match steam_ratio.map(SteamRatioSettings::split) {
-        Some((spec, source)) => (Some(spec), source),
-        None => (None, None),
-    };
-    Some(ReactorSettings {
-        spec: ReactorSpec {
-            id: id.to_string(),
-            name,
-            reactions,
-            eos,
-            model,
-            equilibrium,
-            key_component,
-            composition,
-            temperatures,
-            pressure,
-            steam_ratio,
-            uncertainty,
-            transient_k_per_min,
-            watch,
-            reaction_labels,
-            bed_rise,
-        },
-        wiring: Wiring {
-            composition: composition_source,
-            temperatures: temperature_sources,
-            pressure: pressure_source,
-            steam_ratio: steam_ratio_source,
-        },
-    })
+    match EquilibriumSystem::from_reactions(db, reactions, gas, eos, None) {
+        Ok(s) => equilibrium = Some(s),
+        Err(e) => p.add(equilibrium_error_path(path, &e), e.to_string()),
+    }
+    (model, equilibrium)
 }
 
 pub(crate) fn bed_rise(
