@@ -100,7 +100,38 @@ pub(crate) fn broker(
     env: EnvLookup,
 ) -> BrokerSettings {
     let (tls, host, port) = broker_url(p, &raw.url);
-    let protocol = match raw.protocol.as_deref().map(str::trim) {
+    let protocol = protocol(p, raw);
+    let client_id = client_id(p, raw, site, protocol);
+    let keep_alive = keep_alive(p, raw);
+    let session_expiry = session_expiry(p, raw);
+    let (username, password) = credentials(p, raw, base, env, protocol);
+    let [ca_file, client_cert_file, client_key_file] = tls_files(p, raw, base, tls);
+    let max_packet_bytes = max_packet_bytes(p, raw);
+    let (reconnect_min, reconnect_max) = reconnect_waits(p, raw);
+    let inflight = inflight(p, raw);
+    BrokerSettings {
+        host,
+        port,
+        tls,
+        client_id,
+        protocol,
+        keep_alive,
+        session_expiry,
+        username,
+        password,
+        ca_file,
+        client_cert_file,
+        client_key_file,
+        max_packet_bytes,
+        reconnect_min,
+        reconnect_max,
+        inflight,
+    }
+}
+
+/// `broker.protocol`: MQTT 3.1.1 (the default); 5 is refused by this build.
+fn protocol(p: &mut Problems, raw: &RawBroker) -> MqttProtocol {
+    match raw.protocol.as_deref().map(str::trim) {
         None | Some("3.1.1") | Some("311") => MqttProtocol::V311,
         Some("5") | Some("5.0") => {
             p.add(
@@ -116,7 +147,11 @@ pub(crate) fn broker(
             );
             MqttProtocol::V311
         }
-    };
+    }
+}
+
+/// `broker.client_id`, by default `eqwatch-<site>`, within what the protocol allows.
+fn client_id(p: &mut Problems, raw: &RawBroker, site: &str, protocol: MqttProtocol) -> String {
     let client_id = raw
         .client_id
         .clone()
@@ -144,6 +179,11 @@ pub(crate) fn broker(
     } else if client_id.len() > 65_535 {
         p.add(id_path, "is longer than MQTT allows (65535 bytes)");
     }
+    client_id
+}
+
+/// `broker.keep_alive`: whole seconds from 5 s to 65535 s.
+fn keep_alive(p: &mut Problems, raw: &RawBroker) -> Duration {
     // rumqttc 0.25.1 asserts keep-alive >= 5 s for MQTT 5 (src/v5/mod.rs
     // `MqttOptions::set_keep_alive`) and sends whole seconds as u16 in both protocols
     // (src/eventloop.rs, src/v5/eventloop.rs: `as_secs() as u16`).
@@ -172,6 +212,11 @@ pub(crate) fn broker(
             ),
         );
     }
+    keep_alive
+}
+
+/// `broker.session_expiry`: whole seconds, zero (no persistent session) by default.
+fn session_expiry(p: &mut Problems, raw: &RawBroker) -> Duration {
     let session_expiry = duration_at(
         p,
         "broker.session_expiry",
@@ -198,6 +243,17 @@ pub(crate) fn broker(
             ),
         );
     }
+    session_expiry
+}
+
+/// `broker.username` and the password from `password_file` or `password_env` (not both).
+fn credentials(
+    p: &mut Problems,
+    raw: &RawBroker,
+    base: &Path,
+    env: EnvLookup,
+    protocol: MqttProtocol,
+) -> (Option<String>, Option<String>) {
     let username = match &raw.username {
         Some(u) if u.is_empty() => {
             p.add(
@@ -261,6 +317,12 @@ pub(crate) fn broker(
             "missing; MQTT 3.1.1 sends a password only with a user name",
         );
     }
+    (username, password)
+}
+
+/// `broker.ca_file`, `client_cert_file` and `client_key_file`: readable, only for mqtts://,
+/// a certificate and its key together.
+fn tls_files(p: &mut Problems, raw: &RawBroker, base: &Path, tls: bool) -> [Option<PathBuf>; 3] {
     let mut tls_file = |key: &str, given: &Option<String>| -> Option<PathBuf> {
         let given = given.as_ref()?;
         let path = format!("broker.{key}");
@@ -289,9 +351,14 @@ pub(crate) fn broker(
             _ => {}
         }
     }
+    [ca_file, client_cert_file, client_key_file]
+}
+
+/// `broker.max_packet_bytes`: 1 KiB to 256 MiB, 256 KiB by default.
+fn max_packet_bytes(p: &mut Problems, raw: &RawBroker) -> usize {
     const MIN_PACKET: i64 = 1024;
     const MAX_PACKET: i64 = 256 * 1024 * 1024;
-    let max_packet_bytes = match raw.max_packet_bytes {
+    match raw.max_packet_bytes {
         None => 256 * 1024,
         Some(n) if (MIN_PACKET..=MAX_PACKET).contains(&n) => n as usize,
         Some(n) => {
@@ -303,7 +370,11 @@ pub(crate) fn broker(
             );
             256 * 1024
         }
-    };
+    }
+}
+
+/// `broker.reconnect_min` and `reconnect_max`: above zero, the first not above the longest.
+fn reconnect_waits(p: &mut Problems, raw: &RawBroker) -> (Duration, Duration) {
     let reconnect_min = duration_at(
         p,
         "broker.reconnect_min",
@@ -330,7 +401,12 @@ pub(crate) fn broker(
             ),
         );
     }
-    let inflight = match raw.inflight {
+    (reconnect_min, reconnect_max)
+}
+
+/// `broker.inflight`: 1 to 65535, 64 by default.
+fn inflight(p: &mut Problems, raw: &RawBroker) -> u16 {
+    match raw.inflight {
         None => 64,
         Some(n) => match u16::try_from(n) {
             Ok(v) if v > 0 => v,
@@ -342,24 +418,6 @@ pub(crate) fn broker(
                 64
             }
         },
-    };
-    BrokerSettings {
-        host,
-        port,
-        tls,
-        client_id,
-        protocol,
-        keep_alive,
-        session_expiry,
-        username,
-        password,
-        ca_file,
-        client_cert_file,
-        client_key_file,
-        max_packet_bytes,
-        reconnect_min,
-        reconnect_max,
-        inflight,
     }
 }
 
