@@ -275,153 +275,9 @@ pub(crate) fn composition(
             CompositionUnit::Percent
         }),
     };
-    let water = db.index_of("H2O");
-    let mut species: Vec<usize> = Vec::new();
-    if raw.components.is_empty() {
-        p.add(
-            format!("{path}.components"),
-            "no components; list the species the analyser reports, e.g. [\"H2\", \"N2\", \"CO\"]",
-        );
-    }
-    for (i, c) in raw.components.iter().enumerate() {
-        let ipath = format!("{path}.components[{i}]");
-        match db.index_of(c.trim()) {
-            None => p.add(
-                ipath,
-                format!("unknown species \"{c}\"{}", unknown_hint(db, c.trim())),
-            ),
-            Some(s) if species.contains(&s) => {
-                p.add(ipath, format!("{} is listed twice", db.get(s).name));
-            }
-            Some(s) => {
-                if basis == Some(Basis::Dry) && Some(s) == water {
-                    p.add(
-                        ipath,
-                        "H2O on a dry-basis analysis; a dry analyser sees the gas after its water is knocked out: remove H2O and give the water as steam_ratio",
-                    );
-                }
-                species.push(s);
-            }
-        }
-    }
-    let names: Vec<String> = species.iter().map(|&s| db.get(s).name.clone()).collect();
-    let scalar_keys = PointerKeys {
-        value: raw.value_pointer.as_deref(),
-        ts: raw.ts_pointer.as_deref(),
-        quality: raw.quality_pointer.as_deref(),
-        unit: raw.unit_pointer.as_deref(),
-    };
-    let source = match (&raw.topic, &raw.topics) {
-        (Some(_), Some(_)) => {
-            p.add(
-                path.clone(),
-                "give topic (one analyser message with every component) or topics (one topic per component), not both",
-            );
-            None
-        }
-        (None, None) => {
-            p.add(
-                format!("{path}.topic"),
-                "missing; give topic = \"...\" (one message with every component) or topics = { H2 = \"...\", ... } (one per component)",
-            );
-            None
-        }
-        (Some(topic), None) => {
-            for (key, given) in [
-                ("decoder", &raw.decoder),
-                ("value_pointer", &raw.value_pointer),
-            ] {
-                if given.is_some() {
-                    p.add(
-                        format!("{path}.{key}"),
-                        "only with topics (one topic per component); an analyser message is JSON with values_pointer",
-                    );
-                }
-            }
-            Some(CompositionSource::Analyser {
-                topic: topic.clone(),
-                values_pointer: pointer(
-                    p,
-                    format!("{path}.values_pointer"),
-                    raw.values_pointer.as_deref(),
-                    "/values",
-                    false,
-                )
-                .unwrap_or_else(|| "/values".to_string()),
-                ts_pointer: pointer(p, format!("{path}.ts_pointer"), scalar_keys.ts, "/ts", true),
-                unit_pointer: pointer(
-                    p,
-                    format!("{path}.unit_pointer"),
-                    scalar_keys.unit,
-                    "/unit",
-                    true,
-                ),
-                basis_pointer: pointer(
-                    p,
-                    format!("{path}.basis_pointer"),
-                    raw.basis_pointer.as_deref(),
-                    "/basis",
-                    true,
-                ),
-                quality_pointer: pointer(
-                    p,
-                    format!("{path}.quality_pointer"),
-                    scalar_keys.quality,
-                    "/quality",
-                    true,
-                ),
-            })
-        }
-        (None, Some(map)) => {
-            for (key, given) in [
-                ("values_pointer", &raw.values_pointer),
-                ("basis_pointer", &raw.basis_pointer),
-            ] {
-                if given.is_some() {
-                    p.add(
-                        format!("{path}.{key}"),
-                        "only with topic (one analyser message with every component)",
-                    );
-                }
-            }
-            let decoder = decoder(p, &path, raw.decoder.as_deref(), scalar_keys);
-            let mut by_species: Vec<(usize, &String)> = Vec::new();
-            for (name, topic) in map {
-                let kpath = key_path(&format!("{path}.topics"), name);
-                match db.index_of(name.trim()) {
-                    None => p.add(
-                        kpath,
-                        format!(
-                            "unknown species \"{name}\"{}",
-                            unknown_hint(db, name.trim())
-                        ),
-                    ),
-                    Some(s) if by_species.iter().any(|(x, _)| *x == s) => {
-                        p.add(kpath, format!("{} has two topics", db.get(s).name));
-                    }
-                    Some(s) if !species.contains(&s) => p.add(
-                        kpath,
-                        format!(
-                            "{} is not in {path}.components; add it there or remove its topic",
-                            db.get(s).name
-                        ),
-                    ),
-                    Some(s) => by_species.push((s, topic)),
-                }
-            }
-            let mut topics = Vec::with_capacity(species.len());
-            for (&s, name) in species.iter().zip(&names) {
-                match by_species.iter().find(|(x, _)| *x == s) {
-                    Some((_, t)) => topics.push((name.clone(), (*t).clone())),
-                    None => p.add(
-                        format!("{path}.topics"),
-                        format!("no topic for {name}; every component needs one"),
-                    ),
-                }
-            }
-            Some(CompositionSource::PerComponent { topics, decoder })
-        }
-    };
+    let comps = components(p, db, &path, raw, basis);
+    let source = analysis_source(p, db, &path, raw, &comps);
+    let Components { species, names } = comps;
     let tag = match (&raw.tag, &source) {
         (Some(t), _) if t.trim().is_empty() => {
             p.add(format!("{path}.tag"), "is empty; give the analyser tag");
@@ -454,28 +310,7 @@ pub(crate) fn composition(
         NANOSECOND,
         "an analysis is stale after this",
     );
-    let mut detection_limits = vec![None; names.len()];
-    for (sp, text) in raw.detection_limits.iter().flatten() {
-        let key = key_path(&format!("{path}.detection_limits"), sp);
-        let Some(i) = names.iter().position(|n| n.eq_ignore_ascii_case(sp.trim())) else {
-            p.add(
-                key,
-                format!(
-                    "\"{sp}\" is not one of this analyser's components ({})",
-                    names.join(", ")
-                ),
-            );
-            continue;
-        };
-        match composition_amount("detection limit", text) {
-            Ok(f) if f > 0.0 && f < 1.0 => detection_limits[i] = Some(f),
-            Ok(_) => p.add(
-                key,
-                format!("\"{text}\" must be above zero and below 100 mol%"),
-            ),
-            Err(m) => p.add(key, m),
-        }
-    }
+    let detection_limits = detection_limits(p, &path, raw, &names);
     let (Some(source), Some(basis)) = (source, basis) else {
         return None;
     };
@@ -501,6 +336,238 @@ pub(crate) fn composition(
         source,
         species,
     ))
+}
+
+/// The species an analyser reports, and their names as in the species data.
+struct Components {
+    species: Vec<usize>,
+    names: Vec<String>,
+}
+
+/// `components`: known species, each once, no water on a dry basis.
+fn components(
+    p: &mut Problems,
+    db: &SpeciesDb,
+    path: &str,
+    raw: &RawComposition,
+    basis: Option<Basis>,
+) -> Components {
+    let water = db.index_of("H2O");
+    let mut species: Vec<usize> = Vec::new();
+    if raw.components.is_empty() {
+        p.add(
+            format!("{path}.components"),
+            "no components; list the species the analyser reports, e.g. [\"H2\", \"N2\", \"CO\"]",
+        );
+    }
+    for (i, c) in raw.components.iter().enumerate() {
+        let ipath = format!("{path}.components[{i}]");
+        match db.index_of(c.trim()) {
+            None => p.add(
+                ipath,
+                format!("unknown species \"{c}\"{}", unknown_hint(db, c.trim())),
+            ),
+            Some(s) if species.contains(&s) => {
+                p.add(ipath, format!("{} is listed twice", db.get(s).name));
+            }
+            Some(s) => {
+                if basis == Some(Basis::Dry) && Some(s) == water {
+                    p.add(
+                        ipath,
+                        "H2O on a dry-basis analysis; a dry analyser sees the gas after its water is knocked out: remove H2O and give the water as steam_ratio",
+                    );
+                }
+                species.push(s);
+            }
+        }
+    }
+    let names: Vec<String> = species.iter().map(|&s| db.get(s).name.clone()).collect();
+    Components { species, names }
+}
+
+/// The JSON Pointers of a per-component (scalar) message.
+fn scalar_keys(raw: &RawComposition) -> PointerKeys<'_> {
+    PointerKeys {
+        value: raw.value_pointer.as_deref(),
+        ts: raw.ts_pointer.as_deref(),
+        quality: raw.quality_pointer.as_deref(),
+        unit: raw.unit_pointer.as_deref(),
+    }
+}
+
+/// Where the analysis comes from: one analyser message (`topic`) or one topic per component
+/// (`topics`), exactly one of them.
+fn analysis_source(
+    p: &mut Problems,
+    db: &SpeciesDb,
+    path: &str,
+    raw: &RawComposition,
+    comps: &Components,
+) -> Option<CompositionSource> {
+    let path = path.to_string();
+    match (&raw.topic, &raw.topics) {
+        (Some(_), Some(_)) => {
+            p.add(
+                path.clone(),
+                "give topic (one analyser message with every component) or topics (one topic per component), not both",
+            );
+            None
+        }
+        (None, None) => {
+            p.add(
+                format!("{path}.topic"),
+                "missing; give topic = \"...\" (one message with every component) or topics = { H2 = \"...\", ... } (one per component)",
+            );
+            None
+        }
+        (Some(topic), None) => Some(analyser_source(p, &path, raw, topic)),
+        (None, Some(_)) => Some(per_component_source(p, db, &path, raw, comps)),
+    }
+}
+
+/// One analyser message with every component, and its JSON Pointers.
+fn analyser_source(
+    p: &mut Problems,
+    path: &str,
+    raw: &RawComposition,
+    topic: &str,
+) -> CompositionSource {
+    let scalar_keys = scalar_keys(raw);
+    for (key, given) in [
+        ("decoder", &raw.decoder),
+        ("value_pointer", &raw.value_pointer),
+    ] {
+        if given.is_some() {
+            p.add(
+                format!("{path}.{key}"),
+                "only with topics (one topic per component); an analyser message is JSON with values_pointer",
+            );
+        }
+    }
+    CompositionSource::Analyser {
+        topic: topic.to_string(),
+        values_pointer: pointer(
+            p,
+            format!("{path}.values_pointer"),
+            raw.values_pointer.as_deref(),
+            "/values",
+            false,
+        )
+        .unwrap_or_else(|| "/values".to_string()),
+        ts_pointer: pointer(p, format!("{path}.ts_pointer"), scalar_keys.ts, "/ts", true),
+        unit_pointer: pointer(
+            p,
+            format!("{path}.unit_pointer"),
+            scalar_keys.unit,
+            "/unit",
+            true,
+        ),
+        basis_pointer: pointer(
+            p,
+            format!("{path}.basis_pointer"),
+            raw.basis_pointer.as_deref(),
+            "/basis",
+            true,
+        ),
+        quality_pointer: pointer(
+            p,
+            format!("{path}.quality_pointer"),
+            scalar_keys.quality,
+            "/quality",
+            true,
+        ),
+    }
+}
+
+/// One topic per component, each component with its topic, and their decoder.
+fn per_component_source(
+    p: &mut Problems,
+    db: &SpeciesDb,
+    path: &str,
+    raw: &RawComposition,
+    comps: &Components,
+) -> CompositionSource {
+    let (species, names) = (&comps.species, &comps.names);
+    let scalar_keys = scalar_keys(raw);
+    for (key, given) in [
+        ("values_pointer", &raw.values_pointer),
+        ("basis_pointer", &raw.basis_pointer),
+    ] {
+        if given.is_some() {
+            p.add(
+                format!("{path}.{key}"),
+                "only with topic (one analyser message with every component)",
+            );
+        }
+    }
+    let decoder = decoder(p, path, raw.decoder.as_deref(), scalar_keys);
+    let mut by_species: Vec<(usize, &String)> = Vec::new();
+    for (name, topic) in raw.topics.iter().flatten() {
+        let kpath = key_path(&format!("{path}.topics"), name);
+        match db.index_of(name.trim()) {
+            None => p.add(
+                kpath,
+                format!(
+                    "unknown species \"{name}\"{}",
+                    unknown_hint(db, name.trim())
+                ),
+            ),
+            Some(s) if by_species.iter().any(|(x, _)| *x == s) => {
+                p.add(kpath, format!("{} has two topics", db.get(s).name));
+            }
+            Some(s) if !species.contains(&s) => p.add(
+                kpath,
+                format!(
+                    "{} is not in {path}.components; add it there or remove its topic",
+                    db.get(s).name
+                ),
+            ),
+            Some(s) => by_species.push((s, topic)),
+        }
+    }
+    let mut topics = Vec::with_capacity(species.len());
+    for (&s, name) in species.iter().zip(names) {
+        match by_species.iter().find(|(x, _)| *x == s) {
+            Some((_, t)) => topics.push((name.clone(), (*t).clone())),
+            None => p.add(
+                format!("{path}.topics"),
+                format!("no topic for {name}; every component needs one"),
+            ),
+        }
+    }
+    CompositionSource::PerComponent { topics, decoder }
+}
+
+/// `detection_limits`: per component, above zero and below 100 mol%.
+fn detection_limits(
+    p: &mut Problems,
+    path: &str,
+    raw: &RawComposition,
+    names: &[String],
+) -> Vec<Option<f64>> {
+    let mut detection_limits = vec![None; names.len()];
+    for (sp, text) in raw.detection_limits.iter().flatten() {
+        let key = key_path(&format!("{path}.detection_limits"), sp);
+        let Some(i) = names.iter().position(|n| n.eq_ignore_ascii_case(sp.trim())) else {
+            p.add(
+                key,
+                format!(
+                    "\"{sp}\" is not one of this analyser's components ({})",
+                    names.join(", ")
+                ),
+            );
+            continue;
+        };
+        match composition_amount("detection limit", text) {
+            Ok(f) if f > 0.0 && f < 1.0 => detection_limits[i] = Some(f),
+            Ok(_) => p.add(
+                key,
+                format!("\"{text}\" must be above zero and below 100 mol%"),
+            ),
+            Err(m) => p.add(key, m),
+        }
+    }
+    detection_limits
 }
 
 /// An amount of a component such as `"2 mol%"` or `"0.5 ppm"`, as a mole fraction.
