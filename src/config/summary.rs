@@ -5,9 +5,11 @@ use std::path::PathBuf;
 use crate::composition::Basis;
 use crate::config::duration::show_duration;
 use crate::config::settings::{
-    CompositionSource, MqttProtocol, ScalarDecoder, ScalarSource, Settings,
+    BrokerSettings, CompositionSource, MqttProtocol, ReactorSettings, ScalarDecoder, ScalarSource,
+    Settings, Wiring,
 };
-use crate::monitor::spec::{InputSpec, SteamRatioSpec};
+use crate::monitor::spec::{InputSpec, ReactorSpec, SteamRatioSpec};
+use crate::thermo::species::SpeciesDb;
 use crate::units::{PressureUnit, ScalarUnit, TemperatureUnit};
 
 /// The temperature the summary quotes every K at, so reactors compare at a glance.
@@ -101,210 +103,258 @@ fn show_k(k: f64) -> String {
 /// 700 K (one temperature for all, so reactors compare at a glance), equation of
 /// state, basis, inputs and key component.
 pub fn summary(settings: &Settings) -> String {
-    let s = settings;
-    let b = &s.broker;
-    let mut out: Vec<String> = Vec::new();
-    let mut row = |label: &str, text: String| out.push(format!("{label:<14}{text}"));
-    row("site", s.site.clone());
-    let protocol = match b.protocol {
+    let mut rows = Rows(Vec::new());
+    rows.row("site", settings.site.clone());
+    broker_rows(&mut rows, &settings.broker);
+    plant_rows(&mut rows, settings);
+    for reactor in &settings.reactors {
+        reactor_rows(&mut rows, &settings.species, reactor);
+    }
+    if !settings.commands.allowed_users.is_empty() || !settings.commands.allowed_clients.is_empty()
+    {
+        rows.row(
+            "commands",
+            format!(
+                "from users [{}], client ids [{}]",
+                settings.commands.allowed_users.join(", "),
+                settings.commands.allowed_clients.join(", ")
+            ),
+        );
+    }
+    let mut text = rows.0.join("\n");
+    text.push('\n');
+    text
+}
+
+/// The summary's lines: a label column 14 characters wide, then the text.
+struct Rows(Vec<String>);
+
+impl Rows {
+    fn row(&mut self, label: &str, text: String) {
+        self.0.push(format!("{label:<14}{text}"));
+    }
+}
+
+/// The broker: URL, protocol and client id, session and login, limits, TLS files.
+fn broker_rows(rows: &mut Rows, broker: &BrokerSettings) {
+    let protocol = match broker.protocol {
         MqttProtocol::V311 => "MQTT 3.1.1",
         MqttProtocol::V5 => "MQTT 5",
     };
-    let scheme = if b.tls { "mqtts" } else { "mqtt" };
-    let host = if b.host.contains(':') {
-        format!("[{}]", b.host)
+    let scheme = if broker.tls { "mqtts" } else { "mqtt" };
+    let host = if broker.host.contains(':') {
+        format!("[{}]", broker.host)
     } else {
-        b.host.clone()
+        broker.host.clone()
     };
-    row(
+    rows.row(
         "broker",
         format!(
             "{scheme}://{host}:{}, {protocol}, client id {}",
-            b.port, b.client_id
+            broker.port, broker.client_id
         ),
     );
-    let session = if b.session_expiry.is_zero() {
+    let session = if broker.session_expiry.is_zero() {
         "clean session".to_string()
     } else {
-        format!("session kept {}", show_duration(b.session_expiry))
+        format!("session kept {}", show_duration(broker.session_expiry))
     };
-    let login = match (&b.username, &b.password) {
+    let login = match (&broker.username, &broker.password) {
         (Some(u), Some(_)) => format!("user {u} with a password"),
         (Some(u), None) => format!("user {u}, no password"),
         (None, Some(_)) => "a password, no user name".to_string(),
         (None, None) => "anonymous".to_string(),
     };
-    row(
+    rows.row(
         "",
         format!(
             "keep-alive {}, {session}, {login}",
-            show_duration(b.keep_alive)
+            show_duration(broker.keep_alive)
         ),
     );
-    row(
+    rows.row(
         "",
         format!(
             "packets up to {}, {} in flight, reconnect after {} to {}",
-            show_bytes(b.max_packet_bytes as u64),
-            b.inflight,
-            show_duration(b.reconnect_min),
-            show_duration(b.reconnect_max)
+            show_bytes(broker.max_packet_bytes as u64),
+            broker.inflight,
+            show_duration(broker.reconnect_min),
+            show_duration(broker.reconnect_max)
         ),
     );
-    if b.tls {
+    if broker.tls {
         let file = |f: &Option<PathBuf>| {
             f.as_ref()
                 .map_or("none".to_string(), |p| p.display().to_string())
         };
-        row(
+        rows.row(
             "",
             format!(
                 "tls: ca {}, client certificate {}",
-                file(&b.ca_file),
-                file(&b.client_cert_file)
+                file(&broker.ca_file),
+                file(&broker.client_cert_file)
             ),
         );
     }
-    row("results", format!("{}/<reactor>/...", s.topic_prefix));
-    let j = &s.journal;
-    row(
+}
+
+/// Where results and the journal go, the HTTP listener, the atmosphere, the species.
+fn plant_rows(rows: &mut Rows, settings: &Settings) {
+    rows.row(
+        "results",
+        format!("{}/<reactor>/...", settings.topic_prefix),
+    );
+    let journal = &settings.journal;
+    rows.row(
         "journal",
         format!(
             "{} (files up to {}, {} in all, fsync every {})",
-            j.dir.display(),
-            show_bytes(j.max_file_bytes),
-            show_bytes(j.max_total_bytes),
-            show_duration(j.fsync_interval)
+            journal.dir.display(),
+            show_bytes(journal.max_file_bytes),
+            show_bytes(journal.max_total_bytes),
+            show_duration(journal.fsync_interval)
         ),
     );
-    row(
+    rows.row(
         "http",
-        s.http_listen.map_or("off".to_string(), |a| a.to_string()),
+        settings
+            .http_listen
+            .map_or("off".to_string(), |a| a.to_string()),
     );
-    row(
+    rows.row(
         "atmosphere",
         format!(
             "{} bar absolute (added to gauge readings)",
-            show_number(s.atmosphere_bar)
+            show_number(settings.atmosphere_bar)
         ),
     );
-    row("species", format!("{} in the library", s.species.len()));
-    for settings in &s.reactors {
-        let (r, w) = (&settings.spec, &settings.wiring);
-        row("", String::new());
-        row("reactor", format!("{}: {}", r.id, r.name));
-        for (reaction, k) in &r.reactions {
-            let (lo, hi) = k.valid_range_k();
-            let ln_k = k.ln_k(SUMMARY_T_K);
-            let outside = if k.in_range(SUMMARY_T_K) {
-                ""
-            } else {
-                " (outside the source's range)"
-            };
-            row("  reaction", reaction.canonical());
-            row(
-                "",
-                format!(
-                    "K from {} (valid {lo:.0} to {hi:.0} K); at {SUMMARY_T_K:.0} K ln K = {ln_k:.3}, K = {}{outside}",
-                    k.id().as_str(),
-                    show_k(ln_k.exp())
-                ),
-            );
-        }
-        row(
-            "  eos",
-            format!(
-                "{}; at equilibrium within |ln(Q/K)| <= {}",
-                r.eos.as_str(),
-                show_number(r.model.band_ln)
-            ),
-        );
-        let c = &r.composition;
-        match &w.composition {
-            CompositionSource::Analyser { topic, .. } => row(
-                "  analysis",
-                format!("{} on {topic}: {}", c.tag, c.components.join(", ")),
-            ),
-            CompositionSource::PerComponent { topics, decoder } => {
-                row(
-                    "  analysis",
-                    format!(
-                        "{}, one topic per component ({}):",
-                        c.tag,
-                        show_decoder(decoder)
-                    ),
-                );
-                for (name, topic) in topics {
-                    row("", format!("  {name} on {topic}"));
-                }
-            }
-        }
-        row(
+    rows.row(
+        "species",
+        format!("{} in the library", settings.species.len()),
+    );
+}
+
+/// One reactor: its reactions with K at the summary temperature, the equation of state,
+/// the analysis, the inputs and the watch settings.
+fn reactor_rows(rows: &mut Rows, species: &SpeciesDb, reactor: &ReactorSettings) {
+    let (spec, wiring) = (&reactor.spec, &reactor.wiring);
+    rows.row("", String::new());
+    rows.row("reactor", format!("{}: {}", spec.id, spec.name));
+    for (reaction, k) in &spec.reactions {
+        let (lo, hi) = k.valid_range_k();
+        let ln_k = k.ln_k(SUMMARY_T_K);
+        let outside = if k.in_range(SUMMARY_T_K) {
+            ""
+        } else {
+            " (outside the source's range)"
+        };
+        rows.row("  reaction", reaction.canonical());
+        rows.row(
             "",
             format!(
-                "{} basis, {}, sums to 100 ± {} mol%, lag {}, stale after {}",
-                c.basis.as_str(),
-                c.unit.label(),
-                show_number(c.sum_tolerance * 100.0),
-                show_duration(c.lag),
-                show_duration(c.max_age)
+                "K from {} (valid {lo:.0} to {hi:.0} K); at {SUMMARY_T_K:.0} K ln K = {ln_k:.3}, K = {}{outside}",
+                k.id().as_str(),
+                show_k(ln_k.exp())
             ),
         );
-        let water = if c.basis == Basis::Dry {
-            " (H2O from the steam ratio)"
-        } else {
-            ""
-        };
-        row("  gas", format!("{}{water}", r.model.names().join(", ")));
-        for (t, source) in r.temperatures.iter().zip(&w.temperatures) {
-            row("  temperature", show_scalar(t, source));
-        }
-        row("  pressure", show_scalar(&r.pressure, &w.pressure));
-        match (&r.steam_ratio, &w.steam_ratio) {
-            (Some(SteamRatioSpec::Fixed(v)), _) => row(
-                "  steam ratio",
-                format!("fixed at {} mol H2O per mol dry gas", show_number(*v)),
+    }
+    rows.row(
+        "  eos",
+        format!(
+            "{}; at equilibrium within |ln(Q/K)| <= {}",
+            spec.eos.as_str(),
+            show_number(spec.model.band_ln)
+        ),
+    );
+    analysis_rows(rows, spec, wiring);
+    input_rows(rows, species, spec, wiring);
+    for (label, line) in crate::config::watch::summary_lines(&spec.watch) {
+        rows.row(label, line);
+    }
+}
+
+/// The analysis: tag and topics, basis, unit, sum tolerance, lag, age, the gas.
+fn analysis_rows(rows: &mut Rows, spec: &ReactorSpec, wiring: &Wiring) {
+    let analysis = &spec.composition;
+    match &wiring.composition {
+        CompositionSource::Analyser { topic, .. } => rows.row(
+            "  analysis",
+            format!(
+                "{} on {topic}: {}",
+                analysis.tag,
+                analysis.components.join(", ")
             ),
-            (Some(SteamRatioSpec::Measured(m)), Some(source)) => {
-                row("  steam ratio", show_scalar(m, source));
+        ),
+        CompositionSource::PerComponent { topics, decoder } => {
+            rows.row(
+                "  analysis",
+                format!(
+                    "{}, one topic per component ({}):",
+                    analysis.tag,
+                    show_decoder(decoder)
+                ),
+            );
+            for (name, topic) in topics {
+                rows.row("", format!("  {name} on {topic}"));
             }
-            _ => {}
-        }
-        row("  key", s.species.get(r.key_component).name.clone());
-        let u = &r.uncertainty;
-        let steam = if r.steam_ratio.is_some() {
-            format!(", steam ratio {} %", show_number(u.steam_ratio_rel * 100.0))
-        } else {
-            String::new()
-        };
-        row(
-            "  ±",
-            format!(
-                "{} K, {} bar, {} % of reading{steam}",
-                show_number(u.temperature_k),
-                show_number(u.pressure_bar),
-                show_number(u.composition_rel * 100.0)
-            ),
-        );
-        row(
-            "  transient",
-            format!("above {} K/min", show_number(r.transient_k_per_min)),
-        );
-        for (label, line) in crate::config::watch::summary_lines(&r.watch) {
-            row(label, line);
         }
     }
-    if !s.commands.allowed_users.is_empty() || !s.commands.allowed_clients.is_empty() {
-        row(
-            "commands",
-            format!(
-                "from users [{}], client ids [{}]",
-                s.commands.allowed_users.join(", "),
-                s.commands.allowed_clients.join(", ")
-            ),
-        );
+    rows.row(
+        "",
+        format!(
+            "{} basis, {}, sums to 100 ± {} mol%, lag {}, stale after {}",
+            analysis.basis.as_str(),
+            analysis.unit.label(),
+            show_number(analysis.sum_tolerance * 100.0),
+            show_duration(analysis.lag),
+            show_duration(analysis.max_age)
+        ),
+    );
+    let water = if analysis.basis == Basis::Dry {
+        " (H2O from the steam ratio)"
+    } else {
+        ""
+    };
+    rows.row("  gas", format!("{}{water}", spec.model.names().join(", ")));
+}
+
+/// Temperatures, pressure, steam ratio, key component, uncertainty, transient limit.
+fn input_rows(rows: &mut Rows, species: &SpeciesDb, spec: &ReactorSpec, wiring: &Wiring) {
+    for (t, source) in spec.temperatures.iter().zip(&wiring.temperatures) {
+        rows.row("  temperature", show_scalar(t, source));
     }
-    let mut text = out.join("\n");
-    text.push('\n');
-    text
+    rows.row("  pressure", show_scalar(&spec.pressure, &wiring.pressure));
+    match (&spec.steam_ratio, &wiring.steam_ratio) {
+        (Some(SteamRatioSpec::Fixed(v)), _) => rows.row(
+            "  steam ratio",
+            format!("fixed at {} mol H2O per mol dry gas", show_number(*v)),
+        ),
+        (Some(SteamRatioSpec::Measured(m)), Some(source)) => {
+            rows.row("  steam ratio", show_scalar(m, source));
+        }
+        _ => {}
+    }
+    rows.row("  key", species.get(spec.key_component).name.clone());
+    let uncertainty = &spec.uncertainty;
+    let steam = if spec.steam_ratio.is_some() {
+        format!(
+            ", steam ratio {} %",
+            show_number(uncertainty.steam_ratio_rel * 100.0)
+        )
+    } else {
+        String::new()
+    };
+    rows.row(
+        "  ±",
+        format!(
+            "{} K, {} bar, {} % of reading{steam}",
+            show_number(uncertainty.temperature_k),
+            show_number(uncertainty.pressure_bar),
+            show_number(uncertainty.composition_rel * 100.0)
+        ),
+    );
+    rows.row(
+        "  transient",
+        format!("above {} K/min", show_number(spec.transient_k_per_min)),
+    );
 }
