@@ -10,7 +10,9 @@ use crate::config::duration::{parse_duration, show_duration};
 use crate::config::error::Problems;
 use crate::config::raw::RawReactor;
 use crate::monitor::alarm::{AlarmConfig, Direction, Priority};
-use crate::monitor::watch::{AlarmSpec, BaselineSpec, Figure, TrendMethod, WatchSettings};
+use crate::monitor::watch::{
+    AlarmSpec, BaselineSpec, DriftSettings, Figure, TrendMethod, WatchSettings,
+};
 use crate::units::{CompositionUnit, PressureUnit, split_quantity};
 
 /// `[reactors.<id>.drift]`
@@ -211,16 +213,25 @@ pub(super) fn watch(
     reactor: &RawReactor,
     atmosphere_bar: f64,
 ) -> WatchSettings {
-    let (drift, alerts, alarms, offline_below) = (
-        reactor.drift.as_ref(),
-        reactor.alerts.as_ref(),
-        &reactor.alarm[..],
-        reactor.offline_below.as_deref(),
-    );
-    let mut s = WatchSettings::default();
-    let raw = drift.cloned().unwrap_or_default();
-    let d = &mut s.drift;
+    let mut settings = WatchSettings::default();
+    let raw = reactor.drift.clone().unwrap_or_default();
     let dp = format!("{path}.drift");
+    drift_baseline(p, &dp, &raw, &mut settings.drift);
+    drift_statistics(p, &dp, &raw, &mut settings.drift);
+    drift_trend(p, &dp, &raw, &mut settings.drift);
+    if let Some(a) = reactor.alerts.as_ref() {
+        engineering_alerts(p, path, a, &mut settings);
+    }
+    settings.alarms = operator_alarms(p, path, &reactor.alarm);
+    if let Some(text) = reactor.offline_below.as_deref() {
+        settings.offline_below_bar = offline_below(p, path, text, atmosphere_bar);
+    }
+    settings
+}
+
+/// `drift.baseline`: learned (the default, over a window and a least number of samples)
+/// or given with its σ.
+fn drift_baseline(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
     match raw.baseline.as_deref().map(str::trim) {
         None | Some("learn") => {
             let window_ms = match &raw.baseline_window {
@@ -280,6 +291,10 @@ pub(super) fn watch(
             }
         }
     }
+}
+
+/// The step size, σ floor, EWMA and CUSUM parameters.
+fn drift_statistics(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
     if let Some(t) = &raw.step {
         match kelvin(p, &format!("{dp}.step"), t) {
             Some(v) if v > 0.0 => d.step_min_k = Some(v),
@@ -316,6 +331,10 @@ pub(super) fn watch(
             }
         }
     }
+}
+
+/// The trend method, the aggregates it is fitted on, its window, and the end-of-run limit.
+fn drift_trend(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
     match raw.trend.as_deref() {
         None | Some("least-squares") => d.trend = TrendMethod::LeastSquares,
         Some("theil-sen") => d.trend = TrendMethod::TheilSen,
@@ -359,39 +378,41 @@ pub(super) fn watch(
     if let Some(t) = &raw.end_of_run_limit {
         d.end_of_run_limit_k = kelvin(p, &format!("{dp}.end_of_run_limit"), t);
     }
+}
 
-    // Engineering alerts.
+/// Engineering alerts (they need the drift settings for the end-of-run limit).
+fn engineering_alerts(p: &mut Problems, path: &str, a: &RawAlerts, settings: &mut WatchSettings) {
+    let dp = format!("{path}.drift");
     let ap = format!("{path}.alerts");
-    if let Some(a) = alerts {
-        if let Some(t) = &a.trend_above {
-            s.alerts.trend_above_k_per_day = rate(p, &format!("{ap}.trend_above"), t);
-        }
-        if let Some(t) = &a.end_of_run_within {
-            s.alerts.end_of_run_within_days =
-                positive_duration(p, &format!("{ap}.end_of_run_within"), t)
-                    .map(|v| v as f64 / 86_400_000.0);
-            if s.drift.end_of_run_limit_k.is_none() {
-                p.add(
-                    format!("{ap}.end_of_run_within"),
-                    format!(
-                        "needs {dp}.end_of_run_limit (the approach at end of run, e.g. \"20 K\")"
-                    ),
-                );
-            }
-        }
-        s.alerts.cusum = a.cusum.unwrap_or(false);
-        if let Some(t) = &a.data_quality_after {
-            s.alerts.data_quality_after_ms =
-                positive_duration(p, &format!("{ap}.data_quality_after"), t);
-        }
-        s.alerts.self_monitoring = a.self_monitoring.unwrap_or(true);
+    if let Some(t) = &a.trend_above {
+        settings.alerts.trend_above_k_per_day = rate(p, &format!("{ap}.trend_above"), t);
     }
+    if let Some(t) = &a.end_of_run_within {
+        settings.alerts.end_of_run_within_days =
+            positive_duration(p, &format!("{ap}.end_of_run_within"), t)
+                .map(|v| v as f64 / 86_400_000.0);
+        if settings.drift.end_of_run_limit_k.is_none() {
+            p.add(
+                format!("{ap}.end_of_run_within"),
+                format!("needs {dp}.end_of_run_limit (the approach at end of run, e.g. \"20 K\")"),
+            );
+        }
+    }
+    settings.alerts.cusum = a.cusum.unwrap_or(false);
+    if let Some(t) = &a.data_quality_after {
+        settings.alerts.data_quality_after_ms =
+            positive_duration(p, &format!("{ap}.data_quality_after"), t);
+    }
+    settings.alerts.self_monitoring = a.self_monitoring.unwrap_or(true);
+}
 
-    // Operator alarms.
+/// Operator alarms, each id once.
+fn operator_alarms(p: &mut Problems, path: &str, alarms: &[RawAlarm]) -> Vec<AlarmSpec> {
+    let mut list: Vec<AlarmSpec> = Vec::new();
     for (i, a) in alarms.iter().enumerate() {
         let ap = format!("{path}.alarm[{i}]");
         if let Some(spec) = alarm(p, &ap, a) {
-            if s.alarms
+            if list
                 .iter()
                 .any(|x| x.config.id.eq_ignore_ascii_case(&spec.config.id))
             {
@@ -400,27 +421,31 @@ pub(super) fn watch(
                     format!("\"{}\" is used twice", spec.config.id),
                 );
             }
-            s.alarms.push(spec);
+            list.push(spec);
         }
     }
+    list
+}
 
-    if let Some(text) = offline_below {
-        let kp = format!("{path}.offline_below");
-        match split_quantity("pressure", text)
-            .map_err(|e| e.to_string())
-            .and_then(|(v, u)| {
-                PressureUnit::parse(u)
-                    .map_err(|e| e.to_string())
-                    .and_then(|pu| {
-                        pu.to_bar_absolute(v, atmosphere_bar)
-                            .map_err(|e| e.to_string())
-                    })
-            }) {
-            Ok(bar) => s.offline_below_bar = Some(bar),
-            Err(m) => p.add(kp, format!("\"{text}\": {m}; write e.g. \"5 barg\"")),
+/// `offline_below`: the pressure below which the unit counts as off line, in bar absolute.
+fn offline_below(p: &mut Problems, path: &str, text: &str, atmosphere_bar: f64) -> Option<f64> {
+    let kp = format!("{path}.offline_below");
+    match split_quantity("pressure", text)
+        .map_err(|e| e.to_string())
+        .and_then(|(v, u)| {
+            PressureUnit::parse(u)
+                .map_err(|e| e.to_string())
+                .and_then(|pu| {
+                    pu.to_bar_absolute(v, atmosphere_bar)
+                        .map_err(|e| e.to_string())
+                })
+        }) {
+        Ok(bar) => Some(bar),
+        Err(m) => {
+            p.add(kp, format!("\"{text}\": {m}; write e.g. \"5 barg\""));
+            None
         }
     }
-    s
 }
 
 fn rate(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
