@@ -472,35 +472,7 @@ fn rate(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
 
 fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
     let start = p.len();
-    if a.id.is_empty()
-        || !a
-            .id
-            .chars()
-            .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
-    {
-        p.add(
-            format!("{path}.id"),
-            format!("\"{}\" may use only letters, digits, `-` and `_`", a.id),
-        );
-    }
-    if ["trend", "end-of-run", "cusum", "data-quality", "flood"]
-        .iter()
-        .any(|r| a.id.eq_ignore_ascii_case(r))
-    {
-        p.add(
-            format!("{path}.id"),
-            format!(
-                "\"{}\" is the name of a built-in alert; choose another",
-                a.id
-            ),
-        );
-    }
-    if a.rationale.trim().len() < 10 {
-        p.add(
-            format!("{path}.rationale"),
-            "give the rationale (consequence and operator response): operator alarms are for rationalised conditions only",
-        );
-    }
+    alarm_name_and_rationale(p, path, a);
     let figure = match a.on.as_str() {
         "approach" => Figure::Approach,
         "key-measured" => Figure::KeyMeasured,
@@ -512,26 +484,7 @@ fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
             return None;
         }
     };
-    // The limit's unit fixes the alarm's unit.
-    let value = |p: &mut Problems, key: &str, text: &str| -> Option<(f64, f64, &'static str)> {
-        let kp = format!("{path}.{key}");
-        match figure {
-            Figure::Approach => kelvin(p, &kp, text).map(|v| (v, 1.0, "K")),
-            Figure::KeyMeasured => match split_quantity("composition", text)
-                .map_err(|e| e.to_string())
-                .and_then(|(v, u)| {
-                    CompositionUnit::parse(u)
-                        .map(|cu| (v, cu))
-                        .map_err(|e| e.to_string())
-                }) {
-                Ok((v, cu)) => Some((v, 1.0 / cu.fraction_per_unit(), cu.label())),
-                Err(m) => {
-                    p.add(kp, format!("\"{text}\": {m}; write e.g. \"10 ppm\""));
-                    None
-                }
-            },
-        }
-    };
+    let value = |p: &mut Problems, key: &str, text: &str| limit_value(p, path, figure, key, text);
     let (limit, direction) = match (&a.above, &a.below) {
         (Some(t), None) => (value(p, "above", t), Direction::High),
         (None, Some(t)) => (value(p, "below", t), Direction::Low),
@@ -562,26 +515,7 @@ fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
         None => 8 * 3_600_000,
         Some(t) => positive_duration(p, &format!("{path}.max_shelve"), t).unwrap_or(1),
     };
-    let number = match &a.priority {
-        None => Some(3),
-        Some(RawPriority::Number(n)) => Some(*n),
-        Some(RawPriority::Text(t)) => t.trim().parse::<i64>().ok(),
-    };
-    let priority = match number.and_then(Priority::from_number) {
-        Some(pr) => pr,
-        None => {
-            let given = match &a.priority {
-                Some(RawPriority::Number(n)) => n.to_string(),
-                Some(RawPriority::Text(t)) => format!("\"{t}\""),
-                None => String::new(),
-            };
-            p.add(
-                format!("{path}.priority"),
-                format!("priority {given} is not one of 1 (highest), 2, 3 or 4 (lowest)"),
-            );
-            Priority::P3
-        }
-    };
+    let priority = priority(p, path, a);
     if let Some(db) = deadband.filter(|d| *d < 0.0) {
         p.add(
             format!("{path}.deadband"),
@@ -612,6 +546,92 @@ fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
         unit,
         rationale: a.rationale.trim().to_string(),
     })
+}
+
+/// An alarm's id (fit for topics, not a built-in alert's name) and its rationale.
+fn alarm_name_and_rationale(p: &mut Problems, path: &str, a: &RawAlarm) {
+    if a.id.is_empty()
+        || !a
+            .id
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
+    {
+        p.add(
+            format!("{path}.id"),
+            format!("\"{}\" may use only letters, digits, `-` and `_`", a.id),
+        );
+    }
+    if ["trend", "end-of-run", "cusum", "data-quality", "flood"]
+        .iter()
+        .any(|r| a.id.eq_ignore_ascii_case(r))
+    {
+        p.add(
+            format!("{path}.id"),
+            format!(
+                "\"{}\" is the name of a built-in alert; choose another",
+                a.id
+            ),
+        );
+    }
+    if a.rationale.trim().len() < 10 {
+        p.add(
+            format!("{path}.rationale"),
+            "give the rationale (consequence and operator response): operator alarms are for rationalised conditions only",
+        );
+    }
+}
+
+/// A limit or deadband in the figure's unit: K for the approach, the written composition
+/// unit for the key component (the limit's unit fixes the alarm's unit). Returns the value,
+/// the scale from mole fraction and the unit's label.
+fn limit_value(
+    p: &mut Problems,
+    path: &str,
+    figure: Figure,
+    key: &str,
+    text: &str,
+) -> Option<(f64, f64, &'static str)> {
+    let kp = format!("{path}.{key}");
+    match figure {
+        Figure::Approach => kelvin(p, &kp, text).map(|v| (v, 1.0, "K")),
+        Figure::KeyMeasured => match split_quantity("composition", text)
+            .map_err(|e| e.to_string())
+            .and_then(|(v, u)| {
+                CompositionUnit::parse(u)
+                    .map(|cu| (v, cu))
+                    .map_err(|e| e.to_string())
+            }) {
+            Ok((v, cu)) => Some((v, 1.0 / cu.fraction_per_unit(), cu.label())),
+            Err(m) => {
+                p.add(kp, format!("\"{text}\": {m}; write e.g. \"10 ppm\""));
+                None
+            }
+        },
+    }
+}
+
+/// `priority`: 1 (highest) to 4, as a number or text; 3 by default.
+fn priority(p: &mut Problems, path: &str, a: &RawAlarm) -> Priority {
+    let number = match &a.priority {
+        None => Some(3),
+        Some(RawPriority::Number(n)) => Some(*n),
+        Some(RawPriority::Text(t)) => t.trim().parse::<i64>().ok(),
+    };
+    match number.and_then(Priority::from_number) {
+        Some(pr) => pr,
+        None => {
+            let given = match &a.priority {
+                Some(RawPriority::Number(n)) => n.to_string(),
+                Some(RawPriority::Text(t)) => format!("\"{t}\""),
+                None => String::new(),
+            };
+            p.add(
+                format!("{path}.priority"),
+                format!("priority {given} is not one of 1 (highest), 2, 3 or 4 (lowest)"),
+            );
+            Priority::P3
+        }
+    }
 }
 
 fn days(ms: i64) -> String {
