@@ -9,7 +9,7 @@ use crate::config::error::{ConfigErrors, Problems};
 use crate::config::files::{password_file, readable_file};
 use crate::config::raw::{RawBroker, RawJournal};
 use crate::config::settings::{BrokerSettings, JournalSettings, MqttProtocol, Settings};
-use crate::config::validate::{NANOSECOND, duration_at};
+use crate::config::validate::{DurationRule, NANOSECOND, duration_at};
 
 /// `mqtt://host[:port]` or `mqtts://host[:port]`: (tls, host, port).
 fn broker_url(p: &mut Problems, url: &str) -> (bool, String, u16) {
@@ -191,9 +191,11 @@ fn keep_alive(p: &mut Problems, raw: &RawBroker) -> Duration {
         p,
         "broker.keep_alive",
         raw.keep_alive.as_deref(),
-        Some(Duration::from_secs(30)),
-        Duration::from_secs(5),
-        "the MQTT client refuses keep-alives under 5 s",
+        DurationRule {
+            default: Some(Duration::from_secs(30)),
+            min: Duration::from_secs(5),
+            why_min: "the MQTT client refuses keep-alives under 5 s",
+        },
     );
     if keep_alive.subsec_nanos() != 0 {
         p.add(
@@ -221,9 +223,11 @@ fn session_expiry(p: &mut Problems, raw: &RawBroker) -> Duration {
         p,
         "broker.session_expiry",
         raw.session_expiry.as_deref(),
-        Some(Duration::ZERO),
-        Duration::ZERO,
-        "",
+        DurationRule {
+            default: Some(Duration::ZERO),
+            min: Duration::ZERO,
+            why_min: "",
+        },
     );
     if session_expiry.subsec_nanos() != 0 {
         p.add(
@@ -379,17 +383,21 @@ fn reconnect_waits(p: &mut Problems, raw: &RawBroker) -> (Duration, Duration) {
         p,
         "broker.reconnect_min",
         raw.reconnect_min.as_deref(),
-        Some(Duration::from_millis(250)),
-        NANOSECOND,
-        "a zero wait would reconnect in a tight loop",
+        DurationRule {
+            default: Some(Duration::from_millis(250)),
+            min: NANOSECOND,
+            why_min: "a zero wait would reconnect in a tight loop",
+        },
     );
     let reconnect_max = duration_at(
         p,
         "broker.reconnect_max",
         raw.reconnect_max.as_deref(),
-        Some(Duration::from_secs(30)),
-        NANOSECOND,
-        "a zero wait would reconnect in a tight loop",
+        DurationRule {
+            default: Some(Duration::from_secs(30)),
+            min: NANOSECOND,
+            why_min: "a zero wait would reconnect in a tight loop",
+        },
     );
     if reconnect_min > reconnect_max {
         p.add(
@@ -455,9 +463,11 @@ pub(crate) fn journal(p: &mut Problems, raw: &RawJournal, base: &Path) -> Journa
         p,
         "journal.fsync_interval",
         raw.fsync_interval.as_deref(),
-        Some(Duration::from_secs(1)),
-        NANOSECOND,
-        "write \"1 s\" or similar",
+        DurationRule {
+            default: Some(Duration::from_secs(1)),
+            min: NANOSECOND,
+            why_min: "write \"1 s\" or similar",
+        },
     );
     JournalSettings {
         dir: base.join(&raw.dir),

@@ -9,7 +9,7 @@ use crate::config::raw::{RawComposition, RawScalar, RawSteamRatio};
 use crate::config::settings::{
     CompositionSource, ScalarDecoder, ScalarSettings, SteamRatioSettings,
 };
-use crate::config::validate::{NANOSECOND, duration_at};
+use crate::config::validate::{DurationRule, NANOSECOND, duration_at};
 use crate::monitor::spec::{AnalysisSpec, Delivery};
 use crate::thermo::reaction::unknown_hint;
 use crate::thermo::species::SpeciesDb;
@@ -228,9 +228,11 @@ pub(crate) fn scalar(
         p,
         &format!("{path}.max_age"),
         f.max_age,
-        None,
-        NANOSECOND,
-        "a reading is stale after this",
+        DurationRule {
+            default: None,
+            min: NANOSECOND,
+            why_min: "a reading is stale after this",
+        },
     );
     ScalarSettings {
         tag,
@@ -298,17 +300,21 @@ pub(crate) fn composition(
         p,
         &format!("{path}.lag"),
         raw.lag.as_deref(),
-        Some(Duration::ZERO),
-        Duration::ZERO,
-        "",
+        DurationRule {
+            default: Some(Duration::ZERO),
+            min: Duration::ZERO,
+            why_min: "",
+        },
     );
     let max_age = duration_at(
         p,
         &format!("{path}.max_age"),
         raw.max_age.as_deref(),
-        None,
-        NANOSECOND,
-        "an analysis is stale after this",
+        DurationRule {
+            default: None,
+            min: NANOSECOND,
+            why_min: "an analysis is stale after this",
+        },
     );
     let detection_limits = detection_limits(p, &path, raw, &names);
     let (Some(source), Some(basis)) = (source, basis) else {

@@ -153,16 +153,27 @@ pub(crate) fn atmosphere(p: &mut Problems, text: &str) -> f64 {
     }
 }
 
-/// Parses a duration at `path`; `None` takes `default`. `min` is the least allowed
-/// (zero allowed when `min` is zero).
+/// What a duration option allows: its default (`None`: the option is required), the least
+/// value (zero allowed when it is zero) and why that is the least.
+#[derive(Clone, Copy)]
+pub(crate) struct DurationRule {
+    pub(crate) default: Option<Duration>,
+    pub(crate) min: Duration,
+    pub(crate) why_min: &'static str,
+}
+
+/// Parses a duration at `path` under `rule`; an absent option takes the rule's default.
 pub(crate) fn duration_at(
     p: &mut Problems,
     path: &str,
     text: Option<&str>,
-    default: Option<Duration>,
-    min: Duration,
-    why_min: &str,
+    rule: DurationRule,
 ) -> Duration {
+    let DurationRule {
+        default,
+        min,
+        why_min,
+    } = rule;
     let d = match (text, default) {
         (Some(t), _) => match parse_duration(t) {
             Ok(d) => d,
