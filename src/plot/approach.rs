@@ -6,10 +6,12 @@ use std::fmt::Write as _;
 
 use super::axes::{TimeAxis, TimeScale, YScale, draw_time_grid, draw_y_axis, linear_axis};
 use super::legend::{LegendItem, Swatch, legend_item};
-use super::markers::draw_markers;
-use super::model::{AlarmLimit, Marker, MarkerKind, OfflineSpan, PlotPoint, ReactorPlot};
+use super::markers::{MarkerStyle, draw_markers};
+use super::model::{AlarmLimit, Marker, MarkerKind, PlotPoint, ReactorPlot};
 use super::prepare::{Domain, Prepared, ProjPt, clip_projection};
-use super::series::{Px, band_path, drawable, envelope, gap_spans, line_path};
+use super::series::{
+    GroupAttrs, Px, band_path, drawable, envelope, gap_spans, line_path, offline_group,
+};
 use super::style::{
     C_AGGREGATE, C_ALARM_LIMIT, C_APPROACH, C_BAND, C_BASELINE, C_END_OF_RUN, C_GAP, C_LIMIT,
     C_MUTED, C_PROJ_BAND, C_TEXT, C_TREND, DASH_ALARM_LIMIT, DASH_BASELINE, DASH_END_OF_RUN,
@@ -225,14 +227,11 @@ pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, fram
         bottom: area.y1,
     };
     draw_time_grid(out, area, ta, true);
-    offline_group(
-        out,
-        "id=\"offline\"",
-        &p.offline,
-        &ts,
-        area,
-        "clip-approach",
-    );
+    let group = GroupAttrs {
+        attr: "id=\"offline\"",
+        clip: "clip-approach",
+    };
+    offline_group(out, &group, &p.offline, &ts, area);
     if range.is_some() {
         draw_y_axis(out, area, &ys, "approach to equilibrium (K)");
     } else {
@@ -390,7 +389,11 @@ pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, fram
 fn markers_group(out: &mut String, p: &ReactorPlot, frame: &ApproachFrame) {
     let (shown, area) = (frame.shown, frame.area);
     out.push_str("<g id=\"markers\">");
-    draw_markers(out, shown, frame.ta, area, 5.5, true);
+    let style = MarkerStyle {
+        radius: 5.5,
+        numbered: true,
+    };
+    draw_markers(out, shown, frame.ta, area, style);
     let outside = p.markers.len() - shown.len();
     if outside > 0 {
         w!(
@@ -720,45 +723,6 @@ fn aggregates_group(out: &mut String, layers: &Layers) {
         if let Some(y) = ys.y(a.approach_k) {
             aggregate_shape(out, ts.x(a.t_ms), y, a.in_fit);
         }
-    }
-    out.push_str("</g>");
-}
-
-/// Off-line periods as hatched rectangles over the whole height of `area`, in a `<g>` with
-/// the attribute `group` (`id="offline"`), one `rect.offline` per period in the time range.
-pub(super) fn offline_group(
-    out: &mut String,
-    group: &str,
-    spans: &[OfflineSpan],
-    ts: &TimeScale,
-    area: Area,
-    clip: &str,
-) {
-    w!(out, "<g {group} clip-path=\"url(#{clip})\">");
-    for o in spans {
-        if !sane_t(o.from_ms) || !sane_t(o.to_ms) {
-            continue;
-        }
-        let (a, b) = (o.from_ms.min(o.to_ms), o.from_ms.max(o.to_ms));
-        if b < ts.t0 || a > ts.t1 {
-            continue;
-        }
-        let (xa, xb) = (ts.x(a.max(ts.t0)), ts.x(b.min(ts.t1)));
-        let (xa, xb) = if xb - xa < 1.0 {
-            let mid = 0.5 * (xa + xb);
-            (mid - 0.5, mid + 0.5)
-        } else {
-            (xa, xb)
-        };
-        w!(
-            out,
-            "<rect class=\"offline\" x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"url(#hatch-offline)\">\
-             <title>unit off line</title></rect>",
-            N(xa),
-            N(area.y0),
-            N(xb - xa),
-            N(area.h())
-        );
     }
     out.push_str("</g>");
 }

@@ -3,11 +3,10 @@
 
 use std::fmt::Write as _;
 
-use super::approach::offline_group;
 use super::axes::{Axis, TimeAxis, YScale, draw_time_grid, draw_y_axis, linear_axis, log_axis};
 use super::model::PlotPoint;
 use super::prepare::Prepared;
-use super::series::{Px, drawable, envelope, line_path};
+use super::series::{GroupAttrs, Px, drawable, envelope, line_path, offline_group};
 use super::style::{C_EQUILIBRIUM, C_MEASURED, DASH_EQUILIBRIUM};
 use super::svg::{Area, N, dash_attr, draw_frame, draw_message, usable_fraction};
 
@@ -65,7 +64,11 @@ pub(super) fn key_chart(out: &mut String, data: &Prepared, ta: &TimeAxis, area: 
     let (p, pts, key, basis) = (data.plot, &data.points[..], data.key, data.basis);
     let ts = ta.scale;
     let axis = key_axis(&key_values(pts));
-    offline_group(out, "id=\"key-offline\"", &p.offline, &ts, area, "clip-key");
+    let group = GroupAttrs {
+        attr: "id=\"key-offline\"",
+        clip: "clip-key",
+    };
+    offline_group(out, &group, &p.offline, &ts, area);
     draw_time_grid(out, area, ta, true);
     let mut drawn = 0usize;
     match axis {

@@ -68,14 +68,21 @@ pub(super) fn shown_markers<'a>(markers: &'a [Marker], ts: &TimeScale) -> Vec<&'
 
 /// The markers as vertical lines with a shape at the top, each in a
 /// `<g class="marker KIND">` with a `<title>` (and its number when `numbered`).
+/// How markers are drawn: the shape's radius (px), and whether each carries its number.
+#[derive(Clone, Copy)]
+pub(super) struct MarkerStyle {
+    pub(super) radius: f64,
+    pub(super) numbered: bool,
+}
+
 pub(super) fn draw_markers(
     out: &mut String,
     shown: &[&Marker],
     ta: &TimeAxis,
     area: Area,
-    r: f64,
-    numbered: bool,
+    style: MarkerStyle,
 ) {
+    let (r, numbered) = (style.radius, style.numbered);
     let zone = ta.tz.name();
     for (i, m) in shown.iter().enumerate() {
         let x = ta.scale.x(m.t_ms);

@@ -2,16 +2,15 @@
 
 use std::fmt::Write as _;
 
-use super::approach::offline_group;
 use super::axes::{
     TimeAxis, TimeScale, YScale, draw_time_grid, draw_y_axis, fmt_date, linear_axis, time_axis,
     tz_ms,
 };
 use super::legend::{LegendItem, Swatch, draw_legend_items, legend_item, legend_layout};
-use super::markers::{draw_markers, shown_markers};
+use super::markers::{MarkerStyle, draw_markers, shown_markers};
 use super::model::{MarkerKind, PlotPoint, ReactorPlot, TimeZone};
 use super::prepare::sorted_points;
-use super::series::{Px, drawable, envelope, gap_spans, line_path};
+use super::series::{GroupAttrs, Px, drawable, envelope, gap_spans, line_path, offline_group};
 use super::style::{
     C_APPROACH, C_GAP, C_LIMIT, C_MUTED, C_OFFLINE, C_TEXT, DASH_LIMIT, LEFT, RIGHT, WIDTH,
 };
@@ -222,14 +221,12 @@ fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: 
     };
     let ts = ta.scale;
     let (ys, has_axis) = panel_y_scale(p, pts, area);
-    offline_group(
-        out,
-        "class=\"offline\"",
-        &p.offline,
-        &ts,
-        area,
-        &format!("clip-panel-{index}"),
-    );
+    let clip = format!("clip-panel-{index}");
+    let group = GroupAttrs {
+        attr: "class=\"offline\"",
+        clip: &clip,
+    };
+    offline_group(out, &group, &p.offline, &ts, area);
     draw_time_grid(out, area, ta, last);
     if has_axis {
         draw_y_axis(out, area, &ys, "approach (K)");
@@ -303,7 +300,11 @@ fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: 
         );
     }
     out.push_str("</g><g class=\"markers\">");
-    draw_markers(out, &shown_markers(&p.markers, &ts), ta, area, 4.0, false);
+    let style = MarkerStyle {
+        radius: 4.0,
+        numbered: false,
+    };
+    draw_markers(out, &shown_markers(&p.markers, &ts), ta, area, style);
     out.push_str("</g>");
     draw_frame(out, area);
     if !series.iter().any(|q| q.y.is_some()) {

@@ -1,9 +1,12 @@
 //! Series geometry: raw samples in pixels, decimation per pixel column (min–max envelope
-//! plus the mean line), line, band and bar paths, and gaps where no valid point is.
+//! plus the mean line), line, band and bar paths, gaps where no valid point is, and hatched
+//! off-line spans (shared by the approach, key and overview charts).
 
 use std::fmt::Write as _;
 
-use super::svg::{Area, N};
+use super::axes::TimeScale;
+use super::model::OfflineSpan;
+use super::svg::{Area, N, sane_t};
 
 /// One sample in pixel space. `y: None` breaks the line.
 #[derive(Clone, Copy, Debug)]
@@ -236,6 +239,52 @@ pub(super) fn gap_spans(s: &[Px], area: Area) -> Vec<(f64, f64)> {
         }
     }
     merged
+}
+
+/// A `<g>` element's identifying attribute (`id="offline"`, `class="offline"`) and the id
+/// of the clip path it is drawn in.
+pub(super) struct GroupAttrs<'a> {
+    pub(super) attr: &'a str,
+    pub(super) clip: &'a str,
+}
+
+/// Off-line periods as hatched rectangles over the whole height of `area`, in a `<g>` with
+/// `group`'s attribute, one `rect.offline` per period in the time range.
+pub(super) fn offline_group(
+    out: &mut String,
+    group: &GroupAttrs,
+    spans: &[OfflineSpan],
+    ts: &TimeScale,
+    area: Area,
+) {
+    let (attr, clip) = (group.attr, group.clip);
+    w!(out, "<g {attr} clip-path=\"url(#{clip})\">");
+    for o in spans {
+        if !sane_t(o.from_ms) || !sane_t(o.to_ms) {
+            continue;
+        }
+        let (a, b) = (o.from_ms.min(o.to_ms), o.from_ms.max(o.to_ms));
+        if b < ts.t0 || a > ts.t1 {
+            continue;
+        }
+        let (xa, xb) = (ts.x(a.max(ts.t0)), ts.x(b.min(ts.t1)));
+        let (xa, xb) = if xb - xa < 1.0 {
+            let mid = 0.5 * (xa + xb);
+            (mid - 0.5, mid + 0.5)
+        } else {
+            (xa, xb)
+        };
+        w!(
+            out,
+            "<rect class=\"offline\" x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"url(#hatch-offline)\">\
+             <title>unit off line</title></rect>",
+            N(xa),
+            N(area.y0),
+            N(xb - xa),
+            N(area.h())
+        );
+    }
+    out.push_str("</g>");
 }
 
 #[cfg(test)]
