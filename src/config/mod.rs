@@ -28,7 +28,6 @@ mod summary;
 #[cfg(test)]
 mod test_support;
 mod validate;
-mod watch;
 
 use std::path::Path;
 
@@ -45,7 +44,7 @@ pub use settings::{
 };
 pub use summary::summary;
 pub use validate::broker::override_broker;
-pub use watch::CommandSettings;
+pub use validate::watch::CommandSettings;
 
 /// Validates configuration text; relative paths inside it are taken from `base_dir`.
 /// Secrets named by `password_env` come from the process environment.

@@ -5,7 +5,7 @@ use std::collections::BTreeMap;
 use serde::Deserialize;
 use toml::Spanned;
 
-use crate::config::watch::{RawAlarm, RawAlerts, RawCommands, RawDrift};
+use crate::config::validate::watch::{RawAlarm, RawAlerts, RawCommands, RawDrift};
 
 /// The configuration file as written. Every table refuses unknown keys; values stay
 /// text (units, durations) until [`from_str`] validates them into [`Settings`].

@@ -5,7 +5,7 @@ use std::net::SocketAddr;
 use std::path::PathBuf;
 use std::time::Duration;
 
-use crate::config::watch::CommandSettings;
+use crate::config::validate::watch::CommandSettings;
 use crate::monitor::spec::{InputSpec, ReactorSpec, SteamRatioSpec};
 use crate::thermo::species::SpeciesDb;
 use crate::units::ScalarUnit;

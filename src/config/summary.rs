@@ -268,7 +268,7 @@ fn reactor_rows(rows: &mut Rows, species: &SpeciesDb, reactor: &ReactorSettings)
     );
     analysis_rows(rows, spec, wiring);
     input_rows(rows, species, spec, wiring);
-    for (label, line) in crate::config::watch::summary_lines(&spec.watch) {
+    for (label, line) in crate::config::validate::watch::summary_lines(&spec.watch) {
         rows.row(label, line);
     }
 }

@@ -4,6 +4,7 @@
 pub(crate) mod broker;
 pub(crate) mod inputs;
 pub(crate) mod reactor;
+pub(crate) mod watch;
 
 use std::net::SocketAddr;
 use std::path::Path;
@@ -102,7 +103,7 @@ pub(crate) fn validate(
             reactors.push(settings);
         }
     }
-    let commands = crate::config::watch::commands(&mut p, raw.commands.as_ref());
+    let commands = crate::config::validate::watch::commands(&mut p, raw.commands.as_ref());
     if !p.is_empty() {
         return Err(p.into_errors());
     }

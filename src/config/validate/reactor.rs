@@ -180,7 +180,7 @@ pub(crate) fn reactor(
         }
     }
 
-    let mut watch = crate::config::watch::watch(p, &path, raw, env.atmosphere_bar);
+    let mut watch = crate::config::validate::watch::watch(p, &path, raw, env.atmosphere_bar);
     let bed_rise = raw.bed_rise.as_ref().and_then(|b| {
         bed_rise(
             p,
@@ -613,7 +613,7 @@ pub(crate) fn bed_rise(
                 "needs the inlet CO and CO2 (bed_rise.inlet) to know what to expect",
             );
         } else {
-            match crate::config::watch::kelvin(p, &key, t) {
+            match crate::config::validate::watch::kelvin(p, &key, t) {
                 Some(v) if v > 0.0 => watch.alerts.bed_rise_excess_k = Some(v),
                 Some(v) => p.add(key, format!("{v} K must be above zero")),
                 None => {}

@@ -107,7 +107,7 @@ impl CommandSettings {
     }
 }
 
-pub(super) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSettings {
+pub(crate) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSettings {
     let Some(raw) = raw else {
         return CommandSettings::default();
     };
@@ -133,7 +133,7 @@ pub(super) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSe
 use crate::units::duration_ms as ms;
 
 /// A temperature difference in K (`"20 K"`; a `degC` is the same size, a `degF` 5/9 of it).
-pub(super) fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
+pub(crate) fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
     match split_quantity("temperature difference", text)
         .ok()
         .and_then(|(v, u)| crate::config::validate::inputs::kelvin_per_degree(u).map(|k| v * k))
@@ -207,7 +207,7 @@ fn delay(p: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
     }
 }
 
-pub(super) fn watch(
+pub(crate) fn watch(
     p: &mut Problems,
     path: &str,
     reactor: &RawReactor,
@@ -639,7 +639,7 @@ fn days(ms: i64) -> String {
 }
 
 /// Lines for `eqwatch check`: drift, alerts, alarms, off-line limit.
-pub(super) fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
+pub(crate) fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
     use crate::monitor::watch::BaselineSpec as B;
     let d = &w.drift;
     let mut out = Vec::new();
