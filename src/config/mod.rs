@@ -39,12 +39,11 @@ pub use duration::{DurationError, parse_duration};
 pub use error::{ConfigErrors, ConfigProblem};
 pub use files::load;
 pub use settings::{
-    BrokerSettings, CompositionSource, JournalSettings, MqttProtocol, ReactorSettings,
-    ScalarDecoder, ScalarSource, Settings, Wiring,
+    BrokerSettings, CommandSettings, CompositionSource, JournalSettings, MqttProtocol,
+    ReactorSettings, ScalarDecoder, ScalarSource, Settings, Wiring,
 };
 pub use summary::summary;
 pub use validate::broker::override_broker;
-pub use validate::watch::CommandSettings;
 
 /// Validates configuration text; relative paths inside it are taken from `base_dir`.
 /// Secrets named by `password_env` come from the process environment.

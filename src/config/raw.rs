@@ -5,8 +5,6 @@ use std::collections::BTreeMap;
 use serde::Deserialize;
 use toml::Spanned;
 
-use crate::config::validate::watch::{RawAlarm, RawAlerts, RawCommands, RawDrift};
-
 /// The configuration file as written. Every table refuses unknown keys; values stay
 /// text (units, durations) until [`from_str`] validates them into [`Settings`].
 #[derive(Debug, Clone, Deserialize)]
@@ -176,3 +174,80 @@ pub(crate) struct RawSteamRatio {
 
 // ---------------------------------------------------------------------------
 // Parsing the file
+
+/// `[reactors.<id>.drift]`
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawDrift {
+    /// `"learn"` (default) or a given approach such as `"8 K"`.
+    pub baseline: Option<String>,
+    /// σ of a given baseline, e.g. `"0.5 K"`.
+    pub baseline_sigma: Option<String>,
+    pub baseline_window: Option<String>,
+    pub baseline_min_samples: Option<i64>,
+    pub sigma_floor: Option<String>,
+    pub ewma_lambda: Option<f64>,
+    pub ewma_l: Option<f64>,
+    pub cusum_k: Option<f64>,
+    pub cusum_h: Option<f64>,
+    /// Smallest level shift that counts as a step, e.g. `"3 K"` (default: h in K).
+    pub step: Option<String>,
+    /// `"least-squares"` (default) or `"theil-sen"`.
+    pub trend: Option<String>,
+    pub aggregate: Option<String>,
+    pub min_per_aggregate: Option<i64>,
+    pub trend_window: Option<String>,
+    pub min_aggregates: Option<i64>,
+    pub end_of_run_limit: Option<String>,
+}
+
+/// `[reactors.<id>.alerts]`
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawAlerts {
+    /// e.g. `"0.05 K/d"`.
+    pub trend_above: Option<String>,
+    /// e.g. `"90 d"`.
+    pub end_of_run_within: Option<String>,
+    pub cusum: Option<bool>,
+    pub data_quality_after: Option<String>,
+    pub self_monitoring: Option<bool>,
+}
+
+/// An alarm priority as written: `priority = 2` or `priority = "2"`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(untagged)]
+pub(crate) enum RawPriority {
+    Number(i64),
+    Text(String),
+}
+
+/// `[[reactors.<id>.alarm]]`: one rationalised operator alarm.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawAlarm {
+    pub id: String,
+    /// `"approach"` or `"key-measured"`.
+    pub on: String,
+    pub above: Option<String>,
+    pub below: Option<String>,
+    pub deadband: Option<String>,
+    pub on_delay: Option<String>,
+    pub off_delay: Option<String>,
+    pub realarm: Option<String>,
+    /// 1 (highest) to 4 (lowest); default 3.
+    pub priority: Option<RawPriority>,
+    pub latched: Option<bool>,
+    pub max_shelve: Option<String>,
+    pub rationale: String,
+}
+
+/// `[commands]`
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawCommands {
+    #[serde(default)]
+    pub allowed_users: Vec<String>,
+    #[serde(default)]
+    pub allowed_clients: Vec<String>,
+}

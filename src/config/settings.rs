@@ -1,11 +1,11 @@
 //! The validated settings: what the rest of eqwatch takes from the configuration (broker,
-//! journal, reactors as a core spec plus their wiring: topics, decoders, JSON Pointers).
+//! journal, reactors as a core spec plus their wiring: topics, decoders, JSON Pointers; who
+//! may send commands).
 
 use std::net::SocketAddr;
 use std::path::PathBuf;
 use std::time::Duration;
 
-use crate::config::validate::watch::CommandSettings;
 use crate::monitor::spec::{InputSpec, ReactorSpec, SteamRatioSpec};
 use crate::thermo::species::SpeciesDb;
 use crate::units::ScalarUnit;
@@ -178,3 +178,18 @@ impl SteamRatioSettings {
 
 // ---------------------------------------------------------------------------
 // Problems
+
+/// Who may send commands (the payload's `user` or `client_id` must be listed; the
+/// broker's ACL decides who may publish on the command topics at all).
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct CommandSettings {
+    pub allowed_users: Vec<String>,
+    pub allowed_clients: Vec<String>,
+}
+
+impl CommandSettings {
+    pub fn allows(&self, user: Option<&str>, client: Option<&str>) -> bool {
+        user.is_some_and(|u| self.allowed_users.iter().any(|a| a == u))
+            || client.is_some_and(|c| self.allowed_clients.iter().any(|a| a == c))
+    }
+}

@@ -1,6 +1,7 @@
 //! The `check` summary: one readable page per plant, what was understood from the file.
 
 use std::path::PathBuf;
+use std::time::Duration;
 
 use crate::composition::Basis;
 use crate::config::duration::show_duration;
@@ -8,7 +9,9 @@ use crate::config::settings::{
     BrokerSettings, CompositionSource, MqttProtocol, ReactorSettings, ScalarDecoder, ScalarSource,
     Settings, Wiring,
 };
+use crate::monitor::alarm::Direction;
 use crate::monitor::spec::{InputSpec, ReactorSpec, SteamRatioSpec};
+use crate::monitor::watch::{Figure, WatchSettings};
 use crate::thermo::species::SpeciesDb;
 use crate::units::{PressureUnit, ScalarUnit, TemperatureUnit};
 
@@ -268,7 +271,7 @@ fn reactor_rows(rows: &mut Rows, species: &SpeciesDb, reactor: &ReactorSettings)
     );
     analysis_rows(rows, spec, wiring);
     input_rows(rows, species, spec, wiring);
-    for (label, line) in crate::config::validate::watch::summary_lines(&spec.watch) {
+    for (label, line) in summary_lines(&spec.watch) {
         rows.row(label, line);
     }
 }
@@ -357,4 +360,103 @@ fn input_rows(rows: &mut Rows, species: &SpeciesDb, spec: &ReactorSpec, wiring: 
         "  transient",
         format!("above {} K/min", show_number(spec.transient_k_per_min)),
     );
+}
+
+fn days(ms: i64) -> String {
+    show_duration(Duration::from_millis(u64::try_from(ms).unwrap_or(0)))
+}
+
+/// Lines for `eqwatch check`: drift, alerts, alarms, off-line limit.
+fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
+    use crate::monitor::watch::BaselineSpec as B;
+    let d = &w.drift;
+    let mut out = Vec::new();
+    let baseline = match d.baseline {
+        B::Learn {
+            window_ms,
+            min_samples,
+        } => format!(
+            "baseline learned over {} (at least {min_samples} samples, σ ≥ {} K)",
+            days(window_ms),
+            d.sigma_floor_k
+        ),
+        B::Given {
+            approach_k,
+            sigma_k,
+        } => format!("baseline given: {approach_k} K, σ {sigma_k} K"),
+    };
+    out.push(("  drift", baseline));
+    out.push((
+        "",
+        format!(
+            "{} trend on {} aggregates ({}+ samples), {}{} aggregates before a trend; end of run {}",
+            d.trend.as_str(),
+            days(d.aggregate_ms),
+            d.min_per_aggregate,
+            d.trend_window_ms
+                .map_or(String::new(), |t| format!("last {}, ", days(t))),
+            d.min_aggregates,
+            d.end_of_run_limit_k
+                .map_or("not set".to_string(), |l| format!("at {l} K")),
+        ),
+    ));
+    let a = &w.alerts;
+    let mut alerts = Vec::new();
+    if let Some(r) = a.trend_above_k_per_day {
+        alerts.push(format!("trend > {r} K/d"));
+    }
+    if let Some(n) = a.end_of_run_within_days {
+        alerts.push(format!("end of run < {n} d"));
+    }
+    if a.cusum {
+        alerts.push("CUSUM".into());
+    }
+    if let Some(t) = a.data_quality_after_ms {
+        alerts.push(format!("no good result for {}", days(t)));
+    }
+    if a.self_monitoring && !w.alarms.is_empty() {
+        alerts.push("chattering and stale alarms".into());
+    }
+    out.push((
+        "  alerts",
+        if alerts.is_empty() {
+            "none".into()
+        } else {
+            alerts.join(", ")
+        },
+    ));
+    for (i, x) in w.alarms.iter().enumerate() {
+        let c = &x.config;
+        let delay = if c.on_delay_samples > 1 {
+            format!(", on-delay {} samples", c.on_delay_samples)
+        } else if c.on_delay_ms > 0 {
+            format!(", on-delay {}", days(c.on_delay_ms))
+        } else {
+            String::new()
+        };
+        out.push((
+            if i == 0 { "  alarms" } else { "" },
+            format!(
+                "{} {} {} {} {} (deadband {} {}{delay}, priority {})",
+                c.id,
+                match x.figure {
+                    Figure::Approach => "approach",
+                    Figure::KeyMeasured => "key component",
+                },
+                match c.direction {
+                    Direction::High => "above",
+                    Direction::Low => "below",
+                },
+                c.limit,
+                x.unit,
+                c.deadband,
+                x.unit,
+                c.priority.number()
+            ),
+        ));
+    }
+    if let Some(b) = w.offline_below_bar {
+        out.push(("  off line", format!("below {b:.3} bar abs")));
+    }
+    out
 }

@@ -1,111 +1,17 @@
-//! The drift, alert, alarm and command sections of the configuration: raw tables as
-//! written and their validation into [`WatchSettings`] and [`CommandSettings`], every
-//! problem with its key path.
+//! The drift, alert, alarm and command sections of the configuration: their validation
+//! into [`WatchSettings`] and [`CommandSettings`], every problem with its key path.
 
 use std::time::Duration;
 
-use serde::Deserialize;
-
 use crate::config::duration::{parse_duration, show_duration};
 use crate::config::error::Problems;
-use crate::config::raw::RawReactor;
+use crate::config::raw::{RawAlarm, RawAlerts, RawCommands, RawDrift, RawPriority, RawReactor};
+use crate::config::settings::CommandSettings;
 use crate::monitor::alarm::{AlarmConfig, Direction, Priority};
 use crate::monitor::watch::{
     AlarmSpec, BaselineSpec, DriftSettings, Figure, TrendMethod, WatchSettings,
 };
 use crate::units::{CompositionUnit, PressureUnit, split_quantity};
-
-/// `[reactors.<id>.drift]`
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(crate) struct RawDrift {
-    /// `"learn"` (default) or a given approach such as `"8 K"`.
-    pub baseline: Option<String>,
-    /// σ of a given baseline, e.g. `"0.5 K"`.
-    pub baseline_sigma: Option<String>,
-    pub baseline_window: Option<String>,
-    pub baseline_min_samples: Option<i64>,
-    pub sigma_floor: Option<String>,
-    pub ewma_lambda: Option<f64>,
-    pub ewma_l: Option<f64>,
-    pub cusum_k: Option<f64>,
-    pub cusum_h: Option<f64>,
-    /// Smallest level shift that counts as a step, e.g. `"3 K"` (default: h in K).
-    pub step: Option<String>,
-    /// `"least-squares"` (default) or `"theil-sen"`.
-    pub trend: Option<String>,
-    pub aggregate: Option<String>,
-    pub min_per_aggregate: Option<i64>,
-    pub trend_window: Option<String>,
-    pub min_aggregates: Option<i64>,
-    pub end_of_run_limit: Option<String>,
-}
-
-/// `[reactors.<id>.alerts]`
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(crate) struct RawAlerts {
-    /// e.g. `"0.05 K/d"`.
-    pub trend_above: Option<String>,
-    /// e.g. `"90 d"`.
-    pub end_of_run_within: Option<String>,
-    pub cusum: Option<bool>,
-    pub data_quality_after: Option<String>,
-    pub self_monitoring: Option<bool>,
-}
-
-/// An alarm priority as written: `priority = 2` or `priority = "2"`.
-#[derive(Debug, Clone, Deserialize)]
-#[serde(untagged)]
-pub(crate) enum RawPriority {
-    Number(i64),
-    Text(String),
-}
-
-/// `[[reactors.<id>.alarm]]`: one rationalised operator alarm.
-#[derive(Debug, Clone, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(crate) struct RawAlarm {
-    pub id: String,
-    /// `"approach"` or `"key-measured"`.
-    pub on: String,
-    pub above: Option<String>,
-    pub below: Option<String>,
-    pub deadband: Option<String>,
-    pub on_delay: Option<String>,
-    pub off_delay: Option<String>,
-    pub realarm: Option<String>,
-    /// 1 (highest) to 4 (lowest); default 3.
-    pub priority: Option<RawPriority>,
-    pub latched: Option<bool>,
-    pub max_shelve: Option<String>,
-    pub rationale: String,
-}
-
-/// `[commands]`
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(crate) struct RawCommands {
-    #[serde(default)]
-    pub allowed_users: Vec<String>,
-    #[serde(default)]
-    pub allowed_clients: Vec<String>,
-}
-
-/// Who may send commands (the payload's `user` or `client_id` must be listed; the
-/// broker's ACL decides who may publish on the command topics at all).
-#[derive(Debug, Clone, Default, PartialEq, Eq)]
-pub struct CommandSettings {
-    pub allowed_users: Vec<String>,
-    pub allowed_clients: Vec<String>,
-}
-
-impl CommandSettings {
-    pub fn allows(&self, user: Option<&str>, client: Option<&str>) -> bool {
-        user.is_some_and(|u| self.allowed_users.iter().any(|a| a == u))
-            || client.is_some_and(|c| self.allowed_clients.iter().any(|a| a == c))
-    }
-}
 
 pub(crate) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSettings {
     let Some(raw) = raw else {
@@ -632,105 +538,6 @@ fn priority(p: &mut Problems, path: &str, a: &RawAlarm) -> Priority {
             Priority::P3
         }
     }
-}
-
-fn days(ms: i64) -> String {
-    show_duration(Duration::from_millis(u64::try_from(ms).unwrap_or(0)))
-}
-
-/// Lines for `eqwatch check`: drift, alerts, alarms, off-line limit.
-pub(crate) fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
-    use crate::monitor::watch::BaselineSpec as B;
-    let d = &w.drift;
-    let mut out = Vec::new();
-    let baseline = match d.baseline {
-        B::Learn {
-            window_ms,
-            min_samples,
-        } => format!(
-            "baseline learned over {} (at least {min_samples} samples, σ ≥ {} K)",
-            days(window_ms),
-            d.sigma_floor_k
-        ),
-        B::Given {
-            approach_k,
-            sigma_k,
-        } => format!("baseline given: {approach_k} K, σ {sigma_k} K"),
-    };
-    out.push(("  drift", baseline));
-    out.push((
-        "",
-        format!(
-            "{} trend on {} aggregates ({}+ samples), {}{} aggregates before a trend; end of run {}",
-            d.trend.as_str(),
-            days(d.aggregate_ms),
-            d.min_per_aggregate,
-            d.trend_window_ms
-                .map_or(String::new(), |t| format!("last {}, ", days(t))),
-            d.min_aggregates,
-            d.end_of_run_limit_k
-                .map_or("not set".to_string(), |l| format!("at {l} K")),
-        ),
-    ));
-    let a = &w.alerts;
-    let mut alerts = Vec::new();
-    if let Some(r) = a.trend_above_k_per_day {
-        alerts.push(format!("trend > {r} K/d"));
-    }
-    if let Some(n) = a.end_of_run_within_days {
-        alerts.push(format!("end of run < {n} d"));
-    }
-    if a.cusum {
-        alerts.push("CUSUM".into());
-    }
-    if let Some(t) = a.data_quality_after_ms {
-        alerts.push(format!("no good result for {}", days(t)));
-    }
-    if a.self_monitoring && !w.alarms.is_empty() {
-        alerts.push("chattering and stale alarms".into());
-    }
-    out.push((
-        "  alerts",
-        if alerts.is_empty() {
-            "none".into()
-        } else {
-            alerts.join(", ")
-        },
-    ));
-    for (i, x) in w.alarms.iter().enumerate() {
-        let c = &x.config;
-        let delay = if c.on_delay_samples > 1 {
-            format!(", on-delay {} samples", c.on_delay_samples)
-        } else if c.on_delay_ms > 0 {
-            format!(", on-delay {}", days(c.on_delay_ms))
-        } else {
-            String::new()
-        };
-        out.push((
-            if i == 0 { "  alarms" } else { "" },
-            format!(
-                "{} {} {} {} {} (deadband {} {}{delay}, priority {})",
-                c.id,
-                match x.figure {
-                    Figure::Approach => "approach",
-                    Figure::KeyMeasured => "key component",
-                },
-                match c.direction {
-                    Direction::High => "above",
-                    Direction::Low => "below",
-                },
-                c.limit,
-                x.unit,
-                c.deadband,
-                x.unit,
-                c.priority.number()
-            ),
-        ));
-    }
-    if let Some(b) = w.offline_below_bar {
-        out.push(("  off line", format!("below {b:.3} bar abs")));
-    }
-    out
 }
 
 #[cfg(test)]
