@@ -46,7 +46,7 @@ pub fn load(path: &Path) -> Result<Settings, ConfigErrors> {
     from_str(&text, base)
 }
 
-pub(crate) fn species_db(p: &mut Problems, files: &[String], base: &Path) -> SpeciesDb {
+pub(crate) fn species_db(problems: &mut Problems, files: &[String], base: &Path) -> SpeciesDb {
     let mut db = SpeciesDb::builtin();
     for (i, f) in files.iter().enumerate() {
         let path = format!("species_files[{i}]");
@@ -54,10 +54,10 @@ pub(crate) fn species_db(p: &mut Problems, files: &[String], base: &Path) -> Spe
         match fs::read_to_string(&full) {
             Ok(text) => {
                 if let Err(e) = db.merge_toml(&text, f) {
-                    p.add(path, e.to_string());
+                    problems.add(path, e.to_string());
                 }
             }
-            Err(e) => p.add(
+            Err(e) => problems.add(
                 path,
                 format!("cannot read {}: {}", full.display(), io_reason(&e)),
             ),
@@ -67,16 +67,21 @@ pub(crate) fn species_db(p: &mut Problems, files: &[String], base: &Path) -> Spe
 }
 
 /// Reads a file that must exist and be readable; returns its full path.
-pub(crate) fn readable_file(p: &mut Problems, path: &str, base: &Path, given: &str) -> PathBuf {
+pub(crate) fn readable_file(
+    problems: &mut Problems,
+    path: &str,
+    base: &Path,
+    given: &str,
+) -> PathBuf {
     let full = base.join(given);
     if given.is_empty() {
-        p.add(path, "is empty; give a file path");
+        problems.add(path, "is empty; give a file path");
         return full;
     }
     match fs::File::open(&full).and_then(|f| f.metadata()) {
         Ok(m) if m.is_file() => {}
-        Ok(_) => p.add(path, format!("{} is not a file", full.display())),
-        Err(e) => p.add(
+        Ok(_) => problems.add(path, format!("{} is not a file", full.display())),
+        Err(e) => problems.add(
             path,
             format!("cannot read {}: {}", full.display(), io_reason(&e)),
         ),
@@ -86,13 +91,13 @@ pub(crate) fn readable_file(p: &mut Problems, path: &str, base: &Path, given: &s
 
 /// The broker password from `broker.password_file` (relative to `base`), without its final
 /// line break; a problem when the file cannot be read or is empty.
-pub(crate) fn password_file(p: &mut Problems, file: &str, base: &Path) -> Option<String> {
+pub(crate) fn password_file(problems: &mut Problems, file: &str, base: &Path) -> Option<String> {
     let full = base.join(file);
     match fs::read_to_string(&full) {
         Ok(text) => {
             let secret = text.trim_end_matches(['\r', '\n']).to_string();
             if secret.is_empty() {
-                p.add(
+                problems.add(
                     "broker.password_file",
                     format!("{} is empty", full.display()),
                 );
@@ -100,7 +105,7 @@ pub(crate) fn password_file(p: &mut Problems, file: &str, base: &Path) -> Option
             Some(secret)
         }
         Err(e) => {
-            p.add(
+            problems.add(
                 "broker.password_file",
                 format!("cannot read {}: {}", full.display(), io_reason(&e)),
             );

@@ -12,7 +12,7 @@ use crate::config::settings::{BrokerSettings, JournalSettings, MqttProtocol, Set
 use crate::config::validate::{DurationRule, NANOSECOND, duration_at};
 
 /// `mqtt://host[:port]` or `mqtts://host[:port]`: (tls, host, port).
-fn broker_url(p: &mut Problems, url: &str) -> (bool, String, u16) {
+fn broker_url(problems: &mut Problems, url: &str) -> (bool, String, u16) {
     let path = "broker.url";
     let expected =
         "expected mqtt://host[:port] or mqtts://host[:port], e.g. \"mqtt://127.0.0.1:1883\"";
@@ -27,13 +27,13 @@ fn broker_url(p: &mut Problems, url: &str) -> (bool, String, u16) {
     } else if scheme("mqtt://") {
         (false, written.get(7..).unwrap_or(""))
     } else {
-        p.add(path, format!("\"{url}\": unknown scheme; {expected}"));
+        problems.add(path, format!("\"{url}\": unknown scheme; {expected}"));
         return (false, String::new(), 1883);
     };
     let default_port = if tls { 8883 } else { 1883 };
     let rest = rest.strip_suffix('/').unwrap_or(rest);
     if rest.contains('@') {
-        p.add(
+        problems.add(
             path,
             format!(
                 "\"{url}\" carries user information; give broker.username and password_file or password_env instead"
@@ -42,7 +42,7 @@ fn broker_url(p: &mut Problems, url: &str) -> (bool, String, u16) {
         return (tls, String::new(), default_port);
     }
     if rest.contains(['/', '?', '#']) {
-        p.add(path, format!("\"{url}\" has a path or query; {expected}"));
+        problems.add(path, format!("\"{url}\" has a path or query; {expected}"));
         return (tls, String::new(), default_port);
     }
     let (host, port_text) = if let Some(inner) = rest.strip_prefix('[') {
@@ -51,17 +51,17 @@ fn broker_url(p: &mut Problems, url: &str) -> (bool, String, u16) {
                 Some(port) => (h, Some(port)),
                 None if after.is_empty() => (h, None),
                 None => {
-                    p.add(path, format!("\"{url}\": {expected}"));
+                    problems.add(path, format!("\"{url}\": {expected}"));
                     return (tls, String::new(), default_port);
                 }
             },
             None => {
-                p.add(path, format!("\"{url}\": `[` without `]`; {expected}"));
+                problems.add(path, format!("\"{url}\": `[` without `]`; {expected}"));
                 return (tls, String::new(), default_port);
             }
         }
     } else if rest.matches(':').count() > 1 {
-        p.add(
+        problems.add(
             path,
             format!("\"{url}\": write an IPv6 address in brackets, e.g. mqtt://[::1]:1883"),
         );
@@ -73,14 +73,14 @@ fn broker_url(p: &mut Problems, url: &str) -> (bool, String, u16) {
         }
     };
     if host.is_empty() || host.contains(char::is_whitespace) {
-        p.add(path, format!("\"{url}\" has no host; {expected}"));
+        problems.add(path, format!("\"{url}\" has no host; {expected}"));
     }
     let port = match port_text {
         None => default_port,
         Some(t) => match t.parse::<u16>() {
             Ok(n) if n > 0 => n,
             _ => {
-                p.add(
+                problems.add(
                     path,
                     format!("\"{url}\": port \"{t}\" is not a number from 1 to 65535"),
                 );
@@ -93,22 +93,22 @@ fn broker_url(p: &mut Problems, url: &str) -> (bool, String, u16) {
 }
 
 pub(crate) fn broker(
-    p: &mut Problems,
+    problems: &mut Problems,
     raw: &RawBroker,
     site: &str,
     base: &Path,
     env: EnvLookup,
 ) -> BrokerSettings {
-    let (tls, host, port) = broker_url(p, &raw.url);
-    let protocol = protocol(p, raw);
-    let client_id = client_id(p, raw, site, protocol);
-    let keep_alive = keep_alive(p, raw);
-    let session_expiry = session_expiry(p, raw);
-    let (username, password) = credentials(p, raw, base, env, protocol);
-    let [ca_file, client_cert_file, client_key_file] = tls_files(p, raw, base, tls);
-    let max_packet_bytes = max_packet_bytes(p, raw);
-    let (reconnect_min, reconnect_max) = reconnect_waits(p, raw);
-    let inflight = inflight(p, raw);
+    let (tls, host, port) = broker_url(problems, &raw.url);
+    let protocol = protocol(problems, raw);
+    let client_id = client_id(problems, raw, site, protocol);
+    let keep_alive = keep_alive(problems, raw);
+    let session_expiry = session_expiry(problems, raw);
+    let (username, password) = credentials(problems, raw, base, env, protocol);
+    let [ca_file, client_cert_file, client_key_file] = tls_files(problems, raw, base, tls);
+    let max_packet_bytes = max_packet_bytes(problems, raw);
+    let (reconnect_min, reconnect_max) = reconnect_waits(problems, raw);
+    let inflight = inflight(problems, raw);
     BrokerSettings {
         host,
         port,
@@ -130,18 +130,18 @@ pub(crate) fn broker(
 }
 
 /// `broker.protocol`: MQTT 3.1.1 (the default); 5 is refused by this build.
-fn protocol(p: &mut Problems, raw: &RawBroker) -> MqttProtocol {
+fn protocol(problems: &mut Problems, raw: &RawBroker) -> MqttProtocol {
     match raw.protocol.as_deref().map(str::trim) {
         None | Some("3.1.1") | Some("311") => MqttProtocol::V311,
         Some("5") | Some("5.0") => {
-            p.add(
+            problems.add(
                 "broker.protocol",
                 "MQTT 5 is not supported by this build yet; use \"3.1.1\" (a persistent session comes from session_expiry)",
             );
             MqttProtocol::V5
         }
         Some(other) => {
-            p.add(
+            problems.add(
                 "broker.protocol",
                 format!("unknown MQTT protocol \"{other}\"; expected \"3.1.1\" or \"5\""),
             );
@@ -151,7 +151,12 @@ fn protocol(p: &mut Problems, raw: &RawBroker) -> MqttProtocol {
 }
 
 /// `broker.client_id`, by default `eqwatch-<site>`, within what the protocol allows.
-fn client_id(p: &mut Problems, raw: &RawBroker, site: &str, protocol: MqttProtocol) -> String {
+fn client_id(
+    problems: &mut Problems,
+    raw: &RawBroker,
+    site: &str,
+    protocol: MqttProtocol,
+) -> String {
     let client_id = raw
         .client_id
         .clone()
@@ -163,13 +168,13 @@ fn client_id(p: &mut Problems, raw: &RawBroker, site: &str, protocol: MqttProtoc
         ""
     };
     if client_id.is_empty() {
-        p.add(
+        problems.add(
             id_path,
             "is empty; give the broker a client id, e.g. \"eqwatch-baw1\"",
         );
     } else if protocol == MqttProtocol::V311 && client_id.len() > 23 {
         // MQTT 3.1.1 §3.1.3.1: servers must accept 1 to 23 bytes; longer ids may be refused.
-        p.add(
+        problems.add(
             id_path,
             format!(
                 "\"{client_id}\" is {} bytes{from_default}; MQTT 3.1.1 brokers need accept only 1 to 23 (spec 3.1.3.1): shorten it",
@@ -177,18 +182,18 @@ fn client_id(p: &mut Problems, raw: &RawBroker, site: &str, protocol: MqttProtoc
             ),
         );
     } else if client_id.len() > 65_535 {
-        p.add(id_path, "is longer than MQTT allows (65535 bytes)");
+        problems.add(id_path, "is longer than MQTT allows (65535 bytes)");
     }
     client_id
 }
 
 /// `broker.keep_alive`: whole seconds from 5 s to 65535 s.
-fn keep_alive(p: &mut Problems, raw: &RawBroker) -> Duration {
+fn keep_alive(problems: &mut Problems, raw: &RawBroker) -> Duration {
     // rumqttc 0.25.1 asserts keep-alive >= 5 s for MQTT 5 (src/v5/mod.rs
     // `MqttOptions::set_keep_alive`) and sends whole seconds as u16 in both protocols
     // (src/eventloop.rs, src/v5/eventloop.rs: `as_secs() as u16`).
     let keep_alive = duration_at(
-        p,
+        problems,
         "broker.keep_alive",
         raw.keep_alive.as_deref(),
         DurationRule {
@@ -198,7 +203,7 @@ fn keep_alive(p: &mut Problems, raw: &RawBroker) -> Duration {
         },
     );
     if keep_alive.subsec_nanos() != 0 {
-        p.add(
+        problems.add(
             "broker.keep_alive",
             format!(
                 "{} is not a whole number of seconds (MQTT counts keep-alive in seconds)",
@@ -206,7 +211,7 @@ fn keep_alive(p: &mut Problems, raw: &RawBroker) -> Duration {
             ),
         );
     } else if keep_alive.as_secs() > u64::from(u16::MAX) {
-        p.add(
+        problems.add(
             "broker.keep_alive",
             format!(
                 "{} is above the MQTT limit of 65535 s",
@@ -218,9 +223,9 @@ fn keep_alive(p: &mut Problems, raw: &RawBroker) -> Duration {
 }
 
 /// `broker.session_expiry`: whole seconds, zero (no persistent session) by default.
-fn session_expiry(p: &mut Problems, raw: &RawBroker) -> Duration {
+fn session_expiry(problems: &mut Problems, raw: &RawBroker) -> Duration {
     let session_expiry = duration_at(
-        p,
+        problems,
         "broker.session_expiry",
         raw.session_expiry.as_deref(),
         DurationRule {
@@ -230,7 +235,7 @@ fn session_expiry(p: &mut Problems, raw: &RawBroker) -> Duration {
         },
     );
     if session_expiry.subsec_nanos() != 0 {
-        p.add(
+        problems.add(
             "broker.session_expiry",
             format!(
                 "{} is not a whole number of seconds",
@@ -239,7 +244,7 @@ fn session_expiry(p: &mut Problems, raw: &RawBroker) -> Duration {
         );
     } else if session_expiry.as_secs() > u64::from(u32::MAX) {
         // MQTT 5 §3.1.2.11.2: a four-byte interval in seconds.
-        p.add(
+        problems.add(
             "broker.session_expiry",
             format!(
                 "{} is above the MQTT limit of 4294967295 s",
@@ -252,7 +257,7 @@ fn session_expiry(p: &mut Problems, raw: &RawBroker) -> Duration {
 
 /// `broker.username` and the password from `password_file` or `password_env` (not both).
 fn credentials(
-    p: &mut Problems,
+    problems: &mut Problems,
     raw: &RawBroker,
     base: &Path,
     env: EnvLookup,
@@ -260,7 +265,7 @@ fn credentials(
 ) -> (Option<String>, Option<String>) {
     let username = match &raw.username {
         Some(u) if u.is_empty() => {
-            p.add(
+            problems.add(
                 "broker.username",
                 "is empty; give the user name or remove the key",
             );
@@ -270,16 +275,16 @@ fn credentials(
     };
     let password = match (&raw.password_file, &raw.password_env) {
         (Some(_), Some(_)) => {
-            p.add(
+            problems.add(
                 "broker.password_env",
                 "give password_file or password_env, not both",
             );
             None
         }
-        (Some(file), None) => password_file(p, file, base),
+        (Some(file), None) => password_file(problems, file, base),
         (None, Some(var)) => {
             if var.is_empty() || var.contains(['=', '\0']) {
-                p.add(
+                problems.add(
                     "broker.password_env",
                     format!("\"{var}\" is not an environment variable name"),
                 );
@@ -287,7 +292,7 @@ fn credentials(
             } else {
                 match env(var) {
                     Ok(secret) if secret.is_empty() => {
-                        p.add(
+                        problems.add(
                             "broker.password_env",
                             format!("environment variable {var} is empty"),
                         );
@@ -295,14 +300,14 @@ fn credentials(
                     }
                     Ok(secret) => Some(secret),
                     Err(std::env::VarError::NotPresent) => {
-                        p.add(
+                        problems.add(
                             "broker.password_env",
                             format!("environment variable {var} is not set"),
                         );
                         None
                     }
                     Err(std::env::VarError::NotUnicode(_)) => {
-                        p.add(
+                        problems.add(
                             "broker.password_env",
                             format!("environment variable {var} is not valid UTF-8"),
                         );
@@ -316,7 +321,7 @@ fn credentials(
     let has_password = raw.password_file.is_some() || raw.password_env.is_some();
     if has_password && raw.username.is_none() && protocol == MqttProtocol::V311 {
         // MQTT 3.1.1 §3.1.2.9: the password flag needs the user name flag.
-        p.add(
+        problems.add(
             "broker.username",
             "missing; MQTT 3.1.1 sends a password only with a user name",
         );
@@ -326,29 +331,34 @@ fn credentials(
 
 /// `broker.ca_file`, `client_cert_file` and `client_key_file`: readable, only for mqtts://,
 /// a certificate and its key together.
-fn tls_files(p: &mut Problems, raw: &RawBroker, base: &Path, tls: bool) -> [Option<PathBuf>; 3] {
+fn tls_files(
+    problems: &mut Problems,
+    raw: &RawBroker,
+    base: &Path,
+    tls: bool,
+) -> [Option<PathBuf>; 3] {
     let mut tls_file = |key: &str, given: &Option<String>| -> Option<PathBuf> {
         let given = given.as_ref()?;
         let path = format!("broker.{key}");
         if !tls {
-            p.add(
+            problems.add(
                 path,
                 "only for an mqtts:// broker url; remove it or use mqtts://",
             );
             return None;
         }
-        Some(readable_file(p, &path, base, given))
+        Some(readable_file(problems, &path, base, given))
     };
     let ca_file = tls_file("ca_file", &raw.ca_file);
     let client_cert_file = tls_file("client_cert_file", &raw.client_cert_file);
     let client_key_file = tls_file("client_key_file", &raw.client_key_file);
     if tls {
         match (&raw.client_cert_file, &raw.client_key_file) {
-            (Some(_), None) => p.add(
+            (Some(_), None) => problems.add(
                 "broker.client_key_file",
                 "missing; a client certificate needs its key",
             ),
-            (None, Some(_)) => p.add(
+            (None, Some(_)) => problems.add(
                 "broker.client_cert_file",
                 "missing; a client key needs its certificate",
             ),
@@ -359,14 +369,14 @@ fn tls_files(p: &mut Problems, raw: &RawBroker, base: &Path, tls: bool) -> [Opti
 }
 
 /// `broker.max_packet_bytes`: 1 KiB to 256 MiB, 256 KiB by default.
-fn max_packet_bytes(p: &mut Problems, raw: &RawBroker) -> usize {
+fn max_packet_bytes(problems: &mut Problems, raw: &RawBroker) -> usize {
     const MIN_PACKET: i64 = 1024;
     const MAX_PACKET: i64 = 256 * 1024 * 1024;
     match raw.max_packet_bytes {
         None => 256 * 1024,
         Some(n) if (MIN_PACKET..=MAX_PACKET).contains(&n) => n as usize,
         Some(n) => {
-            p.add(
+            problems.add(
                 "broker.max_packet_bytes",
                 format!(
                     "{n} is outside 1024 (1 KiB) to 268435456 (256 MiB, the MQTT packet limit)"
@@ -378,9 +388,9 @@ fn max_packet_bytes(p: &mut Problems, raw: &RawBroker) -> usize {
 }
 
 /// `broker.reconnect_min` and `reconnect_max`: above zero, the first not above the longest.
-fn reconnect_waits(p: &mut Problems, raw: &RawBroker) -> (Duration, Duration) {
+fn reconnect_waits(problems: &mut Problems, raw: &RawBroker) -> (Duration, Duration) {
     let reconnect_min = duration_at(
-        p,
+        problems,
         "broker.reconnect_min",
         raw.reconnect_min.as_deref(),
         DurationRule {
@@ -390,7 +400,7 @@ fn reconnect_waits(p: &mut Problems, raw: &RawBroker) -> (Duration, Duration) {
         },
     );
     let reconnect_max = duration_at(
-        p,
+        problems,
         "broker.reconnect_max",
         raw.reconnect_max.as_deref(),
         DurationRule {
@@ -400,7 +410,7 @@ fn reconnect_waits(p: &mut Problems, raw: &RawBroker) -> (Duration, Duration) {
         },
     );
     if reconnect_min > reconnect_max {
-        p.add(
+        problems.add(
             "broker.reconnect_min",
             format!(
                 "{} is above reconnect_max ({}); the first wait must not exceed the longest",
@@ -413,13 +423,13 @@ fn reconnect_waits(p: &mut Problems, raw: &RawBroker) -> (Duration, Duration) {
 }
 
 /// `broker.inflight`: 1 to 65535, 64 by default.
-fn inflight(p: &mut Problems, raw: &RawBroker) -> u16 {
+fn inflight(problems: &mut Problems, raw: &RawBroker) -> u16 {
     match raw.inflight {
         None => 64,
         Some(n) => match u16::try_from(n) {
             Ok(v) if v > 0 => v,
             _ => {
-                p.add(
+                problems.add(
                     "broker.inflight",
                     format!("{n} is outside 1 to 65535 (MQTT packet ids are 16-bit)"),
                 );
@@ -429,9 +439,9 @@ fn inflight(p: &mut Problems, raw: &RawBroker) -> u16 {
     }
 }
 
-pub(crate) fn journal(p: &mut Problems, raw: &RawJournal, base: &Path) -> JournalSettings {
+pub(crate) fn journal(problems: &mut Problems, raw: &RawJournal, base: &Path) -> JournalSettings {
     if raw.dir.trim().is_empty() {
-        p.add(
+        problems.add(
             "journal.dir",
             "is empty; give a folder, e.g. \"var/journal\"",
         );
@@ -441,7 +451,7 @@ pub(crate) fn journal(p: &mut Problems, raw: &RawJournal, base: &Path) -> Journa
         None => 16 * 1024 * 1024,
         Some(n) if n >= MIN_FILE => n,
         Some(n) => {
-            p.add(
+            problems.add(
                 "journal.max_file_bytes",
                 format!("{n} is below 4096 bytes; a journal file holds many records"),
             );
@@ -452,7 +462,7 @@ pub(crate) fn journal(p: &mut Problems, raw: &RawJournal, base: &Path) -> Journa
         None => (256 * 1024 * 1024).max(max_file_bytes),
         Some(n) if n >= max_file_bytes => n,
         Some(n) => {
-            p.add(
+            problems.add(
                 "journal.max_total_bytes",
                 format!("{n} is below journal.max_file_bytes ({max_file_bytes})"),
             );
@@ -460,7 +470,7 @@ pub(crate) fn journal(p: &mut Problems, raw: &RawJournal, base: &Path) -> Journa
         }
     };
     let fsync_interval = duration_at(
-        p,
+        problems,
         "journal.fsync_interval",
         raw.fsync_interval.as_deref(),
         DurationRule {
@@ -484,10 +494,10 @@ pub(crate) fn journal(p: &mut Problems, raw: &RawJournal, base: &Path) -> Journa
 /// Replaces the configured broker address with `url` (`mqtt://host[:port]` or
 /// `mqtts://...`), as `eqwatch run --broker` does; validated like the file's `broker.url`.
 pub fn override_broker(settings: &mut Settings, url: &str) -> Result<(), ConfigErrors> {
-    let mut p = Problems(Vec::new());
-    let (tls, host, port) = broker_url(&mut p, url);
-    if !p.is_empty() {
-        return Err(p.into_errors());
+    let mut problems = Problems(Vec::new());
+    let (tls, host, port) = broker_url(&mut problems, url);
+    if !problems.is_empty() {
+        return Err(problems.into_errors());
     }
     settings.broker.tls = tls;
     settings.broker.host = host;

@@ -18,7 +18,7 @@ use crate::units::{CompositionUnit, PressureUnit, ScalarUnit, TemperatureUnit, s
 /// Checks a JSON Pointer (RFC 6901 §3). `optional`: `""` means "not read" and gives
 /// `None`; otherwise `""` is the whole document.
 fn pointer(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: String,
     given: Option<&str>,
     default: &str,
@@ -29,7 +29,7 @@ fn pointer(
         return None;
     }
     if !text.is_empty() && !text.starts_with('/') {
-        p.add(
+        problems.add(
             path,
             format!("\"{text}\" is not a JSON Pointer (RFC 6901); it starts with `/`, e.g. \"{default}\""),
         );
@@ -39,7 +39,7 @@ fn pointer(
         .match_indices('~')
         .any(|(i, _)| !matches!(text.as_bytes().get(i + 1), Some(b'0' | b'1')));
     if bad_escape {
-        p.add(
+        problems.add(
             path,
             format!("\"{text}\": `~` must be written ~0, and `/` inside a name ~1 (RFC 6901)"),
         );
@@ -56,7 +56,7 @@ pub(crate) struct PointerKeys<'a> {
 }
 
 pub(crate) fn decoder(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     name: Option<&str>,
     keys: PointerKeys,
@@ -65,22 +65,28 @@ pub(crate) fn decoder(
     match name.as_str() {
         "json" => ScalarDecoder::Json {
             value_pointer: pointer(
-                p,
+                problems,
                 format!("{path}.value_pointer"),
                 keys.value,
                 "/value",
                 false,
             )
             .unwrap_or_else(|| "/value".to_string()),
-            ts_pointer: pointer(p, format!("{path}.ts_pointer"), keys.ts, "/ts", true),
+            ts_pointer: pointer(problems, format!("{path}.ts_pointer"), keys.ts, "/ts", true),
             quality_pointer: pointer(
-                p,
+                problems,
                 format!("{path}.quality_pointer"),
                 keys.quality,
                 "/quality",
                 true,
             ),
-            unit_pointer: pointer(p, format!("{path}.unit_pointer"), keys.unit, "/unit", true),
+            unit_pointer: pointer(
+                problems,
+                format!("{path}.unit_pointer"),
+                keys.unit,
+                "/unit",
+                true,
+            ),
         },
         "number" => {
             for (key, given) in [
@@ -90,7 +96,7 @@ pub(crate) fn decoder(
                 ("unit_pointer", keys.unit),
             ] {
                 if given.is_some() {
-                    p.add(
+                    problems.add(
                         format!("{path}.{key}"),
                         "only with decoder = \"json\"; a \"number\" payload is the bare value",
                     );
@@ -99,7 +105,7 @@ pub(crate) fn decoder(
             ScalarDecoder::Number
         }
         _ => {
-            p.add(
+            problems.add(
                 format!("{path}.decoder"),
                 format!("unknown decoder \"{name}\"; expected \"json\" or \"number\""),
             );
@@ -162,7 +168,7 @@ impl<'a> From<&'a RawSteamRatio> for ScalarFields<'a> {
 }
 
 pub(crate) fn scalar(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     f: ScalarFields,
     kind: ScalarKind,
@@ -170,7 +176,7 @@ pub(crate) fn scalar(
     let topic = match f.topic {
         Some(t) => t.to_string(),
         None => {
-            p.add(
+            problems.add(
                 format!("{path}.topic"),
                 "missing; give the topic the instrument publishes to",
             );
@@ -179,17 +185,17 @@ pub(crate) fn scalar(
     };
     let tag = match f.tag {
         Some(t) if t.trim().is_empty() => {
-            p.add(format!("{path}.tag"), "is empty; give the instrument tag");
+            problems.add(format!("{path}.tag"), "is empty; give the instrument tag");
             String::new()
         }
         Some(t) => t.trim().to_string(),
         None => topic.clone(),
     };
-    let decoder = decoder(p, path, f.decoder, f.pointers);
+    let decoder = decoder(problems, path, f.decoder, f.pointers);
     let unit_path = format!("{path}.unit");
     let unit = match (kind, f.unit) {
         (ScalarKind::Temperature, None) => {
-            p.add(
+            problems.add(
                 unit_path,
                 "missing; give the unit the instrument sends, e.g. \"degC\" or \"K\"",
             );
@@ -198,12 +204,12 @@ pub(crate) fn scalar(
         (ScalarKind::Temperature, Some(u)) => match TemperatureUnit::parse(u) {
             Ok(t) => ScalarUnit::Temperature(t),
             Err(e) => {
-                p.add(unit_path, unit_message(&e));
+                problems.add(unit_path, unit_message(&e));
                 ScalarUnit::Temperature(TemperatureUnit::Kelvin)
             }
         },
         (ScalarKind::Pressure, None) => {
-            p.add(
+            problems.add(
                 unit_path,
                 "missing; give the unit with its reference, e.g. \"barg\" (gauge) or \"bara\" (absolute)",
             );
@@ -215,7 +221,7 @@ pub(crate) fn scalar(
         (ScalarKind::Pressure, Some(u)) => match PressureUnit::parse(u) {
             Ok(pu) => ScalarUnit::Pressure(pu),
             Err(e) => {
-                p.add(unit_path, unit_message(&e));
+                problems.add(unit_path, unit_message(&e));
                 ScalarUnit::Pressure(PressureUnit {
                     bar_per_unit: 1.0,
                     gauge: false,
@@ -225,7 +231,7 @@ pub(crate) fn scalar(
         (ScalarKind::Ratio, _) => ScalarUnit::Ratio,
     };
     let max_age = duration_at(
-        p,
+        problems,
         &format!("{path}.max_age"),
         f.max_age,
         DurationRule {
@@ -262,27 +268,27 @@ fn common_topic_prefix<'a>(topics: impl Iterator<Item = &'a str>) -> String {
 }
 
 pub(crate) fn composition(
-    p: &mut Problems,
+    problems: &mut Problems,
     db: &SpeciesDb,
     reactor_path: &str,
     raw: &RawComposition,
     basis: Option<Basis>,
 ) -> Option<(AnalysisSpec, CompositionSource, Vec<usize>)> {
     let path = format!("{reactor_path}.composition");
-    let start = p.len();
+    let start = problems.len();
     let unit = match raw.unit.as_deref() {
         None => CompositionUnit::Percent,
         Some(u) => CompositionUnit::parse(u).unwrap_or_else(|e| {
-            p.add(format!("{path}.unit"), unit_message(&e));
+            problems.add(format!("{path}.unit"), unit_message(&e));
             CompositionUnit::Percent
         }),
     };
-    let comps = components(p, db, &path, raw, basis);
-    let source = analysis_source(p, db, &path, raw, &comps);
+    let comps = components(problems, db, &path, raw, basis);
+    let source = analysis_source(problems, db, &path, raw, &comps);
     let Components { species, names } = comps;
     let tag = match (&raw.tag, &source) {
         (Some(t), _) if t.trim().is_empty() => {
-            p.add(format!("{path}.tag"), "is empty; give the analyser tag");
+            problems.add(format!("{path}.tag"), "is empty; give the analyser tag");
             String::new()
         }
         (Some(t), _) => t.trim().to_string(),
@@ -294,10 +300,10 @@ pub(crate) fn composition(
     };
     let sum_tolerance = match raw.sum_tolerance.as_deref() {
         None => 0.02,
-        Some(text) => sum_tolerance(p, &format!("{path}.sum_tolerance"), text),
+        Some(text) => sum_tolerance(problems, &format!("{path}.sum_tolerance"), text),
     };
     let lag = duration_at(
-        p,
+        problems,
         &format!("{path}.lag"),
         raw.lag.as_deref(),
         DurationRule {
@@ -307,7 +313,7 @@ pub(crate) fn composition(
         },
     );
     let max_age = duration_at(
-        p,
+        problems,
         &format!("{path}.max_age"),
         raw.max_age.as_deref(),
         DurationRule {
@@ -316,11 +322,11 @@ pub(crate) fn composition(
             why_min: "an analysis is stale after this",
         },
     );
-    let detection_limits = detection_limits(p, &path, raw, &names);
+    let detection_limits = detection_limits(problems, &path, raw, &names);
     let (Some(source), Some(basis)) = (source, basis) else {
         return None;
     };
-    if p.len() > start {
+    if problems.len() > start {
         return None;
     }
     let delivery = match source {
@@ -352,7 +358,7 @@ struct Components {
 
 /// `components`: known species, each once, no water on a dry basis.
 fn components(
-    p: &mut Problems,
+    problems: &mut Problems,
     db: &SpeciesDb,
     path: &str,
     raw: &RawComposition,
@@ -361,7 +367,7 @@ fn components(
     let water = db.index_of("H2O");
     let mut species: Vec<usize> = Vec::new();
     if raw.components.is_empty() {
-        p.add(
+        problems.add(
             format!("{path}.components"),
             "no components; list the species the analyser reports, e.g. [\"H2\", \"N2\", \"CO\"]",
         );
@@ -369,16 +375,16 @@ fn components(
     for (i, c) in raw.components.iter().enumerate() {
         let ipath = format!("{path}.components[{i}]");
         match db.index_of(c.trim()) {
-            None => p.add(
+            None => problems.add(
                 ipath,
                 format!("unknown species \"{c}\"{}", unknown_hint(db, c.trim())),
             ),
             Some(s) if species.contains(&s) => {
-                p.add(ipath, format!("{} is listed twice", db.get(s).name));
+                problems.add(ipath, format!("{} is listed twice", db.get(s).name));
             }
             Some(s) => {
                 if basis == Some(Basis::Dry) && Some(s) == water {
-                    p.add(
+                    problems.add(
                         ipath,
                         "H2O on a dry-basis analysis; a dry analyser sees the gas after its water is knocked out: remove H2O and give the water as steam_ratio",
                     );
@@ -404,7 +410,7 @@ fn scalar_keys(raw: &RawComposition) -> PointerKeys<'_> {
 /// Where the analysis comes from: one analyser message (`topic`) or one topic per component
 /// (`topics`), exactly one of them.
 fn analysis_source(
-    p: &mut Problems,
+    problems: &mut Problems,
     db: &SpeciesDb,
     path: &str,
     raw: &RawComposition,
@@ -413,27 +419,27 @@ fn analysis_source(
     let path = path.to_string();
     match (&raw.topic, &raw.topics) {
         (Some(_), Some(_)) => {
-            p.add(
+            problems.add(
                 path.clone(),
                 "give topic (one analyser message with every component) or topics (one topic per component), not both",
             );
             None
         }
         (None, None) => {
-            p.add(
+            problems.add(
                 format!("{path}.topic"),
                 "missing; give topic = \"...\" (one message with every component) or topics = { H2 = \"...\", ... } (one per component)",
             );
             None
         }
-        (Some(topic), None) => Some(analyser_source(p, &path, raw, topic)),
-        (None, Some(_)) => Some(per_component_source(p, db, &path, raw, comps)),
+        (Some(topic), None) => Some(analyser_source(problems, &path, raw, topic)),
+        (None, Some(_)) => Some(per_component_source(problems, db, &path, raw, comps)),
     }
 }
 
 /// One analyser message with every component, and its JSON Pointers.
 fn analyser_source(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     raw: &RawComposition,
     topic: &str,
@@ -444,7 +450,7 @@ fn analyser_source(
         ("value_pointer", &raw.value_pointer),
     ] {
         if given.is_some() {
-            p.add(
+            problems.add(
                 format!("{path}.{key}"),
                 "only with topics (one topic per component); an analyser message is JSON with values_pointer",
             );
@@ -453,30 +459,36 @@ fn analyser_source(
     CompositionSource::Analyser {
         topic: topic.to_string(),
         values_pointer: pointer(
-            p,
+            problems,
             format!("{path}.values_pointer"),
             raw.values_pointer.as_deref(),
             "/values",
             false,
         )
         .unwrap_or_else(|| "/values".to_string()),
-        ts_pointer: pointer(p, format!("{path}.ts_pointer"), scalar_keys.ts, "/ts", true),
+        ts_pointer: pointer(
+            problems,
+            format!("{path}.ts_pointer"),
+            scalar_keys.ts,
+            "/ts",
+            true,
+        ),
         unit_pointer: pointer(
-            p,
+            problems,
             format!("{path}.unit_pointer"),
             scalar_keys.unit,
             "/unit",
             true,
         ),
         basis_pointer: pointer(
-            p,
+            problems,
             format!("{path}.basis_pointer"),
             raw.basis_pointer.as_deref(),
             "/basis",
             true,
         ),
         quality_pointer: pointer(
-            p,
+            problems,
             format!("{path}.quality_pointer"),
             scalar_keys.quality,
             "/quality",
@@ -487,7 +499,7 @@ fn analyser_source(
 
 /// One topic per component, each component with its topic, and their decoder.
 fn per_component_source(
-    p: &mut Problems,
+    problems: &mut Problems,
     db: &SpeciesDb,
     path: &str,
     raw: &RawComposition,
@@ -500,18 +512,18 @@ fn per_component_source(
         ("basis_pointer", &raw.basis_pointer),
     ] {
         if given.is_some() {
-            p.add(
+            problems.add(
                 format!("{path}.{key}"),
                 "only with topic (one analyser message with every component)",
             );
         }
     }
-    let decoder = decoder(p, path, raw.decoder.as_deref(), scalar_keys);
+    let decoder = decoder(problems, path, raw.decoder.as_deref(), scalar_keys);
     let mut by_species: Vec<(usize, &String)> = Vec::new();
     for (name, topic) in raw.topics.iter().flatten() {
         let kpath = key_path(&format!("{path}.topics"), name);
         match db.index_of(name.trim()) {
-            None => p.add(
+            None => problems.add(
                 kpath,
                 format!(
                     "unknown species \"{name}\"{}",
@@ -519,9 +531,9 @@ fn per_component_source(
                 ),
             ),
             Some(s) if by_species.iter().any(|(x, _)| *x == s) => {
-                p.add(kpath, format!("{} has two topics", db.get(s).name));
+                problems.add(kpath, format!("{} has two topics", db.get(s).name));
             }
-            Some(s) if !species.contains(&s) => p.add(
+            Some(s) if !species.contains(&s) => problems.add(
                 kpath,
                 format!(
                     "{} is not in {path}.components; add it there or remove its topic",
@@ -535,7 +547,7 @@ fn per_component_source(
     for (&s, name) in species.iter().zip(names) {
         match by_species.iter().find(|(x, _)| *x == s) {
             Some((_, t)) => topics.push((name.clone(), (*t).clone())),
-            None => p.add(
+            None => problems.add(
                 format!("{path}.topics"),
                 format!("no topic for {name}; every component needs one"),
             ),
@@ -546,7 +558,7 @@ fn per_component_source(
 
 /// `detection_limits`: per component, above zero and below 100 mol%.
 fn detection_limits(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     raw: &RawComposition,
     names: &[String],
@@ -555,7 +567,7 @@ fn detection_limits(
     for (sp, text) in raw.detection_limits.iter().flatten() {
         let key = key_path(&format!("{path}.detection_limits"), sp);
         let Some(i) = names.iter().position(|n| n.eq_ignore_ascii_case(sp.trim())) else {
-            p.add(
+            problems.add(
                 key,
                 format!(
                     "\"{sp}\" is not one of this analyser's components ({})",
@@ -566,11 +578,11 @@ fn detection_limits(
         };
         match composition_amount("detection limit", text) {
             Ok(f) if f > 0.0 && f < 1.0 => detection_limits[i] = Some(f),
-            Ok(_) => p.add(
+            Ok(_) => problems.add(
                 key,
                 format!("\"{text}\" must be above zero and below 100 mol%"),
             ),
-            Err(m) => p.add(key, m),
+            Err(m) => problems.add(key, m),
         }
     }
     detection_limits
@@ -591,16 +603,16 @@ pub(crate) fn composition_amount(what: &'static str, text: &str) -> Result<f64, 
         })
 }
 
-pub(crate) fn sum_tolerance(p: &mut Problems, path: &str, text: &str) -> f64 {
+pub(crate) fn sum_tolerance(problems: &mut Problems, path: &str, text: &str) -> f64 {
     let parsed = composition_amount("sum tolerance", text);
     match parsed {
         Ok(f) if (0.0..1.0).contains(&f) => f,
         Ok(_) => {
-            p.add(path, format!("\"{text}\" is outside 0 to 100 mol%"));
+            problems.add(path, format!("\"{text}\" is outside 0 to 100 mol%"));
             0.02
         }
         Err(m) => {
-            p.add(path, m);
+            problems.add(path, m);
             0.02
         }
     }
@@ -615,7 +627,7 @@ pub(crate) fn kelvin_per_degree(unit: &str) -> Option<f64> {
     }
 }
 
-pub(crate) fn transient(p: &mut Problems, path: &str, text: &str) -> f64 {
+pub(crate) fn transient(problems: &mut Problems, path: &str, text: &str) -> f64 {
     let expected = "expected a rate such as \"2 K/min\" (K, degC or degF per s, min or h)";
     let rate = split_quantity("transient", text)
         .ok()
@@ -632,32 +644,32 @@ pub(crate) fn transient(p: &mut Problems, path: &str, text: &str) -> f64 {
     match rate {
         Some(r) if r > 0.0 && r.is_finite() => r,
         Some(_) => {
-            p.add(path, format!("\"{text}\" must be above zero"));
+            problems.add(path, format!("\"{text}\" must be above zero"));
             2.0
         }
         None => {
-            p.add(path, format!("\"{text}\": {expected}"));
+            problems.add(path, format!("\"{text}\": {expected}"));
             2.0
         }
     }
 }
 
-pub(crate) fn check_topic(p: &mut Problems, path: &str, topic: &str, output_prefix: &str) {
+pub(crate) fn check_topic(problems: &mut Problems, path: &str, topic: &str, output_prefix: &str) {
     if topic.is_empty() {
-        p.add(path, "is empty; give the topic the instrument publishes to");
+        problems.add(path, "is empty; give the topic the instrument publishes to");
     } else if topic.contains(['+', '#']) {
-        p.add(
+        problems.add(
             path,
             format!(
                 "\"{topic}\" contains a wildcard (`+` or `#`); give the one topic this input is published on"
             ),
         );
     } else if topic.contains('\0') {
-        p.add(path, "contains a NUL character");
+        problems.add(path, "contains a NUL character");
     } else if topic.len() > 65_535 {
-        p.add(path, "is longer than MQTT allows (65535 bytes)");
+        problems.add(path, "is longer than MQTT allows (65535 bytes)");
     } else if topic.trim() != topic {
-        p.add(
+        problems.add(
             path,
             format!("\"{topic}\" starts or ends with a space; remove it"),
         );
@@ -666,7 +678,7 @@ pub(crate) fn check_topic(p: &mut Problems, path: &str, topic: &str, output_pref
             .strip_prefix(output_prefix)
             .is_some_and(|rest| rest.starts_with('/'))
     {
-        p.add(
+        problems.add(
             path,
             format!(
                 "\"{topic}\" lies under eqwatch's own output prefix \"{output_prefix}\"; eqwatch would read its own results"
@@ -676,13 +688,13 @@ pub(crate) fn check_topic(p: &mut Problems, path: &str, topic: &str, output_pref
 }
 
 pub(crate) fn steam_ratio(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     raw: &RawSteamRatio,
 ) -> Option<SteamRatioSettings> {
     match (raw.value, &raw.topic) {
         (Some(_), Some(_)) => {
-            p.add(
+            problems.add(
                 path,
                 "give value (a fixed ratio) or topic (a measured one), not both",
             );
@@ -699,7 +711,7 @@ pub(crate) fn steam_ratio(
                 ("max_age", raw.max_age.is_some()),
             ] {
                 if given {
-                    p.add(
+                    problems.add(
                         format!("{path}.{key}"),
                         "only for a measured steam ratio (with topic); a fixed value needs none",
                     );
@@ -708,7 +720,7 @@ pub(crate) fn steam_ratio(
             if v.is_finite() && v > 0.0 {
                 Some(SteamRatioSettings::Fixed(v))
             } else {
-                p.add(
+                problems.add(
                     format!("{path}.value"),
                     format!("{v} must be above zero (mol H2O per mol dry gas)"),
                 );
@@ -716,13 +728,13 @@ pub(crate) fn steam_ratio(
             }
         }
         (None, Some(_)) => Some(SteamRatioSettings::Measured(scalar(
-            p,
+            problems,
             path,
             raw.into(),
             ScalarKind::Ratio,
         ))),
         (None, None) => {
-            p.add(
+            problems.add(
                 path,
                 "give value = 0.5 (a fixed ratio) or topic = \"...\" (a measured one)",
             );

@@ -27,11 +27,11 @@ pub(crate) fn validate(
     base: &Path,
     env: EnvLookup,
 ) -> Result<Settings, ConfigErrors> {
-    let mut p = Problems::default();
+    let mut problems = Problems::default();
     if raw.site.is_empty() {
-        p.add("site", "is empty; give a short site name, e.g. \"baw1\"");
+        problems.add("site", "is empty; give a short site name, e.g. \"baw1\"");
     } else if !raw.site.chars().all(is_name_char) {
-        p.add(
+        problems.add(
             "site",
             format!(
                 "\"{}\" may use only letters, digits, `-` and `_` (it goes into topics)",
@@ -43,37 +43,37 @@ pub(crate) fn validate(
         None => format!("eqwatch/{}", raw.site),
         Some(t) => {
             if t.is_empty() {
-                p.add("topic_prefix", "is empty; e.g. \"eqwatch/baw1\"");
+                problems.add("topic_prefix", "is empty; e.g. \"eqwatch/baw1\"");
             } else if t.contains(['+', '#']) {
-                p.add(
+                problems.add(
                     "topic_prefix",
                     format!("\"{t}\" contains a wildcard (`+` or `#`); give a plain topic"),
                 );
             } else if t.ends_with('/') {
-                p.add(
+                problems.add(
                     "topic_prefix",
                     format!("\"{t}\" ends with `/`; leave it off"),
                 );
             } else if t.contains('\0') {
-                p.add("topic_prefix", "contains a NUL character");
+                problems.add("topic_prefix", "contains a NUL character");
             }
             t.clone()
         }
     };
     let atmosphere_bar = match &raw.atmosphere {
         None => STANDARD_ATMOSPHERE_BAR,
-        Some(text) => atmosphere(&mut p, text),
+        Some(text) => atmosphere(&mut problems, text),
     };
-    let species = species_db(&mut p, &raw.species_files, base);
-    let broker = broker(&mut p, &raw.broker, &raw.site, base, env);
-    let journal = journal(&mut p, &raw.journal, base);
+    let species = species_db(&mut problems, &raw.species_files, base);
+    let broker = broker(&mut problems, &raw.broker, &raw.site, base, env);
+    let journal = journal(&mut problems, &raw.journal, base);
     let http_listen = match &raw.http {
         None => Some(SocketAddr::from(([127, 0, 0, 1], 9873))),
         Some(h) if h.listen.trim().eq_ignore_ascii_case("off") => None,
         Some(h) => match h.listen.trim().parse::<SocketAddr>() {
             Ok(a) => Some(a),
             Err(_) => {
-                p.add(
+                problems.add(
                     "http.listen",
                     format!(
                         "\"{}\" is not an address and port; expected e.g. \"127.0.0.1:9873\", \"[::1]:9873\" or \"off\"",
@@ -87,7 +87,7 @@ pub(crate) fn validate(
     let mut ids: Vec<(&Spanned<String>, &RawReactor)> = raw.reactors.iter().collect();
     ids.sort_by_key(|(k, _)| k.span().start);
     if ids.is_empty() {
-        p.add(
+        problems.add(
             "reactors",
             "no reactors; add at least one [reactors.<id>] table",
         );
@@ -99,13 +99,13 @@ pub(crate) fn validate(
     };
     let mut reactors = Vec::with_capacity(ids.len());
     for (id, r) in ids {
-        if let Some(settings) = reactor(&mut p, &env, id.get_ref(), r) {
+        if let Some(settings) = reactor(&mut problems, &env, id.get_ref(), r) {
             reactors.push(settings);
         }
     }
-    let commands = crate::config::validate::watch::commands(&mut p, raw.commands.as_ref());
-    if !p.is_empty() {
-        return Err(p.into_errors());
+    let commands = crate::config::validate::watch::commands(&mut problems, raw.commands.as_ref());
+    if !problems.is_empty() {
+        return Err(problems.into_errors());
     }
     Ok(Settings {
         commands,
@@ -120,7 +120,7 @@ pub(crate) fn validate(
     })
 }
 
-pub(crate) fn atmosphere(p: &mut Problems, text: &str) -> f64 {
+pub(crate) fn atmosphere(problems: &mut Problems, text: &str) -> f64 {
     let parsed = split_quantity("atmosphere", text)
         .map_err(|e| e.to_string())
         .and_then(|(v, unit)| {
@@ -141,14 +141,14 @@ pub(crate) fn atmosphere(p: &mut Problems, text: &str) -> f64 {
         // A barometer anywhere people build plants: 0.5 bar is above 5000 m altitude.
         Ok(bar) if (0.5..=1.1).contains(&bar) => bar,
         Ok(bar) => {
-            p.add(
+            problems.add(
                 "atmosphere",
                 format!("{bar} bar is not a barometric pressure; expected 0.5 to 1.1 bar absolute"),
             );
             STANDARD_ATMOSPHERE_BAR
         }
         Err(m) => {
-            p.add("atmosphere", m);
+            problems.add("atmosphere", m);
             STANDARD_ATMOSPHERE_BAR
         }
     }
@@ -165,7 +165,7 @@ pub(crate) struct DurationRule {
 
 /// Parses a duration at `path` under `rule`; an absent option takes the rule's default.
 pub(crate) fn duration_at(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     text: Option<&str>,
     rule: DurationRule,
@@ -179,21 +179,21 @@ pub(crate) fn duration_at(
         (Some(t), _) => match parse_duration(t) {
             Ok(d) => d,
             Err(e) => {
-                p.add(path, e.to_string());
+                problems.add(path, e.to_string());
                 return default.unwrap_or(min);
             }
         },
         (None, Some(d)) => return d,
         (None, None) => {
-            p.add(path, "missing; give a duration such as \"2 min\"");
+            problems.add(path, "missing; give a duration such as \"2 min\"");
             return min;
         }
     };
     if d < min {
         if d.is_zero() {
-            p.add(path, format!("must be above zero ({why_min})"));
+            problems.add(path, format!("must be above zero ({why_min})"));
         } else {
-            p.add(
+            problems.add(
                 path,
                 format!(
                     "{} is too short; at least {} ({why_min})",

@@ -19,7 +19,7 @@ use crate::thermo::species::SpeciesDb;
 use crate::units::{PressureUnit, UnitError, split_quantity};
 
 pub(crate) fn uncertainty(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     raw: Option<&RawUncertainty>,
 ) -> Uncertainty {
@@ -40,7 +40,7 @@ pub(crate) fn uncertainty(
             Ok((v, unit)) if v >= 0.0 => match convert(unit) {
                 Some(factor) => v * factor,
                 None => {
-                    p.add(
+                    problems.add(
                         kpath,
                         format!("\"{text}\": unit \"{unit}\" is not understood; write e.g. \"{example}\""),
                     );
@@ -48,14 +48,14 @@ pub(crate) fn uncertainty(
                 }
             },
             Ok(_) => {
-                p.add(
+                problems.add(
                     kpath,
                     format!("\"{text}\" is negative; a ± half-width is zero or more"),
                 );
                 0.0
             }
             Err(_) => {
-                p.add(
+                problems.add(
                     kpath,
                     format!("\"{text}\" is not a number with a unit; write e.g. \"{example}\""),
                 );
@@ -144,53 +144,57 @@ struct ScalarInputs {
 }
 
 pub(crate) fn reactor(
-    p: &mut Problems,
+    problems: &mut Problems,
     env: &ReactorEnv,
     id: &str,
     raw: &RawReactor,
 ) -> Option<ReactorSettings> {
     let db = env.db;
     let path = key_path("reactors", id);
-    let start = p.len();
-    let name = reactor_name(p, &path, id, raw);
-    let reactions = reactions(p, db, &path, raw);
-    let options = model_options(p, &path, raw);
+    let start = problems.len();
+    let name = reactor_name(problems, &path, id, raw);
+    let reactions = reactions(problems, db, &path, raw);
+    let options = model_options(problems, &path, raw);
     let transient_k_per_min = match raw.transient.as_deref() {
         None => 2.0,
-        Some(t) => transient(p, &format!("{path}.transient"), t),
+        Some(t) => transient(problems, &format!("{path}.transient"), t),
     };
-    let uncertainty = uncertainty(p, &format!("{path}.uncertainty"), raw.uncertainty.as_ref());
-    let basis = analysis_basis(p, &path, raw);
-    let composition = composition(p, db, &path, &raw.composition, basis);
-    let inputs = scalar_inputs(p, &path, raw, basis);
-    check_input_topics(p, &path, raw, env.output_prefix);
-    let key_component = key_component(p, db, &path, raw, &reactions);
+    let uncertainty = uncertainty(
+        problems,
+        &format!("{path}.uncertainty"),
+        raw.uncertainty.as_ref(),
+    );
+    let basis = analysis_basis(problems, &path, raw);
+    let composition = composition(problems, db, &path, &raw.composition, basis);
+    let inputs = scalar_inputs(problems, &path, raw, basis);
+    check_input_topics(problems, &path, raw, env.output_prefix);
+    let key_component = key_component(problems, db, &path, raw, &reactions);
 
     // The gas and the models.
     let mut model = None;
     let mut equilibrium = None;
     if let (true, Some((comp, _, species))) = (reactions.ok, &composition) {
-        if let Some(gas) = gas_species(p, db, &path, (comp, species), &reactions.list) {
+        if let Some(gas) = gas_species(problems, db, &path, (comp, species), &reactions.list) {
             let inputs = ModelInputs {
                 reactions: &reactions.list,
                 gas: &gas,
                 options: &options,
             };
-            (model, equilibrium) = models(p, db, &path, &inputs);
+            (model, equilibrium) = models(problems, db, &path, &inputs);
         }
     }
 
-    let mut watch = crate::config::validate::watch::watch(p, &path, raw, env.atmosphere_bar);
+    let mut watch = crate::config::validate::watch::watch(problems, &path, raw, env.atmosphere_bar);
     let bed_rise = raw.bed_rise.as_ref().and_then(|b| {
         bed_rise(
-            p,
+            problems,
             &format!("{path}.bed_rise"),
             b,
             &inputs.temperatures,
             &mut watch,
         )
     });
-    if p.len() > start {
+    if problems.len() > start {
         return None;
     }
     let (
@@ -249,10 +253,10 @@ pub(crate) fn reactor(
 }
 
 /// The reactor's name (its id when none is given); the id must be fit for topics.
-fn reactor_name(p: &mut Problems, path: &str, id: &str, raw: &RawReactor) -> String {
+fn reactor_name(problems: &mut Problems, path: &str, id: &str, raw: &RawReactor) -> String {
     let path = path.to_string();
     if id.is_empty() || !id.chars().all(is_name_char) {
-        p.add(
+        problems.add(
             path.clone(),
             format!("reactor id \"{id}\" may use only letters, digits, `-` and `_` (it goes into topics)"),
         );
@@ -260,7 +264,7 @@ fn reactor_name(p: &mut Problems, path: &str, id: &str, raw: &RawReactor) -> Str
     match &raw.name {
         None => id.to_string(),
         Some(n) if n.trim().is_empty() => {
-            p.add(
+            problems.add(
                 format!("{path}.name"),
                 "is empty; give a readable name or remove the key",
             );
@@ -271,11 +275,11 @@ fn reactor_name(p: &mut Problems, path: &str, id: &str, raw: &RawReactor) -> Str
 }
 
 /// The reactions and their K sources.
-fn reactions(p: &mut Problems, db: &SpeciesDb, path: &str, raw: &RawReactor) -> Reactions {
-    let reactions_start = p.len();
+fn reactions(problems: &mut Problems, db: &SpeciesDb, path: &str, raw: &RawReactor) -> Reactions {
+    let reactions_start = problems.len();
     let mut reactions: Vec<(Reaction, KModel)> = Vec::with_capacity(raw.reactions.len());
     if raw.reactions.is_empty() {
-        p.add(
+        problems.add(
             format!("{path}.reactions"),
             "no reactions; give at least one, e.g. [{ equation = \"CO + H2O = CO2 + H2\" }]",
         );
@@ -287,11 +291,11 @@ fn reactions(p: &mut Problems, db: &SpeciesDb, path: &str, raw: &RawReactor) -> 
             None => Ok(KSourceId::SpeciesData),
             Some(s) => KSourceId::parse(s),
         };
-        let source = source.map_err(|e| p.add(format!("{rpath}.k_source"), e.to_string()));
+        let source = source.map_err(|e| problems.add(format!("{rpath}.k_source"), e.to_string()));
         let reaction = match reaction {
             Ok(r) => r,
             Err(e) => {
-                p.add(format!("{rpath}.equation"), e.to_string());
+                problems.add(format!("{rpath}.equation"), e.to_string());
                 continue;
             }
         };
@@ -300,21 +304,21 @@ fn reactions(p: &mut Problems, db: &SpeciesDb, path: &str, raw: &RawReactor) -> 
         };
         match KModel::from_correlation(source, &reaction, db) {
             Ok(k) => reactions.push((reaction, k)),
-            Err(e) => p.add(format!("{rpath}.k_source"), e.to_string()),
+            Err(e) => problems.add(format!("{rpath}.k_source"), e.to_string()),
         }
     }
     Reactions {
-        ok: p.len() == reactions_start,
+        ok: problems.len() == reactions_start,
         list: reactions,
     }
 }
 
 /// The equation of state and the band of |ln(Q/K)| counted as at equilibrium.
-fn model_options(p: &mut Problems, path: &str, raw: &RawReactor) -> ModelOptions {
+fn model_options(problems: &mut Problems, path: &str, raw: &RawReactor) -> ModelOptions {
     let eos = match raw.eos.as_deref() {
         None => EosKind::Ideal,
         Some(s) => EosKind::parse(s).unwrap_or_else(|| {
-            p.add(
+            problems.add(
                 format!("{path}.eos"),
                 format!(
                     "unknown equation of state \"{s}\"; expected \"ideal\" or \"peng-robinson\""
@@ -327,7 +331,7 @@ fn model_options(p: &mut Problems, path: &str, raw: &RawReactor) -> ModelOptions
         None => DEFAULT_BAND_LN,
         Some(b) if b.is_finite() && b >= 0.0 => b,
         Some(b) => {
-            p.add(
+            problems.add(
                 format!("{path}.band"),
                 format!("{b} must be a number zero or more (a band of |ln(Q/K)|, e.g. 0.01)"),
             );
@@ -338,11 +342,11 @@ fn model_options(p: &mut Problems, path: &str, raw: &RawReactor) -> ModelOptions
 }
 
 /// The analysis's basis, dry or wet (required).
-fn analysis_basis(p: &mut Problems, path: &str, raw: &RawReactor) -> Option<Basis> {
+fn analysis_basis(problems: &mut Problems, path: &str, raw: &RawReactor) -> Option<Basis> {
     let cpath = format!("{path}.composition");
     match raw.composition.basis.as_deref() {
         None => {
-            p.add(
+            problems.add(
                 format!("{cpath}.basis"),
                 "missing; give \"dry\" (water knocked out before the analyser) or \"wet\"",
             );
@@ -351,7 +355,7 @@ fn analysis_basis(p: &mut Problems, path: &str, raw: &RawReactor) -> Option<Basi
         Some(b) => {
             let parsed = Basis::parse(b);
             if parsed.is_none() {
-                p.add(
+                problems.add(
                     format!("{cpath}.basis"),
                     format!("unknown basis \"{b}\"; expected \"dry\" or \"wet\""),
                 );
@@ -363,13 +367,13 @@ fn analysis_basis(p: &mut Problems, path: &str, raw: &RawReactor) -> Option<Basi
 
 /// Temperatures (at least one), the pressure and, for a dry basis, the steam ratio.
 fn scalar_inputs(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     raw: &RawReactor,
     basis: Option<Basis>,
 ) -> ScalarInputs {
     if raw.temperature.is_empty() {
-        p.add(
+        problems.add(
             format!("{path}.temperature"),
             format!("no thermocouple; add at least one [[{path}.temperature]] table"),
         );
@@ -380,7 +384,7 @@ fn scalar_inputs(
         .enumerate()
         .map(|(i, t)| {
             scalar(
-                p,
+                problems,
                 &format!("{path}.temperature[{i}]"),
                 t.into(),
                 ScalarKind::Temperature,
@@ -388,7 +392,7 @@ fn scalar_inputs(
         })
         .collect();
     let pressure = scalar(
-        p,
+        problems,
         &format!("{path}.pressure"),
         (&raw.pressure).into(),
         ScalarKind::Pressure,
@@ -396,20 +400,20 @@ fn scalar_inputs(
     let spath = format!("{path}.steam_ratio");
     let steam_ratio = match (basis, &raw.steam_ratio) {
         (Some(Basis::Dry), None) => {
-            p.add(
+            problems.add(
                 spath.clone(),
                 "missing; a dry-basis analysis needs the steam-to-dry-gas ratio: value = 0.5 (fixed) or topic = \"...\" (measured)",
             );
             None
         }
         (Some(Basis::Wet), Some(_)) => {
-            p.add(
+            problems.add(
                 spath.clone(),
                 "only for basis = \"dry\"; a wet analysis already contains its water",
             );
             None
         }
-        (Some(Basis::Dry), Some(s)) => steam_ratio(p, &spath, s),
+        (Some(Basis::Dry), Some(s)) => steam_ratio(problems, &spath, s),
         _ => None,
     };
     ScalarInputs {
@@ -420,7 +424,7 @@ fn scalar_inputs(
 }
 
 /// Topics: valid, and no two inputs of this reactor on one topic.
-fn check_input_topics(p: &mut Problems, path: &str, raw: &RawReactor, output_prefix: &str) {
+fn check_input_topics(problems: &mut Problems, path: &str, raw: &RawReactor, output_prefix: &str) {
     let cpath = format!("{path}.composition");
     let spath = format!("{path}.steam_ratio");
     let mut topics: Vec<(String, &str)> = Vec::new();
@@ -442,9 +446,9 @@ fn check_input_topics(p: &mut Problems, path: &str, raw: &RawReactor, output_pre
         topics.push((format!("{spath}.topic"), t));
     }
     for (i, (tpath, topic)) in topics.iter().enumerate() {
-        check_topic(p, tpath, topic, output_prefix);
+        check_topic(problems, tpath, topic, output_prefix);
         if let Some((first, _)) = topics[..i].iter().find(|(_, t)| t == topic) {
-            p.add(
+            problems.add(
                 tpath.clone(),
                 format!("\"{topic}\" is also {first}; two inputs of one reactor need two topics"),
             );
@@ -454,7 +458,7 @@ fn check_input_topics(p: &mut Problems, path: &str, raw: &RawReactor, output_pre
 
 /// The key component: the one given, else the reactions' default.
 fn key_component(
-    p: &mut Problems,
+    problems: &mut Problems,
     db: &SpeciesDb,
     path: &str,
     raw: &RawReactor,
@@ -465,14 +469,14 @@ fn key_component(
     match (&raw.key_component, reactions.first()) {
         (Some(k), _) => match db.index_of(k.trim()) {
             None => {
-                p.add(
+                problems.add(
                     format!("{path}.key_component"),
                     format!("unknown species \"{k}\"{}", unknown_hint(db, k.trim())),
                 );
                 None
             }
             Some(s) if reactions_ok && !reactions.iter().any(|(r, _)| r.species.contains(&s)) => {
-                p.add(
+                problems.add(
                     format!("{path}.key_component"),
                     format!("{} is not a species of the reactions", db.get(s).name),
                 );
@@ -488,7 +492,7 @@ fn key_component(
 /// The gas the models see: the analysed species, plus water on a dry basis; `None` (with
 /// problems) when a species of the reactions is not analysed.
 fn gas_species(
-    p: &mut Problems,
+    problems: &mut Problems,
     db: &SpeciesDb,
     path: &str,
     (comp, species): (&AnalysisSpec, &[usize]),
@@ -499,13 +503,13 @@ fn gas_species(
     if comp.basis == Basis::Dry {
         match db.index_of("H2O") {
             Some(w) => gas.push(w),
-            None => p.add(
+            None => problems.add(
                 format!("{cpath}.basis"),
                 "a dry basis needs H2O in the species library",
             ),
         }
     }
-    let before = p.len();
+    let before = problems.len();
     for (r, _) in reactions {
         for (s, n) in r.species.iter().zip(&r.names) {
             if !gas.contains(s) {
@@ -514,7 +518,7 @@ fn gas_species(
                 } else {
                     ""
                 };
-                p.add(
+                problems.add(
                     format!("{cpath}.components"),
                     format!(
                         "{n}, a species of `{}`, is not analysed; add it{hint}",
@@ -524,7 +528,7 @@ fn gas_species(
             }
         }
     }
-    (p.len() == before).then_some(gas)
+    (problems.len() == before).then_some(gas)
 }
 
 /// What the models are built from.
@@ -536,7 +540,7 @@ struct ModelInputs<'a> {
 
 /// The reactor model and the equilibrium system over the gas.
 fn models(
-    p: &mut Problems,
+    problems: &mut Problems,
     db: &SpeciesDb,
     path: &str,
     inputs: &ModelInputs,
@@ -549,17 +553,17 @@ fn models(
             m.band_ln = band_ln;
             model = Some(m);
         }
-        Err(e) => p.add(model_error_path(path, &e), e.to_string()),
+        Err(e) => problems.add(model_error_path(path, &e), e.to_string()),
     }
     match EquilibriumSystem::from_reactions(db, reactions, gas, eos, None) {
         Ok(s) => equilibrium = Some(s),
-        Err(e) => p.add(equilibrium_error_path(path, &e), e.to_string()),
+        Err(e) => problems.add(equilibrium_error_path(path, &e), e.to_string()),
     }
     (model, equilibrium)
 }
 
 pub(crate) fn bed_rise(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     raw: &RawBedRise,
     temperatures: &[ScalarSettings],
@@ -568,7 +572,7 @@ pub(crate) fn bed_rise(
     let tag = raw.inlet_temperature.trim();
     let Some(inlet) = temperatures.iter().position(|t| t.tag == tag) else {
         let known: Vec<&str> = temperatures.iter().map(|t| t.tag.as_str()).collect();
-        p.add(
+        problems.add(
             format!("{path}.inlet_temperature"),
             format!(
                 "\"{tag}\" is not the tag of one of this reactor's [[temperature]] entries ({})",
@@ -578,7 +582,7 @@ pub(crate) fn bed_rise(
         return None;
     };
     if temperatures.len() < 2 {
-        p.add(
+        problems.add(
             format!("{path}.inlet_temperature"),
             "the reactor needs an outlet thermocouple besides the inlet one",
         );
@@ -591,14 +595,14 @@ pub(crate) fn bed_rise(
             "CO" => &mut co_co2.0,
             "CO2" => &mut co_co2.1,
             other => {
-                p.add(key, format!("\"{other}\" is not CO or CO2"));
+                problems.add(key, format!("\"{other}\" is not CO or CO2"));
                 continue;
             }
         };
         match composition_amount("inlet amount", text) {
             Ok(f) if (0.0..0.2).contains(&f) => *slot = Some(f),
-            Ok(_) => p.add(key, format!("\"{text}\" must be from 0 to 20 mol%")),
-            Err(m) => p.add(key, m),
+            Ok(_) => problems.add(key, format!("\"{text}\" must be from 0 to 20 mol%")),
+            Err(m) => problems.add(key, m),
         }
     }
     let inlet_co_co2 = match co_co2 {
@@ -608,14 +612,14 @@ pub(crate) fn bed_rise(
     if let Some(t) = &raw.alert_above_expected {
         let key = format!("{path}.alert_above_expected");
         if inlet_co_co2.is_none() {
-            p.add(
+            problems.add(
                 key,
                 "needs the inlet CO and CO2 (bed_rise.inlet) to know what to expect",
             );
         } else {
-            match crate::config::validate::watch::kelvin(p, &key, t) {
+            match crate::config::validate::watch::kelvin(problems, &key, t) {
                 Some(v) if v > 0.0 => watch.alerts.bed_rise_excess_k = Some(v),
-                Some(v) => p.add(key, format!("{v} K must be above zero")),
+                Some(v) => problems.add(key, format!("{v} K must be above zero")),
                 None => {}
             }
         }

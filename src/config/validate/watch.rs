@@ -13,7 +13,7 @@ use crate::monitor::watch::{
 };
 use crate::units::{CompositionUnit, PressureUnit, split_quantity};
 
-pub(crate) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSettings {
+pub(crate) fn commands(problems: &mut Problems, raw: Option<&RawCommands>) -> CommandSettings {
     let Some(raw) = raw else {
         return CommandSettings::default();
     };
@@ -23,7 +23,7 @@ pub(crate) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSe
     ] {
         for (i, v) in list.iter().enumerate() {
             if v.trim().is_empty() || v.trim() != v {
-                p.add(
+                problems.add(
                     format!("commands.{key}[{i}]"),
                     "must be a name without surrounding spaces",
                 );
@@ -39,14 +39,14 @@ pub(crate) fn commands(p: &mut Problems, raw: Option<&RawCommands>) -> CommandSe
 use crate::units::duration_ms as ms;
 
 /// A temperature difference in K (`"20 K"`; a `degC` is the same size, a `degF` 5/9 of it).
-pub(crate) fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
+pub(crate) fn kelvin(problems: &mut Problems, path: &str, text: &str) -> Option<f64> {
     match split_quantity("temperature difference", text)
         .ok()
         .and_then(|(v, u)| crate::config::validate::inputs::kelvin_per_degree(u).map(|k| v * k))
     {
         Some(v) => Some(v),
         None => {
-            p.add(
+            problems.add(
                 path,
                 format!("\"{text}\" is not a temperature difference; write e.g. \"20 K\""),
             );
@@ -55,33 +55,33 @@ pub(crate) fn kelvin(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
     }
 }
 
-fn positive_duration(p: &mut Problems, path: &str, text: &str) -> Option<i64> {
+fn positive_duration(problems: &mut Problems, path: &str, text: &str) -> Option<i64> {
     match parse_duration(text) {
         Ok(d) if !d.is_zero() => Some(ms(d)),
         Ok(_) => {
-            p.add(path, "must be above zero");
+            problems.add(path, "must be above zero");
             None
         }
         Err(e) => {
-            p.add(path, e.to_string());
+            problems.add(path, e.to_string());
             None
         }
     }
 }
 
-fn count(p: &mut Problems, path: &str, v: Option<i64>, default: usize, min: i64) -> usize {
+fn count(problems: &mut Problems, path: &str, v: Option<i64>, default: usize, min: i64) -> usize {
     match v {
         None => default,
         Some(n) if n >= min && n <= 1_000_000 => n as usize,
         Some(n) => {
-            p.add(path, format!("{n} is out of range; give {min} to 1000000"));
+            problems.add(path, format!("{n} is out of range; give {min} to 1000000"));
             default
         }
     }
 }
 
 /// A delay: `"3 samples"` or a duration. Returns (ms, samples).
-fn delay(p: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
+fn delay(problems: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
     let Some(text) = text else {
         return (0, 0);
     };
@@ -93,7 +93,7 @@ fn delay(p: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
         return match n.trim().parse::<u32>() {
             Ok(n) if n <= 10_000 => (0, n),
             _ => {
-                p.add(
+                problems.add(
                     path,
                     format!("\"{text}\": expected a whole number of samples, e.g. \"3 samples\""),
                 );
@@ -104,7 +104,7 @@ fn delay(p: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
     match parse_duration(t) {
         Ok(d) => (ms(d), 0),
         Err(e) => {
-            p.add(
+            problems.add(
                 path,
                 format!("{e}; or give a sample count such as \"3 samples\""),
             );
@@ -114,7 +114,7 @@ fn delay(p: &mut Problems, path: &str, text: Option<&str>) -> (i64, u32) {
 }
 
 pub(crate) fn watch(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     reactor: &RawReactor,
     atmosphere_bar: f64,
@@ -122,30 +122,30 @@ pub(crate) fn watch(
     let mut settings = WatchSettings::default();
     let raw = reactor.drift.clone().unwrap_or_default();
     let dp = format!("{path}.drift");
-    drift_baseline(p, &dp, &raw, &mut settings.drift);
-    drift_statistics(p, &dp, &raw, &mut settings.drift);
-    drift_trend(p, &dp, &raw, &mut settings.drift);
+    drift_baseline(problems, &dp, &raw, &mut settings.drift);
+    drift_statistics(problems, &dp, &raw, &mut settings.drift);
+    drift_trend(problems, &dp, &raw, &mut settings.drift);
     if let Some(a) = reactor.alerts.as_ref() {
-        engineering_alerts(p, path, a, &mut settings);
+        engineering_alerts(problems, path, a, &mut settings);
     }
-    settings.alarms = operator_alarms(p, path, &reactor.alarm);
+    settings.alarms = operator_alarms(problems, path, &reactor.alarm);
     if let Some(text) = reactor.offline_below.as_deref() {
-        settings.offline_below_bar = offline_below(p, path, text, atmosphere_bar);
+        settings.offline_below_bar = offline_below(problems, path, text, atmosphere_bar);
     }
     settings
 }
 
 /// `drift.baseline`: learned (the default, over a window and a least number of samples)
 /// or given with its σ.
-fn drift_baseline(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
+fn drift_baseline(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
     match raw.baseline.as_deref().map(str::trim) {
         None | Some("learn") => {
             let window_ms = match &raw.baseline_window {
-                Some(t) => positive_duration(p, &format!("{dp}.baseline_window"), t),
+                Some(t) => positive_duration(problems, &format!("{dp}.baseline_window"), t),
                 None => None,
             };
             let min_samples = count(
-                p,
+                problems,
                 &format!("{dp}.baseline_min_samples"),
                 raw.baseline_min_samples,
                 20,
@@ -159,18 +159,18 @@ fn drift_baseline(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSetti
                 min_samples,
             };
             if raw.baseline_sigma.is_some() {
-                p.add(
+                problems.add(
                     format!("{dp}.baseline_sigma"),
                     "goes with a given baseline (baseline = \"8 K\"); a learned baseline measures its own",
                 );
             }
         }
         Some(text) => {
-            let approach = kelvin(p, &format!("{dp}.baseline"), text);
+            let approach = kelvin(problems, &format!("{dp}.baseline"), text);
             let sigma = match &raw.baseline_sigma {
-                Some(t) => kelvin(p, &format!("{dp}.baseline_sigma"), t),
+                Some(t) => kelvin(problems, &format!("{dp}.baseline_sigma"), t),
                 None => {
-                    p.add(
+                    problems.add(
                         format!("{dp}.baseline_sigma"),
                         "missing; a given baseline needs its σ, e.g. \"0.5 K\" (or baseline = \"learn\")",
                     );
@@ -178,13 +178,13 @@ fn drift_baseline(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSetti
                 }
             };
             if let Some(sg) = sigma.filter(|s| *s <= 0.0) {
-                p.add(
+                problems.add(
                     format!("{dp}.baseline_sigma"),
                     format!("{sg} K must be above zero"),
                 );
             }
             if raw.baseline_window.is_some() {
-                p.add(
+                problems.add(
                     format!("{dp}.baseline_window"),
                     "goes with baseline = \"learn\"",
                 );
@@ -200,20 +200,20 @@ fn drift_baseline(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSetti
 }
 
 /// The step size, σ floor, EWMA and CUSUM parameters.
-fn drift_statistics(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
+fn drift_statistics(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
     if let Some(t) = &raw.step {
-        match kelvin(p, &format!("{dp}.step"), t) {
+        match kelvin(problems, &format!("{dp}.step"), t) {
             Some(v) if v > 0.0 => d.step_min_k = Some(v),
-            Some(v) => p.add(format!("{dp}.step"), format!("{v} K must be above zero")),
+            Some(v) => problems.add(format!("{dp}.step"), format!("{v} K must be above zero")),
             None => {}
         }
     }
     if let Some(t) = &raw.sigma_floor {
-        if let Some(v) = kelvin(p, &format!("{dp}.sigma_floor"), t) {
+        if let Some(v) = kelvin(problems, &format!("{dp}.sigma_floor"), t) {
             if v > 0.0 {
                 d.sigma_floor_k = v;
             } else {
-                p.add(format!("{dp}.sigma_floor"), "must be above zero");
+                problems.add(format!("{dp}.sigma_floor"), "must be above zero");
             }
         }
     }
@@ -227,7 +227,7 @@ fn drift_statistics(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSet
             if v.is_finite() && v > lo && v <= hi {
                 *slot = v;
             } else {
-                p.add(
+                problems.add(
                     format!("{dp}.{key}"),
                     format!(
                         "{v} is out of range; expected above {} and at most {hi}",
@@ -240,31 +240,31 @@ fn drift_statistics(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSet
 }
 
 /// The trend method, the aggregates it is fitted on, its window, and the end-of-run limit.
-fn drift_trend(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
+fn drift_trend(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
     match raw.trend.as_deref() {
         None | Some("least-squares") => d.trend = TrendMethod::LeastSquares,
         Some("theil-sen") => d.trend = TrendMethod::TheilSen,
-        Some(o) => p.add(
+        Some(o) => problems.add(
             format!("{dp}.trend"),
             format!("unknown method \"{o}\"; expected \"least-squares\" or \"theil-sen\""),
         ),
     }
     if let Some(t) = &raw.aggregate {
-        if let Some(v) = positive_duration(p, &format!("{dp}.aggregate"), t) {
+        if let Some(v) = positive_duration(problems, &format!("{dp}.aggregate"), t) {
             d.aggregate_ms = v;
         }
     }
     d.min_per_aggregate = count(
-        p,
+        problems,
         &format!("{dp}.min_per_aggregate"),
         raw.min_per_aggregate,
         d.min_per_aggregate,
         1,
     );
     if let Some(t) = &raw.trend_window {
-        d.trend_window_ms = positive_duration(p, &format!("{dp}.trend_window"), t);
+        d.trend_window_ms = positive_duration(problems, &format!("{dp}.trend_window"), t);
         if let Some(w) = d.trend_window_ms.filter(|w| *w < 3 * d.aggregate_ms) {
-            p.add(
+            problems.add(
                 format!("{dp}.trend_window"),
                 format!(
                     "{} holds fewer than 3 aggregates of {}; lengthen it",
@@ -275,30 +275,35 @@ fn drift_trend(p: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings
         }
     }
     d.min_aggregates = count(
-        p,
+        problems,
         &format!("{dp}.min_aggregates"),
         raw.min_aggregates,
         d.min_aggregates,
         3,
     );
     if let Some(t) = &raw.end_of_run_limit {
-        d.end_of_run_limit_k = kelvin(p, &format!("{dp}.end_of_run_limit"), t);
+        d.end_of_run_limit_k = kelvin(problems, &format!("{dp}.end_of_run_limit"), t);
     }
 }
 
 /// Engineering alerts (they need the drift settings for the end-of-run limit).
-fn engineering_alerts(p: &mut Problems, path: &str, a: &RawAlerts, settings: &mut WatchSettings) {
+fn engineering_alerts(
+    problems: &mut Problems,
+    path: &str,
+    a: &RawAlerts,
+    settings: &mut WatchSettings,
+) {
     let dp = format!("{path}.drift");
     let ap = format!("{path}.alerts");
     if let Some(t) = &a.trend_above {
-        settings.alerts.trend_above_k_per_day = rate(p, &format!("{ap}.trend_above"), t);
+        settings.alerts.trend_above_k_per_day = rate(problems, &format!("{ap}.trend_above"), t);
     }
     if let Some(t) = &a.end_of_run_within {
         settings.alerts.end_of_run_within_days =
-            positive_duration(p, &format!("{ap}.end_of_run_within"), t)
+            positive_duration(problems, &format!("{ap}.end_of_run_within"), t)
                 .map(|v| v as f64 / 86_400_000.0);
         if settings.drift.end_of_run_limit_k.is_none() {
-            p.add(
+            problems.add(
                 format!("{ap}.end_of_run_within"),
                 format!("needs {dp}.end_of_run_limit (the approach at end of run, e.g. \"20 K\")"),
             );
@@ -307,22 +312,22 @@ fn engineering_alerts(p: &mut Problems, path: &str, a: &RawAlerts, settings: &mu
     settings.alerts.cusum = a.cusum.unwrap_or(false);
     if let Some(t) = &a.data_quality_after {
         settings.alerts.data_quality_after_ms =
-            positive_duration(p, &format!("{ap}.data_quality_after"), t);
+            positive_duration(problems, &format!("{ap}.data_quality_after"), t);
     }
     settings.alerts.self_monitoring = a.self_monitoring.unwrap_or(true);
 }
 
 /// Operator alarms, each id once.
-fn operator_alarms(p: &mut Problems, path: &str, alarms: &[RawAlarm]) -> Vec<AlarmSpec> {
+fn operator_alarms(problems: &mut Problems, path: &str, alarms: &[RawAlarm]) -> Vec<AlarmSpec> {
     let mut list: Vec<AlarmSpec> = Vec::new();
     for (i, a) in alarms.iter().enumerate() {
         let ap = format!("{path}.alarm[{i}]");
-        if let Some(spec) = alarm(p, &ap, a) {
+        if let Some(spec) = alarm(problems, &ap, a) {
             if list
                 .iter()
                 .any(|x| x.config.id.eq_ignore_ascii_case(&spec.config.id))
             {
-                p.add(
+                problems.add(
                     format!("{ap}.id"),
                     format!("\"{}\" is used twice", spec.config.id),
                 );
@@ -334,7 +339,12 @@ fn operator_alarms(p: &mut Problems, path: &str, alarms: &[RawAlarm]) -> Vec<Ala
 }
 
 /// `offline_below`: the pressure below which the unit counts as off line, in bar absolute.
-fn offline_below(p: &mut Problems, path: &str, text: &str, atmosphere_bar: f64) -> Option<f64> {
+fn offline_below(
+    problems: &mut Problems,
+    path: &str,
+    text: &str,
+    atmosphere_bar: f64,
+) -> Option<f64> {
     let kp = format!("{path}.offline_below");
     match split_quantity("pressure", text)
         .map_err(|e| e.to_string())
@@ -348,13 +358,13 @@ fn offline_below(p: &mut Problems, path: &str, text: &str, atmosphere_bar: f64) 
         }) {
         Ok(bar) => Some(bar),
         Err(m) => {
-            p.add(kp, format!("\"{text}\": {m}; write e.g. \"5 barg\""));
+            problems.add(kp, format!("\"{text}\": {m}; write e.g. \"5 barg\""));
             None
         }
     }
 }
 
-fn rate(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
+fn rate(problems: &mut Problems, path: &str, text: &str) -> Option<f64> {
     let per_day = match split_quantity("rate", text) {
         Ok((v, "K/d" | "K/day")) => Some(v),
         Ok((v, "K/h")) => Some(v * 24.0),
@@ -365,7 +375,7 @@ fn rate(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
     match per_day {
         Some(v) if v.is_finite() && v > 0.0 => Some(v),
         _ => {
-            p.add(
+            problems.add(
                 path,
                 format!(
                     "\"{text}\" is not a positive rate; write e.g. \"0.05 K/d\" (K/h, K/week also)"
@@ -376,32 +386,34 @@ fn rate(p: &mut Problems, path: &str, text: &str) -> Option<f64> {
     }
 }
 
-fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
-    let start = p.len();
-    alarm_name_and_rationale(p, path, a);
+fn alarm(problems: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
+    let start = problems.len();
+    alarm_name_and_rationale(problems, path, a);
     let figure = match a.on.as_str() {
         "approach" => Figure::Approach,
         "key-measured" => Figure::KeyMeasured,
         o => {
-            p.add(
+            problems.add(
                 format!("{path}.on"),
                 format!("unknown figure \"{o}\"; expected \"approach\" or \"key-measured\""),
             );
             return None;
         }
     };
-    let value = |p: &mut Problems, key: &str, text: &str| limit_value(p, path, figure, key, text);
+    let value = |problems: &mut Problems, key: &str, text: &str| {
+        limit_value(problems, path, figure, key, text)
+    };
     let (limit, direction) = match (&a.above, &a.below) {
-        (Some(t), None) => (value(p, "above", t), Direction::High),
-        (None, Some(t)) => (value(p, "below", t), Direction::Low),
+        (Some(t), None) => (value(problems, "above", t), Direction::High),
+        (None, Some(t)) => (value(problems, "below", t), Direction::Low),
         _ => {
-            p.add(path, "give exactly one of `above` and `below`");
+            problems.add(path, "give exactly one of `above` and `below`");
             (None, Direction::High)
         }
     };
     let deadband = match &a.deadband {
         None => Some(0.0),
-        Some(t) => value(p, "deadband", t).map(|(v, sc, _)| {
+        Some(t) => value(problems, "deadband", t).map(|(v, sc, _)| {
             // A deadband is in the limit's unit; convert if written in another.
             match limit {
                 Some((_, lsc, _)) => v * lsc / sc,
@@ -410,25 +422,28 @@ fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
         }),
     };
     let (on_delay_ms, on_delay_samples) =
-        delay(p, &format!("{path}.on_delay"), a.on_delay.as_deref());
-    let (off_delay_ms, off_delay_samples) =
-        delay(p, &format!("{path}.off_delay"), a.off_delay.as_deref());
+        delay(problems, &format!("{path}.on_delay"), a.on_delay.as_deref());
+    let (off_delay_ms, off_delay_samples) = delay(
+        problems,
+        &format!("{path}.off_delay"),
+        a.off_delay.as_deref(),
+    );
     let realarm_ms = a
         .realarm
         .as_deref()
-        .and_then(|t| positive_duration(p, &format!("{path}.realarm"), t));
+        .and_then(|t| positive_duration(problems, &format!("{path}.realarm"), t));
     let max_shelve_ms = match &a.max_shelve {
         None => 8 * 3_600_000,
-        Some(t) => positive_duration(p, &format!("{path}.max_shelve"), t).unwrap_or(1),
+        Some(t) => positive_duration(problems, &format!("{path}.max_shelve"), t).unwrap_or(1),
     };
-    let priority = priority(p, path, a);
+    let priority = priority(problems, path, a);
     if let Some(db) = deadband.filter(|d| *d < 0.0) {
-        p.add(
+        problems.add(
             format!("{path}.deadband"),
             format!("{db} must not be negative"),
         );
     }
-    if p.len() > start {
+    if problems.len() > start {
         return None;
     }
     let (limit, scale, unit) = limit?;
@@ -455,14 +470,14 @@ fn alarm(p: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
 }
 
 /// An alarm's id (fit for topics, not a built-in alert's name) and its rationale.
-fn alarm_name_and_rationale(p: &mut Problems, path: &str, a: &RawAlarm) {
+fn alarm_name_and_rationale(problems: &mut Problems, path: &str, a: &RawAlarm) {
     if a.id.is_empty()
         || !a
             .id
             .chars()
             .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
     {
-        p.add(
+        problems.add(
             format!("{path}.id"),
             format!("\"{}\" may use only letters, digits, `-` and `_`", a.id),
         );
@@ -471,7 +486,7 @@ fn alarm_name_and_rationale(p: &mut Problems, path: &str, a: &RawAlarm) {
         .iter()
         .any(|r| a.id.eq_ignore_ascii_case(r))
     {
-        p.add(
+        problems.add(
             format!("{path}.id"),
             format!(
                 "\"{}\" is the name of a built-in alert; choose another",
@@ -480,7 +495,7 @@ fn alarm_name_and_rationale(p: &mut Problems, path: &str, a: &RawAlarm) {
         );
     }
     if a.rationale.trim().len() < 10 {
-        p.add(
+        problems.add(
             format!("{path}.rationale"),
             "give the rationale (consequence and operator response): operator alarms are for rationalised conditions only",
         );
@@ -491,7 +506,7 @@ fn alarm_name_and_rationale(p: &mut Problems, path: &str, a: &RawAlarm) {
 /// unit for the key component (the limit's unit fixes the alarm's unit). Returns the value,
 /// the scale from mole fraction and the unit's label.
 fn limit_value(
-    p: &mut Problems,
+    problems: &mut Problems,
     path: &str,
     figure: Figure,
     key: &str,
@@ -499,7 +514,7 @@ fn limit_value(
 ) -> Option<(f64, f64, &'static str)> {
     let kp = format!("{path}.{key}");
     match figure {
-        Figure::Approach => kelvin(p, &kp, text).map(|v| (v, 1.0, "K")),
+        Figure::Approach => kelvin(problems, &kp, text).map(|v| (v, 1.0, "K")),
         Figure::KeyMeasured => match split_quantity("composition", text)
             .map_err(|e| e.to_string())
             .and_then(|(v, u)| {
@@ -509,7 +524,7 @@ fn limit_value(
             }) {
             Ok((v, cu)) => Some((v, 1.0 / cu.fraction_per_unit(), cu.label())),
             Err(m) => {
-                p.add(kp, format!("\"{text}\": {m}; write e.g. \"10 ppm\""));
+                problems.add(kp, format!("\"{text}\": {m}; write e.g. \"10 ppm\""));
                 None
             }
         },
@@ -517,7 +532,7 @@ fn limit_value(
 }
 
 /// `priority`: 1 (highest) to 4, as a number or text; 3 by default.
-fn priority(p: &mut Problems, path: &str, a: &RawAlarm) -> Priority {
+fn priority(problems: &mut Problems, path: &str, a: &RawAlarm) -> Priority {
     let number = match &a.priority {
         None => Some(3),
         Some(RawPriority::Number(n)) => Some(*n),
@@ -531,7 +546,7 @@ fn priority(p: &mut Problems, path: &str, a: &RawAlarm) -> Priority {
                 Some(RawPriority::Text(t)) => format!("\"{t}\""),
                 None => String::new(),
             };
-            p.add(
+            problems.add(
                 format!("{path}.priority"),
                 format!("priority {given} is not one of 1 (highest), 2, 3 or 4 (lowest)"),
             );
