@@ -367,18 +367,18 @@ fn days(ms: i64) -> String {
 }
 
 /// Lines for `eqwatch check`: drift, alerts, alarms, off-line limit.
-fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
+fn summary_lines(watch: &WatchSettings) -> Vec<(&'static str, String)> {
     use crate::monitor::watch::BaselineSpec as B;
-    let d = &w.drift;
+    let drift = &watch.drift;
     let mut out = Vec::new();
-    let baseline = match d.baseline {
+    let baseline = match drift.baseline {
         B::Learn {
             window_ms,
             min_samples,
         } => format!(
             "baseline learned over {} (at least {min_samples} samples, σ ≥ {} K)",
             days(window_ms),
-            d.sigma_floor_k
+            drift.sigma_floor_k
         ),
         B::Given {
             approach_k,
@@ -390,17 +390,17 @@ fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
         "",
         format!(
             "{} trend on {} aggregates ({}+ samples), {}{} aggregates before a trend; end of run {}",
-            d.trend.as_str(),
-            days(d.aggregate_ms),
-            d.min_per_aggregate,
-            d.trend_window_ms
+            drift.trend.as_str(),
+            days(drift.aggregate_ms),
+            drift.min_per_aggregate,
+            drift.trend_window_ms
                 .map_or(String::new(), |t| format!("last {}, ", days(t))),
-            d.min_aggregates,
-            d.end_of_run_limit_k
+            drift.min_aggregates,
+            drift.end_of_run_limit_k
                 .map_or("not set".to_string(), |l| format!("at {l} K")),
         ),
     ));
-    let a = &w.alerts;
+    let a = &watch.alerts;
     let mut alerts = Vec::new();
     if let Some(r) = a.trend_above_k_per_day {
         alerts.push(format!("trend > {r} K/d"));
@@ -414,7 +414,7 @@ fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
     if let Some(t) = a.data_quality_after_ms {
         alerts.push(format!("no good result for {}", days(t)));
     }
-    if a.self_monitoring && !w.alarms.is_empty() {
+    if a.self_monitoring && !watch.alarms.is_empty() {
         alerts.push("chattering and stale alarms".into());
     }
     out.push((
@@ -425,7 +425,7 @@ fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
             alerts.join(", ")
         },
     ));
-    for (i, x) in w.alarms.iter().enumerate() {
+    for (i, x) in watch.alarms.iter().enumerate() {
         let c = &x.config;
         let delay = if c.on_delay_samples > 1 {
             format!(", on-delay {} samples", c.on_delay_samples)
@@ -455,7 +455,7 @@ fn summary_lines(w: &WatchSettings) -> Vec<(&'static str, String)> {
             ),
         ));
     }
-    if let Some(b) = w.offline_below_bar {
+    if let Some(b) = watch.offline_below_bar {
         out.push(("  off line", format!("below {b:.3} bar abs")));
     }
     out

@@ -25,7 +25,7 @@ use crate::units::{DAY_MS, HOUR_MS};
 
 /// Legend entries of the approach chart: only what the chart has.
 pub(super) fn approach_legend(
-    p: &ReactorPlot,
+    plot: &ReactorPlot,
     pts: &[&PlotPoint],
     proj: &[ProjPt],
 ) -> Vec<LegendItem> {
@@ -49,13 +49,14 @@ pub(super) fn approach_legend(
     if pts.iter().any(|q| !q.approach_k.is_some_and(usable)) {
         v.push(legend_item(Swatch::Band(C_GAP, 0.3), "bad quality (gap)"));
     }
-    if p.offline
+    if plot
+        .offline
         .iter()
         .any(|o| sane_t(o.from_ms) && sane_t(o.to_ms))
     {
         v.push(legend_item(Swatch::Hatch, "unit off line"));
     }
-    if p.baselines.iter().any(|b| usable(b.approach_k)) {
+    if plot.baselines.iter().any(|b| usable(b.approach_k)) {
         v.push(legend_item(
             Swatch::Line {
                 colour: C_BASELINE,
@@ -87,8 +88,8 @@ pub(super) fn approach_legend(
             "prediction band",
         ));
     }
-    let aggs = || p.aggregates.iter().filter(|a| usable(a.approach_k));
-    let mean = aggregate_name(p.aggregate_period_ms);
+    let aggs = || plot.aggregates.iter().filter(|a| usable(a.approach_k));
+    let mean = aggregate_name(plot.aggregate_period_ms);
     if aggs().any(|a| a.in_fit) {
         v.push(legend_item(
             Swatch::Square(true),
@@ -101,7 +102,7 @@ pub(super) fn approach_legend(
             format!("{mean} (not in fit)"),
         ));
     }
-    if p.limit_k.is_some_and(usable) {
+    if plot.limit_k.is_some_and(usable) {
         v.push(legend_item(
             Swatch::Line {
                 colour: C_LIMIT,
@@ -111,7 +112,7 @@ pub(super) fn approach_legend(
             "end-of-run limit",
         ));
     }
-    if p.alarm_limits.iter().any(|a| usable(a.limit_k)) {
+    if plot.alarm_limits.iter().any(|a| usable(a.limit_k)) {
         v.push(legend_item(
             Swatch::Line {
                 colour: C_ALARM_LIMIT,
@@ -121,7 +122,8 @@ pub(super) fn approach_legend(
             "operator alarm limit",
         ));
     }
-    if p.projection
+    if plot
+        .projection
         .as_ref()
         .is_some_and(|pr| pr.end_of_run_ms.is_some())
     {
@@ -135,7 +137,7 @@ pub(super) fn approach_legend(
         ));
     }
     for kind in MarkerKind::ALL {
-        if p.markers.iter().any(|m| m.kind == kind) {
+        if plot.markers.iter().any(|m| m.kind == kind) {
             v.push(legend_item(Swatch::Marker(kind), kind.class()));
         }
     }
@@ -145,12 +147,12 @@ pub(super) fn approach_legend(
 /// The y range of the approach chart: approach values, baselines, trend and limit set it;
 /// uncertainty and prediction bands may widen it by at most half of that range.
 pub(super) fn approach_y_range(
-    p: &ReactorPlot,
+    plot: &ReactorPlot,
     pts: &[&PlotPoint],
     proj: &[ProjPt],
     ts: &TimeScale,
 ) -> Option<(f64, f64)> {
-    let baselines = p.baselines.iter().filter(|b| {
+    let baselines = plot.baselines.iter().filter(|b| {
         usable(b.approach_k) && b.from_ms.min(b.to_ms) <= ts.t1 && b.from_ms.max(b.to_ms) >= ts.t0
     });
     let core = pts
@@ -158,8 +160,8 @@ pub(super) fn approach_y_range(
         .filter_map(|q| q.approach_k)
         .chain(baselines.clone().map(|b| b.approach_k))
         .chain(proj.iter().map(|q| q.fit))
-        .chain(p.limit_k)
-        .chain(p.alarm_limits.iter().map(|a| a.limit_k))
+        .chain(plot.limit_k)
+        .chain(plot.alarm_limits.iter().map(|a| a.limit_k))
         .filter(|v| usable(*v));
     let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
     for v in core {
@@ -213,11 +215,16 @@ struct Layers<'a> {
 }
 
 /// The top chart. Groups are always written (possibly empty) so that the structure is stable.
-pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, frame: &ApproachFrame) {
-    let (p, pts, ta, area) = (data.plot, &data.points[..], frame.ta, frame.area);
+pub(super) fn approach_chart(
+    out: &mut String,
+    data: &Prepared,
+    domain: &Domain,
+    frame: &ApproachFrame,
+) {
+    let (plot, pts, ta, area) = (data.plot, &data.points[..], frame.ta, frame.area);
     let ts = ta.scale;
     let proj = clip_projection(&data.projection, ts.t0, ts.t1);
-    let range = approach_y_range(p, pts, &proj, &ts);
+    let range = approach_y_range(plot, pts, &proj, &ts);
     let ys = YScale {
         axis: match range {
             Some((lo, hi)) => linear_axis(lo, hi, 6),
@@ -231,7 +238,7 @@ pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, fram
         attr: "id=\"offline\"",
         clip: "clip-approach",
     };
-    offline_group(out, &group, &p.offline, &ts, area);
+    offline_group(out, &group, &plot.offline, &ts, area);
     if range.is_some() {
         draw_y_axis(out, area, &ys, "approach to equilibrium (K)");
     } else {
@@ -247,7 +254,7 @@ pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, fram
         );
     }
     let layers = Layers {
-        plot: p,
+        plot,
         ta,
         ys: &ys,
         area,
@@ -328,7 +335,7 @@ pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, fram
     }
     out.push_str("</g>");
 
-    projection_groups(out, &layers, &proj, d);
+    projection_groups(out, &layers, &proj, domain);
     limit_groups(out, &layers);
 
     // Approach line (with envelope when decimated).
@@ -373,7 +380,7 @@ pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, fram
     aggregates_group(out, &layers);
     baselines_group(out, &layers);
     end_of_run_group(out, &layers);
-    markers_group(out, p, frame);
+    markers_group(out, plot, frame);
 
     draw_frame(out, area);
     if n_valid == 0 {
@@ -386,7 +393,7 @@ pub(super) fn approach_chart(out: &mut String, data: &Prepared, d: &Domain, fram
 }
 
 /// The markers shown, and a note counting those outside the time range.
-fn markers_group(out: &mut String, p: &ReactorPlot, frame: &ApproachFrame) {
+fn markers_group(out: &mut String, plot: &ReactorPlot, frame: &ApproachFrame) {
     let (shown, area) = (frame.shown, frame.area);
     out.push_str("<g id=\"markers\">");
     let style = MarkerStyle {
@@ -394,7 +401,7 @@ fn markers_group(out: &mut String, p: &ReactorPlot, frame: &ApproachFrame) {
         numbered: true,
     };
     draw_markers(out, shown, frame.ta, area, style);
-    let outside = p.markers.len() - shown.len();
+    let outside = plot.markers.len() - shown.len();
     if outside > 0 {
         w!(
             out,
@@ -409,7 +416,7 @@ fn markers_group(out: &mut String, p: &ReactorPlot, frame: &ApproachFrame) {
 }
 
 fn baselines_group(out: &mut String, layers: &Layers) {
-    let (p, ta, ys, area, has_axis) = (
+    let (plot, ta, ys, area, has_axis) = (
         layers.plot,
         layers.ta,
         layers.ys,
@@ -418,7 +425,7 @@ fn baselines_group(out: &mut String, layers: &Layers) {
     );
     let ts = &ta.scale;
     w!(out, "<g id=\"baseline\" clip-path=\"url(#clip-approach)\">");
-    for b in p.baselines.iter().filter(|_| has_axis) {
+    for b in plot.baselines.iter().filter(|_| has_axis) {
         if !usable(b.approach_k) || !sane_t(b.from_ms) || !sane_t(b.to_ms) {
             continue;
         }
@@ -476,8 +483,8 @@ fn baselines_group(out: &mut String, layers: &Layers) {
 }
 
 /// `trend` (the fit over the data) and `projection` (prediction band and the fit forward).
-fn projection_groups(out: &mut String, layers: &Layers, proj: &[ProjPt], d: &Domain) {
-    let (p, ts, ys, has_axis) = (layers.plot, &layers.ta.scale, layers.ys, layers.has_axis);
+fn projection_groups(out: &mut String, layers: &Layers, proj: &[ProjPt], domain: &Domain) {
+    let (plot, ts, ys, has_axis) = (layers.plot, &layers.ta.scale, layers.ys, layers.has_axis);
     let to_px = |v: &[ProjPt], band: bool| -> Vec<Px> {
         v.iter()
             .map(|q| Px {
@@ -510,7 +517,7 @@ fn projection_groups(out: &mut String, layers: &Layers, proj: &[ProjPt], d: &Dom
                 "<path class=\"bar\" d=\"{bars}\" stroke=\"{C_PROJ_BAND}\" stroke-width=\"3\" fill=\"none\"/>"
             );
         }
-        let forward = to_px(&clip_projection(proj, d.data_end, ts.t1), false);
+        let forward = to_px(&clip_projection(proj, domain.data_end, ts.t1), false);
         let (line, _) = line_path(&forward);
         if forward.len() > 1 && !line.is_empty() {
             w!(
@@ -524,7 +531,7 @@ fn projection_groups(out: &mut String, layers: &Layers, proj: &[ProjPt], d: &Dom
 
     w!(out, "<g id=\"trend\">");
     if has_axis && !proj.is_empty() {
-        let fit = to_px(&clip_projection(proj, ts.t0, d.data_end), false);
+        let fit = to_px(&clip_projection(proj, ts.t0, domain.data_end), false);
         let (line, _) = line_path(&fit);
         if fit.len() > 1 && !line.is_empty() {
             w!(
@@ -533,7 +540,7 @@ fn projection_groups(out: &mut String, layers: &Layers, proj: &[ProjPt], d: &Dom
                 dash_attr(DASH_TREND)
             );
         }
-        if let Some(pr) = p
+        if let Some(pr) = plot
             .projection
             .as_ref()
             .filter(|pr| usable(pr.slope_k_per_day))
@@ -565,10 +572,10 @@ struct LimitLine<'a> {
 }
 
 fn limit_groups(out: &mut String, layers: &Layers) {
-    let (p, area) = (layers.plot, layers.area);
+    let (plot, area) = (layers.plot, layers.area);
     let lines = limit_lines(layers);
     let label_y = limit_label_ys(&lines, area);
-    let label_x = limit_label_x(p, &lines, &layers.ta.scale, area);
+    let label_x = limit_label_x(plot, &lines, &layers.ta.scale, area);
     let path = |out: &mut String, y: f64, colour: &str, dash: &str, width: &str| {
         w!(
             out,
@@ -614,9 +621,9 @@ fn limit_groups(out: &mut String, layers: &Layers) {
 
 /// The end-of-run limit and the operator alarm limits inside the value axis.
 fn limit_lines<'a>(layers: &Layers<'a>) -> Vec<LimitLine<'a>> {
-    let (p, ys, has_axis) = (layers.plot, layers.ys, layers.has_axis);
+    let (plot, ys, has_axis) = (layers.plot, layers.ys, layers.has_axis);
     let mut lines = Vec::new();
-    if let Some((l, y)) = p
+    if let Some((l, y)) = plot
         .limit_k
         .filter(|l| has_axis && usable(*l))
         .and_then(|l| ys.y(l).map(|y| (l, y)))
@@ -627,7 +634,7 @@ fn limit_lines<'a>(layers: &Layers<'a>) -> Vec<LimitLine<'a>> {
             alarm: None,
         });
     }
-    for a in p
+    for a in plot
         .alarm_limits
         .iter()
         .filter(|a| has_axis && usable(a.limit_k))
@@ -670,13 +677,13 @@ fn limit_label_ys(lines: &[LimitLine], area: Area) -> Vec<f64> {
 }
 
 /// Where the labels end.
-fn limit_label_x(p: &ReactorPlot, lines: &[LimitLine], ts: &TimeScale, area: Area) -> f64 {
+fn limit_label_x(plot: &ReactorPlot, lines: &[LimitLine], ts: &TimeScale, area: Area) -> f64 {
     // Right-aligned at the right edge, or left of the end-of-run line when that is near it.
     let widest = lines
         .iter()
         .map(|l| text_width(&l.text, 10.0))
         .fold(0.0, f64::max);
-    p.projection
+    plot.projection
         .as_ref()
         .and_then(|pr| pr.end_of_run_ms)
         .filter(|&e| sane_t(e) && ts.contains(e))
@@ -714,9 +721,9 @@ pub(super) fn aggregate_shape(out: &mut String, x: f64, y: f64, filled: bool) {
 
 /// `aggregates`: one `rect.aggregate` per steady-state aggregate inside the time range.
 fn aggregates_group(out: &mut String, layers: &Layers) {
-    let (p, ts, ys, has_axis) = (layers.plot, &layers.ta.scale, layers.ys, layers.has_axis);
+    let (plot, ts, ys, has_axis) = (layers.plot, &layers.ta.scale, layers.ys, layers.has_axis);
     out.push_str("<g id=\"aggregates\" clip-path=\"url(#clip-approach)\">");
-    for a in &p.aggregates {
+    for a in &plot.aggregates {
         if !has_axis || !usable(a.approach_k) || !sane_t(a.t_ms) || !ts.contains(a.t_ms) {
             continue;
         }
@@ -728,7 +735,7 @@ fn aggregates_group(out: &mut String, layers: &Layers) {
 }
 
 fn end_of_run_group(out: &mut String, layers: &Layers) {
-    let (p, ta, ys, area, has_axis) = (
+    let (plot, ta, ys, area, has_axis) = (
         layers.plot,
         layers.ta,
         layers.ys,
@@ -737,11 +744,11 @@ fn end_of_run_group(out: &mut String, layers: &Layers) {
     );
     let ts = ta.scale;
     out.push_str("<g id=\"end-of-run\">");
-    let Some(pr) = &p.projection else {
+    let Some(pr) = &plot.projection else {
         out.push_str("</g>");
         return;
     };
-    let limit_y = p
+    let limit_y = plot
         .limit_k
         .filter(|l| has_axis && usable(*l))
         .and_then(|l| ys.y(l));

@@ -61,14 +61,14 @@ fn key_label(key: &str, unit: &str, basis: Option<&str>, log: bool) -> String {
 }
 
 pub(super) fn key_chart(out: &mut String, data: &Prepared, ta: &TimeAxis, area: Area) {
-    let (p, pts, key, basis) = (data.plot, &data.points[..], data.key, data.basis);
+    let (plot, pts, key, basis) = (data.plot, &data.points[..], data.key, data.basis);
     let ts = ta.scale;
     let axis = key_axis(&key_values(pts));
     let group = GroupAttrs {
         attr: "id=\"key-offline\"",
         clip: "clip-key",
     };
-    offline_group(out, &group, &p.offline, &ts, area);
+    offline_group(out, &group, &plot.offline, &ts, area);
     draw_time_grid(out, area, ta, true);
     let mut drawn = 0usize;
     match axis {

@@ -33,7 +33,10 @@ pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> Stri
         (540.0 / n as f64).clamp(90.0, 160.0)
     };
     let legend_y = 44.0;
-    let sorted: Vec<Vec<&PlotPoint>> = plots.iter().map(|p| sorted_points(&p.points)).collect();
+    let sorted: Vec<Vec<&PlotPoint>> = plots
+        .iter()
+        .map(|plot| sorted_points(&plot.points))
+        .collect();
     let items = overview_legend(plots, &sorted);
     let (legend_pos, rows) = legend_layout(&items, LEFT, RIGHT, legend_y);
     let panels_top = legend_y + 16.0 * rows.max(1) as f64 + 4.0;
@@ -98,7 +101,7 @@ pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> Stri
         draw_frame(&mut out, a);
         draw_message(&mut out, a, "no data: no reactors");
     }
-    for (i, (p, pts)) in plots.iter().zip(&sorted).enumerate() {
+    for (i, (plot, pts)) in plots.iter().zip(&sorted).enumerate() {
         let area = panel_area(i);
         let last = i + 1 == n;
         let place = PanelPlace {
@@ -107,7 +110,7 @@ pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> Stri
             area,
             last,
         };
-        overview_panel(&mut out, p, pts, &place);
+        overview_panel(&mut out, plot, pts, &place);
     }
     let caption = ta
         .as_ref()
@@ -183,19 +186,19 @@ struct PanelPlace<'a> {
 
 /// One reactor's row of the overview, in `<g class="panel" id="panel-N">` with classes
 /// (not ids, which must be unique) for its parts.
-fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: &PanelPlace) {
+fn overview_panel(out: &mut String, plot: &ReactorPlot, pts: &[&PlotPoint], place: &PanelPlace) {
     let (index, ta, area, last) = (place.index, place.ta, place.area, place.last);
     w!(
         out,
         "<g class=\"panel\" id=\"panel-{index}\" data-reactor=\"{}\">",
-        Esc(&p.reactor)
+        Esc(&plot.reactor)
     );
-    let mut heading = if p.title.trim().is_empty() {
-        p.reactor.clone()
+    let mut heading = if plot.title.trim().is_empty() {
+        plot.reactor.clone()
     } else {
-        p.title.clone()
+        plot.title.clone()
     };
-    if let Some(e) = p
+    if let Some(e) = plot
         .projection
         .as_ref()
         .and_then(|pr| pr.end_of_run_ms)
@@ -220,13 +223,13 @@ fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: 
         return;
     };
     let ts = ta.scale;
-    let (ys, has_axis) = panel_y_scale(p, pts, area);
+    let (ys, has_axis) = panel_y_scale(plot, pts, area);
     let clip = format!("clip-panel-{index}");
     let group = GroupAttrs {
         attr: "class=\"offline\"",
         clip: &clip,
     };
-    offline_group(out, &group, &p.offline, &ts, area);
+    offline_group(out, &group, &plot.offline, &ts, area);
     draw_time_grid(out, area, ta, last);
     if has_axis {
         draw_y_axis(out, area, &ys, "approach (K)");
@@ -261,7 +264,7 @@ fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: 
         );
     }
     out.push_str("</g><g class=\"limit\">");
-    if let Some((l, y)) = p
+    if let Some((l, y)) = plot
         .limit_k
         .filter(|l| has_axis && usable(*l))
         .and_then(|l| ys.y(l).map(|y| (l, y)))
@@ -304,7 +307,7 @@ fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: 
         radius: 4.0,
         numbered: false,
     };
-    draw_markers(out, &shown_markers(&p.markers, &ts), ta, area, style);
+    draw_markers(out, &shown_markers(&plot.markers, &ts), ta, area, style);
     out.push_str("</g>");
     draw_frame(out, area);
     if !series.iter().any(|q| q.y.is_some()) {
@@ -319,11 +322,11 @@ fn overview_panel(out: &mut String, p: &ReactorPlot, pts: &[&PlotPoint], place: 
 
 /// The panel's value scale (approach and limit, from zero when that is near), and whether
 /// any value gave it an axis.
-fn panel_y_scale(p: &ReactorPlot, pts: &[&PlotPoint], area: Area) -> (YScale, bool) {
+fn panel_y_scale(plot: &ReactorPlot, pts: &[&PlotPoint], area: Area) -> (YScale, bool) {
     let core = pts
         .iter()
         .filter_map(|q| q.approach_k)
-        .chain(p.limit_k)
+        .chain(plot.limit_k)
         .filter(|v| usable(*v));
     let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
     for v in core {

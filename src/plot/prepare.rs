@@ -23,31 +23,31 @@ pub(super) struct Prepared<'a> {
 }
 
 impl<'a> Prepared<'a> {
-    pub(super) fn new(p: &'a ReactorPlot) -> Prepared<'a> {
-        let points = sorted_points(&p.points);
-        let projection = p
+    pub(super) fn new(plot: &'a ReactorPlot) -> Prepared<'a> {
+        let points = sorted_points(&plot.points);
+        let projection = plot
             .projection
             .as_ref()
             .map(projection_points)
             .unwrap_or_default();
-        let domain = reactor_domain(p, &points, &projection);
-        let key = if p.key_component.trim().is_empty() {
+        let domain = reactor_domain(plot, &points, &projection);
+        let key = if plot.key_component.trim().is_empty() {
             "key component"
         } else {
-            p.key_component.as_str()
+            plot.key_component.as_str()
         };
-        let title = if p.title.trim().is_empty() {
-            p.reactor.as_str()
+        let title = if plot.title.trim().is_empty() {
+            plot.reactor.as_str()
         } else {
-            p.title.as_str()
+            plot.title.as_str()
         };
-        let basis = p
+        let basis = plot
             .key_basis
             .as_deref()
             .map(str::trim)
             .filter(|b| !b.is_empty());
         Prepared {
-            plot: p,
+            plot,
             points,
             projection,
             domain,
@@ -129,16 +129,16 @@ pub(super) struct Domain {
     pub(super) data_end: i64,
 }
 
-fn reactor_domain(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Option<Domain> {
+fn reactor_domain(plot: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Option<Domain> {
     let (d0, d1) = match (pts.first(), pts.last()) {
         (Some(a), Some(b)) => (a.t_ms, b.t_ms),
         _ => {
             // No evaluations: show whatever else has a time, or nothing.
-            let times = p
+            let times = plot
                 .markers
                 .iter()
                 .map(|m| m.t_ms)
-                .chain(p.baselines.iter().flat_map(|b| [b.from_ms, b.to_ms]))
+                .chain(plot.baselines.iter().flat_map(|b| [b.from_ms, b.to_ms]))
                 .chain(proj.iter().map(|q| q.t))
                 .filter(|&t| sane_t(t));
             let (mut lo, mut hi) = (None::<i64>, None::<i64>);
@@ -155,7 +155,7 @@ fn reactor_domain(p: &ReactorPlot, pts: &[&PlotPoint], proj: &[ProjPt]) -> Optio
         }
     };
     let mut want_end = d1;
-    if let Some(pr) = &p.projection {
+    if let Some(pr) = &plot.projection {
         if let Some(e) = pr.end_of_run_ms.filter(|&e| sane_t(e)) {
             want_end = want_end.max(e);
         }

@@ -20,16 +20,16 @@ use super::style::{
 use super::svg::{Area, Esc, N, clip_rect, draw_frame, draw_message, text_width};
 
 /// One SVG document for one reactor, times in UTC: see [`reactor_svg_tz`].
-pub fn reactor_svg(p: &ReactorPlot) -> String {
-    reactor_svg_tz(p, TimeZone::UTC)
+pub fn reactor_svg(plot: &ReactorPlot) -> String {
+    reactor_svg_tz(plot, TimeZone::UTC)
 }
 
 /// One SVG document for one reactor: the approach to equilibrium (top) and the key component,
 /// measured and at equilibrium (bottom), on a shared time axis labelled in `tz`; numbered
 /// event markers with their list under the charts. 1000 px wide, 640 px high plus the room
 /// that marker numbers and the event list take.
-pub fn reactor_svg_tz(p: &ReactorPlot, tz: TimeZone) -> String {
-    let data = Prepared::new(p);
+pub fn reactor_svg_tz(plot: &ReactorPlot, tz: TimeZone) -> String {
+    let data = Prepared::new(plot);
     let layout = reactor_layout(&data, tz);
     let mut out = String::with_capacity(96 * 1024);
     open_document(&mut out, &data, &layout);
@@ -64,7 +64,7 @@ struct Layout<'a> {
 /// The margins, the time axis, the markers shown with their numbers, the legends and the
 /// chart areas.
 fn reactor_layout<'a>(data: &Prepared<'a>, tz: TimeZone) -> Layout<'a> {
-    let (p, pts, proj_all, domain, key, basis) = (
+    let (plot, pts, proj_all, domain, key, basis) = (
         data.plot,
         &data.points,
         &data.projection,
@@ -77,7 +77,7 @@ fn reactor_layout<'a>(data: &Prepared<'a>, tz: TimeZone) -> Layout<'a> {
         Some(d) => {
             let ts = TimeScale::new(d.t0, d.t1, LEFT, RIGHT);
             let proj = clip_projection(proj_all, ts.t0, ts.t1);
-            let a = approach_y_range(p, pts, &proj, &ts)
+            let a = approach_y_range(plot, pts, &proj, &ts)
                 .map_or(0.0, |(lo, hi)| tick_label_w(&linear_axis(lo, hi, 6)));
             let k = key_axis(&key_values(pts)).map_or(0.0, |(_, _, ax)| tick_label_w(&ax));
             left_for(a.max(k))
@@ -89,7 +89,7 @@ fn reactor_layout<'a>(data: &Prepared<'a>, tz: TimeZone) -> Layout<'a> {
         .map(|d| time_axis(TimeScale::new(d.t0, d.t1, left, RIGHT), tz));
     let shown: Vec<&Marker> = ta
         .as_ref()
-        .map(|ta| shown_markers(&p.markers, &ta.scale))
+        .map(|ta| shown_markers(&plot.markers, &ta.scale))
         .unwrap_or_default();
     let xs: Vec<f64> = match &ta {
         Some(ta) => shown.iter().map(|m| ta.scale.x(m.t_ms)).collect(),
@@ -101,7 +101,7 @@ fn reactor_layout<'a>(data: &Prepared<'a>, tz: TimeZone) -> Layout<'a> {
     let height = (HEIGHT + strip + list_h).ceil();
 
     // Legend first (its height sets where the top chart starts); drawn at the end.
-    let items = approach_legend(p, pts, proj_all);
+    let items = approach_legend(plot, pts, proj_all);
     let (legend_pos, rows) = legend_layout(&items, left, RIGHT, 44.0);
     let heading_y = 44.0 + 16.0 * rows.max(1) as f64 + 4.0;
     let dy = strip;
@@ -163,7 +163,7 @@ fn reactor_layout<'a>(data: &Prepared<'a>, tz: TimeZone) -> Layout<'a> {
 
 /// The root element, title and description, clip paths, background and headings.
 fn open_document(out: &mut String, data: &Prepared, layout: &Layout) {
-    let (p, key, title, basis) = (data.plot, data.key, data.title, data.basis);
+    let (plot, key, title, basis) = (data.plot, data.key, data.title, data.basis);
     let (left, heading_y, dy, height) = (layout.left, layout.heading_y, layout.dy, layout.height);
     let (top, bottom, key_heading) = (layout.top, layout.bottom, &layout.key_heading);
     w!(
@@ -178,7 +178,7 @@ fn open_document(out: &mut String, data: &Prepared, layout: &Layout) {
         out,
         "<desc id=\"svg-desc\">advisory: not a safety function. Approach to equilibrium of reactor {} \
          and its key component {}, measured and at equilibrium{}.</desc>",
-        Esc(&p.reactor),
+        Esc(&plot.reactor),
         Esc(key),
         basis.map_or(String::new(), |b| format!(" ({} basis)", Esc(b)))
     );
@@ -284,18 +284,18 @@ fn draw_no_data(out: &mut String, layout: &Layout, tz: TimeZone) {
 
 /// The footer and both legends.
 fn close_document(out: &mut String, data: &Prepared, layout: &Layout) {
-    let (p, height) = (data.plot, layout.height);
+    let (plot, height) = (data.plot, layout.height);
     w!(
         out,
         "<text class=\"footer\" x=\"16\" y=\"{}\" font-size=\"10\" fill=\"{C_MUTED}\">advisory: not a safety function. \
          eqwatch{}{}</text>",
         N(height - 8.0),
-        if p.reactor.is_empty() {
+        if plot.reactor.is_empty() {
             ""
         } else {
             ", reactor "
         },
-        Esc(&p.reactor)
+        Esc(&plot.reactor)
     );
     out.push_str("<g id=\"legend\">");
     draw_legend_items(out, &layout.items, &layout.legend_pos);

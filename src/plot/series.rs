@@ -130,11 +130,11 @@ pub(super) fn envelope(out: &mut String, series: &[Px], colour: &str, fill_opaci
 
 /// Polyline through the valid samples, one sub-path per run; also the isolated points (runs
 /// of one sample), which a line cannot show.
-pub(super) fn line_path(s: &[Px]) -> (String, Vec<(f64, f64)>) {
+pub(super) fn line_path(series: &[Px]) -> (String, Vec<(f64, f64)>) {
     let mut d = String::new();
     let mut isolated = Vec::new();
     let mut run = 0usize;
-    for (i, p) in s.iter().enumerate() {
+    for (i, p) in series.iter().enumerate() {
         match p.y {
             Some(y) => {
                 if run == 0 {
@@ -148,7 +148,7 @@ pub(super) fn line_path(s: &[Px]) -> (String, Vec<(f64, f64)>) {
                     w!(d, " {},{}", N(p.x), N(y));
                 }
                 run += 1;
-                let next_valid = s.get(i + 1).is_some_and(|q| q.y.is_some());
+                let next_valid = series.get(i + 1).is_some_and(|q| q.y.is_some());
                 if run == 1 && !next_valid {
                     isolated.push((p.x, y));
                 }
@@ -161,20 +161,23 @@ pub(super) fn line_path(s: &[Px]) -> (String, Vec<(f64, f64)>) {
 
 /// Closed areas between the two rows that `pick` gives, one per run of samples; runs of a
 /// single sample come back separately as vertical bars (a polygon would have no width).
-pub(super) fn band_path(s: &[Px], pick: impl Fn(&Px) -> Option<(f64, f64)>) -> (String, String) {
+pub(super) fn band_path(
+    series: &[Px],
+    pick: impl Fn(&Px) -> Option<(f64, f64)>,
+) -> (String, String) {
     let mut areas = String::new();
     let mut bars = String::new();
     let mut i = 0;
-    while i < s.len() {
-        if pick(&s[i]).is_none() {
+    while i < series.len() {
+        if pick(&series[i]).is_none() {
             i += 1;
             continue;
         }
         let start = i;
-        while i < s.len() && pick(&s[i]).is_some() {
+        while i < series.len() && pick(&series[i]).is_some() {
             i += 1;
         }
-        let run = &s[start..i];
+        let run = &series[start..i];
         if let [only] = run {
             if let Some((a, b)) = pick(only) {
                 if !bars.is_empty() {
@@ -208,11 +211,11 @@ pub(super) fn band_path(s: &[Px], pick: impl Fn(&Px) -> Option<(f64, f64)>) -> (
 
 /// Pixel spans of bad-quality gaps: from the last valid sample before a run of invalid ones
 /// to the first valid one after it; at least 1 px wide, merged where they touch.
-pub(super) fn gap_spans(s: &[Px], area: Area) -> Vec<(f64, f64)> {
+pub(super) fn gap_spans(series: &[Px], area: Area) -> Vec<(f64, f64)> {
     let mut spans: Vec<(f64, f64)> = Vec::new();
     let mut last_valid: Option<f64> = None;
     let mut open: Option<(f64, f64)> = None;
-    for p in s {
+    for p in series {
         if p.y.is_some() {
             if let Some((a, _)) = open.take() {
                 spans.push((a, p.x));

@@ -137,7 +137,7 @@ pub(crate) fn watch(
 
 /// `drift.baseline`: learned (the default, over a window and a least number of samples)
 /// or given with its σ.
-fn drift_baseline(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
+fn drift_baseline(problems: &mut Problems, dp: &str, raw: &RawDrift, drift: &mut DriftSettings) {
     match raw.baseline.as_deref().map(str::trim) {
         None | Some("learn") => {
             let window_ms = match &raw.baseline_window {
@@ -151,10 +151,10 @@ fn drift_baseline(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut Dri
                 20,
                 2,
             );
-            let BaselineSpec::Learn { window_ms: w0, .. } = d.baseline else {
+            let BaselineSpec::Learn { window_ms: w0, .. } = drift.baseline else {
                 unreachable!("the default baseline is learned")
             };
-            d.baseline = BaselineSpec::Learn {
+            drift.baseline = BaselineSpec::Learn {
                 window_ms: window_ms.unwrap_or(w0),
                 min_samples,
             };
@@ -190,7 +190,7 @@ fn drift_baseline(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut Dri
                 );
             }
             if let (Some(a), Some(sg)) = (approach, sigma) {
-                d.baseline = BaselineSpec::Given {
+                drift.baseline = BaselineSpec::Given {
                     approach_k: a,
                     sigma_k: sg,
                 };
@@ -200,10 +200,10 @@ fn drift_baseline(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut Dri
 }
 
 /// The step size, σ floor, EWMA and CUSUM parameters.
-fn drift_statistics(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
+fn drift_statistics(problems: &mut Problems, dp: &str, raw: &RawDrift, drift: &mut DriftSettings) {
     if let Some(t) = &raw.step {
         match kelvin(problems, &format!("{dp}.step"), t) {
-            Some(v) if v > 0.0 => d.step_min_k = Some(v),
+            Some(v) if v > 0.0 => drift.step_min_k = Some(v),
             Some(v) => problems.add(format!("{dp}.step"), format!("{v} K must be above zero")),
             None => {}
         }
@@ -211,17 +211,29 @@ fn drift_statistics(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut D
     if let Some(t) = &raw.sigma_floor {
         if let Some(v) = kelvin(problems, &format!("{dp}.sigma_floor"), t) {
             if v > 0.0 {
-                d.sigma_floor_k = v;
+                drift.sigma_floor_k = v;
             } else {
                 problems.add(format!("{dp}.sigma_floor"), "must be above zero");
             }
         }
     }
     for (key, v, lo, hi, slot) in [
-        ("ewma_lambda", raw.ewma_lambda, 0.0, 1.0, &mut d.ewma_lambda),
-        ("ewma_l", raw.ewma_l, 0.0, 10.0, &mut d.ewma_l),
-        ("cusum_k", raw.cusum_k, -1e-12, 10.0, &mut d.cusum_k_sigma),
-        ("cusum_h", raw.cusum_h, 0.0, 100.0, &mut d.cusum_h_sigma),
+        (
+            "ewma_lambda",
+            raw.ewma_lambda,
+            0.0,
+            1.0,
+            &mut drift.ewma_lambda,
+        ),
+        ("ewma_l", raw.ewma_l, 0.0, 10.0, &mut drift.ewma_l),
+        (
+            "cusum_k",
+            raw.cusum_k,
+            -1e-12,
+            10.0,
+            &mut drift.cusum_k_sigma,
+        ),
+        ("cusum_h", raw.cusum_h, 0.0, 100.0, &mut drift.cusum_h_sigma),
     ] {
         if let Some(v) = v {
             if v.is_finite() && v > lo && v <= hi {
@@ -240,10 +252,10 @@ fn drift_statistics(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut D
 }
 
 /// The trend method, the aggregates it is fitted on, its window, and the end-of-run limit.
-fn drift_trend(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftSettings) {
+fn drift_trend(problems: &mut Problems, dp: &str, raw: &RawDrift, drift: &mut DriftSettings) {
     match raw.trend.as_deref() {
-        None | Some("least-squares") => d.trend = TrendMethod::LeastSquares,
-        Some("theil-sen") => d.trend = TrendMethod::TheilSen,
+        None | Some("least-squares") => drift.trend = TrendMethod::LeastSquares,
+        Some("theil-sen") => drift.trend = TrendMethod::TheilSen,
         Some(o) => problems.add(
             format!("{dp}.trend"),
             format!("unknown method \"{o}\"; expected \"least-squares\" or \"theil-sen\""),
@@ -251,38 +263,41 @@ fn drift_trend(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftS
     }
     if let Some(t) = &raw.aggregate {
         if let Some(v) = positive_duration(problems, &format!("{dp}.aggregate"), t) {
-            d.aggregate_ms = v;
+            drift.aggregate_ms = v;
         }
     }
-    d.min_per_aggregate = count(
+    drift.min_per_aggregate = count(
         problems,
         &format!("{dp}.min_per_aggregate"),
         raw.min_per_aggregate,
-        d.min_per_aggregate,
+        drift.min_per_aggregate,
         1,
     );
     if let Some(t) = &raw.trend_window {
-        d.trend_window_ms = positive_duration(problems, &format!("{dp}.trend_window"), t);
-        if let Some(w) = d.trend_window_ms.filter(|w| *w < 3 * d.aggregate_ms) {
+        drift.trend_window_ms = positive_duration(problems, &format!("{dp}.trend_window"), t);
+        if let Some(w) = drift
+            .trend_window_ms
+            .filter(|w| *w < 3 * drift.aggregate_ms)
+        {
             problems.add(
                 format!("{dp}.trend_window"),
                 format!(
                     "{} holds fewer than 3 aggregates of {}; lengthen it",
                     show_duration(Duration::from_millis(w as u64)),
-                    show_duration(Duration::from_millis(d.aggregate_ms as u64))
+                    show_duration(Duration::from_millis(drift.aggregate_ms as u64))
                 ),
             );
         }
     }
-    d.min_aggregates = count(
+    drift.min_aggregates = count(
         problems,
         &format!("{dp}.min_aggregates"),
         raw.min_aggregates,
-        d.min_aggregates,
+        drift.min_aggregates,
         3,
     );
     if let Some(t) = &raw.end_of_run_limit {
-        d.end_of_run_limit_k = kelvin(problems, &format!("{dp}.end_of_run_limit"), t);
+        drift.end_of_run_limit_k = kelvin(problems, &format!("{dp}.end_of_run_limit"), t);
     }
 }
 
@@ -290,15 +305,15 @@ fn drift_trend(problems: &mut Problems, dp: &str, raw: &RawDrift, d: &mut DriftS
 fn engineering_alerts(
     problems: &mut Problems,
     path: &str,
-    a: &RawAlerts,
+    raw: &RawAlerts,
     settings: &mut WatchSettings,
 ) {
     let dp = format!("{path}.drift");
     let ap = format!("{path}.alerts");
-    if let Some(t) = &a.trend_above {
+    if let Some(t) = &raw.trend_above {
         settings.alerts.trend_above_k_per_day = rate(problems, &format!("{ap}.trend_above"), t);
     }
-    if let Some(t) = &a.end_of_run_within {
+    if let Some(t) = &raw.end_of_run_within {
         settings.alerts.end_of_run_within_days =
             positive_duration(problems, &format!("{ap}.end_of_run_within"), t)
                 .map(|v| v as f64 / 86_400_000.0);
@@ -309,12 +324,12 @@ fn engineering_alerts(
             );
         }
     }
-    settings.alerts.cusum = a.cusum.unwrap_or(false);
-    if let Some(t) = &a.data_quality_after {
+    settings.alerts.cusum = raw.cusum.unwrap_or(false);
+    if let Some(t) = &raw.data_quality_after {
         settings.alerts.data_quality_after_ms =
             positive_duration(problems, &format!("{ap}.data_quality_after"), t);
     }
-    settings.alerts.self_monitoring = a.self_monitoring.unwrap_or(true);
+    settings.alerts.self_monitoring = raw.self_monitoring.unwrap_or(true);
 }
 
 /// Operator alarms, each id once.
@@ -386,10 +401,10 @@ fn rate(problems: &mut Problems, path: &str, text: &str) -> Option<f64> {
     }
 }
 
-fn alarm(problems: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec> {
+fn alarm(problems: &mut Problems, path: &str, raw: &RawAlarm) -> Option<AlarmSpec> {
     let start = problems.len();
-    alarm_name_and_rationale(problems, path, a);
-    let figure = match a.on.as_str() {
+    alarm_name_and_rationale(problems, path, raw);
+    let figure = match raw.on.as_str() {
         "approach" => Figure::Approach,
         "key-measured" => Figure::KeyMeasured,
         o => {
@@ -403,7 +418,7 @@ fn alarm(problems: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec>
     let value = |problems: &mut Problems, key: &str, text: &str| {
         limit_value(problems, path, figure, key, text)
     };
-    let (limit, direction) = match (&a.above, &a.below) {
+    let (limit, direction) = match (&raw.above, &raw.below) {
         (Some(t), None) => (value(problems, "above", t), Direction::High),
         (None, Some(t)) => (value(problems, "below", t), Direction::Low),
         _ => {
@@ -411,7 +426,7 @@ fn alarm(problems: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec>
             (None, Direction::High)
         }
     };
-    let deadband = match &a.deadband {
+    let deadband = match &raw.deadband {
         None => Some(0.0),
         Some(t) => value(problems, "deadband", t).map(|(v, sc, _)| {
             // A deadband is in the limit's unit; convert if written in another.
@@ -421,22 +436,25 @@ fn alarm(problems: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec>
             }
         }),
     };
-    let (on_delay_ms, on_delay_samples) =
-        delay(problems, &format!("{path}.on_delay"), a.on_delay.as_deref());
+    let (on_delay_ms, on_delay_samples) = delay(
+        problems,
+        &format!("{path}.on_delay"),
+        raw.on_delay.as_deref(),
+    );
     let (off_delay_ms, off_delay_samples) = delay(
         problems,
         &format!("{path}.off_delay"),
-        a.off_delay.as_deref(),
+        raw.off_delay.as_deref(),
     );
-    let realarm_ms = a
+    let realarm_ms = raw
         .realarm
         .as_deref()
         .and_then(|t| positive_duration(problems, &format!("{path}.realarm"), t));
-    let max_shelve_ms = match &a.max_shelve {
+    let max_shelve_ms = match &raw.max_shelve {
         None => 8 * 3_600_000,
         Some(t) => positive_duration(problems, &format!("{path}.max_shelve"), t).unwrap_or(1),
     };
-    let priority = priority(problems, path, a);
+    let priority = priority(problems, path, raw);
     if let Some(db) = deadband.filter(|d| *d < 0.0) {
         problems.add(
             format!("{path}.deadband"),
@@ -449,7 +467,7 @@ fn alarm(problems: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec>
     let (limit, scale, unit) = limit?;
     Some(AlarmSpec {
         config: AlarmConfig {
-            id: a.id.clone(),
+            id: raw.id.clone(),
             limit,
             direction,
             deadband: deadband.unwrap_or(0.0),
@@ -458,43 +476,43 @@ fn alarm(problems: &mut Problems, path: &str, a: &RawAlarm) -> Option<AlarmSpec>
             on_delay_samples,
             off_delay_samples,
             realarm_ms,
-            latched: a.latched.unwrap_or(false),
+            latched: raw.latched.unwrap_or(false),
             priority,
             max_shelve_ms,
         },
         figure,
         scale,
         unit,
-        rationale: a.rationale.trim().to_string(),
+        rationale: raw.rationale.trim().to_string(),
     })
 }
 
 /// An alarm's id (fit for topics, not a built-in alert's name) and its rationale.
-fn alarm_name_and_rationale(problems: &mut Problems, path: &str, a: &RawAlarm) {
-    if a.id.is_empty()
-        || !a
+fn alarm_name_and_rationale(problems: &mut Problems, path: &str, raw: &RawAlarm) {
+    if raw.id.is_empty()
+        || !raw
             .id
             .chars()
             .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
     {
         problems.add(
             format!("{path}.id"),
-            format!("\"{}\" may use only letters, digits, `-` and `_`", a.id),
+            format!("\"{}\" may use only letters, digits, `-` and `_`", raw.id),
         );
     }
     if ["trend", "end-of-run", "cusum", "data-quality", "flood"]
         .iter()
-        .any(|r| a.id.eq_ignore_ascii_case(r))
+        .any(|r| raw.id.eq_ignore_ascii_case(r))
     {
         problems.add(
             format!("{path}.id"),
             format!(
                 "\"{}\" is the name of a built-in alert; choose another",
-                a.id
+                raw.id
             ),
         );
     }
-    if a.rationale.trim().len() < 10 {
+    if raw.rationale.trim().len() < 10 {
         problems.add(
             format!("{path}.rationale"),
             "give the rationale (consequence and operator response): operator alarms are for rationalised conditions only",
@@ -532,8 +550,8 @@ fn limit_value(
 }
 
 /// `priority`: 1 (highest) to 4, as a number or text; 3 by default.
-fn priority(problems: &mut Problems, path: &str, a: &RawAlarm) -> Priority {
-    let number = match &a.priority {
+fn priority(problems: &mut Problems, path: &str, raw: &RawAlarm) -> Priority {
+    let number = match &raw.priority {
         None => Some(3),
         Some(RawPriority::Number(n)) => Some(*n),
         Some(RawPriority::Text(t)) => t.trim().parse::<i64>().ok(),
@@ -541,7 +559,7 @@ fn priority(problems: &mut Problems, path: &str, a: &RawAlarm) -> Priority {
     match number.and_then(Priority::from_number) {
         Some(pr) => pr,
         None => {
-            let given = match &a.priority {
+            let given = match &raw.priority {
                 Some(RawPriority::Number(n)) => n.to_string(),
                 Some(RawPriority::Text(t)) => format!("\"{t}\""),
                 None => String::new(),
