@@ -11,7 +11,7 @@ use crate::config::settings::Settings;
 use crate::thermo::species::SpeciesDb;
 
 /// An I/O error as a lower-case reason.
-pub(crate) fn io_reason(e: &io::Error) -> String {
+fn io_reason(e: &io::Error) -> String {
     match e.kind() {
         io::ErrorKind::NotFound => "no such file".to_string(),
         io::ErrorKind::PermissionDenied => "permission denied".to_string(),

@@ -11,10 +11,10 @@ use crate::units::{DAY_MS, MINUTE_MS};
 /// 2026-01-01T00:00:00Z in epoch ms (Python datetime); the start of invented test data.
 pub(super) const T0: i64 = 1_767_225_600_000;
 
-pub(super) const FIVE_MIN: i64 = 5 * MINUTE_MS;
+const FIVE_MIN: i64 = 5 * MINUTE_MS;
 
 /// A plain good point (invented test data).
-pub(super) fn pt(t_ms: i64, approach: Option<f64>) -> PlotPoint {
+fn pt(t_ms: i64, approach: Option<f64>) -> PlotPoint {
     PlotPoint {
         t_ms,
         approach_k: approach,

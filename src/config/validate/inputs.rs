@@ -48,14 +48,14 @@ fn pointer(
 }
 
 /// The pointer keys of a scalar message, by name, for messages about them.
-pub(crate) struct PointerKeys<'a> {
+struct PointerKeys<'a> {
     value: Option<&'a str>,
     ts: Option<&'a str>,
     quality: Option<&'a str>,
     unit: Option<&'a str>,
 }
 
-pub(crate) fn decoder(
+fn decoder(
     problems: &mut Problems,
     path: &str,
     name: Option<&str>,
