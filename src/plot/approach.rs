@@ -239,8 +239,46 @@ pub(super) fn approach_chart(
         clip: "clip-approach",
     };
     offline_group(out, &group, &plot.offline, &ts, area);
-    if range.is_some() {
-        draw_y_axis(out, area, &ys, "approach to equilibrium (K)");
+    approach_axis(out, area, &ys, range.is_some());
+    let layers = Layers {
+        plot,
+        ta,
+        ys: &ys,
+        area,
+        has_axis: range.is_some(),
+    };
+
+    let samples = approach_samples(pts, &layers);
+    let gaps = gap_spans(&data_present(&samples, pts, area), area);
+    let (series, decimated) = drawable(samples, area);
+    gaps_group(out, &gaps, area);
+    uncertainty_group(out, &series);
+    projection_groups(out, &layers, &proj, domain);
+    limit_groups(out, &layers);
+    let n_valid = approach_line_group(out, &series, decimated);
+    uncertain_quality_group(out, &series);
+    aggregates_group(out, &layers);
+    baselines_group(out, &layers);
+    end_of_run_group(out, &layers);
+    markers_group(out, plot, frame);
+
+    draw_frame(out, area);
+    if n_valid == 0 {
+        draw_message(
+            out,
+            area,
+            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
+        );
+    }
+}
+
+/// The clip path of every group inside the approach chart's area.
+const CLIP: &str = "clip-path=\"url(#clip-approach)\"";
+
+/// The value axis, or only its title when no value gave the chart a scale.
+fn approach_axis(out: &mut String, area: Area, ys: &YScale, has_axis: bool) {
+    if has_axis {
+        draw_y_axis(out, area, ys, "approach to equilibrium (K)");
     } else {
         let (lx, ly) = (area.x0 - 30.0, area.mid_y());
         w!(
@@ -253,19 +291,15 @@ pub(super) fn approach_chart(
             N(ly)
         );
     }
-    let layers = Layers {
-        plot,
-        ta,
-        ys: &ys,
-        area,
-        has_axis: range.is_some(),
-    };
+}
 
-    let samples: Vec<Px> = pts
-        .iter()
+/// Each point in pixels, with its uncertainty band.
+fn approach_samples(pts: &[&PlotPoint], layers: &Layers) -> Vec<Px> {
+    let (ts, ys, has_axis) = (&layers.ta.scale, layers.ys, layers.has_axis);
+    pts.iter()
         .map(|q| {
             let a = q.approach_k.filter(|v| usable(*v));
-            let y = if range.is_some() {
+            let y = if has_axis {
                 a.and_then(|v| ys.y(v))
             } else {
                 None
@@ -282,10 +316,14 @@ pub(super) fn approach_chart(
                 good: q.good,
             }
         })
-        .collect();
-    // A gap is a time without a usable result; a result whose approach is only not
-    // meaningful (the key component still measured, as at a methanator) is no gap.
-    let has_data: Vec<Px> = samples
+        .collect()
+}
+
+/// Where a result is present: a time without a usable result is a gap; a result whose
+/// approach is only not meaningful (the key component still measured, as at a methanator)
+/// is no gap.
+fn data_present(samples: &[Px], pts: &[&PlotPoint], area: Area) -> Vec<Px> {
+    samples
         .iter()
         .zip(pts.iter())
         .map(|(px, q)| Px {
@@ -296,17 +334,16 @@ pub(super) fn approach_chart(
             }),
             ..*px
         })
-        .collect();
-    let gaps = gap_spans(&has_data, area);
-    let (series, decimated) = drawable(samples, area);
-    let clip = "clip-path=\"url(#clip-approach)\"";
+        .collect()
+}
 
-    // Bad-quality gaps.
+/// Bad-quality gaps, shaded over the whole height.
+fn gaps_group(out: &mut String, gaps: &[(f64, f64)], area: Area) {
     w!(
         out,
-        "<g id=\"gaps\" {clip} fill=\"{C_GAP}\" fill-opacity=\"0.22\">"
+        "<g id=\"gaps\" {CLIP} fill=\"{C_GAP}\" fill-opacity=\"0.22\">"
     );
-    for (a, b) in &gaps {
+    for (a, b) in gaps {
         w!(
             out,
             "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\"/>",
@@ -317,10 +354,12 @@ pub(super) fn approach_chart(
         );
     }
     out.push_str("</g>");
+}
 
-    // Uncertainty band.
-    let (band, bars) = band_path(&series, |q| q.band);
-    w!(out, "<g id=\"uncertainty\" {clip}>");
+/// The uncertainty band (bars where a point stands alone).
+fn uncertainty_group(out: &mut String, series: &[Px]) {
+    let (band, bars) = band_path(series, |q| q.band);
+    w!(out, "<g id=\"uncertainty\" {CLIP}>");
     if !band.is_empty() {
         w!(
             out,
@@ -334,16 +373,16 @@ pub(super) fn approach_chart(
         );
     }
     out.push_str("</g>");
+}
 
-    projection_groups(out, &layers, &proj, domain);
-    limit_groups(out, &layers);
-
-    // Approach line (with envelope when decimated).
-    w!(out, "<g id=\"approach\" {clip}>");
+/// The approach line (with its envelope when decimated) and its points where they can be
+/// told apart; returns how many columns or points have a value.
+fn approach_line_group(out: &mut String, series: &[Px], decimated: bool) -> usize {
+    w!(out, "<g id=\"approach\" {CLIP}>");
     if decimated {
-        envelope(out, &series, C_APPROACH, "0.18");
+        envelope(out, series, C_APPROACH, "0.18");
     }
-    let (line, isolated) = line_path(&series);
+    let (line, isolated) = line_path(series);
     if !line.is_empty() {
         w!(
             out,
@@ -351,7 +390,7 @@ pub(super) fn approach_chart(
         );
     }
     let n_valid = series.iter().filter(|q| q.y.is_some()).count();
-    for q in &series {
+    for q in series {
         let Some(y) = q.y else { continue };
         let lone = isolated.contains(&(q.x, y));
         if q.good && (lone || (!decimated && n_valid <= 60)) {
@@ -364,11 +403,14 @@ pub(super) fn approach_chart(
         }
     }
     out.push_str("</g>");
+    n_valid
+}
 
-    // Uncertain quality: hollow circles (per column when decimated).
+/// Uncertain quality: hollow circles (per column when decimated).
+fn uncertain_quality_group(out: &mut String, series: &[Px]) {
     w!(
         out,
-        "<g id=\"uncertain-quality\" {clip} fill=\"#fff\" stroke=\"{C_APPROACH}\" stroke-width=\"1.3\">"
+        "<g id=\"uncertain-quality\" {CLIP} fill=\"#fff\" stroke=\"{C_APPROACH}\" stroke-width=\"1.3\">"
     );
     for q in series.iter().filter(|q| !q.good) {
         if let Some(y) = q.y {
@@ -376,20 +418,6 @@ pub(super) fn approach_chart(
         }
     }
     out.push_str("</g>");
-
-    aggregates_group(out, &layers);
-    baselines_group(out, &layers);
-    end_of_run_group(out, &layers);
-    markers_group(out, plot, frame);
-
-    draw_frame(out, area);
-    if n_valid == 0 {
-        draw_message(
-            out,
-            area,
-            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
-        );
-    }
 }
 
 /// The markers shown, and a note counting those outside the time range.
