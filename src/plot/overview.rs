@@ -193,26 +193,7 @@ fn overview_panel(out: &mut String, plot: &ReactorPlot, pts: &[&PlotPoint], plac
         "<g class=\"panel\" id=\"panel-{index}\" data-reactor=\"{}\">",
         Esc(&plot.reactor)
     );
-    let mut heading = if plot.title.trim().is_empty() {
-        plot.reactor.clone()
-    } else {
-        plot.title.clone()
-    };
-    if let Some(e) = plot
-        .projection
-        .as_ref()
-        .and_then(|pr| pr.end_of_run_ms)
-        .filter(|&e| sane_t(e))
-    {
-        heading.push_str(&format!(" — end of run {}", fmt_date(e + tz_ms(ta))));
-    }
-    w!(
-        out,
-        "<text class=\"panel-title\" x=\"{}\" y=\"{}\" font-size=\"12\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
-        N(area.x0),
-        N(area.y0 - 7.0),
-        Esc(&heading)
-    );
+    panel_heading(out, plot, ta, area);
     let Some(ta) = ta else {
         out.push_str(
             "<g class=\"gaps\"/><g class=\"limit\"/><g class=\"approach\"/><g class=\"markers\"/>",
@@ -234,8 +215,58 @@ fn overview_panel(out: &mut String, plot: &ReactorPlot, pts: &[&PlotPoint], plac
     if has_axis {
         draw_y_axis(out, area, &ys, "approach (K)");
     }
-    let samples: Vec<Px> = pts
-        .iter()
+    let samples = panel_samples(pts, &ts, &ys, has_axis);
+    let gaps = gap_spans(&samples, area);
+    let (series, decimated) = drawable(samples, area);
+    let clip = format!("clip-path=\"url(#clip-panel-{index})\"");
+    panel_gaps(out, &gaps, area, &clip);
+    panel_limit(out, plot, &ys, area, has_axis);
+    panel_line(out, &series, decimated, &clip);
+    out.push_str("<g class=\"markers\">");
+    let style = MarkerStyle {
+        radius: 4.0,
+        numbered: false,
+    };
+    draw_markers(out, &shown_markers(&plot.markers, &ts), ta, area, style);
+    out.push_str("</g>");
+    draw_frame(out, area);
+    if !series.iter().any(|q| q.y.is_some()) {
+        draw_message(
+            out,
+            area,
+            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
+        );
+    }
+    out.push_str("</g>");
+}
+
+/// The panel's heading: the title (else the reactor) and the end of run when forecast.
+fn panel_heading(out: &mut String, plot: &ReactorPlot, ta: Option<&TimeAxis>, area: Area) {
+    let mut heading = if plot.title.trim().is_empty() {
+        plot.reactor.clone()
+    } else {
+        plot.title.clone()
+    };
+    if let Some(e) = plot
+        .projection
+        .as_ref()
+        .and_then(|pr| pr.end_of_run_ms)
+        .filter(|&e| sane_t(e))
+    {
+        heading.push_str(&format!(" — end of run {}", fmt_date(e + tz_ms(ta))));
+    }
+    w!(
+        out,
+        "<text class=\"panel-title\" x=\"{}\" y=\"{}\" font-size=\"12\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
+        N(area.x0),
+        N(area.y0 - 7.0),
+        Esc(&heading)
+    );
+}
+
+/// Each point in pixels (the overview draws no uncertainty band).
+fn panel_samples(pts: &[&PlotPoint], ts: &TimeScale, ys: &YScale, has_axis: bool) -> Vec<Px> {
+    pts.iter()
         .map(|q| Px {
             x: ts.x(q.t_ms),
             y: q.approach_k
@@ -245,15 +276,16 @@ fn overview_panel(out: &mut String, plot: &ReactorPlot, pts: &[&PlotPoint], plac
             env: None,
             good: q.good,
         })
-        .collect();
-    let gaps = gap_spans(&samples, area);
-    let (series, decimated) = drawable(samples, area);
-    let clip = format!("clip-path=\"url(#clip-panel-{index})\"");
+        .collect()
+}
+
+/// Bad-quality gaps, shaded over the whole height.
+fn panel_gaps(out: &mut String, gaps: &[(f64, f64)], area: Area, clip: &str) {
     w!(
         out,
         "<g class=\"gaps\" {clip} fill=\"{C_GAP}\" fill-opacity=\"0.22\">"
     );
-    for (a, b) in &gaps {
+    for (a, b) in gaps {
         w!(
             out,
             "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\"/>",
@@ -263,7 +295,12 @@ fn overview_panel(out: &mut String, plot: &ReactorPlot, pts: &[&PlotPoint], plac
             N(area.h())
         );
     }
-    out.push_str("</g><g class=\"limit\">");
+    out.push_str("</g>");
+}
+
+/// The end-of-run limit line with its label.
+fn panel_limit(out: &mut String, plot: &ReactorPlot, ys: &YScale, area: Area, has_axis: bool) {
+    out.push_str("<g class=\"limit\">");
     if let Some((l, y)) = plot
         .limit_k
         .filter(|l| has_axis && usable(*l))
@@ -283,11 +320,16 @@ fn overview_panel(out: &mut String, plot: &ReactorPlot, pts: &[&PlotPoint], plac
             fmt_sig(l, 3)
         );
     }
-    w!(out, "</g><g class=\"approach\" {clip}>");
+    out.push_str("</g>");
+}
+
+/// The approach line (with its envelope when decimated) and its lone points.
+fn panel_line(out: &mut String, series: &[Px], decimated: bool, clip: &str) {
+    w!(out, "<g class=\"approach\" {clip}>");
     if decimated {
-        envelope(out, &series, C_APPROACH, "0.18");
+        envelope(out, series, C_APPROACH, "0.18");
     }
-    let (line, isolated) = line_path(&series);
+    let (line, isolated) = line_path(series);
     if !line.is_empty() {
         w!(
             out,
@@ -300,21 +342,6 @@ fn overview_panel(out: &mut String, plot: &ReactorPlot, pts: &[&PlotPoint], plac
             "<circle class=\"point\" cx=\"{}\" cy=\"{}\" r=\"2.4\" fill=\"{C_APPROACH}\"/>",
             N(x),
             N(y)
-        );
-    }
-    out.push_str("</g><g class=\"markers\">");
-    let style = MarkerStyle {
-        radius: 4.0,
-        numbered: false,
-    };
-    draw_markers(out, &shown_markers(&plot.markers, &ts), ta, area, style);
-    out.push_str("</g>");
-    draw_frame(out, area);
-    if !series.iter().any(|q| q.y.is_some()) {
-        draw_message(
-            out,
-            area,
-            "no approach value (where the equilibrium is below the analyser's detection limit, watch the key component)",
         );
     }
     out.push_str("</g>");
