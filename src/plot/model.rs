@@ -38,7 +38,7 @@ pub struct Projection {
     /// (t_ms, fitted approach K, lower K, upper K), over the data and forward to the limit.
     pub points: Vec<(i64, f64, f64, f64)>,
     pub slope_k_per_day: f64,
-    /// When the fit reaches the limit: a vertical line labelled "end of run <date>".
+    /// When the fit reaches the limit: a vertical line labelled `end of run <date>`.
     pub end_of_run_ms: Option<i64>,
     /// Earliest..latest end of run (interval), drawn as a bar on the limit line.
     pub end_of_run_range_ms: Option<(i64, i64)>,
