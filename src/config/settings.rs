@@ -1,0 +1,195 @@
+//! The validated settings: what the rest of eqwatch takes from the configuration (broker,
+//! journal, reactors as a core spec plus their wiring: topics, decoders, JSON Pointers; who
+//! may send commands).
+
+use std::net::SocketAddr;
+use std::path::PathBuf;
+use std::time::Duration;
+
+use crate::monitor::spec::{InputSpec, ReactorSpec, SteamRatioSpec};
+use crate::thermo::species::SpeciesDb;
+use crate::units::ScalarUnit;
+
+/// Validated settings of one eqwatch process.
+#[derive(Debug, Clone)]
+pub struct Settings {
+    /// Site name (letters, digits, `-`, `_`).
+    pub site: String,
+    /// Output topic prefix, default `eqwatch/<site>`; no wildcards, no trailing `/`.
+    pub topic_prefix: String,
+    pub broker: BrokerSettings,
+    pub journal: JournalSettings,
+    /// `None` when `[http] listen = "off"`; default 127.0.0.1:9873.
+    pub http_listen: Option<SocketAddr>,
+    /// Site atmospheric pressure for gauge readings, bar (default 1.01325).
+    pub atmosphere_bar: f64,
+    /// Built-in species plus the configured species files.
+    pub species: SpeciesDb,
+    pub reactors: Vec<ReactorSettings>,
+    /// Who may send operator commands.
+    pub commands: CommandSettings,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum MqttProtocol {
+    V311,
+    V5,
+}
+
+#[derive(Debug, Clone)]
+pub struct BrokerSettings {
+    pub host: String,
+    pub port: u16,
+    /// `mqtts://` URL.
+    pub tls: bool,
+    pub client_id: String,
+    pub protocol: MqttProtocol,
+    pub keep_alive: Duration,
+    /// Zero: clean session. Above zero: a persistent session (MQTT 3.1.1
+    /// clean_session = false; MQTT 5 session expiry interval).
+    pub session_expiry: Duration,
+    pub username: Option<String>,
+    /// Read from `password_file` or `password_env` during validation.
+    pub password: Option<String>,
+    pub ca_file: Option<PathBuf>,
+    pub client_cert_file: Option<PathBuf>,
+    pub client_key_file: Option<PathBuf>,
+    pub max_packet_bytes: usize,
+    pub reconnect_min: Duration,
+    pub reconnect_max: Duration,
+    /// QoS 1 publishes in flight at once.
+    pub inflight: u16,
+}
+
+#[derive(Debug, Clone)]
+pub struct JournalSettings {
+    pub dir: PathBuf,
+    pub max_file_bytes: u64,
+    pub max_total_bytes: u64,
+    pub fsync_interval: Duration,
+}
+
+/// How a scalar (temperature, pressure, steam ratio) message is decoded.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ScalarDecoder {
+    /// The payload is a bare number; the arrival time is its timestamp.
+    Number,
+    /// JSON; JSON Pointers (RFC 6901) to the fields. Defaults: `/value`, `/ts`,
+    /// `/quality`, `/unit` (the last three optional in the message).
+    Json {
+        value_pointer: String,
+        ts_pointer: Option<String>,
+        quality_pointer: Option<String>,
+        unit_pointer: Option<String>,
+    },
+}
+
+/// A scalar input as validated (split into its [`InputSpec`] and [`ScalarSource`]).
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct ScalarSettings {
+    /// Instrument tag or a short name, for results and logs (default: the topic).
+    pub tag: String,
+    pub topic: String,
+    pub decoder: ScalarDecoder,
+    pub unit: ScalarUnit,
+    /// Older readings are stale.
+    pub max_age: Duration,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub enum CompositionSource {
+    /// One message with every component: `{"ts": ..., "values": {"CO": 0.29, ...},
+    /// "unit": "mol%", "basis": "dry", "quality": "good"}` (pointers configurable).
+    Analyser {
+        topic: String,
+        values_pointer: String,
+        ts_pointer: Option<String>,
+        unit_pointer: Option<String>,
+        basis_pointer: Option<String>,
+        quality_pointer: Option<String>,
+    },
+    /// One topic per component, assembled by sample timestamp.
+    PerComponent {
+        /// (species name as in the species library, topic)
+        topics: Vec<(String, String)>,
+        decoder: ScalarDecoder,
+    },
+}
+
+#[derive(Debug, Clone)]
+pub(crate) enum SteamRatioSettings {
+    Fixed(f64),
+    Measured(ScalarSettings),
+}
+
+/// How a scalar input arrives: its topic and how its payload is decoded.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ScalarSource {
+    pub topic: String,
+    pub decoder: ScalarDecoder,
+}
+
+/// Where a reactor's inputs arrive (same order as the spec's inputs).
+#[derive(Debug, Clone)]
+pub struct Wiring {
+    pub composition: CompositionSource,
+    pub temperatures: Vec<ScalarSource>,
+    pub pressure: ScalarSource,
+    /// Where the steam ratio is measured.
+    pub steam_ratio: Option<ScalarSource>,
+}
+
+/// One configured reactor: what the monitor needs ([`ReactorSpec`]) and where its
+/// inputs arrive ([`Wiring`]).
+#[derive(Debug, Clone)]
+pub struct ReactorSettings {
+    pub spec: ReactorSpec,
+    pub wiring: Wiring,
+}
+
+impl ScalarSettings {
+    pub(crate) fn split(self) -> (InputSpec, ScalarSource) {
+        (
+            InputSpec {
+                tag: self.tag,
+                origin: self.topic.clone(),
+                unit: self.unit,
+                max_age: self.max_age,
+            },
+            ScalarSource {
+                topic: self.topic,
+                decoder: self.decoder,
+            },
+        )
+    }
+}
+
+impl SteamRatioSettings {
+    pub(crate) fn split(self) -> (SteamRatioSpec, Option<ScalarSource>) {
+        match self {
+            Self::Fixed(v) => (SteamRatioSpec::Fixed(v), None),
+            Self::Measured(m) => {
+                let (spec, source) = m.split();
+                (SteamRatioSpec::Measured(spec), Some(source))
+            }
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Problems
+
+/// Who may send commands (the payload's `user` or `client_id` must be listed; the
+/// broker's ACL decides who may publish on the command topics at all).
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct CommandSettings {
+    pub allowed_users: Vec<String>,
+    pub allowed_clients: Vec<String>,
+}
+
+impl CommandSettings {
+    pub fn allows(&self, user: Option<&str>, client: Option<&str>) -> bool {
+        user.is_some_and(|u| self.allowed_users.iter().any(|a| a == u))
+            || client.is_some_and(|c| self.allowed_clients.iter().any(|a| a == c))
+    }
+}

@@ -1,0 +1,256 @@
+//! Validation of the raw configuration into [`Settings`](crate::config::Settings), every problem
+//! with its key path; one file per section (broker and journal, reactors, their inputs).
+
+pub(crate) mod broker;
+pub(crate) mod inputs;
+pub(crate) mod reactor;
+pub(crate) mod watch;
+
+use std::net::SocketAddr;
+use std::path::Path;
+use std::time::Duration;
+
+use toml::Spanned;
+
+use crate::config::EnvLookup;
+use crate::config::duration::{parse_duration, show_duration};
+use crate::config::error::{ConfigErrors, Problems, is_name_char, unit_message};
+use crate::config::files::species_db;
+use crate::config::raw::{RawConfig, RawReactor};
+use crate::config::settings::Settings;
+use crate::config::validate::broker::{broker, journal};
+use crate::config::validate::reactor::{ReactorEnv, reactor};
+use crate::units::{PressureUnit, STANDARD_ATMOSPHERE_BAR, split_quantity};
+
+pub(crate) fn validate(
+    raw: &RawConfig,
+    base: &Path,
+    env: EnvLookup,
+) -> Result<Settings, ConfigErrors> {
+    let mut problems = Problems::default();
+    if raw.site.is_empty() {
+        problems.add("site", "is empty; give a short site name, e.g. \"baw1\"");
+    } else if !raw.site.chars().all(is_name_char) {
+        problems.add(
+            "site",
+            format!(
+                "\"{}\" may use only letters, digits, `-` and `_` (it goes into topics)",
+                raw.site
+            ),
+        );
+    }
+    let topic_prefix = match &raw.topic_prefix {
+        None => format!("eqwatch/{}", raw.site),
+        Some(t) => {
+            if t.is_empty() {
+                problems.add("topic_prefix", "is empty; e.g. \"eqwatch/baw1\"");
+            } else if t.contains(['+', '#']) {
+                problems.add(
+                    "topic_prefix",
+                    format!("\"{t}\" contains a wildcard (`+` or `#`); give a plain topic"),
+                );
+            } else if t.ends_with('/') {
+                problems.add(
+                    "topic_prefix",
+                    format!("\"{t}\" ends with `/`; leave it off"),
+                );
+            } else if t.contains('\0') {
+                problems.add("topic_prefix", "contains a NUL character");
+            }
+            t.clone()
+        }
+    };
+    let atmosphere_bar = match &raw.atmosphere {
+        None => STANDARD_ATMOSPHERE_BAR,
+        Some(text) => atmosphere(&mut problems, text),
+    };
+    let species = species_db(&mut problems, &raw.species_files, base);
+    let broker = broker(&mut problems, &raw.broker, &raw.site, base, env);
+    let journal = journal(&mut problems, &raw.journal, base);
+    let http_listen = match &raw.http {
+        None => Some(SocketAddr::from(([127, 0, 0, 1], 9873))),
+        Some(h) if h.listen.trim().eq_ignore_ascii_case("off") => None,
+        Some(h) => match h.listen.trim().parse::<SocketAddr>() {
+            Ok(a) => Some(a),
+            Err(_) => {
+                problems.add(
+                    "http.listen",
+                    format!(
+                        "\"{}\" is not an address and port; expected e.g. \"127.0.0.1:9873\", \"[::1]:9873\" or \"off\"",
+                        h.listen
+                    ),
+                );
+                None
+            }
+        },
+    };
+    let mut ids: Vec<(&Spanned<String>, &RawReactor)> = raw.reactors.iter().collect();
+    ids.sort_by_key(|(k, _)| k.span().start);
+    if ids.is_empty() {
+        problems.add(
+            "reactors",
+            "no reactors; add at least one [reactors.<id>] table",
+        );
+    }
+    let env = ReactorEnv {
+        db: &species,
+        output_prefix: &topic_prefix,
+        atmosphere_bar,
+    };
+    let mut reactors = Vec::with_capacity(ids.len());
+    for (id, r) in ids {
+        if let Some(settings) = reactor(&mut problems, &env, id.get_ref(), r) {
+            reactors.push(settings);
+        }
+    }
+    let commands = crate::config::validate::watch::commands(&mut problems, raw.commands.as_ref());
+    if !problems.is_empty() {
+        return Err(problems.into_errors());
+    }
+    Ok(Settings {
+        commands,
+        site: raw.site.clone(),
+        topic_prefix,
+        broker,
+        journal,
+        http_listen,
+        atmosphere_bar,
+        species,
+        reactors,
+    })
+}
+
+pub(crate) fn atmosphere(problems: &mut Problems, text: &str) -> f64 {
+    let parsed = split_quantity("atmosphere", text)
+        .map_err(|e| e.to_string())
+        .and_then(|(v, unit)| {
+            if unit.is_empty() {
+                return Err(format!(
+                    "\"{text}\" has no unit; write it as e.g. \"1.013 bar\""
+                ));
+            }
+            let u = PressureUnit::parse(unit).map_err(|e| unit_message(&e))?;
+            if u.gauge {
+                return Err(format!(
+                    "\"{text}\" is a gauge pressure; the site's barometric pressure is absolute, e.g. \"0.98 bar\""
+                ));
+            }
+            Ok(v * u.bar_per_unit)
+        });
+    match parsed {
+        // A barometer anywhere people build plants: 0.5 bar is above 5000 m altitude.
+        Ok(bar) if (0.5..=1.1).contains(&bar) => bar,
+        Ok(bar) => {
+            problems.add(
+                "atmosphere",
+                format!("{bar} bar is not a barometric pressure; expected 0.5 to 1.1 bar absolute"),
+            );
+            STANDARD_ATMOSPHERE_BAR
+        }
+        Err(m) => {
+            problems.add("atmosphere", m);
+            STANDARD_ATMOSPHERE_BAR
+        }
+    }
+}
+
+/// What a duration option allows: its default (`None`: the option is required), the least
+/// value (zero allowed when it is zero) and why that is the least.
+#[derive(Clone, Copy)]
+pub(crate) struct DurationRule {
+    pub(crate) default: Option<Duration>,
+    pub(crate) min: Duration,
+    pub(crate) why_min: &'static str,
+}
+
+/// Parses a duration at `path` under `rule`; an absent option takes the rule's default.
+pub(crate) fn duration_at(
+    problems: &mut Problems,
+    path: &str,
+    text: Option<&str>,
+    rule: DurationRule,
+) -> Duration {
+    let DurationRule {
+        default,
+        min,
+        why_min,
+    } = rule;
+    let d = match (text, default) {
+        (Some(t), _) => match parse_duration(t) {
+            Ok(d) => d,
+            Err(e) => {
+                problems.add(path, e.to_string());
+                return default.unwrap_or(min);
+            }
+        },
+        (None, Some(d)) => return d,
+        (None, None) => {
+            problems.add(path, "missing; give a duration such as \"2 min\"");
+            return min;
+        }
+    };
+    if d < min {
+        if d.is_zero() {
+            problems.add(path, format!("must be above zero ({why_min})"));
+        } else {
+            problems.add(
+                path,
+                format!(
+                    "{} is too short; at least {} ({why_min})",
+                    show_duration(d),
+                    show_duration(min)
+                ),
+            );
+        }
+    }
+    d
+}
+
+pub(crate) const NANOSECOND: Duration = Duration::from_nanos(1);
+
+#[cfg(test)]
+mod tests {
+    //! Check values: see `test_support` (the demo plant's own data, else invented).
+
+    use crate::config::test_support::{assert_problems, broken, check, refused, with_broker};
+
+    #[test]
+    fn broken_no_reactors() {
+        assert_problems(
+            "no-reactors.toml",
+            &broken("no-reactors.toml"),
+            &[("reactors", "no reactors")],
+        );
+    }
+
+    #[test]
+    fn http_and_prefix_options() {
+        // Invented config for the test.
+        let base = with_broker("url = \"mqtt://127.0.0.1\"");
+        let off = format!("{base}\n[http]\nlisten = \"off\"\n");
+        assert_eq!(check(&off).unwrap().http_listen, None);
+        let v6 = format!("{base}\n[http]\nlisten = \"[::1]:9500\"\n");
+        assert_eq!(
+            check(&v6).unwrap().http_listen,
+            Some("[::1]:9500".parse().unwrap())
+        );
+        let prefix = base.replace(
+            "site = \"baw1\"",
+            "site = \"baw1\"\ntopic_prefix = \"plant/eq/\"\natmosphere = \"0.3 bar\"",
+        );
+        let e = refused(&prefix);
+        assert_problems(
+            "prefix",
+            &e,
+            &[
+                ("topic_prefix", "ends with `/`"),
+                ("atmosphere", "expected 0.5 to 1.1 bar absolute"),
+            ],
+        );
+        let atm = base.replace(
+            "site = \"baw1\"",
+            "site = \"baw1\"\natmosphere = \"950 mbar\"",
+        );
+        assert!((check(&atm).unwrap().atmosphere_bar - 0.95).abs() < 1e-12);
+    }
+}
