@@ -155,6 +155,8 @@ pub(crate) struct RawScalar {
     pub unit_pointer: Option<String>,
     pub unit: Option<String>,
     pub max_age: Option<String>,
+    /// `[low, high]` in the input's configured unit; outside it a reading is implausible.
+    pub plausible: Option<[f64; 2]>,
 }
 
 /// A fixed `value`, or a measured ratio (`topic` and the scalar keys; no unit).
@@ -170,6 +172,8 @@ pub(crate) struct RawSteamRatio {
     pub quality_pointer: Option<String>,
     pub unit_pointer: Option<String>,
     pub max_age: Option<String>,
+    /// `[low, high]` in the input's configured unit; outside it a reading is implausible.
+    pub plausible: Option<[f64; 2]>,
 }
 
 // ---------------------------------------------------------------------------

@@ -94,6 +94,8 @@ pub(crate) struct ScalarSettings {
     pub unit: ScalarUnit,
     /// Older readings are stale.
     pub max_age: Duration,
+    /// Readings outside this range are implausible (monitor units).
+    pub plausible: crate::monitor::spec::Plausible,
 }
 
 #[derive(Debug, Clone, PartialEq)]
@@ -155,6 +157,7 @@ impl ScalarSettings {
                 origin: self.topic.clone(),
                 unit: self.unit,
                 max_age: self.max_age,
+                plausible: self.plausible,
             },
             ScalarSource {
                 topic: self.topic,

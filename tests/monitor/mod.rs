@@ -507,3 +507,141 @@ fn the_clock_window_is_taken_from_the_spec_both_ways() {
         }
     );
 }
+
+// Issue 10 §1: implausible values gave good results (pressure 1e300 barg, 1e6 bara,
+// 1e-300 bara, -1 barg; a steam ratio of 50; a thermocouple at 1e6 K).
+#[test]
+fn implausible_pressures_and_steam_ratios_make_the_result_bad_with_a_reason() {
+    let s = settings();
+    let r = reactor(&s, "lts1");
+    let lag = ms(r.composition.lag);
+    let sample = T0 + 10 * MIN;
+    // Values in bar absolute as the monitor takes them (after unit conversion): 1e300,
+    // 1e6, 1e-300 and 0.013 bar abs (-1 barg, NIST SP 811: 1 atm = 1.01325 bar).
+    for p in [1e300, 1e6, 1e-300, 0.01325] {
+        let mut m = ReactorMonitor::new(r);
+        feed_lts(&mut m, &s, sample, 493.15);
+        m.accept(r, &s.species, Input::Pressure(scalar(sample, p)), sample);
+        let e = evaluated(m.accept(
+            r,
+            &s.species,
+            Input::Analysis(lts_analysis(sample + lag)),
+            sample + lag,
+        ));
+        assert_eq!(e.quality, Quality::Bad, "{p} bar: {:?}", e.reasons);
+        assert!(codes(&e).contains(&"implausible_value"), "{:?}", e.reasons);
+    }
+    let mut m = ReactorMonitor::new(r);
+    feed_lts(&mut m, &s, sample, 493.15);
+    m.accept(
+        r,
+        &s.species,
+        Input::SteamRatio(scalar(sample, 50.0)),
+        sample,
+    );
+    let e = evaluated(m.accept(
+        r,
+        &s.species,
+        Input::Analysis(lts_analysis(sample + lag)),
+        sample + lag,
+    ));
+    assert_eq!(e.quality, Quality::Bad, "{:?}", e.reasons);
+    assert!(codes(&e).contains(&"implausible_value"));
+}
+
+#[test]
+fn a_thermocouple_at_a_million_kelvin_is_left_out_and_named() {
+    let s = settings();
+    let r = reactor(&s, "lts1");
+    let lag = ms(r.composition.lag);
+    let sample = T0 + 10 * MIN;
+    let mut m = ReactorMonitor::new(r);
+    feed_lts(&mut m, &s, sample, 493.15);
+    m.accept(
+        r,
+        &s.species,
+        Input::Temperature(1, scalar(sample, 1e6)),
+        sample,
+    );
+    let e = evaluated(m.accept(
+        r,
+        &s.species,
+        Input::Analysis(lts_analysis(sample + lag)),
+        sample + lag,
+    ));
+    assert_eq!(e.quality, Quality::Uncertain, "{:?}", e.reasons);
+    let why = e
+        .reasons
+        .iter()
+        .find(|x| x.code == ReasonCode::ImplausibleValue)
+        .expect("implausible_value");
+    assert!(
+        why.message.contains(&r.temperatures[1].tag),
+        "{}",
+        why.message
+    );
+    // The other thermocouple carries the figure: docs/domain.md §8 [derived], 12.00 K.
+    assert!((e.reactions[0].approach_k.unwrap() - 12.00).abs() < 0.01);
+    assert!(
+        !e.inputs
+            .iter()
+            .any(|u| u.tag == r.temperatures[1].tag && u.used)
+    );
+}
+
+#[test]
+fn a_thermocouple_far_from_its_partners_is_left_out_and_two_that_disagree_are_uncertain() {
+    let s = settings();
+    let base = reactor(&s, "lts1");
+    let lag = ms(base.composition.lag);
+    let sample = T0 + 10 * MIN;
+    // Three outlet thermocouples: 493.15, 494.15 and 540 K (one reads 46 K high).
+    let mut r = base.clone();
+    let mut third = r.temperatures[0].clone();
+    third.tag = "TEST-TI-3".into();
+    r.temperatures.push(third);
+    let mut m = ReactorMonitor::new(&r);
+    feed_lts(&mut m, &s, sample, 493.15);
+    m.accept(
+        &r,
+        &s.species,
+        Input::Temperature(1, scalar(sample, 494.15)),
+        sample,
+    );
+    m.accept(
+        &r,
+        &s.species,
+        Input::Temperature(2, scalar(sample, 540.0)),
+        sample,
+    );
+    let e = evaluated(m.accept(
+        &r,
+        &s.species,
+        Input::Analysis(lts_analysis(sample + lag)),
+        sample + lag,
+    ));
+    let why = e
+        .reasons
+        .iter()
+        .find(|x| x.code == ReasonCode::ThermocouplesDisagree)
+        .expect("thermocouples_disagree");
+    assert!(why.message.contains("TEST-TI-3"), "{}", why.message);
+    assert!((e.temperature_k.unwrap() - 493.65).abs() < 1e-9);
+    // Two that disagree by 30 K: neither can be ruled out; uncertain, both named.
+    let mut m = ReactorMonitor::new(base);
+    feed_lts(&mut m, &s, sample, 493.15);
+    m.accept(
+        base,
+        &s.species,
+        Input::Temperature(1, scalar(sample, 523.15)),
+        sample,
+    );
+    let e = evaluated(m.accept(
+        base,
+        &s.species,
+        Input::Analysis(lts_analysis(sample + lag)),
+        sample + lag,
+    ));
+    assert_eq!(e.quality, Quality::Uncertain, "{:?}", e.reasons);
+    assert!(codes(&e).contains(&"thermocouples_disagree"));
+}

@@ -1,6 +1,7 @@
 //! A reactor's inputs: composition, scalar inputs (temperature, pressure, steam ratio), their
 //! topics, decoders and JSON Pointers, units and tolerances.
 
+use crate::monitor::spec::Plausible;
 use std::time::Duration;
 
 use crate::composition::Basis;
@@ -129,6 +130,7 @@ pub(crate) struct ScalarFields<'a> {
     pointers: PointerKeys<'a>,
     unit: Option<&'a str>,
     max_age: Option<&'a str>,
+    plausible: Option<[f64; 2]>,
 }
 
 impl<'a> From<&'a RawScalar> for ScalarFields<'a> {
@@ -145,6 +147,7 @@ impl<'a> From<&'a RawScalar> for ScalarFields<'a> {
             },
             unit: r.unit.as_deref(),
             max_age: r.max_age.as_deref(),
+            plausible: r.plausible,
         }
     }
 }
@@ -163,6 +166,7 @@ impl<'a> From<&'a RawSteamRatio> for ScalarFields<'a> {
             },
             unit: None,
             max_age: r.max_age.as_deref(),
+            plausible: r.plausible,
         }
     }
 }
@@ -240,12 +244,49 @@ pub(crate) fn scalar(
             why_min: "a reading is stale after this",
         },
     );
+    let plausible = plausible_range(problems, &format!("{path}.plausible"), f.plausible, &unit);
     ScalarSettings {
         tag,
         topic,
         decoder,
         unit,
         max_age,
+        plausible,
+    }
+}
+
+/// The plausible range of an input: `[low, high]` in its configured unit, converted to
+/// K, bar absolute (gauge ends at the standard atmosphere; a plausibility bound needs
+/// no better) or mol/mol; by default [`Plausible::default_for`] the unit's kind.
+fn plausible_range(
+    problems: &mut Problems,
+    path: &str,
+    given: Option<[f64; 2]>,
+    unit: &ScalarUnit,
+) -> Plausible {
+    let default = Plausible::default_for(unit);
+    let Some([low, high]) = given else {
+        return default;
+    };
+    let convert = |v: f64| match unit {
+        ScalarUnit::Temperature(t) => t.to_kelvin(v).map_err(|e| e.to_string()),
+        ScalarUnit::Pressure(p) => p.to_bar_absolute(v, 1.01325).map_err(|e| e.to_string()),
+        ScalarUnit::Ratio if v >= 0.0 && v.is_finite() => Ok(v),
+        ScalarUnit::Ratio => Err(format!("{v} is not a ratio (0 or more)")),
+    };
+    match (convert(low), convert(high)) {
+        (Ok(min), Ok(max)) if min < max => Plausible { min, max },
+        (Ok(_), Ok(_)) => {
+            problems.add(
+                path.to_string(),
+                format!("[{low}, {high}]: the low end must be below the high end"),
+            );
+            default
+        }
+        (Err(e), _) | (_, Err(e)) => {
+            problems.add(path.to_string(), format!("[{low}, {high}]: {e}"));
+            default
+        }
     }
 }
 
@@ -754,6 +795,68 @@ mod tests {
     use crate::config::test_support::{assert_problems, broken, check, refused, with_broker};
     use crate::units::CompositionUnit;
     use std::time::Duration;
+
+    #[test]
+    fn plausible_ranges_are_read_in_the_inputs_unit_or_defaulted() {
+        let demo = include_str!("../../../config/demo-plant.toml");
+        let s = check(demo).expect("demo");
+        let lts = &s
+            .reactors
+            .iter()
+            .find(|r| r.spec.id == "lts1")
+            .expect("lts1")
+            .spec;
+        // Defaults (Plausible::default_for): 250-1600 K, 0.5-400 bar abs.
+        assert_eq!(
+            (
+                lts.temperatures[0].plausible.min,
+                lts.temperatures[0].plausible.max
+            ),
+            (250.0, 1600.0)
+        );
+        assert_eq!(
+            (lts.pressure.plausible.min, lts.pressure.plausible.max),
+            (0.5, 400.0)
+        );
+        // Given in degC and barg: 0 degC = 273.15 K; 0 barg = 1.01325 bar abs (NIST SP 811).
+        let text = demo
+            .replacen(
+                "tag = \"BAW1-TI-305A\"",
+                "tag = \"BAW1-TI-305A\"\nplausible = [150, 300]",
+                1,
+            )
+            .replacen(
+                "tag = \"BAW1-PI-302\"",
+                "tag = \"BAW1-PI-302\"\nplausible = [20, 40]",
+                1,
+            );
+        let s = check(&text).expect("with ranges");
+        let lts = &s
+            .reactors
+            .iter()
+            .find(|r| r.spec.id == "lts1")
+            .expect("lts1")
+            .spec;
+        let t = lts.temperatures[0].plausible;
+        assert!(
+            (t.min - 423.15).abs() < 1e-9 && (t.max - 573.15).abs() < 1e-9,
+            "{t:?}"
+        );
+        let p = lts.pressure.plausible;
+        assert!(
+            (p.min - 21.01325).abs() < 1e-9 && (p.max - 41.01325).abs() < 1e-9,
+            "{p:?}"
+        );
+        let e = refused(&demo.replacen(
+            "tag = \"BAW1-PI-302\"",
+            "tag = \"BAW1-PI-302\"\nplausible = [40, 20]",
+            1,
+        ));
+        assert!(
+            e.to_string().contains("reactors.lts1.pressure.plausible"),
+            "{e}"
+        );
+    }
 
     #[test]
     fn broken_unknown_units() {

@@ -18,6 +18,11 @@ use crate::thermo::reaction::{Reaction, parse_reaction, unknown_hint};
 use crate::thermo::species::SpeciesDb;
 use crate::units::{PressureUnit, UnitError, split_quantity};
 
+/// Outlet thermocouples of one reactor further apart than this disagree [common
+/// practice: two sound thermocouples in one outlet pipe agree within a few K; 15 K is
+/// beyond any real gradient there].
+const DEFAULT_MAX_SPREAD_K: f64 = 15.0;
+
 pub(crate) fn uncertainty(
     problems: &mut Problems,
     path: &str,
@@ -239,6 +244,7 @@ pub(crate) fn reactor(
             steam_ratio,
             uncertainty,
             transient_k_per_min,
+            max_spread_k: DEFAULT_MAX_SPREAD_K,
             watch,
             reaction_labels,
             bed_rise,

@@ -443,12 +443,21 @@ impl ReactorMonitor {
                                 format!("{} reports uncertain quality", ts.tag),
                             );
                         }
-                        if inlet_index == Some(i) {
-                            inlet_k = Some(value);
+                        if !ts.plausible.contains(value) {
+                            case.found.push(
+                                ReasonCode::ImplausibleValue,
+                                Quality::Uncertain,
+                                implausible(ts, value, "K"),
+                            );
+                            (Some(value), Some(age_ms), false)
                         } else {
-                            t_values.push(value);
+                            if inlet_index == Some(i) {
+                                inlet_k = Some(value);
+                            } else {
+                                t_values.push((i, value));
+                            }
+                            (Some(value), Some(age_ms), true)
                         }
-                        (Some(value), Some(age_ms), true)
                     }
                 }
                 Lookup::Stale { nearest_ts_ms } => {
@@ -481,6 +490,34 @@ impl ReactorMonitor {
                 used,
             });
         }
+        if let Some(out) = disagreeing(&t_values, spec.max_spread_k) {
+            let (i, value) = t_values.remove(out);
+            let tag = &spec.temperatures[i].tag;
+            case.found.push(
+                ReasonCode::ThermocouplesDisagree,
+                Quality::Uncertain,
+                format!(
+                    "{tag} reads {value:.1} K, more than {} K from the median of its partners; left out (check the thermocouple)",
+                    crate::units::fmt_num(spec.max_spread_k, 3)
+                ),
+            );
+            if let Some(u) = case.inputs.iter_mut().find(|u| u.tag == *tag) {
+                u.used = false;
+            }
+        } else if t_values.len() == 2 && (t_values[0].1 - t_values[1].1).abs() > spec.max_spread_k {
+            case.found.push(
+                ReasonCode::ThermocouplesDisagree,
+                Quality::Uncertain,
+                format!(
+                    "{} and {} differ by {:.1} K (limit {} K); with two, neither can be ruled out: check both",
+                    spec.temperatures[t_values[0].0].tag,
+                    spec.temperatures[t_values[1].0].tag,
+                    (t_values[0].1 - t_values[1].1).abs(),
+                    crate::units::fmt_num(spec.max_spread_k, 3)
+                ),
+            );
+        }
+        let t_values: Vec<f64> = t_values.into_iter().map(|(_, v)| v).collect();
         let temperature_k = if t_values.is_empty() {
             case.found.push(
                 ReasonCode::NoTemperature,
@@ -683,12 +720,19 @@ impl Case<'_> {
                 quality,
                 age_ms,
             } => {
-                let used = quality != SourceQuality::Bad;
-                if !used {
+                let plausible = input.plausible.contains(value);
+                let used = quality != SourceQuality::Bad && plausible;
+                if quality == SourceQuality::Bad {
                     self.found.push(
                         ReasonCode::SourceBad,
                         Quality::Bad,
                         format!("{} reports bad quality", input.tag),
+                    );
+                } else if !plausible {
+                    self.found.push(
+                        ReasonCode::ImplausibleValue,
+                        Quality::Bad,
+                        implausible(input, value, unit),
                     );
                 }
                 self.inputs.push(InputUse {
@@ -728,6 +772,40 @@ impl Case<'_> {
             }
         }
     }
+}
+
+/// The message for a reading outside its plausible range.
+fn implausible(input: &InputSpec, value: f64, unit: &str) -> String {
+    let range = input.plausible;
+    format!(
+        "{}: {} {unit} is outside the plausible {}–{} {unit}; left out (check the transmitter, its range and its configured unit)",
+        input.tag,
+        crate::units::fmt_num(value, 4),
+        crate::units::fmt_num(range.min, 4),
+        crate::units::fmt_num(range.max, 4)
+    )
+}
+
+/// With three or more thermocouples: the position (in `values`) of the one furthest
+/// from the median, when it is more than `limit` from it.
+fn disagreeing(values: &[(usize, f64)], limit: f64) -> Option<usize> {
+    if values.len() < 3 {
+        return None;
+    }
+    let mut sorted: Vec<f64> = values.iter().map(|(_, v)| *v).collect();
+    sorted.sort_by(f64::total_cmp);
+    let n = sorted.len();
+    let median = if n % 2 == 1 {
+        sorted[n / 2]
+    } else {
+        0.5 * (sorted[n / 2 - 1] + sorted[n / 2])
+    };
+    let (at, far) = values
+        .iter()
+        .enumerate()
+        .map(|(k, (_, v))| (k, (v - median).abs()))
+        .max_by(|a, b| a.1.total_cmp(&b.1))?;
+    (far > limit).then_some(at)
 }
 
 /// The thermocouples at the sample time.

@@ -35,6 +35,8 @@ reason_codes! {
     AnalyserStuck => "analyser_stuck",
     BasisMismatch => "basis_mismatch",
     StaleTemperature => "stale_temperature",
+    ImplausibleValue => "implausible_value",
+    ThermocouplesDisagree => "thermocouples_disagree",
     NoTemperature => "no_temperature",
     Transient => "transient",
     StalePressure => "stale_pressure",

@@ -25,6 +25,42 @@ pub struct InputSpec {
     pub unit: ScalarUnit,
     /// Older readings are stale.
     pub max_age: Duration,
+    /// Readings outside this range (in K, bar absolute or mol/mol) are implausible.
+    pub plausible: Plausible,
+}
+
+/// The range a reading must fall in to be believed, in the monitor's units (K, bar
+/// absolute, mol/mol). A transmitter over range, a wrong unit or a corrupt message
+/// gives values far outside it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Plausible {
+    pub min: f64,
+    pub max: f64,
+}
+
+impl Plausible {
+    /// Defaults that every reactor eqwatch knows runs inside [common practice: reformer
+    /// outlets reach about 1000 °C, SO2 converters run near 1.2 bar abs, ammonia loops
+    /// up to about 300 bar, steam-to-dry-gas ratios stay below about 1.5]: 250–1600 K,
+    /// 0.5–400 bar abs, 0–5 mol/mol. Configure tighter ranges per input.
+    pub fn default_for(unit: &ScalarUnit) -> Self {
+        match unit {
+            ScalarUnit::Temperature(_) => Self {
+                min: 250.0,
+                max: 1600.0,
+            },
+            ScalarUnit::Pressure(_) => Self {
+                min: 0.5,
+                max: 400.0,
+            },
+            ScalarUnit::Ratio => Self { min: 0.0, max: 5.0 },
+        }
+    }
+
+    /// Whether `value` is believable (NaN never is).
+    pub fn contains(&self, value: f64) -> bool {
+        value >= self.min && value <= self.max
+    }
 }
 
 /// How the analyser reports.
@@ -95,6 +131,9 @@ pub struct ReactorSpec {
     pub uncertainty: Uncertainty,
     /// Temperature moving faster than this over the analyser lag flags a transient (K/min).
     pub transient_k_per_min: f64,
+    /// Outlet thermocouples further apart than this disagree: with three or more, the one
+    /// furthest from the median is left out; with two, the result is uncertain (K).
+    pub max_spread_k: f64,
     /// Drift statistics, alerts and operator alarms.
     pub watch: WatchSettings,
     /// Each reaction written out canonically (for results; worked out once).
