@@ -412,7 +412,7 @@ pub(super) fn read_rows(
     sum: &mut Summary,
     hooks: &mut RowHooks<'_>,
 ) -> Result<(), ReplayError> {
-    let mut line = String::new();
+    let mut raw_line: Vec<u8> = Vec::new();
     let mut bytes = 0u64;
     let mut layout: Option<Layout> = None;
     let mut last_time: Option<i64> = None;
@@ -420,15 +420,45 @@ pub(super) fn read_rows(
     let mut pending: Vec<(i64, Vec<RowItems>)> = Vec::with_capacity(BATCH_ROWS);
     let mut n = 0usize;
     loop {
-        line.clear();
-        let got = input.read_line(&mut line)?;
+        raw_line.clear();
+        let got = input.read_until(b'\n', &mut raw_line)?;
         if got == 0 {
             break;
         }
         bytes += got as u64;
         n += 1;
         sum.lines = n;
-        let text = line.trim_end_matches(['\n', '\r']);
+        // A spreadsheet's UTF-8 byte order mark at the start of the file is no data.
+        let content = match (n, raw_line.strip_prefix(b"\xEF\xBB\xBF")) {
+            (1, Some(rest)) => rest,
+            _ => &raw_line[..],
+        };
+        let text = match std::str::from_utf8(content) {
+            Ok(t) => t.trim_end_matches(['\n', '\r']),
+            Err(e) if layout.is_some() => {
+                skip_row(
+                    hooks,
+                    sum,
+                    RowProblem {
+                        line: n,
+                        message: format!(
+                            "not UTF-8 text (byte {} of the line); save the file as UTF-8",
+                            e.valid_up_to() + 1
+                        ),
+                    },
+                );
+                continue;
+            }
+            Err(e) => {
+                return Err(ReplayError::Header {
+                    line: n,
+                    message: format!(
+                        "not UTF-8 text (byte {} of the line); save the file as UTF-8",
+                        e.valid_up_to() + 1
+                    ),
+                });
+            }
+        };
         if text.trim().is_empty() || text.starts_with('#') {
             continue;
         }
@@ -461,12 +491,7 @@ pub(super) fn read_rows(
         let t = match checked {
             Ok(t) => t,
             Err(message) => {
-                let p = RowProblem { line: n, message };
-                (hooks.problem)(&p);
-                sum.skipped_total += 1;
-                if sum.skipped.len() < KEEP_PROBLEMS {
-                    sum.skipped.push(p);
-                }
+                skip_row(hooks, sum, RowProblem { line: n, message });
                 continue;
             }
         };
@@ -488,6 +513,15 @@ pub(super) fn read_rows(
     }
     (hooks.progress)(bytes);
     Ok(())
+}
+
+/// Reports a skipped row and counts it (the first few are kept for the summary).
+fn skip_row(hooks: &mut RowHooks<'_>, sum: &mut Summary, p: RowProblem) {
+    (hooks.problem)(&p);
+    sum.skipped_total += 1;
+    if sum.skipped.len() < KEEP_PROBLEMS {
+        sum.skipped.push(p);
+    }
 }
 
 pub(super) fn number(cell: &str) -> Option<f64> {

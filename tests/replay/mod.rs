@@ -230,6 +230,42 @@ fn malformed_rows_are_reported_with_their_line_and_skipped() {
 }
 
 #[test]
+fn a_byte_order_mark_and_a_row_that_is_not_utf8_do_not_stop_a_replay() {
+    // Issue 10 §1, reproduced first: a UTF-8 BOM was refused, and one invalid byte
+    // stopped the replay with exit 2 and no output.
+    let dir = tempfile::tempdir().unwrap();
+    let config = write_config(dir.path(), 1883, 1);
+    let text = csv();
+    let lines_before = text.lines().count();
+    let mut bytes = b"\xEF\xBB\xBF".to_vec();
+    bytes.extend_from_slice(text.as_bytes());
+    // A row with a Latin-1 degree sign (0xB0) where UTF-8 was expected: 13 digits of
+    // epoch ms, then ",220", so the bad byte is the 18th.
+    bytes.extend_from_slice(format!("{},220", ts(70)).as_bytes());
+    bytes.push(0xB0);
+    bytes.extend_from_slice(b",29.0,0.36312,,,,,\n");
+    let input = dir.path().join("bom.csv");
+    std::fs::write(&input, &bytes).unwrap();
+    let out = dir.path().join("results.jsonl");
+    let (code, stdout, stderr) = replay(&config, &input, &out, None);
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    assert!(
+        stderr.contains(&format!(
+            ":{}: row skipped: not UTF-8 text (byte 18 of the line)",
+            lines_before + 1
+        )),
+        "{stderr}"
+    );
+    assert!(stdout.contains("1 rows skipped"), "{stdout}");
+    let results = std::fs::read_to_string(&out)
+        .unwrap()
+        .lines()
+        .filter(|l| l.contains("\"eqwatch/test/lts1/result\""))
+        .count();
+    assert_eq!(results, readings().len());
+}
+
+#[test]
 fn a_day_of_demo_history_replays_byte_identically_with_plots() {
     let dir = tempfile::tempdir().unwrap();
     let input = dir.path().join("day.csv");
