@@ -353,6 +353,16 @@ pub(crate) fn composition(
             why_min: "",
         },
     );
+    if lag > MAX_LAG {
+        problems.add(
+            format!("{path}.lag"),
+            format!(
+                "{} h is longer than any analyser lag ({} h at most: sample line, conditioning and GC cycle take minutes); check the unit",
+                lag.as_secs() / 3600,
+                MAX_LAG.as_secs() / 3600
+            ),
+        );
+    }
     let max_age = duration_at(
         problems,
         &format!("{path}.max_age"),
@@ -660,6 +670,10 @@ pub(crate) fn sum_tolerance(problems: &mut Problems, path: &str, text: &str) -> 
 }
 
 /// Kelvin per degree of a temperature difference unit.
+/// The longest analyser lag a configuration may give [docs/domain.md §5: 30–60 s for a
+/// well-built system, 5–15 min for a poor one; 2 h leaves room for any real one].
+const MAX_LAG: Duration = Duration::from_secs(2 * 3600);
+
 pub(crate) fn kelvin_per_degree(unit: &str) -> Option<f64> {
     match unit.trim().to_ascii_lowercase().as_str() {
         "k" | "degc" | "°c" | "c" => Some(1.0),

@@ -39,12 +39,25 @@ pub(crate) fn commands(problems: &mut Problems, raw: Option<&RawCommands>) -> Co
 use crate::units::duration_ms as ms;
 
 /// A temperature difference in K (`"20 K"`; a `degC` is the same size, a `degF` 5/9 of it).
+/// The largest temperature difference a setting may name [common practice: reformer
+/// outlets run near 1000 °C, so no approach, deadband or limit reaches 1000 K].
+const MAX_KELVIN: f64 = 1000.0;
+
 pub(crate) fn kelvin(problems: &mut Problems, path: &str, text: &str) -> Option<f64> {
     match split_quantity("temperature difference", text)
         .ok()
         .and_then(|(v, u)| crate::config::validate::inputs::kelvin_per_degree(u).map(|k| v * k))
     {
-        Some(v) => Some(v),
+        Some(v) if v.abs() <= MAX_KELVIN => Some(v),
+        Some(_) => {
+            problems.add(
+                path,
+                format!(
+                    "\"{text}\" is beyond ±{MAX_KELVIN} K, more than any reactor's temperature difference; check the number"
+                ),
+            );
+            None
+        }
         None => {
             problems.add(
                 path,
@@ -540,7 +553,16 @@ fn limit_value(
                     .map(|cu| (v, cu))
                     .map_err(|e| e.to_string())
             }) {
-            Ok((v, cu)) => Some((v, 1.0 / cu.fraction_per_unit(), cu.label())),
+            Ok((v, cu)) if (0.0..=1.0).contains(&(v * cu.fraction_per_unit())) => {
+                Some((v, 1.0 / cu.fraction_per_unit(), cu.label()))
+            }
+            Ok(_) => {
+                problems.add(
+                    kp,
+                    format!("\"{text}\" is not a mole fraction between 0 and 100 mol%"),
+                );
+                None
+            }
             Err(m) => {
                 problems.add(kp, format!("\"{text}\": {m}; write e.g. \"10 ppm\""));
                 None
@@ -579,6 +601,39 @@ mod tests {
 
     use crate::config::files::load;
     use crate::config::test_support::{broken, config_dir};
+
+    #[test]
+    fn absurd_limits_deadbands_and_lags_are_refused_with_their_key() {
+        // Issue 10 §1, reproduced first: check accepted a deadband of 1.8e19 K, a limit
+        // of 1e300 K and an analyser lag of 3650 d.
+        let demo = include_str!("../../../config/demo-plant.toml");
+        let text = demo
+            .replacen(
+                "above = \"20 K\"\ndeadband = \"2 K\"",
+                "above = \"1e300 K\"\ndeadband = \"1.8e19 K\"",
+                1,
+            )
+            .replacen("above = \"5 ppm\"", "above = \"200 mol%\"", 1)
+            .replacen("lag = \"60 s\"", "lag = \"3650 d\"", 1);
+        let e = crate::config::test_support::refused(&text).to_string();
+        for (key, says) in [
+            ("reactors.ref1.alarm[0].above", "beyond ±1000 K"),
+            ("reactors.ref1.alarm[0].deadband", "beyond ±1000 K"),
+            (
+                "reactors.mth1.alarm[0].above",
+                "not a mole fraction between 0 and 100 mol%",
+            ),
+            (
+                "reactors.ref1.composition.lag",
+                "longer than any analyser lag",
+            ),
+        ] {
+            assert!(
+                e.lines().any(|l| l.contains(key) && l.contains(says)),
+                "{key}: {says}\n{e}"
+            );
+        }
+    }
 
     #[test]
     fn drift_alert_and_alarm_sections_say_what_to_fix() {
