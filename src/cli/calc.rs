@@ -564,12 +564,12 @@ fn sensitivity(
             Value::Null
         }
     };
-    let mut s = Map::new();
-    s.insert("key_component".into(), json!(fig.name));
-    s.insert("base".into(), opt(fig.equilibrium));
-    s.insert("temperature_minus_5_k".into(), key_at(t - 5.0, p, moles));
-    s.insert("temperature_plus_5_k".into(), key_at(t + 5.0, p, moles));
-    s.insert("pressure_plus_10_bar".into(), key_at(t, p + 10.0, moles));
+    let mut figures = Map::new();
+    figures.insert("key_component".into(), json!(fig.name));
+    figures.insert("base".into(), opt(fig.equilibrium));
+    figures.insert("temperature_minus_5_k".into(), key_at(t - 5.0, p, moles));
+    figures.insert("temperature_plus_5_k".into(), key_at(t + 5.0, p, moles));
+    figures.insert("pressure_plus_10_bar".into(), key_at(t, p + 10.0, moles));
     if let Some(w) = fig.water_pos {
         // 0.1 mol more steam per mol of dry gas.
         let dry: f64 = moles
@@ -582,10 +582,10 @@ fn sensitivity(
         more[w] += 0.1 * dry;
         let v = key_at(t, p, &more);
         // Per mol of the original gas, then as a fraction of the new total.
-        s.insert("steam_ratio_plus_0_1".into(), v);
+        figures.insert("steam_ratio_plus_0_1".into(), v);
     }
-    s.insert("basis".into(), json!("wet mole fraction at equilibrium"));
-    s
+    figures.insert("basis".into(), json!("wet mole fraction at equilibrium"));
+    figures
 }
 
 /// The unit of a `--temperature` text (kelvin if it cannot be read; `calc` has

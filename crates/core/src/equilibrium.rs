@@ -410,19 +410,23 @@ impl EquilibriumSystem {
     /// The element inventory of `moles_in` over the species and independent elements
     /// actually present, and the bracket on ln N.
     fn reduce(&self, moles_in: &[f64]) -> Result<Reduced, String> {
-        let s = self.n_reactive;
+        let n_reactive = self.n_reactive;
         let n_el = self.atoms.first().map_or(0, |r| r.len());
         let b_all: Vec<f64> = (0..n_el)
-            .map(|j| (0..s).map(|i| self.atoms[i][j] * moles_in[i]).sum())
+            .map(|j| {
+                (0..n_reactive)
+                    .map(|i| self.atoms[i][j] * moles_in[i])
+                    .sum()
+            })
             .collect();
-        let n_inert: f64 = moles_in[s..].iter().sum();
+        let n_inert: f64 = moles_in[n_reactive..].iter().sum();
         let b_scale = b_all.iter().fold(0.0f64, |a, x| a.max(*x));
         if b_scale <= 0.0 {
             return Err("no reacting species present".into());
         }
         // Elements present, and the species that can exist with them.
         let el_present: Vec<bool> = b_all.iter().map(|b| *b > b_scale * 1e-300).collect();
-        let present: Vec<usize> = (0..s)
+        let present: Vec<usize> = (0..n_reactive)
             .filter(|&i| (0..n_el).all(|j| self.atoms[i][j] == 0.0 || el_present[j]))
             .collect();
         let rows = self.independent_rows(&el_present, &present);
@@ -455,7 +459,7 @@ impl EquilibriumSystem {
             m,
             e,
             b,
-            n_reactive: s,
+            n_reactive,
             n_inert,
             ln_n_lo: (total_atoms / max_atoms + n_inert).ln(),
             ln_n_hi: (total_atoms / min_atoms + n_inert).ln(),
@@ -687,12 +691,12 @@ fn finish(
     converged: bool,
 ) -> EquilibriumResult {
     let n_all = moles_in.len();
-    let s = red.n_reactive;
+    let n_reactive = red.n_reactive;
     let mut moles = vec![0.0; n_all];
     for (k, &i) in red.present.iter().enumerate() {
         moles[i] = it.n[k];
     }
-    moles[s..n_all].copy_from_slice(&moles_in[s..n_all]);
+    moles[n_reactive..n_all].copy_from_slice(&moles_in[n_reactive..n_all]);
     let tot: f64 = moles.iter().sum();
     let mole_fractions = moles.iter().map(|x| x / tot).collect();
     EquilibriumResult {

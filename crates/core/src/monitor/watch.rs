@@ -489,8 +489,11 @@ impl Watched {
 }
 
 /// The operator alarms of the configuration, each with its rationale.
-fn push_configured_alarms(s: &WatchSettings, watched: &mut Vec<Watched>) -> Result<(), AlarmError> {
-    for a in &s.alarms {
+fn push_configured_alarms(
+    settings: &WatchSettings,
+    watched: &mut Vec<Watched>,
+) -> Result<(), AlarmError> {
+    for a in &settings.alarms {
         watched.push(Watched::build(
             Class::Alarm,
             a.config.clone(),
@@ -503,8 +506,11 @@ fn push_configured_alarms(s: &WatchSettings, watched: &mut Vec<Watched>) -> Resu
 }
 
 /// The drift alerts: trend rate, end of run, CUSUM step.
-fn push_drift_alerts(s: &WatchSettings, watched: &mut Vec<Watched>) -> Result<(), AlarmError> {
-    let al = &s.alerts;
+fn push_drift_alerts(
+    settings: &WatchSettings,
+    watched: &mut Vec<Watched>,
+) -> Result<(), AlarmError> {
+    let al = &settings.alerts;
     if let Some(rate) = al.trend_above_k_per_day {
         watched.push(Watched::build(
             Class::Alert,
@@ -514,7 +520,9 @@ fn push_drift_alerts(s: &WatchSettings, watched: &mut Vec<Watched>) -> Result<()
             Source::Trend,
         )?);
     }
-    if let (Some(days), Some(limit)) = (al.end_of_run_within_days, s.drift.end_of_run_limit_k) {
+    if let (Some(days), Some(limit)) =
+        (al.end_of_run_within_days, settings.drift.end_of_run_limit_k)
+    {
         watched.push(Watched::build(
             Class::Alert,
             alert_config("end-of-run", days, Direction::Low, 0.1 * days),
@@ -530,7 +538,7 @@ fn push_drift_alerts(s: &WatchSettings, watched: &mut Vec<Watched>) -> Result<()
     if al.cusum {
         // The standing upward step (K) against the step size; the limit is the
         // configured step size, or h (5σ by default) once the baseline is known.
-        let limit = s.drift.step_min_k.unwrap_or(f64::MAX);
+        let limit = settings.drift.step_min_k.unwrap_or(f64::MAX);
         watched.push(Watched::build(
             Class::Alert,
             alert_config("cusum", limit, Direction::High, 0.25 * limit.min(1e300)),
@@ -543,8 +551,11 @@ fn push_drift_alerts(s: &WatchSettings, watched: &mut Vec<Watched>) -> Result<()
 }
 
 /// The alerts on the unit's condition: data quality, bed rise, off line.
-fn push_condition_alerts(s: &WatchSettings, watched: &mut Vec<Watched>) -> Result<(), AlarmError> {
-    let al = &s.alerts;
+fn push_condition_alerts(
+    settings: &WatchSettings,
+    watched: &mut Vec<Watched>,
+) -> Result<(), AlarmError> {
+    let al = &settings.alerts;
     if let Some(after) = al.data_quality_after_ms {
         let min = after as f64 / MINUTE_MS as f64;
         watched.push(Watched::build(
@@ -573,7 +584,7 @@ fn push_condition_alerts(s: &WatchSettings, watched: &mut Vec<Watched>) -> Resul
             Source::BedRise,
         )?);
     }
-    if let Some(limit) = s.offline_below_bar {
+    if let Some(limit) = settings.offline_below_bar {
         // One alert per trip and return; it is never suppressed itself.
         watched.push(Watched::build(
             Class::Alert,
@@ -591,10 +602,10 @@ fn push_condition_alerts(s: &WatchSettings, watched: &mut Vec<Watched>) -> Resul
 
 /// Chattering and stale alerts over each configured alarm.
 fn push_self_monitoring_alerts(
-    s: &WatchSettings,
+    settings: &WatchSettings,
     watched: &mut Vec<Watched>,
 ) -> Result<(), AlarmError> {
-    for (i, alarm) in s.alarms.iter().enumerate() {
+    for (i, alarm) in settings.alarms.iter().enumerate() {
         let id = alarm.config.id.clone();
         watched.push(Watched::build(
             Class::Alert,
@@ -616,13 +627,13 @@ fn push_self_monitoring_alerts(
 
 impl ReactorWatch {
     /// Builds the watch; alarm configurations are validated here.
-    pub fn new(s: &WatchSettings) -> Result<Self, AlarmError> {
+    pub fn new(settings: &WatchSettings) -> Result<Self, AlarmError> {
         let mut watched = Vec::new();
-        push_configured_alarms(s, &mut watched)?;
-        push_drift_alerts(s, &mut watched)?;
-        push_condition_alerts(s, &mut watched)?;
-        if s.alerts.self_monitoring {
-            push_self_monitoring_alerts(s, &mut watched)?;
+        push_configured_alarms(settings, &mut watched)?;
+        push_drift_alerts(settings, &mut watched)?;
+        push_condition_alerts(settings, &mut watched)?;
+        if settings.alerts.self_monitoring {
+            push_self_monitoring_alerts(settings, &mut watched)?;
         }
         Ok(Self::fresh(watched))
     }
