@@ -5,9 +5,9 @@
 use serde_json::{Map, Value, json};
 
 use super::{CliError, finite, input, opt, parse_eos, reactions_with_k};
-use crate::approach::{Approach, Flags, GasState, ReactorModel, Uncertainty};
-use crate::composition::{Basis, Component, WaterSource, parse_components, to_wet};
-use crate::equilibrium::EquilibriumSystem;
+use crate::approach::{Approach, Flags, GasState, ReactorModel, Scratch, Uncertainty};
+use crate::composition::{Basis, Component, WaterSource, WetComposition, parse_components, to_wet};
+use crate::equilibrium::{EosKind, EquilibriumResult, EquilibriumSystem};
 use crate::thermo::ksource::KModel;
 use crate::thermo::reaction::{Reaction, unknown_hint};
 use crate::thermo::species::SpeciesDb;
@@ -165,40 +165,85 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
         json!("advisory figures only; not a safety function"),
     );
     let Some(comp_text) = &inp.composition else {
-        // K only.
-        let (r, k) = &rx[0];
-        let props = k.properties(t);
-        let a = Approach {
-            ln_k: props.ln_k,
-            delta_g_j_per_mol: props.delta_g_j_per_mol,
-            delta_h_j_per_mol: props.delta_h_j_per_mol,
-            delta_s_j_per_mol_k: props.delta_s_j_per_mol_k,
-            ln_q: f64::NAN,
-            q_over_k: f64::NAN,
-            affinity_j_per_mol: f64::NAN,
-            direction: crate::approach::Direction::AtEquilibrium,
-            endothermic: props.delta_h_j_per_mol > 0.0,
-            equilibrium_temperature_k: None,
-            approach_k: None,
-            approach_uncertainty_k: None,
-            uncertainty_budget_k: None,
-            ln_q_uncertainty: 0.0,
-            flags: Flags::default(),
-        };
-        standard_keys(&mut out, r, k, &a);
-        let mut flags = Flags::default();
-        if !k.in_range(t) {
-            flags.set(Flags::TEMPERATURE_OUTSIDE_DATA);
-        }
-        out.insert("flags".into(), flag_list(flags));
-        out.insert("warnings".into(), range_warnings(t, &rx[..1]));
-        if let Some(p) = &inp.pressure {
-            let p = parse_pressure_with_atmosphere(p, atmosphere)
-                .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
-            out.insert("pressure_bar".into(), json!(p));
-        }
+        k_only(&mut out, inp, t, &rx, atmosphere)?;
         return Ok(Value::Object(out));
     };
+    let an = analysis(db, inp, comp_text, t, atmosphere)?;
+    let ev = evaluate_reactions(db, &rx, &an, eos, inp.band_ln)?;
+    approach_output(&mut out, &rx, &an, &ev);
+    // Equilibrium at the measured T and P with the same element inventory.
+    let eqm = equilibrium_at(db, &rx, &an, eos)?;
+    equilibrium_output(&mut out, &eqm);
+    let key = key_component(db, inp.key.as_deref(), &rx[0].0)?;
+    let fig = key_output(&mut out, db, key, &an.wet, &eqm);
+    if inp.sensitivity && eqm.result.converged {
+        let s = sensitivity(db, &an, &eqm, &fig);
+        out.insert("sensitivity".into(), Value::Object(s));
+    }
+    Ok(Value::Object(out))
+}
+
+/// Without a composition: K and its thermodynamics at T for the first reaction.
+fn k_only(
+    out: &mut Map<String, Value>,
+    inp: &CalcInput,
+    t: f64,
+    rx: &[(Reaction, KModel)],
+    atmosphere: f64,
+) -> Result<(), CliError> {
+    let (r, k) = &rx[0];
+    let props = k.properties(t);
+    let a = Approach {
+        ln_k: props.ln_k,
+        delta_g_j_per_mol: props.delta_g_j_per_mol,
+        delta_h_j_per_mol: props.delta_h_j_per_mol,
+        delta_s_j_per_mol_k: props.delta_s_j_per_mol_k,
+        ln_q: f64::NAN,
+        q_over_k: f64::NAN,
+        affinity_j_per_mol: f64::NAN,
+        direction: crate::approach::Direction::AtEquilibrium,
+        endothermic: props.delta_h_j_per_mol > 0.0,
+        equilibrium_temperature_k: None,
+        approach_k: None,
+        approach_uncertainty_k: None,
+        uncertainty_budget_k: None,
+        ln_q_uncertainty: 0.0,
+        flags: Flags::default(),
+    };
+    standard_keys(out, r, k, &a);
+    let mut flags = Flags::default();
+    if !k.in_range(t) {
+        flags.set(Flags::TEMPERATURE_OUTSIDE_DATA);
+    }
+    out.insert("flags".into(), flag_list(flags));
+    out.insert("warnings".into(), range_warnings(t, &rx[..1]));
+    if let Some(p) = &inp.pressure {
+        let p = parse_pressure_with_atmosphere(p, atmosphere)
+            .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
+        out.insert("pressure_bar".into(), json!(p));
+    }
+    Ok(())
+}
+
+/// The measured gas: T, P, the analysis on a wet basis, and the ± inputs.
+struct Analysis {
+    t: f64,
+    p: f64,
+    basis: Basis,
+    wet: WetComposition,
+    unc: Uncertainty,
+    /// Whether `--uncertainty` was given (else `unc` is all zero).
+    uncertainty_given: bool,
+}
+
+/// Reads the pressure, the analysis (unit, basis, water, sum tolerance) and the ±.
+fn analysis(
+    db: &SpeciesDb,
+    inp: &CalcInput,
+    comp_text: &str,
+    t: f64,
+    atmosphere: f64,
+) -> Result<Analysis, CliError> {
     let p_text = inp.pressure.as_ref().ok_or_else(|| {
         CliError::Input("a composition needs --pressure (e.g. \"30 barg\" or \"150 bara\")".into())
     })?;
@@ -209,7 +254,32 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
     let comps: Vec<Component> = parse_components(comp_text, unit).map_err(input)?;
     let basis = Basis::parse(&inp.basis)
         .ok_or_else(|| CliError::Input(format!("--basis `{}`: expected wet or dry", inp.basis)))?;
-    let water = match (inp.steam_ratio, &inp.water) {
+    let water = water_source(inp)?;
+    let (tol_v, tol_u) = split_quantity("--sum-tolerance", &inp.sum_tolerance).map_err(input)?;
+    let tol_unit = if tol_u.is_empty() {
+        CompositionUnit::Percent
+    } else {
+        CompositionUnit::parse(tol_u).map_err(input)?
+    };
+    let tol = tol_v * tol_unit.fraction_per_unit();
+    let wet = to_wet(db, &comps, basis, water, tol).map_err(input)?;
+    let unc = match &inp.uncertainty {
+        None => Uncertainty::default(),
+        Some(u) => parse_uncertainty(u)?,
+    };
+    Ok(Analysis {
+        t,
+        p,
+        basis,
+        wet,
+        unc,
+        uncertainty_given: inp.uncertainty.is_some(),
+    })
+}
+
+/// The water of a dry analysis: `--steam-ratio` or `--water`, not both.
+fn water_source(inp: &CalcInput) -> Result<Option<WaterSource>, CliError> {
+    Ok(match (inp.steam_ratio, &inp.water) {
         (Some(_), Some(_)) => {
             return Err(CliError::Input(
                 "give --steam-ratio or --water, not both".into(),
@@ -224,21 +294,26 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
             ))
         }
         (None, None) => None,
-    };
-    let (tol_v, tol_u) = split_quantity("--sum-tolerance", &inp.sum_tolerance).map_err(input)?;
-    let tol_unit = if tol_u.is_empty() {
-        CompositionUnit::Percent
-    } else {
-        CompositionUnit::parse(tol_u).map_err(input)?
-    };
-    let tol = tol_v * tol_unit.fraction_per_unit();
-    let wet = to_wet(db, &comps, basis, water, tol).map_err(input)?;
-    let unc = match &inp.uncertainty {
-        None => Uncertainty::default(),
-        Some(u) => parse_uncertainty(u)?,
-    };
-    let mut model = ReactorModel::new(db, rx.clone(), &wet.species, eos, None).map_err(input)?;
-    if let Some(b) = inp.band_ln {
+    })
+}
+
+/// Every reaction evaluated for the analysis, with the model and its fugacities.
+struct Evaluated {
+    model: ReactorModel,
+    scratch: Scratch,
+    results: Vec<Approach>,
+}
+
+fn evaluate_reactions(
+    db: &SpeciesDb,
+    rx: &[(Reaction, KModel)],
+    an: &Analysis,
+    eos: EosKind,
+    band_ln: Option<f64>,
+) -> Result<Evaluated, CliError> {
+    let wet = &an.wet;
+    let mut model = ReactorModel::new(db, rx.to_vec(), &wet.species, eos, None).map_err(input)?;
+    if let Some(b) = band_ln {
         if !(b.is_finite() && b >= 0.0) {
             return Err(CliError::Input(
                 "--band must be zero or more (|ln(Q/K)|)".into(),
@@ -247,8 +322,8 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
         model.band_ln = b;
     }
     let state = GasState {
-        temperature_k: t,
-        pressure_bar: p,
+        temperature_k: an.t,
+        pressure_bar: an.p,
         y: &wet.y,
         steam_ratio: wet.steam_ratio.zip(wet.added_water),
     };
@@ -256,44 +331,70 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
     let eos_flags = model.fugacity(&state, &mut scratch);
     let mut results = Vec::new();
     for i in 0..model.reactions().len() {
-        let mut a = model.evaluate(i, &state, &scratch, &unc);
+        let mut a = model.evaluate(i, &state, &scratch, &an.unc);
         a.flags.0 |= eos_flags.0;
         if (wet.analysed_sum - 1.0).abs() > 1e-9 {
             a.flags.set(Flags::COMPOSITION_NORMALISED);
         }
         if a.flags.has(Flags::ZERO_COMPONENT) {
-            let zero: Vec<&str> = model
-                .names()
-                .iter()
-                .zip(&wet.y)
-                .zip(model.reactions()[i].nu())
-                .filter(|((_, y), nu)| **y <= 0.0 && **nu != 0.0)
-                .map(|((n, _), _)| n.as_str())
-                .collect();
-            return Err(CliError::Input(format!(
-                "{} is zero in the composition, so Q is 0 or infinite; give a component below detection at its detection limit",
-                zero.join(", ")
-            )));
+            return Err(zero_component_error(&model, wet, i));
         }
         results.push(a);
     }
+    Ok(Evaluated {
+        model,
+        scratch,
+        results,
+    })
+}
+
+/// Names the species of reaction `i` that are zero in the analysis.
+fn zero_component_error(model: &ReactorModel, wet: &WetComposition, i: usize) -> CliError {
+    let zero: Vec<&str> = model
+        .names()
+        .iter()
+        .zip(&wet.y)
+        .zip(model.reactions()[i].nu())
+        .filter(|((_, y), nu)| **y <= 0.0 && **nu != 0.0)
+        .map(|((n, _), _)| n.as_str())
+        .collect();
+    CliError::Input(format!(
+        "{} is zero in the composition, so Q is 0 or infinite; give a component below detection at its detection limit",
+        zero.join(", ")
+    ))
+}
+
+/// The first reaction's figures on top, the gas, and the other reactions.
+fn approach_output(
+    out: &mut Map<String, Value>,
+    rx: &[(Reaction, KModel)],
+    an: &Analysis,
+    ev: &Evaluated,
+) {
     let (r0, k0) = &rx[0];
-    standard_keys(&mut out, r0, k0, &results[0]);
-    approach_keys(&mut out, &results[0]);
+    let results = &ev.results;
+    standard_keys(out, r0, k0, &results[0]);
+    approach_keys(out, &results[0]);
     out.insert("flags".into(), flag_list(results[0].flags));
-    out.insert("warnings".into(), range_warnings(t, &rx));
+    out.insert("warnings".into(), range_warnings(an.t, rx));
     out.insert(
         "uncertainty_given".into(),
-        uncertainty_given(inp.uncertainty.as_ref().map(|_| &unc)),
+        uncertainty_given(an.uncertainty_given.then_some(&an.unc)),
     );
-    out.insert("pressure_bar".into(), json!(p));
-    out.insert("eos".into(), json!(eos.as_str()));
-    out.insert("compressibility_factor".into(), finite(scratch.z));
-    out.insert("basis".into(), json!(basis.as_str()));
-    out.insert("steam_ratio".into(), opt(wet.steam_ratio));
+    out.insert("pressure_bar".into(), json!(an.p));
+    out.insert("eos".into(), json!(ev.model.eos_kind().as_str()));
+    out.insert("compressibility_factor".into(), finite(ev.scratch.z));
+    out.insert("basis".into(), json!(an.basis.as_str()));
+    out.insert("steam_ratio".into(), opt(an.wet.steam_ratio));
     let mut phi = Map::new();
     let mut y_map = Map::new();
-    for ((n, lp), y) in model.names().iter().zip(&scratch.ln_phi).zip(&wet.y) {
+    for ((n, lp), y) in ev
+        .model
+        .names()
+        .iter()
+        .zip(&ev.scratch.ln_phi)
+        .zip(&an.wet.y)
+    {
         phi.insert(n.clone(), finite(lp.exp()));
         y_map.insert(n.clone(), finite(*y));
     }
@@ -313,8 +414,24 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
             .collect();
         out.insert("other_reactions".into(), Value::Array(others));
     }
-    // Equilibrium at the measured T and P with the same element inventory.
-    let sys = EquilibriumSystem::from_reactions(db, &rx, &wet.species, eos, None).map_err(input)?;
+}
+
+/// The equilibrium of the measured gas at its T and P: the system, the moles it was
+/// given (system order) and the result.
+struct EquilibriumAt {
+    sys: EquilibriumSystem,
+    moles: Vec<f64>,
+    result: EquilibriumResult,
+}
+
+fn equilibrium_at(
+    db: &SpeciesDb,
+    rx: &[(Reaction, KModel)],
+    an: &Analysis,
+    eos: EosKind,
+) -> Result<EquilibriumAt, CliError> {
+    let wet = &an.wet;
+    let sys = EquilibriumSystem::from_reactions(db, rx, &wet.species, eos, None).map_err(input)?;
     let moles: Vec<f64> = sys
         .species()
         .iter()
@@ -325,17 +442,27 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
                 .map_or(0.0, |i| wet.y[i])
         })
         .collect();
-    let eq = sys.solve(db, t, p, &moles);
+    let result = sys.solve(db, an.t, an.p, &moles);
+    Ok(EquilibriumAt { sys, moles, result })
+}
+
+fn equilibrium_output(out: &mut Map<String, Value>, eqm: &EquilibriumAt) {
+    let eq = &eqm.result;
     out.insert("equilibrium_converged".into(), json!(eq.converged));
     if !eq.converged {
         out.insert("equilibrium_reason".into(), json!(eq.reason));
     }
     let mut eq_map = Map::new();
-    for (n, y) in sys.names().iter().zip(&eq.mole_fractions) {
+    for (n, y) in eqm.sys.names().iter().zip(&eq.mole_fractions) {
         eq_map.insert(n.clone(), finite(*y));
     }
     out.insert("equilibrium_mole_fractions".into(), Value::Object(eq_map));
-    let key = match &inp.key {
+}
+
+/// The key component: `--key` (a species of the first reaction), else the single
+/// product where there is one, else the first reactant.
+fn key_component(db: &SpeciesDb, key: Option<&str>, r0: &Reaction) -> Result<usize, CliError> {
+    Ok(match key {
         Some(k) => {
             let idx = db.index_of(k).ok_or_else(|| {
                 CliError::Input(format!(
@@ -367,7 +494,27 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
                 r0.species[0]
             }
         }
-    };
+    })
+}
+
+/// Where the key component and water sit in the equilibrium system, and the key's
+/// equilibrium mole fraction.
+struct KeyFigures {
+    name: String,
+    eq_pos: Option<usize>,
+    water_pos: Option<usize>,
+    equilibrium: Option<f64>,
+}
+
+/// The key component measured and at equilibrium, wet and (with water) dry.
+fn key_output(
+    out: &mut Map<String, Value>,
+    db: &SpeciesDb,
+    key: usize,
+    wet: &WetComposition,
+    eqm: &EquilibriumAt,
+) -> KeyFigures {
+    let (sys, eq) = (&eqm.sys, &eqm.result);
     let key_name = db.get(key).name.clone();
     let measured = wet.species.iter().position(|s| *s == key).map(|i| wet.y[i]);
     let k_eq_pos = sys.species().iter().position(|s| *s == key);
@@ -392,42 +539,55 @@ pub fn calc(db: &SpeciesDb, inp: &CalcInput) -> Result<Value, CliError> {
             );
         }
     }
-    if inp.sensitivity && eq.converged {
-        let key_at = |tt: f64, pp: f64, mm: &[f64]| -> Value {
-            let r = sys.solve(db, tt, pp, mm);
-            if r.converged {
-                opt(k_eq_pos.map(|i| r.mole_fractions[i]))
-            } else {
-                Value::Null
-            }
-        };
-        let mut s = Map::new();
-        s.insert("key_component".into(), json!(key_name));
-        s.insert("base".into(), opt(equilibrium));
-        s.insert("temperature_minus_5_k".into(), key_at(t - 5.0, p, &moles));
-        s.insert("temperature_plus_5_k".into(), key_at(t + 5.0, p, &moles));
-        s.insert("pressure_plus_10_bar".into(), key_at(t, p + 10.0, &moles));
-        if let Some(w) = water_pos {
-            // 0.1 mol more steam per mol of dry gas.
-            let dry: f64 = moles
-                .iter()
-                .enumerate()
-                .filter(|(i, _)| *i != w)
-                .map(|(_, m)| m)
-                .sum();
-            let mut more = moles.clone();
-            more[w] += 0.1 * dry;
-            let v = key_at(t, p, &more);
-            // Per mol of the original gas, then as a fraction of the new total.
-            s.insert("steam_ratio_plus_0_1".into(), v);
-        }
-        s.insert("basis".into(), json!("wet mole fraction at equilibrium"));
-        out.insert("sensitivity".into(), Value::Object(s));
+    KeyFigures {
+        name: key_name,
+        eq_pos: k_eq_pos,
+        water_pos,
+        equilibrium,
     }
-    Ok(Value::Object(out))
 }
 
-/// Inputs of `eqwatch equilibrium`.
+/// How the key's equilibrium mole fraction moves with ±5 K, +10 bar and 0.1 more steam
+/// per mol of dry gas.
+fn sensitivity(
+    db: &SpeciesDb,
+    an: &Analysis,
+    eqm: &EquilibriumAt,
+    fig: &KeyFigures,
+) -> Map<String, Value> {
+    let (t, p, moles) = (an.t, an.p, &eqm.moles);
+    let key_at = |tt: f64, pp: f64, mm: &[f64]| -> Value {
+        let r = eqm.sys.solve(db, tt, pp, mm);
+        if r.converged {
+            opt(fig.eq_pos.map(|i| r.mole_fractions[i]))
+        } else {
+            Value::Null
+        }
+    };
+    let mut figures = Map::new();
+    figures.insert("key_component".into(), json!(fig.name));
+    figures.insert("base".into(), opt(fig.equilibrium));
+    figures.insert("temperature_minus_5_k".into(), key_at(t - 5.0, p, moles));
+    figures.insert("temperature_plus_5_k".into(), key_at(t + 5.0, p, moles));
+    figures.insert("pressure_plus_10_bar".into(), key_at(t, p + 10.0, moles));
+    if let Some(w) = fig.water_pos {
+        // 0.1 mol more steam per mol of dry gas.
+        let dry: f64 = moles
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| *i != w)
+            .map(|(_, m)| m)
+            .sum();
+        let mut more = moles.clone();
+        more[w] += 0.1 * dry;
+        let v = key_at(t, p, &more);
+        // Per mol of the original gas, then as a fraction of the new total.
+        figures.insert("steam_ratio_plus_0_1".into(), v);
+    }
+    figures.insert("basis".into(), json!("wet mole fraction at equilibrium"));
+    figures
+}
+
 /// The unit of a `--temperature` text (kelvin if it cannot be read; `calc` has
 /// refused such a text already).
 pub fn temperature_unit_of(text: &str) -> TemperatureUnit {
@@ -601,51 +761,14 @@ pub fn calc_table(v: &Value, unit: TemperatureUnit) -> String {
     let reactions: Vec<&Value> = std::iter::once(v)
         .chain(v["other_reactions"].as_array().into_iter().flatten())
         .collect();
-    let head = |o: &mut String, i: usize, m: &Value| {
-        let endo = match m["endothermic"].as_bool() {
-            Some(true) => "endothermic",
-            Some(false) => "exothermic",
-            None => "-",
-        };
-        let label = if reactions.len() > 1 {
-            format!("Reaction {} of {}: ", i + 1, reactions.len())
-        } else {
-            "Reaction: ".into()
-        };
-        o.push_str(&format!(
-            "{label}{}   [K: {}; {endo} at T, ΔH° {}]\n",
-            m["reaction"].as_str().unwrap_or("-"),
-            m["k_source"].as_str().unwrap_or("-"),
-            kj(m, "delta_h_j_per_mol")
-        ));
-    };
     if v.get("ln_q").is_none() {
         // K only.
         o.push_str(&format!("At {}\n", temperature_text(t, unit)));
-        head(&mut o, 0, v);
-        let lnk = number(v, "ln_k").unwrap_or(f64::NAN);
-        o.push_str(&format!(
-            "  K                 {}\n",
-            significant(lnk.exp(), 4)
-        ));
-        o.push_str(&format!("  ln K              {lnk:.4}\n"));
-        o.push_str(&format!(
-            "  ΔG°               {}\n",
-            kj(v, "delta_g_j_per_mol")
-        ));
-        o.push_str(&format!(
-            "  ΔS°               {}\n",
-            number(v, "delta_s_j_per_mol_k").map_or("-".into(), |x| format!("{x:.2} J/(mol K)"))
-        ));
-        flag_rows(&mut o, v);
-        o.push_str(&format!(
-            "  K source          {}\n",
-            v["k_source_citation"].as_str().unwrap_or("-")
-        ));
+        reaction_head(&mut o, 0, reactions.len(), v);
+        k_only_rows(&mut o, v);
         return o;
     }
     let given = !v["uncertainty_given"].is_null();
-    let dry = v["basis"] == "dry";
     o.push_str(&format!(
         "At {} and {:.2} bar abs; {} gas; {} analysis{}\n\n",
         temperature_text(t, unit),
@@ -655,10 +778,77 @@ pub fn calc_table(v: &Value, unit: TemperatureUnit) -> String {
         number(v, "steam_ratio").map_or(String::new(), |s| format!(", steam/dry gas {s:.4}"))
     ));
     for (i, m) in reactions.iter().enumerate() {
-        head(&mut o, i, m);
+        reaction_head(&mut o, i, reactions.len(), m);
         reaction_rows(&mut o, m, unit, given);
         o.push('\n');
     }
+    key_rows(&mut o, v);
+    // Details.
+    o.push_str("\nDetails\n");
+    for (i, m) in reactions.iter().enumerate() {
+        detail_rows(&mut o, i, m, t, given);
+    }
+    gas_rows(&mut o, v);
+    sensitivity_row(&mut o, v);
+    if let Some(u) = v["uncertainty_given"].as_object() {
+        let g = |k: &str| u.get(k).and_then(Value::as_f64).unwrap_or(f64::NAN);
+        o.push_str(&format!(
+            "  ± given           thermocouple {} K, pressure {} bar, analyser {} % of reading, steam ratio {} %\n",
+            g("temperature_k"),
+            g("pressure_bar"),
+            g("composition_relative") * 100.0,
+            g("steam_ratio_relative") * 100.0
+        ));
+    }
+    o
+}
+
+/// "Reaction i of n: ..." with its K source, and ΔH° at T.
+fn reaction_head(o: &mut String, i: usize, n_reactions: usize, m: &Value) {
+    let endo = match m["endothermic"].as_bool() {
+        Some(true) => "endothermic",
+        Some(false) => "exothermic",
+        None => "-",
+    };
+    let label = if n_reactions > 1 {
+        format!("Reaction {} of {}: ", i + 1, n_reactions)
+    } else {
+        "Reaction: ".into()
+    };
+    o.push_str(&format!(
+        "{label}{}   [K: {}; {endo} at T, ΔH° {}]\n",
+        m["reaction"].as_str().unwrap_or("-"),
+        m["k_source"].as_str().unwrap_or("-"),
+        kj(m, "delta_h_j_per_mol")
+    ));
+}
+
+/// K and its thermodynamics, for a calculation without a composition.
+fn k_only_rows(o: &mut String, v: &Value) {
+    let lnk = number(v, "ln_k").unwrap_or(f64::NAN);
+    o.push_str(&format!(
+        "  K                 {}\n",
+        significant(lnk.exp(), 4)
+    ));
+    o.push_str(&format!("  ln K              {lnk:.4}\n"));
+    o.push_str(&format!(
+        "  ΔG°               {}\n",
+        kj(v, "delta_g_j_per_mol")
+    ));
+    o.push_str(&format!(
+        "  ΔS°               {}\n",
+        number(v, "delta_s_j_per_mol_k").map_or("-".into(), |x| format!("{x:.2} J/(mol K)"))
+    ));
+    flag_rows(o, v);
+    o.push_str(&format!(
+        "  K source          {}\n",
+        v["k_source_citation"].as_str().unwrap_or("-")
+    ));
+}
+
+/// The key component measured and at equilibrium (dry for a dry analysis).
+fn key_rows(o: &mut String, v: &Value) {
+    let dry = v["basis"] == "dry";
     let key = v["key_component"].as_str().unwrap_or("-");
     let (measured, equilibrium, basis) = if dry && v.get("key_measured_dry_mole_fraction").is_some()
     {
@@ -685,54 +875,59 @@ pub fn calc_table(v: &Value, unit: TemperatureUnit) -> String {
             v["equilibrium_reason"].as_str().unwrap_or("-")
         ));
     }
-    // Details.
-    o.push_str("\nDetails\n");
-    for (i, m) in reactions.iter().enumerate() {
-        o.push_str(&format!(
-            "  reaction {}: {}\n",
-            i + 1,
-            m["reaction"].as_str().unwrap_or("-")
-        ));
-        let range = m["k_valid_range_k"]
-            .as_array()
-            .map(|r| {
-                format!(
-                    "{:.0}-{:.0} K",
-                    r.first().and_then(Value::as_f64).unwrap_or(f64::NAN),
-                    r.get(1).and_then(Value::as_f64).unwrap_or(f64::NAN)
-                )
-            })
-            .unwrap_or_default();
-        o.push_str(&format!(
-            "    K source        {}: {}\n    K valid         {range}\n",
-            m["k_source"].as_str().unwrap_or("-"),
-            m["k_source_citation"].as_str().unwrap_or("-")
-        ));
-        let ln_q_pm = match number(m, "ln_q_uncertainty") {
-            Some(x) if given => format!(" (ln Q ± {x:.4})"),
-            _ => String::new(),
-        };
-        o.push_str(&format!(
-            "    ln K, ln Q      {:.4}, {:.4}{ln_q_pm}\n",
-            number(m, "ln_k").unwrap_or(f64::NAN),
-            number(m, "ln_q").unwrap_or(f64::NAN),
-        ));
-        o.push_str(&format!(
-            "    ΔG°, ΔH°, ΔS°   {}, {}, {}\n",
-            kj(m, "delta_g_j_per_mol"),
-            kj(m, "delta_h_j_per_mol"),
-            number(m, "delta_s_j_per_mol_k").map_or("-".into(), |x| format!("{x:.2} J/(mol K)"))
-        ));
-        o.push_str(&format!(
-            "    affinity        {} (R T ln(K/Q))\n",
-            kj(m, "affinity_j_per_mol")
-        ));
-        o.push_str(&format!(
-            "    T, T_eq         {:.2} K, {}\n",
-            t,
-            number(m, "equilibrium_temperature_k").map_or("-".into(), |x| format!("{x:.2} K"))
-        ));
-    }
+}
+
+/// The details of reaction `i`: K source and range, ln K and ln Q, ΔG°, ΔH°, ΔS°,
+/// affinity, T and T_eq.
+fn detail_rows(o: &mut String, i: usize, m: &Value, t: f64, given: bool) {
+    o.push_str(&format!(
+        "  reaction {}: {}\n",
+        i + 1,
+        m["reaction"].as_str().unwrap_or("-")
+    ));
+    let range = m["k_valid_range_k"]
+        .as_array()
+        .map(|r| {
+            format!(
+                "{:.0}-{:.0} K",
+                r.first().and_then(Value::as_f64).unwrap_or(f64::NAN),
+                r.get(1).and_then(Value::as_f64).unwrap_or(f64::NAN)
+            )
+        })
+        .unwrap_or_default();
+    o.push_str(&format!(
+        "    K source        {}: {}\n    K valid         {range}\n",
+        m["k_source"].as_str().unwrap_or("-"),
+        m["k_source_citation"].as_str().unwrap_or("-")
+    ));
+    let ln_q_pm = match number(m, "ln_q_uncertainty") {
+        Some(x) if given => format!(" (ln Q ± {x:.4})"),
+        _ => String::new(),
+    };
+    o.push_str(&format!(
+        "    ln K, ln Q      {:.4}, {:.4}{ln_q_pm}\n",
+        number(m, "ln_k").unwrap_or(f64::NAN),
+        number(m, "ln_q").unwrap_or(f64::NAN),
+    ));
+    o.push_str(&format!(
+        "    ΔG°, ΔH°, ΔS°   {}, {}, {}\n",
+        kj(m, "delta_g_j_per_mol"),
+        kj(m, "delta_h_j_per_mol"),
+        number(m, "delta_s_j_per_mol_k").map_or("-".into(), |x| format!("{x:.2} J/(mol K)"))
+    ));
+    o.push_str(&format!(
+        "    affinity        {} (R T ln(K/Q))\n",
+        kj(m, "affinity_j_per_mol")
+    ));
+    o.push_str(&format!(
+        "    T, T_eq         {:.2} K, {}\n",
+        t,
+        number(m, "equilibrium_temperature_k").map_or("-".into(), |x| format!("{x:.2} K"))
+    ));
+}
+
+/// The gas model and, per species, measured and equilibrium mol % and φ.
+fn gas_rows(o: &mut String, v: &Value) {
     o.push_str(&format!(
         "  gas               {} (Z {}); wet mole fractions in mol %\n",
         v["eos"].as_str().unwrap_or("-"),
@@ -758,6 +953,10 @@ pub fn calc_table(v: &Value, unit: TemperatureUnit) -> String {
             ));
         }
     }
+}
+
+/// The key's equilibrium mol % now and after each step, when asked for.
+fn sensitivity_row(o: &mut String, v: &Value) {
     if let Some(s) = v["sensitivity"].as_object() {
         let pct = |k: &str| {
             s.get(k)
@@ -774,17 +973,6 @@ pub fn calc_table(v: &Value, unit: TemperatureUnit) -> String {
             pct("steam_ratio_plus_0_1")
         ));
     }
-    if let Some(u) = v["uncertainty_given"].as_object() {
-        let g = |k: &str| u.get(k).and_then(Value::as_f64).unwrap_or(f64::NAN);
-        o.push_str(&format!(
-            "  ± given           thermocouple {} K, pressure {} bar, analyser {} % of reading, steam ratio {} %\n",
-            g("temperature_k"),
-            g("pressure_bar"),
-            g("composition_relative") * 100.0,
-            g("steam_ratio_relative") * 100.0
-        ));
-    }
-    o
 }
 
 #[cfg(test)]

@@ -5,7 +5,7 @@ use serde_json::{Map, Value, json};
 
 use super::{CliError, finite, input, parse_eos, reactions_with_k};
 use crate::composition::parse_components;
-use crate::equilibrium::EquilibriumSystem;
+use crate::equilibrium::{EosKind, EquilibriumResult, EquilibriumSystem};
 use crate::thermo::reaction::unknown_hint;
 use crate::thermo::species::SpeciesDb;
 use crate::units::{CompositionUnit, parse_pressure_with_atmosphere, parse_temperature};
@@ -46,6 +46,42 @@ pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliE
     let p = parse_pressure_with_atmosphere(&inp.pressure, crate::units::STANDARD_ATMOSPHERE_BAR)
         .map_err(|e| CliError::Input(format!("--pressure: {e}")))?;
     let eos = parse_eos(&inp.eos)?;
+    let sys = system(db, inp, eos)?;
+    let moles = feed_moles(db, &inp.feed, &sys)?;
+    let r = sys.solve(db, t, p, &moles);
+    if !r.converged {
+        return Err(CliError::Internal(format!(
+            "equilibrium did not converge: {}",
+            r.reason
+        )));
+    }
+    let mut out = Map::new();
+    out.insert("temperature_k".into(), json!(t));
+    out.insert("pressure_bar".into(), json!(p));
+    out.insert("eos".into(), json!(eos.as_str()));
+    composition_keys(&mut out, &sys, &r);
+    out.insert("iterations".into(), json!(r.iterations));
+    out.insert("converged".into(), json!(r.converged));
+    out.insert(
+        "k_source".into(),
+        json!(if inp.reactions.is_empty() {
+            "species-data".to_string()
+        } else {
+            inp.k_sources
+                .first()
+                .cloned()
+                .unwrap_or_else(|| "species-data".into())
+        }),
+    );
+    Ok(Value::Object(out))
+}
+
+/// The system of `--species` and `--inert`, from species data or from `--reaction`.
+fn system(
+    db: &SpeciesDb,
+    inp: &EquilibriumInput,
+    eos: EosKind,
+) -> Result<EquilibriumSystem, CliError> {
     let reactive = species_list(db, &inp.species, "--species")?;
     if reactive.is_empty() {
         return Err(CliError::Input(
@@ -62,29 +98,32 @@ pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliE
             db.get(*s).name
         )));
     }
-    let sys = if inp.reactions.is_empty() {
+    if inp.reactions.is_empty() {
         if !inp.k_sources.is_empty() {
             return Err(CliError::Input(
                 "--k-source needs --reaction (species data are used otherwise)".into(),
             ));
         }
-        EquilibriumSystem::from_species(db, &reactive, &inert, eos, None).map_err(input)?
-    } else {
-        let rx = reactions_with_k(db, &inp.reactions, &inp.k_sources)?;
-        for (r, _) in &rx {
-            if let Some(s) = r.species.iter().find(|s| !reactive.contains(s)) {
-                return Err(CliError::Input(format!(
-                    "species {} of `{}` is not in --species",
-                    db.get(*s).name,
-                    r.canonical()
-                )));
-            }
+        return EquilibriumSystem::from_species(db, &reactive, &inert, eos, None).map_err(input);
+    }
+    let rx = reactions_with_k(db, &inp.reactions, &inp.k_sources)?;
+    for (r, _) in &rx {
+        if let Some(s) = r.species.iter().find(|s| !reactive.contains(s)) {
+            return Err(CliError::Input(format!(
+                "species {} of `{}` is not in --species",
+                db.get(*s).name,
+                r.canonical()
+            )));
         }
-        let mut all = reactive.clone();
-        all.extend(&inert);
-        EquilibriumSystem::from_reactions(db, &rx, &all, eos, None).map_err(input)?
-    };
-    let feed = parse_components(&inp.feed, CompositionUnit::Fraction).map_err(input)?;
+    }
+    let mut all = reactive.clone();
+    all.extend(&inert);
+    EquilibriumSystem::from_reactions(db, &rx, &all, eos, None).map_err(input)
+}
+
+/// Moles per species of `sys` from the `--feed` text.
+fn feed_moles(db: &SpeciesDb, text: &str, sys: &EquilibriumSystem) -> Result<Vec<f64>, CliError> {
+    let feed = parse_components(text, CompositionUnit::Fraction).map_err(input)?;
     let mut moles = vec![0.0; sys.species().len()];
     for c in &feed {
         let i = db.index_of(&c.species).ok_or_else(|| {
@@ -113,21 +152,15 @@ pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliE
             "--feed: give some moles, e.g. \"CH4=1,H2O=3\"".into(),
         ));
     }
-    let r = sys.solve(db, t, p, &moles);
-    if !r.converged {
-        return Err(CliError::Internal(format!(
-            "equilibrium did not converge: {}",
-            r.reason
-        )));
-    }
+    Ok(moles)
+}
+
+/// Mole fractions, dry ones and the steam ratio where there is water, and φ.
+fn composition_keys(out: &mut Map<String, Value>, sys: &EquilibriumSystem, r: &EquilibriumResult) {
     let mut y = Map::new();
     for (n, v) in sys.names().iter().zip(&r.mole_fractions) {
         y.insert(n.clone(), finite(*v));
     }
-    let mut out = Map::new();
-    out.insert("temperature_k".into(), json!(t));
-    out.insert("pressure_bar".into(), json!(p));
-    out.insert("eos".into(), json!(eos.as_str()));
     out.insert("mole_fractions".into(), Value::Object(y));
     if let Some(w) = sys.names().iter().position(|n| n == "H2O") {
         let yw = r.mole_fractions[w];
@@ -145,18 +178,4 @@ pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliE
         phi.insert(n.clone(), finite(lp.exp()));
     }
     out.insert("fugacity_coefficients".into(), Value::Object(phi));
-    out.insert("iterations".into(), json!(r.iterations));
-    out.insert("converged".into(), json!(r.converged));
-    out.insert(
-        "k_source".into(),
-        json!(if inp.reactions.is_empty() {
-            "species-data".to_string()
-        } else {
-            inp.k_sources
-                .first()
-                .cloned()
-                .unwrap_or_else(|| "species-data".into())
-        }),
-    );
-    Ok(Value::Object(out))
 }

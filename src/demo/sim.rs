@@ -290,158 +290,28 @@ fn significant(x: f64) -> String {
     }
 }
 
+/// One sample of one instrument: which, when drawn (s) and when stamped (epoch ms).
+struct Sample {
+    inst: usize,
+    k: u64,
+    t_s: f64,
+    ts_ms: i64,
+}
+
+fn message(topic: String, payload: String, retain: bool) -> SimMessage {
+    SimMessage {
+        topic,
+        payload,
+        retain,
+    }
+}
+
 impl Plant {
     /// The plant at simulated time 0, with readings stamped `start_epoch_ms + t·1000`.
     pub fn new(seed: u64, start_epoch_ms: i64) -> Self {
         let db = SpeciesDb::builtin();
         let mut reactors = Vec::new();
-        // Feeds are per 100 mol of dry gas (water separately); all invented.
-        let specs: [ReactorSpec; 5] = [
-            ReactorSpec {
-                id: "ref1",
-                reactions: &[
-                    ("CH4 + H2O = CO + 3 H2", KSourceId::XuFroment1989),
-                    ("CO + H2O = CO2 + H2", KSourceId::XuFroment1989),
-                ],
-                profiles: &[
-                    Profile::SulphurStep {
-                        before: 8.0,
-                        after: 25.0,
-                    },
-                    Profile::Constant(2.0),
-                ],
-                feed: &[
-                    ("CH4", 1.0),
-                    ("H2O", 3.0),
-                    ("CO", 0.0),
-                    ("CO2", 0.0),
-                    ("H2", 0.0),
-                ],
-                eos: EosKind::Ideal,
-                t_c: 797.0,
-                p_barg: 30.0,
-                basis: Basis::Dry,
-                target_steam_ratio: None,
-                reported: &[
-                    ("CH4", Unit::Percent),
-                    ("CO", Unit::Percent),
-                    ("CO2", Unit::Percent),
-                    ("H2", Unit::Percent),
-                ],
-            },
-            ReactorSpec {
-                id: "hts1",
-                reactions: &[("CO + H2O = CO2 + H2", KSourceId::XuFroment1989)],
-                profiles: &[Profile::Constant(8.0)],
-                feed: &[
-                    ("H2", 56.0),
-                    ("N2", 22.8),
-                    ("CO", 13.0),
-                    ("CO2", 7.6),
-                    ("CH4", 0.3),
-                    ("Ar", 0.3),
-                    ("H2O", 60.0),
-                ],
-                eos: EosKind::Ideal,
-                t_c: 415.0,
-                p_barg: 29.0,
-                basis: Basis::Dry,
-                target_steam_ratio: Some(0.48),
-                reported: &[
-                    ("H2", Unit::Percent),
-                    ("N2", Unit::Percent),
-                    ("CO", Unit::Percent),
-                    ("CO2", Unit::Percent),
-                    ("CH4", Unit::Percent),
-                    ("Ar", Unit::Percent),
-                ],
-            },
-            ReactorSpec {
-                id: "lts1",
-                reactions: &[("CO + H2O = CO2 + H2", KSourceId::Moe1962)],
-                profiles: &[Profile::Creep {
-                    start: 10.0,
-                    per_hour: 0.2,
-                }],
-                feed: &[
-                    ("H2", 59.8),
-                    ("N2", 20.6),
-                    ("CO", 3.2),
-                    ("CO2", 15.8),
-                    ("CH4", 0.3),
-                    ("Ar", 0.3),
-                    ("H2O", 40.0),
-                ],
-                eos: EosKind::Ideal,
-                t_c: 207.0,
-                p_barg: 28.0,
-                basis: Basis::Dry,
-                target_steam_ratio: Some(0.36),
-                reported: &[
-                    ("H2", Unit::Percent),
-                    ("N2", Unit::Percent),
-                    ("CO", Unit::Percent),
-                    ("CO2", Unit::Percent),
-                    ("CH4", Unit::Percent),
-                    ("Ar", Unit::Percent),
-                ],
-            },
-            ReactorSpec {
-                id: "mth1",
-                reactions: &[
-                    ("CO + 3 H2 = CH4 + H2O", KSourceId::SpeciesData),
-                    ("CO2 + 4 H2 = CH4 + 2 H2O", KSourceId::SpeciesData),
-                ],
-                profiles: &[Profile::Constant(10.0), Profile::Constant(10.0)],
-                feed: &[
-                    ("H2", 74.2),
-                    ("N2", 24.72),
-                    ("CO", 0.18),
-                    ("CO2", 0.05),
-                    ("CH4", 0.53),
-                    ("Ar", 0.32),
-                    ("H2O", 0.15),
-                ],
-                eos: EosKind::Ideal,
-                t_c: 327.0,
-                p_barg: 27.0,
-                basis: Basis::Dry,
-                target_steam_ratio: Some(0.004),
-                reported: &[
-                    ("H2", Unit::Percent),
-                    ("N2", Unit::Percent),
-                    ("CH4", Unit::Percent),
-                    ("Ar", Unit::Percent),
-                    ("CO", Unit::Ppm),
-                    ("CO2", Unit::Ppm),
-                ],
-            },
-            ReactorSpec {
-                id: "amc1",
-                reactions: &[("N2 + 3 H2 = 2 NH3", KSourceId::SpeciesData)],
-                profiles: &[Profile::Constant(15.0)],
-                feed: &[
-                    ("H2", 65.0),
-                    ("N2", 21.7),
-                    ("NH3", 3.5),
-                    ("Ar", 4.0),
-                    ("CH4", 5.8),
-                ],
-                eos: EosKind::PengRobinson,
-                t_c: 427.0,
-                p_barg: 150.0,
-                basis: Basis::Wet,
-                target_steam_ratio: None,
-                reported: &[
-                    ("H2", Unit::Percent),
-                    ("N2", Unit::Percent),
-                    ("NH3", Unit::Percent),
-                    ("Ar", Unit::Percent),
-                    ("CH4", Unit::Percent),
-                ],
-            },
-        ];
-        for spec in &specs {
+        for spec in &REACTORS {
             // The specs are fixed text checked by the tests; a reactor that cannot be
             // built is left out rather than stopping the demo.
             if let Some(r) = spec.build(&db) {
@@ -457,7 +327,7 @@ impl Plant {
             reactors,
             instruments: Vec::new(),
         };
-        for spec in &specs {
+        for spec in &REACTORS {
             let ri = plant.reactors.iter().position(|r| r.id == spec.id);
             if let (Some(target), Some(ri)) = (spec.target_steam_ratio, ri) {
                 plant.calibrate_water(ri, target);
@@ -764,103 +634,125 @@ impl Plant {
         if inst.silent_after_s.is_some_and(|t| sample_s > t) {
             return;
         }
-        let r = &self.reactors[inst.reactor];
         // Analysers stamp a result when they report it, `delay_s` after the sample was
         // drawn (the daemon subtracts the configured lag to get back to the sample time).
-        let ts = self.epoch_ms(sample_s + inst.delay_s);
-        let msg = |topic: String, payload: String, retain: bool| SimMessage {
-            topic,
-            payload,
-            retain,
+        let sample = Sample {
+            inst: i,
+            k,
+            t_s: sample_s,
+            ts_ms: self.epoch_ms(sample_s + inst.delay_s),
         };
         match inst.kind {
-            Kind::Temperature | Kind::InletTemperature => {
-                // The methanator's outlet follows its bed rise; its inlet sits below it.
-                let rise = if r.id == "mth1" {
-                    MTH_BREAKTHROUGH_RISE_K * breakthrough(sample_s, MTH_BREAKTHROUGH_S)
-                } else {
-                    0.0
-                };
-                let base = match inst.kind {
-                    Kind::InletTemperature => r.t_k - MTH_DESIGN_RISE_K,
-                    _ => r.t_k + rise,
-                };
-                let t_c = base - 273.15 + TI_NOISE_K * self.noise(i, k, 0);
-                out.push(msg(
-                    inst.topic.clone(),
+            Kind::Temperature | Kind::InletTemperature => self.render_temperature(&sample, out),
+            Kind::Pressure => self.render_pressure(&sample, out),
+            Kind::RatioBare | Kind::RatioJson => self.render_ratio(&sample, out),
+            Kind::Analyser | Kind::AnalyserPerComponent => self.render_analyser(&sample, out),
+        }
+    }
+
+    fn render_temperature(&self, sample: &Sample, out: &mut Vec<SimMessage>) {
+        let inst = &self.instruments[sample.inst];
+        let r = &self.reactors[inst.reactor];
+        let ts = sample.ts_ms;
+        // The methanator's outlet follows its bed rise; its inlet sits below it.
+        let rise = if r.id == "mth1" {
+            MTH_BREAKTHROUGH_RISE_K * breakthrough(sample.t_s, MTH_BREAKTHROUGH_S)
+        } else {
+            0.0
+        };
+        let base = match inst.kind {
+            Kind::InletTemperature => r.t_k - MTH_DESIGN_RISE_K,
+            _ => r.t_k + rise,
+        };
+        let t_c = base - 273.15 + TI_NOISE_K * self.noise(sample.inst, sample.k, 0);
+        out.push(message(
+            inst.topic.clone(),
+            format!(
+                "{{\"ts\":{ts},\"value\":{},\"unit\":\"degC\",\"quality\":\"good\"}}",
+                fixed(t_c, 2)
+            ),
+            false,
+        ));
+    }
+
+    fn render_pressure(&self, sample: &Sample, out: &mut Vec<SimMessage>) {
+        let inst = &self.instruments[sample.inst];
+        let r = &self.reactors[inst.reactor];
+        let ts = sample.ts_ms;
+        let p = r.p_barg + PI_NOISE_BAR * self.noise(sample.inst, sample.k, 0);
+        out.push(message(
+            inst.topic.clone(),
+            format!(
+                "{{\"ts\":{ts},\"value\":{},\"unit\":\"barg\",\"quality\":\"good\"}}",
+                fixed(p, 3)
+            ),
+            false,
+        ));
+    }
+
+    /// The steam-to-dry-gas ratio, bare or as JSON.
+    fn render_ratio(&self, sample: &Sample, out: &mut Vec<SimMessage>) {
+        let inst = &self.instruments[sample.inst];
+        let r = &self.reactors[inst.reactor];
+        let ts = sample.ts_ms;
+        let Some(o) = self.outlet(inst.reactor, sample.t_s) else {
+            return;
+        };
+        let ratio =
+            o.steam_ratio(r.water) * (1.0 + RATIO_NOISE_REL * self.noise(sample.inst, sample.k, 0));
+        let payload = if inst.kind == Kind::RatioBare {
+            fixed(ratio, 5)
+        } else {
+            format!(
+                "{{\"ts\":{ts},\"value\":{},\"quality\":\"good\"}}",
+                fixed(ratio, 5)
+            )
+        };
+        out.push(message(inst.topic.clone(), payload, false));
+    }
+
+    /// One analysis, as one message or one per component.
+    fn render_analyser(&self, sample: &Sample, out: &mut Vec<SimMessage>) {
+        let inst = &self.instruments[sample.inst];
+        let r = &self.reactors[inst.reactor];
+        let ts = sample.ts_ms;
+        // A stuck analyser repeats the last analysis before its window.
+        let (kk, t_analysis) = match inst.stuck_window_s {
+            Some((a, b)) if sample.t_s >= a && sample.t_s < b => {
+                let last = ((a / inst.period_s).ceil() as u64).saturating_sub(1);
+                (last, last as f64 * inst.period_s)
+            }
+            _ => (sample.k, sample.t_s),
+        };
+        let Some(values) = self.analysis(sample.inst, kk, t_analysis) else {
+            return;
+        };
+        if inst.kind == Kind::Analyser {
+            let body: Vec<String> = r
+                .reported
+                .iter()
+                .zip(&values)
+                .map(|((_, name, _), v)| format!("\"{name}\":{v}"))
+                .collect();
+            out.push(message(
+                inst.topic.clone(),
+                format!(
+                    "{{\"ts\":{ts},\"values\":{{{}}},\"unit\":\"mol%\",\"basis\":\"{}\",\"quality\":\"good\"}}",
+                    body.join(","),
+                    r.basis.as_str()
+                ),
+                true,
+            ));
+        } else {
+            for ((_, name, unit), v) in r.reported.iter().zip(&values) {
+                out.push(message(
+                    format!("{}/{name}", inst.topic),
                     format!(
-                        "{{\"ts\":{ts},\"value\":{},\"unit\":\"degC\",\"quality\":\"good\"}}",
-                        fixed(t_c, 2)
+                        "{{\"ts\":{ts},\"value\":{v},\"unit\":\"{}\"}}",
+                        unit.label()
                     ),
-                    false,
+                    true,
                 ));
-            }
-            Kind::Pressure => {
-                let p = r.p_barg + PI_NOISE_BAR * self.noise(i, k, 0);
-                out.push(msg(
-                    inst.topic.clone(),
-                    format!(
-                        "{{\"ts\":{ts},\"value\":{},\"unit\":\"barg\",\"quality\":\"good\"}}",
-                        fixed(p, 3)
-                    ),
-                    false,
-                ));
-            }
-            Kind::RatioBare | Kind::RatioJson => {
-                let Some(o) = self.outlet(inst.reactor, sample_s) else {
-                    return;
-                };
-                let s = o.steam_ratio(r.water) * (1.0 + RATIO_NOISE_REL * self.noise(i, k, 0));
-                let payload = if inst.kind == Kind::RatioBare {
-                    fixed(s, 5)
-                } else {
-                    format!(
-                        "{{\"ts\":{ts},\"value\":{},\"quality\":\"good\"}}",
-                        fixed(s, 5)
-                    )
-                };
-                out.push(msg(inst.topic.clone(), payload, false));
-            }
-            Kind::Analyser | Kind::AnalyserPerComponent => {
-                // A stuck analyser repeats the last analysis before its window.
-                let (kk, t_analysis) = match inst.stuck_window_s {
-                    Some((a, b)) if sample_s >= a && sample_s < b => {
-                        let last = ((a / inst.period_s).ceil() as u64).saturating_sub(1);
-                        (last, last as f64 * inst.period_s)
-                    }
-                    _ => (k, sample_s),
-                };
-                let Some(values) = self.analysis(i, kk, t_analysis) else {
-                    return;
-                };
-                if inst.kind == Kind::Analyser {
-                    let body: Vec<String> = r
-                        .reported
-                        .iter()
-                        .zip(&values)
-                        .map(|((_, name, _), v)| format!("\"{name}\":{v}"))
-                        .collect();
-                    out.push(msg(
-                        inst.topic.clone(),
-                        format!(
-                            "{{\"ts\":{ts},\"values\":{{{}}},\"unit\":\"mol%\",\"basis\":\"{}\",\"quality\":\"good\"}}",
-                            body.join(","),
-                            r.basis.as_str()
-                        ),
-                        true,
-                    ));
-                } else {
-                    for ((_, name, unit), v) in r.reported.iter().zip(&values) {
-                        out.push(msg(
-                            format!("{}/{name}", inst.topic),
-                            format!(
-                                "{{\"ts\":{ts},\"value\":{v},\"unit\":\"{}\"}}",
-                                unit.label()
-                            ),
-                            true,
-                        ));
-                    }
-                }
             }
         }
     }
@@ -914,6 +806,154 @@ struct ReactorSpec {
     target_steam_ratio: Option<f64>,
     reported: &'static [(&'static str, Unit)],
 }
+
+/// The demo plant's reactors. Feeds are per 100 mol of dry gas (water separately);
+/// all invented.
+const REACTORS: [ReactorSpec; 5] = [
+    ReactorSpec {
+        id: "ref1",
+        reactions: &[
+            ("CH4 + H2O = CO + 3 H2", KSourceId::XuFroment1989),
+            ("CO + H2O = CO2 + H2", KSourceId::XuFroment1989),
+        ],
+        profiles: &[
+            Profile::SulphurStep {
+                before: 8.0,
+                after: 25.0,
+            },
+            Profile::Constant(2.0),
+        ],
+        feed: &[
+            ("CH4", 1.0),
+            ("H2O", 3.0),
+            ("CO", 0.0),
+            ("CO2", 0.0),
+            ("H2", 0.0),
+        ],
+        eos: EosKind::Ideal,
+        t_c: 797.0,
+        p_barg: 30.0,
+        basis: Basis::Dry,
+        target_steam_ratio: None,
+        reported: &[
+            ("CH4", Unit::Percent),
+            ("CO", Unit::Percent),
+            ("CO2", Unit::Percent),
+            ("H2", Unit::Percent),
+        ],
+    },
+    ReactorSpec {
+        id: "hts1",
+        reactions: &[("CO + H2O = CO2 + H2", KSourceId::XuFroment1989)],
+        profiles: &[Profile::Constant(8.0)],
+        feed: &[
+            ("H2", 56.0),
+            ("N2", 22.8),
+            ("CO", 13.0),
+            ("CO2", 7.6),
+            ("CH4", 0.3),
+            ("Ar", 0.3),
+            ("H2O", 60.0),
+        ],
+        eos: EosKind::Ideal,
+        t_c: 415.0,
+        p_barg: 29.0,
+        basis: Basis::Dry,
+        target_steam_ratio: Some(0.48),
+        reported: &[
+            ("H2", Unit::Percent),
+            ("N2", Unit::Percent),
+            ("CO", Unit::Percent),
+            ("CO2", Unit::Percent),
+            ("CH4", Unit::Percent),
+            ("Ar", Unit::Percent),
+        ],
+    },
+    ReactorSpec {
+        id: "lts1",
+        reactions: &[("CO + H2O = CO2 + H2", KSourceId::Moe1962)],
+        profiles: &[Profile::Creep {
+            start: 10.0,
+            per_hour: 0.2,
+        }],
+        feed: &[
+            ("H2", 59.8),
+            ("N2", 20.6),
+            ("CO", 3.2),
+            ("CO2", 15.8),
+            ("CH4", 0.3),
+            ("Ar", 0.3),
+            ("H2O", 40.0),
+        ],
+        eos: EosKind::Ideal,
+        t_c: 207.0,
+        p_barg: 28.0,
+        basis: Basis::Dry,
+        target_steam_ratio: Some(0.36),
+        reported: &[
+            ("H2", Unit::Percent),
+            ("N2", Unit::Percent),
+            ("CO", Unit::Percent),
+            ("CO2", Unit::Percent),
+            ("CH4", Unit::Percent),
+            ("Ar", Unit::Percent),
+        ],
+    },
+    ReactorSpec {
+        id: "mth1",
+        reactions: &[
+            ("CO + 3 H2 = CH4 + H2O", KSourceId::SpeciesData),
+            ("CO2 + 4 H2 = CH4 + 2 H2O", KSourceId::SpeciesData),
+        ],
+        profiles: &[Profile::Constant(10.0), Profile::Constant(10.0)],
+        feed: &[
+            ("H2", 74.2),
+            ("N2", 24.72),
+            ("CO", 0.18),
+            ("CO2", 0.05),
+            ("CH4", 0.53),
+            ("Ar", 0.32),
+            ("H2O", 0.15),
+        ],
+        eos: EosKind::Ideal,
+        t_c: 327.0,
+        p_barg: 27.0,
+        basis: Basis::Dry,
+        target_steam_ratio: Some(0.004),
+        reported: &[
+            ("H2", Unit::Percent),
+            ("N2", Unit::Percent),
+            ("CH4", Unit::Percent),
+            ("Ar", Unit::Percent),
+            ("CO", Unit::Ppm),
+            ("CO2", Unit::Ppm),
+        ],
+    },
+    ReactorSpec {
+        id: "amc1",
+        reactions: &[("N2 + 3 H2 = 2 NH3", KSourceId::SpeciesData)],
+        profiles: &[Profile::Constant(15.0)],
+        feed: &[
+            ("H2", 65.0),
+            ("N2", 21.7),
+            ("NH3", 3.5),
+            ("Ar", 4.0),
+            ("CH4", 5.8),
+        ],
+        eos: EosKind::PengRobinson,
+        t_c: 427.0,
+        p_barg: 150.0,
+        basis: Basis::Wet,
+        target_steam_ratio: None,
+        reported: &[
+            ("H2", Unit::Percent),
+            ("N2", Unit::Percent),
+            ("NH3", Unit::Percent),
+            ("Ar", Unit::Percent),
+            ("CH4", Unit::Percent),
+        ],
+    },
+];
 
 impl ReactorSpec {
     fn build(&self, db: &SpeciesDb) -> Option<Reactor> {

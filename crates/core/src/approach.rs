@@ -26,7 +26,7 @@ use thiserror::Error;
 
 use crate::equilibrium::{EosKind, EquilibriumError, peng_robinson_for};
 use crate::solve::{RootOutcome, newton_bracketed};
-use crate::thermo::ksource::KModel;
+use crate::thermo::ksource::{KModel, ReactionProperties};
 use crate::thermo::peng_robinson::{PengRobinson, PrScratch};
 use crate::thermo::reaction::Reaction;
 use crate::thermo::species::{R_J_PER_MOL_K, SpeciesDb};
@@ -404,59 +404,11 @@ impl ReactorModel {
         let term = &self.reactions[r];
         let t = state.temperature_k;
         let p = state.pressure_bar;
-        let mut flags = Flags::default();
         let props = term.k.properties(t);
-        let ln_p = p.ln();
-        let mut ln_q = 0.0;
-        // Variance of ln Q by input: analyser, steam ratio, pressure.
-        let mut var_composition = 0.0;
-        let mut var_steam = 0.0;
-        let mut var_pressure = 0.0;
-        let water = state.steam_ratio.map(|(_, i)| i);
-        let mut nu_dry = 0.0;
-        for (i, &nu) in term.nu.iter().enumerate() {
-            if nu == 0.0 {
-                continue;
-            }
-            let y = state.y[i];
-            if y <= 0.0 {
-                flags.set(Flags::ZERO_COMPONENT);
-            }
-            ln_q += nu * (scratch.ln_phi[i] + y.ln() + ln_p);
-            if Some(i) != water {
-                nu_dry += nu;
-                var_composition += (nu * unc.composition_rel).powi(2);
-            }
-        }
-        if let Some((s, w)) = state.steam_ratio {
-            // d ln Q / d ln S = ν_w/(1+S) − S/(1+S) Σ_dry ν_i (docs/domain.md §5 basis algebra).
-            let d = term.nu[w] / (1.0 + s) - s / (1.0 + s) * nu_dry;
-            var_steam = (d * unc.steam_ratio_rel).powi(2);
-        }
-        if p > 0.0 {
-            var_pressure = (term.delta_nu * unc.pressure_bar / p).powi(2);
-        }
-        let var_ln_q = var_composition + var_steam + var_pressure;
-        let ln_q_uncertainty = var_ln_q.sqrt();
+        let q = LnQ::of(term, state, scratch, unc);
+        let ln_q = q.value;
         let ln_k = props.ln_k;
-        let endothermic = props.delta_h_j_per_mol > 0.0;
-        let mut out = Approach {
-            ln_k,
-            delta_g_j_per_mol: props.delta_g_j_per_mol,
-            delta_h_j_per_mol: props.delta_h_j_per_mol,
-            delta_s_j_per_mol_k: props.delta_s_j_per_mol_k,
-            ln_q,
-            q_over_k: (ln_q - ln_k).exp(),
-            affinity_j_per_mol: R_J_PER_MOL_K * t * (ln_k - ln_q),
-            direction: Direction::AtEquilibrium,
-            endothermic,
-            equilibrium_temperature_k: None,
-            approach_k: None,
-            approach_uncertainty_k: None,
-            uncertainty_budget_k: None,
-            ln_q_uncertainty,
-            flags,
-        };
+        let mut out = unjudged(&props, t, &q);
         if !(t.is_finite() && t > 0.0 && p.is_finite() && p > 0.0)
             || state.y.iter().any(|y| !y.is_finite())
         {
@@ -471,46 +423,29 @@ impl ReactorModel {
             return out;
         }
         let d = ln_q - ln_k;
-        out.direction = if d.abs() <= self.band_ln {
+        out.direction = self.direction(d);
+        // Thermoneutral: |ΔH°| below 1 kJ/mol makes T_eq meaningless [common practice threshold].
+        if props.delta_h_j_per_mol.abs() < 1000.0 {
+            out.flags.set(Flags::THERMONEUTRAL);
+        } else {
+            self.temperature_approach(term, t, ln_q, unc, q.var, &mut out);
+        }
+        if out.direction == Direction::Reverse {
+            out.flags
+                .set(past_k_flag(&out, &props, unc, q.variance(), d));
+        }
+        out
+    }
+
+    /// Direction from d = ln(Q/K): within the band it is at equilibrium.
+    fn direction(&self, d: f64) -> Direction {
+        if d.abs() <= self.band_ln {
             Direction::AtEquilibrium
         } else if d < 0.0 {
             Direction::Forward
         } else {
             Direction::Reverse
-        };
-        // Thermoneutral: |ΔH°| below 1 kJ/mol makes T_eq meaningless [common practice threshold].
-        if props.delta_h_j_per_mol.abs() < 1000.0 {
-            out.flags.set(Flags::THERMONEUTRAL);
-        } else {
-            self.temperature_approach(
-                term,
-                t,
-                ln_q,
-                unc,
-                [var_composition, var_steam, var_pressure],
-                &mut out,
-            );
         }
-        if out.direction == Direction::Reverse {
-            // Q past K: beyond equilibrium only if by more than the figure's own ±.
-            let within = match (out.approach_k, out.approach_uncertainty_k) {
-                (Some(a), Some(u)) if u > 0.0 => -a <= u,
-                (Some(_), _) => false,
-                // No approach: the same test on ln(Q/K), with the thermocouple's share
-                // through d ln K/dT at the measured T.
-                (None, _) => {
-                    let from_t = props.d_ln_k_dt_per_k * unc.temperature_k;
-                    let u_ln = (var_ln_q + from_t * from_t).sqrt();
-                    u_ln > 0.0 && d <= u_ln
-                }
-            };
-            out.flags.set(if within {
-                Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY
-            } else {
-                Flags::BEYOND_EQUILIBRIUM
-            });
-        }
-        out
     }
 
     /// T_eq, the approach and its ± with each input's share, into `out` (whose
@@ -583,6 +518,118 @@ impl ReactorModel {
     }
 }
 
+/// ln Q of one reaction at the measured state, and its variance by input.
+#[derive(Debug, Clone, Copy)]
+struct LnQ {
+    value: f64,
+    /// Variance of ln Q from the analyser, the steam ratio and the pressure.
+    var: [f64; 3],
+    /// A component of the reaction is at or below zero.
+    zero_component: bool,
+}
+
+impl LnQ {
+    fn of(term: &ReactionTerm, state: &GasState, scratch: &Scratch, unc: &Uncertainty) -> Self {
+        let p = state.pressure_bar;
+        let ln_p = p.ln();
+        let mut ln_q = 0.0;
+        let mut zero_component = false;
+        // Variance of ln Q by input: analyser, steam ratio, pressure.
+        let mut var_composition = 0.0;
+        let mut var_steam = 0.0;
+        let mut var_pressure = 0.0;
+        let water = state.steam_ratio.map(|(_, i)| i);
+        let mut nu_dry = 0.0;
+        for (i, &nu) in term.nu.iter().enumerate() {
+            if nu == 0.0 {
+                continue;
+            }
+            let y = state.y[i];
+            if y <= 0.0 {
+                zero_component = true;
+            }
+            ln_q += nu * (scratch.ln_phi[i] + y.ln() + ln_p);
+            if Some(i) != water {
+                nu_dry += nu;
+                var_composition += (nu * unc.composition_rel).powi(2);
+            }
+        }
+        if let Some((s, w)) = state.steam_ratio {
+            // d ln Q / d ln S = ν_w/(1+S) − S/(1+S) Σ_dry ν_i (docs/domain.md §5 basis algebra).
+            let d = term.nu[w] / (1.0 + s) - s / (1.0 + s) * nu_dry;
+            var_steam = (d * unc.steam_ratio_rel).powi(2);
+        }
+        if p > 0.0 {
+            var_pressure = (term.delta_nu * unc.pressure_bar / p).powi(2);
+        }
+        Self {
+            value: ln_q,
+            var: [var_composition, var_steam, var_pressure],
+            zero_component,
+        }
+    }
+
+    /// Total variance of ln Q.
+    fn variance(&self) -> f64 {
+        self.var[0] + self.var[1] + self.var[2]
+    }
+}
+
+/// The figures that follow from K and Q alone, before any judgement (direction at
+/// equilibrium, no T_eq or approach yet).
+fn unjudged(props: &ReactionProperties, t: f64, q: &LnQ) -> Approach {
+    let mut flags = Flags::default();
+    if q.zero_component {
+        flags.set(Flags::ZERO_COMPONENT);
+    }
+    let ln_q = q.value;
+    let ln_k = props.ln_k;
+    Approach {
+        ln_k,
+        delta_g_j_per_mol: props.delta_g_j_per_mol,
+        delta_h_j_per_mol: props.delta_h_j_per_mol,
+        delta_s_j_per_mol_k: props.delta_s_j_per_mol_k,
+        ln_q,
+        q_over_k: (ln_q - ln_k).exp(),
+        affinity_j_per_mol: R_J_PER_MOL_K * t * (ln_k - ln_q),
+        direction: Direction::AtEquilibrium,
+        endothermic: props.delta_h_j_per_mol > 0.0,
+        equilibrium_temperature_k: None,
+        approach_k: None,
+        approach_uncertainty_k: None,
+        uncertainty_budget_k: None,
+        ln_q_uncertainty: q.variance().sqrt(),
+        flags,
+    }
+}
+
+/// For Q past K (d = ln(Q/K) > band): beyond equilibrium only if by more than the
+/// figure's own ±, else at equilibrium within the uncertainty.
+fn past_k_flag(
+    out: &Approach,
+    props: &ReactionProperties,
+    unc: &Uncertainty,
+    var_ln_q: f64,
+    d: f64,
+) -> u32 {
+    let within = match (out.approach_k, out.approach_uncertainty_k) {
+        (Some(a), Some(u)) if u > 0.0 => -a <= u,
+        (Some(_), _) => false,
+        // No approach: the same test on ln(Q/K), with the thermocouple's share
+        // through d ln K/dT at the measured T.
+        (None, _) => {
+            let from_t = props.d_ln_k_dt_per_k * unc.temperature_k;
+            let u_ln = (var_ln_q + from_t * from_t).sqrt();
+            u_ln > 0.0 && d <= u_ln
+        }
+    };
+    if within {
+        Flags::AT_EQUILIBRIUM_WITHIN_UNCERTAINTY
+    } else {
+        Flags::BEYOND_EQUILIBRIUM
+    }
+}
+
 /// Interior points (in 1/T) at which ΔH° is sampled between T and T_eq, besides the ends.
 const SIGN_SAMPLES: u32 = 7;
 
@@ -606,27 +653,29 @@ mod tests {
     use crate::thermo::reaction::parse_reaction;
     use crate::units::CompositionUnit;
 
-    /// Evaluates one reaction for an analysis: (approach, model species names, ln φ).
-    #[allow(clippy::too_many_arguments)]
-    fn evaluate(
-        eq: &str,
+    /// One reaction and one analysis (mol %) at the reactor's T and P.
+    struct Case<'a> {
+        reaction: &'a str,
         source: KSourceId,
-        comp: &str,
+        composition: &'a str,
         basis: Basis,
         water: Option<WaterSource>,
-        t: f64,
-        p: f64,
+        temperature_k: f64,
+        pressure_bar: f64,
         eos: EosKind,
-    ) -> (Approach, Vec<String>, Vec<f64>) {
+    }
+
+    /// Evaluates one reaction for an analysis: (approach, model species names, ln φ).
+    fn evaluate(case: &Case) -> (Approach, Vec<String>, Vec<f64>) {
         let db = SpeciesDb::builtin();
-        let r = parse_reaction(eq, &db).unwrap();
-        let k = KModel::from_correlation(source, &r, &db).unwrap();
-        let c = parse_components(comp, CompositionUnit::Percent).unwrap();
-        let w = to_wet(&db, &c, basis, water, 0.02).unwrap();
-        let model = ReactorModel::new(&db, vec![(r, k)], &w.species, eos, None).unwrap();
+        let r = parse_reaction(case.reaction, &db).unwrap();
+        let k = KModel::from_correlation(case.source, &r, &db).unwrap();
+        let c = parse_components(case.composition, CompositionUnit::Percent).unwrap();
+        let w = to_wet(&db, &c, case.basis, case.water, 0.02).unwrap();
+        let model = ReactorModel::new(&db, vec![(r, k)], &w.species, case.eos, None).unwrap();
         let state = GasState {
-            temperature_k: t,
-            pressure_bar: p,
+            temperature_k: case.temperature_k,
+            pressure_bar: case.pressure_bar,
             y: &w.y,
             steam_ratio: w.steam_ratio.zip(w.added_water),
         };
@@ -640,30 +689,30 @@ mod tests {
     fn reformer_worked_example() {
         // docs/domain.md §8 [derived]: gas at equilibrium at 796 °C, 30 bar abs, Xu–Froment K;
         // measured exit 808 °C → methane approach 12.00 K, Q/K(808 °C) ≈ 0.757.
-        let (a, _, _) = evaluate(
-            "CH4 + H2O = CO + 3 H2",
-            KSourceId::XuFroment1989,
-            "CH4=6.9245,H2O=38.8563,CO=6.0324,CO2=6.0179,H2=42.1689",
-            Basis::Wet,
-            None,
-            808.0 + 273.15,
-            30.0,
-            EosKind::Ideal,
-        );
+        let (a, _, _) = evaluate(&Case {
+            reaction: "CH4 + H2O = CO + 3 H2",
+            source: KSourceId::XuFroment1989,
+            composition: "CH4=6.9245,H2O=38.8563,CO=6.0324,CO2=6.0179,H2=42.1689",
+            basis: Basis::Wet,
+            water: None,
+            temperature_k: 808.0 + 273.15,
+            pressure_bar: 30.0,
+            eos: EosKind::Ideal,
+        });
         assert!((a.approach_k.unwrap() - 12.00).abs() < 0.01, "{a:?}");
         assert!((a.q_over_k - 0.757).abs() < 0.001, "{a:?}");
         assert!(a.endothermic && a.direction == Direction::Forward);
         // The dry analysis plus S/D 0.63549 is the same gas.
-        let (b, _, _) = evaluate(
-            "CH4 + H2O = CO + 3 H2",
-            KSourceId::XuFroment1989,
-            "CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668",
-            Basis::Dry,
-            Some(WaterSource::SteamRatio(0.63549)),
-            808.0 + 273.15,
-            30.0,
-            EosKind::Ideal,
-        );
+        let (b, _, _) = evaluate(&Case {
+            reaction: "CH4 + H2O = CO + 3 H2",
+            source: KSourceId::XuFroment1989,
+            composition: "CH4=11.3250,CO=9.8659,CO2=9.8423,H2=68.9668",
+            basis: Basis::Dry,
+            water: Some(WaterSource::SteamRatio(0.63549)),
+            temperature_k: 808.0 + 273.15,
+            pressure_bar: 30.0,
+            eos: EosKind::Ideal,
+        });
         assert!((b.approach_k.unwrap() - 12.00).abs() < 0.01, "{b:?}");
     }
 
@@ -673,16 +722,16 @@ mod tests {
         // the approach is 12.00 K with Moe K and 8.66 K with Xu–Froment K; Q/K ≈ 0.802 (Moe).
         let comp = "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921";
         let run = |src| {
-            evaluate(
-                "CO + H2O = CO2 + H2",
-                src,
-                comp,
-                Basis::Dry,
-                Some(WaterSource::SteamRatio(0.36312)),
-                493.15,
-                30.0,
-                EosKind::Ideal,
-            )
+            evaluate(&Case {
+                reaction: "CO + H2O = CO2 + H2",
+                source: src,
+                composition: comp,
+                basis: Basis::Dry,
+                water: Some(WaterSource::SteamRatio(0.36312)),
+                temperature_k: 493.15,
+                pressure_bar: 30.0,
+                eos: EosKind::Ideal,
+            })
             .0
         };
         let moe = run(KSourceId::Moe1962);
@@ -698,16 +747,16 @@ mod tests {
     fn beyond_equilibrium_is_negative_and_flagged() {
         // Same LTS gas read 30 K hotter than its equilibrium temperature would allow:
         // Q > K at 520 K with Moe K (K(520) = exp(4577.8/520 − 4.33) = 86.0 < 113.55).
-        let (a, _, _) = evaluate(
-            "CO + H2O = CO2 + H2",
-            KSourceId::Moe1962,
-            "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921",
-            Basis::Dry,
-            Some(WaterSource::SteamRatio(0.36312)),
-            520.0,
-            30.0,
-            EosKind::Ideal,
-        );
+        let (a, _, _) = evaluate(&Case {
+            reaction: "CO + H2O = CO2 + H2",
+            source: KSourceId::Moe1962,
+            composition: "H2=61.0536,N2=18.98637,CO=0.28697,CO2=19.38096,CH4=0.2921",
+            basis: Basis::Dry,
+            water: Some(WaterSource::SteamRatio(0.36312)),
+            temperature_k: 520.0,
+            pressure_bar: 30.0,
+            eos: EosKind::Ideal,
+        });
         assert!(a.approach_k.unwrap() < 0.0);
         assert!(a.flags.has(Flags::BEYOND_EQUILIBRIUM));
         assert_eq!(a.direction, Direction::Reverse);
@@ -719,16 +768,16 @@ mod tests {
         // docs/domain.md §4: H2 0.60 / N2 0.20 / NH3 0.15 / Ar 0.03 / CH4 0.02 at 700 K, 150 bar:
         // φ_H2 = 1.0356, φ_N2 = 1.0546, φ_NH3 = 0.9886 (thermo 0.6.1 PRMIX, default
         // critical constants). Tolerance 1e-4 (values quoted to 4 decimals).
-        let (_, names, ln_phi) = evaluate(
-            "N2 + 3 H2 = 2 NH3",
-            KSourceId::SpeciesData,
-            "H2=60,N2=20,NH3=15,Ar=3,CH4=2",
-            Basis::Wet,
-            None,
-            700.0,
-            150.0,
-            EosKind::PengRobinson,
-        );
+        let (_, names, ln_phi) = evaluate(&Case {
+            reaction: "N2 + 3 H2 = 2 NH3",
+            source: KSourceId::SpeciesData,
+            composition: "H2=60,N2=20,NH3=15,Ar=3,CH4=2",
+            basis: Basis::Wet,
+            water: None,
+            temperature_k: 700.0,
+            pressure_bar: 150.0,
+            eos: EosKind::PengRobinson,
+        });
         let phi = |n: &str| ln_phi[names.iter().position(|x| x == n).unwrap()].exp();
         assert!((phi("H2") - 1.0356).abs() < 1e-4, "{}", phi("H2"));
         assert!((phi("N2") - 1.0546).abs() < 1e-4, "{}", phi("N2"));

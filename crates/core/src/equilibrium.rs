@@ -343,63 +343,101 @@ impl EquilibriumSystem {
         p_bar: f64,
         moles_in: &[f64],
     ) -> EquilibriumResult {
-        let n_all = self.species.len();
-        let s = self.n_reactive;
-        let fail = |reason: String| EquilibriumResult {
-            moles: vec![f64::NAN; n_all],
-            mole_fractions: vec![f64::NAN; n_all],
-            ln_phi: vec![0.0; n_all],
-            iterations: 0,
-            converged: false,
-            reason,
+        let at = Conditions {
+            t_k,
+            p_bar,
+            moles_in,
         };
-        if moles_in.len() != n_all {
-            return fail(format!(
+        self.try_solve(db, &at)
+            .unwrap_or_else(|reason| not_converged(self.species.len(), reason))
+    }
+
+    /// [`Self::solve`] with every refusal as `Err(reason)`.
+    fn try_solve(&self, db: &SpeciesDb, at: &Conditions) -> Result<EquilibriumResult, String> {
+        self.check_inputs(at)?;
+        let red = self.reduce(at.moles_in)?;
+        let mut pot = self.gas_potentials(db, at, &red)?;
+        let total_in: f64 = at.moles_in.iter().sum();
+        let mut it = Iterate {
+            lambda: initial_lambda(&red, &pot.g, at.moles_in, total_in),
+            n: vec![0.0; red.m],
+            iterations: 0,
+            ln_n: total_in.ln().clamp(red.ln_n_lo, red.ln_n_hi),
+        };
+        let mut phi = Fugacity::new(self.species.len(), self.eos.as_ref());
+        let max_outer = if self.eos.is_some() { 60 } else { 1 };
+        let mut converged_phi = self.eos.is_none();
+        for _ in 0..max_outer {
+            let problem = InnerProblem {
+                a: &red.a,
+                m: red.m,
+                e: red.e,
+                b: &red.b,
+                g: &pot.g,
+            };
+            settle_total(&problem, &red, &mut it)?;
+            let Some(eos) = &self.eos else { break };
+            let change = phi.update(eos, at, &red, &it.n)?;
+            pot.include_fugacity(&red.present, &phi.ln_phi);
+            if change < 1e-12 {
+                converged_phi = true;
+                break;
+            }
+        }
+        Ok(finish(&red, at.moles_in, it, phi.ln_phi, converged_phi))
+    }
+
+    /// Refuses amounts of the wrong length and non-physical T, P or amounts.
+    fn check_inputs(&self, at: &Conditions) -> Result<(), String> {
+        let n_all = self.species.len();
+        if at.moles_in.len() != n_all {
+            return Err(format!(
                 "{} amounts given for {} species",
-                moles_in.len(),
+                at.moles_in.len(),
                 n_all
             ));
         }
+        let (t_k, p_bar) = (at.t_k, at.p_bar);
         if !(t_k.is_finite() && t_k > 0.0 && p_bar.is_finite() && p_bar > 0.0) {
-            return fail("temperature and pressure must be positive numbers".into());
+            return Err("temperature and pressure must be positive numbers".into());
         }
-        if moles_in.iter().any(|x| !x.is_finite() || *x < 0.0) {
-            return fail("amounts must be finite and not negative".into());
+        if at.moles_in.iter().any(|x| !x.is_finite() || *x < 0.0) {
+            return Err("amounts must be finite and not negative".into());
         }
+        Ok(())
+    }
+
+    /// The element inventory of `moles_in` over the species and independent elements
+    /// actually present, and the bracket on ln N.
+    fn reduce(&self, moles_in: &[f64]) -> Result<Reduced, String> {
+        let n_reactive = self.n_reactive;
         let n_el = self.atoms.first().map_or(0, |r| r.len());
         let b_all: Vec<f64> = (0..n_el)
-            .map(|j| (0..s).map(|i| self.atoms[i][j] * moles_in[i]).sum())
+            .map(|j| {
+                (0..n_reactive)
+                    .map(|i| self.atoms[i][j] * moles_in[i])
+                    .sum()
+            })
             .collect();
-        let n_inert: f64 = moles_in[s..].iter().sum();
+        let n_inert: f64 = moles_in[n_reactive..].iter().sum();
         let b_scale = b_all.iter().fold(0.0f64, |a, x| a.max(*x));
         if b_scale <= 0.0 {
-            return fail("no reacting species present".into());
+            return Err("no reacting species present".into());
         }
         // Elements present, and the species that can exist with them.
         let el_present: Vec<bool> = b_all.iter().map(|b| *b > b_scale * 1e-300).collect();
-        let sp_present: Vec<usize> = (0..s)
+        let present: Vec<usize> = (0..n_reactive)
             .filter(|&i| (0..n_el).all(|j| self.atoms[i][j] == 0.0 || el_present[j]))
             .collect();
-        // Independent element rows over the present species.
-        let mut rows: Vec<usize> = Vec::new();
-        for j in (0..n_el).filter(|&j| el_present[j]) {
-            let mut trial = rows.clone();
-            trial.push(j);
-            let m = DMatrix::from_fn(trial.len(), sp_present.len(), |r, c| {
-                self.atoms[sp_present[c]][trial[r]]
-            });
-            if rank(&m) == trial.len() {
-                rows = trial;
-            }
-        }
+        let rows = self.independent_rows(&el_present, &present);
         let e = rows.len();
-        let m = sp_present.len();
+        let m = present.len();
         if e > MAX_ELEMENTS {
-            return fail(format!("more than {MAX_ELEMENTS} independent elements"));
+            return Err(format!("more than {MAX_ELEMENTS} independent elements"));
         }
         // Row-major m×e atoms of the present species over the independent elements.
         let mut a = vec![0.0; m * e];
-        for (k, &i) in sp_present.iter().enumerate() {
+        for (k, &i) in present.iter().enumerate() {
             for (c, &j) in rows.iter().enumerate() {
                 a[k * e + c] = self.atoms[i][j];
             }
@@ -408,142 +446,270 @@ impl EquilibriumSystem {
         for (c, &j) in rows.iter().enumerate() {
             b[c] = b_all[j];
         }
-        let atoms_per: Vec<f64> = sp_present
+        let atoms_per: Vec<f64> = present
             .iter()
             .map(|&i| self.atoms[i].iter().sum())
             .collect();
         let total_atoms: f64 = b_all.iter().sum();
         let max_atoms = atoms_per.iter().fold(0.0f64, |x, y| x.max(*y));
         let min_atoms = atoms_per.iter().fold(f64::INFINITY, |x, y| x.min(*y));
+        Ok(Reduced {
+            present,
+            a,
+            m,
+            e,
+            b,
+            n_reactive,
+            n_inert,
+            ln_n_lo: (total_atoms / max_atoms + n_inert).ln(),
+            ln_n_hi: (total_atoms / min_atoms + n_inert).ln(),
+        })
+    }
 
-        let mut g0 = vec![0.0; s];
-        self.standard_g(db, t_k, &mut g0);
+    /// Independent element rows over the present species, in element order.
+    fn independent_rows(&self, el_present: &[bool], present: &[usize]) -> Vec<usize> {
+        let mut rows: Vec<usize> = Vec::new();
+        for j in (0..el_present.len()).filter(|&j| el_present[j]) {
+            let mut trial = rows.clone();
+            trial.push(j);
+            let m = DMatrix::from_fn(trial.len(), present.len(), |r, c| {
+                self.atoms[present[c]][trial[r]]
+            });
+            if rank(&m) == trial.len() {
+                rows = trial;
+            }
+        }
+        rows
+    }
+
+    /// μ°/RT of the reactive species at T and the ideal-gas g of the present ones.
+    fn gas_potentials(
+        &self,
+        db: &SpeciesDb,
+        at: &Conditions,
+        red: &Reduced,
+    ) -> Result<GasPotentials, String> {
+        let mut g0 = vec![0.0; self.n_reactive];
+        self.standard_g(db, at.t_k, &mut g0);
         if g0.iter().any(|x| !x.is_finite()) {
-            return fail("standard potentials are not finite at this temperature".into());
+            return Err("standard potentials are not finite at this temperature".into());
         }
-        let ln_p = p_bar.ln();
-        let mut ln_phi = vec![0.0; n_all];
-        let mut y_all = vec![0.0; n_all];
-        let mut new_phi = vec![0.0; n_all];
-        let mut scratch: PrScratch = self.eos.as_ref().map(|e| e.scratch()).unwrap_or_default();
+        let ln_p = at.p_bar.ln();
+        let g = red.present.iter().map(|&i| g0[i] + ln_p).collect();
+        Ok(GasPotentials { g0, ln_p, g })
+    }
+}
 
-        // Initial element potentials: least squares of a·λ ≈ g + ln x0.
-        let total_in: f64 = moles_in.iter().sum();
-        let mut g: Vec<f64> = sp_present.iter().map(|&i| g0[i] + ln_p).collect();
-        let mut lambda = [0.0; MAX_ELEMENTS];
-        {
-            let mut ata = [[0.0; MAX_ELEMENTS]; MAX_ELEMENTS];
-            let mut rhs = [0.0; MAX_ELEMENTS];
-            for (k, &i) in sp_present.iter().enumerate() {
-                let target = g[k] + (moles_in[i] / total_in).max(1e-6).ln();
-                let row = &a[k * e..(k + 1) * e];
-                for p in 0..e {
-                    rhs[p] += row[p] * target;
-                    for q in 0..e {
-                        ata[p][q] += row[p] * row[q];
-                    }
-                }
-            }
-            if cholesky(&mut ata, e) {
-                cholesky_solve(&ata, e, &mut rhs);
-                lambda = rhs;
+/// The state and inputs of one solve.
+struct Conditions<'a> {
+    t_k: f64,
+    p_bar: f64,
+    /// Moles per species in [`EquilibriumSystem::names`] order.
+    moles_in: &'a [f64],
+}
+
+/// The problem reduced to the species and independent elements present.
+struct Reduced {
+    /// Reactive species (system indices) whose elements are all present.
+    present: Vec<usize>,
+    /// Row-major m×e atoms of the present species over the independent elements.
+    a: Vec<f64>,
+    m: usize,
+    e: usize,
+    /// Element totals over the independent elements.
+    b: [f64; MAX_ELEMENTS],
+    n_reactive: usize,
+    n_inert: f64,
+    /// Bracket on ln N: Σb/max atoms and Σb/min atoms, plus the inerts.
+    ln_n_lo: f64,
+    ln_n_hi: f64,
+}
+
+/// g_i = μ°_i/RT + ln(P/p°) + ln φ_i of the present species, and what it is built from.
+struct GasPotentials {
+    /// μ°/RT per reactive species.
+    g0: Vec<f64>,
+    ln_p: f64,
+    /// Per present species.
+    g: Vec<f64>,
+}
+
+impl GasPotentials {
+    fn include_fugacity(&mut self, present: &[usize], ln_phi: &[f64]) {
+        for (k, &i) in present.iter().enumerate() {
+            self.g[k] = self.g0[i] + self.ln_p + ln_phi[i];
+        }
+    }
+}
+
+/// The iterate the solves carry from one to the next.
+struct Iterate {
+    lambda: [f64; MAX_ELEMENTS],
+    /// Moles of the present species.
+    n: Vec<f64>,
+    iterations: u32,
+    ln_n: f64,
+}
+
+/// Fugacity coefficients and the buffers their successive substitution uses.
+struct Fugacity {
+    ln_phi: Vec<f64>,
+    y: Vec<f64>,
+    new_phi: Vec<f64>,
+    scratch: PrScratch,
+}
+
+impl Fugacity {
+    fn new(n_all: usize, eos: Option<&PengRobinson>) -> Self {
+        Self {
+            ln_phi: vec![0.0; n_all],
+            y: vec![0.0; n_all],
+            new_phi: vec![0.0; n_all],
+            scratch: eos.map(|e| e.scratch()).unwrap_or_default(),
+        }
+    }
+
+    /// One substitution pass: ln φ at the moles `n` of the present species and the inerts
+    /// of `at`; returns the largest change in ln φ.
+    fn update(
+        &mut self,
+        eos: &PengRobinson,
+        at: &Conditions,
+        red: &Reduced,
+        n: &[f64],
+    ) -> Result<f64, String> {
+        let tot: f64 = n.iter().sum::<f64>() + red.n_inert;
+        self.y.iter_mut().for_each(|y| *y = 0.0);
+        for (k, &i) in red.present.iter().enumerate() {
+            self.y[i] = n[k] / tot;
+        }
+        for i in red.n_reactive..self.y.len() {
+            self.y[i] = at.moles_in[i] / tot;
+        }
+        if let Err(err) = eos.ln_phi(
+            at.t_k,
+            at.p_bar,
+            &self.y,
+            &mut self.new_phi,
+            &mut self.scratch,
+        ) {
+            return Err(err.to_string());
+        }
+        let change = self
+            .new_phi
+            .iter()
+            .zip(&self.ln_phi)
+            .fold(0.0f64, |a, (x, y)| a.max((x - y).abs()));
+        self.ln_phi.copy_from_slice(&self.new_phi);
+        Ok(change)
+    }
+}
+
+/// The result of a solve that stopped with `reason`.
+fn not_converged(n_all: usize, reason: String) -> EquilibriumResult {
+    EquilibriumResult {
+        moles: vec![f64::NAN; n_all],
+        mole_fractions: vec![f64::NAN; n_all],
+        ln_phi: vec![0.0; n_all],
+        iterations: 0,
+        converged: false,
+        reason,
+    }
+}
+
+/// Initial element potentials: least squares of a·λ ≈ g + ln x0.
+fn initial_lambda(
+    red: &Reduced,
+    g: &[f64],
+    moles_in: &[f64],
+    total_in: f64,
+) -> [f64; MAX_ELEMENTS] {
+    let e = red.e;
+    let mut ata = [[0.0; MAX_ELEMENTS]; MAX_ELEMENTS];
+    let mut rhs = [0.0; MAX_ELEMENTS];
+    for (k, &i) in red.present.iter().enumerate() {
+        let target = g[k] + (moles_in[i] / total_in).max(1e-6).ln();
+        let row = &red.a[k * e..(k + 1) * e];
+        for p in 0..e {
+            rhs[p] += row[p] * target;
+            for q in 0..e {
+                ata[p][q] += row[p] * row[q];
             }
         }
-        let mut iterations = 0u32;
-        let mut n_out = vec![0.0; m];
-        let max_outer = if self.eos.is_some() { 60 } else { 1 };
-        let mut converged_phi = self.eos.is_none();
-        let lo0 = (total_atoms / max_atoms + n_inert).ln();
-        let hi0 = (total_atoms / min_atoms + n_inert).ln();
-        let mut ln_n = total_in.ln().clamp(lo0, hi0);
-        for _ in 0..max_outer {
-            let problem = InnerProblem {
-                a: &a,
-                m,
-                e,
-                b: &b,
-                g: &g,
-            };
-            // Safeguarded Newton on ln N. The bracket holds the root by construction:
-            // Σ n lies between Σb/max atoms and Σb/min atoms whatever λ is, so
-            // f = ln(Σn + N_inert) − ln N is ≥ 0 at `lo` and ≤ 0 at `hi`.
-            let (mut lo, mut hi) = (lo0, hi0);
-            let mut settled = (hi - lo).abs() < 1e-14;
-            for _ in 0..100 {
-                if settled {
-                    break;
-                }
-                let (sum, dsum) =
-                    match inner(&problem, ln_n, &mut lambda, &mut n_out, &mut iterations) {
-                        Ok(v) => v,
-                        Err(r) => return fail(r),
-                    };
-                let tot = sum + n_inert;
-                let f = tot.ln() - ln_n;
-                let df = dsum / tot - 1.0;
-                if f > 0.0 {
-                    lo = ln_n;
-                } else {
-                    hi = ln_n;
-                }
-                if f == 0.0 {
-                    break;
-                }
-                let mut next = ln_n - f / df;
-                if !(next >= lo && next <= hi && next.is_finite()) {
-                    next = 0.5 * (lo + hi);
-                }
-                settled = (next - ln_n).abs() < 1e-14;
-                ln_n = next;
-            }
-            // Final inner solve at the chosen total, which also fills the moles.
-            if let Err(r) = inner(&problem, ln_n, &mut lambda, &mut n_out, &mut iterations) {
-                return fail(r);
-            }
-            let Some(eos) = &self.eos else { break };
-            let tot: f64 = n_out.iter().sum::<f64>() + n_inert;
-            y_all.iter_mut().for_each(|y| *y = 0.0);
-            for (k, &i) in sp_present.iter().enumerate() {
-                y_all[i] = n_out[k] / tot;
-            }
-            for i in s..n_all {
-                y_all[i] = moles_in[i] / tot;
-            }
-            if let Err(err) = eos.ln_phi(t_k, p_bar, &y_all, &mut new_phi, &mut scratch) {
-                return fail(err.to_string());
-            }
-            let change = new_phi
-                .iter()
-                .zip(&ln_phi)
-                .fold(0.0f64, |a, (x, y)| a.max((x - y).abs()));
-            ln_phi.copy_from_slice(&new_phi);
-            for (k, &i) in sp_present.iter().enumerate() {
-                g[k] = g0[i] + ln_p + ln_phi[i];
-            }
-            if change < 1e-12 {
-                converged_phi = true;
-                break;
-            }
+    }
+    if cholesky(&mut ata, e) {
+        cholesky_solve(&ata, e, &mut rhs);
+        rhs
+    } else {
+        [0.0; MAX_ELEMENTS]
+    }
+}
+
+/// Finds the total N for the current potentials and leaves `it` at the final inner solve
+/// there, which also fills the moles.
+fn settle_total(problem: &InnerProblem, red: &Reduced, it: &mut Iterate) -> Result<(), String> {
+    // Safeguarded Newton on ln N. The bracket holds the root by construction:
+    // Σ n lies between Σb/max atoms and Σb/min atoms whatever λ is, so
+    // f = ln(Σn + N_inert) − ln N is ≥ 0 at `lo` and ≤ 0 at `hi`.
+    let (mut lo, mut hi) = (red.ln_n_lo, red.ln_n_hi);
+    let mut settled = (hi - lo).abs() < 1e-14;
+    for _ in 0..100 {
+        if settled {
+            break;
         }
-        let mut moles = vec![0.0; n_all];
-        for (k, &i) in sp_present.iter().enumerate() {
-            moles[i] = n_out[k];
+        let (sum, dsum) = inner(problem, it)?;
+        let ln_n = it.ln_n;
+        let tot = sum + red.n_inert;
+        let f = tot.ln() - ln_n;
+        let df = dsum / tot - 1.0;
+        if f > 0.0 {
+            lo = ln_n;
+        } else {
+            hi = ln_n;
         }
-        moles[s..n_all].copy_from_slice(&moles_in[s..n_all]);
-        let tot: f64 = moles.iter().sum();
-        let mole_fractions = moles.iter().map(|x| x / tot).collect();
-        EquilibriumResult {
-            moles,
-            mole_fractions,
-            ln_phi,
-            iterations,
-            converged: converged_phi,
-            reason: if converged_phi {
-                String::new()
-            } else {
-                "fugacity coefficients did not settle in 60 passes".into()
-            },
+        if f == 0.0 {
+            break;
         }
+        let mut next = ln_n - f / df;
+        if !(next >= lo && next <= hi && next.is_finite()) {
+            next = 0.5 * (lo + hi);
+        }
+        settled = (next - ln_n).abs() < 1e-14;
+        it.ln_n = next;
+    }
+    // Final inner solve at the chosen total, which also fills the moles.
+    inner(problem, it)?;
+    Ok(())
+}
+
+/// Moles of every species (inerts as given), mole fractions and the outcome.
+fn finish(
+    red: &Reduced,
+    moles_in: &[f64],
+    it: Iterate,
+    ln_phi: Vec<f64>,
+    converged: bool,
+) -> EquilibriumResult {
+    let n_all = moles_in.len();
+    let n_reactive = red.n_reactive;
+    let mut moles = vec![0.0; n_all];
+    for (k, &i) in red.present.iter().enumerate() {
+        moles[i] = it.n[k];
+    }
+    moles[n_reactive..n_all].copy_from_slice(&moles_in[n_reactive..n_all]);
+    let tot: f64 = moles.iter().sum();
+    let mole_fractions = moles.iter().map(|x| x / tot).collect();
+    EquilibriumResult {
+        moles,
+        mole_fractions,
+        ln_phi,
+        iterations: it.iterations,
+        converged,
+        reason: if converged {
+            String::new()
+        } else {
+            "fugacity coefficients did not settle in 60 passes".into()
+        },
     }
 }
 
@@ -620,20 +786,66 @@ fn cholesky_solve(l: &[[f64; MAX_ELEMENTS]; MAX_ELEMENTS], e: usize, x: &mut [f6
     }
 }
 
-/// Minimises Ψ(λ) = N Σ exp(a_i·λ − g_i) − b·λ for N = exp(ln_n), starting from `lambda`,
-/// by Newton with a backtracking line search. Fills `n` with the moles at the minimum and
-/// returns Σ n_i and d(Σ n_i)/d ln N there. No allocation.
-fn inner(
-    p: &InnerProblem,
-    ln_n: f64,
-    lambda: &mut [f64; MAX_ELEMENTS],
-    n: &mut [f64],
-    iterations: &mut u32,
-) -> Result<(f64, f64), String> {
+/// Minimises Ψ(λ) = N Σ exp(a_i·λ − g_i) − b·λ for N = exp(`it.ln_n`), starting from
+/// `it.lambda`, by Newton with a backtracking line search. Fills `it.n` with the moles at
+/// the minimum and returns Σ n_i and d(Σ n_i)/d ln N there. No allocation.
+fn inner(p: &InnerProblem, it: &mut Iterate) -> Result<(f64, f64), String> {
     let e = p.e;
-    let mut f = p.moles(lambda, ln_n, n);
+    let mut f = p.moles(&it.lambda, it.ln_n, &mut it.n);
     for _ in 0..200 {
-        *iterations += 1;
+        it.iterations += 1;
+        let mut lin = Linearised::at(p, &it.n);
+        if !lin.factor(e) {
+            return Err("element-potential Hessian is singular".into());
+        }
+        if lin.rel < 1e-13 {
+            return Ok(lin.total_derivative(p, &it.n));
+        }
+        let step = lin.newton_step(e);
+        if -step.slope < 1e-12 * (1.0 + f.abs()) {
+            // Close in: the predicted decrease of Ψ is below its rounding noise, so a line
+            // search would judge noise. Newton converges quadratically here.
+            for q in 0..e {
+                it.lambda[q] += step.dir[q];
+            }
+            f = p.moles(&it.lambda, it.ln_n, &mut it.n);
+            continue;
+        }
+        match line_search(p, it, f, &step) {
+            Some(ft) => f = ft,
+            None => {
+                p.moles(&it.lambda, it.ln_n, &mut it.n);
+                // No descent possible: accept if the balance is as good as rounding allows.
+                if lin.rel < 1e-10 {
+                    return Ok(lin.total_derivative(p, &it.n));
+                }
+                let rel = lin.rel;
+                return Err(format!(
+                    "line search failed with element balance off by {rel:.1e}"
+                ));
+            }
+        }
+    }
+    Err("element potentials did not converge in 200 steps".into())
+}
+
+/// Ψ's gradient Aᵀn − b and Hessian Aᵀ diag(n) A at one iterate (the Hessian factored
+/// in place by [`Linearised::factor`]), and the largest relative element imbalance.
+struct Linearised {
+    grad: [f64; MAX_ELEMENTS],
+    h: [[f64; MAX_ELEMENTS]; MAX_ELEMENTS],
+    rel: f64,
+}
+
+/// A damped Newton direction and Ψ's slope along it.
+struct Step {
+    dir: [f64; MAX_ELEMENTS],
+    slope: f64,
+}
+
+impl Linearised {
+    fn at(p: &InnerProblem, n: &[f64]) -> Self {
+        let e = p.e;
         // Gradient Aᵀn − b and Hessian Aᵀ diag(n) A.
         let mut grad = [0.0; MAX_ELEMENTS];
         let mut h = [[0.0; MAX_ELEMENTS]; MAX_ELEMENTS];
@@ -655,80 +867,73 @@ fn inner(
             grad[q] -= p.b[q];
             rel = rel.max(grad[q].abs() / p.b[q]);
         }
+        Self { grad, h, rel }
+    }
+
+    /// Factors the Hessian in place; false if it is singular.
+    fn factor(&mut self, e: usize) -> bool {
         // A tiny ridge keeps the factorisation alive when an element's species are all
         // vanishingly rare at the current iterate.
+        let h = &mut self.h;
         let diag_max = (0..e).fold(0.0f64, |x, q| x.max(h[q][q]));
         for q in 0..e {
             h[q][q] += 1e-300f64.max(diag_max * 1e-15);
         }
-        if !cholesky(&mut h, e) {
-            return Err("element-potential Hessian is singular".into());
-        }
-        let derivative = |n: &[f64]| {
-            // dλ/d ln N = −H⁻¹ b; dΣn/d ln N = Σn + (Aᵀn)·dλ.
-            let mut dl = [0.0; MAX_ELEMENTS];
-            for q in 0..e {
-                dl[q] = -p.b[q];
-            }
-            cholesky_solve(&h, e, &mut dl);
-            let sum: f64 = n[..p.m].iter().sum();
-            let mut d = sum;
-            for q in 0..e {
-                d += (grad[q] + p.b[q]) * dl[q];
-            }
-            (sum, d)
-        };
-        if rel < 1e-13 {
-            return Ok(derivative(n));
-        }
-        let mut step = [0.0; MAX_ELEMENTS];
-        for q in 0..e {
-            step[q] = -grad[q];
-        }
-        cholesky_solve(&h, e, &mut step);
-        // Damping: element potentials move at most 10 per step (e^10 in any amount).
-        let big = step[..e].iter().fold(0.0f64, |x, s| x.max(s.abs()));
-        if big > 10.0 {
-            step[..e].iter_mut().for_each(|s| *s *= 10.0 / big);
-        }
-        let slope: f64 = (0..e).map(|q| grad[q] * step[q]).sum();
-        if -slope < 1e-12 * (1.0 + f.abs()) {
-            // Close in: the predicted decrease of Ψ is below its rounding noise, so a line
-            // search would judge noise. Newton converges quadratically here.
-            for q in 0..e {
-                lambda[q] += step[q];
-            }
-            f = p.moles(lambda, ln_n, n);
-            continue;
-        }
-        let mut alpha = 1.0;
-        let mut accepted = false;
-        for _ in 0..60 {
-            let mut trial = *lambda;
-            for q in 0..e {
-                trial[q] += alpha * step[q];
-            }
-            let ft = p.moles(&trial, ln_n, n);
-            if ft.is_finite() && ft <= f + 1e-4 * alpha * slope + 1e-15 * f.abs() {
-                *lambda = trial;
-                f = ft;
-                accepted = true;
-                break;
-            }
-            alpha *= 0.5;
-        }
-        if !accepted {
-            p.moles(lambda, ln_n, n);
-            // No descent possible: accept if the balance is as good as rounding allows.
-            if rel < 1e-10 {
-                return Ok(derivative(n));
-            }
-            return Err(format!(
-                "line search failed with element balance off by {rel:.1e}"
-            ));
-        }
+        cholesky(h, e)
     }
-    Err("element potentials did not converge in 200 steps".into())
+
+    /// Σ n_i and d(Σ n_i)/d ln N at the moles `n` (after [`Self::factor`]).
+    fn total_derivative(&self, p: &InnerProblem, n: &[f64]) -> (f64, f64) {
+        let e = p.e;
+        // dλ/d ln N = −H⁻¹ b; dΣn/d ln N = Σn + (Aᵀn)·dλ.
+        let mut dl = [0.0; MAX_ELEMENTS];
+        for q in 0..e {
+            dl[q] = -p.b[q];
+        }
+        cholesky_solve(&self.h, e, &mut dl);
+        let sum: f64 = n[..p.m].iter().sum();
+        let mut d = sum;
+        for q in 0..e {
+            d += (self.grad[q] + p.b[q]) * dl[q];
+        }
+        (sum, d)
+    }
+
+    /// The Newton direction (after [`Self::factor`]), damped.
+    fn newton_step(&self, e: usize) -> Step {
+        let mut dir = [0.0; MAX_ELEMENTS];
+        for q in 0..e {
+            dir[q] = -self.grad[q];
+        }
+        cholesky_solve(&self.h, e, &mut dir);
+        // Damping: element potentials move at most 10 per step (e^10 in any amount).
+        let big = dir[..e].iter().fold(0.0f64, |x, s| x.max(s.abs()));
+        if big > 10.0 {
+            dir[..e].iter_mut().for_each(|s| *s *= 10.0 / big);
+        }
+        let slope: f64 = (0..e).map(|q| self.grad[q] * dir[q]).sum();
+        Step { dir, slope }
+    }
+}
+
+/// Backtracking (Armijo) along `step` from `it.lambda`, where Ψ is `f`; on success moves
+/// `it.lambda` and returns the new Ψ (with `it.n` filled there), else `None` (`it.n` is
+/// then stale).
+fn line_search(p: &InnerProblem, it: &mut Iterate, f: f64, step: &Step) -> Option<f64> {
+    let mut alpha = 1.0;
+    for _ in 0..60 {
+        let mut trial = it.lambda;
+        for q in 0..p.e {
+            trial[q] += alpha * step.dir[q];
+        }
+        let ft = p.moles(&trial, it.ln_n, &mut it.n);
+        if ft.is_finite() && ft <= f + 1e-4 * alpha * step.slope + 1e-15 * f.abs() {
+            it.lambda = trial;
+            return Some(ft);
+        }
+        alpha *= 0.5;
+    }
+    None
 }
 
 #[cfg(test)]

@@ -466,130 +466,181 @@ fn alert_config(id: &str, limit: f64, direction: Direction, deadband: f64) -> Al
     }
 }
 
+impl Watched {
+    /// A fresh alarm or alert over `figure`; the configuration is validated here.
+    fn build(
+        class: Class,
+        cfg: AlarmConfig,
+        unit: &'static str,
+        description: String,
+        figure: Source,
+    ) -> Result<Self, AlarmError> {
+        Alarm::new(cfg).map(|alarm| Self {
+            class,
+            alarm,
+            unit,
+            description,
+            value: None,
+            figure,
+            activations: VecDeque::new(),
+            active_since_ms: None,
+        })
+    }
+}
+
+/// The operator alarms of the configuration, each with its rationale.
+fn push_configured_alarms(
+    settings: &WatchSettings,
+    watched: &mut Vec<Watched>,
+) -> Result<(), AlarmError> {
+    for a in &settings.alarms {
+        watched.push(Watched::build(
+            Class::Alarm,
+            a.config.clone(),
+            a.unit,
+            a.rationale.clone(),
+            Source::Figure(a.figure, a.scale),
+        )?);
+    }
+    Ok(())
+}
+
+/// The drift alerts: trend rate, end of run, CUSUM step.
+fn push_drift_alerts(
+    settings: &WatchSettings,
+    watched: &mut Vec<Watched>,
+) -> Result<(), AlarmError> {
+    let al = &settings.alerts;
+    if let Some(rate) = al.trend_above_k_per_day {
+        watched.push(Watched::build(
+            Class::Alert,
+            alert_config("trend", rate, Direction::High, 0.2 * rate.abs()),
+            "K/d",
+            format!("approach rising faster than {} K/d", fmt_num(rate, 3)),
+            Source::Trend,
+        )?);
+    }
+    if let (Some(days), Some(limit)) =
+        (al.end_of_run_within_days, settings.drift.end_of_run_limit_k)
+    {
+        watched.push(Watched::build(
+            Class::Alert,
+            alert_config("end-of-run", days, Direction::Low, 0.1 * days),
+            "d",
+            format!(
+                "end of run ({} K) forecast within {} d",
+                fmt_num(limit, 3),
+                fmt_num(days, 3)
+            ),
+            Source::EndOfRun,
+        )?);
+    }
+    if al.cusum {
+        // The standing upward step (K) against the step size; the limit is the
+        // configured step size, or h (5σ by default) once the baseline is known.
+        let limit = settings.drift.step_min_k.unwrap_or(f64::MAX);
+        watched.push(Watched::build(
+            Class::Alert,
+            alert_config("cusum", limit, Direction::High, 0.25 * limit.min(1e300)),
+            "K",
+            "approach stepped up against its level before the step (two-sided CUSUM level-shift test, Page 1954)".into(),
+            Source::Cusum,
+        )?);
+    }
+    Ok(())
+}
+
+/// The alerts on the unit's condition: data quality, bed rise, off line.
+fn push_condition_alerts(
+    settings: &WatchSettings,
+    watched: &mut Vec<Watched>,
+) -> Result<(), AlarmError> {
+    let al = &settings.alerts;
+    if let Some(after) = al.data_quality_after_ms {
+        let min = after as f64 / MINUTE_MS as f64;
+        watched.push(Watched::build(
+            Class::Alert,
+            alert_config("data-quality", min, Direction::High, 0.0),
+            "min",
+            format!(
+                "no good on-line result for more than {} min",
+                fmt_num(min, 3)
+            ),
+            Source::DataQuality,
+        )?);
+    }
+    if let Some(excess) = al.bed_rise_excess_k {
+        let mut c = alert_config("bed-rise", excess, Direction::High, 0.25 * excess);
+        c.on_delay_samples = 2;
+        c.off_delay_samples = 2;
+        watched.push(Watched::build(
+            Class::Alert,
+            c,
+            "K",
+            format!(
+                "bed rises more than {} K above what the inlet CO and CO2 explain: carbon oxides breaking through from upstream? check the CO2 removal and the shift converters, and the methanator temperatures",
+                fmt_num(excess, 3)
+            ),
+            Source::BedRise,
+        )?);
+    }
+    if let Some(limit) = settings.offline_below_bar {
+        // One alert per trip and return; it is never suppressed itself.
+        watched.push(Watched::build(
+            Class::Alert,
+            alert_config("off-line", limit, Direction::Low, 0.0),
+            "bar",
+            format!(
+                "unit off line (pressure below {} bar abs): alerts and alarms suppressed by design, statistics paused",
+                fmt_num(limit, 3)
+            ),
+            Source::Offline,
+        )?);
+    }
+    Ok(())
+}
+
+/// Chattering and stale alerts over each configured alarm.
+fn push_self_monitoring_alerts(
+    settings: &WatchSettings,
+    watched: &mut Vec<Watched>,
+) -> Result<(), AlarmError> {
+    for (i, alarm) in settings.alarms.iter().enumerate() {
+        let id = alarm.config.id.clone();
+        watched.push(Watched::build(
+            Class::Alert,
+            alert_config(&format!("chattering:{id}"), 2.5, Direction::High, 1.0),
+            "per min",
+            format!("alarm {id} chattering: 3 or more activations in a minute"),
+            Source::Chatter(i),
+        )?);
+        watched.push(Watched::build(
+            Class::Alert,
+            alert_config(&format!("stale:{id}"), 24.0, Direction::High, 0.0),
+            "h",
+            format!("alarm {id} stale: active for more than 24 h"),
+            Source::Stale(i),
+        )?);
+    }
+    Ok(())
+}
+
 impl ReactorWatch {
     /// Builds the watch; alarm configurations are validated here.
-    pub fn new(s: &WatchSettings) -> Result<Self, AlarmError> {
+    pub fn new(settings: &WatchSettings) -> Result<Self, AlarmError> {
         let mut watched = Vec::new();
-        let mut add = |class, cfg: AlarmConfig, unit, description: String, figure| {
-            Alarm::new(cfg).map(|alarm| {
-                watched.push(Watched {
-                    class,
-                    alarm,
-                    unit,
-                    description,
-                    value: None,
-                    figure,
-                    activations: VecDeque::new(),
-                    active_since_ms: None,
-                })
-            })
-        };
-        for a in &s.alarms {
-            add(
-                Class::Alarm,
-                a.config.clone(),
-                a.unit,
-                a.rationale.clone(),
-                Source::Figure(a.figure, a.scale),
-            )?;
+        push_configured_alarms(settings, &mut watched)?;
+        push_drift_alerts(settings, &mut watched)?;
+        push_condition_alerts(settings, &mut watched)?;
+        if settings.alerts.self_monitoring {
+            push_self_monitoring_alerts(settings, &mut watched)?;
         }
-        let n_alarms = s.alarms.len();
-        let al = &s.alerts;
-        if let Some(rate) = al.trend_above_k_per_day {
-            add(
-                Class::Alert,
-                alert_config("trend", rate, Direction::High, 0.2 * rate.abs()),
-                "K/d",
-                format!("approach rising faster than {} K/d", fmt_num(rate, 3)),
-                Source::Trend,
-            )?;
-        }
-        if let (Some(days), Some(limit)) = (al.end_of_run_within_days, s.drift.end_of_run_limit_k) {
-            add(
-                Class::Alert,
-                alert_config("end-of-run", days, Direction::Low, 0.1 * days),
-                "d",
-                format!(
-                    "end of run ({} K) forecast within {} d",
-                    fmt_num(limit, 3),
-                    fmt_num(days, 3)
-                ),
-                Source::EndOfRun,
-            )?;
-        }
-        if al.cusum {
-            // The standing upward step (K) against the step size; the limit is the
-            // configured step size, or h (5σ by default) once the baseline is known.
-            let limit = s.drift.step_min_k.unwrap_or(f64::MAX);
-            add(
-                Class::Alert,
-                alert_config("cusum", limit, Direction::High, 0.25 * limit.min(1e300)),
-                "K",
-                "approach stepped up against its level before the step (two-sided CUSUM level-shift test, Page 1954)".into(),
-                Source::Cusum,
-            )?;
-        }
-        if let Some(after) = al.data_quality_after_ms {
-            let min = after as f64 / MINUTE_MS as f64;
-            add(
-                Class::Alert,
-                alert_config("data-quality", min, Direction::High, 0.0),
-                "min",
-                format!(
-                    "no good on-line result for more than {} min",
-                    fmt_num(min, 3)
-                ),
-                Source::DataQuality,
-            )?;
-        }
-        if let Some(excess) = al.bed_rise_excess_k {
-            let mut c = alert_config("bed-rise", excess, Direction::High, 0.25 * excess);
-            c.on_delay_samples = 2;
-            c.off_delay_samples = 2;
-            add(
-                Class::Alert,
-                c,
-                "K",
-                format!(
-                    "bed rises more than {} K above what the inlet CO and CO2 explain: carbon oxides breaking through from upstream? check the CO2 removal and the shift converters, and the methanator temperatures",
-                    fmt_num(excess, 3)
-                ),
-                Source::BedRise,
-            )?;
-        }
-        if let Some(limit) = s.offline_below_bar {
-            // One alert per trip and return; it is never suppressed itself.
-            add(
-                Class::Alert,
-                alert_config("off-line", limit, Direction::Low, 0.0),
-                "bar",
-                format!(
-                    "unit off line (pressure below {} bar abs): alerts and alarms suppressed by design, statistics paused",
-                    fmt_num(limit, 3)
-                ),
-                Source::Offline,
-            )?;
-        }
-        if al.self_monitoring {
-            for i in 0..n_alarms {
-                let id = s.alarms[i].config.id.clone();
-                add(
-                    Class::Alert,
-                    alert_config(&format!("chattering:{id}"), 2.5, Direction::High, 1.0),
-                    "per min",
-                    format!("alarm {id} chattering: 3 or more activations in a minute"),
-                    Source::Chatter(i),
-                )?;
-                add(
-                    Class::Alert,
-                    alert_config(&format!("stale:{id}"), 24.0, Direction::High, 0.0),
-                    "h",
-                    format!("alarm {id} stale: active for more than 24 h"),
-                    Source::Stale(i),
-                )?;
-            }
-        }
-        Ok(Self {
+        Ok(Self::fresh(watched))
+    }
+
+    /// A watch over `watched` with no history: learning from the first sample.
+    fn fresh(watched: Vec<Watched>) -> Self {
+        Self {
             watched,
             run_start_ms: None,
             learn_n: 0,
@@ -615,7 +666,7 @@ impl ReactorWatch {
             paused_ms: 0,
             analysis_bad: None,
             excluded: 0,
-        })
+        }
     }
 
     /// Samples left out of the statistics so far.

@@ -12,7 +12,7 @@
 //! - B. J. McBride, M. J. Zehe, S. Gordon, "NASA Glenn coefficients for calculating
 //!   thermodynamic properties of individual species", NASA TP-2002-211556 (2002): NASA 9 form.
 
-use std::collections::HashMap;
+use std::collections::{BTreeMap, HashMap};
 
 use serde::Deserialize;
 use thiserror::Error;
@@ -216,93 +216,27 @@ struct RawCritical {
     source: String,
 }
 
+/// A problem with one key of a species entry: (key, what to fix).
+type Problem = (&'static str, String);
+
 fn validate(raw: RawSpecies, origin: &str) -> Result<Species, SpeciesFileError> {
-    let bad = |key: &str, message: String| SpeciesFileError::Invalid {
+    let invalid = |(key, message): Problem| SpeciesFileError::Invalid {
         origin: origin.to_string(),
         species: raw.name.clone(),
         key: key.to_string(),
         message,
     };
-    if raw.name.trim().is_empty() || raw.name.contains(['=', '+', ',', ' ']) {
-        return Err(bad(
-            "name",
-            "a species name is one word without `=`, `+`, `,`".into(),
-        ));
-    }
-    let mut elements = Vec::new();
-    for (sym, n) in &raw.elements {
-        let Some(idx) = element_index(sym) else {
-            return Err(bad("elements", format!("unknown element `{sym}`")));
-        };
-        if !(n.is_finite() && *n > 0.0) {
-            return Err(bad(
-                "elements",
-                format!("atoms of {sym} must be a positive number"),
-            ));
-        }
-        elements.push((idx, *n));
-    }
-    if elements.is_empty() {
-        return Err(bad("elements", "at least one element is needed".into()));
-    }
+    check_name(&raw.name).map_err(invalid)?;
+    let elements = element_counts(&raw.elements).map_err(invalid)?;
     if !(raw.reference_pressure_bar.is_finite() && raw.reference_pressure_bar > 0.0) {
-        return Err(bad(
+        return Err(invalid((
             "reference_pressure_bar",
             "must be a positive pressure in bar".into(),
-        ));
+        )));
     }
-    let mut ranges: Vec<NasaRange> = match (raw.nasa7.is_empty(), raw.nasa9.is_empty()) {
-        (false, true) => raw
-            .nasa7
-            .iter()
-            .map(|r| NasaRange::from_nasa7(r.t_min_k, r.t_max_k, r.coefficients))
-            .collect(),
-        (true, false) => raw
-            .nasa9
-            .iter()
-            .map(|r| NasaRange {
-                t_min_k: r.t_min_k,
-                t_max_k: r.t_max_k,
-                c: r.coefficients,
-            })
-            .collect(),
-        (true, true) => return Err(bad("nasa7/nasa9", "no polynomial ranges given".into())),
-        (false, false) => {
-            return Err(bad(
-                "nasa7/nasa9",
-                "give nasa7 or nasa9 ranges, not both".into(),
-            ));
-        }
-    };
+    let mut ranges = polynomial_ranges(&raw).map_err(invalid)?;
     ranges.sort_by(|a, b| a.t_min_k.total_cmp(&b.t_min_k));
-    for (i, r) in ranges.iter().enumerate() {
-        if !(r.t_min_k.is_finite()
-            && r.t_max_k.is_finite()
-            && r.t_min_k > 0.0
-            && r.t_max_k > r.t_min_k)
-        {
-            return Err(bad(
-                "t_min_k/t_max_k",
-                format!("range {} is not an increasing interval in K", i + 1),
-            ));
-        }
-        if r.c.iter().any(|c| !c.is_finite()) {
-            return Err(bad(
-                "coefficients",
-                format!("range {} has a non-finite coefficient", i + 1),
-            ));
-        }
-        if i > 0 && (ranges[i - 1].t_max_k - r.t_min_k).abs() > 1e-6 * r.t_min_k {
-            return Err(bad(
-                "t_min_k/t_max_k",
-                format!(
-                    "ranges leave a gap or overlap between {} K and {} K",
-                    ranges[i - 1].t_max_k,
-                    r.t_min_k
-                ),
-            ));
-        }
-    }
+    check_ranges(&ranges).map_err(invalid)?;
     // Standard state: S°(1 bar) = S°(p_ref) + R ln(p_ref / 1 bar) for an ideal gas;
     // H° does not depend on pressure.
     let shift = raw.reference_pressure_bar.ln();
@@ -311,25 +245,7 @@ fn validate(raw: RawSpecies, origin: &str) -> Result<Species, SpeciesFileError> 
     }
     let critical = match raw.critical {
         None => None,
-        Some(c) => {
-            if !(c.tc_k.is_finite()
-                && c.tc_k > 0.0
-                && c.pc_bar.is_finite()
-                && c.pc_bar > 0.0
-                && c.omega.is_finite())
-            {
-                return Err(bad(
-                    "critical",
-                    "tc_k and pc_bar must be positive, omega finite".into(),
-                ));
-            }
-            Some(Critical {
-                tc_k: c.tc_k,
-                pc_bar: c.pc_bar,
-                omega: c.omega,
-                source: c.source,
-            })
-        }
+        Some(c) => Some(critical_constants(c).map_err(invalid)?),
     };
     Ok(Species {
         name: raw.name,
@@ -339,6 +255,113 @@ fn validate(raw: RawSpecies, origin: &str) -> Result<Species, SpeciesFileError> 
         published_reference_pressure_bar: raw.reference_pressure_bar,
         critical,
         origin: origin.to_string(),
+    })
+}
+
+fn check_name(name: &str) -> Result<(), Problem> {
+    if name.trim().is_empty() || name.contains(['=', '+', ',', ' ']) {
+        return Err((
+            "name",
+            "a species name is one word without `=`, `+`, `,`".into(),
+        ));
+    }
+    Ok(())
+}
+
+/// (element index, atoms) per element, in the order given.
+fn element_counts(raw: &BTreeMap<String, f64>) -> Result<Vec<(usize, f64)>, Problem> {
+    let mut elements = Vec::new();
+    for (sym, n) in raw {
+        let Some(idx) = element_index(sym) else {
+            return Err(("elements", format!("unknown element `{sym}`")));
+        };
+        if !(n.is_finite() && *n > 0.0) {
+            return Err((
+                "elements",
+                format!("atoms of {sym} must be a positive number"),
+            ));
+        }
+        elements.push((idx, *n));
+    }
+    if elements.is_empty() {
+        return Err(("elements", "at least one element is needed".into()));
+    }
+    Ok(elements)
+}
+
+/// The NASA 7 or 9 ranges of the entry in the one 9-coefficient layout (not yet sorted).
+fn polynomial_ranges(raw: &RawSpecies) -> Result<Vec<NasaRange>, Problem> {
+    match (raw.nasa7.is_empty(), raw.nasa9.is_empty()) {
+        (false, true) => Ok(raw
+            .nasa7
+            .iter()
+            .map(|r| NasaRange::from_nasa7(r.t_min_k, r.t_max_k, r.coefficients))
+            .collect()),
+        (true, false) => Ok(raw
+            .nasa9
+            .iter()
+            .map(|r| NasaRange {
+                t_min_k: r.t_min_k,
+                t_max_k: r.t_max_k,
+                c: r.coefficients,
+            })
+            .collect()),
+        (true, true) => Err(("nasa7/nasa9", "no polynomial ranges given".into())),
+        (false, false) => Err(("nasa7/nasa9", "give nasa7 or nasa9 ranges, not both".into())),
+    }
+}
+
+/// Sorted ranges: each an increasing interval in K with finite coefficients, and each
+/// starting where the one before ends.
+fn check_ranges(ranges: &[NasaRange]) -> Result<(), Problem> {
+    for (i, r) in ranges.iter().enumerate() {
+        if !(r.t_min_k.is_finite()
+            && r.t_max_k.is_finite()
+            && r.t_min_k > 0.0
+            && r.t_max_k > r.t_min_k)
+        {
+            return Err((
+                "t_min_k/t_max_k",
+                format!("range {} is not an increasing interval in K", i + 1),
+            ));
+        }
+        if r.c.iter().any(|c| !c.is_finite()) {
+            return Err((
+                "coefficients",
+                format!("range {} has a non-finite coefficient", i + 1),
+            ));
+        }
+        if i > 0 && (ranges[i - 1].t_max_k - r.t_min_k).abs() > 1e-6 * r.t_min_k {
+            return Err((
+                "t_min_k/t_max_k",
+                format!(
+                    "ranges leave a gap or overlap between {} K and {} K",
+                    ranges[i - 1].t_max_k,
+                    r.t_min_k
+                ),
+            ));
+        }
+    }
+    Ok(())
+}
+
+fn critical_constants(c: RawCritical) -> Result<Critical, Problem> {
+    if !(c.tc_k.is_finite()
+        && c.tc_k > 0.0
+        && c.pc_bar.is_finite()
+        && c.pc_bar > 0.0
+        && c.omega.is_finite())
+    {
+        return Err((
+            "critical",
+            "tc_k and pc_bar must be positive, omega finite".into(),
+        ));
+    }
+    Ok(Critical {
+        tc_k: c.tc_k,
+        pc_bar: c.pc_bar,
+        omega: c.omega,
+        source: c.source,
     })
 }
 
