@@ -50,8 +50,10 @@ pub fn equilibrium(db: &SpeciesDb, inp: &EquilibriumInput) -> Result<Value, CliE
     let moles = feed_moles(db, &inp.feed, &sys)?;
     let r = sys.solve(db, t, p, &moles);
     if !r.converged {
-        return Err(CliError::Internal(format!(
-            "equilibrium did not converge: {}",
+        // The solver reports why (no reacting species, a state it cannot reach): that is
+        // about the input, not a failure of the program.
+        return Err(CliError::Input(format!(
+            "no equilibrium composition for this feed at {t:.2} K and {p} bar: {}; check --feed, --species and --inert (at least one reacting species with moles), or try a less extreme temperature or pressure",
             r.reason
         )));
     }
@@ -178,4 +180,28 @@ fn composition_keys(out: &mut Map<String, Value>, sys: &EquilibriumSystem, r: &E
         phi.insert(n.clone(), finite(lp.exp()));
     }
     out.insert("fugacity_coefficients".into(), Value::Object(phi));
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_feed_with_nothing_that_reacts_is_bad_input_not_an_internal_error() {
+        // Issue 10 §1, reproduced first: exit 2 "internal error: equilibrium did not
+        // converge: no reacting species present". Invented feed: argon only.
+        let db = SpeciesDb::builtin();
+        let inp = EquilibriumInput {
+            species: "CH4,H2O,CO,CO2,H2".into(),
+            feed: "Ar=1".into(),
+            temperature: "800 degC".into(),
+            pressure: "30 bar".into(),
+            inert: Some("Ar".into()),
+            eos: "ideal".into(),
+            ..EquilibriumInput::default()
+        };
+        let e = equilibrium(&db, &inp).unwrap_err();
+        assert_eq!(e.exit_code(), 1, "{e}");
+        assert!(e.to_string().contains("check --feed"), "{e}");
+    }
 }
