@@ -13,6 +13,7 @@ use super::lane::{Lane, Sink};
 use super::metrics::Metrics;
 use super::plant::Plant;
 use super::route::{Route, decode, routes};
+use super::throttle::Throttle;
 use super::trace::Trace;
 use super::{Append, RawInput};
 use crate::config::Settings;
@@ -26,6 +27,8 @@ pub struct Engine {
     plant: Plant,
     metrics: Arc<Metrics>,
     sink: Sink,
+    /// Rejected-input warnings, one per reactor and reason a minute.
+    throttle: Throttle,
 }
 
 impl Engine {
@@ -40,6 +43,7 @@ impl Engine {
             plant: Plant::new(&settings.topic_prefix, Arc::clone(&metrics)),
             metrics,
             sink: Sink::default(),
+            throttle: Throttle::default(),
             settings,
         })
     }
@@ -158,7 +162,9 @@ impl Engine {
                 Ok(input) => self.accept(r, input, raw.arrival_ms, now_ms, out),
                 Err(e) => {
                     self.metrics.decode_failures[e.reason_index()].fetch_add(1, Relaxed);
-                    warn!(reactor = %self.settings.reactors[r].spec.id, topic = %raw.topic, reason = %e.reason(), error = %e, "input rejected");
+                    if let Some(suppressed) = self.throttle.allow((r, e.reason()), now_ms) {
+                        warn!(reactor = %self.settings.reactors[r].spec.id, topic = %raw.topic, reason = %e.reason(), error = %e, suppressed, "input rejected (suppressed: like rejections not logged in the minute before)");
+                    }
                 }
             }
         }

@@ -10,6 +10,7 @@ use tracing::{debug, info, warn};
 
 use super::Append;
 use super::metrics::Metrics;
+use super::throttle::Throttle;
 use super::trace::{Trace, TraceBaseline, TraceEvent, TracePoint, compact};
 use crate::config::Settings;
 use crate::monitor::alarm::EventKind;
@@ -66,6 +67,8 @@ pub struct Lane {
     pub(super) topics: Topics,
     /// Kept when enabled (replay plots).
     pub trace: Option<Trace>,
+    /// Refused-input warnings, one per reason a minute.
+    throttle: Throttle,
 }
 
 impl Lane {
@@ -95,6 +98,7 @@ impl Lane {
             watch,
             topics,
             trace: None,
+            throttle: Throttle::default(),
         })
     }
 
@@ -117,7 +121,7 @@ impl Lane {
         // A reading from a misset clock touches nothing: not the on/off-line state, not
         // the monitor's ordering (the monitor checks again, for callers without a lane).
         if let Some(ahead_ms) = rs.spec.clock.outside(input.ts_ms(), arrival_ms) {
-            self.off_clock(ahead_ms);
+            self.off_clock(ahead_ms, now_ms);
             return;
         }
         if let Input::Pressure(p) = &input {
@@ -150,18 +154,20 @@ impl Lane {
             }
             Outcome::OutOfOrder { last_ts_ms } => {
                 rm.out_of_order.fetch_add(1, Relaxed);
-                warn!(reactor = %rs.spec.id, last = %crate::timefmt::format_rfc3339(last_ts_ms), "analysis older than the last one refused");
+                if let Some(suppressed) = self.throttle.allow((self.r, "out_of_order"), now_ms) {
+                    warn!(reactor = %rs.spec.id, last = %crate::timefmt::format_rfc3339(last_ts_ms), suppressed, "analysis older than the last one refused");
+                }
             }
             Outcome::TooOld => {
                 rm.too_old.fetch_add(1, Relaxed);
             }
-            Outcome::OffClock { ahead_ms } => self.off_clock(ahead_ms),
+            Outcome::OffClock { ahead_ms } => self.off_clock(ahead_ms, now_ms),
             Outcome::Evaluated(e) => self.evaluated(&e, arrival_ms, now_ms, sink),
         }
     }
 
     /// Counts and logs a reading refused for its timestamp.
-    fn off_clock(&self, ahead_ms: i64) {
+    fn off_clock(&mut self, ahead_ms: i64, now_ms: i64) {
         self.metrics.reactors[self.r]
             .off_clock
             .fetch_add(1, Relaxed);
@@ -170,7 +176,10 @@ impl Lane {
         } else {
             ("behind", ahead_ms.saturating_neg())
         };
-        warn!(reactor = %self.id(), by_s = by / 1000, "reading refused: stamped {way} the daemon's clock by more than the configured window (check the instrument's or gateway's clock)");
+        let Some(suppressed) = self.throttle.allow((self.r, "off_clock"), now_ms) else {
+            return;
+        };
+        warn!(reactor = %self.id(), by_s = by / 1000, suppressed, "reading refused: stamped {way} the daemon's clock by more than the configured window (check the instrument's or gateway's clock)");
     }
 
     /// One evaluation: counted and logged, watched (drift, alerts, alarms), traced for

@@ -20,6 +20,7 @@ mod lane;
 pub(crate) mod metrics;
 mod plant;
 mod route;
+mod throttle;
 pub(crate) mod trace;
 
 pub(crate) use engine::Engine;

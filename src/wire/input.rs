@@ -12,30 +12,43 @@ use crate::monitor::{AnalysisReading, ScalarReading, SourceQuality};
 use crate::timefmt::parse_rfc3339;
 use crate::units::{CompositionUnit, PressureUnit, TemperatureUnit};
 
+/// Text from a message as it goes into an error or a log line: at most
+/// [`ECHO_CHARS`] characters, then how long it really was, so a hostile 200 KB unit
+/// string costs a short line.
+pub(crate) fn echo(text: &str) -> String {
+    match text.char_indices().nth(ECHO_CHARS) {
+        None => text.to_string(),
+        Some((cut, _)) => format!("{}… ({} bytes)", &text[..cut], text.len()),
+    }
+}
+
+/// Characters of input text echoed in messages.
+pub(crate) const ECHO_CHARS: usize = 64;
+
 /// Why a message could not be decoded. `reason()` is the metrics label.
 #[derive(Debug, Clone, PartialEq, Error)]
 pub(crate) enum DecodeError {
     #[error("payload is not UTF-8 text")]
     NotText,
-    #[error("payload `{0}` is not a number")]
+    #[error("payload `{}` is not a number", echo(.0))]
     NotANumber(String),
-    #[error("payload is not JSON: {0}")]
+    #[error("payload is not JSON: {}", echo(.0))]
     NotJson(String),
-    #[error("JSON Pointer {0} finds nothing in the message")]
+    #[error("JSON Pointer {} finds nothing in the message", echo(.0))]
     Missing(String),
-    #[error("JSON Pointer {0} does not point at a number")]
+    #[error("JSON Pointer {} does not point at a number", echo(.0))]
     NotNumeric(String),
-    #[error("value at {0} is not finite")]
+    #[error("value at {} is not finite", echo(.0))]
     NotFinite(String),
-    #[error("timestamp `{0}` is neither RFC 3339 nor epoch milliseconds")]
+    #[error("timestamp `{}` is neither RFC 3339 nor epoch milliseconds", echo(.0))]
     BadTimestamp(String),
-    #[error("unit `{0}` is unknown or of the wrong kind for this input")]
+    #[error("unit `{}` is unknown or of the wrong kind for this input", echo(.0))]
     BadUnit(String),
-    #[error("quality `{0}` is not good, uncertain or bad")]
+    #[error("quality `{}` is not good, uncertain or bad", echo(.0))]
     BadQuality(String),
-    #[error("basis `{0}` is not wet or dry")]
+    #[error("basis `{}` is not wet or dry", echo(.0))]
     BadBasis(String),
-    #[error("{0}")]
+    #[error("{}", echo(.0))]
     NotPhysical(String),
 }
 
@@ -400,5 +413,19 @@ mod tests {
                 .reason(),
             "not_a_number"
         );
+    }
+
+    #[test]
+    fn echoed_input_is_cut_short() {
+        // Issue 10 §1, reproduced first: a 200 KB unit string gave a 200 KB log line.
+        let long = "x".repeat(200_000);
+        let e = DecodeError::BadUnit(long.clone());
+        let text = e.to_string();
+        assert!(text.len() < 200, "{} bytes", text.len());
+        assert!(text.contains("(200000 bytes)"), "{text}");
+        assert_eq!(echo("degC"), "degC");
+        // Multi-byte text is cut on a character boundary.
+        let degrees = "°".repeat(100);
+        assert!(echo(&degrees).starts_with(&"°".repeat(ECHO_CHARS)));
     }
 }
