@@ -347,7 +347,8 @@ impl RowCells {
     /// The row's inputs per worker, in the order the daemon takes them: scalars in
     /// column order, then one analysis per analyser. A scalar whose unit conversion
     /// fails is counted and logged, and left out.
-    fn inputs(&self, plan: &RowPlan<'_>, t: i64, line: usize, sum: &mut Summary) -> Vec<RowItems> {
+    fn inputs(&self, plan: &RowPlan<'_>, t: i64, line: usize) -> HeldRow {
+        let mut readings = 0usize;
         let settings = plan.settings;
         let mut per_worker: Vec<RowItems> = (0..plan.workers).map(|_| Vec::new()).collect();
         let mut order = 0u32;
@@ -363,7 +364,7 @@ impl RowCells {
                 .iter()
                 .find(|(qr, qk, _)| *qr == r && *qk == kind)
                 .map_or(SourceQuality::Good, |x| x.2);
-            sum.readings += 1;
+            readings += 1;
             let value = match convert(v, &unit, None, settings.atmosphere_bar) {
                 Ok(x) => x,
                 Err(e) => {
@@ -390,7 +391,7 @@ impl RowCells {
             if !self.analysis_present[r] {
                 continue;
             }
-            sum.readings += 1;
+            readings += 1;
             let input = Input::Analysis(AnalysisReading {
                 ts_ms: t,
                 values: values.clone(),
@@ -399,7 +400,12 @@ impl RowCells {
             });
             per_worker[plan.assign[r]].push((order, r, input));
         }
-        per_worker
+        HeldRow {
+            line,
+            t,
+            items: per_worker,
+            readings,
+        }
     }
 }
 
@@ -415,9 +421,14 @@ pub(super) fn read_rows(
     let mut raw_line: Vec<u8> = Vec::new();
     let mut bytes = 0u64;
     let mut layout: Option<Layout> = None;
-    let mut last_time: Option<i64> = None;
+    // The last good row, held until the next one shows it in order; the time of the
+    // last row handed on.
+    let mut held: Option<HeldRow> = None;
+    let mut out = Released {
+        pending: Vec::with_capacity(BATCH_ROWS),
+        last_t: None,
+    };
     let mut cells_read = RowCells::default();
-    let mut pending: Vec<(i64, Vec<RowItems>)> = Vec::with_capacity(BATCH_ROWS);
     let mut n = 0usize;
     loop {
         raw_line.clear();
@@ -476,17 +487,9 @@ pub(super) fn read_rows(
                 lay.columns.len()
             ))
         } else {
-            cells_read.read(lay, &cells).and_then(|time| {
-                let t = time.ok_or_else(|| "no time".to_string())?;
-                match last_time {
-                    Some(prev) if t < prev => Err(format!(
-                        "time {} is earlier than the row before ({})",
-                        crate::timefmt::format_rfc3339(t),
-                        crate::timefmt::format_rfc3339(prev)
-                    )),
-                    _ => Ok(t),
-                }
-            })
+            cells_read
+                .read(lay, &cells)
+                .and_then(|time| time.ok_or_else(|| "no time".to_string()))
         };
         let t = match checked {
             Ok(t) => t,
@@ -495,24 +498,87 @@ pub(super) fn read_rows(
                 continue;
             }
         };
-        last_time = Some(t);
-        sum.rows += 1;
-        sum.first_ms.get_or_insert(t);
-        sum.last_ms = Some(t);
-        pending.push((t, cells_read.inputs(plan, t, n, sum)));
-        if pending.len() >= BATCH_ROWS {
-            (hooks.batch)(std::mem::take(&mut pending), sum)?;
-            (hooks.progress)(bytes);
+        // Order: a row earlier than the one before is refused, unless the one before
+        // was the odd one out (ahead of both its neighbours: a clock error), which is
+        // then refused instead, so one far-future row cannot stop every later one.
+        if let Some(prev) = held.take() {
+            if t >= prev.t {
+                out.release(prev, sum, hooks, bytes)?;
+            } else if out.last_t.is_none_or(|r| t >= r) {
+                let message = format!(
+                    "time {} is ahead of the rows around it (line {n} is at {}); left out as a clock error",
+                    crate::timefmt::format_rfc3339(prev.t),
+                    crate::timefmt::format_rfc3339(t)
+                );
+                skip_row(
+                    hooks,
+                    sum,
+                    RowProblem {
+                        line: prev.line,
+                        message,
+                    },
+                );
+            } else {
+                let message = format!(
+                    "time {} is earlier than the row before ({})",
+                    crate::timefmt::format_rfc3339(t),
+                    crate::timefmt::format_rfc3339(prev.t)
+                );
+                held = Some(prev);
+                skip_row(hooks, sum, RowProblem { line: n, message });
+                continue;
+            }
         }
+        held = Some(cells_read.inputs(plan, t, n));
+    }
+    if let Some(last) = held.take() {
+        out.release(last, sum, hooks, bytes)?;
     }
     if layout.is_none() {
         return Err(ReplayError::NoHeader);
     }
-    if !pending.is_empty() {
-        (hooks.batch)(pending, sum)?;
+    if !out.pending.is_empty() {
+        (hooks.batch)(out.pending, sum)?;
     }
     (hooks.progress)(bytes);
     Ok(())
+}
+
+/// A good row's inputs, per worker, waiting for the next row to confirm its order.
+pub(super) struct HeldRow {
+    line: usize,
+    t: i64,
+    items: Vec<RowItems>,
+    readings: usize,
+}
+
+/// Rows handed on: the batch being filled, and the time of the last row in it.
+struct Released {
+    pending: Vec<(i64, Vec<RowItems>)>,
+    last_t: Option<i64>,
+}
+
+impl Released {
+    /// Hands a row on: counted, and batched to the workers in groups of [`BATCH_ROWS`].
+    fn release(
+        &mut self,
+        row: HeldRow,
+        sum: &mut Summary,
+        hooks: &mut RowHooks<'_>,
+        bytes: u64,
+    ) -> Result<(), ReplayError> {
+        self.last_t = Some(row.t);
+        sum.rows += 1;
+        sum.readings += row.readings;
+        sum.first_ms.get_or_insert(row.t);
+        sum.last_ms = Some(row.t);
+        self.pending.push((row.t, row.items));
+        if self.pending.len() >= BATCH_ROWS {
+            (hooks.batch)(std::mem::take(&mut self.pending), sum)?;
+            (hooks.progress)(bytes);
+        }
+        Ok(())
+    }
 }
 
 /// Reports a skipped row and counts it (the first few are kept for the summary).

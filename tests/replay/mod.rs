@@ -266,6 +266,37 @@ fn a_byte_order_mark_and_a_row_that_is_not_utf8_do_not_stop_a_replay() {
 }
 
 #[test]
+fn one_far_future_row_is_left_out_and_the_rows_after_it_replay() {
+    // Issue 10 §1, reproduced first: one row stamped 9999 made every later row
+    // "earlier than the row before", so they were all skipped.
+    let dir = tempfile::tempdir().unwrap();
+    let config = write_config(dir.path(), 1883, 1);
+    let text = csv();
+    let mut lines: Vec<&str> = text.lines().collect();
+    // After the header (line 2) and four data rows: a thermocouple row from 9999.
+    let odd = "9999-12-31T23:59:59Z,220.0,29.0,0.36312,,,,,";
+    lines.insert(6, odd);
+    let input = dir.path().join("future.csv");
+    std::fs::write(&input, lines.join("\n") + "\n").unwrap();
+    let out = dir.path().join("results.jsonl");
+    let (code, stdout, stderr) = replay(&config, &input, &out, None);
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    assert!(
+        stderr.contains(
+            ":7: row skipped: time 9999-12-31T23:59:59.000Z is ahead of the rows around it"
+        ),
+        "{stderr}"
+    );
+    assert!(stdout.contains("1 rows skipped"), "{stdout}");
+    let results = std::fs::read_to_string(&out)
+        .unwrap()
+        .lines()
+        .filter(|l| l.contains("\"eqwatch/test/lts1/result\""))
+        .count();
+    assert_eq!(results, readings().len());
+}
+
+#[test]
 fn a_day_of_demo_history_replays_byte_identically_with_plots() {
     let dir = tempfile::tempdir().unwrap();
     let input = dir.path().join("day.csv");
