@@ -171,7 +171,12 @@ def main():
             if t_eq is None:
                 result["quality"] = "bad"
         info = c.publish(f"{args.out_prefix}/{reactor}/result", json.dumps(result, separators=SEP), qos=1)
-        counts["results" if info.rc == mqtt.MQTT_ERR_SUCCESS else "publish_errors"] += 1
+        if info.rc == mqtt.MQTT_ERR_SUCCESS:
+            counts["results"] += 1
+        else:
+            counts["publish_errors"] += 1
+            if counts["publish_errors"] == 1:
+                print(f"publish refused: {mqtt.error_string(info.rc)}", file=sys.stderr, flush=True)
 
     def on_disconnect(_c, _userdata, _flags, reason, _props):
         print(f"disconnected: {reason}", file=sys.stderr, flush=True)
