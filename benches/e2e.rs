@@ -35,7 +35,8 @@
 //!    it (results per second, CPU per result, p99) are in the table.
 //!
 //! `EQWATCH_E2E_QUICK=1` runs a tenth of the messages (for checking the harness).
-//! `EQWATCH_BIN` overrides the daemon binary. `EQWATCH_E2E_PYTHON` is the Python
+//! `EQWATCH_BIN` overrides the daemon binary; `EQWATCH_E2E_INFLIGHT` its QoS 1 window
+//! (`broker.inflight`, default 64). `EQWATCH_E2E_PYTHON` is the Python
 //! interpreter for (5) (default `.venv-bench/bin/python` when it exists; `0` or an
 //! interpreter that is missing skips (5)); `scripts/bench_e2e.sh` makes that venv.
 
@@ -483,6 +484,11 @@ fn reactor_id(i: usize) -> String {
 }
 
 fn write_config(dir: &Path, broker_port: u16, http_port: u16) -> PathBuf {
+    // The daemon's QoS 1 window (`broker.inflight`); EQWATCH_E2E_INFLIGHT overrides it.
+    let inflight: u16 = std::env::var("EQWATCH_E2E_INFLIGHT")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(64);
     let mut s = format!(
         r#"site = "{SITE}"
 [broker]
@@ -492,7 +498,7 @@ keep_alive = "30 s"
 session_expiry = "0 s"
 reconnect_min = "100 ms"
 reconnect_max = "1 s"
-inflight = 64
+inflight = {inflight}
 max_packet_bytes = 262144
 [journal]
 dir = "journal"
