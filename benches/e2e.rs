@@ -27,8 +27,18 @@
 //! only; every wait is bounded, and the broker and daemon are stopped on the way out.
 //!
 //! Under `cargo test --all-targets` (no `--bench` argument) this does nothing.
+//! 5. beside eqwatch, in the same run and through the same broker, what a user would
+//!    otherwise write: `benches/python/lts_subscriber.py` (paho-mqtt + Cantera, pinned in
+//!    `benches/python/requirements.txt`), which computes the shift's Q, K(T) and
+//!    temperature approach for every analysis and publishes a result with QoS 1. It gets
+//!    the same paced run and firehose after the daemon has stopped; eqwatch's ratios to
+//!    it (results per second, CPU per result, p99) are in the table.
+//!
 //! `EQWATCH_E2E_QUICK=1` runs a tenth of the messages (for checking the harness).
-//! `EQWATCH_BIN` overrides the daemon binary.
+//! `EQWATCH_BIN` overrides the daemon binary; `EQWATCH_E2E_INFLIGHT` its QoS 1 window
+//! (`broker.inflight`, default 64). `EQWATCH_E2E_PYTHON` is the Python
+//! interpreter for (5) (default `.venv-bench/bin/python` when it exists; `0` or an
+//! interpreter that is missing skips (5)); `scripts/bench_e2e.sh` makes that venv.
 
 // The loopback helpers the integration tests use (free ports, mosquitto, HTTP GET).
 #[path = "../tests/support/mod.rs"]
@@ -71,6 +81,7 @@ fn main() {
         firehose: FIREHOSE / scale,
         paced: (PACED_RATE * PACED_SECS) as usize / scale,
         noop_paced: (PACED_RATE * NOOP_PACED_SECS) as usize / scale,
+        python: python_interpreter(),
     };
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
@@ -93,6 +104,32 @@ struct Plan {
     /// Paced messages to the daemon, and to the do-nothing subscriber.
     paced: usize,
     noop_paced: usize,
+    /// The interpreter for the Python subscriber (5), when it runs.
+    python: Option<PathBuf>,
+}
+
+/// `EQWATCH_E2E_PYTHON`, else the bench venv's interpreter when it exists.
+fn python_interpreter() -> Option<PathBuf> {
+    let manifest = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let p = match std::env::var_os("EQWATCH_E2E_PYTHON") {
+        Some(v) if v.is_empty() || v == "0" => return None,
+        Some(v) => PathBuf::from(v),
+        None => manifest.join(".venv-bench/bin/python"),
+    };
+    let runs = Command::new(&p)
+        .args(["-c", "import cantera, paho.mqtt"])
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .status()
+        .is_ok_and(|s| s.success());
+    if !runs {
+        eprintln!(
+            "e2e: {} cannot import cantera and paho.mqtt; the Python subscriber (5) is skipped \
+             (pip install -r benches/python/requirements.txt)",
+            p.display()
+        );
+    }
+    runs.then_some(p)
 }
 
 fn target_dir() -> PathBuf {
@@ -447,6 +484,11 @@ fn reactor_id(i: usize) -> String {
 }
 
 fn write_config(dir: &Path, broker_port: u16, http_port: u16) -> PathBuf {
+    // The daemon's QoS 1 window (`broker.inflight`); EQWATCH_E2E_INFLIGHT overrides it.
+    let inflight: u16 = std::env::var("EQWATCH_E2E_INFLIGHT")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(64);
     let mut s = format!(
         r#"site = "{SITE}"
 [broker]
@@ -456,7 +498,7 @@ keep_alive = "30 s"
 session_expiry = "0 s"
 reconnect_min = "100 ms"
 reconnect_max = "1 s"
-inflight = 64
+inflight = {inflight}
 max_packet_bytes = 262144
 [journal]
 dir = "journal"
@@ -653,7 +695,23 @@ struct Report {
     evaluations: BTreeMap<&'static str, f64>,
     messages_in: f64,
     journal_errors: f64,
+    journal_dropped_unpublished: f64,
     daemon_log_lines: usize,
+    py: Option<PyReport>,
+}
+
+/// The Python subscriber's figures (5).
+#[derive(Default)]
+struct PyReport {
+    received: usize,
+    sent: usize,
+    rate: f64,
+    wall_s: f64,
+    cpu_s: f64,
+    lat_ms: Vec<f64>,
+    lat_sent: usize,
+    hwm_kib: Option<u64>,
+    mismatched: usize,
 }
 
 impl Report {
@@ -737,6 +795,46 @@ impl Report {
             format!("{:.2}", mib(self.paced_hwm_kib)),
             "",
         );
+        if let Some(py) = &self.py {
+            let us = |cpu: f64, n: usize| 1e6 * cpu / n.max(1) as f64;
+            let eq_us = us(self.sus_daemon_cpu_s, self.sus_received);
+            let py_us = us(py.cpu_s, py.received);
+            row(
+                &mut t,
+                "5. Python paho + Cantera (results/s)",
+                format!("{:.0}", py.rate),
+                "(what a user would write)",
+            );
+            row(
+                &mut t,
+                "   eqwatch / Python, results/s",
+                format!("{:.2} x", self.sus_rate / py.rate),
+                "",
+            );
+            row(
+                &mut t,
+                "   CPU per result, eqwatch / Python (us)",
+                format!("{eq_us:.1} / {py_us:.1}"),
+                "",
+            );
+            row(
+                &mut t,
+                &format!("   p99 at {PACED_RATE}/s, eqwatch / Python (ms)"),
+                format!("{:.2} / {:.2}", p(&self.lat_ms, 99.0), p(&py.lat_ms, 99.0)),
+                "",
+            );
+            row(
+                &mut t,
+                "   Python p50 / max (ms); VmHWM (MiB)",
+                format!(
+                    "{:.2} / {:.2}; {:.1}",
+                    p(&py.lat_ms, 50.0),
+                    max(&py.lat_ms),
+                    mib(py.hwm_kib)
+                ),
+                "",
+            );
+        }
         let _ = writeln!(t, "-- details");
         let _ = writeln!(
             t,
@@ -771,16 +869,38 @@ impl Report {
         let q = |k: &str| self.evaluations.get(k).copied().unwrap_or(f64::NAN);
         let _ = writeln!(
             t,
-            "daemon: VmRSS {:.2} MiB at the end; messages received {}; evaluations good {} / uncertain {} / bad {}; journal errors {}; log lines {}; topic/ts mismatches {}",
+            "daemon: VmRSS {:.2} MiB at the end; messages received {}; evaluations good {} / uncertain {} / bad {}; journal errors {}; journal dropped unpublished {}; log lines {}; topic/ts mismatches {}",
             mib(self.vm_rss_kib),
             self.messages_in,
             q("good"),
             q("uncertain"),
             q("bad"),
             self.journal_errors,
+            self.journal_dropped_unpublished,
             self.daemon_log_lines,
             self.mismatched
         );
+        match &self.py {
+            Some(py) => {
+                let _ = writeln!(
+                    t,
+                    "python: paced {} sent, {} matched; firehose {}/{} results in {:.2} s, CPU {:.2} s; topic/ts mismatches {}",
+                    py.lat_sent,
+                    py.lat_ms.len(),
+                    py.received,
+                    py.sent,
+                    py.wall_s,
+                    py.cpu_s,
+                    py.mismatched
+                );
+            }
+            None => {
+                let _ = writeln!(
+                    t,
+                    "python: not run (EQWATCH_E2E_PYTHON, or bash scripts/bench_e2e.sh which makes .venv-bench)"
+                );
+            }
+        }
         t
     }
 }
@@ -795,7 +915,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     let n = plan.firehose;
 
     // 1. Do-nothing subscriber: the firehose, then the paced stream for its latency.
-    eprintln!("e2e: 1/4 do-nothing subscriber, {n} messages");
+    eprintln!("e2e: 1/5 do-nothing subscriber, {n} messages");
     {
         let sub = Subscriber::start(rt, port, &["e2e-noop/#".to_string()], Keep::Nothing);
         sub.wait_subscribed();
@@ -875,7 +995,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     // 3. Latency at a paced rate (first, so that it and its memory peak are those of a
     // daemon at a plant-like load, not one recovering from the firehose).
     let m = plan.paced;
-    eprintln!("e2e: 2/4 eqwatch latency, {m} analyses at {PACED_RATE}/s over {REACTORS} reactors");
+    eprintln!("e2e: 2/5 eqwatch latency, {m} analyses at {PACED_RATE}/s over {REACTORS} reactors");
     let d0 = cpu_seconds(daemon.pid());
     let sent = paced(rt, &client, "e2e", base, 0, m);
     r.lat_sent = sent.len();
@@ -888,7 +1008,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     r.paced_hwm_kib = status_kib(daemon.pid(), "VmHWM");
 
     // 2. Sustained evaluations: the firehose.
-    eprintln!("e2e: 3/4 eqwatch sustained, {n} analyses over {REACTORS} reactors");
+    eprintln!("e2e: 3/5 eqwatch sustained, {n} analyses over {REACTORS} reactors");
     let (d0, b0) = (cpu_seconds(daemon.pid()), cpu_seconds(broker.pid()));
     let start = Instant::now();
     firehose_from(rt, &client, "e2e", base, m, n);
@@ -910,7 +1030,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     r.sus_rate = steady_rate(&got.iter().map(|g| g.at).collect::<Vec<_>>());
 
     // 4. Peak resident set over the run, and the daemon's own counts.
-    eprintln!("e2e: 4/4 daemon memory and counters");
+    eprintln!("e2e: 4/5 daemon memory and counters");
     r.vm_hwm_kib = status_kib(daemon.pid(), "VmHWM");
     r.vm_rss_kib = status_kib(daemon.pid(), "VmRSS");
     let text = support::http_get(http, "/metrics");
@@ -923,10 +1043,116 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     }
     r.messages_in = metric_sum(&text, "eqwatch_messages_received_total", None);
     r.journal_errors = metric_sum(&text, "eqwatch_journal_errors_total", None);
+    r.journal_dropped_unpublished =
+        metric_sum(&text, "eqwatch_journal_dropped_unpublished_total", None);
     let _ = rt.block_on(client.disconnect());
     daemon.stop(Duration::from_secs(15));
     r.daemon_log_lines =
         std::fs::read_to_string(config.with_extension("log")).map_or(0, |s| s.lines().count());
+    drop(results);
+
+    // 5. The hand-written Python subscriber, alone with the broker now.
+    if let Some(python) = &plan.python {
+        r.py = Some(python_run(rt, python, dir.path(), port, plan));
+    }
     broker.stop(Duration::from_secs(5));
     r
+}
+
+/// The same paced run and firehose through `benches/python/lts_subscriber.py`.
+fn python_run(rt: &Runtime, python: &Path, dir: &Path, port: u16, plan: &Plan) -> PyReport {
+    let mut py = PyReport::default();
+    let log = dir.join("python.log");
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("benches/python/lts_subscriber.py");
+    let child = Command::new(python)
+        .arg(&script)
+        .args(["--port", &port.to_string()])
+        .args(["--in-prefix", "e2e-py", "--out-prefix", "eqwatch-py/bench"])
+        .args(["--steam-ratio", "0.36"])
+        .stdout(Stdio::null())
+        .stderr(Stdio::from(
+            std::fs::File::create(&log).expect("python log file"),
+        ))
+        .spawn()
+        .expect("the Python interpreter");
+    let mut proc = Proc { child };
+    let base = now_ms() - 1_000_000;
+    let results = Subscriber::start(
+        rt,
+        port,
+        &[
+            "eqwatch-py/bench/+/result".to_string(),
+            "eqwatch-py/bench/status".to_string(),
+        ],
+        Keep::Results { base_ms: base },
+    );
+    results.wait_subscribed();
+    if !wait_until(Duration::from_secs(30), || {
+        results.inbox.lock().unwrap().online
+    }) {
+        eprintln!(
+            "e2e: the Python subscriber never said online (see {}); skipped",
+            log.display()
+        );
+        return py;
+    }
+    let client = publisher(rt, port);
+    rt.block_on(async {
+        for i in 0..REACTORS {
+            let id = reactor_id(i);
+            let ts = base - 1_000;
+            for (topic, payload) in [
+                (format!("e2e-py/{id}/ti"), scalar(ts, 220.0, "degC")),
+                (format!("e2e-py/{id}/pi"), scalar(ts, 29.0, "barg")),
+            ] {
+                let _ = client
+                    .publish(topic, QoS::AtLeastOnce, false, payload)
+                    .await;
+            }
+        }
+    });
+    let m = plan.paced;
+    eprintln!(
+        "e2e: 5/5 Python subscriber: {m} analyses at {PACED_RATE}/s, then {} as fast as possible",
+        plan.firehose
+    );
+    let sent = paced(rt, &client, "e2e-py", base, 0, m);
+    py.lat_sent = sent.len();
+    wait_until(Duration::from_secs(60), || results.count() >= m);
+    let inbox = results.take();
+    py.mismatched += inbox.mismatched;
+    py.lat_ms = latencies(&inbox.got, &sent, base, 0);
+    let n = plan.firehose;
+    py.sent = n;
+    let c0 = cpu_seconds(proc.pid());
+    let start = Instant::now();
+    firehose_from(rt, &client, "e2e-py", base, m, n);
+    // Until every result is in, or none has come for a while (then the table says how
+    // many arrived).
+    let mut last = (0, Instant::now());
+    wait_until(DRAIN_LIMIT, || {
+        let c = results.count();
+        if c != last.0 {
+            last = (c, Instant::now());
+        }
+        c >= n || last.1.elapsed() > Duration::from_secs(10)
+    });
+    py.cpu_s = cpu_seconds(proc.pid()) - c0;
+    py.hwm_kib = status_kib(proc.pid(), "VmHWM");
+    let inbox = results.take();
+    py.mismatched += inbox.mismatched;
+    let got: Vec<Got> = inbox
+        .got
+        .into_iter()
+        .filter(|g| g.analysis_ts.is_some_and(|ts| ts >= base + m as i64))
+        .collect();
+    py.received = got.len();
+    py.wall_s = got
+        .last()
+        .map_or(f64::NAN, |g| g.at.duration_since(start).as_secs_f64());
+    py.rate = steady_rate(&got.iter().map(|g| g.at).collect::<Vec<_>>());
+    let _ = rt.block_on(client.disconnect());
+    proc.stop(Duration::from_secs(5));
+    let _ = std::fs::copy(&log, target_dir().join("e2e-python.log"));
+    py
 }

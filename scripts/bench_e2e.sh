@@ -8,6 +8,12 @@
 # Needs mosquitto (Debian package `mosquitto`). EQWATCH_E2E_QUICK=1 runs a tenth of
 # the messages. Keep the machine otherwise idle: the broker, the daemon and the
 # harness share its CPUs.
+#
+# The Python subscriber beside eqwatch (benches/python/lts_subscriber.py: paho-mqtt and
+# Cantera, pinned in benches/python/requirements.txt) runs from a venv, .venv-bench,
+# made here when missing (needs python3 with venv and network access to PyPI once).
+# EQWATCH_E2E_PYTHON=/path/to/python uses another interpreter; EQWATCH_E2E_PYTHON=0
+# leaves the Python subscriber out.
 set -euo pipefail
 
 cd "$(dirname "$0")/.."
@@ -15,6 +21,23 @@ cd "$(dirname "$0")/.."
 if ! command -v mosquitto >/dev/null 2>&1 && [ ! -x /usr/sbin/mosquitto ]; then
     echo "mosquitto is not installed (apt-get install mosquitto)" >&2
     exit 1
+fi
+
+venv=.venv-bench
+if [ -z "${EQWATCH_E2E_PYTHON+x}" ]; then
+    if ! "$venv/bin/python" -c 'import cantera, paho.mqtt' >/dev/null 2>&1; then
+        echo "== python venv $venv (benches/python/requirements.txt)" >&2
+        if python3 -m venv "$venv" && "$venv/bin/pip" install -q -r benches/python/requirements.txt; then
+            :
+        else
+            echo "could not make $venv; the Python subscriber is left out" >&2
+            export EQWATCH_E2E_PYTHON=0
+        fi
+    fi
+    if [ -z "${EQWATCH_E2E_PYTHON+x}" ]; then
+        EQWATCH_E2E_PYTHON=$(pwd)/$venv/bin/python
+        export EQWATCH_E2E_PYTHON
+    fi
 fi
 
 target=${CARGO_TARGET_DIR:-target}

@@ -46,7 +46,10 @@ pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: Cancell
                 ("GET", "/metrics") => ("200 OK", "text/plain; version=0.0.4", metrics.render()),
                 ("GET", "/healthz") => ("200 OK", "text/plain", "ok\n".to_string()),
                 ("GET", "/readyz") => {
-                    if metrics.ready.load(Relaxed) && metrics.connected.load(Relaxed) {
+                    if metrics.ready.load(Relaxed)
+                        && metrics.connected.load(Relaxed)
+                        && metrics.input_connected.load(Relaxed)
+                    {
                         ("200 OK", "text/plain", "ready\n".to_string())
                     } else {
                         (

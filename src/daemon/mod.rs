@@ -4,13 +4,18 @@
 //!
 //! Tasks and threads:
 //! ```text
-//! broker ─► link task (mqtt.rs: owns the EventLoop) ──raw input──► evaluator task
-//!              ▲                                                   (decode, monitor, encode)
-//!              │ records (journaled)                                     │ results
-//!              └──────────────── journal thread (journal.rs, std I/O) ◄──┘
+//! broker ─► input link task (mqtt.rs) ──raw input──► evaluator task
+//!                                                   (decode, monitor, encode)
+//! broker ◄─ result link task (mqtt.rs)                     │ results
+//!              ▲ records (journaled)                       ▼
+//!              └──────────── journal thread (journal.rs, std I/O)
 //! ```
-//! A result is in the journal before the link sees it; the link publishes with QoS 1 and
-//! tells the journal what the broker acknowledged, so a restart resends the rest.
+//! A result is in the journal before the result link sees it; the link publishes with
+//! QoS 1 and tells the journal what the broker acknowledged, so a restart resends the
+//! rest. While the result connection is up and [`UNACKED_MAX`] results wait for the
+//! broker's acknowledgement, the evaluator takes no input (the input link then stops
+//! reading and the broker holds the messages): a flood is evaluated at the pace results
+//! are published, so none is lost to the journal's size cap and memory stays bounded.
 
 pub mod http;
 pub mod journal;
@@ -49,8 +54,16 @@ pub fn wall_clock() -> Clock {
     Arc::new(now_ms)
 }
 
-/// Requests waiting for the journal thread at most (each holds one result).
-const JOURNAL_QUEUE: usize = 64;
+/// Requests waiting for the journal thread at most (each holds one evaluator batch).
+const JOURNAL_QUEUE: usize = 8;
+/// Journaled results not yet acknowledged by the broker at which the evaluator stops
+/// taking input while the result connection is up (well inside the link's in-memory
+/// outbox, so a flood needs no read-back from disk) ...
+pub const UNACKED_MAX: u64 = 512;
+/// ... and at or below which it takes input again (the gap keeps its batches large).
+pub const UNACKED_RESUME: u64 = UNACKED_MAX / 2;
+/// Inputs waiting for the evaluator at most.
+const INPUT_QUEUE: usize = 256;
 /// Inputs the evaluator takes per wake-up at most.
 const EVALUATOR_BATCH: usize = 64;
 /// Batches of journal records (each at most one evaluator batch) waiting for the link
@@ -107,6 +120,8 @@ async fn evaluate_loop(
     journal: mpsc::Sender<JournalCmd>,
     clock: Clock,
     saved: Option<String>,
+    metrics: Arc<Metrics>,
+    acked: Arc<tokio::sync::Notify>,
 ) {
     if let Some(text) = saved {
         match state::apply(&mut engine, &text) {
@@ -131,9 +146,20 @@ async fn evaluate_loop(
     let mut tick = tokio::time::interval(Duration::from_secs(1));
     tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
     let mut ticks: u64 = 0;
+    let mut hold = false;
     loop {
+        // Wait for the broker while too much is unacknowledged (only while the result
+        // connection is up: with the broker away, what came in is still evaluated and
+        // journaled).
+        let backlog = metrics.backlog();
+        hold = metrics.connected.load(Relaxed)
+            && if hold {
+                backlog > UNACKED_RESUME
+            } else {
+                backlog >= UNACKED_MAX
+            };
         tokio::select! {
-            first = rx.recv() => {
+            first = rx.recv(), if !hold => {
                 let Some(first) = first else { break };
                 // Take what is already queued (up to a bound) and journal it in one
                 // hand-over: fewer thread wake-ups under load, no waiting when idle.
@@ -156,6 +182,7 @@ async fn evaluate_loop(
                     let _ = journal.try_send(JournalCmd::SaveState(state::encode(&engine, clock())));
                 }
             }
+            _ = acked.notified(), if hold => {}
         }
         if !batch.is_empty()
             && journal
@@ -339,15 +366,18 @@ pub async fn run(
         &status_topic,
         &status("offline", "connection lost"),
     )?;
+    let in_opts = mqtt::input_options(&settings.broker)?;
     let engine = crate::pipeline::Engine::new(settings.clone(), metrics.clone())
         .map_err(DaemonError::Journal)?;
     let topics = engine.subscriptions();
-    let cap = usize::from(settings.broker.inflight) + topics.len() + 64;
+    let cap = usize::from(settings.broker.inflight) + 64;
     let (client, mut eventloop) = rumqttc::AsyncClient::new(opts, cap);
-    // Results are small and latency matters: no Nagle delay on our connection.
+    let (in_client, mut in_eventloop) = rumqttc::AsyncClient::new(in_opts, topics.len() + 64);
+    // Results are small and latency matters: no Nagle delay on our connections.
     let mut net = rumqttc::NetworkOptions::new();
     net.set_tcp_nodelay(true);
-    eventloop.set_network_options(net);
+    eventloop.set_network_options(net.clone());
+    in_eventloop.set_network_options(net);
 
     // Bounded: when the disk is slower than the evaluator, the evaluator waits, the input
     // queue fills, the link stops reading and TCP pushes back on the broker, instead of
@@ -370,36 +400,51 @@ pub async fn run(
         .name("eqwatch-journal".into())
         .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock, state_path))
         .map_err(|e| DaemonError::Journal(e.to_string()))?;
-    let (in_tx, in_rx) = mpsc::channel::<RawInput>(4096);
+    let (in_tx, in_rx) = mpsc::channel::<RawInput>(INPUT_QUEUE);
+    let acked = Arc::new(tokio::sync::Notify::new());
     let evaluator = tokio::spawn(evaluate_loop(
         engine,
         in_rx,
         jtx.clone(),
         clock.clone(),
         saved,
+        metrics.clone(),
+        acked.clone(),
     ));
     metrics.ready.store(true, Relaxed);
-    let link = mqtt::Link {
+    let input = mqtt::InputLink {
         broker: settings.broker.clone(),
         topics,
+        clock: clock.clone(),
+    };
+    let input = tokio::spawn(input.run(
+        in_client,
+        in_eventloop,
+        in_tx,
+        metrics.clone(),
+        shutdown.clone(),
+    ));
+    let link = mqtt::Link {
+        broker: settings.broker.clone(),
         status_topic,
         online_payload: status("online", "running"),
         offline_payload: status("offline", "shutdown"),
         published_at_start,
         journal_last_at_start: last_at_start,
         clock,
+        acked,
     };
     link.run(
         client,
         eventloop,
         from_journal,
         jtx,
-        in_tx,
         metrics.clone(),
         shutdown,
         Duration::from_secs(10),
     )
     .await;
+    let _ = input.await;
     let _ = evaluator.await;
     http_cancel.cancel();
     // The link dropped its journal sender; the evaluator dropped its own: the thread ends.

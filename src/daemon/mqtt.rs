@@ -1,13 +1,25 @@
-//! The broker link: one task owns the rumqttc `EventLoop`, polls it, and hands journal
-//! records to the client from the [`Outbox`] with `try_publish` (never an awaiting
-//! publish from the polling task, which could deadlock on a full request channel; the
-//! request channel is sized above the in-flight window so `try_publish` does not fail).
+//! The broker links: two connections to the same broker, each owned by one task.
+//!
+//! - The **input** link ([`InputLink`], client id as configured) subscribes and hands
+//!   messages to the evaluator. It polls its `EventLoop` only while the evaluator's queue
+//!   has room, so a busy evaluator pushes back through TCP onto the broker, which keeps
+//!   the messages (QoS 1) instead of this process holding them.
+//! - The **result** link ([`Link`], client id [`output_client_id`]) publishes journal
+//!   records from the [`Outbox`] with `try_publish` (never an awaiting publish from the
+//!   polling task, which could deadlock on a full request channel; the request channel
+//!   is sized above the in-flight window so `try_publish` does not fail), tracks the
+//!   acknowledgements, and carries the status: `online` (retained) on every connection,
+//!   `offline` as last will and explicitly on clean shutdown. It never waits on the
+//!   evaluator, so acknowledgements keep flowing while input is held back.
+//!
+//! One connection for both would tie them together: it could not stop reading input
+//! without also stopping reading the acknowledgements that let results drain, so a
+//! flood had to be evaluated as fast as it came and its results spilled to the journal
+//! (and past its size cap) while publishing lagged.
 //!
 //! Connection handling is ours: exponential backoff with jitter between attempts (the
 //! client would otherwise retry in a tight loop), reset only after a connection has
-//! stayed up; subscriptions renewed on every ConnAck (with or without a session); the
-//! `online` status (retained) on every connection, with `offline` as last will and an
-//! explicit `offline` on clean shutdown.
+//! stayed up; subscriptions renewed on every ConnAck (with or without a session).
 
 use std::sync::Arc;
 use std::sync::atomic::Ordering::Relaxed;
@@ -22,10 +34,11 @@ use tokio_util::sync::CancellationToken;
 use tracing::{debug, info, warn};
 
 use super::outbox::{Offer, Outbox};
-use super::{Clock, JournalCmd, RawInput, ToLink, now_ms};
+use super::{Clock, JournalCmd, RawInput, ToLink, UNACKED_RESUME, now_ms};
 use crate::config::{BrokerSettings, MqttProtocol};
 use crate::pipeline::metrics::Metrics;
 use crate::wire::result::with_delivery;
+use tokio::sync::Notify;
 
 /// A connection that stayed up this long resets the backoff.
 const STABLE: Duration = Duration::from_secs(10);
@@ -40,22 +53,34 @@ pub enum LinkError {
     Options(String),
 }
 
-/// Builds client options from validated settings (every value was checked by the
-/// configuration, so no setter here can panic).
+/// The result link's client id: the configured one with `-o` and, where that would pass
+/// the 23 bytes MQTT 3.1.1 brokers must accept (spec 3.1.3.1), a shortened id with a
+/// 4-digit hash of the whole one (so two long ids that share a start do not collide).
+pub fn output_client_id(client_id: &str) -> String {
+    const MAX: usize = 23;
+    if client_id.len() + 2 <= MAX {
+        return format!("{client_id}-o");
+    }
+    // FNV-1a, 16 bits folded: only to tell long ids apart, no security need.
+    let mut h: u32 = 0x811c_9dc5;
+    for b in client_id.bytes() {
+        h = (h ^ u32::from(b)).wrapping_mul(0x0100_0193);
+    }
+    let tag = format!("-o{:04x}", (h ^ (h >> 16)) & 0xffff);
+    let mut cut = MAX - tag.len();
+    while !client_id.is_char_boundary(cut) {
+        cut -= 1;
+    }
+    format!("{}{tag}", &client_id[..cut])
+}
+
+/// Client options of the result link (status as last will); see [`input_options`].
 pub fn options(
     b: &BrokerSettings,
     status_topic: &str,
     will: &str,
 ) -> Result<MqttOptions, LinkError> {
-    if b.protocol == MqttProtocol::V5 {
-        return Err(LinkError::Options(
-            "MQTT 5 is accepted in the configuration but this build speaks MQTT 3.1.1 only; set broker.protocol = \"3.1.1\"".into(),
-        ));
-    }
-    let mut o = MqttOptions::new(b.client_id.clone(), b.host.clone(), b.port);
-    o.set_keep_alive(b.keep_alive);
-    o.set_clean_session(b.session_expiry.is_zero());
-    o.set_max_packet_size(b.max_packet_bytes, b.max_packet_bytes);
+    let mut o = base_options(b, output_client_id(&b.client_id))?;
     o.set_inflight(b.inflight);
     o.set_last_will(LastWill::new(
         status_topic,
@@ -63,6 +88,28 @@ pub fn options(
         QoS::AtLeastOnce,
         true,
     ));
+    Ok(o)
+}
+
+/// Client options of the input link: the configured client id, so a broker session
+/// (`session_expiry` > 0) keeps the subscriptions and queues input while the daemon is
+/// away.
+pub fn input_options(b: &BrokerSettings) -> Result<MqttOptions, LinkError> {
+    base_options(b, b.client_id.clone())
+}
+
+/// Options both links share, from validated settings (every value was checked by the
+/// configuration, so no setter here can panic).
+fn base_options(b: &BrokerSettings, client_id: String) -> Result<MqttOptions, LinkError> {
+    if b.protocol == MqttProtocol::V5 {
+        return Err(LinkError::Options(
+            "MQTT 5 is accepted in the configuration but this build speaks MQTT 3.1.1 only; set broker.protocol = \"3.1.1\"".into(),
+        ));
+    }
+    let mut o = MqttOptions::new(client_id, b.host.clone(), b.port);
+    o.set_keep_alive(b.keep_alive);
+    o.set_clean_session(b.session_expiry.is_zero());
+    o.set_max_packet_size(b.max_packet_bytes, b.max_packet_bytes);
     if let Some(u) = &b.username {
         o.set_credentials(u.clone(), b.password.clone().unwrap_or_default());
     }
@@ -113,21 +160,88 @@ impl Jitter {
     }
 }
 
+/// Connection state and reconnect backoff of one link.
+struct Connection {
+    /// `results` or `input`, for the log.
+    what: &'static str,
+    broker: String,
+    min: Duration,
+    max: Duration,
+    since: Option<Instant>,
+    ever: bool,
+    failures: u32,
+    jitter: Jitter,
+}
+
+impl Connection {
+    fn new(what: &'static str, b: &BrokerSettings) -> Self {
+        Self {
+            what,
+            broker: format!("{}:{}", b.host, b.port),
+            min: b.reconnect_min,
+            max: b.reconnect_max,
+            since: None,
+            ever: false,
+            failures: 0,
+            jitter: Jitter((now_ms() as u64).wrapping_add(what.len() as u64) | 1),
+        }
+    }
+
+    fn up(&mut self, session_present: bool) {
+        self.since = Some(Instant::now());
+        self.ever = true;
+        info!(
+            session_present,
+            "connected to broker {} ({} connection)", self.broker, self.what
+        );
+    }
+
+    /// The connection failed or could not be made: logs it and returns the delay before
+    /// the next attempt ("equal jitter": half fixed, half random, growing exponentially).
+    fn lost(&mut self, e: &rumqttc::ConnectionError) -> Duration {
+        let was_up = self.since.take();
+        if was_up.is_some_and(|t| t.elapsed() >= STABLE) {
+            self.failures = 0;
+        }
+        self.failures = self.failures.saturating_add(1);
+        let base = self.min.as_secs_f64() * 2f64.powi(self.failures.min(30) as i32 - 1);
+        let cap = base.min(self.max.as_secs_f64());
+        let delay = Duration::from_secs_f64(cap * (0.5 + 0.5 * self.jitter.next_unit()));
+        let retry = format!("{:.1} s", delay.as_secs_f64());
+        let (what, broker, attempt) = (self.what, &self.broker, self.failures);
+        match was_up {
+            Some(t) => {
+                warn!(error = %e, retry_in = %retry, "{what} connection to broker {broker} lost after {}", up_for(t.elapsed()))
+            }
+            None if self.ever => {
+                warn!(error = %e, retry_in = %retry, attempt, "could not reconnect the {what} connection to broker {broker}")
+            }
+            None => {
+                warn!(error = %e, retry_in = %retry, attempt, "could not connect to broker {broker} ({what} connection, never connected since start)")
+            }
+        }
+        delay
+    }
+}
+
+/// The result link (see the module docs).
 pub struct Link {
     pub broker: BrokerSettings,
-    pub topics: Vec<String>,
     pub status_topic: String,
     pub online_payload: String,
     pub offline_payload: String,
     pub published_at_start: u64,
     pub journal_last_at_start: u64,
     pub clock: Clock,
+    /// Woken whenever the acknowledged watermark moves (the evaluator waits on it when
+    /// too many results are unacknowledged).
+    pub acked: Arc<Notify>,
 }
 
 impl Link {
-    /// Runs until shutdown: `stop_input` stops taking input; the link then delivers
-    /// everything the journal still sends (until [`ToLink::Drained`]), says `offline`
-    /// and disconnects. `deadline` bounds the flush after `stop_input`.
+    /// Runs until shutdown: after `stop_input` the link delivers everything the journal
+    /// still sends (until [`ToLink::Drained`]), says `offline` and disconnects.
+    /// `flush_deadline` bounds the flush after `stop_input`.
     #[allow(clippy::too_many_arguments)]
     pub async fn run(
         self,
@@ -135,7 +249,6 @@ impl Link {
         mut eventloop: EventLoop,
         mut from_journal: mpsc::Receiver<ToLink>,
         journal: mpsc::Sender<JournalCmd>,
-        input: mpsc::Sender<RawInput>,
         metrics: Arc<Metrics>,
         stop_input: CancellationToken,
         flush_deadline: Duration,
@@ -143,13 +256,8 @@ impl Link {
         let window = usize::from(self.broker.inflight.max(1));
         let mut outbox = Outbox::new(self.published_at_start, OUTBOX_CAPACITY);
         outbox.journal_at(self.journal_last_at_start);
-        let mut input = Some(input);
         let mut drained = false;
-        let mut connected_since: Option<Instant> = None;
-        let mut ever_connected = false;
-        let mut failures: u32 = 0;
-        let broker = format!("{}:{}", self.broker.host, self.broker.port);
-        let mut jitter = Jitter(now_ms() as u64 | 1);
+        let mut conn = Connection::new("results", &self.broker);
         let mut stop_at: Option<Instant> = None;
         let mut tick = tokio::time::interval(Duration::from_millis(500));
         loop {
@@ -165,7 +273,7 @@ impl Link {
                 }
             }
             // Hand records over while connected and the window allows.
-            if connected_since.is_some() {
+            if conn.since.is_some() {
                 while let Some(r) = outbox.next(window) {
                     let late = r.replayed || (self.clock)() - r.ts_ms > LATE_MS;
                     let body = with_delivery(&r.payload, r.seq, late);
@@ -184,7 +292,6 @@ impl Link {
                 .store(outbox.watermark(), Relaxed);
             if stop_input.is_cancelled() && stop_at.is_none() {
                 stop_at = Some(Instant::now() + flush_deadline);
-                input = None; // the evaluator finishes what it has, then the journal says Drained
                 info!("shutdown: input stopped, delivering what is journaled");
             }
             if let Some(at) = stop_at {
@@ -200,74 +307,38 @@ impl Link {
                 }
             }
             tokio::select! {
-                // Poll only while the evaluator can take a message: the link never waits on
-                // the evaluator (which may wait on the journal, which may wait on the link).
-                ev = eventloop.poll(), if input.as_ref().is_none_or(|t| t.capacity() > 0) => match ev {
+                ev = eventloop.poll() => match ev {
                     Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
                         metrics.connected.store(true, Relaxed);
-                        connected_since = Some(Instant::now());
-                        ever_connected = true;
-                        info!(session_present = ack.session_present, "connected to broker {broker}");
+                        conn.up(ack.session_present);
                         if !ack.session_present {
                             outbox.on_new_session();
-                        }
-                        // Subscribe on every connection: a broker may claim a session it
-                        // does not have (or lost), and subscribing again is harmless
-                        // (retained repeats are refused as duplicates by the monitor).
-                        for t in &self.topics {
-                            if let Err(e) = client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
-                                warn!(topic = %t, error = %e, "subscribe request not queued");
-                            }
                         }
                         if client.try_publish(self.status_topic.clone(), QoS::AtLeastOnce, true, self.online_payload.clone()).is_ok() {
                             outbox.handed_untracked();
                         }
-                    }
-                    Ok(Event::Incoming(Incoming::Publish(p))) => {
-                        metrics.messages_in.fetch_add(1, Relaxed);
-                        if let Some(tx) = &input {
-                            let raw = RawInput { topic: p.topic.clone(), payload: p.payload.to_vec(), arrival_ms: (self.clock)() };
-                            match tx.try_send(raw) {
-                                Ok(()) => {}
-                                Err(mpsc::error::TrySendError::Closed(_)) => input = None,
-                                // Not reached: polling waits for capacity and this task is the only sender.
-                                Err(mpsc::error::TrySendError::Full(_)) => warn!("input queue full; message dropped"),
-                            }
-                        }
+                        // The evaluator may wait for room that a new connection makes.
+                        self.acked.notify_one();
                     }
                     Ok(Event::Incoming(Incoming::PubAck(a))) => {
                         if let Some(w) = outbox.on_ack(a.pkid) {
                             metrics.published.store(w.saturating_sub(self.published_at_start), Relaxed);
+                            metrics.journal_published_seq.store(w, Relaxed);
+                            if metrics.backlog() <= UNACKED_RESUME {
+                                self.acked.notify_one();
+                            }
                             // A later acknowledgement carries a higher watermark, so a
                             // busy journal may skip this one.
                             let _ = journal.try_send(JournalCmd::Published { seq: w, force: false });
                         }
                     }
-                    Ok(Event::Incoming(Incoming::SubAck(s))) => {
-                        if s.return_codes.iter().any(|c| matches!(c, rumqttc::SubscribeReasonCode::Failure)) {
-                            warn!("the broker refused a subscription (check its ACL)");
-                        }
-                    }
                     Ok(Event::Outgoing(Out::Publish(pkid))) => outbox.on_outgoing(pkid),
                     Ok(_) => {}
                     Err(e) => {
-                        let was_up = connected_since.take();
                         metrics.connected.store(false, Relaxed);
                         metrics.reconnects.fetch_add(1, Relaxed);
-                        if was_up.is_some_and(|t| t.elapsed() >= STABLE) {
-                            failures = 0;
-                        }
-                        failures = failures.saturating_add(1);
-                        let base = self.broker.reconnect_min.as_secs_f64() * 2f64.powi(failures.min(30) as i32 - 1);
-                        let cap = base.min(self.broker.reconnect_max.as_secs_f64());
-                        // "Equal jitter": half fixed, half random.
-                        let delay = Duration::from_secs_f64(cap * (0.5 + 0.5 * jitter.next_unit()));
-                        let retry = format!("{:.1} s", delay.as_secs_f64());
-                        match was_up {
-                            Some(t) => warn!(error = %e, retry_in = %retry, "connection to broker {broker} lost after {}", up_for(t.elapsed())),
-                            None if ever_connected => warn!(error = %e, retry_in = %retry, attempt = failures, "could not reconnect to broker {broker}"),
-                            None => warn!(error = %e, retry_in = %retry, attempt = failures, "could not connect to broker {broker} (never connected since start)"),
-                        }
+                        self.acked.notify_one();
+                        let delay = conn.lost(&e);
                         let sleep_until = stop_at.map_or(delay, |at| delay.min(at.saturating_duration_since(Instant::now())));
                         tokio::select! {
                             _ = tokio::time::sleep(sleep_until) => {}
@@ -301,7 +372,7 @@ impl Link {
             })
             .await;
         // Say offline (retained) and wait briefly for its acknowledgement, then disconnect.
-        if connected_since.is_some() {
+        if conn.since.is_some() {
             let offline = client.try_publish(
                 self.status_topic.clone(),
                 QoS::AtLeastOnce,
@@ -318,16 +389,122 @@ impl Link {
                     }
                 }
             }
-            let _ = client.try_disconnect();
-            let until = Instant::now() + Duration::from_secs(1);
-            while Instant::now() < until {
-                match tokio::time::timeout(Duration::from_millis(200), eventloop.poll()).await {
-                    Ok(Ok(Event::Outgoing(Out::Disconnect))) | Ok(Err(_)) => break,
-                    _ => {}
-                }
-            }
+            disconnect(&client, &mut eventloop).await;
         }
         metrics.connected.store(false, Relaxed);
         drop(client);
+    }
+}
+
+/// Asks for a clean disconnect and polls briefly until it is written.
+async fn disconnect(client: &AsyncClient, eventloop: &mut EventLoop) {
+    let _ = client.try_disconnect();
+    let until = Instant::now() + Duration::from_secs(1);
+    while Instant::now() < until {
+        match tokio::time::timeout(Duration::from_millis(200), eventloop.poll()).await {
+            Ok(Ok(Event::Outgoing(Out::Disconnect))) | Ok(Err(_)) => break,
+            _ => {}
+        }
+    }
+}
+
+/// The input link (see the module docs).
+pub struct InputLink {
+    pub broker: BrokerSettings,
+    pub topics: Vec<String>,
+    pub clock: Clock,
+}
+
+impl InputLink {
+    /// Subscribes on every connection and hands messages to `input` until `stop_input`;
+    /// then drops `input` (the evaluator finishes what it has) and disconnects.
+    pub async fn run(
+        self,
+        client: AsyncClient,
+        mut eventloop: EventLoop,
+        input: mpsc::Sender<RawInput>,
+        metrics: Arc<Metrics>,
+        stop_input: CancellationToken,
+    ) {
+        let mut conn = Connection::new("input", &self.broker);
+        loop {
+            tokio::select! {
+                // Poll only while the evaluator can take a message: otherwise the messages
+                // wait at the broker (TCP pushes back), not in this process.
+                ev = eventloop.poll(), if input.capacity() > 0 => match ev {
+                    Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
+                        metrics.input_connected.store(true, Relaxed);
+                        conn.up(ack.session_present);
+                        // Subscribe on every connection: a broker may claim a session it
+                        // does not have (or lost), and subscribing again is harmless
+                        // (retained repeats are refused as duplicates by the monitor).
+                        for t in &self.topics {
+                            if let Err(e) = client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
+                                warn!(topic = %t, error = %e, "subscribe request not queued");
+                            }
+                        }
+                    }
+                    Ok(Event::Incoming(Incoming::Publish(p))) => {
+                        metrics.messages_in.fetch_add(1, Relaxed);
+                        let raw = RawInput { topic: p.topic, payload: p.payload.to_vec(), arrival_ms: (self.clock)() };
+                        match input.try_send(raw) {
+                            Ok(()) => {}
+                            // The evaluator is gone (shutdown).
+                            Err(mpsc::error::TrySendError::Closed(_)) => break,
+                            // Not reached: polling waits for capacity and this task is the only sender.
+                            Err(mpsc::error::TrySendError::Full(_)) => warn!("input queue full; message dropped"),
+                        }
+                    }
+                    Ok(Event::Incoming(Incoming::SubAck(s))) => {
+                        if s.return_codes.iter().any(|c| matches!(c, rumqttc::SubscribeReasonCode::Failure)) {
+                            warn!("the broker refused a subscription (check its ACL)");
+                        }
+                    }
+                    Ok(_) => {}
+                    Err(e) => {
+                        metrics.input_connected.store(false, Relaxed);
+                        metrics.input_reconnects.fetch_add(1, Relaxed);
+                        let delay = conn.lost(&e);
+                        tokio::select! {
+                            _ = tokio::time::sleep(delay) => {}
+                            _ = stop_input.cancelled() => break,
+                        }
+                    }
+                },
+                // Woken when the evaluator has made room (the permit goes back at once).
+                permit = input.reserve(), if input.capacity() == 0 => {
+                    if permit.is_err() {
+                        break; // the evaluator is gone (shutdown)
+                    }
+                }
+                _ = stop_input.cancelled() => break,
+            }
+        }
+        // The evaluator finishes what it has, then the journal says Drained to the
+        // result link.
+        drop(input);
+        if conn.since.is_some() {
+            disconnect(&client, &mut eventloop).await;
+        }
+        metrics.input_connected.store(false, Relaxed);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::output_client_id;
+
+    #[test]
+    fn output_client_ids_stay_within_23_bytes_and_apart() {
+        // MQTT 3.1.1 spec 3.1.3.1: servers must accept 1 to 23 bytes.
+        assert_eq!(output_client_id("eqwatch-baw1"), "eqwatch-baw1-o");
+        let a = output_client_id("eqwatch-brackwater-tr1");
+        let b = output_client_id("eqwatch-brackwater-tr2");
+        assert!(a.len() <= 23 && b.len() <= 23, "{a} {b}");
+        assert_ne!(a, b);
+        assert_ne!(a, "eqwatch-brackwater-tr1");
+        // Multi-byte characters are cut at a character boundary.
+        let c = output_client_id("eqwatch-ééééééééééé");
+        assert!(c.len() <= 23, "{c}");
     }
 }

@@ -37,8 +37,12 @@ pub struct Metrics {
     pub decode_failures: [AtomicU64; DecodeError::REASONS.len()],
     pub published: AtomicU64,
     pub publish_failures: AtomicU64,
+    /// Losses of the result connection (which carries the status).
     pub reconnects: AtomicU64,
     pub connected: AtomicBool,
+    /// The input connection (subscriptions): losses and state.
+    pub input_reconnects: AtomicU64,
+    pub input_connected: AtomicBool,
     pub ready: AtomicBool,
     pub journal_last_seq: AtomicU64,
     pub journal_published_seq: AtomicU64,
@@ -110,8 +114,13 @@ impl Metrics {
         );
         counter(
             "reconnects_total",
-            "Broker connection losses.",
+            "Losses of the result connection to the broker.",
             self.reconnects.load(Relaxed),
+        );
+        counter(
+            "input_reconnects_total",
+            "Losses of the input connection to the broker.",
+            self.input_reconnects.load(Relaxed),
         );
         counter(
             "journal_dropped_total",
@@ -266,8 +275,8 @@ impl Metrics {
         );
         gauge(
             "broker_connected",
-            "1 while connected to the broker.",
-            u64::from(self.connected.load(Relaxed)),
+            "1 while both connections to the broker (results and input) are up.",
+            u64::from(self.connected.load(Relaxed) && self.input_connected.load(Relaxed)),
         );
         gauge(
             "journal_backlog_records",
