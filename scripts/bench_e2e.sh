@@ -45,7 +45,7 @@ log_dir=$target/bench-logs
 mkdir -p "$log_dir"
 log=$log_dir/e2e.txt
 
-echo "== cargo build --release" >&2
+echo "== cargo build --release (the bench reuses it: same profile)" >&2
 cargo build --release
 
 echo "== cargo bench --bench e2e (log: $log)" >&2
