@@ -11,11 +11,10 @@ use super::markers::{MarkerStyle, draw_markers, shown_markers};
 use super::model::{MarkerKind, PlotPoint, ReactorPlot, TimeZone};
 use super::prepare::sorted_points;
 use super::series::{GroupAttrs, Px, drawable, envelope, gap_spans, line_path, offline_group};
-use super::style::{
-    C_APPROACH, C_GAP, C_LIMIT, C_MUTED, C_OFFLINE, C_TEXT, DASH_LIMIT, LEFT, RIGHT, WIDTH,
-};
+use super::style::{C_APPROACH, C_GAP, C_LIMIT, C_MUTED, C_TEXT, DASH_LIMIT, LEFT, RIGHT, WIDTH};
 use super::svg::{
-    Area, Esc, N, clip_rect, dash_attr, draw_frame, draw_message, fmt_sig, sane_t, usable,
+    Area, Esc, N, clip_rect, close_defs_and_title, dash_attr, draw_frame, draw_message, fmt_sig,
+    sane_t, usable,
 };
 
 /// Small multiples, times in UTC: see [`overview_svg_tz`].
@@ -68,24 +67,7 @@ pub fn overview_svg_tz(plots: &[ReactorPlot], title: &str, tz: TimeZone) -> Stri
     for i in 0..n {
         clip_rect(&mut out, &format!("clip-panel-{}", i + 1), panel_area(i));
     }
-    w!(
-        out,
-        "<pattern id=\"hatch-offline\" width=\"6\" height=\"6\" patternUnits=\"userSpaceOnUse\" \
-         patternTransform=\"rotate(45)\"><rect width=\"6\" height=\"6\" fill=\"{C_OFFLINE}\" fill-opacity=\"0.12\"/>\
-         <line x1=\"0\" y1=\"0\" x2=\"0\" y2=\"6\" stroke=\"{C_OFFLINE}\" stroke-width=\"1.6\" stroke-opacity=\"0.45\"/></pattern>"
-    );
-    out.push_str("</defs>");
-    w!(
-        out,
-        "<rect width=\"{}\" height=\"{}\" fill=\"#fff\"/>",
-        WIDTH,
-        height
-    );
-    w!(
-        out,
-        "<text class=\"title\" x=\"16\" y=\"24\" font-size=\"16\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
-        Esc(title)
-    );
+    close_defs_and_title(&mut out, height, title);
 
     let (mut t0, mut t1) = (None::<i64>, None::<i64>);
     for q in sorted.iter().flatten() {

@@ -14,10 +14,11 @@ use super::markers::{
 use super::model::{Marker, ReactorPlot, TimeZone};
 use super::prepare::{Domain, Prepared, clip_projection};
 use super::style::{
-    C_EQUILIBRIUM, C_MEASURED, C_MUTED, C_OFFLINE, C_TEXT, DASH_EQUILIBRIUM, HEIGHT, LEFT, RIGHT,
-    WIDTH,
+    C_EQUILIBRIUM, C_MEASURED, C_MUTED, C_TEXT, DASH_EQUILIBRIUM, HEIGHT, LEFT, RIGHT, WIDTH,
 };
-use super::svg::{Area, Esc, N, clip_rect, draw_frame, draw_message, text_width};
+use super::svg::{
+    Area, Esc, N, clip_rect, close_defs_and_title, draw_frame, draw_message, text_width,
+};
 
 /// One SVG document for one reactor, times in UTC: see [`reactor_svg_tz`].
 pub fn reactor_svg(plot: &ReactorPlot) -> String {
@@ -186,24 +187,7 @@ fn open_document(out: &mut String, data: &Prepared, layout: &Layout) {
     out.push_str("<defs>");
     clip_rect(out, "clip-approach", top);
     clip_rect(out, "clip-key", bottom);
-    w!(
-        out,
-        "<pattern id=\"hatch-offline\" width=\"6\" height=\"6\" patternUnits=\"userSpaceOnUse\" \
-         patternTransform=\"rotate(45)\"><rect width=\"6\" height=\"6\" fill=\"{C_OFFLINE}\" fill-opacity=\"0.12\"/>\
-         <line x1=\"0\" y1=\"0\" x2=\"0\" y2=\"6\" stroke=\"{C_OFFLINE}\" stroke-width=\"1.6\" stroke-opacity=\"0.45\"/></pattern>"
-    );
-    out.push_str("</defs>");
-    w!(
-        out,
-        "<rect width=\"{}\" height=\"{}\" fill=\"#fff\"/>",
-        WIDTH,
-        height
-    );
-    w!(
-        out,
-        "<text class=\"title\" x=\"16\" y=\"24\" font-size=\"16\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
-        Esc(title)
-    );
+    close_defs_and_title(out, height, title);
     w!(
         out,
         "<text class=\"chart-title\" x=\"{}\" y=\"{}\" font-size=\"13\" font-weight=\"bold\" fill=\"{C_TEXT}\">Approach to equilibrium</text>",

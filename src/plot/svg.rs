@@ -4,7 +4,7 @@
 
 use std::fmt::{self, Write as _};
 
-use super::style::{C_FRAME, C_MUTED};
+use super::style::{C_FRAME, C_MUTED, C_OFFLINE, C_TEXT, WIDTH};
 
 /// Earliest plotted instant, 0001-01-01T00:00:00Z (checked with Python's datetime module).
 const T_LO: i64 = -62_135_596_800_000;
@@ -193,6 +193,29 @@ pub(super) fn draw_message(out: &mut String, a: Area, text: &str) {
         N(a.mid_x()),
         N(a.mid_y()),
         Esc(text)
+    );
+}
+
+/// Ends the `<defs>` of a chart with the off-line hatch pattern, then the white page
+/// and the title (the reactor chart and the overview open the same way).
+pub(super) fn close_defs_and_title(out: &mut String, height: f64, title: &str) {
+    w!(
+        out,
+        "<pattern id=\"hatch-offline\" width=\"6\" height=\"6\" patternUnits=\"userSpaceOnUse\" \
+         patternTransform=\"rotate(45)\"><rect width=\"6\" height=\"6\" fill=\"{C_OFFLINE}\" fill-opacity=\"0.12\"/>\
+         <line x1=\"0\" y1=\"0\" x2=\"0\" y2=\"6\" stroke=\"{C_OFFLINE}\" stroke-width=\"1.6\" stroke-opacity=\"0.45\"/></pattern>"
+    );
+    out.push_str("</defs>");
+    w!(
+        out,
+        "<rect width=\"{}\" height=\"{}\" fill=\"#fff\"/>",
+        WIDTH,
+        height
+    );
+    w!(
+        out,
+        "<text class=\"title\" x=\"16\" y=\"24\" font-size=\"16\" font-weight=\"bold\" fill=\"{C_TEXT}\">{}</text>",
+        Esc(title)
     );
 }
 

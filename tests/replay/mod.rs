@@ -172,6 +172,15 @@ fn replay_gives_what_the_daemon_publishes_over_mqtt() {
     assert!(replayed[n - 1]["drift"]["trend_k_per_day"].is_number());
 }
 
+/// Results of the test plant's LTS in a replay's output file.
+fn lts_results(out: &Path) -> usize {
+    std::fs::read_to_string(out)
+        .unwrap()
+        .lines()
+        .filter(|l| l.contains("\"eqwatch/test/lts1/result\""))
+        .count()
+}
+
 #[test]
 fn malformed_rows_are_reported_with_their_line_and_skipped() {
     let dir = tempfile::tempdir().unwrap();
@@ -212,12 +221,7 @@ fn malformed_rows_are_reported_with_their_line_and_skipped() {
     );
     assert!(stdout.contains("3 rows skipped"), "{stdout}");
     // The good rows still gave every result.
-    let results = std::fs::read_to_string(&out)
-        .unwrap()
-        .lines()
-        .filter(|l| l.contains("\"eqwatch/test/lts1/result\""))
-        .count();
-    assert_eq!(results, readings().len());
+    assert_eq!(lts_results(&out), readings().len());
 
     // An unknown column stops the replay before it starts, naming the column.
     std::fs::write(&input, "time,TI-3,TI-9\n").unwrap();
@@ -257,12 +261,7 @@ fn a_byte_order_mark_and_a_row_that_is_not_utf8_do_not_stop_a_replay() {
         "{stderr}"
     );
     assert!(stdout.contains("1 rows skipped"), "{stdout}");
-    let results = std::fs::read_to_string(&out)
-        .unwrap()
-        .lines()
-        .filter(|l| l.contains("\"eqwatch/test/lts1/result\""))
-        .count();
-    assert_eq!(results, readings().len());
+    assert_eq!(lts_results(&out), readings().len());
 }
 
 #[test]
@@ -288,12 +287,7 @@ fn one_far_future_row_is_left_out_and_the_rows_after_it_replay() {
         "{stderr}"
     );
     assert!(stdout.contains("1 rows skipped"), "{stdout}");
-    let results = std::fs::read_to_string(&out)
-        .unwrap()
-        .lines()
-        .filter(|l| l.contains("\"eqwatch/test/lts1/result\""))
-        .count();
-    assert_eq!(results, readings().len());
+    assert_eq!(lts_results(&out), readings().len());
 }
 
 #[test]
