@@ -24,6 +24,16 @@ pub(crate) struct RawConfig {
     #[serde(default)]
     pub reactors: BTreeMap<Spanned<String>, RawReactor>,
     pub commands: Option<RawCommands>,
+    /// How far a reading's timestamp may be from the daemon's clock.
+    pub timestamps: Option<RawTimestamps>,
+}
+
+/// `[timestamps]`: `max_ahead` and `max_behind` of the daemon's clock, as durations.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawTimestamps {
+    pub max_ahead: Option<String>,
+    pub max_behind: Option<String>,
 }
 
 #[derive(Debug, Clone, Deserialize)]

@@ -16,10 +16,11 @@ use crate::config::EnvLookup;
 use crate::config::duration::{parse_duration, show_duration};
 use crate::config::error::{ConfigErrors, Problems, is_name_char, unit_message};
 use crate::config::files::species_db;
-use crate::config::raw::{RawConfig, RawReactor};
+use crate::config::raw::{RawConfig, RawReactor, RawTimestamps};
 use crate::config::settings::Settings;
 use crate::config::validate::broker::{broker, journal};
 use crate::config::validate::reactor::{ReactorEnv, reactor};
+use crate::monitor::spec::ClockWindow;
 use crate::units::{PressureUnit, STANDARD_ATMOSPHERE_BAR, split_quantity};
 
 pub(crate) fn validate(
@@ -96,6 +97,7 @@ pub(crate) fn validate(
         db: &species,
         output_prefix: &topic_prefix,
         atmosphere_bar,
+        clock: timestamps(&mut problems, raw.timestamps.as_ref()),
     };
     let mut reactors = Vec::with_capacity(ids.len());
     for (id, r) in ids {
@@ -118,6 +120,39 @@ pub(crate) fn validate(
         species,
         reactors,
     })
+}
+
+/// `[timestamps]`: the window around the daemon's clock a reading's timestamp must fall
+/// in; the defaults are [`ClockWindow::default`] (5 min ahead, 7 d behind).
+fn timestamps(problems: &mut Problems, raw: Option<&RawTimestamps>) -> ClockWindow {
+    let default = ClockWindow::default();
+    let Some(raw) = raw else {
+        return default;
+    };
+    let max_ahead = duration_at(
+        problems,
+        "timestamps.max_ahead",
+        raw.max_ahead.as_deref(),
+        DurationRule {
+            default: Some(default.max_ahead),
+            min: Duration::from_secs(1),
+            why_min: "clocks are never closer than that",
+        },
+    );
+    let max_behind = duration_at(
+        problems,
+        "timestamps.max_behind",
+        raw.max_behind.as_deref(),
+        DurationRule {
+            default: Some(default.max_behind),
+            min: Duration::from_secs(60),
+            why_min: "a broker delivering what it held after a short outage is that late",
+        },
+    );
+    ClockWindow {
+        max_ahead,
+        max_behind,
+    }
 }
 
 pub(crate) fn atmosphere(problems: &mut Problems, text: &str) -> f64 {
@@ -213,6 +248,30 @@ mod tests {
     //! Check values: see `test_support` (the demo plant's own data, else invented).
 
     use crate::config::test_support::{assert_problems, broken, check, refused, with_broker};
+
+    #[test]
+    fn the_timestamp_window_is_read_from_its_section_or_defaulted() {
+        use std::time::Duration;
+        let demo = include_str!("../../../config/demo-plant.toml");
+        let s = check(demo).expect("demo");
+        // Defaults: 5 min ahead, 7 d behind (ClockWindow::default).
+        assert!(
+            s.reactors
+                .iter()
+                .all(|r| r.spec.clock.max_ahead == Duration::from_secs(300)
+                    && r.spec.clock.max_behind == Duration::from_secs(7 * 86_400))
+        );
+        let text = format!("{demo}\n[timestamps]\nmax_ahead = \"1 min\"\nmax_behind = \"2 d\"\n");
+        let s = check(&text).expect("with a window");
+        assert!(
+            s.reactors
+                .iter()
+                .all(|r| r.spec.clock.max_ahead == Duration::from_secs(60)
+                    && r.spec.clock.max_behind == Duration::from_secs(2 * 86_400))
+        );
+        let e = refused(&format!("{demo}\n[timestamps]\nmax_ahead = \"0 s\"\n"));
+        assert!(e.to_string().contains("timestamps.max_ahead"), "{e}");
+    }
 
     #[test]
     fn broken_no_reactors() {

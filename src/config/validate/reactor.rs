@@ -127,6 +127,8 @@ pub(crate) struct ReactorEnv<'a> {
     pub(crate) db: &'a SpeciesDb,
     pub(crate) output_prefix: &'a str,
     pub(crate) atmosphere_bar: f64,
+    /// The plant-wide `[timestamps]` window.
+    pub(crate) clock: crate::monitor::spec::ClockWindow,
 }
 
 /// The reactions of one reactor with their K sources; `ok` when every one was understood.
@@ -248,7 +250,7 @@ pub(crate) fn reactor(
             watch,
             reaction_labels,
             bed_rise,
-            clock: crate::monitor::spec::ClockWindow::default(),
+            clock: env.clock,
         },
         wiring: Wiring {
             composition: composition_source,
