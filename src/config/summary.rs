@@ -71,12 +71,19 @@ fn show_scalar(s: &InputSpec, source: &ScalarSource) -> String {
         ScalarUnit::Pressure(p) => pressure_unit_label(p),
         ScalarUnit::Ratio => "mol H2O/mol dry gas".to_string(),
     };
+    let internal = match s.unit {
+        ScalarUnit::Temperature(_) => "K",
+        ScalarUnit::Pressure(_) => "bar abs",
+        ScalarUnit::Ratio => "mol/mol",
+    };
     format!(
-        "{} on {} ({unit}, {}), stale after {}",
+        "{} on {} ({unit}, {}), stale after {}, plausible {} to {} {internal}",
         s.tag,
         source.topic,
         show_decoder(&source.decoder),
-        show_duration(s.max_age)
+        show_duration(s.max_age),
+        show_number(s.plausible.min),
+        show_number(s.plausible.max)
     )
 }
 
