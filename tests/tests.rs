@@ -9,3 +9,4 @@ mod daemon;
 mod demo;
 mod monitor;
 mod replay;
+mod tls;

@@ -114,26 +114,83 @@ fn base_options(b: &BrokerSettings, client_id: String) -> Result<MqttOptions, Li
         o.set_credentials(u.clone(), b.password.clone().unwrap_or_default());
     }
     if b.tls {
-        let read = |p: &std::path::Path| {
-            std::fs::read(p).map_err(|e| LinkError::Options(format!("{}: {e}", p.display())))
-        };
-        let transport = match &b.ca_file {
-            Some(ca) => {
-                let client_auth = match (&b.client_cert_file, &b.client_key_file) {
-                    (Some(c), Some(k)) => Some((read(c)?, read(k)?)),
-                    _ => None,
-                };
-                Transport::tls_with_config(TlsConfiguration::Simple {
-                    ca: read(ca)?,
-                    alpn: None,
-                    client_auth,
-                })
-            }
-            None => Transport::tls_with_default_config(),
-        };
-        o.set_transport(transport);
+        let config = tls_config(b)?;
+        o.set_transport(Transport::tls_with_config(TlsConfiguration::Rustls(
+            Arc::new(config),
+        )));
     }
     Ok(o)
+}
+
+/// A PEM file that could not be read, named with what it was for.
+fn pem_problem<'a>(
+    path: &'a std::path::Path,
+    what: &'a str,
+) -> impl Fn(rustls::pki_types::pem::Error) -> LinkError + 'a {
+    move |e| LinkError::Options(format!("{}: {what}: {e}", path.display()))
+}
+
+/// The TLS client configuration on the ring provider: the CA file's certificates (or the
+/// platform's when none is given), and the client certificate and key when configured.
+/// Every failure names the file and what is wrong with it.
+fn tls_config(b: &BrokerSettings) -> Result<rustls::ClientConfig, LinkError> {
+    use rustls::pki_types::pem::PemObject;
+    use rustls::pki_types::{CertificateDer, PrivateKeyDer};
+    let mut roots = rustls::RootCertStore::empty();
+    match &b.ca_file {
+        Some(ca) => {
+            let certs = CertificateDer::pem_file_iter(ca)
+                .map_err(pem_problem(ca, "CA file"))?
+                .collect::<Result<Vec<_>, _>>()
+                .map_err(pem_problem(ca, "CA file"))?;
+            if certs.is_empty() {
+                return Err(LinkError::Options(format!(
+                    "{}: CA file holds no PEM certificate",
+                    ca.display()
+                )));
+            }
+            for cert in certs {
+                roots.add(cert).map_err(|e| {
+                    LinkError::Options(format!("{}: CA certificate refused: {e}", ca.display()))
+                })?;
+            }
+        }
+        None => {
+            let found = rustls_native_certs::load_native_certs();
+            for cert in found.certs {
+                // A platform certificate rustls cannot use is left out, as a browser would.
+                let _ = roots.add(cert);
+            }
+            if roots.is_empty() {
+                return Err(LinkError::Options(
+                    "mqtts:// without broker.ca_file and no usable platform CA certificates; set broker.ca_file".into(),
+                ));
+            }
+        }
+    }
+    let provider = Arc::new(rustls::crypto::ring::default_provider());
+    let builder = rustls::ClientConfig::builder_with_provider(provider)
+        .with_safe_default_protocol_versions()
+        .map_err(|e| LinkError::Options(format!("TLS: {e}")))?
+        .with_root_certificates(roots);
+    match (&b.client_cert_file, &b.client_key_file) {
+        (Some(cert), Some(key)) => {
+            let chain = CertificateDer::pem_file_iter(cert)
+                .map_err(pem_problem(cert, "client certificate"))?
+                .collect::<Result<Vec<_>, _>>()
+                .map_err(pem_problem(cert, "client certificate"))?;
+            let key_der =
+                PrivateKeyDer::from_pem_file(key).map_err(pem_problem(key, "client key"))?;
+            builder.with_client_auth_cert(chain, key_der).map_err(|e| {
+                LinkError::Options(format!(
+                    "{} and {}: client certificate and key refused: {e}",
+                    cert.display(),
+                    key.display()
+                ))
+            })
+        }
+        _ => Ok(builder.with_no_client_auth()),
+    }
 }
 
 /// How long a connection stayed up, for the log: `42 s`, `3.5 min`, `2.0 h`.

@@ -13,6 +13,9 @@ fn write_config(dir: &Path, port: u16, http_port: u16, extra_broker: &str) -> Pa
     let text = format!(
         r#"
 site = "test"
+# The test readings carry fixed timestamps (2026-12-01): keep them inside the clock window.
+[timestamps]
+max_behind = "36500 d"
 [broker]
 url = "mqtt://127.0.0.1:{port}"
 client_id = "eqwatch-test-{http_port}"
