@@ -95,7 +95,22 @@ pub fn options(
 /// (`session_expiry` > 0) keeps the subscriptions and queues input while the daemon is
 /// away.
 pub fn input_options(b: &BrokerSettings) -> Result<MqttOptions, LinkError> {
-    base_options(b, b.client_id.clone())
+    let mut o = base_options(b, b.client_id.clone())?;
+    // A message over the configured limit must cost one counted refusal, never the
+    // link: rumqttc drops the connection on a packet over its incoming limit, and a
+    // retained or persistent-session message would then come back on every
+    // reconnect. So the input link reads up to a larger ceiling and the link refuses
+    // the payload itself (`InputLink::run`).
+    o.set_max_packet_size(input_read_ceiling(b.max_packet_bytes), b.max_packet_bytes);
+    Ok(o)
+}
+
+/// The largest packet the input link reads: 16 times the configured limit, at least
+/// 16 MiB, at most MQTT's largest packet (268,435,455 bytes, MQTT 3.1.1 §2.2.3).
+/// Messages beyond it still drop the connection: a broker's `message_size_limit` at
+/// the configured limit (deploy/mosquitto-site.conf) keeps them away.
+pub fn input_read_ceiling(limit: usize) -> usize {
+    limit.saturating_mul(16).clamp(16 << 20, 268_435_455)
 }
 
 /// Options both links share, from validated settings (every value was checked by the
@@ -499,6 +514,15 @@ impl InputLink {
                             if let Err(e) = client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
                                 warn!(topic = %t, error = %e, "subscribe request not queued");
                             }
+                        }
+                    }
+                    Ok(Event::Incoming(Incoming::Publish(p))) if p.payload.len() > self.broker.max_packet_bytes => {
+                        metrics.messages_in.fetch_add(1, Relaxed);
+                        let n = metrics.oversized.fetch_add(1, Relaxed) + 1;
+                        // One line for the first and then every 100th: a retained
+                        // oversized message comes back on every reconnect.
+                        if n == 1 || n % 100 == 0 {
+                            warn!(topic = %crate::wire::input::echo(&p.topic), bytes = p.payload.len(), limit = self.broker.max_packet_bytes, refused_so_far = n, "input message over broker.max_packet_bytes refused");
                         }
                     }
                     Ok(Event::Incoming(Incoming::Publish(p))) => {

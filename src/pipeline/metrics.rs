@@ -34,6 +34,8 @@ pub struct ReactorMetrics {
 pub struct Metrics {
     pub messages_in: AtomicU64,
     pub unrouted: AtomicU64,
+    /// Input messages over `broker.max_packet_bytes`, refused by the input link.
+    pub oversized: AtomicU64,
     pub decode_failures: [AtomicU64; DecodeError::REASONS.len()],
     pub published: AtomicU64,
     pub publish_failures: AtomicU64,
@@ -101,6 +103,11 @@ impl Metrics {
             "messages_unrouted_total",
             "Messages on topics no input uses.",
             self.unrouted.load(Relaxed),
+        );
+        counter(
+            "messages_oversized_total",
+            "Input messages over broker.max_packet_bytes, refused (the link stays up).",
+            self.oversized.load(Relaxed),
         );
         counter(
             "results_published_total",

@@ -672,3 +672,54 @@ basis = "dry""#,
     );
     assert!(String::from_utf8_lossy(&out.stdout).contains("lts1"));
 }
+
+#[test]
+fn an_input_message_over_the_packet_limit_is_refused_and_the_link_stays_up() {
+    // Issue 10 §1, reproduced first: one message over the packet limit on an input
+    // topic dropped the connection, and the session redelivered it on every reconnect.
+    let rt = runtime();
+    let broker = Mosquitto::start();
+    let dir = tempfile::tempdir().unwrap();
+    let http = free_port();
+    let config = write_lts_plant(dir.path(), broker.port, http, "big", "");
+    let text = std::fs::read_to_string(&config).unwrap().replacen(
+        "keep_alive = \"5 s\"",
+        "keep_alive = \"5 s\"\nmax_packet_bytes = 65536",
+        1,
+    );
+    std::fs::write(&config, text).unwrap();
+    let got = collector(&rt, broker.port, &["eqwatch/test/#"]);
+    let d = Daemon::start(&config, http);
+    assert!(wait_for(&got, Duration::from_secs(10), |m| m.iter().any(
+        |(t, pl, _)| t == "eqwatch/test/status" && pl.contains("online")
+    )));
+    let p = Publisher::new(&rt, broker.port);
+    // 1 MiB of padding on the analyser topic (invented).
+    p.publish(
+        &rt,
+        "t/lts1/ai",
+        &format!(r#"{{"pad":"{}"}}"#, "x".repeat(1 << 20)),
+    );
+    // docs/domain.md §8 LTS gas at 220 °C, 29 barg, steam ratio 0.36312, after it.
+    let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
+    p.publish(&rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
+    p.publish(&rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));
+    p.publish(&rt, "t/lts1/fy", &s(ts(0) - 60_000, 0.36312, "mol/mol"));
+    p.publish(
+        &rt,
+        "t/lts1/ai",
+        &analysis(
+            ts(0),
+            "\"H2\":61.0536,\"N2\":18.98637,\"CO\":0.28697,\"CO2\":19.38096,\"CH4\":0.2921",
+            "mol%",
+        ),
+    );
+    assert!(
+        wait_for(&got, Duration::from_secs(10), |m| m
+            .iter()
+            .any(|(t, _, _)| t == "eqwatch/test/lts1/result")),
+        "no result after the oversized message"
+    );
+    assert_eq!(d.metric("eqwatch_messages_oversized_total"), 1.0);
+    assert_eq!(d.metric("eqwatch_input_reconnects_total"), 0.0);
+}
