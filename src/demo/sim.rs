@@ -118,7 +118,7 @@ const MTH_BREAKTHROUGH_RISE_K: f64 = 23.0;
 /// Puts the methanator's kinetic CO/CO2 slip into `y` (reported components' truth, in
 /// `reported` order), scaled to the dry gas of the other components.
 fn apply_methanator_slip(
-    reported: &[(usize, &'static str, Unit)],
+    reported: &[(usize, &'static str, ReportedUnit)],
     y: &mut [f64],
     slip: (f64, f64),
 ) {
@@ -159,22 +159,22 @@ enum Profile {
 }
 
 #[derive(Debug, Clone, Copy, PartialEq)]
-enum Unit {
+enum ReportedUnit {
     Percent,
     Ppm,
 }
 
-impl Unit {
+impl ReportedUnit {
     fn label(self) -> &'static str {
         match self {
-            Unit::Percent => "mol%",
-            Unit::Ppm => "ppm",
+            ReportedUnit::Percent => "mol%",
+            ReportedUnit::Ppm => "ppm",
         }
     }
     fn per_fraction(self) -> f64 {
         match self {
-            Unit::Percent => 1e2,
-            Unit::Ppm => 1e6,
+            ReportedUnit::Percent => 1e2,
+            ReportedUnit::Ppm => 1e6,
         }
     }
 }
@@ -198,7 +198,7 @@ struct Reactor {
     p_barg: f64,
     basis: Basis,
     /// Reported components: (position in `species`, name, unit).
-    reported: Vec<(usize, &'static str, Unit)>,
+    reported: Vec<(usize, &'static str, ReportedUnit)>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -784,8 +784,8 @@ impl Plant {
                 .map(|((_, _, unit), y)| {
                     let v = y / sum * unit.per_fraction();
                     match unit {
-                        Unit::Percent => fixed(v, 4),
-                        Unit::Ppm => significant(v),
+                        ReportedUnit::Percent => fixed(v, 4),
+                        ReportedUnit::Ppm => significant(v),
                     }
                 })
                 .collect(),
@@ -793,8 +793,8 @@ impl Plant {
     }
 }
 
-/// Fixed description of one reactor, turned into a [`Reactor`] by [`ReactorSpec::build`].
-struct ReactorSpec {
+/// Fixed description of one reactor, turned into a [`Reactor`] by [`DemoReactor::build`].
+struct DemoReactor {
     id: &'static str,
     reactions: &'static [(&'static str, KSourceId)],
     profiles: &'static [Profile],
@@ -804,13 +804,13 @@ struct ReactorSpec {
     p_barg: f64,
     basis: Basis,
     target_steam_ratio: Option<f64>,
-    reported: &'static [(&'static str, Unit)],
+    reported: &'static [(&'static str, ReportedUnit)],
 }
 
 /// The demo plant's reactors. Feeds are per 100 mol of dry gas (water separately);
 /// all invented.
-const REACTORS: [ReactorSpec; 5] = [
-    ReactorSpec {
+const REACTORS: [DemoReactor; 5] = [
+    DemoReactor {
         id: "ref1",
         reactions: &[
             ("CH4 + H2O = CO + 3 H2", KSourceId::XuFroment1989),
@@ -836,13 +836,13 @@ const REACTORS: [ReactorSpec; 5] = [
         basis: Basis::Dry,
         target_steam_ratio: None,
         reported: &[
-            ("CH4", Unit::Percent),
-            ("CO", Unit::Percent),
-            ("CO2", Unit::Percent),
-            ("H2", Unit::Percent),
+            ("CH4", ReportedUnit::Percent),
+            ("CO", ReportedUnit::Percent),
+            ("CO2", ReportedUnit::Percent),
+            ("H2", ReportedUnit::Percent),
         ],
     },
-    ReactorSpec {
+    DemoReactor {
         id: "hts1",
         reactions: &[("CO + H2O = CO2 + H2", KSourceId::XuFroment1989)],
         profiles: &[Profile::Constant(8.0)],
@@ -861,15 +861,15 @@ const REACTORS: [ReactorSpec; 5] = [
         basis: Basis::Dry,
         target_steam_ratio: Some(0.48),
         reported: &[
-            ("H2", Unit::Percent),
-            ("N2", Unit::Percent),
-            ("CO", Unit::Percent),
-            ("CO2", Unit::Percent),
-            ("CH4", Unit::Percent),
-            ("Ar", Unit::Percent),
+            ("H2", ReportedUnit::Percent),
+            ("N2", ReportedUnit::Percent),
+            ("CO", ReportedUnit::Percent),
+            ("CO2", ReportedUnit::Percent),
+            ("CH4", ReportedUnit::Percent),
+            ("Ar", ReportedUnit::Percent),
         ],
     },
-    ReactorSpec {
+    DemoReactor {
         id: "lts1",
         reactions: &[("CO + H2O = CO2 + H2", KSourceId::Moe1962)],
         profiles: &[Profile::Creep {
@@ -891,15 +891,15 @@ const REACTORS: [ReactorSpec; 5] = [
         basis: Basis::Dry,
         target_steam_ratio: Some(0.36),
         reported: &[
-            ("H2", Unit::Percent),
-            ("N2", Unit::Percent),
-            ("CO", Unit::Percent),
-            ("CO2", Unit::Percent),
-            ("CH4", Unit::Percent),
-            ("Ar", Unit::Percent),
+            ("H2", ReportedUnit::Percent),
+            ("N2", ReportedUnit::Percent),
+            ("CO", ReportedUnit::Percent),
+            ("CO2", ReportedUnit::Percent),
+            ("CH4", ReportedUnit::Percent),
+            ("Ar", ReportedUnit::Percent),
         ],
     },
-    ReactorSpec {
+    DemoReactor {
         id: "mth1",
         reactions: &[
             ("CO + 3 H2 = CH4 + H2O", KSourceId::SpeciesData),
@@ -921,15 +921,15 @@ const REACTORS: [ReactorSpec; 5] = [
         basis: Basis::Dry,
         target_steam_ratio: Some(0.004),
         reported: &[
-            ("H2", Unit::Percent),
-            ("N2", Unit::Percent),
-            ("CH4", Unit::Percent),
-            ("Ar", Unit::Percent),
-            ("CO", Unit::Ppm),
-            ("CO2", Unit::Ppm),
+            ("H2", ReportedUnit::Percent),
+            ("N2", ReportedUnit::Percent),
+            ("CH4", ReportedUnit::Percent),
+            ("Ar", ReportedUnit::Percent),
+            ("CO", ReportedUnit::Ppm),
+            ("CO2", ReportedUnit::Ppm),
         ],
     },
-    ReactorSpec {
+    DemoReactor {
         id: "amc1",
         reactions: &[("N2 + 3 H2 = 2 NH3", KSourceId::SpeciesData)],
         profiles: &[Profile::Constant(15.0)],
@@ -946,16 +946,16 @@ const REACTORS: [ReactorSpec; 5] = [
         basis: Basis::Wet,
         target_steam_ratio: None,
         reported: &[
-            ("H2", Unit::Percent),
-            ("N2", Unit::Percent),
-            ("NH3", Unit::Percent),
-            ("Ar", Unit::Percent),
-            ("CH4", Unit::Percent),
+            ("H2", ReportedUnit::Percent),
+            ("N2", ReportedUnit::Percent),
+            ("NH3", ReportedUnit::Percent),
+            ("Ar", ReportedUnit::Percent),
+            ("CH4", ReportedUnit::Percent),
         ],
     },
 ];
 
-impl ReactorSpec {
+impl DemoReactor {
     fn build(&self, db: &SpeciesDb) -> Option<Reactor> {
         let mut reactions = Vec::new();
         let mut endothermic = Vec::new();
@@ -1399,8 +1399,8 @@ impl History {
             }
             for (_, name, unit) in &self.plant.reactors[ri].reported {
                 match unit {
-                    Unit::Percent => v.push(format!("{}.{name}", tags.analyser)),
-                    Unit::Ppm => v.push(format!("{}.{name} [ppm]", tags.analyser)),
+                    ReportedUnit::Percent => v.push(format!("{}.{name}", tags.analyser)),
+                    ReportedUnit::Ppm => v.push(format!("{}.{name} [ppm]", tags.analyser)),
                 }
             }
             v.push(format!("{}.quality", tags.analyser));
@@ -1632,8 +1632,8 @@ impl History {
                 out.push(',');
                 if let Some(Some(v)) = values.as_ref().and_then(|v| v.get(c)) {
                     match unit {
-                        Unit::Percent => push_significant(out, *v, 4),
-                        Unit::Ppm => push_significant(out, *v, 3),
+                        ReportedUnit::Percent => push_significant(out, *v, 4),
+                        ReportedUnit::Ppm => push_significant(out, *v, 3),
                     }
                     st.values += 1;
                 }
@@ -2445,16 +2445,16 @@ mod tests {
                 let mut comps = Vec::new();
                 for (_, name, unit) in &r.reported {
                     let c = match unit {
-                        Unit::Percent => format!("{}.{name}", tags.analyser),
-                        Unit::Ppm => format!("{}.{name} [ppm]", tags.analyser),
+                        ReportedUnit::Percent => format!("{}.{name}", tags.analyser),
+                        ReportedUnit::Ppm => format!("{}.{name} [ppm]", tags.analyser),
                     };
                     let i = col(&h, &c);
                     comps.push(Component {
                         species: name.to_string(),
                         value: report_row[i].parse().expect("analysis value"),
                         unit: match unit {
-                            Unit::Percent => CompositionUnit::Percent,
-                            Unit::Ppm => CompositionUnit::parse("ppm").expect("ppm"),
+                            ReportedUnit::Percent => CompositionUnit::Percent,
+                            ReportedUnit::Ppm => CompositionUnit::parse("ppm").expect("ppm"),
                         },
                     });
                 }
