@@ -9,7 +9,9 @@ use std::time::Duration;
 
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::net::TcpListener;
+use tokio::sync::Semaphore;
 use tokio_util::sync::CancellationToken;
+use tracing::warn;
 
 use crate::pipeline::metrics::Metrics;
 
@@ -18,23 +20,57 @@ pub async fn bind(addr: SocketAddr) -> std::io::Result<TcpListener> {
     TcpListener::bind(addr).await
 }
 
+/// Connections served at once at most; more wait in the kernel's backlog (holding no
+/// descriptor of ours), so a flood of clients cannot starve the broker link.
+const MAX_CONNECTIONS: usize = 32;
+/// Time a client has to send its request head, in all.
+const REQUEST_TIME: Duration = Duration::from_secs(5);
+
 pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: CancellationToken) {
+    let permits = Arc::new(Semaphore::new(MAX_CONNECTIONS));
+    let mut backoff = Duration::from_millis(50);
+    let mut accept_errors = 0u64;
     loop {
+        let permit = tokio::select! {
+            _ = cancel.cancelled() => return,
+            p = permits.clone().acquire_owned() => match p {
+                Ok(p) => p,
+                Err(_) => return,
+            },
+        };
         let accepted = tokio::select! {
             _ = cancel.cancelled() => return,
             a = listener.accept() => a,
         };
-        let Ok((mut stream, _)) = accepted else {
-            continue;
+        let mut stream = match accepted {
+            Ok((stream, _)) => {
+                backoff = Duration::from_millis(50);
+                stream
+            }
+            Err(e) => {
+                // Out of descriptors, or the network: wait instead of spinning.
+                accept_errors += 1;
+                if accept_errors == 1 || accept_errors % 100 == 0 {
+                    warn!(error = %e, errors = accept_errors, retry_in_ms = backoff.as_millis() as u64, "http accept failed");
+                }
+                drop(permit);
+                tokio::select! {
+                    _ = cancel.cancelled() => return,
+                    _ = tokio::time::sleep(backoff) => {}
+                }
+                backoff = (backoff * 2).min(Duration::from_secs(1));
+                continue;
+            }
         };
         let metrics = metrics.clone();
         tokio::spawn(async move {
             // Read the request head (up to a blank line or 4 KiB), however it is split.
+            let _permit = permit;
             let mut buf = [0u8; 4096];
             let mut n = 0;
+            let deadline = tokio::time::Instant::now() + REQUEST_TIME;
             while n < buf.len() && !buf[..n].windows(4).any(|w| w == b"\r\n\r\n") {
-                match tokio::time::timeout(Duration::from_secs(5), stream.read(&mut buf[n..])).await
-                {
+                match tokio::time::timeout_at(deadline, stream.read(&mut buf[n..])).await {
                     Ok(Ok(0)) | Ok(Err(_)) | Err(_) => break,
                     Ok(Ok(k)) => n += k,
                 }
@@ -70,8 +106,11 @@ pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: Cancell
                 "HTTP/1.1 {status}\r\nContent-Type: {ctype}\r\nContent-Length: {}\r\nConnection: close\r\n\r\n{body}",
                 body.len()
             );
-            let _ = stream.write_all(resp.as_bytes()).await;
-            let _ = stream.shutdown().await;
+            let write = async {
+                let _ = stream.write_all(resp.as_bytes()).await;
+                let _ = stream.shutdown().await;
+            };
+            let _ = tokio::time::timeout(REQUEST_TIME, write).await;
         });
     }
 }

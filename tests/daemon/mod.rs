@@ -723,3 +723,71 @@ fn an_input_message_over_the_packet_limit_is_refused_and_the_link_stays_up() {
     assert_eq!(d.metric("eqwatch_messages_oversized_total"), 1.0);
     assert_eq!(d.metric("eqwatch_input_reconnects_total"), 0.0);
 }
+
+#[test]
+fn a_flood_of_idle_http_clients_holds_few_descriptors_and_results_keep_coming() {
+    // Issue 10 §1: 1,100 slow HTTP connections under a 1024-descriptor limit spun the
+    // daemon and stopped the broker link ("Too many open files"). Now at most 32 are
+    // served at once; the rest wait in the kernel's backlog.
+    let rt = runtime();
+    let broker = Mosquitto::start();
+    let dir = tempfile::tempdir().unwrap();
+    let http = free_port();
+    let config = write_lts_plant(dir.path(), broker.port, http, "http", "");
+    let got = collector(&rt, broker.port, &["eqwatch/test/#"]);
+    let d = Daemon::start(&config, http);
+    assert!(wait_for(&got, Duration::from_secs(10), |m| m.iter().any(
+        |(t, pl, _)| t == "eqwatch/test/status" && pl.contains("online")
+    )));
+    let fds = || {
+        std::fs::read_dir(format!("/proc/{}/fd", d.pid()))
+            .map(|r| r.count())
+            .unwrap_or(0)
+    };
+    let before = fds();
+    // 300 clients that connect and send nothing.
+    let idle: Vec<std::net::TcpStream> = (0..300)
+        .filter_map(|_| std::net::TcpStream::connect(("127.0.0.1", http)).ok())
+        .collect();
+    assert!(idle.len() >= 100, "only {} connections opened", idle.len());
+    std::thread::sleep(Duration::from_millis(500));
+    let during = fds();
+    assert!(
+        during <= before + 40,
+        "descriptors went from {before} to {during} with {} idle clients",
+        idle.len()
+    );
+    // docs/domain.md §8 LTS gas at 220 °C, 29 barg, steam ratio 0.36312.
+    let p = Publisher::new(&rt, broker.port);
+    let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
+    p.publish(&rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
+    p.publish(&rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));
+    p.publish(&rt, "t/lts1/fy", &s(ts(0) - 60_000, 0.36312, "mol/mol"));
+    p.publish(
+        &rt,
+        "t/lts1/ai",
+        &analysis(
+            ts(0),
+            "\"H2\":61.0536,\"N2\":18.98637,\"CO\":0.28697,\"CO2\":19.38096,\"CH4\":0.2921",
+            "mol%",
+        ),
+    );
+    assert!(
+        wait_for(&got, Duration::from_secs(10), |m| m
+            .iter()
+            .any(|(t, _, _)| t == "eqwatch/test/lts1/result")),
+        "no result with idle HTTP clients holding the port"
+    );
+    drop(idle);
+    // Once they are gone the endpoint answers again (the slots free within the 5 s
+    // request time).
+    let mut ok = false;
+    for _ in 0..40 {
+        if http_get(http, "/healthz").contains("ok") {
+            ok = true;
+            break;
+        }
+        std::thread::sleep(Duration::from_millis(250));
+    }
+    assert!(ok, "/healthz did not answer after the idle clients left");
+}

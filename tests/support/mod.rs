@@ -135,6 +135,11 @@ impl Daemon {
         Self { child, http_port }
     }
 
+    /// The daemon's process id.
+    pub fn pid(&self) -> u32 {
+        self.child.id()
+    }
+
     pub fn metrics(&self) -> String {
         http_get(self.http_port, "/metrics")
     }
