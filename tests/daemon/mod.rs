@@ -700,20 +700,8 @@ fn an_input_message_over_the_packet_limit_is_refused_and_the_link_stays_up() {
         "t/lts1/ai",
         &format!(r#"{{"pad":"{}"}}"#, "x".repeat(1 << 20)),
     );
-    // docs/domain.md §8 LTS gas at 220 °C, 29 barg, steam ratio 0.36312, after it.
-    let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
-    p.publish(&rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
-    p.publish(&rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));
-    p.publish(&rt, "t/lts1/fy", &s(ts(0) - 60_000, 0.36312, "mol/mol"));
-    p.publish(
-        &rt,
-        "t/lts1/ai",
-        &analysis(
-            ts(0),
-            "\"H2\":61.0536,\"N2\":18.98637,\"CO\":0.28697,\"CO2\":19.38096,\"CH4\":0.2921",
-            "mol%",
-        ),
-    );
+    // The docs/domain.md §8 reading set after it.
+    publish_lts_set(&p, &rt);
     assert!(
         wait_for(&got, Duration::from_secs(10), |m| m
             .iter()
@@ -759,19 +747,7 @@ fn a_flood_of_idle_http_clients_holds_few_descriptors_and_results_keep_coming() 
     );
     // docs/domain.md §8 LTS gas at 220 °C, 29 barg, steam ratio 0.36312.
     let p = Publisher::new(&rt, broker.port);
-    let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
-    p.publish(&rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
-    p.publish(&rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));
-    p.publish(&rt, "t/lts1/fy", &s(ts(0) - 60_000, 0.36312, "mol/mol"));
-    p.publish(
-        &rt,
-        "t/lts1/ai",
-        &analysis(
-            ts(0),
-            "\"H2\":61.0536,\"N2\":18.98637,\"CO\":0.28697,\"CO2\":19.38096,\"CH4\":0.2921",
-            "mol%",
-        ),
-    );
+    publish_lts_set(&p, &rt);
     assert!(
         wait_for(&got, Duration::from_secs(10), |m| m
             .iter()

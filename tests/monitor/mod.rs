@@ -368,6 +368,12 @@ fn methanator_bed_rise_against_its_inlet() {
     assert!(br.excess_k().unwrap() > 23.0);
 }
 
+/// The docs/domain.md §8 LTS analysis sampled at `sample`, reported one lag later, evaluated.
+fn analyse_lts(m: &mut ReactorMonitor, s: &Settings, r: &ReactorSpec, sample: i64) -> Evaluation {
+    let at = sample + ms(r.composition.lag);
+    evaluated(m.accept(r, &s.species, Input::Analysis(lts_analysis(at)), at))
+}
+
 // Issue 10 §1: one reading stamped far from the clock must never take a reactor out of
 // service. 9999-12-31T23:59:59Z = 253,402,300,799,000 ms (RFC 3339; epoch arithmetic).
 const YEAR_9999_MS: i64 = 253_402_300_799_000;
@@ -387,12 +393,7 @@ fn a_far_future_analysis_is_refused_and_later_analyses_still_evaluate() {
         sample + lag,
     );
     assert!(matches!(refused, Outcome::OffClock { .. }), "{refused:?}");
-    let e = evaluated(m.accept(
-        r,
-        &s.species,
-        Input::Analysis(lts_analysis(sample + lag)),
-        sample + lag,
-    ));
+    let e = analyse_lts(&mut m, &s, r, sample);
     assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
 }
 
@@ -401,7 +402,6 @@ fn far_future_scalars_do_not_poison_the_buffers() {
     let s = settings();
     let r = reactor(&s, "lts1");
     let mut m = ReactorMonitor::new(r);
-    let lag = ms(r.composition.lag);
     let sample = T0 + 10 * MIN;
     // 256 thermocouple readings, a pressure and a steam ratio from the year 9999.
     for k in 0..256 {
@@ -426,12 +426,7 @@ fn far_future_scalars_do_not_poison_the_buffers() {
         sample,
     );
     feed_lts(&mut m, &s, sample, 493.15);
-    let e = evaluated(m.accept(
-        r,
-        &s.species,
-        Input::Analysis(lts_analysis(sample + lag)),
-        sample + lag,
-    ));
+    let e = analyse_lts(&mut m, &s, r, sample);
     assert_eq!(e.quality, Quality::Good, "{:?}", e.reasons);
     // docs/domain.md §8 [derived]: 12.00 K at 220 °C with Moe's K.
     assert!((e.reactions[0].approach_k.unwrap() - 12.00).abs() < 0.01);
@@ -514,7 +509,6 @@ fn the_clock_window_is_taken_from_the_spec_both_ways() {
 fn implausible_pressures_and_steam_ratios_make_the_result_bad_with_a_reason() {
     let s = settings();
     let r = reactor(&s, "lts1");
-    let lag = ms(r.composition.lag);
     let sample = T0 + 10 * MIN;
     // Values in bar absolute as the monitor takes them (after unit conversion): 1e300,
     // 1e6, 1e-300 and 0.013 bar abs (-1 barg, NIST SP 811: 1 atm = 1.01325 bar).
@@ -522,12 +516,7 @@ fn implausible_pressures_and_steam_ratios_make_the_result_bad_with_a_reason() {
         let mut m = ReactorMonitor::new(r);
         feed_lts(&mut m, &s, sample, 493.15);
         m.accept(r, &s.species, Input::Pressure(scalar(sample, p)), sample);
-        let e = evaluated(m.accept(
-            r,
-            &s.species,
-            Input::Analysis(lts_analysis(sample + lag)),
-            sample + lag,
-        ));
+        let e = analyse_lts(&mut m, &s, r, sample);
         assert_eq!(e.quality, Quality::Bad, "{p} bar: {:?}", e.reasons);
         assert!(codes(&e).contains(&"implausible_value"), "{:?}", e.reasons);
     }
@@ -539,12 +528,7 @@ fn implausible_pressures_and_steam_ratios_make_the_result_bad_with_a_reason() {
         Input::SteamRatio(scalar(sample, 50.0)),
         sample,
     );
-    let e = evaluated(m.accept(
-        r,
-        &s.species,
-        Input::Analysis(lts_analysis(sample + lag)),
-        sample + lag,
-    ));
+    let e = analyse_lts(&mut m, &s, r, sample);
     assert_eq!(e.quality, Quality::Bad, "{:?}", e.reasons);
     assert!(codes(&e).contains(&"implausible_value"));
 }
@@ -553,7 +537,6 @@ fn implausible_pressures_and_steam_ratios_make_the_result_bad_with_a_reason() {
 fn a_thermocouple_at_a_million_kelvin_is_left_out_and_named() {
     let s = settings();
     let r = reactor(&s, "lts1");
-    let lag = ms(r.composition.lag);
     let sample = T0 + 10 * MIN;
     let mut m = ReactorMonitor::new(r);
     feed_lts(&mut m, &s, sample, 493.15);
@@ -563,12 +546,7 @@ fn a_thermocouple_at_a_million_kelvin_is_left_out_and_named() {
         Input::Temperature(1, scalar(sample, 1e6)),
         sample,
     );
-    let e = evaluated(m.accept(
-        r,
-        &s.species,
-        Input::Analysis(lts_analysis(sample + lag)),
-        sample + lag,
-    ));
+    let e = analyse_lts(&mut m, &s, r, sample);
     assert_eq!(e.quality, Quality::Uncertain, "{:?}", e.reasons);
     let why = e
         .reasons
@@ -593,7 +571,6 @@ fn a_thermocouple_at_a_million_kelvin_is_left_out_and_named() {
 fn a_thermocouple_far_from_its_partners_is_left_out_and_two_that_disagree_are_uncertain() {
     let s = settings();
     let base = reactor(&s, "lts1");
-    let lag = ms(base.composition.lag);
     let sample = T0 + 10 * MIN;
     // Three outlet thermocouples: 493.15, 494.15 and 540 K (one reads 46 K high).
     let mut r = base.clone();
@@ -614,12 +591,7 @@ fn a_thermocouple_far_from_its_partners_is_left_out_and_two_that_disagree_are_un
         Input::Temperature(2, scalar(sample, 540.0)),
         sample,
     );
-    let e = evaluated(m.accept(
-        &r,
-        &s.species,
-        Input::Analysis(lts_analysis(sample + lag)),
-        sample + lag,
-    ));
+    let e = analyse_lts(&mut m, &s, &r, sample);
     let why = e
         .reasons
         .iter()
@@ -636,12 +608,7 @@ fn a_thermocouple_far_from_its_partners_is_left_out_and_two_that_disagree_are_un
         Input::Temperature(1, scalar(sample, 523.15)),
         sample,
     );
-    let e = evaluated(m.accept(
-        base,
-        &s.species,
-        Input::Analysis(lts_analysis(sample + lag)),
-        sample + lag,
-    ));
+    let e = analyse_lts(&mut m, &s, base, sample);
     assert_eq!(e.quality, Quality::Uncertain, "{:?}", e.reasons);
     assert!(codes(&e).contains(&"thermocouples_disagree"));
 }

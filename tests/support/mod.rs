@@ -261,6 +261,24 @@ impl Publisher {
     }
 }
 
+/// The test plant's full set of readings for one analysis at `ts(0)`: the docs/domain.md §8
+/// LTS gas (dry mol%) read at 220 °C, 29 barg, steam ratio 0.36312, the scalars one
+/// analyser lag (60 s) before the analysis, on the topics of [`write_lts_plant`].
+pub fn publish_lts_set(p: &Publisher, rt: &tokio::runtime::Runtime) {
+    let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
+    p.publish(rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
+    p.publish(rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));
+    p.publish(rt, "t/lts1/fy", &s(ts(0) - 60_000, 0.36312, "mol/mol"));
+    p.publish(
+        rt,
+        "t/lts1/ai",
+        &format!(
+            r#"{{"ts":{},"values":{{"H2":61.0536,"N2":18.98637,"CO":0.28697,"CO2":19.38096,"CH4":0.2921}},"unit":"mol%"}}"#,
+            ts(0)
+        ),
+    );
+}
+
 /// Waits until `pred` holds on the received messages.
 pub fn wait_for(
     got: &Received,

@@ -86,18 +86,7 @@ fn results_arrive_over_tls_and_a_ca_that_did_not_sign_the_broker_is_refused() {
     );
     // docs/domain.md §8 LTS gas at 220 °C, 29 barg, steam ratio 0.36312.
     let p = Publisher::new(&rt, plain);
-    let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
-    p.publish(&rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
-    p.publish(&rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));
-    p.publish(&rt, "t/lts1/fy", &s(ts(0) - 60_000, 0.36312, "mol/mol"));
-    p.publish(
-        &rt,
-        "t/lts1/ai",
-        &format!(
-            r#"{{"ts":{},"values":{{"H2":61.0536,"N2":18.98637,"CO":0.28697,"CO2":19.38096,"CH4":0.2921}},"unit":"mol%"}}"#,
-            ts(0)
-        ),
-    );
+    publish_lts_set(&p, &rt);
     assert!(
         wait_for(&got, Duration::from_secs(15), |m| m
             .iter()

@@ -14,7 +14,10 @@ use crate::config::validate::{DurationRule, NANOSECOND, duration_at};
 use crate::monitor::spec::{AnalysisSpec, Delivery};
 use crate::thermo::reaction::unknown_hint;
 use crate::thermo::species::SpeciesDb;
-use crate::units::{CompositionUnit, PressureUnit, ScalarUnit, TemperatureUnit, split_quantity};
+use crate::units::{
+    CompositionUnit, PressureUnit, STANDARD_ATMOSPHERE_BAR, ScalarUnit, TemperatureUnit,
+    split_quantity,
+};
 
 /// Checks a JSON Pointer (RFC 6901 §3). `optional`: `""` means "not read" and gives
 /// `None`; otherwise `""` is the whole document.
@@ -270,7 +273,9 @@ fn plausible_range(
     };
     let convert = |v: f64| match unit {
         ScalarUnit::Temperature(t) => t.to_kelvin(v).map_err(|e| e.to_string()),
-        ScalarUnit::Pressure(p) => p.to_bar_absolute(v, 1.01325).map_err(|e| e.to_string()),
+        ScalarUnit::Pressure(p) => p
+            .to_bar_absolute(v, STANDARD_ATMOSPHERE_BAR)
+            .map_err(|e| e.to_string()),
         ScalarUnit::Ratio if v >= 0.0 && v.is_finite() => Ok(v),
         ScalarUnit::Ratio => Err(format!("{v} is not a ratio (0 or more)")),
     };
