@@ -9,4 +9,6 @@ mod daemon;
 mod demo;
 mod monitor;
 mod replay;
+mod session;
+mod slow_link;
 mod tls;

@@ -44,6 +44,7 @@ pub(crate) struct RawBroker {
     pub protocol: Option<String>,
     pub keep_alive: Option<String>,
     pub session_expiry: Option<String>,
+    pub connect_timeout: Option<String>,
     pub username: Option<String>,
     pub password_file: Option<String>,
     pub password_env: Option<String>,

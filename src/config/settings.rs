@@ -48,6 +48,9 @@ pub struct BrokerSettings {
     /// Zero: clean session. Above zero: a persistent session (MQTT 3.1.1
     /// clean_session = false; MQTT 5 session expiry interval).
     pub session_expiry: Duration,
+    /// How long one connection attempt (TCP, TLS, CONNECT/CONNACK) may take; also the
+    /// limit on one write to the broker.
+    pub connect_timeout: Duration,
     pub username: Option<String>,
     /// Read from `password_file` or `password_env` during validation.
     pub password: Option<String>,

@@ -178,8 +178,9 @@ fn broker_rows(rows: &mut Rows, broker: &BrokerSettings) {
     rows.row(
         "",
         format!(
-            "keep-alive {}, {session}, {login}",
-            show_duration(broker.keep_alive)
+            "keep-alive {}, connect within {}, {session}, {login}",
+            show_duration(broker.keep_alive),
+            show_duration(broker.connect_timeout)
         ),
     );
     rows.row(

@@ -376,6 +376,7 @@ pub async fn run(
     // Results are small and latency matters: no Nagle delay on our connections.
     let mut net = rumqttc::NetworkOptions::new();
     net.set_tcp_nodelay(true);
+    net.set_connection_timeout(settings.broker.connect_timeout.as_secs());
     eventloop.set_network_options(net.clone());
     in_eventloop.set_network_options(net);
 

@@ -332,106 +332,136 @@ impl Link {
         let mut conn = Connection::new("results", &self.broker);
         let mut stop_at: Option<Instant> = None;
         let mut tick = tokio::time::interval(Duration::from_millis(500));
-        loop {
-            // Ask the journal for records memory does not hold.
-            if let Some(after) = outbox.wants_read() {
-                let read = JournalCmd::ReadAfter {
-                    after,
-                    max: OUTBOX_CAPACITY / 2,
-                };
-                if journal.try_send(read).is_err() {
-                    // The journal is busy: ask again on a later turn.
-                    outbox.read_done();
-                }
-            }
-            // Hand records over while connected and the window allows.
-            if conn.since.is_some() {
-                while let Some(r) = outbox.next(window) {
-                    let late = r.replayed || (self.clock)() - r.ts_ms > LATE_MS;
-                    let body = with_delivery(&r.payload, r.seq, late);
-                    match client.try_publish(r.topic.clone(), QoS::AtLeastOnce, r.retain, body) {
-                        Ok(()) => outbox.handed_front(),
-                        Err(e) => {
-                            metrics.publish_failures.fetch_add(1, Relaxed);
-                            debug!(error = %e, "request channel full; publishing resumes after the next event");
-                            break;
+        'run: loop {
+            // One poll of the event loop at a time, kept across the other branches: it may
+            // be a connection in progress (TCP, TLS, CONNECT/CONNACK), which on a slow link
+            // takes several round trips and must not be dropped and started again.
+            let event = {
+                let poll = eventloop.poll();
+                tokio::pin!(poll);
+                loop {
+                    // Ask the journal for records memory does not hold.
+                    if let Some(after) = outbox.wants_read() {
+                        let read = JournalCmd::ReadAfter {
+                            after,
+                            max: OUTBOX_CAPACITY / 2,
+                        };
+                        if journal.try_send(read).is_err() {
+                            // The journal is busy: ask again on a later turn.
+                            outbox.read_done();
                         }
                     }
-                }
-            }
-            metrics
-                .journal_published_seq
-                .store(outbox.watermark(), Relaxed);
-            if stop_input.is_cancelled() && stop_at.is_none() {
-                stop_at = Some(Instant::now() + flush_deadline);
-                info!("shutdown: input stopped, delivering what is journaled");
-            }
-            if let Some(at) = stop_at {
-                let flushed = drained && outbox.queued() == 0 && outbox.in_flight() == 0;
-                if flushed || Instant::now() >= at {
-                    if !flushed {
-                        warn!(
-                            backlog = outbox.backlog(),
-                            "shutdown deadline reached; the journal keeps the rest for the next start"
-                        );
-                    }
-                    break;
-                }
-            }
-            tokio::select! {
-                ev = eventloop.poll() => match ev {
-                    Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
-                        metrics.connected.store(true, Relaxed);
-                        conn.up(ack.session_present);
-                        if !ack.session_present {
-                            outbox.on_new_session();
-                        }
-                        if client.try_publish(self.status_topic.clone(), QoS::AtLeastOnce, true, self.online_payload.clone()).is_ok() {
-                            outbox.handed_untracked();
-                        }
-                        // The evaluator may wait for room that a new connection makes.
-                        self.acked.notify_one();
-                    }
-                    Ok(Event::Incoming(Incoming::PubAck(a))) => {
-                        if let Some(w) = outbox.on_ack(a.pkid) {
-                            metrics.published.store(w.saturating_sub(self.published_at_start), Relaxed);
-                            metrics.journal_published_seq.store(w, Relaxed);
-                            if metrics.backlog() <= UNACKED_RESUME {
-                                self.acked.notify_one();
-                            }
-                            // A later acknowledgement carries a higher watermark, so a
-                            // busy journal may skip this one.
-                            let _ = journal.try_send(JournalCmd::Published { seq: w, force: false });
-                        }
-                    }
-                    Ok(Event::Outgoing(Out::Publish(pkid))) => outbox.on_outgoing(pkid),
-                    Ok(_) => {}
-                    Err(e) => {
-                        metrics.connected.store(false, Relaxed);
-                        metrics.reconnects.fetch_add(1, Relaxed);
-                        self.acked.notify_one();
-                        let delay = conn.lost(&e);
-                        let sleep_until = stop_at.map_or(delay, |at| delay.min(at.saturating_duration_since(Instant::now())));
-                        tokio::select! {
-                            _ = tokio::time::sleep(sleep_until) => {}
-                            _ = stop_input.cancelled(), if stop_at.is_none() => {}
-                        }
-                    }
-                },
-                msg = from_journal.recv(), if !drained => match msg {
-                    Some(ToLink::Records(records)) => {
-                        for r in records {
-                            if outbox.offer(r) == Offer::Deferred {
-                                debug!("record deferred to a journal read");
+                    // Hand records over while connected and the window allows.
+                    if conn.since.is_some() {
+                        while let Some(r) = outbox.next(window) {
+                            let late = r.replayed || (self.clock)() - r.ts_ms > LATE_MS;
+                            let body = with_delivery(&r.payload, r.seq, late);
+                            match client.try_publish(
+                                r.topic.clone(),
+                                QoS::AtLeastOnce,
+                                r.retain,
+                                body,
+                            ) {
+                                Ok(()) => outbox.handed_front(),
+                                Err(e) => {
+                                    metrics.publish_failures.fetch_add(1, Relaxed);
+                                    debug!(error = %e, "request channel full; publishing resumes after the next event");
+                                    break;
+                                }
                             }
                         }
                     }
-                    Some(ToLink::ReadDone) => outbox.read_done(),
-                    Some(ToLink::JournalAt(last)) => outbox.journal_at(last),
-                    Some(ToLink::Drained) | None => drained = true,
-                },
-                _ = tick.tick() => {}
-                _ = stop_input.cancelled(), if stop_at.is_none() => {}
+                    metrics
+                        .journal_published_seq
+                        .store(outbox.watermark(), Relaxed);
+                    if stop_input.is_cancelled() && stop_at.is_none() {
+                        stop_at = Some(Instant::now() + flush_deadline);
+                        info!("shutdown: input stopped, delivering what is journaled");
+                    }
+                    if let Some(at) = stop_at {
+                        let flushed = drained && outbox.queued() == 0 && outbox.in_flight() == 0;
+                        if flushed || Instant::now() >= at {
+                            if !flushed {
+                                warn!(
+                                    backlog = outbox.backlog(),
+                                    "shutdown deadline reached; the journal keeps the rest for the next start"
+                                );
+                            }
+                            break 'run;
+                        }
+                    }
+                    tokio::select! {
+                        ev = &mut poll => break ev,
+                        msg = from_journal.recv(), if !drained => match msg {
+                            Some(ToLink::Records(records)) => {
+                                for r in records {
+                                    if outbox.offer(r) == Offer::Deferred {
+                                        debug!("record deferred to a journal read");
+                                    }
+                                }
+                            }
+                            Some(ToLink::ReadDone) => outbox.read_done(),
+                            Some(ToLink::JournalAt(last)) => outbox.journal_at(last),
+                            Some(ToLink::Drained) | None => drained = true,
+                        },
+                        _ = tick.tick() => {}
+                        _ = stop_input.cancelled(), if stop_at.is_none() => {}
+                    }
+                }
+            };
+            match event {
+                Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
+                    metrics.connected.store(true, Relaxed);
+                    conn.up(ack.session_present);
+                    if !ack.session_present {
+                        outbox.on_new_session();
+                    }
+                    if client
+                        .try_publish(
+                            self.status_topic.clone(),
+                            QoS::AtLeastOnce,
+                            true,
+                            self.online_payload.clone(),
+                        )
+                        .is_ok()
+                    {
+                        outbox.handed_untracked();
+                    }
+                    // The evaluator may wait for room that a new connection makes.
+                    self.acked.notify_one();
+                }
+                Ok(Event::Incoming(Incoming::PubAck(a))) => {
+                    if let Some(w) = outbox.on_ack(a.pkid) {
+                        metrics
+                            .published
+                            .store(w.saturating_sub(self.published_at_start), Relaxed);
+                        metrics.journal_published_seq.store(w, Relaxed);
+                        if metrics.backlog() <= UNACKED_RESUME {
+                            self.acked.notify_one();
+                        }
+                        // A later acknowledgement carries a higher watermark, so a
+                        // busy journal may skip this one.
+                        let _ = journal.try_send(JournalCmd::Published {
+                            seq: w,
+                            force: false,
+                        });
+                    }
+                }
+                Ok(Event::Outgoing(Out::Publish(pkid))) => outbox.on_outgoing(pkid),
+                Ok(_) => {}
+                Err(e) => {
+                    metrics.connected.store(false, Relaxed);
+                    metrics.reconnects.fetch_add(1, Relaxed);
+                    self.acked.notify_one();
+                    let delay = conn.lost(&e);
+                    let sleep_until = stop_at.map_or(delay, |at| {
+                        delay.min(at.saturating_duration_since(Instant::now()))
+                    });
+                    tokio::select! {
+                        _ = tokio::time::sleep(sleep_until) => {}
+                        _ = stop_input.cancelled(), if stop_at.is_none() => {}
+                    }
+                }
             }
         }
         // Stop taking records first, so a journal thread waiting on a full queue is released

@@ -365,3 +365,77 @@ max_age = "1 h"
     std::fs::write(&path, text).expect("write config");
     path
 }
+
+/// A loopback TCP forwarder that holds every chunk for `one_way` before passing it on,
+/// in both directions: a round trip through it takes at least twice `one_way`, like a
+/// slow radio or satellite link. It counts the connections it has accepted.
+pub struct SlowLink {
+    pub port: u16,
+    accepted: Arc<std::sync::atomic::AtomicUsize>,
+}
+
+impl SlowLink {
+    pub fn start(upstream: u16, one_way: Duration) -> Self {
+        let listener = TcpListener::bind("127.0.0.1:0").expect("bind the slow link");
+        let port = listener.local_addr().expect("slow link address").port();
+        let accepted = Arc::new(std::sync::atomic::AtomicUsize::new(0));
+        let count = accepted.clone();
+        std::thread::spawn(move || {
+            for client in listener.incoming() {
+                let Ok(client) = client else { continue };
+                let Ok(server) = TcpStream::connect(("127.0.0.1", upstream)) else {
+                    continue;
+                };
+                count.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
+                let _ = client.set_nodelay(true);
+                let _ = server.set_nodelay(true);
+                let (c2, s2) = (
+                    client.try_clone().expect("clone"),
+                    server.try_clone().expect("clone"),
+                );
+                delayed_pump(client, server, one_way);
+                delayed_pump(s2, c2, one_way);
+            }
+        });
+        Self { port, accepted }
+    }
+
+    pub fn accepted(&self) -> usize {
+        self.accepted.load(std::sync::atomic::Ordering::SeqCst)
+    }
+}
+
+/// Copies `from` to `to`, each chunk delivered `delay` after it was read (order kept).
+fn delayed_pump(mut from: TcpStream, mut to: TcpStream, delay: Duration) {
+    use std::io::Read;
+    let (tx, rx) = std::sync::mpsc::channel::<(Instant, Vec<u8>)>();
+    std::thread::spawn(move || {
+        let mut buf = vec![0u8; 64 * 1024];
+        loop {
+            match from.read(&mut buf) {
+                Ok(0) | Err(_) => break,
+                Ok(n) => {
+                    if tx
+                        .send((Instant::now() + delay, buf[..n].to_vec()))
+                        .is_err()
+                    {
+                        break;
+                    }
+                }
+            }
+        }
+        // Dropping `tx` tells the writer the stream ended (after what is queued).
+    });
+    std::thread::spawn(move || {
+        while let Ok((due, bytes)) = rx.recv() {
+            let now = Instant::now();
+            if due > now {
+                std::thread::sleep(due - now);
+            }
+            if to.write_all(&bytes).is_err() {
+                break;
+            }
+        }
+        let _ = to.shutdown(std::net::Shutdown::Write);
+    });
+}

@@ -10,7 +10,7 @@ use std::time::Duration;
 use crate::support::*;
 
 /// A throw-away CA and a server certificate for 127.0.0.1, as PEM: (ca, cert, key).
-fn certificates() -> (String, String, String) {
+pub(crate) fn certificates() -> (String, String, String) {
     let ca_key = rcgen::KeyPair::generate().expect("CA key");
     let mut ca = rcgen::CertificateParams::new(Vec::<String>::new()).expect("CA params");
     ca.is_ca = rcgen::IsCa::Ca(rcgen::BasicConstraints::Unconstrained);
@@ -27,7 +27,7 @@ fn certificates() -> (String, String, String) {
 }
 
 /// Mosquitto with a plain listener on `plain` and a TLS one on `tls`.
-fn broker(dir: &Path, plain: u16, tls: u16, cert: &str, key: &str) -> Child {
+pub(crate) fn broker(dir: &Path, plain: u16, tls: u16, cert: &str, key: &str) -> Child {
     std::fs::write(dir.join("server.pem"), cert).unwrap();
     std::fs::write(dir.join("server.key"), key).unwrap();
     let conf = dir.join("mosquitto.conf");
@@ -55,7 +55,7 @@ fn broker(dir: &Path, plain: u16, tls: u16, cert: &str, key: &str) -> Child {
 }
 
 /// The test plant, talking to the broker's TLS listener with `ca.pem` as its CA file.
-fn tls_plant(dir: &Path, plain: u16, tls: u16, http: u16) -> PathBuf {
+pub(crate) fn tls_plant(dir: &Path, plain: u16, tls: u16, http: u16) -> PathBuf {
     let config = write_lts_plant(dir, plain, http, "tls", "");
     let text = std::fs::read_to_string(&config).unwrap().replacen(
         &format!("url = \"mqtt://127.0.0.1:{plain}\""),

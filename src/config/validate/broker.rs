@@ -104,6 +104,7 @@ pub(crate) fn broker(
     let client_id = client_id(problems, raw, site, protocol);
     let keep_alive = keep_alive(problems, raw);
     let session_expiry = session_expiry(problems, raw);
+    let connect_timeout = connect_timeout(problems, raw);
     let (username, password) = credentials(problems, raw, base, env, protocol);
     let [ca_file, client_cert_file, client_key_file] = tls_files(problems, raw, base, tls);
     let max_packet_bytes = max_packet_bytes(problems, raw);
@@ -117,6 +118,7 @@ pub(crate) fn broker(
         protocol,
         keep_alive,
         session_expiry,
+        connect_timeout,
         username,
         password,
         ca_file,
@@ -187,6 +189,45 @@ fn client_id(
     client_id
 }
 
+/// The session kept when `broker.session_expiry` is not given: a day.
+const DEFAULT_SESSION_EXPIRY: Duration = Duration::from_secs(86_400);
+
+/// `broker.connect_timeout`: whole seconds from 1 s to 600 s (default 30 s). A
+/// connection over TLS takes three round trips or more, so a 1 s round trip needs 3 s
+/// and a satellite hop more.
+fn connect_timeout(problems: &mut Problems, raw: &RawBroker) -> Duration {
+    let t = duration_at(
+        problems,
+        "broker.connect_timeout",
+        raw.connect_timeout.as_deref(),
+        DurationRule {
+            default: Some(Duration::from_secs(30)),
+            min: Duration::from_secs(1),
+            why_min: "a connection takes at least one round trip",
+        },
+    );
+    if t < Duration::from_secs(1) {
+        // Already said by `duration_at`.
+    } else if t.subsec_nanos() != 0 {
+        problems.add(
+            "broker.connect_timeout",
+            format!(
+                "{} is not a whole number of seconds (the MQTT client counts it in seconds)",
+                show_duration(t)
+            ),
+        );
+    } else if t > Duration::from_secs(600) {
+        problems.add(
+            "broker.connect_timeout",
+            format!(
+                "{} is longer than 10 min: a dead link would hold every write that long",
+                show_duration(t)
+            ),
+        );
+    }
+    t
+}
+
 /// `broker.keep_alive`: whole seconds from 5 s to 65535 s.
 fn keep_alive(problems: &mut Problems, raw: &RawBroker) -> Duration {
     // rumqttc 0.25.1 asserts keep-alive >= 5 s for MQTT 5 (src/v5/mod.rs
@@ -229,7 +270,9 @@ fn session_expiry(problems: &mut Problems, raw: &RawBroker) -> Duration {
         "broker.session_expiry",
         raw.session_expiry.as_deref(),
         DurationRule {
-            default: Some(Duration::ZERO),
+            // A persistent session by default: the broker keeps the subscriptions and
+            // the QoS 1 input published while the daemon is away or the link is down.
+            default: Some(DEFAULT_SESSION_EXPIRY),
             min: Duration::ZERO,
             why_min: "",
         },
@@ -698,7 +741,18 @@ mod tests {
         let b = ok("");
         assert_eq!(b.client_id, "eqwatch-baw1", "default client id");
         assert_eq!(b.keep_alive, Duration::from_secs(30));
-        assert_eq!(b.session_expiry, Duration::ZERO);
+        // A persistent session by default (issue: a clean session lost what the broker
+        // held for the daemon over a restart); a clean one on request.
+        assert_eq!(b.session_expiry, Duration::from_secs(86_400));
+        assert_eq!(
+            ok("session_expiry = \"0 s\"").session_expiry,
+            Duration::ZERO
+        );
+        assert_eq!(b.connect_timeout, Duration::from_secs(30));
+        assert_eq!(
+            ok("connect_timeout = \"3 s\"").connect_timeout,
+            Duration::from_secs(3)
+        );
         assert_eq!(b.inflight, 64);
         assert_eq!(b.max_packet_bytes, 262_144);
         assert_eq!(
@@ -732,6 +786,21 @@ mod tests {
                 "session_expiry = \"200 y\"",
                 "broker.session_expiry",
                 "unknown unit \"y\"",
+            ),
+            (
+                "connect_timeout = \"0.5 s\"",
+                "broker.connect_timeout",
+                "500 ms is too short",
+            ),
+            (
+                "connect_timeout = \"1.5 s\"",
+                "broker.connect_timeout",
+                "not a whole number of seconds",
+            ),
+            (
+                "connect_timeout = \"1 h\"",
+                "broker.connect_timeout",
+                "longer than 10 min",
             ),
             (
                 "inflight = 65536",
