@@ -7,6 +7,7 @@ mod support;
 mod alarms;
 mod daemon;
 mod demo;
+mod disk;
 mod monitor;
 mod replay;
 mod session;

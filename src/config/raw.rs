@@ -64,6 +64,7 @@ pub(crate) struct RawJournal {
     pub max_file_bytes: Option<i64>,
     pub max_total_bytes: Option<i64>,
     pub fsync_interval: Option<String>,
+    pub memory_max_bytes: Option<i64>,
 }
 
 #[derive(Debug, Clone, Deserialize)]

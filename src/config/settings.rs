@@ -70,6 +70,8 @@ pub struct JournalSettings {
     pub max_file_bytes: u64,
     pub max_total_bytes: u64,
     pub fsync_interval: Duration,
+    /// Results held in memory at most while the disk does not take them.
+    pub memory_max_bytes: usize,
 }
 
 /// How a scalar (temperature, pressure, steam ratio) message is decoded.

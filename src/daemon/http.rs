@@ -81,20 +81,14 @@ pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: Cancell
             let (status, ctype, body) = match (method, path) {
                 ("GET", "/metrics") => ("200 OK", "text/plain; version=0.0.4", metrics.render()),
                 ("GET", "/healthz") => ("200 OK", "text/plain", "ok\n".to_string()),
-                ("GET", "/readyz") => {
-                    if metrics.ready.load(Relaxed)
-                        && metrics.connected.load(Relaxed)
-                        && metrics.input_connected.load(Relaxed)
-                    {
-                        ("200 OK", "text/plain", "ready\n".to_string())
-                    } else {
-                        (
-                            "503 Service Unavailable",
-                            "text/plain",
-                            "not ready: broker not connected\n".to_string(),
-                        )
-                    }
-                }
+                ("GET", "/readyz") => match not_ready(&metrics) {
+                    None => ("200 OK", "text/plain", "ready\n".to_string()),
+                    Some(why) => (
+                        "503 Service Unavailable",
+                        "text/plain",
+                        format!("not ready: {why}\n"),
+                    ),
+                },
                 ("GET", _) => ("404 Not Found", "text/plain", "not found\n".to_string()),
                 _ => (
                     "405 Method Not Allowed",
@@ -112,5 +106,22 @@ pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: Cancell
             };
             let _ = tokio::time::timeout(REQUEST_TIME, write).await;
         });
+    }
+}
+
+/// Why the daemon is not ready, if it is not: starting, a broker connection down, or
+/// results held in memory because the journal cannot be written.
+fn not_ready(metrics: &Metrics) -> Option<String> {
+    let held = metrics.journal_held.load(Relaxed);
+    if !metrics.ready.load(Relaxed) {
+        Some("starting".into())
+    } else if held > 0 {
+        Some(format!(
+            "journal cannot be written ({held} results held in memory); check free space and permissions of the journal folder"
+        ))
+    } else if !(metrics.connected.load(Relaxed) && metrics.input_connected.load(Relaxed)) {
+        Some("broker not connected".into())
+    } else {
+        None
     }
 }

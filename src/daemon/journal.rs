@@ -13,11 +13,19 @@
 //!
 //! Both cursor files are replaced atomically (temporary file, fsync, rename).
 //!
+//! A full or unwritable disk: records that cannot be written keep their sequence
+//! numbers and are held in memory (at most `journal.memory_max_bytes`, oldest dropped
+//! and counted beyond it), go to the broker as usual, and are served by
+//! [`Journal::read_after`] like records on disk. While any are held nothing new is
+//! written (order on disk stays the sequence order); [`Journal::retry_held`] tries to
+//! write them again, oldest first, at most once per [`RETRY_MS`]. A folder that cannot
+//! be written refuses [`Journal::open`].
+//!
 //! Plain synchronous std I/O, meant for a dedicated thread. No clock is read here: every
 //! call that depends on time takes `now_ms` (Unix epoch milliseconds, UTC).
 
 use std::cell::RefCell;
-use std::collections::HashSet;
+use std::collections::{HashSet, VecDeque};
 use std::fmt::Write as _;
 use std::fs::{self, File, OpenOptions};
 use std::io::{self, BufRead, BufReader, Read, Write};
@@ -34,6 +42,12 @@ const PUBLISHED_FILE: &str = "published.seq";
 const LAST_FILE: &str = "last.seq";
 const TMP_SUFFIX: &str = ".tmp";
 const MS_PER_DAY: i64 = 86_400_000;
+const PROBE_FILE: &str = ".eqwatch-write-probe";
+/// While records are held, a write is tried again at most this often (ms).
+pub const RETRY_MS: i64 = 1_000;
+/// What a held record costs besides its topic and payload (struct, queue slot), for
+/// the memory cap.
+const HELD_OVERHEAD: usize = 96;
 
 /// Errors from the journal. Every message names the file or directory involved.
 #[derive(Debug, thiserror::Error)]
@@ -84,6 +98,14 @@ pub enum JournalError {
     BadTime { dir: PathBuf, now_ms: i64 },
 }
 
+impl JournalError {
+    /// A failure of the disk or folder (full, unwritable, unreadable), as opposed to a
+    /// record the journal refuses whatever the disk does.
+    pub fn is_disk(&self) -> bool {
+        matches!(self, JournalError::Dir { .. } | JournalError::Io { .. })
+    }
+}
+
 /// One journalled message.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Record {
@@ -120,6 +142,12 @@ pub struct JournalStats {
     pub dropped_unpublished: u64,
     /// Torn tail lines truncated at open plus unreadable lines met by `read_after`.
     pub corrupt_lines: u64,
+    /// Records held in memory because the disk did not take them.
+    pub held_records: usize,
+    /// Records dropped from memory over `memory_max_bytes` without ever being written,
+    /// and of those the ones the broker had not acknowledged.
+    pub held_dropped: u64,
+    pub held_dropped_unpublished: u64,
 }
 
 /// One segment file.
@@ -154,9 +182,19 @@ pub struct Journal {
     /// Lines of the batch being appended, not yet written to the current segment
     /// (counted in its `bytes` and in `last_seq` already).
     pending: Vec<u8>,
-    /// `last_seq` before the first pending line, and the batch items of the pending lines.
-    pending_from_seq: u64,
-    pending_items: Vec<usize>,
+    /// The batch items of the pending lines, with their sequence numbers.
+    pending_items: Vec<(usize, u64)>,
+    /// Records numbered but not on disk (see the module docs), oldest first.
+    held: VecDeque<Record>,
+    held_bytes: usize,
+    max_held_bytes: usize,
+    held_dropped: u64,
+    held_dropped_unpublished: u64,
+    /// No write is tried before this (epoch ms) while records are held.
+    retry_at_ms: i64,
+    /// Tests: every write fails as on a full disk.
+    #[cfg(test)]
+    fail_writes: bool,
     /// Reused buffer for one line.
     line: String,
     dropped_records: u64,
@@ -176,6 +214,7 @@ impl Journal {
             action: "create",
             source,
         })?;
+        probe_writable(&dir)?;
         let entries = fs::read_dir(&dir).map_err(|source| JournalError::Dir {
             path: dir.clone(),
             action: "list",
@@ -248,8 +287,15 @@ impl Journal {
             last_cursor_ms: now_ms,
             unsynced: false,
             pending: Vec::new(),
-            pending_from_seq: 0,
             pending_items: Vec::new(),
+            held: VecDeque::new(),
+            held_bytes: 0,
+            max_held_bytes: settings.memory_max_bytes,
+            held_dropped: 0,
+            held_dropped_unpublished: 0,
+            retry_at_ms: now_ms,
+            #[cfg(test)]
+            fail_writes: false,
             line: String::new(),
             dropped_records: 0,
             dropped_unpublished: 0,
@@ -286,37 +332,64 @@ impl Journal {
     }
 
     /// Appends records `(topic, retain, payload)` in order, each with the next sequence
-    /// number; `seqs[i]` is item `i`'s number, `None` when it was not kept (the reasons
-    /// are in `errors`, one per failed item or failed write).
+    /// number; `seqs[i]` is item `i`'s number, `None` when it was refused (not a JSON
+    /// object on one line, or a clock outside the years 0000-9999; the reasons are in
+    /// `errors`).
     ///
     /// Durability, the same promise as one record at a time, per batch: the lines of the
     /// batch are written with one `write` per segment they land in (not one per line),
-    /// and every line numbered in `seqs` has reached the OS before this returns; the
-    /// segment is fsynced when `fsync_interval` has passed since the last fsync (checked
-    /// once, after the batch), and always before a new segment starts. A line never
-    /// reaches the OS partially: a failed write cuts the segment back to its length
-    /// before the batch's lines, and those lines get `None` and give their sequence
-    /// numbers back. A new segment starts when the UTC day changes or the segment would
-    /// exceed `max_file_bytes`; then whole oldest segments (never the current one) are
-    /// deleted until the total fits `max_total_bytes`. If the fsync fails, the lines are
-    /// already in the file (and numbered) but the error is in `errors`.
+    /// and every line numbered in `seqs` has reached the OS before this returns, or is
+    /// held in memory (see the module docs) when the disk did not take it: a failed write
+    /// cuts the segment back to its length before the batch's lines (a line never stays
+    /// behind partially) and those lines, and the rest of the batch, are held with their
+    /// numbers; the failure is in `errors`. The segment is fsynced when `fsync_interval`
+    /// has passed since the last fsync (checked once, after the batch), and always before
+    /// a new segment starts. A new segment starts when the UTC day changes or the segment
+    /// would exceed `max_file_bytes`; then whole oldest segments (never the current one)
+    /// are deleted until the total fits `max_total_bytes`. If the fsync fails, the lines
+    /// are already in the file (and numbered) but the error is in `errors`.
     pub fn append_batch<'a>(
         &mut self,
         now_ms: i64,
         items: impl IntoIterator<Item = (&'a str, bool, &'a str)>,
     ) -> Batch {
-        let mut out = Batch::default();
-        for (topic, retain, payload) in items {
-            let i = out.seqs.len();
-            out.seqs.push(None);
-            if let Err(e) = self.stage(now_ms, topic, retain, payload, i, &mut out) {
-                out.errors.push(e);
-            }
-        }
-        if let Err(e) = self.flush_pending(&mut out) {
+        let items: Vec<(&str, bool, &str)> = items.into_iter().collect();
+        let mut out = Batch {
+            seqs: vec![None; items.len()],
+            errors: Vec::new(),
+        };
+        if let Err(e) = self.retry_held(now_ms) {
             out.errors.push(e);
         }
-        if out.seqs.iter().any(Option::is_some) && self.fsync_due(now_ms) {
+        for (i, &(topic, retain, payload)) in items.iter().enumerate() {
+            if let Err(e) = self.check(now_ms, topic, payload) {
+                out.errors.push(e);
+                continue;
+            }
+            let seq = self.last_seq + 1;
+            if !self.held.is_empty() {
+                self.last_seq = seq;
+                self.hold(now_ms, seq, topic, retain, payload);
+                out.seqs[i] = Some(seq);
+                continue;
+            }
+            let day = now_ms.div_euclid(MS_PER_DAY);
+            match self.stage_line(day, seq, now_ms, topic, retain, payload) {
+                Ok(()) => self.pending_items.push((i, seq)),
+                Err(e) => {
+                    out.errors.push(e);
+                    self.hold_pending(now_ms, &items);
+                    self.hold(now_ms, seq, topic, retain, payload);
+                }
+            }
+            self.last_seq = seq;
+            out.seqs[i] = Some(seq);
+        }
+        if let Err(e) = self.flush_pending() {
+            out.errors.push(e);
+            self.hold_pending(now_ms, &items);
+        }
+        if self.held.is_empty() && out.seqs.iter().any(Option::is_some) && self.fsync_due(now_ms) {
             match self.sync_current() {
                 Ok(()) => self.last_fsync_ms = now_ms,
                 Err(e) => out.errors.push(e),
@@ -325,51 +398,120 @@ impl Journal {
         out
     }
 
-    /// Checks one record and adds its line to the pending bytes of the current segment.
-    fn stage(
-        &mut self,
-        now_ms: i64,
-        topic: &str,
-        retain: bool,
-        payload: &str,
-        index: usize,
-        out: &mut Batch,
-    ) -> Result<(), JournalError> {
+    /// Writes the held records to disk, oldest first (one write each: this is the
+    /// recovery path), when [`RETRY_MS`] has passed since the last failure. Returns how
+    /// many were written; on a failure the rest stay held.
+    pub fn retry_held(&mut self, now_ms: i64) -> Result<usize, JournalError> {
+        if self.held.is_empty() || now_ms < self.retry_at_ms {
+            return Ok(0);
+        }
+        let mut written = 0;
+        while let Some(rec) = self.held.front() {
+            let (seq, ts_ms, retain) = (rec.seq, rec.ts_ms, rec.retain);
+            let (topic, payload) = (rec.topic.clone(), rec.payload.clone());
+            let day = ts_ms.div_euclid(MS_PER_DAY);
+            let r = self
+                .stage_line(day, seq, ts_ms, &topic, retain, &payload)
+                .and_then(|()| self.flush_pending());
+            self.pending_items.clear();
+            if let Err(e) = r {
+                self.retry_at_ms = now_ms.saturating_add(RETRY_MS);
+                return Err(e);
+            }
+            if let Some(done) = self.held.pop_front() {
+                self.held_bytes = self.held_bytes.saturating_sub(held_size(&done));
+            }
+            written += 1;
+        }
+        self.sync_current()?;
+        self.last_fsync_ms = now_ms;
+        Ok(written)
+    }
+
+    /// Records held in memory (see the module docs).
+    pub fn held(&self) -> usize {
+        self.held.len()
+    }
+
+    /// Keeps one numbered record in memory; beyond `max_held_bytes` the oldest held
+    /// records are dropped (never the newest) and counted.
+    fn hold(&mut self, now_ms: i64, seq: u64, topic: &str, retain: bool, payload: &str) {
+        let rec = Record {
+            seq,
+            ts_ms: now_ms,
+            topic: topic.to_owned(),
+            retain,
+            payload: payload.to_owned(),
+        };
+        self.held_bytes += held_size(&rec);
+        self.held.push_back(rec);
+        while self.held_bytes > self.max_held_bytes && self.held.len() > 1 {
+            if let Some(old) = self.held.pop_front() {
+                self.held_bytes = self.held_bytes.saturating_sub(held_size(&old));
+                self.held_dropped += 1;
+                if old.seq > self.published_seq {
+                    self.held_dropped_unpublished += 1;
+                }
+            }
+        }
+        if self.held.len() == 1 {
+            self.retry_at_ms = now_ms.saturating_add(RETRY_MS);
+        }
+    }
+
+    /// Moves the staged lines of a batch whose write failed into memory, numbers kept.
+    fn hold_pending(&mut self, now_ms: i64, items: &[(&str, bool, &str)]) {
+        let pending = std::mem::take(&mut self.pending_items);
+        for (i, seq) in pending {
+            if let Some(&(topic, retain, payload)) = items.get(i) {
+                self.hold(now_ms, seq, topic, retain, payload);
+            }
+        }
+    }
+
+    /// Refuses a record the journal cannot keep whatever the disk does.
+    fn check(&self, now_ms: i64, topic: &str, payload: &str) -> Result<(), JournalError> {
         if !(payload.starts_with('{') && payload.ends_with('}') && !payload.contains('\n')) {
             return Err(JournalError::BadPayload {
                 dir: self.dir.clone(),
                 topic: topic.to_owned(),
             });
         }
-        let day = now_ms.div_euclid(MS_PER_DAY);
-        let (year, _, _) = civil_from_days(day);
+        let (year, _, _) = civil_from_days(now_ms.div_euclid(MS_PER_DAY));
         if !(0..=9999).contains(&year) {
             return Err(JournalError::BadTime {
                 dir: self.dir.clone(),
                 now_ms,
             });
         }
-        let seq = self.last_seq + 1;
+        Ok(())
+    }
+
+    /// Adds the line of record `seq` to the pending bytes of the segment for `day`
+    /// (rotating and making room first).
+    fn stage_line(
+        &mut self,
+        day: i64,
+        seq: u64,
+        ts_ms: i64,
+        topic: &str,
+        retain: bool,
+        payload: &str,
+    ) -> Result<(), JournalError> {
         let mut line = std::mem::take(&mut self.line);
         line.clear();
-        write_line_prefix(&mut line, seq, now_ms, topic, retain);
+        write_line_prefix(&mut line, seq, ts_ms, topic, retain);
         line.push_str(payload);
         line.push_str("}\n");
         let len = line.len() as u64;
         let r = self
-            .select_segment(day, seq, len, out)
+            .select_segment(day, seq, len)
             .and_then(|()| self.make_room(len));
         if r.is_ok() {
-            if self.pending.is_empty() {
-                self.pending_from_seq = self.last_seq;
-            }
             self.pending.extend_from_slice(line.as_bytes());
-            self.pending_items.push(index);
             if let Some(seg) = self.segments.last_mut() {
                 seg.bytes += len;
             }
-            self.last_seq = seq;
-            out.seqs[index] = Some(seq);
         }
         self.line = line;
         r
@@ -416,7 +558,8 @@ impl Journal {
         Ok(())
     }
 
-    /// Up to `max` records with `seq > after`, in order, read from disk. Segments whose
+    /// Up to `max` records with `seq > after`, in order, read from disk and then from
+    /// the records held in memory (which are newer than any on disk). Segments whose
     /// whole range is `<= after` (known from the file names) are not opened. Unreadable
     /// lines are skipped and counted once in `corrupt_lines`; a segment deleted behind the
     /// journal's back is skipped.
@@ -474,6 +617,12 @@ impl Journal {
                 }
             }
         }
+        for rec in self.held.iter().filter(|r| r.seq > after) {
+            if out.len() >= max {
+                break;
+            }
+            out.push(rec.clone());
+        }
         Ok(out)
     }
 
@@ -492,6 +641,9 @@ impl Journal {
             dropped_records: self.dropped_records,
             dropped_unpublished: self.dropped_unpublished,
             corrupt_lines: self.truncated_lines + self.corrupt_seen.borrow().len() as u64,
+            held_records: self.held.len(),
+            held_dropped: self.held_dropped,
+            held_dropped_unpublished: self.held_dropped_unpublished,
         }
     }
 
@@ -531,13 +683,7 @@ impl Journal {
 
     /// Makes the last segment the right one for a line of `len` bytes with sequence `seq`
     /// written on UTC day `day`, and opens it for appending.
-    fn select_segment(
-        &mut self,
-        day: i64,
-        seq: u64,
-        len: u64,
-        out: &mut Batch,
-    ) -> Result<(), JournalError> {
+    fn select_segment(&mut self, day: i64, seq: u64, len: u64) -> Result<(), JournalError> {
         let rotate = match self.segments.last() {
             None => true,
             Some(seg) => {
@@ -547,7 +693,7 @@ impl Journal {
         };
         if rotate {
             // The finished segment is made durable before the next one exists.
-            self.flush_pending(out)?;
+            self.flush_pending()?;
             self.sync_current()?;
             self.current = None;
             if self.segments.last().is_some_and(|seg| seg.bytes == 0) {
@@ -597,22 +743,30 @@ impl Journal {
         Ok(())
     }
 
-    /// Writes the pending lines to the current segment in one go; on failure cuts the
-    /// segment back to its length before them (so no partial line stays behind), gives
-    /// their sequence numbers back and marks their items not kept.
-    fn flush_pending(&mut self, out: &mut Batch) -> Result<(), JournalError> {
+    /// Writes the pending lines to the current segment in one go. On failure cuts the
+    /// segment back to its length before them (so no partial line stays behind) and
+    /// leaves `pending_items` for the caller to hold.
+    fn flush_pending(&mut self) -> Result<(), JournalError> {
         if self.pending.is_empty() {
             return Ok(());
         }
         let pending = self.pending.len() as u64;
         let (Some(file), Some(seg)) = (self.current.as_mut(), self.segments.last_mut()) else {
             // Not reached: a line is staged only with an open current segment.
+            self.pending.clear();
             return Err(JournalError::Dir {
                 path: self.dir.clone(),
                 action: "find the current segment in",
                 source: io::Error::other("no open segment"),
             });
         };
+        #[cfg(test)]
+        let written = if self.fail_writes {
+            Err(io::Error::from(io::ErrorKind::StorageFull))
+        } else {
+            file.write_all(&self.pending)
+        };
+        #[cfg(not(test))]
         let written = file.write_all(&self.pending);
         self.pending.clear();
         match written {
@@ -626,12 +780,6 @@ impl Journal {
                 let _ = file.set_len(seg.bytes);
                 let path = seg.path.clone();
                 self.current = None;
-                self.last_seq = self.pending_from_seq;
-                for i in self.pending_items.drain(..) {
-                    if let Some(s) = out.seqs.get_mut(i) {
-                        *s = None;
-                    }
-                }
                 Err(JournalError::Io {
                     path,
                     action: "append to",
@@ -676,6 +824,29 @@ impl Drop for Journal {
 }
 
 /// True when `interval_ms` has passed since `since_ms`, or the clock went backwards.
+/// What a held record counts against `memory_max_bytes`.
+fn held_size(r: &Record) -> usize {
+    r.topic.len() + r.payload.len() + HELD_OVERHEAD
+}
+
+/// Refuses a folder the journal could not write: a file is created, written, synced and
+/// removed (a read-only mount or a missing permission fails here, not at the first result).
+fn probe_writable(dir: &Path) -> Result<(), JournalError> {
+    let path = dir.join(PROBE_FILE);
+    let r = OpenOptions::new()
+        .write(true)
+        .create(true)
+        .truncate(true)
+        .open(&path)
+        .and_then(|mut f| f.write_all(b"probe\n").and_then(|()| f.sync_all()));
+    let _ = fs::remove_file(&path);
+    r.map_err(|source| JournalError::Dir {
+        path: dir.to_path_buf(),
+        action: "write a file in",
+        source,
+    })
+}
+
 fn elapsed(since_ms: i64, now_ms: i64, interval_ms: i64) -> bool {
     now_ms < since_ms || now_ms.saturating_sub(since_ms) >= interval_ms
 }
@@ -942,6 +1113,7 @@ mod tests {
             max_file_bytes: max_file,
             max_total_bytes: max_total,
             fsync_interval: Duration::from_millis(fsync_ms),
+            memory_max_bytes: 64 * 1024,
         }
     }
 
@@ -1007,6 +1179,81 @@ mod tests {
         let st = j.stats();
         assert_eq!((st.files, st.last_seq, st.backlog), (1, 3, 3));
         assert_eq!(st.bytes, text.len() as u64);
+    }
+
+    #[test]
+    fn a_failed_write_holds_records_with_their_numbers_until_the_disk_takes_them() {
+        let tmp = tempfile::tempdir().expect("tempdir");
+        let s = settings(tmp.path(), 1 << 20, 1 << 24, 1000);
+        let mut j = Journal::open(&s, T0).expect("open");
+        for i in 1..=3 {
+            j.append(T0, "t", false, &payload(i)).expect("append");
+        }
+        let before = fs::read_to_string(s.dir.join(&segment_names(&s.dir)[0])).unwrap();
+        // The disk stops taking writes (as full): the batch keeps its numbers, in memory.
+        j.fail_writes = true;
+        let (p4, p5, p6) = (payload(4), payload(5), payload(6));
+        let b = j.append_batch(
+            T0 + 10,
+            [("t", false, p4.as_str()), ("t", true, p5.as_str())],
+        );
+        assert_eq!(b.seqs, vec![Some(4), Some(5)]);
+        assert_eq!(b.errors.len(), 1, "one failed write, one error");
+        assert!(b.errors[0].is_disk());
+        // No partial line stays behind.
+        let after = fs::read_to_string(s.dir.join(&segment_names(&s.dir)[0])).unwrap();
+        assert_eq!(after, before);
+        // While records are held, new ones are held too without another write attempt
+        // (inside the retry interval: no error).
+        let b = j.append_batch(T0 + 20, [("t", false, p6.as_str())]);
+        assert_eq!((b.seqs, b.errors.len()), (vec![Some(6)], 0));
+        assert_eq!(j.held(), 3);
+        assert_eq!(j.stats().held_records, 3);
+        // Read-back serves disk and memory alike, in order.
+        assert_eq!(seqs(&j.read_after(0, 100).unwrap()), vec![1, 2, 3, 4, 5, 6]);
+        assert_eq!(seqs(&j.read_after(4, 1).unwrap()), vec![5]);
+        // A retry after the interval on a still-full disk fails and keeps them.
+        assert!(j.retry_held(T0 + 10 + RETRY_MS).is_err());
+        assert_eq!(j.held(), 3);
+        // Space returns: not before the next interval, then all at once, in order.
+        j.fail_writes = false;
+        assert_eq!(j.retry_held(T0 + 10 + RETRY_MS + 1).unwrap(), 0);
+        assert_eq!(j.retry_held(T0 + 10 + 2 * RETRY_MS).unwrap(), 3);
+        assert_eq!(j.held(), 0);
+        assert_eq!(j.append(T0 + 30, "t", false, &payload(7)).unwrap(), 7);
+        drop(j);
+        let j = Journal::open(&s, T0 + 40).expect("reopen");
+        let all = j.read_after(0, 100).unwrap();
+        assert_eq!(seqs(&all), vec![1, 2, 3, 4, 5, 6, 7]);
+        assert!(all[4].retain, "held records keep their fields");
+        assert_eq!(all[3].ts_ms, T0 + 10, "and their time");
+    }
+
+    #[test]
+    fn records_held_beyond_the_memory_cap_drop_the_oldest_and_are_counted() {
+        let tmp = tempfile::tempdir().expect("tempdir");
+        let s = settings(tmp.path(), 1 << 20, 1 << 24, 1000);
+        let mut j = Journal::open(&s, T0).expect("open");
+        j.fail_writes = true;
+        // About 1.1 KB each against a 64 KiB cap.
+        let big = format!("{{\"pad\":\"{}\"}}", "x".repeat(1000));
+        for _ in 0..20 {
+            j.append_batch(T0, [("t", false, big.as_str())]);
+        }
+        // The broker acknowledged the first 20 (the cursor write may fail: not asserted).
+        let _ = j.mark_published(20, T0, false);
+        for _ in 0..90 {
+            j.append_batch(T0, [("t", false, big.as_str())]);
+        }
+        let st = j.stats();
+        assert!(st.held_records < 64, "{} held", st.held_records);
+        assert_eq!(st.held_records as u64 + st.held_dropped, 110);
+        assert!(j.held_bytes <= 64 * 1024);
+        // The newest are the ones kept.
+        let kept = j.read_after(0, 1000).unwrap();
+        assert_eq!(kept.last().map(|r| r.seq), Some(110));
+        // Dropped records the broker had acknowledged (1..=20) are not counted as lost.
+        assert_eq!(st.held_dropped_unpublished, st.held_dropped - 20);
     }
 
     #[test]

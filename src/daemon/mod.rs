@@ -87,6 +87,8 @@ pub enum JournalCmd {
     Drained,
     /// The watch state to save beside the journal (`state.rs`).
     SaveState(String),
+    /// Try again to write results held in memory (sent once a second while any are).
+    Retry,
 }
 
 /// Messages from the journal thread to the link.
@@ -177,6 +179,9 @@ async fn evaluate_loop(
             _ = tick.tick() => {
                 engine.tick(clock(), &mut batch);
                 ticks += 1;
+                if metrics.journal_held.load(Relaxed) > 0 {
+                    let _ = journal.try_send(JournalCmd::Retry);
+                }
                 // The run's learned state once a minute (a few KB; the journal thread writes it).
                 if ticks % STATE_SAVE_TICKS == 0 {
                     let _ = journal.try_send(JournalCmd::SaveState(state::encode(&engine, clock())));
@@ -210,6 +215,68 @@ fn save_state(path: &std::path::Path, text: &str) -> std::io::Result<()> {
     std::fs::rename(&tmp, path)
 }
 
+/// Journal disk errors are logged at most this often (the rest are counted).
+const TROUBLE_LINE_EVERY: Duration = Duration::from_secs(60);
+
+/// The journal disk's trouble for the log: the first error of an episode is an ERROR,
+/// further ones at most one line a minute with how many were not logged, and the end
+/// of an episode that was logged one INFO line. Every error is counted in
+/// `journal_errors_total` whether logged or not.
+#[derive(Default)]
+struct Trouble {
+    /// `journal.memory_max_bytes`, for the log.
+    cap: usize,
+    failing: bool,
+    /// A line was logged for the current episode.
+    announced: bool,
+    last_line: Option<std::time::Instant>,
+    not_logged: u64,
+}
+
+impl Trouble {
+    /// Counts an error; a disk error goes to the rate-limited log, a refused record (a
+    /// bug, not the disk) is logged each time.
+    fn report(&mut self, e: &journal::JournalError, held: usize, metrics: &Metrics) {
+        metrics.journal_errors.fetch_add(1, Relaxed);
+        if e.is_disk() {
+            self.failed(e, held);
+        } else {
+            error!(error = %e, "journal refused a record; result not kept");
+        }
+    }
+
+    fn failed(&mut self, e: &journal::JournalError, held: usize) {
+        let cap = self.cap;
+        let due = self
+            .last_line
+            .is_none_or(|t| t.elapsed() >= TROUBLE_LINE_EVERY);
+        if due {
+            if self.failing {
+                warn!(error = %e, held, errors_not_logged = self.not_logged, "journal still cannot be written; results are held in memory and published");
+            } else {
+                error!(error = %e, held, memory_max_bytes = cap, "journal cannot be written: results are held in memory (up to memory_max_bytes, oldest dropped beyond it) and still published; /readyz is not ready until the journal takes them again");
+            }
+            self.last_line = Some(std::time::Instant::now());
+            self.not_logged = 0;
+            self.announced = true;
+        } else {
+            self.not_logged += 1;
+        }
+        self.failing = true;
+    }
+
+    fn recovered(&mut self) {
+        if self.failing && self.announced {
+            info!(
+                errors_not_logged = self.not_logged,
+                "journal writable again: the results held in memory are written"
+            );
+        }
+        self.failing = false;
+        self.announced = false;
+    }
+}
+
 /// The journal thread: appends, reads back, and keeps the published cursor.
 fn journal_thread(
     mut j: Journal,
@@ -218,6 +285,7 @@ fn journal_thread(
     metrics: Arc<Metrics>,
     clock: Clock,
     state_path: std::path::PathBuf,
+    memory_cap: usize,
 ) {
     let update = |j: &Journal| {
         let st = j.stats();
@@ -227,10 +295,20 @@ fn journal_thread(
         metrics
             .journal_dropped_unpublished
             .store(st.dropped_unpublished, Relaxed);
+        metrics.journal_held.store(st.held_records as u64, Relaxed);
+        metrics.journal_held_dropped.store(st.held_dropped, Relaxed);
+        metrics
+            .journal_held_dropped_unpublished
+            .store(st.held_dropped_unpublished, Relaxed);
+    };
+    let mut trouble = Trouble {
+        cap: memory_cap,
+        ..Trouble::default()
     };
     update(&j);
     let _ = to_link.blocking_send(ToLink::JournalAt(j.last_seq()));
     while let Some(cmd) = rx.blocking_recv() {
+        let mut ok = true;
         match cmd {
             JournalCmd::Append(items) => {
                 // One write for the whole batch (see `Journal::append_batch`).
@@ -241,8 +319,9 @@ fn journal_thread(
                         .iter()
                         .map(|a| (a.topic.as_str(), a.retain, a.payload.as_str())),
                 );
+                ok = batch.errors.is_empty();
                 for e in &batch.errors {
-                    error!(error = %e, "journal append failed; result not kept");
+                    trouble.report(e, j.held(), &metrics);
                 }
                 let mut out = Vec::with_capacity(items.len());
                 for (
@@ -254,18 +333,16 @@ fn journal_thread(
                     seq,
                 ) in items.into_iter().zip(batch.seqs)
                 {
-                    match seq {
-                        Some(seq) => out.push(Outgoing {
+                    // Without a number the record was refused (counted above).
+                    if let Some(seq) = seq {
+                        out.push(Outgoing {
                             seq,
                             ts_ms: now,
                             topic,
                             retain,
                             payload,
                             replayed: false,
-                        }),
-                        None => {
-                            metrics.journal_errors.fetch_add(1, Relaxed);
-                        }
+                        });
                     }
                 }
                 if !out.is_empty() {
@@ -274,8 +351,8 @@ fn journal_thread(
             }
             JournalCmd::Published { seq, force } => {
                 if let Err(e) = j.mark_published(seq, clock(), force) {
-                    metrics.journal_errors.fetch_add(1, Relaxed);
-                    warn!(error = %e, "could not record the published cursor");
+                    ok = false;
+                    trouble.report(&e, j.held(), &metrics);
                 }
             }
             JournalCmd::ReadAfter { after, max } => {
@@ -297,8 +374,8 @@ fn journal_thread(
                         }
                     }
                     Err(e) => {
-                        metrics.journal_errors.fetch_add(1, Relaxed);
-                        error!(error = %e, "journal read failed");
+                        ok = false;
+                        trouble.report(&e, j.held(), &metrics);
                     }
                 }
                 let _ = to_link.blocking_send(ToLink::ReadDone);
@@ -312,11 +389,26 @@ fn journal_thread(
                     warn!(error = %e, file = %state_path.display(), "watch state not saved");
                 }
             }
+            JournalCmd::Retry => {
+                if let Err(e) = j.retry_held(clock()) {
+                    ok = false;
+                    trouble.report(&e, j.held(), &metrics);
+                }
+            }
+        }
+        if ok && j.held() == 0 {
+            trouble.recovered();
         }
         update(&j);
     }
     if let Err(e) = j.sync() {
         error!(error = %e, "journal sync at shutdown failed");
+    }
+    if j.held() > 0 {
+        error!(
+            held = j.held(),
+            "shutdown with results held in memory that the journal could not write; those the broker acknowledged are delivered, the rest are lost"
+        );
     }
 }
 
@@ -390,6 +482,7 @@ pub async fn run(
     let jm = metrics.clone();
     let jclock = clock.clone();
     let state_path = settings.journal.dir.join(state::STATE_FILE);
+    let memory_cap = settings.journal.memory_max_bytes;
     let saved = {
         let p = state_path.clone();
         tokio::task::spawn_blocking(move || std::fs::read_to_string(p).ok())
@@ -399,7 +492,7 @@ pub async fn run(
     };
     let jthread = std::thread::Builder::new()
         .name("eqwatch-journal".into())
-        .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock, state_path))
+        .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock, state_path, memory_cap))
         .map_err(|e| DaemonError::Journal(e.to_string()))?;
     let (in_tx, in_rx) = mpsc::channel::<RawInput>(INPUT_QUEUE);
     let acked = Arc::new(tokio::sync::Notify::new());

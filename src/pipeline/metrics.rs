@@ -52,6 +52,11 @@ pub struct Metrics {
     pub journal_dropped: AtomicU64,
     pub journal_dropped_unpublished: AtomicU64,
     pub journal_errors: AtomicU64,
+    /// Results held in memory while the journal disk does not take them, and those
+    /// dropped from memory over `journal.memory_max_bytes` (never written).
+    pub journal_held: AtomicU64,
+    pub journal_held_dropped: AtomicU64,
+    pub journal_held_dropped_unpublished: AtomicU64,
     /// Operator alarm activations in the last 10 minutes (all reactors).
     pub alarms_last_10min: AtomicU64,
     pub floods: AtomicU64,
@@ -143,6 +148,16 @@ impl Metrics {
             "journal_errors_total",
             "Journal write or read errors.",
             self.journal_errors.load(Relaxed),
+        );
+        counter(
+            "journal_held_dropped_total",
+            "Results dropped from memory over journal.memory_max_bytes while the journal could not be written (never journaled).",
+            self.journal_held_dropped.load(Relaxed),
+        );
+        counter(
+            "journal_held_dropped_unpublished_total",
+            "Of those, results the broker had not acknowledged.",
+            self.journal_held_dropped_unpublished.load(Relaxed),
         );
         counter(
             "alarm_floods_total",
@@ -294,6 +309,11 @@ impl Metrics {
             "journal_last_sequence",
             "Sequence number of the newest journal record.",
             self.journal_last_seq.load(Relaxed),
+        );
+        gauge(
+            "journal_held_records",
+            "Results held in memory because the journal disk is full or cannot be written (readiness is false while above 0).",
+            self.journal_held.load(Relaxed),
         );
         gauge(
             "journal_bytes",

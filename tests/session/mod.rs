@@ -7,8 +7,6 @@ use std::path::Path;
 use std::process::{Child, Command, Stdio};
 use std::time::Duration;
 
-use serde_json::Value;
-
 use crate::support::*;
 
 /// Mosquitto on `port` with its database in `dir` (saved at a clean stop).
@@ -43,34 +41,6 @@ fn stop(mut broker: Child, port: u16) {
     assert!(wait_port(port, false, Duration::from_secs(10)));
 }
 
-/// The docs/domain.md §8 LTS gas (dry mol%) at 220 °C, 29 barg, steam ratio 0.36312, as
-/// an analysis at minute `m` with its scalars one analyser lag before.
-fn publish_set_at(p: &Publisher, rt: &tokio::runtime::Runtime, m: i64) {
-    let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
-    p.publish(rt, "t/lts1/ti", &s(ts(m) - 60_000, 220.0, "degC"));
-    p.publish(rt, "t/lts1/pi", &s(ts(m) - 60_000, 29.0, "barg"));
-    p.publish(rt, "t/lts1/fy", &s(ts(m) - 60_000, 0.36312, "mol/mol"));
-    p.publish(
-        rt,
-        "t/lts1/ai",
-        &format!(
-            r#"{{"ts":{},"values":{{"H2":61.0536,"N2":18.98637,"CO":0.28697,"CO2":19.38096,"CH4":0.2921}},"unit":"mol%"}}"#,
-            ts(m)
-        ),
-    );
-}
-
-/// Distinct analysis times among the results received.
-fn analyses(got: &Received) -> std::collections::BTreeSet<String> {
-    got.lock()
-        .unwrap()
-        .iter()
-        .filter(|(t, _, _)| t == "eqwatch/test/lts1/result")
-        .filter_map(|(_, pl, _)| serde_json::from_str::<Value>(pl).ok())
-        .filter_map(|v| v.get("analysis_ts").map(Value::to_string))
-        .collect()
-}
-
 #[test]
 fn input_published_while_the_daemon_is_down_survives_a_broker_restart() {
     let rt = runtime();
@@ -94,7 +64,7 @@ fn input_published_while_the_daemon_is_down_survives_a_broker_restart() {
     // Ten analyses while the daemon is stopped: the broker queues them in its session.
     let p = Publisher::new(&rt, port);
     for m in 0..10 {
-        publish_set_at(&p, &rt, m);
+        publish_lts_set_at(&p, &rt, m);
     }
     std::thread::sleep(Duration::from_secs(2));
     drop(p);
@@ -104,12 +74,12 @@ fn input_published_while_the_daemon_is_down_survives_a_broker_restart() {
     let got = collector(&rt, port, &["eqwatch/test/#"]);
     let mut d = Daemon::start(&config, http);
     let all = wait_for(&got, Duration::from_secs(30), |_| {
-        analyses(&got).len() >= 10
+        lts_analyses(&got).len() >= 10
     });
     assert!(
         all,
         "{} of 10 analyses published while the daemon was down were evaluated",
-        analyses(&got).len()
+        lts_analyses(&got).len()
     );
     d.signal("-TERM");
     assert_eq!(d.wait_exit(Duration::from_secs(20)), Some(0));

@@ -265,18 +265,34 @@ impl Publisher {
 /// LTS gas (dry mol%) read at 220 °C, 29 barg, steam ratio 0.36312, the scalars one
 /// analyser lag (60 s) before the analysis, on the topics of [`write_lts_plant`].
 pub fn publish_lts_set(p: &Publisher, rt: &tokio::runtime::Runtime) {
+    publish_lts_set_at(p, rt, 0);
+}
+
+/// [`publish_lts_set`] for the analysis at `ts(m)`.
+pub fn publish_lts_set_at(p: &Publisher, rt: &tokio::runtime::Runtime, m: i64) {
     let s = |t: i64, v: f64, u: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{u}"}}"#);
-    p.publish(rt, "t/lts1/ti", &s(ts(0) - 60_000, 220.0, "degC"));
-    p.publish(rt, "t/lts1/pi", &s(ts(0) - 60_000, 29.0, "barg"));
-    p.publish(rt, "t/lts1/fy", &s(ts(0) - 60_000, 0.36312, "mol/mol"));
+    p.publish(rt, "t/lts1/ti", &s(ts(m) - 60_000, 220.0, "degC"));
+    p.publish(rt, "t/lts1/pi", &s(ts(m) - 60_000, 29.0, "barg"));
+    p.publish(rt, "t/lts1/fy", &s(ts(m) - 60_000, 0.36312, "mol/mol"));
     p.publish(
         rt,
         "t/lts1/ai",
         &format!(
             r#"{{"ts":{},"values":{{"H2":61.0536,"N2":18.98637,"CO":0.28697,"CO2":19.38096,"CH4":0.2921}},"unit":"mol%"}}"#,
-            ts(0)
+            ts(m)
         ),
     );
+}
+
+/// Distinct analysis times among the `lts1` results received (the test plant's prefix).
+pub fn lts_analyses(got: &Received) -> std::collections::BTreeSet<String> {
+    got.lock()
+        .unwrap()
+        .iter()
+        .filter(|(t, _, _)| t == "eqwatch/test/lts1/result")
+        .filter_map(|(_, pl, _)| serde_json::from_str::<serde_json::Value>(pl).ok())
+        .filter_map(|v| v.get("analysis_ts").map(|t| t.to_string()))
+        .collect()
 }
 
 /// Waits until `pred` holds on the received messages.

@@ -522,8 +522,25 @@ pub(crate) fn journal(problems: &mut Problems, raw: &RawJournal, base: &Path) ->
             why_min: "write \"1 s\" or similar",
         },
     );
+    const MIB: i64 = 1024 * 1024;
+    let memory_max_bytes = match raw.memory_max_bytes {
+        None => 4 * MIB,
+        Some(n) if (64 * 1024..=1024 * MIB).contains(&n) => n,
+        Some(n) => {
+            problems.add(
+                "journal.memory_max_bytes",
+                format!(
+                    "{n} is outside 65536 to 1073741824 bytes (64 KiB to 1 GiB): the results \
+                     held while the disk is full or unwritable"
+                ),
+            );
+            4 * MIB
+        }
+    };
     JournalSettings {
         dir: base.join(&raw.dir),
+        // Inside 64 KiB to 1 GiB (checked above).
+        memory_max_bytes: usize::try_from(memory_max_bytes).unwrap_or(usize::MAX),
         // Both were checked positive above.
         max_file_bytes: max_file_bytes.unsigned_abs(),
         max_total_bytes: max_total_bytes.unsigned_abs(),
