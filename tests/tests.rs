@@ -11,5 +11,6 @@ mod disk;
 mod monitor;
 mod replay;
 mod session;
+mod site;
 mod slow_link;
 mod tls;

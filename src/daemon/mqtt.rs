@@ -31,7 +31,7 @@ use rumqttc::{
 };
 use tokio::sync::mpsc;
 use tokio_util::sync::CancellationToken;
-use tracing::{debug, info, warn};
+use tracing::{debug, error, info, warn};
 
 use super::outbox::{Offer, Outbox};
 use super::{Clock, JournalCmd, RawInput, ToLink, UNACKED_RESUME, now_ms};
@@ -108,7 +108,7 @@ pub fn input_options(b: &BrokerSettings) -> Result<MqttOptions, LinkError> {
 /// The largest packet the input link reads: 16 times the configured limit, at least
 /// 16 MiB, at most MQTT's largest packet (268,435,455 bytes, MQTT 3.1.1 §2.2.3).
 /// Messages beyond it still drop the connection: a broker's `message_size_limit` at
-/// the configured limit (deploy/mosquitto-site.conf) keeps them away.
+/// the configured limit (deploy/mosquitto/mosquitto.conf) keeps them away.
 pub fn input_read_ceiling(limit: usize) -> usize {
     limit.saturating_mul(16).clamp(16 << 20, 268_435_455)
 }
@@ -243,6 +243,8 @@ struct Connection {
     ever: bool,
     failures: u32,
     jitter: Jitter,
+    /// The configured user name, for the refusal message.
+    user: Option<String>,
 }
 
 impl Connection {
@@ -256,6 +258,7 @@ impl Connection {
             ever: false,
             failures: 0,
             jitter: Jitter((now_ms() as u64).wrapping_add(what.len() as u64) | 1),
+            user: b.username.clone(),
         }
     }
 
@@ -270,17 +273,30 @@ impl Connection {
 
     /// The connection failed or could not be made: logs it and returns the delay before
     /// the next attempt ("equal jitter": half fixed, half random, growing exponentially).
+    /// A broker that refuses the login or the client id will not change its mind in
+    /// milliseconds: those wait the longest delay (`reconnect_max`) at once and say
+    /// what to fix.
     fn lost(&mut self, e: &rumqttc::ConnectionError) -> Duration {
         let was_up = self.since.take();
         if was_up.is_some_and(|t| t.elapsed() >= STABLE) {
             self.failures = 0;
         }
         self.failures = self.failures.saturating_add(1);
+        let (what, broker, attempt) = (self.what, &self.broker, self.failures);
+        if let Some(fix) = refusal(e, self.user.as_deref()) {
+            let delay = self.max.mul_f64(1.0 + 0.1 * self.jitter.next_unit());
+            let retry = format!("{:.1} s", delay.as_secs_f64());
+            if attempt == 1 {
+                error!(error = %e, retry_in = %retry, "broker {broker} {fix} ({what} connection); retrying every broker.reconnect_max");
+            } else {
+                warn!(error = %e, retry_in = %retry, attempt, "broker {broker} {fix} ({what} connection)");
+            }
+            return delay;
+        }
         let base = self.min.as_secs_f64() * 2f64.powi(self.failures.min(30) as i32 - 1);
         let cap = base.min(self.max.as_secs_f64());
         let delay = Duration::from_secs_f64(cap * (0.5 + 0.5 * self.jitter.next_unit()));
         let retry = format!("{:.1} s", delay.as_secs_f64());
-        let (what, broker, attempt) = (self.what, &self.broker, self.failures);
         match was_up {
             Some(t) => {
                 warn!(error = %e, retry_in = %retry, "{what} connection to broker {broker} lost after {}", up_for(t.elapsed()))
@@ -293,6 +309,34 @@ impl Connection {
             }
         }
         delay
+    }
+}
+
+/// What to fix when the broker refused the connection for a reason that retrying soon
+/// will not change (MQTT 3.1.1 §3.2.2.3 return codes 1, 2, 4, 5); `None` otherwise
+/// (3, server unavailable, and every network error take the normal backoff).
+fn refusal(e: &rumqttc::ConnectionError, user: Option<&str>) -> Option<String> {
+    use rumqttc::ConnectReturnCode as Code;
+    let rumqttc::ConnectionError::ConnectionRefused(code) = e else {
+        return None;
+    };
+    let login = match user {
+        Some(u) => format!("user {u:?}"),
+        None => "no user name (anonymous)".to_string(),
+    };
+    match code {
+        Code::BadUserNamePassword | Code::NotAuthorized => Some(format!(
+            "refused the user name or password, {login}: check broker.username and \
+             broker.password_file or password_env against the broker's password file"
+        )),
+        Code::BadClientId => Some(
+            "refused the client id: check broker.client_id (1 to 23 letters and digits for MQTT 3.1.1, unique on the broker)"
+                .to_string(),
+        ),
+        Code::RefusedProtocolVersion => Some(
+            "refused MQTT 3.1.1: check the broker's listener (protocol) settings".to_string(),
+        ),
+        Code::Success | Code::ServiceUnavailable => None,
     }
 }
 

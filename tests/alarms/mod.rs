@@ -12,7 +12,7 @@ use crate::support::*;
 /// One LTS (invented test plant) with a rationalised approach alarm at 10 K: the docs/domain.md
 /// §8 LTS gas read at 220 °C is 12.00 K from equilibrium (Moe 1962 K; docs/domain.md §8), so the
 /// first analysis raises it.
-fn write_config(dir: &Path, port: u16, http_port: u16) -> PathBuf {
+pub(crate) fn write_config(dir: &Path, port: u16, http_port: u16) -> PathBuf {
     write_lts_plant(
         dir,
         port,
@@ -33,7 +33,7 @@ allowed_users = ["op1"]
     )
 }
 
-fn states(got: &Received) -> Vec<Value> {
+pub(crate) fn states(got: &Received) -> Vec<Value> {
     got.lock()
         .unwrap()
         .iter()
@@ -42,7 +42,7 @@ fn states(got: &Received) -> Vec<Value> {
         .collect()
 }
 
-fn outcomes(got: &Received) -> Vec<Value> {
+pub(crate) fn outcomes(got: &Received) -> Vec<Value> {
     got.lock()
         .unwrap()
         .iter()
@@ -51,7 +51,7 @@ fn outcomes(got: &Received) -> Vec<Value> {
         .collect()
 }
 
-fn alarm_state(v: &Value) -> (String, String) {
+pub(crate) fn alarm_state(v: &Value) -> (String, String) {
     let a = v["alarms"]
         .as_array()
         .and_then(|a| a.iter().find(|x| x["alarm"] == "approach-high"))

@@ -202,10 +202,23 @@ pub type Received = Arc<Mutex<Vec<(String, String, bool)>>>;
 /// Subscribes to `filters` and keeps everything it receives; resubscribes after every
 /// reconnect (the broker may be restarted by the test).
 pub fn collector(rt: &tokio::runtime::Runtime, port: u16, filters: &[&str]) -> Received {
+    collector_as(rt, port, filters, None)
+}
+
+/// [`collector`] logged in as `(user, password)`.
+pub fn collector_as(
+    rt: &tokio::runtime::Runtime,
+    port: u16,
+    filters: &[&str],
+    login: Option<(&str, &str)>,
+) -> Received {
     let got: Received = Arc::new(Mutex::new(Vec::new()));
     let g = got.clone();
     let filters: Vec<String> = filters.iter().map(|s| s.to_string()).collect();
     let mut o = MqttOptions::new(format!("collector-{}", free_port()), "127.0.0.1", port);
+    if let Some((u, p)) = login {
+        o.set_credentials(u, p);
+    }
     o.set_keep_alive(Duration::from_secs(5));
     o.set_max_packet_size(1 << 20, 1 << 20);
     let (client, mut ev) = AsyncClient::new(o, 64);
@@ -239,7 +252,15 @@ pub struct Publisher {
 
 impl Publisher {
     pub fn new(rt: &tokio::runtime::Runtime, port: u16) -> Self {
+        Self::new_as(rt, port, None)
+    }
+
+    /// A publisher logged in as `(user, password)`.
+    pub fn new_as(rt: &tokio::runtime::Runtime, port: u16, login: Option<(&str, &str)>) -> Self {
         let mut o = MqttOptions::new(format!("publisher-{}", free_port()), "127.0.0.1", port);
+        if let Some((u, p)) = login {
+            o.set_credentials(u, p);
+        }
         o.set_keep_alive(Duration::from_secs(5));
         o.set_max_packet_size(1 << 22, 1 << 22);
         let (client, mut ev) = AsyncClient::new(o, 1024);
