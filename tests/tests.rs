@@ -8,6 +8,7 @@ mod alarms;
 mod daemon;
 mod demo;
 mod disk;
+mod fleet;
 mod monitor;
 mod replay;
 mod session;

@@ -64,13 +64,13 @@ pub(crate) fn show_duration(d: Duration) -> String {
         (60_000_000_000, "min"),
         (1_000_000_000, "s"),
     ] {
-        if ns >= per && ns % per == 0 {
+        if ns >= per && ns.is_multiple_of(per) {
             return format!("{} {unit}", ns / per);
         }
     }
     if ns == 0 {
         "0 s".to_string()
-    } else if ns < 1_000_000_000 && ns % 1_000_000 == 0 {
+    } else if ns < 1_000_000_000 && ns.is_multiple_of(1_000_000) {
         format!("{} ms", ns / 1_000_000)
     } else {
         format!("{} s", show_number(d.as_secs_f64()))

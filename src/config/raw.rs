@@ -11,6 +11,8 @@ use toml::Spanned;
 #[serde(deny_unknown_fields)]
 pub(crate) struct RawConfig {
     pub site: String,
+    /// This daemon's shard of the site (one of several daemons on one prefix).
+    pub shard: Option<String>,
     pub topic_prefix: Option<String>,
     /// Barometric pressure with an absolute unit, e.g. `"0.98 bar"`.
     pub atmosphere: Option<String>,

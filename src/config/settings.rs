@@ -15,6 +15,9 @@ use crate::units::ScalarUnit;
 pub struct Settings {
     /// Site name (letters, digits, `-`, `_`).
     pub site: String,
+    /// This daemon's shard of the site, when several daemons share one prefix, each
+    /// owning its own reactors (letters, digits, `-`, `_`).
+    pub shard: Option<String>,
     /// Output topic prefix, default `eqwatch/<site>`; no wildcards, no trailing `/`.
     pub topic_prefix: String,
     pub broker: BrokerSettings,
@@ -28,6 +31,19 @@ pub struct Settings {
     pub reactors: Vec<ReactorSettings>,
     /// Who may send operator commands.
     pub commands: CommandSettings,
+}
+
+impl Settings {
+    /// A topic of the whole daemon rather than of one reactor (`status`, `alert`,
+    /// `alarms`): `<prefix>/<name>`, or `<prefix>/<name>/<shard>` for a sharded daemon,
+    /// so shards sharing a prefix never overwrite each other's retained status, will
+    /// or plant-wide alarm count.
+    pub fn daemon_topic(&self, name: &str) -> String {
+        match &self.shard {
+            Some(s) => format!("{}/{name}/{s}", self.topic_prefix),
+            None => format!("{}/{name}", self.topic_prefix),
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

@@ -49,9 +49,9 @@ fn pressure_unit_label(u: PressureUnit) -> String {
 
 fn show_bytes(n: u64) -> String {
     const MIB: u64 = 1024 * 1024;
-    if n >= MIB && n % MIB == 0 {
+    if n >= MIB && n.is_multiple_of(MIB) {
         format!("{} MiB", n / MIB)
-    } else if n >= 1024 && n % 1024 == 0 {
+    } else if n >= 1024 && n.is_multiple_of(1024) {
         format!("{} KiB", n / 1024)
     } else {
         format!("{n} bytes")
@@ -215,6 +215,16 @@ fn plant_rows(rows: &mut Rows, settings: &Settings) {
         "results",
         format!("{}/<reactor>/...", settings.topic_prefix),
     );
+    if let Some(shard) = &settings.shard {
+        rows.row(
+            "shard",
+            format!(
+                "{shard}: status on {}, plant-wide alarms on {}",
+                settings.daemon_topic("status"),
+                settings.daemon_topic("alarms")
+            ),
+        );
+    }
     let journal = &settings.journal;
     rows.row(
         "journal",

@@ -50,7 +50,7 @@ pub async fn serve(listener: TcpListener, metrics: Arc<Metrics>, cancel: Cancell
             Err(e) => {
                 // Out of descriptors, or the network: wait instead of spinning.
                 accept_errors += 1;
-                if accept_errors == 1 || accept_errors % 100 == 0 {
+                if accept_errors == 1 || accept_errors.is_multiple_of(100) {
                     warn!(error = %e, errors = accept_errors, retry_in_ms = backoff.as_millis() as u64, "http accept failed");
                 }
                 drop(permit);

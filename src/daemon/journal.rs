@@ -43,6 +43,8 @@ const LAST_FILE: &str = "last.seq";
 const TMP_SUFFIX: &str = ".tmp";
 const MS_PER_DAY: i64 = 86_400_000;
 const PROBE_FILE: &str = ".eqwatch-write-probe";
+/// Held with an exclusive lock while a journal is open: one process per folder.
+const LOCK_FILE: &str = "journal.lock";
 /// While records are held, a write is tried again at most this often (ms).
 pub const RETRY_MS: i64 = 1_000;
 /// What a held record costs besides its topic and payload (struct, queue slot), for
@@ -96,6 +98,12 @@ pub enum JournalError {
         dir.display()
     )]
     BadTime { dir: PathBuf, now_ms: i64 },
+    #[error(
+        "journal directory {} is in use by another eqwatch process (it holds {LOCK_FILE}); \
+         give each daemon its own journal.dir",
+        dir.display()
+    )]
+    InUse { dir: PathBuf },
 }
 
 impl JournalError {
@@ -202,6 +210,8 @@ pub struct Journal {
     truncated_lines: u64,
     /// Unreadable lines already counted, as (segment first seq, byte offset).
     corrupt_seen: RefCell<HashSet<(u64, u64)>>,
+    /// The open lock file (the lock goes with it).
+    _lock: File,
 }
 
 impl Journal {
@@ -215,6 +225,7 @@ impl Journal {
             source,
         })?;
         probe_writable(&dir)?;
+        let lock = lock_folder(&dir)?;
         let entries = fs::read_dir(&dir).map_err(|source| JournalError::Dir {
             path: dir.clone(),
             action: "list",
@@ -301,6 +312,7 @@ impl Journal {
             dropped_unpublished: 0,
             truncated_lines,
             corrupt_seen: RefCell::new(corrupt_seen),
+            _lock: lock,
         };
         if journal.persisted_last != journal.last_seq {
             journal.write_cursor(LAST_FILE, journal.last_seq)?;
@@ -716,10 +728,10 @@ impl Journal {
                 bytes: 0,
             });
             self.current = Some(file);
-        } else if self.current.is_none() {
-            if let Some(seg) = self.segments.last() {
-                self.current = Some(open_append(&seg.path)?);
-            }
+        } else if self.current.is_none()
+            && let Some(seg) = self.segments.last()
+        {
+            self.current = Some(open_append(&seg.path)?);
         }
         Ok(())
     }
@@ -824,6 +836,32 @@ impl Drop for Journal {
 }
 
 /// True when `interval_ms` has passed since `since_ms`, or the clock went backwards.
+/// Takes the folder's exclusive lock (released when the file closes, also on a crash).
+fn lock_folder(dir: &Path) -> Result<File, JournalError> {
+    let path = dir.join(LOCK_FILE);
+    let file = OpenOptions::new()
+        .write(true)
+        .create(true)
+        .truncate(false)
+        .open(&path)
+        .map_err(|source| JournalError::Io {
+            path: path.clone(),
+            action: "open",
+            source,
+        })?;
+    match file.try_lock() {
+        Ok(()) => Ok(file),
+        Err(fs::TryLockError::WouldBlock) => Err(JournalError::InUse {
+            dir: dir.to_path_buf(),
+        }),
+        Err(fs::TryLockError::Error(source)) => Err(JournalError::Io {
+            path,
+            action: "lock",
+            source,
+        }),
+    }
+}
+
 /// What a held record counts against `memory_max_bytes`.
 fn held_size(r: &Record) -> usize {
     r.topic.len() + r.payload.len() + HELD_OVERHEAD
@@ -1227,6 +1265,18 @@ mod tests {
         assert_eq!(seqs(&all), vec![1, 2, 3, 4, 5, 6, 7]);
         assert!(all[4].retain, "held records keep their fields");
         assert_eq!(all[3].ts_ms, T0 + 10, "and their time");
+    }
+
+    #[test]
+    fn a_folder_open_in_another_journal_is_refused_until_it_closes() {
+        let tmp = tempfile::tempdir().expect("tempdir");
+        let s = settings(tmp.path(), 1 << 20, 1 << 24, 1000);
+        let first = Journal::open(&s, T0).expect("open");
+        let e = Journal::open(&s, T0).expect_err("second open of the same folder");
+        assert!(matches!(e, JournalError::InUse { .. }), "{e}");
+        assert!(e.to_string().contains("own journal.dir"), "{e}");
+        drop(first);
+        Journal::open(&s, T0).expect("free again once the first is closed");
     }
 
     #[test]

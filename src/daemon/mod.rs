@@ -183,7 +183,7 @@ async fn evaluate_loop(
                     let _ = journal.try_send(JournalCmd::Retry);
                 }
                 // The run's learned state once a minute (a few KB; the journal thread writes it).
-                if ticks % STATE_SAVE_TICKS == 0 {
+                if ticks.is_multiple_of(STATE_SAVE_TICKS) {
                     let _ = journal.try_send(JournalCmd::SaveState(state::encode(&engine, clock())));
                 }
             }
@@ -448,7 +448,7 @@ pub async fn run(
         info!(%addr, "metrics on http://{addr}/metrics");
         tokio::spawn(http::serve(listener, metrics.clone(), http_cancel.clone()));
     }
-    let status_topic = format!("{}/status", settings.topic_prefix);
+    let status_topic = settings.daemon_topic("status");
     let started = crate::timefmt::format_rfc3339(clock());
     let status = |state: &str, reason: &str| {
         serde_json::json!({"state": state, "reason": reason, "version": env!("CARGO_PKG_VERSION"), "site": settings.site, "started": started, "advisory": crate::wire::result::ADVISORY_SHORT}).to_string()

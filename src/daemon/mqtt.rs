@@ -595,7 +595,7 @@ impl InputLink {
                         let n = metrics.oversized.fetch_add(1, Relaxed) + 1;
                         // One line for the first and then every 100th: a retained
                         // oversized message comes back on every reconnect.
-                        if n == 1 || n % 100 == 0 {
+                        if n == 1 || n.is_multiple_of(100) {
                             warn!(topic = %crate::wire::input::echo(&p.topic), bytes = p.payload.len(), limit = self.broker.max_packet_bytes, refused_so_far = n, "input message over broker.max_packet_bytes refused");
                         }
                     }

@@ -162,10 +162,10 @@ impl Outbox {
         if self.by_pkid.contains_key(&pkid) {
             return;
         }
-        if let Some(seq) = self.awaiting_pkid.pop_front() {
-            if seq != 0 {
-                self.by_pkid.insert(pkid, seq);
-            }
+        if let Some(seq) = self.awaiting_pkid.pop_front()
+            && seq != 0
+        {
+            self.by_pkid.insert(pkid, seq);
         }
     }
 

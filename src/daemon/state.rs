@@ -270,10 +270,10 @@ pub fn apply(engine: &mut Engine, text: &str) -> Result<Restored, String> {
         }
         if let Some(al) = saved.get("alarms").and_then(Value::as_object) {
             for (aid, v) in al {
-                if let Some((cfg, snap)) = alarm_from(v) {
-                    if engine.restore_alarm(&id, aid, &cfg, &snap) {
-                        out.alarms.push(format!("{id}/{aid}"));
-                    }
+                if let Some((cfg, snap)) = alarm_from(v)
+                    && engine.restore_alarm(&id, aid, &cfg, &snap)
+                {
+                    out.alarms.push(format!("{id}/{aid}"));
                 }
             }
         }

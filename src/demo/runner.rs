@@ -676,10 +676,10 @@ fn table(seen: &Seen, view: &View) -> String {
             if r["severity"] == "good" {
                 continue;
             }
-            if let Some(m) = r["message"].as_str().map(str::to_string) {
-                if !reasons.contains(&m) {
-                    reasons.push(m);
-                }
+            if let Some(m) = r["message"].as_str().map(str::to_string)
+                && !reasons.contains(&m)
+            {
+                reasons.push(m);
             }
         }
         for (i, r) in reasons.iter().take(2).enumerate() {

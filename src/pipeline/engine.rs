@@ -40,7 +40,7 @@ impl Engine {
         Ok(Self {
             routes: routes(&settings),
             lanes,
-            plant: Plant::new(&settings.topic_prefix, Arc::clone(&metrics)),
+            plant: Plant::new(&settings, Arc::clone(&metrics)),
             metrics,
             sink: Sink::default(),
             throttle: Throttle::default(),

@@ -9,6 +9,7 @@ use tracing::warn;
 use super::Append;
 use super::lane::Sink;
 use super::metrics::Metrics;
+use crate::config::Settings;
 use crate::monitor::alarm::Event;
 use crate::monitor::watch::PlantWatch;
 use crate::wire::watch as wp;
@@ -22,12 +23,12 @@ pub struct Plant {
 }
 
 impl Plant {
-    pub(super) fn new(topic_prefix: &str, metrics: Arc<Metrics>) -> Self {
+    pub(super) fn new(settings: &Settings, metrics: Arc<Metrics>) -> Self {
         Self {
             watch: PlantWatch::new(),
             metrics,
-            alert_topic: format!("{topic_prefix}/alert"),
-            alarms_topic: format!("{topic_prefix}/alarms"),
+            alert_topic: settings.daemon_topic("alert"),
+            alarms_topic: settings.daemon_topic("alarms"),
         }
     }
 

@@ -178,10 +178,10 @@ impl Replay {
                         .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?;
                 }
                 pending.push_back(times);
-                if pending.len() > 2 {
-                    if let Some(times) = pending.pop_front() {
-                        merger.merge(times, &mut plant, out, sum)?;
-                    }
+                if pending.len() > 2
+                    && let Some(times) = pending.pop_front()
+                {
+                    merger.merge(times, &mut plant, out, sum)?;
                 }
                 Ok(())
             };

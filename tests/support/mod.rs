@@ -202,7 +202,7 @@ pub type Received = Arc<Mutex<Vec<(String, String, bool)>>>;
 /// Subscribes to `filters` and keeps everything it receives; resubscribes after every
 /// reconnect (the broker may be restarted by the test).
 pub fn collector(rt: &tokio::runtime::Runtime, port: u16, filters: &[&str]) -> Received {
-    collector_as(rt, port, filters, None)
+    collector_with(rt, port, filters, None, None)
 }
 
 /// [`collector`] logged in as `(user, password)`.
@@ -212,10 +212,33 @@ pub fn collector_as(
     filters: &[&str],
     login: Option<(&str, &str)>,
 ) -> Received {
+    collector_with(rt, port, filters, login, None)
+}
+
+/// [`collector`] with a persistent session under `client_id`: a broker that restarts
+/// with persistence keeps what arrives for it meanwhile.
+pub fn collector_kept(
+    rt: &tokio::runtime::Runtime,
+    port: u16,
+    filters: &[&str],
+    client_id: &str,
+) -> Received {
+    collector_with(rt, port, filters, None, Some(client_id))
+}
+
+fn collector_with(
+    rt: &tokio::runtime::Runtime,
+    port: u16,
+    filters: &[&str],
+    login: Option<(&str, &str)>,
+    kept: Option<&str>,
+) -> Received {
     let got: Received = Arc::new(Mutex::new(Vec::new()));
     let g = got.clone();
     let filters: Vec<String> = filters.iter().map(|s| s.to_string()).collect();
-    let mut o = MqttOptions::new(format!("collector-{}", free_port()), "127.0.0.1", port);
+    let id = kept.map_or_else(|| format!("collector-{}", free_port()), str::to_string);
+    let mut o = MqttOptions::new(id, "127.0.0.1", port);
+    o.set_clean_session(kept.is_none());
     if let Some((u, p)) = login {
         o.set_credentials(u, p);
     }

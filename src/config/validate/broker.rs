@@ -152,7 +152,8 @@ fn protocol(problems: &mut Problems, raw: &RawBroker) -> MqttProtocol {
     }
 }
 
-/// `broker.client_id`, by default `eqwatch-<site>`, within what the protocol allows.
+/// `broker.client_id`, by default `eqwatch-<site>` (`eqwatch-<site>-<shard>` for a
+/// shard: `site` is then `<site>-<shard>`), within what the protocol allows.
 fn client_id(
     problems: &mut Problems,
     raw: &RawBroker,

@@ -40,6 +40,17 @@ pub(crate) fn validate(
             ),
         );
     }
+    let shard = raw.shard.clone();
+    if let Some(s) = &shard
+        && (s.is_empty() || s.len() > 32 || !s.chars().all(is_name_char))
+    {
+        problems.add(
+                "shard",
+                format!(
+                    "\"{s}\" must be 1 to 32 letters, digits, `-` or `_` (it goes into topics and the client id)"
+                ),
+            );
+    }
     let topic_prefix = match &raw.topic_prefix {
         None => format!("eqwatch/{}", raw.site),
         Some(t) => {
@@ -66,7 +77,11 @@ pub(crate) fn validate(
         Some(text) => atmosphere(&mut problems, text),
     };
     let species = species_db(&mut problems, &raw.species_files, base);
-    let broker = broker(&mut problems, &raw.broker, &raw.site, base, env);
+    let id_base = match &shard {
+        Some(s) => format!("{}-{s}", raw.site),
+        None => raw.site.clone(),
+    };
+    let broker = broker(&mut problems, &raw.broker, &id_base, base, env);
     let journal = journal(&mut problems, &raw.journal, base);
     let http_listen = match &raw.http {
         None => Some(SocketAddr::from(([127, 0, 0, 1], 9873))),
@@ -112,6 +127,7 @@ pub(crate) fn validate(
     Ok(Settings {
         commands,
         site: raw.site.clone(),
+        shard,
         topic_prefix,
         broker,
         journal,

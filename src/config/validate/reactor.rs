@@ -180,15 +180,15 @@ pub(crate) fn reactor(
     // The gas and the models.
     let mut model = None;
     let mut equilibrium = None;
-    if let (true, Some((comp, _, species))) = (reactions.ok, &composition) {
-        if let Some(gas) = gas_species(problems, db, &path, (comp, species), &reactions.list) {
-            let inputs = ModelInputs {
-                reactions: &reactions.list,
-                gas: &gas,
-                options: &options,
-            };
-            (model, equilibrium) = models(problems, db, &path, &inputs);
-        }
+    if let (true, Some((comp, _, species))) = (reactions.ok, &composition)
+        && let Some(gas) = gas_species(problems, db, &path, (comp, species), &reactions.list)
+    {
+        let inputs = ModelInputs {
+            reactions: &reactions.list,
+            gas: &gas,
+            options: &options,
+        };
+        (model, equilibrium) = models(problems, db, &path, &inputs);
     }
 
     let mut watch = crate::config::validate::watch::watch(problems, &path, raw, env.atmosphere_bar);

@@ -221,13 +221,13 @@ fn drift_statistics(problems: &mut Problems, dp: &str, raw: &RawDrift, drift: &m
             None => {}
         }
     }
-    if let Some(t) = &raw.sigma_floor {
-        if let Some(v) = kelvin(problems, &format!("{dp}.sigma_floor"), t) {
-            if v > 0.0 {
-                drift.sigma_floor_k = v;
-            } else {
-                problems.add(format!("{dp}.sigma_floor"), "must be above zero");
-            }
+    if let Some(t) = &raw.sigma_floor
+        && let Some(v) = kelvin(problems, &format!("{dp}.sigma_floor"), t)
+    {
+        if v > 0.0 {
+            drift.sigma_floor_k = v;
+        } else {
+            problems.add(format!("{dp}.sigma_floor"), "must be above zero");
         }
     }
     for (key, v, lo, hi, slot) in [
@@ -274,10 +274,10 @@ fn drift_trend(problems: &mut Problems, dp: &str, raw: &RawDrift, drift: &mut Dr
             format!("unknown method \"{o}\"; expected \"least-squares\" or \"theil-sen\""),
         ),
     }
-    if let Some(t) = &raw.aggregate {
-        if let Some(v) = positive_duration(problems, &format!("{dp}.aggregate"), t) {
-            drift.aggregate_ms = v;
-        }
+    if let Some(t) = &raw.aggregate
+        && let Some(v) = positive_duration(problems, &format!("{dp}.aggregate"), t)
+    {
+        drift.aggregate_ms = v;
     }
     drift.min_per_aggregate = count(
         problems,
