@@ -313,4 +313,24 @@ mod tests {
             ],
         );
     }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
+        /// Any text, and the demo configuration with bytes changed at random: a list of
+        /// problems or settings, never a panic.
+        #[test]
+        fn any_configuration_text_never_panics(
+            junk in "\\PC{0,400}",
+            edits in proptest::collection::vec((0usize..100_000, proptest::prelude::any::<u8>()), 1..12),
+        ) {
+            let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("config");
+            let _ = super::from_str(&junk, &dir);
+            let mut bytes = include_str!("../../config/demo-plant.toml").as_bytes().to_vec();
+            for (at, b) in edits {
+                let n = bytes.len();
+                bytes[at % n] = b;
+            }
+            let _ = super::from_str(&String::from_utf8_lossy(&bytes), &dir);
+        }
+    }
 }

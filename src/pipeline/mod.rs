@@ -250,4 +250,64 @@ mod tests {
         );
         assert!(out.iter().all(|a| !a.payload.contains("9999")), "{out:?}");
     }
+
+    /// A payload for the property test below: raw bytes, or text that looks like the
+    /// inputs (numbers, JSON with odd fields, values and timestamps).
+    fn hostile_payload() -> impl proptest::strategy::Strategy<Value = Vec<u8>> {
+        use proptest::prelude::*;
+        let number = prop_oneof![
+            any::<f64>().prop_map(|x| format!("{x}")),
+            Just("1e309".to_string()),
+            Just("-0".to_string()),
+            Just("null".to_string()),
+            "[0-9.eE+-]{0,24}",
+        ];
+        let ts = prop_oneof![
+            any::<i64>().prop_map(|t| t.to_string()),
+            Just("\"9999-12-31T23:59:59Z\"".to_string()),
+            "\"[0-9T:Z.+-]{0,30}\"",
+        ];
+        prop_oneof![
+            proptest::collection::vec(any::<u8>(), 0..400),
+            number.clone().prop_map(String::into_bytes),
+            (ts.clone(), number.clone(), "[a-zA-Z%/ ]{0,8}").prop_map(|(t, v, u)| {
+                format!(r#"{{"ts":{t},"value":{v},"unit":"{u}","quality":"good"}}"#).into_bytes()
+            }),
+            (ts, proptest::collection::vec(("[A-Za-z0-9]{0,4}", number), 0..8), "[a-z%]{0,4}")
+                .prop_map(|(t, vals, u)| {
+                    let body: Vec<String> =
+                        vals.iter().map(|(k, v)| format!("\"{k}\":{v}")).collect();
+                    format!(r#"{{"ts":{t},"values":{{{}}},"unit":"{u}"}}"#, body.join(","))
+                        .into_bytes()
+                }),
+            "\\{\"command\":\"[a-z-]{0,20}\",\"alarm\":\"[a-z-]{0,16}\",\"user\":\"[a-z0-9]{0,8}\",\"duration\":\"[0-9a-z ]{0,6}\"\\}"
+                .prop_map(String::into_bytes),
+        ]
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+        /// Any bytes on any input or command topic, in any order: the pipeline never
+        /// panics, and everything it emits is a JSON object.
+        #[test]
+        fn hostile_messages_on_every_topic_never_panic(
+            messages in proptest::collection::vec((0usize..1000, hostile_payload(), 0i64..120), 1..40)
+        ) {
+            let (mut e, _m) = engine();
+            let mut topics = e.subscriptions();
+            topics.push("baw1/nowhere".into());
+            for (which, payload, minute) in messages {
+                let topic = topics[which % topics.len()].clone();
+                let at = T0_MS + minute * 60_000;
+                let raw = RawInput { topic, payload, arrival_ms: at };
+                let mut out = Vec::new();
+                e.message(&raw, at, &mut out);
+                e.tick(at, &mut out);
+                for a in &out {
+                    let v: Value = serde_json::from_str(&a.payload).expect("records are JSON");
+                    proptest::prop_assert!(v.is_object());
+                }
+            }
+        }
+    }
 }

@@ -537,3 +537,31 @@ fn weeks_of_history_raise_what_an_engineer_should_see_and_nothing_else() {
         "{ev:?}"
     );
 }
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(24))]
+    /// Any bytes spliced into a good history file (as rows, or over its bytes): replay
+    /// reports the lines it skips and finishes with exit 0 or 1, never a crash or an
+    /// internal error (exit 2).
+    #[test]
+    fn hostile_rows_never_crash_replay(
+        rows in proptest::collection::vec(proptest::collection::vec(proptest::prelude::any::<u8>(), 0..120), 0..6),
+        edits in proptest::collection::vec((0usize..100_000, proptest::prelude::any::<u8>()), 0..8),
+    ) {
+        let dir = tempfile::tempdir().unwrap();
+        let config = write_config(dir.path(), 1883, 9873);
+        let mut bytes = csv().into_bytes();
+        for r in rows {
+            bytes.extend_from_slice(&r);
+            bytes.push(b'\n');
+        }
+        let n = bytes.len();
+        for (at, b) in edits {
+            bytes[at % n] = b;
+        }
+        let input = dir.path().join("in.csv");
+        std::fs::write(&input, &bytes).unwrap();
+        let (code, _, err) = replay(&config, &input, &dir.path().join("out.jsonl"), None);
+        proptest::prop_assert!(code == 0 || code == 1, "exit {code}: {err}");
+    }
+}

@@ -497,4 +497,17 @@ mod tests {
             assert_eq!(fmt_num(v, sig), want, "{v} to {sig}");
         }
     }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(512))]
+        /// Any unit or quantity text: a value or an error, never a panic.
+        #[test]
+        fn any_unit_text_never_panics(text in "\\PC{0,40}", n in proptest::prelude::any::<f64>()) {
+            let _ = parse_temperature(&text);
+            let _ = parse_pressure(&text);
+            let _ = parse_pressure_with_atmosphere(&text, 1.01325);
+            let _ = parse_temperature(&format!("{n} {text}"));
+            let _ = parse_pressure(&format!("{n} {text}"));
+        }
+    }
 }

@@ -303,4 +303,18 @@ mod tests {
         assert_eq!(r.canonical(), "CH4 + H2O = CO + 3 H2");
         assert_eq!(r.delta_nu(), 2.0);
     }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(512))]
+        /// Any equation text, and equation-like text: a reaction or an error, never a panic.
+        #[test]
+        fn any_equation_text_never_panics(
+            junk in "\\PC{0,60}",
+            shaped in "([0-9./ ]{0,4}[A-Z][a-z]?[0-9]{0,2} ?\\+? ?){0,4}[=<>-]{0,3}( ?[0-9.]{0,3} ?[A-Z][a-z]?[0-9]{0,2} ?\\+?){0,4}",
+        ) {
+            let db = SpeciesDb::builtin();
+            let _ = parse_reaction(&junk, &db);
+            let _ = parse_reaction(&shaped, &db);
+        }
+    }
 }
