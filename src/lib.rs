@@ -40,3 +40,6 @@ pub(crate) mod pipeline;
 pub mod replay;
 #[cfg(feature = "cli")]
 pub(crate) mod wire;
+
+#[cfg(feature = "fuzzing")]
+pub mod fuzz;

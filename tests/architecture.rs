@@ -159,6 +159,13 @@ const RULES: &[Rule] = &[
             "thiserror",
         ],
     },
+    // Entry points for the fuzz targets (feature `fuzzing`): the front doors of the
+    // pipeline, the configuration and replay; no daemon.
+    Rule {
+        path: "src/fuzz.rs",
+        modules: &["config", "pipeline", "replay", "plot"],
+        crates: &[],
+    },
     // The calculator: the core and JSON; no daemon.
     Rule {
         path: "src/cli",
