@@ -25,16 +25,16 @@ for t in "${targets[@]}"; do
     log="$(mktemp)"
     # -s none: no sanitizer (sanitizers need a nightly compiler); panics still abort.
     if ! cargo fuzz run -s none "$t" "fuzz/corpus/$t" -- \
-        -max_total_time="$seconds" -print_final_stats=1 -max_len=4096 2>&1 | tee "$log" | grep -E "^(#[0-9]+.*(DONE|pulse)|==|stat::)" ; then
+        -max_total_time="$seconds" -print_final_stats=1 -max_len=4096 2>&1 | tee "$log" | grep -aE "^(#[0-9]+.*(DONE|pulse)|==|stat::)" ; then
         :
     fi
-    if grep -q "panicked\|ERROR: libFuzzer\|SUMMARY" "$log"; then
-        grep -E "panicked|ERROR|Test unit written" "$log" | head -5
+    if grep -aq "panicked\|ERROR: libFuzzer\|SUMMARY" "$log"; then
+        grep -aE "panicked|ERROR|Test unit written" "$log" | head -5
         echo "FAILED: $t (see fuzz/artifacts/$t)"
         exit 1
     fi
-    runs="$(grep -o 'stat::number_of_executed_units: [0-9]*' "$log" | grep -o '[0-9]*$' || echo '?')"
-    cov="$(grep -o 'cov: [0-9]*' "$log" | tail -1 | grep -o '[0-9]*$' || echo '?')"
+    runs="$(grep -ao 'stat::number_of_executed_units: [0-9]*' "$log" | grep -o '[0-9]*$' || echo '?')"
+    cov="$(grep -ao 'cov: [0-9]*' "$log" | tail -1 | grep -o '[0-9]*$' || echo '?')"
     summary+=("$t: $runs runs in ${seconds} s, coverage $cov edges, no crash")
     rm -f "$log"
 done

@@ -40,7 +40,11 @@ pub fn input_message(bytes: &[u8]) {
         let mut slot = cell.borrow_mut();
         let (engine, topics, now) = slot.get_or_insert_with(|| {
             let settings = demo_settings();
-            let ids: Vec<String> = settings.reactors.iter().map(|r| r.spec.id.clone()).collect();
+            let ids: Vec<String> = settings
+                .reactors
+                .iter()
+                .map(|r| r.spec.id.clone())
+                .collect();
             let metrics = Arc::new(Metrics::new(&ids));
             let engine = match Engine::new(Arc::new(settings), metrics) {
                 Ok(e) => e,
@@ -53,7 +57,9 @@ pub fn input_message(bytes: &[u8]) {
         });
         let (head, payload) = bytes.split_at(bytes.len().min(3));
         let pick = usize::from(head.first().copied().unwrap_or(0));
-        let step = head.get(1..3).map_or(0, |b| i64::from(u16::from_le_bytes([b[0], b[1]])));
+        let step = head
+            .get(1..3)
+            .map_or(0, |b| i64::from(u16::from_le_bytes([b[0], b[1]])));
         *now += step * 1000;
         let raw = RawInput {
             topic: topics[pick % topics.len()].clone(),
