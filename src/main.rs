@@ -295,11 +295,12 @@ fn run_daemon(
 ) -> Result<(), CliError> {
     init_tracing(log, None)?;
     let mut settings = load_config(config)?;
-    if let Some(url) = broker {
-        eqwatch::config::override_broker(&mut settings, &url)
+    if let Some(url) = &broker {
+        eqwatch::config::override_broker(&mut settings, url)
             .map_err(|e| CliError::Input(format!("--broker: {e}")))?;
     }
     let rt = runtime()?;
+    let config = config.to_path_buf();
     rt.block_on(async move {
         let cancel = tokio_util::sync::CancellationToken::new();
         let c = cancel.clone();
@@ -308,14 +309,62 @@ fn run_daemon(
             tracing::info!("signal received: shutting down");
             c.cancel();
         });
+        let (tx, reloads) = tokio::sync::mpsc::channel(1);
+        tokio::spawn(reload_on_hangup(config, broker, tx));
+        let control = eqwatch::daemon::Control {
+            reloads,
+            notifier: eqwatch::daemon::notify::Notifier::from_env(),
+        };
         eqwatch::daemon::run(
             std::sync::Arc::new(settings),
             cancel,
             eqwatch::daemon::wall_clock(),
+            control,
         )
         .await
         .map_err(|e| CliError::Input(format!("{e:#}")))
     })
+}
+
+/// On every SIGHUP, reads and validates the configuration file again (with the same
+/// `--broker` override) and hands the result to the daemon, which applies it or refuses
+/// it and keeps the running one.
+#[cfg(feature = "daemon")]
+async fn reload_on_hangup(
+    config: PathBuf,
+    broker: Option<String>,
+    tx: tokio::sync::mpsc::Sender<eqwatch::daemon::ReloadRequest>,
+) {
+    #[cfg(unix)]
+    {
+        use tokio::signal::unix::{SignalKind, signal};
+        let Ok(mut hup) = signal(SignalKind::hangup()) else {
+            tracing::warn!("SIGHUP cannot be watched: configuration reloads need a restart");
+            return;
+        };
+        while hup.recv().await.is_some() {
+            tracing::info!(file = %config.display(), "SIGHUP: reading the configuration again");
+            let (path, url) = (config.clone(), broker.clone());
+            let loaded = tokio::task::spawn_blocking(move || {
+                let mut s = eqwatch::config::load(&path)
+                    .map_err(|e| format!("{}:\n{e}", path.display()))?;
+                if let Some(url) = url {
+                    eqwatch::config::override_broker(&mut s, &url)
+                        .map_err(|e| format!("--broker: {e}"))?;
+                }
+                Ok(s)
+            })
+            .await
+            .unwrap_or_else(|e| Err(format!("reading the configuration: {e}")));
+            if tx.send(loaded).await.is_err() {
+                return;
+            }
+        }
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = (config, broker, tx);
+    }
 }
 
 fn load_species(files: &[PathBuf]) -> anyhow::Result<SpeciesDb> {

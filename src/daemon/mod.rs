@@ -20,6 +20,7 @@
 pub mod http;
 pub mod journal;
 pub mod mqtt;
+pub mod notify;
 pub mod outbox;
 pub mod state;
 
@@ -114,34 +115,40 @@ pub enum DaemonError {
     Link(#[from] mqtt::LinkError),
 }
 
-/// Decodes, evaluates and journals until the input channel closes; ticks the watch
-/// timers (shelf expiry, data quality, chattering, stale, flood) once a second.
-async fn evaluate_loop(
-    mut engine: crate::pipeline::Engine,
-    mut rx: mpsc::Receiver<RawInput>,
+/// A reload handed to the evaluator, with where to send what it did.
+type EngineReload = (
+    Arc<Settings>,
+    tokio::sync::oneshot::Sender<Result<crate::pipeline::reload::Reloaded, Vec<String>>>,
+);
+
+/// The evaluator task's inputs.
+struct Evaluator {
+    engine: crate::pipeline::Engine,
+    rx: mpsc::Receiver<RawInput>,
     journal: mpsc::Sender<JournalCmd>,
     clock: Clock,
     saved: Option<String>,
     metrics: Arc<Metrics>,
     acked: Arc<tokio::sync::Notify>,
-) {
+    reloads: mpsc::Receiver<EngineReload>,
+}
+
+/// Decodes, evaluates and journals until the input channel closes; ticks the watch
+/// timers (shelf expiry, data quality, chattering, stale, flood) once a second; applies
+/// configuration reloads between batches.
+async fn evaluate_loop(ev: Evaluator) {
+    let Evaluator {
+        mut engine,
+        mut rx,
+        journal,
+        clock,
+        saved,
+        metrics,
+        acked,
+        mut reloads,
+    } = ev;
     if let Some(text) = saved {
-        match state::apply(&mut engine, &text) {
-            Ok(r) => {
-                if !r.restored.is_empty() {
-                    info!(reactors = %r.restored.join(","), "runs carried over from the saved watch state (baselines, statistics, aggregates)");
-                }
-                if !r.alarms.is_empty() {
-                    info!(alarms = %r.alarms.join(","), "alert and alarm states carried over (acknowledgements, shelves, out of service)");
-                }
-                for (id, why) in r.skipped {
-                    warn!(reactor = %id, reason = %why, "saved watch state not used: a new run starts");
-                }
-            }
-            Err(e) => {
-                warn!(error = %e, file = state::STATE_FILE, "saved watch state unreadable: every reactor starts a new run")
-            }
-        }
+        restore(&mut engine, &text);
     }
     let mut batch: Vec<Append> = Vec::new();
     engine.states(clock(), &mut batch);
@@ -149,6 +156,7 @@ async fn evaluate_loop(
     tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
     let mut ticks: u64 = 0;
     let mut hold = false;
+    let mut reloads_open = true;
     loop {
         // Wait for the broker while too much is unacknowledged (only while the result
         // connection is up: with the broker away, what came in is still evaluated and
@@ -179,6 +187,7 @@ async fn evaluate_loop(
             _ = tick.tick() => {
                 engine.tick(clock(), &mut batch);
                 ticks += 1;
+                metrics.evaluator_ticks.fetch_add(1, Relaxed);
                 if metrics.journal_held.load(Relaxed) > 0 {
                     let _ = journal.try_send(JournalCmd::Retry);
                 }
@@ -188,6 +197,12 @@ async fn evaluate_loop(
                 }
             }
             _ = acked.notified(), if hold => {}
+            req = reloads.recv(), if reloads_open => match req {
+                None => reloads_open = false,
+                Some((new, reply)) => {
+                    let _ = reply.send(engine.reload(new, clock(), &mut batch));
+                }
+            },
         }
         if !batch.is_empty()
             && journal
@@ -202,6 +217,26 @@ async fn evaluate_loop(
         .send(JournalCmd::SaveState(state::encode(&engine, clock())))
         .await;
     let _ = journal.send(JournalCmd::Drained).await;
+}
+
+/// Applies the saved watch state at start-up, saying what was carried over.
+fn restore(engine: &mut crate::pipeline::Engine, text: &str) {
+    match state::apply(engine, text) {
+        Ok(r) => {
+            if !r.restored.is_empty() {
+                info!(reactors = %r.restored.join(","), "runs carried over from the saved watch state (baselines, statistics, aggregates)");
+            }
+            if !r.alarms.is_empty() {
+                info!(alarms = %r.alarms.join(","), "alert and alarm states carried over (acknowledgements, shelves, out of service)");
+            }
+            for (id, why) in r.skipped {
+                warn!(reactor = %id, reason = %why, "saved watch state not used: a new run starts");
+            }
+        }
+        Err(e) => {
+            warn!(error = %e, file = state::STATE_FILE, "saved watch state unreadable: every reactor starts a new run")
+        }
+    }
 }
 
 /// Seconds between saves of the watch state.
@@ -415,12 +450,191 @@ fn journal_thread(
 /// The advisory caution logged at start-up.
 pub const ADVISORY: &str = "eqwatch is an advisory monitoring tool: it is not a safety function, its alarms do not replace the plant's alarm system or safety systems, and local codes and licensed engineering practice govern";
 
+/// A configuration read again on SIGHUP: the validated settings, or the file's errors
+/// as `check` prints them.
+pub type ReloadRequest = Result<Settings, String>;
+
+/// What the process around [`run`] can ask of the daemon besides stopping, and how the
+/// daemon tells the service manager how it is (`notify.rs`).
+pub struct Control {
+    pub reloads: mpsc::Receiver<ReloadRequest>,
+    pub notifier: notify::Notifier,
+}
+
+impl Control {
+    /// No reloads and no service manager (the demo, tests).
+    pub fn none() -> Self {
+        let (_tx, reloads) = mpsc::channel(1);
+        Self {
+            reloads,
+            notifier: notify::Notifier::new(None, None, None, 0),
+        }
+    }
+}
+
+/// Seconds without an evaluator tick after which the watchdog is no longer fed.
+const EVALUATOR_STALL: Duration = Duration::from_secs(5);
+/// How often the status line is refreshed for the service manager.
+const STATUS_EVERY: Duration = Duration::from_secs(10);
+
+/// One line on how the daemon is, for `systemctl status`.
+fn status_line(m: &Metrics, reactors: usize) -> String {
+    let broker = if m.connected.load(Relaxed) && m.input_connected.load(Relaxed) {
+        "broker connected"
+    } else {
+        "broker away (results kept in the journal)"
+    };
+    let held = m.journal_held.load(Relaxed);
+    let journal = if held > 0 {
+        format!("journal NOT WRITABLE, {held} results held in memory")
+    } else {
+        "journal ok".to_string()
+    };
+    format!(
+        "{broker}; {reactors} reactors; {} results published, {} awaiting the broker; {journal}",
+        m.published.load(Relaxed),
+        m.backlog()
+    )
+}
+
+/// Feeds the service manager's watchdog while the evaluator ticks, refreshes the status
+/// line, and says STOPPING at shutdown.
+async fn service_loop(
+    notifier: Arc<notify::Notifier>,
+    metrics: Arc<Metrics>,
+    reactors: usize,
+    shutdown: CancellationToken,
+) {
+    if !notifier.enabled() {
+        return;
+    }
+    let watchdog = notifier.watchdog();
+    let every = watchdog.map_or(Duration::from_secs(1), |w| {
+        (w / 2).clamp(Duration::from_millis(100), Duration::from_secs(1))
+    });
+    let mut wake = tokio::time::interval(every);
+    wake.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+    let mut last_ticks = metrics.evaluator_ticks.load(Relaxed);
+    let mut last_change = tokio::time::Instant::now();
+    let mut last_ping = tokio::time::Instant::now();
+    let mut last_status = tokio::time::Instant::now();
+    let mut stalled = false;
+    loop {
+        tokio::select! {
+            _ = wake.tick() => {}
+            _ = shutdown.cancelled() => {
+                notifier.stopping();
+                return;
+            }
+        }
+        let now = tokio::time::Instant::now();
+        let ticks = metrics.evaluator_ticks.load(Relaxed);
+        if ticks != last_ticks {
+            last_ticks = ticks;
+            last_change = now;
+        }
+        let healthy = now - last_change < EVALUATOR_STALL;
+        if healthy == stalled {
+            stalled = !healthy;
+            if stalled {
+                error!(
+                    seconds = EVALUATOR_STALL.as_secs(),
+                    "the evaluator has not ticked: the service manager's watchdog is no longer fed and will restart eqwatch"
+                );
+                notifier.status("evaluator stalled: watchdog not fed");
+            } else {
+                info!("the evaluator ticks again: watchdog fed");
+            }
+        }
+        if let Some(w) = watchdog
+            && healthy
+            && now - last_ping >= w / 2
+        {
+            notifier.watchdog_ping();
+            last_ping = now;
+        }
+        if healthy && now - last_status >= STATUS_EVERY {
+            notifier.status(&status_line(&metrics, reactors));
+            last_status = now;
+        }
+    }
+}
+
+/// Carries out configuration reloads: the file's errors refuse it; the evaluator applies
+/// the rest or refuses what needs a restart; new input topics go to the input link.
+async fn control_loop(
+    mut reloads: mpsc::Receiver<ReloadRequest>,
+    evaluator: mpsc::Sender<EngineReload>,
+    topics: mpsc::Sender<mqtt::TopicChange>,
+    notifier: Arc<notify::Notifier>,
+    metrics: Arc<Metrics>,
+    reactors: usize,
+) {
+    while let Some(req) = reloads.recv().await {
+        notifier.reloading();
+        let outcome = match req {
+            Err(errors) => {
+                error!(errors = %errors, "configuration reload refused: the file has errors; the running configuration is kept");
+                Err("the file has errors")
+            }
+            Ok(new) => {
+                let (tx, rx) = tokio::sync::oneshot::channel();
+                if evaluator.send((Arc::new(new), tx)).await.is_err() {
+                    return; // shutting down
+                }
+                match rx.await {
+                    Err(_) => return,
+                    Ok(Err(why)) => {
+                        error!(needs_restart = %why.join("; "), "configuration reload refused: these changes need a restart of eqwatch; the running configuration is kept");
+                        Err("it needs a restart")
+                    }
+                    Ok(Ok(r)) => {
+                        for (id, why) in &r.runs_reset {
+                            warn!(reactor = %id, reason = %why, "reload: a new run starts for this reactor (baseline learned again)");
+                        }
+                        info!(
+                            unchanged = %r.unchanged.join(","),
+                            changed = %r.changed.join(","),
+                            runs_kept = %r.runs_kept.join(","),
+                            alarm_states_kept = %r.alarms_kept.join(","),
+                            subscribed = %r.subscribe.join(","),
+                            unsubscribed = %r.unsubscribe.join(","),
+                            "configuration reloaded"
+                        );
+                        if !(r.subscribe.is_empty() && r.unsubscribe.is_empty()) {
+                            let _ = topics
+                                .send(mqtt::TopicChange {
+                                    subscribe: r.subscribe,
+                                    unsubscribe: r.unsubscribe,
+                                })
+                                .await;
+                        }
+                        Ok(())
+                    }
+                }
+            }
+        };
+        let line = status_line(&metrics, reactors);
+        match outcome {
+            Ok(()) => {
+                metrics.reloads.fetch_add(1, Relaxed);
+                notifier.ready(&format!("configuration reloaded; {line}"));
+            }
+            Err(why) => {
+                metrics.reloads_refused.fetch_add(1, Relaxed);
+                notifier.ready(&format!("reload refused ({why}; see the log); {line}"));
+            }
+        }
+    }
+}
+
 /// Runs the daemon until `shutdown` is cancelled; returns after a clean stop
 /// (input stopped, results flushed with QoS 1, `offline` published, disconnected).
 pub async fn run(
     settings: Arc<Settings>,
     shutdown: CancellationToken,
     clock: Clock,
+    control: Control,
 ) -> Result<(), DaemonError> {
     info!(version = env!("CARGO_PKG_VERSION"), site = %settings.site, reactors = settings.reactors.len(), "eqwatch starting");
     warn!("{ADVISORY}");
@@ -496,20 +710,42 @@ pub async fn run(
         .map_err(|e| DaemonError::Journal(e.to_string()))?;
     let (in_tx, in_rx) = mpsc::channel::<RawInput>(INPUT_QUEUE);
     let acked = Arc::new(tokio::sync::Notify::new());
-    let evaluator = tokio::spawn(evaluate_loop(
+    let (reload_tx, reload_rx) = mpsc::channel::<EngineReload>(1);
+    let evaluator = tokio::spawn(evaluate_loop(Evaluator {
         engine,
-        in_rx,
-        jtx.clone(),
-        clock.clone(),
+        rx: in_rx,
+        journal: jtx.clone(),
+        clock: clock.clone(),
         saved,
-        metrics.clone(),
-        acked.clone(),
-    ));
+        metrics: metrics.clone(),
+        acked: acked.clone(),
+        reloads: reload_rx,
+    }));
     metrics.ready.store(true, Relaxed);
+    // Configuration validated, journal opened and recovered, metrics port bound.
+    let notifier = Arc::new(control.notifier);
+    let reactors = settings.reactors.len();
+    notifier.ready(&status_line(&metrics, reactors));
+    tokio::spawn(service_loop(
+        notifier.clone(),
+        metrics.clone(),
+        reactors,
+        shutdown.clone(),
+    ));
+    let (topics_tx, topics_rx) = mpsc::channel::<mqtt::TopicChange>(4);
+    tokio::spawn(control_loop(
+        control.reloads,
+        reload_tx,
+        topics_tx,
+        notifier,
+        metrics.clone(),
+        reactors,
+    ));
     let input = mqtt::InputLink {
         broker: settings.broker.clone(),
         topics,
         clock: clock.clone(),
+        changes: topics_rx,
     };
     let input = tokio::spawn(input.run(
         in_client,

@@ -559,6 +559,15 @@ pub struct InputLink {
     pub broker: BrokerSettings,
     pub topics: Vec<String>,
     pub clock: Clock,
+    /// Subscriptions changed by a configuration reload.
+    pub changes: mpsc::Receiver<TopicChange>,
+}
+
+/// Topics to subscribe to and to leave (a configuration reload moved an input).
+#[derive(Debug, Default)]
+pub struct TopicChange {
+    pub subscribe: Vec<String>,
+    pub unsubscribe: Vec<String>,
 }
 
 impl InputLink {
@@ -573,6 +582,11 @@ impl InputLink {
         stop_input: CancellationToken,
     ) {
         let mut conn = Connection::new("input", &self.broker);
+        let mut this = self;
+        let mut changes_open = true;
+        // Topics left by a reload while the connection was down: a persistent session at
+        // the broker still holds them, so they are unsubscribed at the next connection.
+        let mut leave: Vec<String> = Vec::new();
         loop {
             tokio::select! {
                 // Poll only while the evaluator can take a message: otherwise the messages
@@ -584,24 +598,29 @@ impl InputLink {
                         // Subscribe on every connection: a broker may claim a session it
                         // does not have (or lost), and subscribing again is harmless
                         // (retained repeats are refused as duplicates by the monitor).
-                        for t in &self.topics {
+                        for t in &this.topics {
                             if let Err(e) = client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
                                 warn!(topic = %t, error = %e, "subscribe request not queued");
                             }
                         }
+                        for t in leave.drain(..).filter(|t| !this.topics.contains(t)) {
+                            if let Err(e) = client.try_unsubscribe(t.clone()) {
+                                warn!(topic = %t, error = %e, "unsubscribe request not queued");
+                            }
+                        }
                     }
-                    Ok(Event::Incoming(Incoming::Publish(p))) if p.payload.len() > self.broker.max_packet_bytes => {
+                    Ok(Event::Incoming(Incoming::Publish(p))) if p.payload.len() > this.broker.max_packet_bytes => {
                         metrics.messages_in.fetch_add(1, Relaxed);
                         let n = metrics.oversized.fetch_add(1, Relaxed) + 1;
                         // One line for the first and then every 100th: a retained
                         // oversized message comes back on every reconnect.
                         if n == 1 || n.is_multiple_of(100) {
-                            warn!(topic = %crate::wire::input::echo(&p.topic), bytes = p.payload.len(), limit = self.broker.max_packet_bytes, refused_so_far = n, "input message over broker.max_packet_bytes refused");
+                            warn!(topic = %crate::wire::input::echo(&p.topic), bytes = p.payload.len(), limit = this.broker.max_packet_bytes, refused_so_far = n, "input message over broker.max_packet_bytes refused");
                         }
                     }
                     Ok(Event::Incoming(Incoming::Publish(p))) => {
                         metrics.messages_in.fetch_add(1, Relaxed);
-                        let raw = RawInput { topic: p.topic, payload: p.payload.to_vec(), arrival_ms: (self.clock)() };
+                        let raw = RawInput { topic: p.topic, payload: p.payload.to_vec(), arrival_ms: (this.clock)() };
                         match input.try_send(raw) {
                             Ok(()) => {}
                             // The evaluator is gone (shutdown).
@@ -632,6 +651,27 @@ impl InputLink {
                         break; // the evaluator is gone (shutdown)
                     }
                 }
+                change = this.changes.recv(), if changes_open => match change {
+                    None => changes_open = false,
+                    Some(c) => {
+                        let up = conn.since.is_some() && metrics.input_connected.load(Relaxed);
+                        for t in &c.subscribe {
+                            if up && let Err(e) = client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
+                                warn!(topic = %t, error = %e, "subscribe request not queued");
+                            }
+                        }
+                        for t in &c.unsubscribe {
+                            if !up {
+                                leave.push(t.clone());
+                            } else if let Err(e) = client.try_unsubscribe(t.clone()) {
+                                warn!(topic = %t, error = %e, "unsubscribe request not queued");
+                            }
+                        }
+                        this.topics.retain(|t| !c.unsubscribe.contains(t));
+                        this.topics.extend(c.subscribe);
+                        info!(topics = this.topics.len(), "input subscriptions changed by the reload");
+                    }
+                },
                 _ = stop_input.cancelled() => break,
             }
         }

@@ -1044,6 +1044,7 @@ async fn live(
         settings.clone(),
         cancel.clone(),
         clock.clone(),
+        crate::daemon::Control::none(),
     ));
     let sim_client = plant_client(upstream.addr);
     let seen = console(upstream.addr, &prefix);

@@ -21,11 +21,11 @@ use crate::monitor::Input;
 
 /// See the module docs.
 pub struct Engine {
-    settings: Arc<Settings>,
-    routes: HashMap<String, Vec<Route>>,
-    lanes: Vec<Lane>,
+    pub(super) settings: Arc<Settings>,
+    pub(super) routes: HashMap<String, Vec<Route>>,
+    pub(super) lanes: Vec<Lane>,
     plant: Plant,
-    metrics: Arc<Metrics>,
+    pub(super) metrics: Arc<Metrics>,
     sink: Sink,
     /// Rejected-input warnings, one per reactor and reason a minute.
     throttle: Throttle,

@@ -60,6 +60,12 @@ pub struct Metrics {
     /// Operator alarm activations in the last 10 minutes (all reactors).
     pub alarms_last_10min: AtomicU64,
     pub floods: AtomicU64,
+    /// Configuration reloads (SIGHUP) applied, and refused (bad file or a change that
+    /// needs a restart).
+    pub reloads: AtomicU64,
+    pub reloads_refused: AtomicU64,
+    /// The evaluator's once-a-second ticks (the watchdog pings only while they come).
+    pub evaluator_ticks: AtomicU64,
     pub chattering: AtomicU64,
     pub stale: AtomicU64,
     /// Commands by outcome: accepted, refused, not-allowed, invalid.
@@ -158,6 +164,16 @@ impl Metrics {
             "journal_held_dropped_unpublished_total",
             "Of those, results the broker had not acknowledged.",
             self.journal_held_dropped_unpublished.load(Relaxed),
+        );
+        counter(
+            "config_reloads_total",
+            "Configuration reloads (SIGHUP) applied.",
+            self.reloads.load(Relaxed),
+        );
+        counter(
+            "config_reloads_refused_total",
+            "Configuration reloads refused (errors in the file, or a change that needs a restart); the running configuration was kept.",
+            self.reloads_refused.load(Relaxed),
         );
         counter(
             "alarm_floods_total",

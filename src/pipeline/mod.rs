@@ -19,6 +19,7 @@ pub(crate) mod engine;
 mod lane;
 pub(crate) mod metrics;
 mod plant;
+pub(crate) mod reload;
 mod route;
 mod throttle;
 pub(crate) mod trace;

@@ -118,7 +118,13 @@ pub struct Daemon {
 
 impl Daemon {
     pub fn start(config: &Path, http_port: u16) -> Self {
+        Self::start_env(config, http_port, &[])
+    }
+
+    /// [`Daemon::start`] with more environment variables.
+    pub fn start_env(config: &Path, http_port: u16, env: &[(&str, &str)]) -> Self {
         let child = Command::new(env!("CARGO_BIN_EXE_eqwatch"))
+            .envs(env.iter().copied())
             .args(["run", "--config"])
             .arg(config)
             .args(["--log-level", "info"])
