@@ -16,6 +16,15 @@ if [ ${#need_apt[@]} -gt 0 ]; then
   DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq --no-install-recommends "${need_apt[@]}" >/dev/null
 fi
 
+# systemd-analyze for the unit check (scripts/check-deploy.sh); optional: without it the
+# unit is not verified, and a failed install does not stop the tests.
+if ! command -v systemd-analyze >/dev/null 2>&1; then
+  step "installing systemd (apt-get) for systemd-analyze"
+  if [ "$(id -u)" = 0 ]; then SUDO=""; else SUDO="sudo"; fi
+  { $SUDO apt-get update -qq && DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq --no-install-recommends systemd >/dev/null; } \
+    || echo "systemd could not be installed; the unit will not be verified"
+fi
+
 # Python reference libraries, pinned, in a venv inside the repo (ignored by git).
 if ! .venv/bin/python -c 'import cantera, thermo' >/dev/null 2>&1; then
   step "creating .venv with the pinned reference libraries"
@@ -62,6 +71,9 @@ step "cross-check against Cantera"
 
 step "cross-check against thermo (Peng-Robinson)"
 .venv/bin/python scripts/crosscheck_thermo.py --bin "$bin"
+
+step "deploy/: the systemd unit and the Containerfile"
+scripts/check-deploy.sh "$target/debug/eqwatch"
 
 step "species data are what the generator makes from the reference files"
 .venv/bin/python tools/gen_species.py --check
