@@ -258,8 +258,12 @@ fn soak(duration: Duration, speed: f64) -> String {
     computed += last_eval;
     let journal = journaled(&dir.path().join("journal"));
     let until = Instant::now() + Duration::from_secs(60);
-    while Instant::now() < until && !journal.iter().all(|k| received(&got).contains_key(k)) {
-        std::thread::sleep(Duration::from_millis(200));
+    while Instant::now() < until {
+        let recv = received(&got);
+        if journal.iter().all(|k| recv.contains_key(k)) {
+            break;
+        }
+        std::thread::sleep(Duration::from_secs(1));
     }
     let recv = received(&got);
     let missing = journal.iter().filter(|k| !recv.contains_key(*k)).count();

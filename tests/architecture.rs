@@ -12,6 +12,7 @@ const DEPENDENCIES: &[&str] = &[
     "clap",
     "eqwatch_core",
     "nalgebra",
+    "prost",
     "rumqttc",
     "rumqttd",
     "serde",
@@ -85,7 +86,8 @@ const RULES: &[Rule] = &[
             "units",
             "wire",
         ],
-        crates: &["serde", "serde_json", "thiserror"],
+        // prost: the Sparkplug B payload (wire/sparkplug.rs and its generated types).
+        crates: &["serde", "serde_json", "thiserror", "prost"],
     },
     // The processing path: route, decode, monitor, watch, commands. No runtime, no
     // MQTT client, no files (logs through the tracing facade only).

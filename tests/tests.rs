@@ -15,4 +15,5 @@ mod service;
 mod session;
 mod site;
 mod slow_link;
+mod sparkplug;
 mod tls;

@@ -28,6 +28,20 @@ pub(crate) struct RawConfig {
     pub commands: Option<RawCommands>,
     /// How far a reading's timestamp may be from the daemon's clock.
     pub timestamps: Option<RawTimestamps>,
+    /// Eclipse Sparkplug B: inputs from edge nodes, results as an edge node.
+    pub sparkplug: Option<RawSparkplug>,
+}
+
+/// `[sparkplug]`: eqwatch's own Sparkplug connection.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawSparkplug {
+    pub client_id: Option<String>,
+    pub group_id: Option<String>,
+    pub edge_node_id: Option<String>,
+    pub publish: Option<bool>,
+    pub host_id: Option<String>,
+    pub reorder_timeout: Option<String>,
 }
 
 /// `[timestamps]`: `max_ahead` and `max_behind` of the daemon's clock, as durations.

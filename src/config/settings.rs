@@ -31,6 +31,77 @@ pub struct Settings {
     pub reactors: Vec<ReactorSettings>,
     /// Who may send operator commands.
     pub commands: CommandSettings,
+    /// `[sparkplug]`, when present.
+    pub sparkplug: Option<SparkplugSettings>,
+}
+
+/// eqwatch's Sparkplug B connection (`[sparkplug]`): its own client id, clean session.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SparkplugSettings {
+    /// Default: the broker's client id with `-spb` (shortened like the result link's).
+    pub client_id: Option<String>,
+    /// eqwatch's group as an edge node (default: the site).
+    pub group_id: String,
+    /// eqwatch's edge node id (default `eqwatch`, or `eqwatch-<shard>`).
+    pub edge_node_id: String,
+    /// Publish results as an edge node (NBIRTH/DBIRTH/DDATA); default true.
+    pub publish: bool,
+    /// When set, eqwatch publishes `spBv1.0/STATE/<host_id>` as a host application.
+    pub host_id: Option<String>,
+    /// How long a message after a sequence gap waits for the missing one before a
+    /// rebirth is requested.
+    pub reorder_timeout: Duration,
+}
+
+/// An input on a Sparkplug metric: `spb:<group>/<edge node>[/<device>]:<metric name>`
+/// in place of a topic (Sparkplug ids never contain `/`, `+` or `#`; metric names may
+/// contain `/`, so the metric follows the first `:` after the ids).
+#[derive(Debug, Clone, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub struct SpbRef {
+    pub group: String,
+    pub node: String,
+    pub device: Option<String>,
+    pub metric: String,
+}
+
+impl SpbRef {
+    pub const PREFIX: &'static str = "spb:";
+
+    /// Parses `spb:G/N[/D]:metric`; `None` when `text` is not a Sparkplug reference,
+    /// `Some(Err)` with what is wrong when it is one but malformed.
+    pub fn parse(text: &str) -> Option<Result<Self, String>> {
+        let rest = text.strip_prefix(Self::PREFIX)?;
+        Some((|| {
+            let (ids, metric) = rest.split_once(':').ok_or_else(|| {
+                format!("\"{text}\": expected spb:<group>/<edge node>[/<device>]:<metric name>")
+            })?;
+            if metric.is_empty() {
+                return Err(format!("\"{text}\": the metric name after `:` is empty"));
+            }
+            let parts: Vec<&str> = ids.split('/').collect();
+            if !(2..=3).contains(&parts.len())
+                || parts.iter().any(|p| p.is_empty() || p.contains(['+', '#']))
+            {
+                return Err(format!(
+                    "\"{text}\": the ids before `:` must be <group>/<edge node> or <group>/<edge node>/<device>, none empty, no `+` or `#`"
+                ));
+            }
+            Ok(Self {
+                group: parts[0].to_string(),
+                node: parts[1].to_string(),
+                device: parts.get(2).map(|d| d.to_string()),
+                metric: metric.to_string(),
+            })
+        })())
+    }
+
+    /// The canonical text (what routing matches on).
+    pub fn key(&self) -> String {
+        match &self.device {
+            Some(d) => format!("spb:{}/{}/{d}:{}", self.group, self.node, self.metric),
+            None => format!("spb:{}/{}:{}", self.group, self.node, self.metric),
+        }
+    }
 }
 
 impl Settings {

@@ -22,6 +22,8 @@ pub mod journal;
 pub mod mqtt;
 pub mod notify;
 pub mod outbox;
+#[cfg(feature = "sparkplug")]
+pub mod sparkplug;
 pub mod state;
 
 pub use crate::pipeline::{Append, RawInput};
@@ -92,6 +94,16 @@ pub enum JournalCmd {
     Retry,
 }
 
+/// A copy of a journaled result for the Sparkplug edge node: reactor id, the result
+/// JSON with its seq, and whether it is from before this process started (sent as
+/// historical).
+#[derive(Debug)]
+pub struct ResultCopy {
+    pub reactor: String,
+    pub payload: String,
+    pub late: bool,
+}
+
 /// Messages from the journal thread to the link.
 #[derive(Debug)]
 pub enum ToLink {
@@ -106,6 +118,8 @@ pub enum ToLink {
 pub enum DaemonError {
     #[error("journal: {0}")]
     Journal(String),
+    #[error("{0}")]
+    Config(String),
     #[error("http listener on {addr}: {source}")]
     Http {
         addr: std::net::SocketAddr,
@@ -628,6 +642,77 @@ async fn control_loop(
     }
 }
 
+/// Starts the Sparkplug B links when `[sparkplug]` is configured; returns where the
+/// result link copies results for the edge node.
+#[cfg(feature = "sparkplug")]
+fn sparkplug_links(
+    settings: &Settings,
+    inputs: &[crate::config::SpbRef],
+    in_tx: &mpsc::Sender<RawInput>,
+    metrics: &Arc<Metrics>,
+    clock: &Clock,
+    stop: &CancellationToken,
+) -> Result<Option<mpsc::Sender<ResultCopy>>, DaemonError> {
+    let Some(spb) = &settings.sparkplug else {
+        return Ok(None);
+    };
+    if !inputs.is_empty() || spb.host_id.is_some() {
+        let host = sparkplug::HostLink {
+            broker: settings.broker.clone(),
+            settings: spb.clone(),
+            inputs: inputs.to_vec(),
+            clock: clock.clone(),
+        };
+        let (tx, m, s) = (in_tx.clone(), metrics.clone(), stop.clone());
+        tokio::spawn(async move {
+            if let Err(e) = host.run(tx, m, s).await {
+                error!(error = %e, "sparkplug host connection not started");
+            }
+        });
+        info!(inputs = inputs.len(), "sparkplug: reading edge nodes");
+    }
+    if !spb.publish {
+        return Ok(None);
+    }
+    let (tx, rx) = mpsc::channel(sparkplug::HELD_MAX);
+    let edge = sparkplug::EdgeLink {
+        broker: settings.broker.clone(),
+        settings: spb.clone(),
+        reactors: settings
+            .reactors
+            .iter()
+            .map(|r| r.spec.id.clone())
+            .collect(),
+        clock: clock.clone(),
+    };
+    let (m, s) = (metrics.clone(), stop.clone());
+    tokio::spawn(async move {
+        if let Err(e) = edge.run(rx, m, s).await {
+            error!(error = %e, "sparkplug edge connection not started");
+        }
+    });
+    info!(group = %spb.group_id, edge_node = %spb.edge_node_id, "sparkplug: publishing results as an edge node");
+    Ok(Some(tx))
+}
+
+/// Without the `sparkplug` feature a `[sparkplug]` table is refused at start-up.
+#[cfg(not(feature = "sparkplug"))]
+fn sparkplug_links(
+    settings: &Settings,
+    _inputs: &[crate::config::SpbRef],
+    _in_tx: &mpsc::Sender<RawInput>,
+    _metrics: &Arc<Metrics>,
+    _clock: &Clock,
+    _stop: &CancellationToken,
+) -> Result<Option<mpsc::Sender<ResultCopy>>, DaemonError> {
+    if settings.sparkplug.is_some() {
+        return Err(DaemonError::Config(
+            "[sparkplug] is configured but this build has no Sparkplug support (build with --features sparkplug)".into(),
+        ));
+    }
+    Ok(None)
+}
+
 /// Runs the daemon until `shutdown` is cancelled; returns after a clean stop
 /// (input stopped, results flushed with QoS 1, `offline` published, disconnected).
 pub async fn run(
@@ -676,6 +761,7 @@ pub async fn run(
     let engine = crate::pipeline::Engine::new(settings.clone(), metrics.clone())
         .map_err(DaemonError::Journal)?;
     let topics = engine.subscriptions();
+    let engine_spb = engine.sparkplug_inputs();
     let cap = usize::from(settings.broker.inflight) + 64;
     let (client, mut eventloop) = rumqttc::AsyncClient::new(opts, cap);
     let (in_client, mut in_eventloop) = rumqttc::AsyncClient::new(in_opts, topics.len() + 64);
@@ -741,6 +827,8 @@ pub async fn run(
         metrics.clone(),
         reactors,
     ));
+    let spb_stop = CancellationToken::new();
+    let copies = sparkplug_links(&settings, &engine_spb, &in_tx, &metrics, &clock, &spb_stop)?;
     let input = mqtt::InputLink {
         broker: settings.broker.clone(),
         topics,
@@ -763,6 +851,7 @@ pub async fn run(
         journal_last_at_start: last_at_start,
         clock,
         acked,
+        copies,
     };
     link.run(
         client,
@@ -775,6 +864,7 @@ pub async fn run(
     )
     .await;
     let _ = input.await;
+    spb_stop.cancel();
     let _ = evaluator.await;
     http_cancel.cancel();
     // The link dropped its journal sender; the evaluator dropped its own: the thread ends.

@@ -33,7 +33,7 @@ use tokio::sync::mpsc;
 use tokio_util::sync::CancellationToken;
 use tracing::{debug, error, info, warn};
 
-use super::outbox::{Offer, Outbox};
+use super::outbox::{Offer, Outbox, Outgoing};
 use super::{Clock, JournalCmd, RawInput, ToLink, UNACKED_RESUME, now_ms};
 use crate::config::{BrokerSettings, MqttProtocol};
 use crate::pipeline::metrics::Metrics;
@@ -57,21 +57,57 @@ pub enum LinkError {
 /// the 23 bytes MQTT 3.1.1 brokers must accept (spec 3.1.3.1), a shortened id with a
 /// 4-digit hash of the whole one (so two long ids that share a start do not collide).
 pub fn output_client_id(client_id: &str) -> String {
+    client_id_with(client_id, "o")
+}
+
+/// `client_id` with `-<suffix>`, shortened with a hash to MQTT 3.1.1's 23 bytes.
+pub fn client_id_with(client_id: &str, suffix: &str) -> String {
     const MAX: usize = 23;
-    if client_id.len() + 2 <= MAX {
-        return format!("{client_id}-o");
+    if client_id.len() + 1 + suffix.len() <= MAX {
+        return format!("{client_id}-{suffix}");
     }
     // FNV-1a, 16 bits folded: only to tell long ids apart, no security need.
     let mut h: u32 = 0x811c_9dc5;
     for b in client_id.bytes() {
         h = (h ^ u32::from(b)).wrapping_mul(0x0100_0193);
     }
-    let tag = format!("-o{:04x}", (h ^ (h >> 16)) & 0xffff);
+    let tag = format!("-{suffix}{:04x}", (h ^ (h >> 16)) & 0xffff);
     let mut cut = MAX - tag.len();
     while !client_id.is_char_boundary(cut) {
         cut -= 1;
     }
     format!("{}{tag}", &client_id[..cut])
+}
+
+/// Hands results to the Sparkplug edge node: fresh ones, and those read back from the
+/// journal that an earlier process wrote (historical there); never blocks the link.
+fn copy_results(
+    tx: &mpsc::Sender<super::ResultCopy>,
+    records: &[Outgoing],
+    last_at_start: u64,
+    metrics: &Metrics,
+) {
+    for r in records {
+        let late = r.replayed;
+        if (late && r.seq > last_at_start) || !r.topic.ends_with("/result") {
+            continue;
+        }
+        let Some(reactor) = r
+            .topic
+            .strip_suffix("/result")
+            .and_then(|t| t.rsplit('/').next())
+        else {
+            continue;
+        };
+        let copy = super::ResultCopy {
+            reactor: reactor.to_string(),
+            payload: crate::wire::result::with_delivery(&r.payload, r.seq, late),
+            late,
+        };
+        if tx.try_send(copy).is_err() {
+            metrics.spb_held_dropped.fetch_add(1, Relaxed);
+        }
+    }
 }
 
 /// Client options of the result link (status as last will); see [`input_options`].
@@ -115,7 +151,10 @@ pub fn input_read_ceiling(limit: usize) -> usize {
 
 /// Options both links share, from validated settings (every value was checked by the
 /// configuration, so no setter here can panic).
-fn base_options(b: &BrokerSettings, client_id: String) -> Result<MqttOptions, LinkError> {
+pub(super) fn base_options(
+    b: &BrokerSettings,
+    client_id: String,
+) -> Result<MqttOptions, LinkError> {
     if b.protocol == MqttProtocol::V5 {
         return Err(LinkError::Options(
             "MQTT 5 is accepted in the configuration but this build speaks MQTT 3.1.1 only; set broker.protocol = \"3.1.1\"".into(),
@@ -233,7 +272,7 @@ impl Jitter {
 }
 
 /// Connection state and reconnect backoff of one link.
-struct Connection {
+pub(super) struct Connection {
     /// `results` or `input`, for the log.
     what: &'static str,
     broker: String,
@@ -248,7 +287,7 @@ struct Connection {
 }
 
 impl Connection {
-    fn new(what: &'static str, b: &BrokerSettings) -> Self {
+    pub(super) fn new(what: &'static str, b: &BrokerSettings) -> Self {
         Self {
             what,
             broker: format!("{}:{}", b.host, b.port),
@@ -262,7 +301,7 @@ impl Connection {
         }
     }
 
-    fn up(&mut self, session_present: bool) {
+    pub(super) fn up(&mut self, session_present: bool) {
         self.since = Some(Instant::now());
         self.ever = true;
         info!(
@@ -276,7 +315,7 @@ impl Connection {
     /// A broker that refuses the login or the client id will not change its mind in
     /// milliseconds: those wait the longest delay (`reconnect_max`) at once and say
     /// what to fix.
-    fn lost(&mut self, e: &rumqttc::ConnectionError) -> Duration {
+    pub(super) fn lost(&mut self, e: &rumqttc::ConnectionError) -> Duration {
         let was_up = self.since.take();
         if was_up.is_some_and(|t| t.elapsed() >= STABLE) {
             self.failures = 0;
@@ -352,6 +391,8 @@ pub struct Link {
     /// Woken whenever the acknowledged watermark moves (the evaluator waits on it when
     /// too many results are unacknowledged).
     pub acked: Arc<Notify>,
+    /// Copies of results for the Sparkplug edge node (`[sparkplug] publish`).
+    pub copies: Option<mpsc::Sender<super::ResultCopy>>,
 }
 
 impl Link {
@@ -438,6 +479,9 @@ impl Link {
                         ev = &mut poll => break ev,
                         msg = from_journal.recv(), if !drained => match msg {
                             Some(ToLink::Records(records)) => {
+                                if let Some(tx) = &self.copies {
+                                    copy_results(tx, &records, self.journal_last_at_start, &metrics);
+                                }
                                 for r in records {
                                     if outbox.offer(r) == Offer::Deferred {
                                         debug!("record deferred to a journal read");
@@ -543,7 +587,7 @@ impl Link {
 }
 
 /// Asks for a clean disconnect and polls briefly until it is written.
-async fn disconnect(client: &AsyncClient, eventloop: &mut EventLoop) {
+pub(super) async fn disconnect(client: &AsyncClient, eventloop: &mut EventLoop) {
     let _ = client.try_disconnect();
     let until = Instant::now() + Duration::from_secs(1);
     while Instant::now() < until {

@@ -129,9 +129,26 @@ impl Engine {
 
     /// Topics to subscribe to (inputs and commands), sorted.
     pub fn subscriptions(&self) -> Vec<String> {
-        let mut t: Vec<String> = self.routes.keys().cloned().collect();
+        let mut t: Vec<String> = self
+            .routes
+            .keys()
+            .filter(|k| !k.starts_with(crate::config::SpbRef::PREFIX))
+            .cloned()
+            .collect();
         t.sort();
         t
+    }
+
+    /// The inputs on Sparkplug metrics (`spb:` references), sorted; they arrive through
+    /// the Sparkplug link, not a subscription.
+    pub fn sparkplug_inputs(&self) -> Vec<crate::config::SpbRef> {
+        let mut v: Vec<crate::config::SpbRef> = self
+            .routes
+            .keys()
+            .filter_map(|k| crate::config::SpbRef::parse(k)?.ok())
+            .collect();
+        v.sort();
+        v
     }
 
     /// The retained alarm states of every reactor that has alerts or alarms (published

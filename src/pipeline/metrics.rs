@@ -66,6 +66,16 @@ pub struct Metrics {
     pub reloads_refused: AtomicU64,
     /// The evaluator's once-a-second ticks (the watchdog pings only while they come).
     pub evaluator_ticks: AtomicU64,
+    /// Sparkplug B: messages from the edge nodes read, undecodable ones, sequence
+    /// gaps, rebirth requests, node deaths; results published as an edge node, and
+    /// those dropped while its connection was down.
+    pub spb_messages: AtomicU64,
+    pub spb_undecodable: AtomicU64,
+    pub spb_gaps: AtomicU64,
+    pub spb_rebirths_requested: AtomicU64,
+    pub spb_deaths: AtomicU64,
+    pub spb_published: AtomicU64,
+    pub spb_held_dropped: AtomicU64,
     pub chattering: AtomicU64,
     pub stale: AtomicU64,
     /// Commands by outcome: accepted, refused, not-allowed, invalid.
@@ -165,6 +175,45 @@ impl Metrics {
             "Of those, results the broker had not acknowledged.",
             self.journal_held_dropped_unpublished.load(Relaxed),
         );
+        for (name, help, v) in [
+            (
+                "sparkplug_messages_total",
+                "Sparkplug B messages read from the edge nodes the inputs name.",
+                &self.spb_messages,
+            ),
+            (
+                "sparkplug_undecodable_total",
+                "Sparkplug B payloads that were not valid protobuf.",
+                &self.spb_undecodable,
+            ),
+            (
+                "sparkplug_sequence_gaps_total",
+                "Sparkplug B sequence gaps (a message missing or out of order).",
+                &self.spb_gaps,
+            ),
+            (
+                "sparkplug_rebirth_requests_total",
+                "Rebirth requests sent to edge nodes (gap not filled in time, data before a birth, unreadable payload).",
+                &self.spb_rebirths_requested,
+            ),
+            (
+                "sparkplug_node_deaths_total",
+                "NDEATHs matching their node's birth (its metrics marked stale).",
+                &self.spb_deaths,
+            ),
+            (
+                "sparkplug_results_published_total",
+                "Results published as Sparkplug B DDATA.",
+                &self.spb_published,
+            ),
+            (
+                "sparkplug_results_dropped_total",
+                "Results not published as Sparkplug B: the edge connection was down longer than its buffer.",
+                &self.spb_held_dropped,
+            ),
+        ] {
+            counter(name, help, v.load(Relaxed));
+        }
         counter(
             "config_reloads_total",
             "Configuration reloads (SIGHUP) applied.",

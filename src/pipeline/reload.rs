@@ -76,6 +76,20 @@ pub(crate) fn restart_needed(old: &Settings, new: &Settings) -> Vec<String> {
     if old.http_listen != new.http_listen {
         why.push("[http] listen".to_string());
     }
+    if old.sparkplug != new.sparkplug {
+        why.push("[sparkplug]".to_string());
+    }
+    let spb = |s: &Settings| -> Vec<String> {
+        let mut v: Vec<String> = routes(s)
+            .into_keys()
+            .filter(|k| k.starts_with(crate::config::SpbRef::PREFIX))
+            .collect();
+        v.sort();
+        v
+    };
+    if spb(old) != spb(new) {
+        why.push("inputs on Sparkplug metrics (spb:)".to_string());
+    }
     let ids =
         |s: &Settings| -> Vec<String> { s.reactors.iter().map(|r| r.spec.id.clone()).collect() };
     let (a, b) = (ids(old), ids(new));

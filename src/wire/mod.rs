@@ -10,6 +10,10 @@
 
 pub(crate) mod input;
 pub(crate) mod result;
+#[cfg(feature = "sparkplug")]
+pub(crate) mod sparkplug;
+#[cfg(feature = "sparkplug")]
+pub(crate) mod sparkplug_b;
 pub(crate) mod watch;
 
 /// Non-finite numbers go out as `null` (JSON has no NaN), never as a made-up value.

@@ -512,6 +512,12 @@ fn analyser_source(
             );
         }
     }
+    if topic.starts_with(crate::config::SpbRef::PREFIX) {
+        problems.add(
+            format!("{path}.topic"),
+            "a Sparkplug metric carries one value: give one spb: reference per component under topics",
+        );
+    }
     CompositionSource::Analyser {
         topic: topic.to_string(),
         values_pointer: pointer(
@@ -715,6 +721,16 @@ pub(crate) fn transient(problems: &mut Problems, path: &str, text: &str) -> f64 
 }
 
 pub(crate) fn check_topic(problems: &mut Problems, path: &str, topic: &str, output_prefix: &str) {
+    if let Some(r) = crate::config::SpbRef::parse(topic) {
+        match r {
+            Ok(r) if r.key() != topic => {
+                problems.add(path, format!("\"{topic}\": write it as \"{}\"", r.key()))
+            }
+            Ok(_) => {}
+            Err(e) => problems.add(path, e),
+        }
+        return;
+    }
     if topic.is_empty() {
         problems.add(path, "is empty; give the topic the instrument publishes to");
     } else if topic.contains(['+', '#']) {

@@ -16,8 +16,8 @@ use crate::config::EnvLookup;
 use crate::config::duration::{parse_duration, show_duration};
 use crate::config::error::{ConfigErrors, Problems, is_name_char, unit_message};
 use crate::config::files::species_db;
-use crate::config::raw::{RawConfig, RawReactor, RawTimestamps};
-use crate::config::settings::Settings;
+use crate::config::raw::{RawConfig, RawReactor, RawSparkplug, RawTimestamps};
+use crate::config::settings::{Settings, SparkplugSettings};
 use crate::config::validate::broker::{broker, journal};
 use crate::config::validate::reactor::{ReactorEnv, reactor};
 use crate::monitor::spec::ClockWindow;
@@ -121,6 +121,14 @@ pub(crate) fn validate(
         }
     }
     let commands = crate::config::validate::watch::commands(&mut problems, raw.commands.as_ref());
+    let uses_spb = raw_topics(raw).any(|t| t.starts_with(crate::config::SpbRef::PREFIX));
+    let sparkplug = sparkplug(
+        &mut problems,
+        raw.sparkplug.as_ref(),
+        &raw.site,
+        shard.as_deref(),
+        uses_spb,
+    );
     if !problems.is_empty() {
         return Err(problems.into_errors());
     }
@@ -135,6 +143,99 @@ pub(crate) fn validate(
         atmosphere_bar,
         species,
         reactors,
+        sparkplug,
+    })
+}
+
+/// Every input topic as written (for the `[sparkplug]` requirement).
+fn raw_topics(raw: &RawConfig) -> impl Iterator<Item = &str> {
+    raw.reactors.values().flat_map(|r| {
+        let c = &r.composition;
+        c.topic
+            .iter()
+            .map(String::as_str)
+            .chain(c.topics.iter().flatten().map(|(_, t)| t.as_str()))
+            .chain(r.temperature.iter().filter_map(|t| t.topic.as_deref()))
+            .chain(r.pressure.topic.as_deref())
+            .chain(r.steam_ratio.as_ref().and_then(|s| s.topic.as_deref()))
+    })
+}
+
+/// A Sparkplug id (group, edge node, host): not empty, none of `/`, `+`, `#`
+/// (Sparkplug 3.0, topic namespace elements).
+fn sparkplug_id(problems: &mut Problems, path: &str, id: &str) {
+    if id.is_empty() || id.contains(['/', '+', '#']) || id.trim() != id {
+        problems.add(
+            path,
+            format!(
+                "\"{id}\" is not a Sparkplug id: not empty, no `/`, `+`, `#` or surrounding spaces"
+            ),
+        );
+    }
+}
+
+/// `[sparkplug]`: required when an input is a `spb:` reference.
+fn sparkplug(
+    problems: &mut Problems,
+    raw: Option<&RawSparkplug>,
+    site: &str,
+    shard: Option<&str>,
+    uses_spb: bool,
+) -> Option<SparkplugSettings> {
+    let Some(raw) = raw else {
+        if uses_spb {
+            problems.add(
+                "sparkplug",
+                "inputs on Sparkplug metrics (spb:...) need a [sparkplug] table (eqwatch's Sparkplug connection)",
+            );
+        }
+        return None;
+    };
+    let group_id = raw.group_id.clone().unwrap_or_else(|| site.to_string());
+    sparkplug_id(problems, "sparkplug.group_id", &group_id);
+    let edge_node_id = raw.edge_node_id.clone().unwrap_or_else(|| match shard {
+        Some(s) => format!("eqwatch-{s}"),
+        None => "eqwatch".to_string(),
+    });
+    sparkplug_id(problems, "sparkplug.edge_node_id", &edge_node_id);
+    if let Some(h) = &raw.host_id {
+        sparkplug_id(problems, "sparkplug.host_id", h);
+    }
+    if let Some(c) = &raw.client_id
+        && (c.is_empty()
+            || c.len() > 23
+            || !c
+                .chars()
+                .all(|ch| ch.is_ascii_alphanumeric() || ch == '-' || ch == '_'))
+    {
+        problems.add(
+            "sparkplug.client_id",
+            format!("\"{c}\": 1 to 23 letters, digits, `-` or `_` (what every MQTT 3.1.1 broker accepts)"),
+        );
+    }
+    let reorder_timeout = duration_at(
+        problems,
+        "sparkplug.reorder_timeout",
+        raw.reorder_timeout.as_deref(),
+        DurationRule {
+            default: Some(Duration::from_secs(2)),
+            min: Duration::from_millis(100),
+            why_min: "a broker reorders within milliseconds, not less",
+        },
+    );
+    if reorder_timeout > Duration::from_secs(60) {
+        problems.add(
+            "sparkplug.reorder_timeout",
+            "more than 60 s: inputs would wait that long behind a lost message; 1 to 10 s is usual",
+        );
+    }
+    Some(SparkplugSettings {
+        client_id: raw.client_id.clone(),
+        group_id,
+        edge_node_id,
+        publish: raw.publish.unwrap_or(true),
+        host_id: raw.host_id.clone(),
+        reorder_timeout,
     })
 }
 
@@ -264,6 +365,58 @@ mod tests {
     //! Check values: see `test_support` (the demo plant's own data, else invented).
 
     use crate::config::test_support::{assert_problems, broken, check, refused, with_broker};
+
+    #[test]
+    fn sparkplug_inputs_are_references_and_need_their_table() {
+        // Sparkplug B 3.0: group, edge node and device ids never contain `/`, `+`, `#`.
+        let demo = include_str!("../../../config/demo-plant.toml");
+        let on_spb = demo.replacen(
+            "topic = \"baw1/hts1/TI-205\"",
+            "topic = \"spb:baw1/gw3/HTS:Inputs/TI-205\"",
+            1,
+        );
+        assert_ne!(on_spb, demo);
+        let e = refused(&on_spb);
+        assert!(e.to_string().contains("need a [sparkplug] table"), "{e}");
+        let with_table = format!("{on_spb}\n[sparkplug]\nreorder_timeout = \"1 s\"\n");
+        let s = check(&with_table).expect("valid with [sparkplug]");
+        let spb = s.sparkplug.as_ref().expect("sparkplug settings");
+        assert_eq!(spb.group_id, "baw1", "the site by default");
+        assert_eq!(spb.edge_node_id, "eqwatch");
+        assert!(spb.publish);
+        assert_eq!(spb.reorder_timeout, std::time::Duration::from_secs(1));
+        for (bad, says) in [
+            ("spb:baw1:TI-205", "must be <group>/<edge node>"),
+            ("spb:baw1/gw3/HTS/x:TI-205", "must be <group>/<edge node>"),
+            ("spb:baw1/gw3/HTS", "expected spb:"),
+            ("spb:baw1/gw3:", "metric name after `:` is empty"),
+        ] {
+            let text = with_table.replacen("spb:baw1/gw3/HTS:Inputs/TI-205", bad, 1);
+            let e = refused(&text);
+            assert!(e.to_string().contains(says), "{bad}: {e}");
+            assert!(e.to_string().contains("temperature[0].topic"), "{bad}: {e}");
+        }
+        let e = refused(&with_table.replacen(
+            "reorder_timeout = \"1 s\"",
+            "reorder_timeout = \"5 min\"\ngroup_id = \"a/b\"",
+            1,
+        ));
+        assert!(e.to_string().contains("sparkplug.reorder_timeout"), "{e}");
+        assert!(e.to_string().contains("sparkplug.group_id"), "{e}");
+        // An analyser message cannot be one Sparkplug metric.
+        let e = refused(&format!(
+            "{}\n[sparkplug]\n",
+            demo.replacen(
+                "topic = \"baw1/hts1/AI-201\"",
+                "topic = \"spb:baw1/gw3:AI-201\"",
+                1
+            )
+        ));
+        assert!(
+            e.to_string().contains("one spb: reference per component"),
+            "{e}"
+        );
+    }
 
     #[test]
     fn the_timestamp_window_is_read_from_its_section_or_defaulted() {
