@@ -147,7 +147,7 @@ struct NodeState {
     bd_seq: Option<u64>,
     /// The seq the next message must carry.
     next_seq: u8,
-    /// (device, alias) → metric name, from the births.
+    /// (device, alias) → input key, from the births (configured metrics only).
     aliases: HashMap<(Option<String>, u64), String>,
     /// Messages after a gap, by seq, with when they came.
     held: BTreeMap<u8, (i64, Topic, Payload)>,
@@ -265,12 +265,7 @@ impl Consumer {
     }
 
     fn birth(&mut self, t: &Topic, p: &Payload, now_ms: i64, out: &mut Vec<Event>) {
-        let bd = p
-            .metrics
-            .iter()
-            .find(|m| m.name.as_deref() == Some("bdSeq"))
-            .and_then(number)
-            .map(|v| v as u64);
+        let bd = bd_seq_of(p);
         let Some(s) = self.nodes.get_mut(&t.node) else {
             return;
         };
@@ -283,12 +278,7 @@ impl Consumer {
     }
 
     fn death(&mut self, t: &Topic, p: &Payload, now_ms: i64, out: &mut Vec<Event>) {
-        let bd = p
-            .metrics
-            .iter()
-            .find(|m| m.name.as_deref() == Some("bdSeq"))
-            .and_then(number)
-            .map(|v| v as u64);
+        let bd = bd_seq_of(p);
         let Some(s) = self.nodes.get_mut(&t.node) else {
             return;
         };
@@ -388,27 +378,32 @@ impl Consumer {
             return;
         };
         for m in &p.metrics {
-            let name = match (&m.name, m.alias) {
+            // Only configured metrics are kept (aliases included): a node with thousands
+            // of metrics costs no memory for those eqwatch does not use.
+            let key = match (&m.name, m.alias) {
                 (Some(n), alias) => {
-                    if birth && let Some(a) = alias {
-                        s.aliases.insert((t.device.clone(), a), n.clone());
+                    let key = SpbRef {
+                        group: t.node.group.clone(),
+                        node: t.node.node.clone(),
+                        device: t.device.clone(),
+                        metric: n.clone(),
                     }
-                    n.clone()
+                    .key();
+                    if !self.wanted.contains(&key) {
+                        continue;
+                    }
+                    if birth && let Some(a) = alias {
+                        s.aliases.insert((t.device.clone(), a), key.clone());
+                    }
+                    key
                 }
                 (None, Some(a)) => match s.aliases.get(&(t.device.clone(), a)) {
-                    Some(n) => n.clone(),
+                    Some(k) => k.clone(),
                     None => continue,
                 },
                 (None, None) => continue,
             };
-            let key = SpbRef {
-                group: t.node.group.clone(),
-                node: t.node.node.clone(),
-                device: t.device.clone(),
-                metric: name,
-            }
-            .key();
-            if !self.wanted.contains(&key) || m.is_null == Some(true) {
+            if m.is_null == Some(true) {
                 continue;
             }
             let Some(v) = number(m) else { continue };
@@ -461,6 +456,15 @@ impl Consumer {
             why,
         });
     }
+}
+
+/// The `bdSeq` metric of a birth or death.
+fn bd_seq_of(p: &Payload) -> Option<u64> {
+    p.metrics
+        .iter()
+        .find(|m| m.name.as_deref() == Some("bdSeq"))
+        .and_then(number)
+        .map(|v| v as u64)
 }
 
 fn reading(ts: i64, v: f64, quality: &str) -> String {
@@ -1083,5 +1087,78 @@ mod tests {
         }
         // 1 DBIRTH + 300 DDATA after NBIRTH 0: (1 + 300) mod 256 = 45.
         assert_eq!(last, 45);
+    }
+
+    /// Hostile input: arbitrary bytes, and well-formed payloads with arbitrary seq,
+    /// aliases, names and values, on every message type of a named node.
+    fn hostile() -> impl proptest::strategy::Strategy<Value = (usize, Vec<u8>, i64)> {
+        use proptest::prelude::*;
+        let garbage = proptest::collection::vec(any::<u8>(), 0..64);
+        let metric = (
+            proptest::option::of("[A-Z]{0,3}-?[0-9]{0,3}|bdSeq|PI-302|TI-305A"),
+            proptest::option::of(0u64..10),
+            any::<f64>(),
+            any::<bool>(),
+        )
+            .prop_map(|(name, alias, v, null)| Metric {
+                name,
+                alias,
+                datatype: Some(datatype::DOUBLE),
+                is_null: null.then_some(true),
+                value: Some(metric::Value::DoubleValue(v)),
+                ..Metric::default()
+            });
+        let structured = (
+            proptest::option::of(0u64..300),
+            proptest::collection::vec(metric, 0..6),
+        )
+            .prop_map(|(seq, metrics)| {
+                Payload {
+                    timestamp: Some(T0 as u64),
+                    seq,
+                    metrics,
+                    ..Payload::default()
+                }
+                .encode_to_vec()
+            });
+        (0usize..8, prop_oneof![garbage, structured], 0i64..10_000)
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
+        /// The consumer never panics, every input it makes is a JSON reading, and a
+        /// rebirth request is never sent twice within the reorder timeout.
+        #[test]
+        fn hostile_sparkplug_messages_never_panic(
+            messages in proptest::collection::vec(hostile(), 1..60)
+        ) {
+            let kinds = ["NBIRTH", "NDEATH", "NDATA", "NCMD"];
+            let dkinds = ["DBIRTH", "DDEATH", "DDATA", "DCMD"];
+            let mut c = Consumer::new(&refs(), 2000);
+            let mut last_ask: Option<i64> = None;
+            let mut now = T0;
+            for (k, bytes, dt) in messages {
+                now += dt;
+                let topic = if k < 4 {
+                    format!("spBv1.0/G1/{}/EN1", kinds[k])
+                } else {
+                    format!("spBv1.0/G1/{}/EN1/AH1", dkinds[k - 4])
+                };
+                let mut ev = c.message(&topic, &bytes, now);
+                ev.extend(c.tick(now));
+                for e in &ev {
+                    match e {
+                        Event::Input { payload, .. } => {
+                            let v: Value = serde_json::from_str(payload).expect("JSON");
+                            proptest::prop_assert!(v["value"].as_f64().is_some_and(f64::is_finite));
+                        }
+                        Event::Rebirth { .. } => {
+                            proptest::prop_assert!(last_ask.is_none_or(|a| now - a >= 2000));
+                            last_ask = Some(now);
+                        }
+                    }
+                }
+            }
+        }
     }
 }
