@@ -6,14 +6,15 @@
 #   FUZZ_SECONDS=600 scripts/fuzz.sh input_message
 #
 # Targets (fuzz/fuzz_targets): input_message (payload decoding and the pipeline),
-# history_rows (replay CSV rows), config_file, reaction_equation, unit_text. Seeds are in
+# history_rows (replay CSV rows), config_file, reaction_equation, unit_text,
+# sparkplug_message (Sparkplug B payloads through the host consumer). Seeds are in
 # fuzz/corpus/<target>; a crash leaves its input in fuzz/artifacts/<target> and fails.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 seconds="${FUZZ_SECONDS:-60}"
 targets=("$@")
 if [ ${#targets[@]} -eq 0 ]; then
-    targets=(input_message history_rows config_file reaction_equation unit_text)
+    targets=(input_message history_rows config_file reaction_equation unit_text sparkplug_message)
 fi
 if ! cargo fuzz --version >/dev/null 2>&1; then
     echo "installing cargo-fuzz (a few minutes, once)"

@@ -112,3 +112,43 @@ fn tempfile_dir() -> std::io::Result<PathBuf> {
     std::fs::create_dir_all(&dir)?;
     Ok(dir)
 }
+
+#[cfg(feature = "sparkplug")]
+thread_local! {
+    /// One Sparkplug consumer per fuzzing thread (births, aliases and seq carry over).
+    static SPARKPLUG: RefCell<(crate::wire::sparkplug::Consumer, i64)> = RefCell::new((
+        crate::wire::sparkplug::Consumer::new(
+            &["spb:G1/EN1/AH1:TI-305A", "spb:G1/EN1:PI-302"]
+                .iter()
+                .filter_map(|t| crate::config::SpbRef::parse(t)?.ok())
+                .collect::<Vec<_>>(),
+            2000,
+        ),
+        1_796_083_200_000,
+    ));
+}
+
+/// One Sparkplug B message: the first byte picks the message type (node or device of
+/// the one named edge node), the second moves the clock, the rest is the payload.
+#[cfg(feature = "sparkplug")]
+pub fn sparkplug_message(bytes: &[u8]) {
+    const KINDS: [&str; 8] = [
+        "NBIRTH", "NDEATH", "NDATA", "NCMD", "DBIRTH", "DDEATH", "DDATA", "DCMD",
+    ];
+    let (Some(&k), Some(&dt)) = (bytes.first(), bytes.get(1)) else {
+        return;
+    };
+    let kind = KINDS[usize::from(k) % KINDS.len()];
+    let topic = if usize::from(k) % KINDS.len() < 4 {
+        format!("spBv1.0/G1/{kind}/EN1")
+    } else {
+        format!("spBv1.0/G1/{kind}/EN1/AH1")
+    };
+    SPARKPLUG.with(|cell| {
+        let mut slot = cell.borrow_mut();
+        slot.1 += i64::from(dt) * 50;
+        let now = slot.1;
+        let _ = slot.0.message(&topic, &bytes[2..], now);
+        let _ = slot.0.tick(now);
+    });
+}
