@@ -3,7 +3,8 @@
 //! They use the real front doors (the pipeline's message path, the configuration
 //! parser, replay), on the invented demo plant's configuration.
 //!
-//! May use: `config`, `pipeline`, `replay`. Not the daemon.
+//! May use: `config`, `pipeline`, `replay`, `wire` (the Sparkplug consumer). Not the
+//! daemon.
 
 use std::cell::RefCell;
 use std::path::{Path, PathBuf};

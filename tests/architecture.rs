@@ -165,7 +165,8 @@ const RULES: &[Rule] = &[
     // pipeline, the configuration and replay; no daemon.
     Rule {
         path: "src/fuzz.rs",
-        modules: &["config", "pipeline", "replay", "plot"],
+        // wire: the Sparkplug B consumer (pure), fuzzed on its own.
+        modules: &["config", "pipeline", "replay", "plot", "wire"],
         crates: &[],
     },
     // The calculator: the core and JSON; no daemon.
