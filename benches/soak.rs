@@ -60,41 +60,14 @@ fn target_dir() -> PathBuf {
         .unwrap_or_else(|| Path::new(env!("CARGO_MANIFEST_DIR")).join("target"))
 }
 
-/// Mosquitto with persistence in `dir` on `port` (restartable on the same database).
+/// Mosquitto with persistence in `dir` on `port` (restartable on the same database):
+/// saved every 5 s, per-client queues unbounded.
 fn broker(dir: &Path, port: u16) -> Child {
-    let conf = dir.join("mosquitto.conf");
-    let user = if support::is_root() {
-        "user root\n"
-    } else {
-        ""
-    };
-    std::fs::write(
-        &conf,
-        format!(
-            "listener {port} 127.0.0.1\nallow_anonymous true\npersistence true\n\
-             persistence_location {}/\nautosave_interval 5\nmax_queued_messages 0\n\
-             log_dest none\n{user}",
-            dir.display()
-        ),
-    )
-    .expect("write mosquitto.conf");
-    let child = Command::new(support::mosquitto_binary())
-        .arg("-c")
-        .arg(&conf)
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .spawn()
-        .expect("mosquitto (Debian package)");
-    assert!(support::wait_port(port, true, Duration::from_secs(10)));
-    child
+    support::persistent_broker(dir, port, "autosave_interval 5\nmax_queued_messages 0\n")
 }
 
-fn stop_broker(mut b: Child, port: u16) {
-    let _ = Command::new("kill")
-        .args(["-TERM", &b.id().to_string()])
-        .status();
-    let _ = b.wait();
-    support::wait_port(port, false, Duration::from_secs(10));
+fn stop_broker(b: Child, port: u16) {
+    support::stop_broker(b, port);
 }
 
 fn daemon(config: &Path, http: u16, life: usize) -> Child {

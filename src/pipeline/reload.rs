@@ -49,11 +49,14 @@ pub(crate) struct Reloaded {
     pub unsubscribe: Vec<String>,
 }
 
+/// Settings compared by their `Debug` text (see the module text).
+fn same<T: std::fmt::Debug + ?Sized>(a: &T, b: &T) -> bool {
+    format!("{a:?}") == format!("{b:?}")
+}
+
 /// Why `new` cannot replace `old` without a restart (empty: it can).
 pub(crate) fn restart_needed(old: &Settings, new: &Settings) -> Vec<String> {
     let mut why = Vec::new();
-    let differs =
-        |a: &dyn std::fmt::Debug, b: &dyn std::fmt::Debug| format!("{a:?}") != format!("{b:?}");
     if old.site != new.site {
         why.push(format!("site (\"{}\" → \"{}\")", old.site, new.site));
     }
@@ -67,10 +70,10 @@ pub(crate) fn restart_needed(old: &Settings, new: &Settings) -> Vec<String> {
         ));
     }
     // Never echo these sections: [broker] holds the password.
-    if differs(&old.broker, &new.broker) {
+    if !same(&old.broker, &new.broker) {
         why.push("[broker]".to_string());
     }
-    if differs(&old.journal, &new.journal) {
+    if !same(&old.journal, &new.journal) {
         why.push("[journal]".to_string());
     }
     if old.http_listen != new.http_listen {
@@ -128,8 +131,6 @@ fn list(v: &[&str]) -> String {
 /// Why reactor `new`'s run cannot continue `old`'s (`None`: it can).
 fn run_reset_reason(old: &ReactorSettings, new: &ReactorSettings) -> Option<String> {
     let (o, n) = (&old.spec, &new.spec);
-    let same =
-        |a: &dyn std::fmt::Debug, b: &dyn std::fmt::Debug| format!("{a:?}") == format!("{b:?}");
     let mut what = Vec::new();
     if !same(&o.reactions, &n.reactions) {
         what.push("reactions");
@@ -172,7 +173,7 @@ impl Engine {
         let mut fresh: Vec<Option<Lane>> = Vec::with_capacity(self.lanes.len());
         for (r, lane) in self.lanes.iter().enumerate() {
             let (o, n) = (&self.settings.reactors[r], &new.reactors[r]);
-            if format!("{o:?}") == format!("{n:?}") {
+            if same(o, n) {
                 fresh.push(None);
                 continue;
             }

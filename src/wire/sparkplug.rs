@@ -27,7 +27,7 @@ use prost::Message as _;
 use serde_json::Value;
 
 use super::sparkplug_b::Payload;
-use super::sparkplug_b::payload::{Metric, PropertySet, metric};
+use super::sparkplug_b::payload::{Metric, metric};
 use crate::config::SpbRef;
 
 /// The Sparkplug B topic namespace.
@@ -750,7 +750,6 @@ fn figure(v: Option<&Value>, f: usize, ts: Option<u64>) -> Metric {
         datatype: Some(dt),
         is_null: value.is_none().then_some(true),
         value,
-        properties: None::<PropertySet>,
         ..Metric::default()
     }
 }
@@ -984,8 +983,8 @@ mod tests {
 
     #[test]
     fn opc_quality_property_maps_to_input_quality() {
-        use super::super::sparkplug_b::payload::PropertyValue;
         use super::super::sparkplug_b::payload::property_value::Value as P;
+        use super::super::sparkplug_b::payload::{PropertySet, PropertyValue};
         let mut c = Consumer::new(&refs(), 2000);
         let mut metric = m(Some("PI-302"), Some(7), 29.0);
         metric.properties = Some(PropertySet {

@@ -38,6 +38,20 @@ impl Manager {
     }
 }
 
+/// Writes `text` as the configuration, sends SIGHUP, and returns the READY datagram
+/// that ends the reload (after its RELOADING).
+fn reload_with(
+    manager: &mut Manager,
+    daemon: &Daemon,
+    config: &std::path::Path,
+    text: &str,
+) -> String {
+    std::fs::write(config, text).expect("write config");
+    daemon.signal("-HUP");
+    manager.expect("RELOADING=1", Duration::from_secs(5));
+    manager.expect("READY=1", Duration::from_secs(5))
+}
+
 fn result_on(got: &Received, temperature_tag: &str) -> bool {
     got.lock().unwrap().iter().any(|(t, pl, _)| {
         t == "eqwatch/test/lts1/result"
@@ -102,10 +116,7 @@ fn notify_protocol_watchdog_and_reload_on_sighup() {
         1,
     );
     assert_ne!(moved, text, "the test plant names TI-3 on t/lts1/ti");
-    std::fs::write(&config, &moved).expect("write config");
-    daemon.signal("-HUP");
-    manager.expect("RELOADING=1", Duration::from_secs(5));
-    let done = manager.expect("READY=1", Duration::from_secs(5));
+    let done = reload_with(&mut manager, &daemon, &config, &moved);
     assert!(done.contains("configuration reloaded"), "{done}");
     assert!(log().contains("configuration reloaded"), "{}", log());
     // Readings on the new topic are used (the subscription followed the file).
@@ -131,14 +142,8 @@ fn notify_protocol_watchdog_and_reload_on_sighup() {
     assert_eq!(daemon.metric("eqwatch_config_reloads_total"), 1.0);
 
     // 2. A broken file: refused with its errors, the running configuration kept.
-    std::fs::write(
-        &config,
-        moved.replacen("unit = \"degC\"", "unit = \"degQ\"", 1),
-    )
-    .expect("write config");
-    daemon.signal("-HUP");
-    manager.expect("RELOADING=1", Duration::from_secs(5));
-    let refused = manager.expect("READY=1", Duration::from_secs(5));
+    let bad = moved.replacen("unit = \"degC\"", "unit = \"degQ\"", 1);
+    let refused = reload_with(&mut manager, &daemon, &config, &bad);
     assert!(refused.contains("reload refused"), "{refused}");
     assert!(
         log().contains("degQ"),
@@ -148,14 +153,8 @@ fn notify_protocol_watchdog_and_reload_on_sighup() {
     assert_eq!(daemon.metric("eqwatch_config_reloads_refused_total"), 1.0);
 
     // 3. A change that needs a restart (the journal folder): refused, named.
-    std::fs::write(
-        &config,
-        moved.replacen("dir = \"journal\"", "dir = \"journal2\"", 1),
-    )
-    .expect("write config");
-    daemon.signal("-HUP");
-    manager.expect("RELOADING=1", Duration::from_secs(5));
-    let refused = manager.expect("READY=1", Duration::from_secs(5));
+    let other_journal = moved.replacen("dir = \"journal\"", "dir = \"journal2\"", 1);
+    let refused = reload_with(&mut manager, &daemon, &config, &other_journal);
     assert!(refused.contains("needs a restart"), "{refused}");
     assert!(log().contains("[journal]"), "{}", log());
     assert_eq!(daemon.metric("eqwatch_config_reloads_refused_total"), 2.0);

@@ -2,51 +2,16 @@
 //! published while it is stopped, and kept by a broker that restarts with persistence,
 //! is evaluated when it comes back. A clean session would have lost all of it.
 
-use std::io::Write as _;
-use std::path::Path;
-use std::process::{Child, Command, Stdio};
 use std::time::Duration;
 
 use crate::support::*;
-
-/// Mosquitto on `port` with its database in `dir` (saved at a clean stop).
-fn persistent_broker(dir: &Path, port: u16) -> Child {
-    let conf = dir.join("mosquitto.conf");
-    let mut f = std::fs::File::create(&conf).unwrap();
-    let user = if is_root() { "user root\n" } else { "" };
-    write!(
-        f,
-        "listener {port} 127.0.0.1\nallow_anonymous true\npersistence true\n\
-         persistence_location {}/\nlog_dest none\n{user}",
-        dir.display()
-    )
-    .unwrap();
-    let child = Command::new(mosquitto_binary())
-        .arg("-c")
-        .arg(&conf)
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .spawn()
-        .expect("mosquitto");
-    assert!(wait_port(port, true, Duration::from_secs(10)));
-    child
-}
-
-/// A clean stop (SIGTERM: mosquitto writes its database), waited for.
-fn stop(mut broker: Child, port: u16) {
-    let _ = Command::new("kill")
-        .args(["-TERM", &broker.id().to_string()])
-        .status();
-    let _ = broker.wait();
-    assert!(wait_port(port, false, Duration::from_secs(10)));
-}
 
 #[test]
 fn input_published_while_the_daemon_is_down_survives_a_broker_restart() {
     let rt = runtime();
     let dir = tempfile::tempdir().unwrap();
     let port = free_port();
-    let broker = persistent_broker(dir.path(), port);
+    let broker = persistent_broker(dir.path(), port, "");
     let http = free_port();
     // The default session settings: nothing about the session in the file.
     let config = write_lts_plant(dir.path(), port, http, "sess", "");
@@ -68,8 +33,8 @@ fn input_published_while_the_daemon_is_down_survives_a_broker_restart() {
     }
     std::thread::sleep(Duration::from_secs(2));
     drop(p);
-    stop(broker, port);
-    let broker = persistent_broker(dir.path(), port);
+    assert!(stop_broker(broker, port));
+    let broker = persistent_broker(dir.path(), port, "");
 
     let got = collector(&rt, port, &["eqwatch/test/#"]);
     let mut d = Daemon::start(&config, http);
@@ -83,5 +48,5 @@ fn input_published_while_the_daemon_is_down_survives_a_broker_restart() {
     );
     d.signal("-TERM");
     assert_eq!(d.wait_exit(Duration::from_secs(20)), Some(0));
-    stop(broker, port);
+    assert!(stop_broker(broker, port));
 }

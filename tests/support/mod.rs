@@ -110,6 +110,41 @@ pub fn is_root() -> bool {
         .unwrap_or(false)
 }
 
+/// Mosquitto on `port` with its database in `dir` (saved at a clean stop, so it can be
+/// restarted on the same data), plus `extra` configuration lines.
+pub fn persistent_broker(dir: &Path, port: u16, extra: &str) -> Child {
+    let conf = dir.join("mosquitto.conf");
+    let user = if is_root() { "user root\n" } else { "" };
+    std::fs::write(
+        &conf,
+        format!(
+            "listener {port} 127.0.0.1\nallow_anonymous true\npersistence true\n\
+             persistence_location {}/\nlog_dest none\n{extra}{user}",
+            dir.display()
+        ),
+    )
+    .expect("write mosquitto.conf");
+    let child = Command::new(mosquitto_binary())
+        .arg("-c")
+        .arg(&conf)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("mosquitto (Debian package)");
+    assert!(wait_port(port, true, Duration::from_secs(10)));
+    child
+}
+
+/// A clean stop (SIGTERM: mosquitto writes its database), waited for; whether the port
+/// closed.
+pub fn stop_broker(mut broker: Child, port: u16) -> bool {
+    let _ = Command::new("kill")
+        .args(["-TERM", &broker.id().to_string()])
+        .status();
+    let _ = broker.wait();
+    wait_port(port, false, Duration::from_secs(10))
+}
+
 /// The eqwatch binary running `run --config`.
 pub struct Daemon {
     pub child: Child,
