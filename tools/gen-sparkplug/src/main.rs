@@ -15,6 +15,9 @@ fn main() {
     let proto = std::path::Path::new(&proto_dir).join("sparkplug_b.proto");
     let mut cfg = prost_build::Config::new();
     cfg.out_dir(&tmp);
+    // No comments from the .proto in the generated code: the field meanings are the
+    // specification's; the file is data types only.
+    cfg.disable_comments(["."]);
     if let Err(e) = cfg.compile_protos(&[&proto], &[std::path::Path::new(&proto_dir)]) {
         eprintln!("protoc/prost-build: {e}");
         std::process::exit(1);
