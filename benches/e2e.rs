@@ -71,7 +71,14 @@ const DRAIN_LIMIT: Duration = Duration::from_secs(120);
 const EDGE: f64 = 0.10;
 
 fn main() {
-    if !std::env::args().any(|a| a == "--bench") {
+    let args: Vec<String> = std::env::args().collect();
+    if let Some(i) = args.iter().position(|a| a == "--relay") {
+        let port = args.get(i + 1).and_then(|a| a.parse().ok()).unwrap_or(1883);
+        let pad = args.get(i + 2).and_then(|a| a.parse().ok()).unwrap_or(0);
+        relay_main(port, pad);
+        return;
+    }
+    if !args.iter().any(|a| a == "--bench") {
         println!("e2e: a measurement run; use `cargo bench --bench e2e`");
         return;
     }
@@ -341,6 +348,8 @@ struct Inbox {
     /// Results whose reactor (topic) did not match the reactor of their timestamp.
     mismatched: usize,
     online: bool,
+    /// Payload bytes of the results kept.
+    bytes: usize,
 }
 
 /// What a subscriber does with a message.
@@ -453,6 +462,7 @@ fn keep_result(inbox: &Mutex<Inbox>, at: Instant, topic: &str, payload: &[u8], b
     if !matches {
         ib.mismatched += 1;
     }
+    ib.bytes += payload.len();
     ib.got.push(Got {
         at,
         analysis_ts,
@@ -473,6 +483,74 @@ fn publisher(rt: &Runtime, port: u16) -> AsyncClient {
         }
     });
     client
+}
+
+// ---------------------------------------------------------------------------------
+// The do-nothing relay (1b): what any daemon that receives a message and publishes one
+// for it costs the broker and the MQTT client, with no work in between.
+
+/// `<bench binary> --relay <port> <pad>`: subscribes to `e2e-relay/+/ai` with QoS 1 and,
+/// for every message, publishes its payload padded to `pad` bytes (the size of an
+/// eqwatch result) to `e2e-relay/<reactor>/result` with QoS 1 over a second connection,
+/// as the daemon does. One thread (a current-thread runtime, like the daemon's), the
+/// same client library, no Nagle delay.
+fn relay_main(port: u16, pad: usize) {
+    let Ok(rt) = tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+    else {
+        return;
+    };
+    rt.block_on(async move {
+        let mut out_options = options("e2e-relay-out", port);
+        out_options.set_inflight(64);
+        let (out, mut out_ev) = AsyncClient::new(out_options, 1024);
+        no_delay(&mut out_ev);
+        tokio::spawn(async move {
+            loop {
+                if out_ev.poll().await.is_err() {
+                    tokio::time::sleep(Duration::from_millis(100)).await;
+                }
+            }
+        });
+        let (input, mut in_ev) = AsyncClient::new(options("e2e-relay-in", port), 64);
+        no_delay(&mut in_ev);
+        loop {
+            match in_ev.poll().await {
+                Ok(Event::Incoming(Incoming::ConnAck(_))) => {
+                    let _ = input.subscribe("e2e-relay/+/ai", QoS::AtLeastOnce).await;
+                }
+                Ok(Event::Incoming(Incoming::Publish(p))) => {
+                    let reactor = p.topic.split('/').nth(1).unwrap_or("r");
+                    let topic = format!("e2e-relay/{reactor}/result");
+                    let mut body = p.payload.to_vec();
+                    if body.len() < pad && body.last() == Some(&b'}') {
+                        body.pop();
+                        body.extend_from_slice(b",\"pad\":\"");
+                        body.resize(pad.saturating_sub(2).max(body.len()), b'x');
+                        body.extend_from_slice(b"\"}");
+                    }
+                    let _ = out.publish(topic, QoS::AtLeastOnce, false, body).await;
+                }
+                Ok(_) => {}
+                Err(_) => tokio::time::sleep(Duration::from_millis(100)).await,
+            }
+        }
+    });
+}
+
+/// The relay as a child process (so that its CPU is measured like the daemon's).
+fn start_relay(port: u16, pad: usize) -> Proc {
+    let child = std::env::current_exe()
+        .and_then(|exe| {
+            Command::new(exe)
+                .args(["--relay", &port.to_string(), &pad.to_string()])
+                .stdout(Stdio::null())
+                .stderr(Stdio::null())
+                .spawn()
+        })
+        .expect("the bench binary as a relay");
+    Proc { child }
 }
 
 // ---------------------------------------------------------------------------------
@@ -697,6 +775,15 @@ struct Report {
     journal_errors: f64,
     journal_dropped_unpublished: f64,
     daemon_log_lines: usize,
+    /// Mean payload of an eqwatch result (the relay pads to it).
+    result_bytes: usize,
+    relay_received: usize,
+    relay_rate: f64,
+    relay_wall_s: f64,
+    relay_cpu_s: f64,
+    relay_broker_cpu_s: f64,
+    relay_lat_ms: Vec<f64>,
+    relay_hwm_kib: Option<u64>,
     py: Option<PyReport>,
 }
 
@@ -738,6 +825,12 @@ impl Report {
         );
         row(
             &mut t,
+            "1b. do-nothing relay, in + out QoS 1 (msg/s)",
+            format!("{:.0}", self.relay_rate),
+            "",
+        );
+        row(
+            &mut t,
             "2. eqwatch sustained (results/s)",
             format!("{:.0}", self.sus_rate),
             "",
@@ -747,6 +840,23 @@ impl Report {
             "   ratio to do-nothing",
             format!("{ratio:.1} %"),
             ">= 80 %",
+        );
+        row(
+            &mut t,
+            "   ratio to the do-nothing relay",
+            format!("{:.1} %", 100.0 * self.sus_rate / self.relay_rate),
+            "",
+        );
+        let per = |cpu: f64, n: usize| 1e6 * cpu / n.max(1) as f64;
+        row(
+            &mut t,
+            "   CPU per result, eqwatch / relay (us)",
+            format!(
+                "{:.1} / {:.1}",
+                per(self.sus_daemon_cpu_s, self.sus_received),
+                per(self.relay_cpu_s, self.relay_received)
+            ),
+            "<= 20 us",
         );
         row(
             &mut t,
@@ -774,6 +884,17 @@ impl Report {
                 p(&self.noop_lat_ms, 50.0),
                 p(&self.noop_lat_ms, 99.0),
                 max(&self.noop_lat_ms)
+            ),
+            "(yardstick)",
+        );
+        row(
+            &mut t,
+            "   relay p50 / p99 / max (ms)",
+            format!(
+                "{:.2} / {:.2} / {:.2}",
+                p(&self.relay_lat_ms, 50.0),
+                p(&self.relay_lat_ms, 99.0),
+                max(&self.relay_lat_ms)
             ),
             "(yardstick)",
         );
@@ -863,6 +984,18 @@ impl Report {
             self.noop_broker_cpu_s,
             self.noop_lat_sent,
             self.noop_lat_ms.len()
+        );
+        let _ = writeln!(
+            t,
+            "relay: {}/{} relayed in {:.2} s, relay CPU {:.2} s, broker CPU {:.2} s, payload out {} B, VmHWM {:.2} MiB; paced {} matched",
+            self.relay_received,
+            plan.firehose,
+            self.relay_wall_s,
+            self.relay_cpu_s,
+            self.relay_broker_cpu_s,
+            self.result_bytes,
+            mib(self.relay_hwm_kib),
+            self.relay_lat_ms.len()
         );
         let per_result_us = 1e6 * self.sus_daemon_cpu_s / self.sus_received.max(1) as f64;
         let _ = writeln!(
@@ -1022,6 +1155,7 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     r.lat_daemon_cpu_s = cpu_seconds(daemon.pid()) - d0;
     let inbox = results.take();
     r.mismatched += inbox.mismatched;
+    let inbox_bytes = inbox.bytes;
     r.lat_ms = latencies(&inbox.got, &sent, base, 0);
     r.paced_hwm_kib = status_kib(daemon.pid(), "VmHWM");
 
@@ -1068,6 +1202,11 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     r.daemon_log_lines =
         std::fs::read_to_string(config.with_extension("log")).map_or(0, |s| s.lines().count());
     drop(results);
+    r.result_bytes = inbox_bytes / plan.paced.max(1);
+
+    // 1b. The do-nothing relay, alone with the broker now.
+    eprintln!("e2e: relay yardstick, {n} messages");
+    relay_run(rt, port, &broker, plan, &mut r);
 
     // 5. The hand-written Python subscriber, alone with the broker now.
     if let Some(python) = &plan.python {
@@ -1075,6 +1214,47 @@ fn run(rt: &Runtime, plan: &Plan) -> Report {
     }
     broker.stop(Duration::from_secs(5));
     r
+}
+
+/// The relay (1b): the firehose and then the paced stream through it.
+fn relay_run(rt: &Runtime, port: u16, broker: &Proc, plan: &Plan, r: &mut Report) {
+    let mut relay = start_relay(port, r.result_bytes);
+    let sub = Subscriber::start(rt, port, &["e2e-relay/+/result".to_string()], Keep::Nothing);
+    sub.wait_subscribed();
+    let client = publisher(rt, port);
+    let base = now_ms() - 1_000_000;
+    // Probes until the relay answers (its subscription is then in place).
+    let ready = wait_until(Duration::from_secs(15), || {
+        let topic = "e2e-relay/probe/ai".to_string();
+        let _ = rt.block_on(client.publish(topic, QoS::AtLeastOnce, false, scalar(0, 0.0, "K")));
+        sub.count() > 0
+    });
+    if !ready {
+        eprintln!("e2e: the relay never answered");
+        return;
+    }
+    std::thread::sleep(Duration::from_millis(200));
+    let _ = sub.take();
+    let n = plan.firehose;
+    let (c0, b0) = (cpu_seconds(relay.pid()), cpu_seconds(broker.pid()));
+    let start = Instant::now();
+    firehose_from(rt, &client, "e2e-relay", base, 0, n);
+    wait_until(DRAIN_LIMIT, || sub.count() >= n);
+    r.relay_cpu_s = cpu_seconds(relay.pid()) - c0;
+    r.relay_broker_cpu_s = cpu_seconds(broker.pid()) - b0;
+    let got = sub.take().got;
+    r.relay_received = got.len();
+    r.relay_wall_s = got
+        .last()
+        .map_or(f64::NAN, |g| g.at.duration_since(start).as_secs_f64());
+    r.relay_rate = steady_rate(&got.iter().map(|g| g.at).collect::<Vec<_>>());
+    let m = plan.noop_paced;
+    let sent = paced(rt, &client, "e2e-relay", base, n, m);
+    wait_until(Duration::from_secs(10), || sub.count() >= m);
+    r.relay_lat_ms = latencies(&sub.take().got, &sent, base, n);
+    r.relay_hwm_kib = status_kib(relay.pid(), "VmHWM");
+    let _ = rt.block_on(client.disconnect());
+    relay.stop(Duration::from_secs(2));
 }
 
 /// The same paced run and firehose through `benches/python/lts_subscriber.py`.
