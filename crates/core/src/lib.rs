@@ -11,12 +11,15 @@
 //! - [`approach`]: Q, Q/K, direction, affinity, equilibrium temperature, approach ± uncertainty.
 //! - [`equilibrium`]: equilibrium composition with element constraints (several reactions).
 //! - [`bedrise`]: the adiabatic bed temperature rise a methanator's inlet predicts.
+//! - [`bedprofile`]: multipoint bed thermocouples: rise, WABT, the reaction front and its
+//!   end-of-life forecast.
 //! - [`monitor`]: per-reactor alignment of inputs, quality checks and evaluation over a
 //!   [`monitor::spec::ReactorSpec`]; drift statistics, ISA-18.2 alarms and the watch.
 //!
 //! Advisory only: eqwatch is not a safety function.
 
 pub mod approach;
+pub mod bedprofile;
 pub mod bedrise;
 pub mod composition;
 pub mod equilibrium;
