@@ -23,7 +23,8 @@
 // The numeric core, re-exported so that `eqwatch::approach` and `crate::units` name
 // the same modules everywhere.
 pub use eqwatch_core::{
-    approach, bedrise, composition, equilibrium, monitor, solve, thermo, timefmt, units,
+    approach, bedprofile, bedrise, composition, equilibrium, monitor, normalise, reconcile, solve,
+    thermo, timefmt, units,
 };
 
 pub mod config;

@@ -35,10 +35,13 @@ struct Rule {
 
 const CORE_MODULES: &[&str] = &[
     "approach",
+    "bedprofile",
     "bedrise",
     "composition",
     "equilibrium",
     "monitor",
+    "normalise",
+    "reconcile",
     "solve",
     "thermo",
     "timefmt",
@@ -57,9 +60,12 @@ const RULES: &[Rule] = &[
         path: "src/config",
         modules: &[
             "approach",
+            "bedprofile",
             "composition",
             "equilibrium",
             "monitor",
+            "normalise",
+            "reconcile",
             "thermo",
             "units",
             "config",
@@ -77,6 +83,7 @@ const RULES: &[Rule] = &[
         path: "src/wire",
         modules: &[
             "approach",
+            "bedprofile",
             "bedrise",
             "composition",
             "config",

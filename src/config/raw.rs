@@ -113,6 +113,44 @@ pub(crate) struct RawReactor {
     #[serde(default)]
     pub alarm: Vec<RawAlarm>,
     pub bed_rise: Option<RawBedRise>,
+    pub bed_profile: Option<RawBedProfile>,
+}
+
+/// `[reactors.<id>.bed_profile]`: multipoint bed thermocouples.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawBedProfile {
+    /// Catalyst depth, e.g. `"3.2 m"`.
+    pub depth: String,
+    /// Fraction of the rise that marks the reaction front (default 0.9).
+    pub front_fraction: Option<f64>,
+    /// Rises below this give no front (default `"5 K"`).
+    pub min_rise: Option<String>,
+    /// `inlet-outlet` (default), `depth-average` or `weighted`.
+    pub wabt: Option<String>,
+    /// Front depth at which the catalyst is spent (default 90 % of `depth`).
+    pub end_of_life_depth: Option<String>,
+    #[serde(default)]
+    pub thermocouple: Vec<RawBedThermocouple>,
+}
+
+/// `[[reactors.<id>.bed_profile.thermocouple]]`: the scalar input keys, its depth from
+/// the top of the catalyst and, for `wabt = "weighted"`, its weight.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawBedThermocouple {
+    pub depth: Option<String>,
+    pub weight: Option<f64>,
+    pub tag: Option<String>,
+    pub topic: Option<String>,
+    pub decoder: Option<String>,
+    pub value_pointer: Option<String>,
+    pub ts_pointer: Option<String>,
+    pub quality_pointer: Option<String>,
+    pub unit_pointer: Option<String>,
+    pub unit: Option<String>,
+    pub max_age: Option<String>,
+    pub plausible: Option<[f64; 2]>,
 }
 
 /// `[reactors.<id>.bed_rise]`: the methanator's bed temperature rise check.

@@ -231,6 +231,8 @@ pub struct Wiring {
     pub pressure: ScalarSource,
     /// Where the steam ratio is measured.
     pub steam_ratio: Option<ScalarSource>,
+    /// The bed profile's thermocouples, inlet first.
+    pub bed: Vec<ScalarSource>,
 }
 
 /// One configured reactor: what the monitor needs ([`ReactorSpec`]) and where its

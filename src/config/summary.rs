@@ -344,6 +344,26 @@ fn input_rows(rows: &mut Rows, species: &SpeciesDb, spec: &ReactorSpec, wiring: 
     for (t, source) in spec.temperatures.iter().zip(&wiring.temperatures) {
         rows.row("  temperature", show_scalar(t, source));
     }
+    if let Some(b) = &spec.bed_profile {
+        let g = &b.geometry;
+        rows.row(
+            "  bed profile",
+            format!(
+                "{} m of catalyst, front at {} % of the rise (none below {} K), end of life at {} m, WABT {}",
+                show_number(g.depth_m),
+                show_number(100.0 * g.front_fraction),
+                show_number(g.min_rise_k),
+                show_number(g.end_of_life_depth_m),
+                g.wabt.label()
+            ),
+        );
+        for ((t, depth), source) in b.thermocouples.iter().zip(&wiring.bed) {
+            rows.row(
+                "  bed point",
+                format!("{} m: {}", show_number(*depth), show_scalar(t, source)),
+            );
+        }
+    }
     rows.row("  pressure", show_scalar(&spec.pressure, &wiring.pressure));
     match (&spec.steam_ratio, &wiring.steam_ratio) {
         (Some(SteamRatioSpec::Fixed(v)), _) => rows.row(

@@ -206,6 +206,8 @@ enum Kind {
     Temperature,
     /// A bed inlet thermocouple (the methanator's bed-rise check).
     InletTemperature,
+    /// lts1's bed thermocouple number `.0` of [`LTS_BED`].
+    BedTemperature(usize),
     Pressure,
     /// Steam-to-dry-gas ratio as a bare number.
     RatioBare,
@@ -586,6 +588,10 @@ impl Plant {
         add("baw1/lts1/AI-301", Kind::Analyser, "lts1", GC_CYCLE_S);
         add("baw1/lts1/TI-305A", Kind::Temperature, "lts1", 10.0);
         add("baw1/lts1/TI-305B", Kind::Temperature, "lts1", 10.0);
+        for (j, (tag, _)) in LTS_BED.iter().enumerate() {
+            let topic = format!("baw1/lts1/{}", tag.trim_start_matches("BAW1-"));
+            add(&topic, Kind::BedTemperature(j), "lts1", 10.0);
+        }
         add("baw1/lts1/PI-302", Kind::Pressure, "lts1", 10.0);
         add("baw1/lts1/FY-310", Kind::RatioJson, "lts1", 30.0);
         add(
@@ -643,7 +649,9 @@ impl Plant {
             ts_ms: self.epoch_ms(sample_s + inst.delay_s),
         };
         match inst.kind {
-            Kind::Temperature | Kind::InletTemperature => self.render_temperature(&sample, out),
+            Kind::Temperature | Kind::InletTemperature | Kind::BedTemperature(_) => {
+                self.render_temperature(&sample, out)
+            }
             Kind::Pressure => self.render_pressure(&sample, out),
             Kind::RatioBare | Kind::RatioJson => self.render_ratio(&sample, out),
             Kind::Analyser | Kind::AnalyserPerComponent => self.render_analyser(&sample, out),
@@ -662,6 +670,12 @@ impl Plant {
         };
         let base = match inst.kind {
             Kind::InletTemperature => r.t_k - MTH_DESIGN_RISE_K,
+            // The front moves down the bed at the demo's compressed pace.
+            Kind::BedTemperature(j) => {
+                let dead = LTS_DEAD_LAYER_M + LTS_DEMO_DEAD_LAYER_M_PER_H * sample.t_s / 3600.0;
+                let depth = LTS_BED.get(j).map_or(0.0, |b| b.1);
+                r.t_k - LTS_BED_RISE_K * (1.0 - lts_bed_fraction(depth, dead))
+            }
             _ => r.t_k + rise,
         };
         let t_c = base - 273.15 + TI_NOISE_K * self.noise(sample.inst, sample.k, 0);
@@ -1016,6 +1030,9 @@ Days count from the start (day 0 is the first day); times of day are UTC.
   all year       hts1 ~8 K, mth1 ~10 K, amc1 ~15 K, ref1 shift ~2 K: seasonal and daily wander
                  within +/-0.5 K (half that on ref1 and lts1); outlet temperatures swing +/-1.5 K
                  daily (warmest 15:00) and +/-1 K over the seasons
+  all year       lts1: the reaction front (90 % of the 22 K bed rise, bed thermocouples TI-306A-E
+                 at 0, 0.8, 1.6, 2.4, 3.2 m) moves down the bed as the top layer dies: a dead layer
+                 of 0.30 m at day 0 growing 0.0044 m/day (the front at 2.9 m, end of life, ~day 455)
   every 7 days   lts1: analyser AI-301 calibrates for 30 min from day 3 09:00 (then day 10, 17, ...):
                  the calibration gas is written, with quality bad
   day 60         hts1: analyser AI-201 stuck 10:00-18:00, repeating its 09:55 analysis (quality good)
@@ -1255,6 +1272,8 @@ impl HistoryStats {
 /// Tags of one reactor's inputs in config/demo-plant.toml.
 struct HistoryTags {
     reactor: &'static str,
+    /// Multipoint bed thermocouples (tag, depth below the top of the catalyst, m).
+    bed: &'static [(&'static str, f64)],
     temperatures: &'static [&'static str],
     pressure: &'static str,
     /// Measured steam ratio, if the configuration has one.
@@ -1267,6 +1286,7 @@ struct HistoryTags {
 const HISTORY_TAGS: [HistoryTags; 5] = [
     HistoryTags {
         reactor: "ref1",
+        bed: &[],
         temperatures: &["BAW1-TI-105A", "BAW1-TI-105B"],
         pressure: "BAW1-PI-102",
         steam_ratio: Some("BAW1-FY-110"),
@@ -1275,6 +1295,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     },
     HistoryTags {
         reactor: "hts1",
+        bed: &[],
         temperatures: &["BAW1-TI-205"],
         pressure: "BAW1-PI-202",
         steam_ratio: None,
@@ -1283,6 +1304,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     },
     HistoryTags {
         reactor: "lts1",
+        bed: &LTS_BED,
         temperatures: &["BAW1-TI-305A", "BAW1-TI-305B"],
         pressure: "BAW1-PI-302",
         steam_ratio: Some("BAW1-FY-310"),
@@ -1291,6 +1313,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     },
     HistoryTags {
         reactor: "mth1",
+        bed: &[],
         temperatures: &["BAW1-TI-405", "BAW1-TI-401"],
         pressure: "BAW1-PI-402",
         steam_ratio: None,
@@ -1299,6 +1322,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     },
     HistoryTags {
         reactor: "amc1",
+        bed: &[],
         temperatures: &["BAW1-TI-505"],
         pressure: "BAW1-PI-502",
         steam_ratio: None,
@@ -1307,8 +1331,38 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     },
 ];
 
+/// lts1's five bed thermocouples, inlet (top of the catalyst) to outlet; 3.2 m of catalyst.
+pub const LTS_BED: [(&str, f64); 5] = [
+    ("BAW1-TI-306A", 0.0),
+    ("BAW1-TI-306B", 0.8),
+    ("BAW1-TI-306C", 1.6),
+    ("BAW1-TI-306D", 2.4),
+    ("BAW1-TI-306E", 3.2),
+];
+/// lts1: the bed's temperature rise when running, K (invented; a few K per mol % of CO
+/// shifted, as low-temperature shift beds show [common practice]).
+pub const LTS_BED_RISE_K: f64 = 22.0;
+/// lts1: the dead layer at the top of the bed at day 0 (m) and how fast it grows (m/day):
+/// the reaction front (90 % of the rise) starts near 0.88 m and reaches the configured
+/// 2.9 m end of life about day 455.
+pub const LTS_DEAD_LAYER_M: f64 = 0.30;
+pub const LTS_DEAD_LAYER_M_PER_DAY: f64 = 0.00444;
+/// The live demo's compressed pace of the same, m per simulated hour.
+const LTS_DEMO_DEAD_LAYER_M_PER_H: f64 = 0.2;
+/// lts1: length scale of the active zone's conversion profile, m.
+const LTS_ACTIVE_ZONE_M: f64 = 0.25;
+
+/// Fraction of the bed's rise reached at `depth_m` when the top `dead_m` of the catalyst
+/// is spent: 0 in the dead layer, then 1 − exp(−(d − dead)/λ) (first-order conversion in
+/// an adiabatic plug-flow bed [common practice]); its 90 % depth is dead + λ ln 10.
+pub fn lts_bed_fraction(depth_m: f64, dead_m: f64) -> f64 {
+    let x = (depth_m - dead_m).max(0.0);
+    1.0 - (-x / LTS_ACTIVE_ZONE_M).exp()
+}
+
 // Noise channels of one reactor (combined with its `stream`).
 const CH_TEMPERATURE: u64 = 0; // + thermocouple number
+const CH_BED: u64 = 56; // + bed thermocouple number
 const CH_PRESSURE: u64 = 8;
 const CH_STEAM_RATIO: u64 = 9;
 const CH_ANALYSER: u64 = 16; // + component number
@@ -1393,6 +1447,7 @@ impl History {
         let mut v = vec!["time".to_string()];
         for (tags, &ri) in HISTORY_TAGS.iter().zip(&self.reactor_index) {
             v.extend(tags.temperatures.iter().map(|t| t.to_string()));
+            v.extend(tags.bed.iter().map(|t| t.0.to_string()));
             v.push(tags.pressure.to_string());
             if let Some(fy) = tags.steam_ratio {
                 v.push(fy.to_string());
@@ -1609,6 +1664,17 @@ impl History {
                     push_fixed(out, x, 2);
                     st.values += 1;
                 }
+            }
+            // The bed: the outlet temperature less the part of the rise not yet reached;
+            // the rise fades with the flow in a shutdown.
+            let dead = LTS_DEAD_LAYER_M + LTS_DEAD_LAYER_M_PER_DAY * t_s / DAY_S;
+            let rise = LTS_BED_RISE_K * shutdown_factor(t_s, COOLING_TAU_S);
+            for (j, (_, depth)) in tags.bed.iter().enumerate() {
+                out.push(',');
+                let x = t_k - rise * (1.0 - lts_bed_fraction(*depth, dead)) - 273.15
+                    + TI_NOISE_K * self.noise(tags.stream, CH_BED + j as u64, m);
+                push_fixed(out, x, 2);
+                st.values += 1;
             }
             out.push(',');
             let p = self.pressure_barg(ri, phase, t_s)
@@ -1863,9 +1929,11 @@ mod tests {
                 assert_eq!(v["basis"], basis);
             }
         }
-        assert_eq!(topics.len(), 25, "{topics:?}");
+        // 25 plus lts1's five bed thermocouples.
+        assert_eq!(topics.len(), 30, "{topics:?}");
         for t in [
             "baw1/ref1/TI-105B",
+            "baw1/lts1/TI-306C",
             "baw1/lts1/FY-310",
             "baw1/mth1/AI-401/CO2",
             "baw1/amc1/PI-502",
@@ -2278,6 +2346,14 @@ mod tests {
         for id in ["ref1", "hts1", "lts1", "mth1", "amc1"] {
             let r = reactors[id].as_table().expect("reactor");
             for t in r["temperature"].as_array().expect("temperatures") {
+                want.push(t["tag"].as_str().expect("tag").to_string());
+                units.push((
+                    want[want.len() - 1].clone(),
+                    t["unit"].as_str().expect("unit").to_string(),
+                ));
+            }
+            let bed = r.get("bed_profile").and_then(|b| b.get("thermocouple"));
+            for t in bed.and_then(|t| t.as_array()).into_iter().flatten() {
                 want.push(t["tag"].as_str().expect("tag").to_string());
                 units.push((
                     want[want.len() - 1].clone(),

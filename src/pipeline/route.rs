@@ -19,6 +19,7 @@ pub(crate) enum Route {
     Analysis(usize),
     Component(usize, usize),
     Command(usize),
+    BedTemperature(usize, usize),
 }
 
 /// Topic → routes for every input and command topic of the configuration.
@@ -29,6 +30,11 @@ pub(crate) fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
             m.entry(t.topic.clone())
                 .or_default()
                 .push(Route::Temperature(r, i));
+        }
+        for (i, t) in rs.wiring.bed.iter().enumerate() {
+            m.entry(t.topic.clone())
+                .or_default()
+                .push(Route::BedTemperature(r, i));
         }
         m.entry(rs.wiring.pressure.topic.clone())
             .or_default()
@@ -89,6 +95,29 @@ pub(crate) fn decode(
                     raw.arrival_ms,
                 )
                 .map(|v| Input::Temperature(i, v)),
+            )
+        }
+        Route::BedTemperature(r, i) => {
+            let rs = &s.reactors[r];
+            let (Some(source), Some((spec, _))) = (
+                rs.wiring.bed.get(i),
+                rs.spec
+                    .bed_profile
+                    .as_ref()
+                    .and_then(|b| b.thermocouples.get(i)),
+            ) else {
+                return (r, Err(DecodeError::Missing("(bed thermocouple)".into())));
+            };
+            (
+                r,
+                wire::input::decode_scalar(
+                    &raw.payload,
+                    &source.decoder,
+                    &spec.unit,
+                    atm,
+                    raw.arrival_ms,
+                )
+                .map(|v| Input::BedTemperature(i, v)),
             )
         }
         Route::Pressure(r) => {

@@ -38,6 +38,7 @@ pub(super) enum Column {
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(super) enum ScalarKind {
     Temperature(usize),
+    BedTemperature(usize),
     Pressure,
     SteamRatio,
 }
@@ -75,6 +76,15 @@ pub(super) fn names(s: &Settings) -> HashMap<String, Column> {
         };
         for (i, t) in rs.spec.temperatures.iter().enumerate() {
             scalar(&t.tag, ScalarKind::Temperature(i));
+        }
+        for (i, (t, _)) in rs
+            .spec
+            .bed_profile
+            .iter()
+            .flat_map(|b| &b.thermocouples)
+            .enumerate()
+        {
+            scalar(&t.tag, ScalarKind::BedTemperature(i));
         }
         scalar(&rs.spec.pressure.tag, ScalarKind::Pressure);
         if let Some(SteamRatioSpec::Measured(ss)) = &rs.spec.steam_ratio {
@@ -222,6 +232,14 @@ pub(super) fn scalar_unit(s: &Settings, r: usize, kind: ScalarKind) -> ScalarUni
     let rs = &s.reactors[r];
     match kind {
         ScalarKind::Temperature(i) => rs.spec.temperatures[i].unit,
+        ScalarKind::BedTemperature(i) => rs
+            .spec
+            .bed_profile
+            .as_ref()
+            .and_then(|b| b.thermocouples.get(i))
+            .map_or(ScalarUnit::Temperature(TemperatureUnit::Kelvin), |t| {
+                t.0.unit
+            }),
         ScalarKind::Pressure => rs.spec.pressure.unit,
         ScalarKind::SteamRatio => ScalarUnit::Ratio,
     }
@@ -381,6 +399,7 @@ impl RowCells {
             };
             let input = match kind {
                 ScalarKind::Temperature(i) => Input::Temperature(i, reading),
+                ScalarKind::BedTemperature(i) => Input::BedTemperature(i, reading),
                 ScalarKind::Pressure => Input::Pressure(reading),
                 ScalarKind::SteamRatio => Input::SteamRatio(reading),
             };

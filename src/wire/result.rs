@@ -119,6 +119,119 @@ impl From<&crate::bedrise::BedRise> for BedRiseOut {
     }
 }
 
+/// The bed temperature profile (multipoint bed thermocouples), with the front's trend.
+#[derive(Serialize)]
+struct BedProfileOut<'a> {
+    /// Whether a profile could be formed; `why` when it could not.
+    available: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    why: Option<&'a str>,
+    thermocouples_used: usize,
+    thermocouples_configured: usize,
+    inlet_temperature_k: Option<f64>,
+    outlet_temperature_k: Option<f64>,
+    rise_k: Option<f64>,
+    wabt_k: Option<f64>,
+    wabt_convention: &'static str,
+    /// The front: depth of `front_fraction` of the rise (m, and of the catalyst depth).
+    front_fraction: f64,
+    front_depth_m: Option<f64>,
+    front_fraction_of_bed: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    no_front_because: Option<&'static str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    hot_spot: Option<HotSpotOut<'a>>,
+    bed_depth_m: f64,
+    end_of_life_depth_m: f64,
+    front_trend: FrontTrendOut,
+}
+
+#[derive(Serialize)]
+struct HotSpotOut<'a> {
+    tag: &'a str,
+    depth_m: f64,
+    temperature_k: Option<f64>,
+    above_outlet_k: Option<f64>,
+}
+
+/// The front's movement from daily means, and when it reaches the end-of-life depth.
+#[derive(Serialize)]
+struct FrontTrendOut {
+    /// `collecting` (fewer daily figures than a trend needs), `not-moving`, `forecast`.
+    state: &'static str,
+    days: usize,
+    rate_m_per_day: Option<f64>,
+    rate_interval_m_per_day: Option<[f64; 2]>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    end_of_life: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    earliest: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    latest: Option<String>,
+}
+
+fn bed_profile_out<'a>(
+    spec: &'a crate::monitor::spec::BedProfileSpec,
+    found: &'a Result<crate::bedprofile::BedProfile, String>,
+    drift: Option<&crate::monitor::watch::DriftFigures>,
+) -> BedProfileOut<'a> {
+    use crate::monitor::drift::EndOfRun;
+    let g = &spec.geometry;
+    let profile = found.as_ref().ok();
+    let front = profile.and_then(|p| p.front.ok());
+    let day_ms = |d: f64| format_rfc3339((d * crate::units::DAY_MS as f64) as i64);
+    let forecast = drift.and_then(|d| d.front);
+    let front_trend = FrontTrendOut {
+        state: match forecast.map(|f| f.end_of_life) {
+            None => "collecting",
+            Some(EndOfRun::NotRising) => "not-moving",
+            Some(EndOfRun::At { .. }) => "forecast",
+        },
+        days: drift.map_or(0, |d| d.front_days),
+        rate_m_per_day: forecast.and_then(|f| finite(f.rate_m_per_day)),
+        rate_interval_m_per_day: forecast.map(|f| [f.rate_interval.0, f.rate_interval.1]),
+        end_of_life: match forecast.map(|f| f.end_of_life) {
+            Some(EndOfRun::At { day, .. }) => Some(day_ms(day)),
+            _ => None,
+        },
+        earliest: match forecast.map(|f| f.end_of_life) {
+            Some(EndOfRun::At { earliest, .. }) => Some(day_ms(earliest)),
+            _ => None,
+        },
+        latest: match forecast.map(|f| f.end_of_life) {
+            Some(EndOfRun::At { latest, .. }) => latest.map(day_ms),
+            _ => None,
+        },
+    };
+    BedProfileOut {
+        available: profile.is_some(),
+        why: found.as_ref().err().map(String::as_str),
+        thermocouples_used: profile.map_or(0, |p| p.points_used),
+        thermocouples_configured: spec.thermocouples.len(),
+        inlet_temperature_k: profile.and_then(|p| finite(p.inlet_k)),
+        outlet_temperature_k: profile.and_then(|p| finite(p.outlet_k)),
+        rise_k: profile.and_then(|p| finite(p.rise_k)),
+        wabt_k: profile.and_then(|p| finite(p.wabt_k)),
+        wabt_convention: g.wabt.label(),
+        front_fraction: g.front_fraction,
+        front_depth_m: front.and_then(|f| finite(f.depth_m)),
+        front_fraction_of_bed: front.and_then(|f| finite(f.fraction_of_bed)),
+        no_front_because: profile.and_then(|p| p.front.err()).map(|n| n.as_str()),
+        hot_spot: profile.and_then(|p| {
+            let h = p.hot_spot?;
+            Some(HotSpotOut {
+                tag: spec.thermocouples.get(h.index)?.0.tag.as_str(),
+                depth_m: h.depth_m,
+                temperature_k: finite(h.t_k),
+                above_outlet_k: finite(h.t_k - p.outlet_k),
+            })
+        }),
+        bed_depth_m: g.depth_m,
+        end_of_life_depth_m: g.end_of_life_depth_m,
+        front_trend,
+    }
+}
+
 /// The advisory notice every result and status message carries.
 pub(crate) const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plant's alarm and safety systems, local codes and licensed engineering practice govern";
 
@@ -239,6 +352,8 @@ struct ResultOut<'a> {
     headline: HeadlineOut,
     #[serde(skip_serializing_if = "Option::is_none")]
     bed_rise: Option<BedRiseOut>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    bed_profile: Option<BedProfileOut<'a>>,
     advisory: &'static str,
     mole_fractions: BySpecies<'a>,
     equilibrium_mole_fractions: BySpecies<'a>,
@@ -361,6 +476,10 @@ pub(crate) fn encode_result(
         key_detection_limit_mole_fraction: key_dl,
         headline: headline(r, e, key_name, approach, key_basis, key_dl),
         bed_rise: e.bed_rise.as_ref().map(BedRiseOut::from),
+        bed_profile: match (&r.spec.bed_profile, &e.bed_profile) {
+            (Some(spec), Some(found)) => Some(bed_profile_out(spec, found, drift)),
+            _ => None,
+        },
         advisory: ADVISORY_SHORT,
         mole_fractions: BySpecies(names, &e.mole_fractions),
         equilibrium_mole_fractions: BySpecies(names, &e.equilibrium_mole_fractions),

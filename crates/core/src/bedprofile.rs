@@ -139,7 +139,9 @@ pub enum BedProfileError {
         "thermocouple depths must increase down the bed and lie within 0..={depth} m: number {index} is at {got} m"
     )]
     PointDepth { index: usize, got: f64, depth: f64 },
-    #[error("{got} WABT weights for {points} bed thermocouples (one each, non-negative, not all zero)")]
+    #[error(
+        "{got} WABT weights for {points} bed thermocouples (one each, non-negative, not all zero)"
+    )]
     Weights { got: usize, points: usize },
     #[error("at least two bed thermocouples are needed (inlet and outlet), got {0}")]
     TooFew(usize),
@@ -209,7 +211,10 @@ impl BedGeometry {
         } else {
             Ok(self.front_at(points, first.t_k + self.front_fraction * rise_k))
         };
-        let hottest = points.iter().copied().max_by(|a, b| a.t_k.total_cmp(&b.t_k));
+        let hottest = points
+            .iter()
+            .copied()
+            .max_by(|a, b| a.t_k.total_cmp(&b.t_k));
         let hot_spot = hottest.filter(|h| h.t_k > last.t_k + HOT_SPOT_K);
         Some(BedProfile {
             inlet_k: first.t_k,
@@ -316,6 +321,15 @@ impl FrontTrend {
                 }
             }
         }
+    }
+
+    /// Days with a figure.
+    pub fn len(&self) -> usize {
+        self.days.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.days.is_empty()
     }
 
     /// Starts again (a catalyst change or a re-baseline).

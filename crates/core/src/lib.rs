@@ -13,6 +13,10 @@
 //! - [`bedrise`]: the adiabatic bed temperature rise a methanator's inlet predicts.
 //! - [`bedprofile`]: multipoint bed thermocouples: rise, WABT, the reaction front and its
 //!   end-of-life forecast.
+//! - [`normalise`]: the approach expected at today's conditions (a start-of-run regression
+//!   on throughput, steam ratio, inlet temperature, pressure) and the residual from it.
+//! - [`reconcile`]: inlet/outlet element balances, weighted least-squares reconciliation
+//!   and gross error detection (global and measurement tests).
 //! - [`monitor`]: per-reactor alignment of inputs, quality checks and evaluation over a
 //!   [`monitor::spec::ReactorSpec`]; drift statistics, ISA-18.2 alarms and the watch.
 //!
@@ -24,6 +28,8 @@ pub mod bedrise;
 pub mod composition;
 pub mod equilibrium;
 pub mod monitor;
+pub mod normalise;
+pub mod reconcile;
 pub mod solve;
 pub mod thermo;
 pub mod timefmt;

@@ -155,6 +155,25 @@ impl<'a> From<&'a RawScalar> for ScalarFields<'a> {
     }
 }
 
+impl<'a> From<&'a crate::config::raw::RawBedThermocouple> for ScalarFields<'a> {
+    fn from(r: &'a crate::config::raw::RawBedThermocouple) -> Self {
+        Self {
+            tag: r.tag.as_deref(),
+            topic: r.topic.as_deref(),
+            decoder: r.decoder.as_deref(),
+            pointers: PointerKeys {
+                value: r.value_pointer.as_deref(),
+                ts: r.ts_pointer.as_deref(),
+                quality: r.quality_pointer.as_deref(),
+                unit: r.unit_pointer.as_deref(),
+            },
+            unit: r.unit.as_deref(),
+            max_age: r.max_age.as_deref(),
+            plausible: r.plausible,
+        }
+    }
+}
+
 impl<'a> From<&'a RawSteamRatio> for ScalarFields<'a> {
     fn from(r: &'a RawSteamRatio) -> Self {
         Self {

@@ -1,6 +1,7 @@
 //! Validation of the raw configuration into [`Settings`](crate::config::Settings), every problem
 //! with its key path; one file per section (broker and journal, reactors, their inputs).
 
+pub(crate) mod bed;
 pub(crate) mod broker;
 pub(crate) mod inputs;
 pub(crate) mod reactor;

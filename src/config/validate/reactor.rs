@@ -201,9 +201,19 @@ pub(crate) fn reactor(
             &mut watch,
         )
     });
+    let bed_profile = raw.bed_profile.as_ref().and_then(|b| {
+        crate::config::validate::bed::bed_profile(problems, &format!("{path}.bed_profile"), b)
+    });
     if problems.len() > start {
         return None;
     }
+    let (bed_profile, bed_sources) = match bed_profile {
+        Some((spec, sources)) => {
+            watch.drift.front_end_of_life_m = Some(spec.geometry.end_of_life_depth_m);
+            (Some(spec), sources)
+        }
+        None => (None, Vec::new()),
+    };
     let (
         Some((composition, composition_source, _)),
         Some(model),
@@ -250,6 +260,7 @@ pub(crate) fn reactor(
             watch,
             reaction_labels,
             bed_rise,
+            bed_profile,
             clock: env.clock,
         },
         wiring: Wiring {
@@ -257,6 +268,7 @@ pub(crate) fn reactor(
             temperatures: temperature_sources,
             pressure: pressure_source,
             steam_ratio: steam_ratio_source,
+            bed: bed_sources,
         },
     })
 }
@@ -446,6 +458,16 @@ fn check_input_topics(problems: &mut Problems, path: &str, raw: &RawReactor, out
     for (i, t) in raw.temperature.iter().enumerate() {
         if let Some(t) = &t.topic {
             topics.push((format!("{path}.temperature[{i}].topic"), t));
+        }
+    }
+    for (i, t) in raw
+        .bed_profile
+        .iter()
+        .flat_map(|b| &b.thermocouple)
+        .enumerate()
+    {
+        if let Some(t) = &t.topic {
+            topics.push((format!("{path}.bed_profile.thermocouple[{i}].topic"), t));
         }
     }
     if let Some(t) = &raw.pressure.topic {

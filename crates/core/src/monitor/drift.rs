@@ -284,7 +284,7 @@ fn median_sorted(v: &[f64]) -> f64 {
 
 /// Two-sided 95 % Student t quantile for `dof` degrees of freedom (table values,
 /// e.g. NIST/SEMATECH e-Handbook of Statistical Methods, table 1.3.6.7.2).
-fn t95(dof: usize) -> f64 {
+pub(crate) fn t95(dof: usize) -> f64 {
     const T: [f64; 30] = [
         12.706, 4.303, 3.182, 2.776, 2.571, 2.447, 2.365, 2.306, 2.262, 2.228, 2.201, 2.179, 2.160,
         2.145, 2.131, 2.120, 2.110, 2.101, 2.093, 2.086, 2.080, 2.074, 2.069, 2.064, 2.060, 2.056,

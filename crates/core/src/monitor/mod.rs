@@ -94,6 +94,8 @@ pub enum Input {
     Analysis(AnalysisReading),
     /// One component (index into the configured components) of a per-component analyser.
     Component(usize, ScalarReading),
+    /// Bed thermocouple number `.0` of the reactor's bed profile.
+    BedTemperature(usize, ScalarReading),
 }
 
 impl Input {
@@ -103,7 +105,8 @@ impl Input {
             Input::Temperature(_, r)
             | Input::Pressure(r)
             | Input::SteamRatio(r)
-            | Input::Component(_, r) => r.ts_ms,
+            | Input::Component(_, r)
+            | Input::BedTemperature(_, r) => r.ts_ms,
             Input::Analysis(a) => a.ts_ms,
         }
     }
@@ -150,6 +153,10 @@ pub struct Evaluation {
     pub approach_not_meaningful: bool,
     /// The bed temperature rise check, where configured and the inlet was measured.
     pub bed_rise: Option<crate::bedrise::BedRise>,
+    /// The bed temperature profile where configured: the profile, or why there is none
+    /// (the bed inlet or outlet thermocouple missing at the sample time). Bed
+    /// thermocouples never change the result's quality: they are not in the approach.
+    pub bed_profile: Option<Result<crate::bedprofile::BedProfile, String>>,
 }
 
 /// What happened to an input.
@@ -179,6 +186,7 @@ const STUCK_REPEATS: u32 = 2;
 #[derive(Debug, Clone)]
 pub struct ReactorMonitor {
     temperatures: Vec<ScalarBuffer>,
+    bed: Vec<ScalarBuffer>,
     pressure: ScalarBuffer,
     steam: ScalarBuffer,
     /// Per-component assembly: sample timestamp -> values.
@@ -199,6 +207,12 @@ impl ReactorMonitor {
             temperatures: settings
                 .temperatures
                 .iter()
+                .map(|_| ScalarBuffer::new(BUFFER))
+                .collect(),
+            bed: settings
+                .bed_profile
+                .iter()
+                .flat_map(|b| &b.thermocouples)
                 .map(|_| ScalarBuffer::new(BUFFER))
                 .collect(),
             pressure: ScalarBuffer::new(BUFFER),
@@ -225,6 +239,10 @@ impl ReactorMonitor {
         }
         match input {
             Input::Temperature(i, r) => match self.temperatures.get_mut(i) {
+                Some(b) => store(b, r),
+                None => Outcome::TooOld,
+            },
+            Input::BedTemperature(i, r) => match self.bed.get_mut(i) {
                 Some(b) => store(b, r),
                 None => Outcome::TooOld,
             },
@@ -312,6 +330,7 @@ impl ReactorMonitor {
         self.check_analysis(&mut case, a, now_ms);
         let temperatures = self.temperatures(&mut case, t_sample);
         self.check_transient(&mut case, t_sample, lag, temperatures.mean_k);
+        let bed_profile = self.bed_profile(&mut case, t_sample);
         let (pressure_bar, steam_ratio) = self.pressure_and_steam(&mut case, t_sample);
         let comps = components(&mut case, a);
         let wet = wet_gas(&mut case, &comps, steam_ratio);
@@ -335,6 +354,7 @@ impl ReactorMonitor {
             key_measured_on_basis: None,
             approach_not_meaningful: false,
             bed_rise: None,
+            bed_profile,
         };
         if let (Some(w), Some(t), Some(p)) = (&wet, temperatures.mean_k, pressure_bar) {
             let state = GasState {
@@ -537,6 +557,53 @@ impl ReactorMonitor {
             spread_k: temperature_spread_k,
             inlet_k,
         }
+    }
+
+    /// The bed profile from the bed thermocouples fresh at the sample time (bad,
+    /// implausible and stale ones left out; they are listed among the inputs as unused).
+    fn bed_profile(
+        &self,
+        case: &mut Case<'_>,
+        t_sample: i64,
+    ) -> Option<Result<crate::bedprofile::BedProfile, String>> {
+        let bp = case.spec.bed_profile.as_ref()?;
+        let mut points = Vec::with_capacity(bp.thermocouples.len());
+        for (i, ((tc, depth_m), buffer)) in bp.thermocouples.iter().zip(&self.bed).enumerate() {
+            let (value, age_ms, used) = match buffer.at(t_sample, ms(tc.max_age)) {
+                Lookup::Value {
+                    value,
+                    quality,
+                    age_ms,
+                } => {
+                    let used = quality != SourceQuality::Bad && tc.plausible.contains(value);
+                    if used {
+                        points.push(crate::bedprofile::BedPoint {
+                            index: i,
+                            depth_m: *depth_m,
+                            t_k: value,
+                        });
+                    }
+                    (Some(value), Some(age_ms), used)
+                }
+                Lookup::Stale { .. } | Lookup::Empty => (None, None, false),
+            };
+            case.inputs.push(InputUse {
+                tag: tc.tag.clone(),
+                value,
+                unit: "K",
+                age_ms,
+                used,
+            });
+        }
+        let n = bp.thermocouples.len();
+        Some(bp.geometry.profile(&points, n).ok_or_else(|| {
+            let tag = |i: usize| bp.thermocouples.get(i).map_or("?", |t| t.0.tag.as_str());
+            format!(
+                "no profile: the bed inlet ({}) and outlet ({}) thermocouples must both be usable at the sample time",
+                tag(0),
+                tag(n.saturating_sub(1))
+            )
+        }))
     }
 
     /// Transient: the temperature moved faster than the threshold over the lag window.

@@ -108,6 +108,14 @@ pub struct BedRiseSpec {
     pub inlet_co_co2: Option<(f64, f64)>,
 }
 
+/// Multipoint bed thermocouples (see [`crate::bedprofile`]): the bed, and each
+/// thermocouple with its depth from the top of the catalyst (m), inlet first.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BedProfileSpec {
+    pub geometry: crate::bedprofile::BedGeometry,
+    pub thermocouples: Vec<(InputSpec, f64)>,
+}
+
 /// One monitored reactor.
 #[derive(Debug, Clone)]
 pub struct ReactorSpec {
@@ -139,6 +147,8 @@ pub struct ReactorSpec {
     /// Each reaction written out canonically (for results; worked out once).
     pub reaction_labels: Vec<String>,
     pub bed_rise: Option<BedRiseSpec>,
+    /// Multipoint bed thermocouples, where configured.
+    pub bed_profile: Option<BedProfileSpec>,
     /// How far from the receiving clock a reading's timestamp may be.
     pub clock: ClockWindow,
 }

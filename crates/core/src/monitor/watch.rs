@@ -95,6 +95,9 @@ pub struct DriftSettings {
     pub min_aggregates: usize,
     /// Approach at which the catalyst is at end of run (K).
     pub end_of_run_limit_k: Option<f64>,
+    /// Bed profile: the front depth at which the catalyst is spent (m); the front's
+    /// daily trend and its forecast run only where this is set.
+    pub front_end_of_life_m: Option<f64>,
 }
 
 impl Default for DriftSettings {
@@ -118,6 +121,7 @@ impl Default for DriftSettings {
             trend_window_ms: None,
             min_aggregates: 5,
             end_of_run_limit_k: None,
+            front_end_of_life_m: None,
         }
     }
 }
@@ -360,6 +364,10 @@ pub struct DriftFigures {
     pub trend: Option<TrendFigures>,
     pub forecast: Forecast,
     pub limit_k: Option<f64>,
+    /// The bed's reaction front: its movement and end-of-life forecast, once enough
+    /// daily figures are in; and the daily figures so far.
+    pub front: Option<crate::bedprofile::FrontForecast>,
+    pub front_days: usize,
 }
 
 /// An operator or engineer command.
@@ -447,6 +455,10 @@ pub struct ReactorWatch {
     paused_ms: i64,
     analysis_bad: Option<String>,
     excluded: u64,
+    /// Daily front depths of the bed profile (steady, usable samples), and the forecast
+    /// worked out when a day completes.
+    pub(crate) front: crate::bedprofile::FrontTrend,
+    front_forecast: Option<crate::bedprofile::FrontForecast>,
 }
 
 fn alert_config(id: &str, limit: f64, direction: Direction, deadband: f64) -> AlarmConfig {
@@ -666,6 +678,24 @@ impl ReactorWatch {
             paused_ms: 0,
             analysis_bad: None,
             excluded: 0,
+            front: crate::bedprofile::FrontTrend::default(),
+            front_forecast: None,
+        }
+    }
+
+    /// A front depth into its daily trend; the forecast again when a day has completed.
+    fn front_sample(&mut self, s: &DriftSettings, e: &Evaluation) {
+        let (Some(eol), Some(Ok(p))) = (s.front_end_of_life_m, &e.bed_profile) else {
+            return;
+        };
+        let Ok(front) = p.front else { return };
+        let days = self.front.len();
+        self.front.push(
+            e.sample_ts_ms.div_euclid(crate::units::DAY_MS),
+            front.depth_m,
+        );
+        if self.front.len() != days {
+            self.front_forecast = self.front.forecast(eol);
         }
     }
 
@@ -700,6 +730,8 @@ impl ReactorWatch {
                 Forecast::NoTrend
             }),
             limit_k: s.end_of_run_limit_k,
+            front: self.front_forecast,
+            front_days: self.front.len(),
         }
     }
 
@@ -816,6 +848,9 @@ impl ReactorWatch {
             self.sample(&s.drift, t, x);
         } else {
             self.excluded += 1;
+        }
+        if !(self.offline || transient || e.quality == Quality::Bad) {
+            self.front_sample(&s.drift, e);
         }
         let mut fig = self.figures(&s.drift);
         fig.excluded = excluded;
@@ -1308,6 +1343,8 @@ impl ReactorWatch {
         self.aggregates.clear();
         self.trend = None;
         self.forecast = None;
+        self.front.clear();
+        self.front_forecast = None;
     }
 
     /// Carries out a command from `by`; returns a message for the outcome and the events.
@@ -1505,6 +1542,7 @@ mod tests {
             key_measured_on_basis: Some(5e-6),
             approach_not_meaningful: false,
             bed_rise: None,
+            bed_profile: None,
         }
     }
 
