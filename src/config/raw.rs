@@ -114,6 +114,43 @@ pub(crate) struct RawReactor {
     pub alarm: Vec<RawAlarm>,
     pub bed_rise: Option<RawBedRise>,
     pub bed_profile: Option<RawBedProfile>,
+    #[serde(default)]
+    pub flow: Vec<RawFlow>,
+    pub normalise: Option<RawNormalise>,
+}
+
+/// `[[reactors.<id>.flow]]`: a flow meter: the scalar input keys, which stream it
+/// measures and its standard deviation.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawFlow {
+    /// `inlet` (dry gas in), `outlet` (dry gas out) or `steam` (steam in).
+    pub stream: Option<String>,
+    /// One standard deviation, e.g. `"1.5 %"` of the reading (default 2 %).
+    pub uncertainty: Option<String>,
+    pub tag: Option<String>,
+    pub topic: Option<String>,
+    pub decoder: Option<String>,
+    pub value_pointer: Option<String>,
+    pub ts_pointer: Option<String>,
+    pub quality_pointer: Option<String>,
+    pub unit_pointer: Option<String>,
+    pub unit: Option<String>,
+    pub max_age: Option<String>,
+    pub plausible: Option<[f64; 2]>,
+}
+
+/// `[reactors.<id>.normalise]`: the drift statistics on the approach normalised for
+/// operating conditions by a start-of-run regression.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawNormalise {
+    /// Context inputs: `throughput`, `steam_ratio`, `inlet_temperature`, `pressure`.
+    pub inputs: Vec<String>,
+    /// Learning samples needed at least (default max(30, inputs + 10)).
+    pub min_samples: Option<i64>,
+    /// How far outside the learned range a sample may lie, e.g. `"10 %"` of the span.
+    pub margin: Option<String>,
 }
 
 /// `[reactors.<id>.bed_profile]`: multipoint bed thermocouples.
@@ -130,6 +167,8 @@ pub(crate) struct RawBedProfile {
     pub wabt: Option<String>,
     /// Front depth at which the catalyst is spent (default 90 % of `depth`).
     pub end_of_life_depth: Option<String>,
+    /// `linear` (default) or `log-remaining`.
+    pub front_interpolation: Option<String>,
     #[serde(default)]
     pub thermocouple: Vec<RawBedThermocouple>,
 }

@@ -233,6 +233,8 @@ pub struct Wiring {
     pub steam_ratio: Option<ScalarSource>,
     /// The bed profile's thermocouples, inlet first.
     pub bed: Vec<ScalarSource>,
+    /// The flow meters (same order as the spec's flows).
+    pub flows: Vec<ScalarSource>,
 }
 
 /// One configured reactor: what the monitor needs ([`ReactorSpec`]) and where its

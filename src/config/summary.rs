@@ -70,11 +70,13 @@ fn show_scalar(s: &InputSpec, source: &ScalarSource) -> String {
         ScalarUnit::Temperature(t) => temperature_unit_label(t).to_string(),
         ScalarUnit::Pressure(p) => pressure_unit_label(p),
         ScalarUnit::Ratio => "mol H2O/mol dry gas".to_string(),
+        ScalarUnit::Flow(f) => f.label.to_string(),
     };
     let internal = match s.unit {
         ScalarUnit::Temperature(_) => "K",
         ScalarUnit::Pressure(_) => "bar abs",
         ScalarUnit::Ratio => "mol/mol",
+        ScalarUnit::Flow(_) => "kmol/h",
     };
     format!(
         "{} on {} ({unit}, {}), stale after {}, plausible {} to {} {internal}",
@@ -349,9 +351,10 @@ fn input_rows(rows: &mut Rows, species: &SpeciesDb, spec: &ReactorSpec, wiring: 
         rows.row(
             "  bed profile",
             format!(
-                "{} m of catalyst, front at {} % of the rise (none below {} K), end of life at {} m, WABT {}",
+                "{} m of catalyst, front at {} % of the rise ({}, none below {} K), end of life at {} m, WABT {}",
                 show_number(g.depth_m),
                 show_number(100.0 * g.front_fraction),
+                g.interpolation.label(),
                 show_number(g.min_rise_k),
                 show_number(g.end_of_life_depth_m),
                 g.wabt.label()
@@ -363,6 +366,22 @@ fn input_rows(rows: &mut Rows, species: &SpeciesDb, spec: &ReactorSpec, wiring: 
                 format!("{} m: {}", show_number(*depth), show_scalar(t, source)),
             );
         }
+    }
+    for (f, source) in spec.flows.iter().zip(&wiring.flows) {
+        rows.row(
+            "  flow",
+            format!(
+                "{} ({}, σ {} %): {}",
+                f.stream.as_str(),
+                if f.stream == crate::monitor::spec::FlowStream::InletSteam {
+                    "steam"
+                } else {
+                    "dry gas"
+                },
+                show_number(100.0 * f.sigma_rel),
+                show_scalar(&f.input, source)
+            ),
+        );
     }
     rows.row("  pressure", show_scalar(&spec.pressure, &wiring.pressure));
     match (&spec.steam_ratio, &wiring.steam_ratio) {
@@ -438,6 +457,18 @@ fn summary_lines(watch: &WatchSettings) -> Vec<(&'static str, String)> {
                 .map_or("not set".to_string(), |l| format!("at {l} K")),
         ),
     ));
+    if let Some(n) = &drift.normalise {
+        let names: Vec<&str> = n.inputs.iter().map(|c| c.name()).collect();
+        out.push((
+            "",
+            format!(
+                "on the approach normalised for {} (least squares over the baseline window, {}+ samples; none beyond {} % of the learned range)",
+                names.join(", "),
+                n.config.min_samples,
+                show_number(100.0 * n.config.margin)
+            ),
+        ));
+    }
     let a = &watch.alerts;
     let mut alerts = Vec::new();
     if let Some(r) = a.trend_above_k_per_day {

@@ -8,14 +8,15 @@
 //! "<drift settings as text>","run_start_ms":...,"learn":[n,mean,m2],"baseline":{...},
 //! "ewma":[z,n],"cusum":{"reference_k","upper":[s,n,sum,since_ms],"lower":[...]},"step":
 //! [since_ms,from_k,to_k,samples,detected_ms],"step_reference_k",
-//! "bucket":[start_ms,n,sum],"aggregates":[[day,K],...]}}}`.
+//! "bucket":[start_ms,n,sum],"aggregates":[[day,K],...],"front_daily":[[epoch day,m],...],
+//! "normalisation":{"learning"|"ready":<regression statistics>}|{"unavailable":why}}}}`.
 //! A reactor whose drift settings changed since the save starts a new run.
 
 use serde_json::{Value, json};
 
 use crate::monitor::alarm::{AlarmSnapshot, Mode, State};
 use crate::monitor::drift::{CusumSide, CusumState, Shift};
-use crate::monitor::watch::{Baseline, DriftSnapshot, Step};
+use crate::monitor::watch::{Baseline, DriftSnapshot, NormState, Step};
 use crate::pipeline::Engine;
 
 fn state_name(s: State) -> &'static str {
@@ -131,6 +132,8 @@ pub fn encode(engine: &Engine, now_ms: i64) -> String {
                 "step_reference_k": s.step_reference_k,
                 "bucket": s.bucket.map(|(a, n, sum)| json!([a, n, sum])),
                 "aggregates": s.aggregates.iter().map(|(d, v)| json!([d, v])).collect::<Vec<_>>(),
+                "front_daily": s.front_daily.iter().map(|(d, v)| json!([d, v])).collect::<Vec<_>>(),
+                "normalisation": s.norm.as_ref().map(norm_json),
                 "alarms": alarms,
             }),
         );
@@ -225,7 +228,43 @@ fn snapshot(v: &Value) -> Option<DriftSnapshot> {
         step_reference_k: v.get("step_reference_k").and_then(Value::as_f64),
         bucket,
         aggregates,
+        front_daily: v
+            .get("front_daily")
+            .and_then(Value::as_array)
+            .map(|days| {
+                days.iter()
+                    .filter_map(|d| Some((d.get(0)?.as_i64()?, d.get(1)?.as_f64()?)))
+                    .collect()
+            })
+            .unwrap_or_default(),
+        norm: v.get("normalisation").and_then(norm_from),
     })
+}
+
+/// The normalisation's state: the learner's sufficient statistics, or the fitted model
+/// (saved as its learner and fitted again when read), or why it is unavailable.
+fn norm_json(n: &NormState) -> Value {
+    match n {
+        NormState::Learning(l) => json!({ "learning": serde_json::to_value(l).ok() }),
+        NormState::Ready(m) => json!({ "ready": serde_json::to_value(m.as_ref()).ok() }),
+        NormState::Unavailable(why) => json!({ "unavailable": why }),
+    }
+}
+
+fn norm_from(v: &Value) -> Option<NormState> {
+    if let Some(l) = v.get("learning") {
+        return serde_json::from_value(l.clone())
+            .ok()
+            .map(NormState::Learning);
+    }
+    if let Some(m) = v.get("ready") {
+        return serde_json::from_value(m.clone())
+            .ok()
+            .map(|m| NormState::Ready(Box::new(m)));
+    }
+    v.get("unavailable")
+        .and_then(Value::as_str)
+        .map(|s| NormState::Unavailable(s.to_string()))
 }
 
 /// What became of each reactor when a state file was applied.

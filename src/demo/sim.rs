@@ -208,6 +208,8 @@ enum Kind {
     InletTemperature,
     /// lts1's bed thermocouple number `.0` of [`LTS_BED`].
     BedTemperature(usize),
+    /// lts1's flow meter number `.0` of [`LTS_FLOWS`] (kmol/h, JSON).
+    Flow(usize),
     Pressure,
     /// Steam-to-dry-gas ratio as a bare number.
     RatioBare,
@@ -592,6 +594,10 @@ impl Plant {
             let topic = format!("baw1/lts1/{}", tag.trim_start_matches("BAW1-"));
             add(&topic, Kind::BedTemperature(j), "lts1", 10.0);
         }
+        for (j, tag) in LTS_FLOWS.iter().enumerate() {
+            let topic = format!("baw1/lts1/{}", tag.trim_start_matches("BAW1-"));
+            add(&topic, Kind::Flow(j), "lts1", 10.0);
+        }
         add("baw1/lts1/PI-302", Kind::Pressure, "lts1", 10.0);
         add("baw1/lts1/FY-310", Kind::RatioJson, "lts1", 30.0);
         add(
@@ -653,6 +659,7 @@ impl Plant {
                 self.render_temperature(&sample, out)
             }
             Kind::Pressure => self.render_pressure(&sample, out),
+            Kind::Flow(j) => self.render_flow(&sample, j, out),
             Kind::RatioBare | Kind::RatioJson => self.render_ratio(&sample, out),
             Kind::Analyser | Kind::AnalyserPerComponent => self.render_analyser(&sample, out),
         }
@@ -684,6 +691,30 @@ impl Plant {
             format!(
                 "{{\"ts\":{ts},\"value\":{},\"unit\":\"degC\",\"quality\":\"good\"}}",
                 fixed(t_c, 2)
+            ),
+            false,
+        ));
+    }
+
+    /// lts1's flows at a load swinging ±3 % over 20 simulated minutes (the live demo's
+    /// approach does not follow it: its normalisation learns a flat response).
+    fn render_flow(&self, sample: &Sample, j: usize, out: &mut Vec<SimMessage>) {
+        let inst = &self.instruments[sample.inst];
+        let r = &self.reactors[inst.reactor];
+        let Some(o) = self.outlet(inst.reactor, sample.t_s) else {
+            return;
+        };
+        let load = 1.0 + 0.03 * (std::f64::consts::TAU * sample.t_s / 1200.0).sin();
+        let Some(f) = lts_flows(r, &o, load).get(j).copied() else {
+            return;
+        };
+        let v = f * (1.0 + FLOW_NOISE_REL * self.noise(sample.inst, sample.k, 0));
+        let ts = sample.ts_ms;
+        out.push(message(
+            inst.topic.clone(),
+            format!(
+                "{{\"ts\":{ts},\"value\":{},\"unit\":\"kmol/h\",\"quality\":\"good\"}}",
+                fixed(v, 1)
             ),
             false,
         ));
@@ -1032,7 +1063,8 @@ Days count from the start (day 0 is the first day); times of day are UTC.
                  daily (warmest 15:00) and +/-1 K over the seasons
   all year       lts1: the reaction front (90 % of the 22 K bed rise, bed thermocouples TI-306A-E
                  at 0, 0.8, 1.6, 2.4, 3.2 m) moves down the bed as the top layer dies: a dead layer
-                 of 0.30 m at day 0 growing 0.0044 m/day (the front at 2.9 m, end of life, ~day 455)
+                 of 0.30 m at day 0 growing 0.0027 m/day: the front from 1.68 m at day 0 to the
+                 2.9 m end of life about day 455
   every 7 days   lts1: analyser AI-301 calibrates for 30 min from day 3 09:00 (then day 10, 17, ...):
                  the calibration gas is written, with quality bad
   day 60         hts1: analyser AI-201 stuck 10:00-18:00, repeating its 09:55 analysis (quality good)
@@ -1197,7 +1229,7 @@ pub fn year_approach_k(reactor_id: &str, reaction: usize, t_s: f64) -> Option<f6
         ("ref1", 0) => ref_methane_k(t_s),
         ("ref1", 1) => 2.0,
         ("hts1", 0) => 8.0,
-        ("lts1", 0) => lts_deactivation_k(t_s),
+        ("lts1", 0) => lts_deactivation_k(t_s) + LTS_APPROACH_K_PER_LOAD * (lts_load(t_s) - 1.0),
         ("mth1", 0 | 1) => 10.0,
         ("amc1", 0) => 15.0,
         _ => return None,
@@ -1274,6 +1306,8 @@ struct HistoryTags {
     reactor: &'static str,
     /// Multipoint bed thermocouples (tag, depth below the top of the catalyst, m).
     bed: &'static [(&'static str, f64)],
+    /// Flow meters: dry gas in, dry gas out, steam in (kmol/h).
+    flows: &'static [&'static str],
     temperatures: &'static [&'static str],
     pressure: &'static str,
     /// Measured steam ratio, if the configuration has one.
@@ -1287,6 +1321,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     HistoryTags {
         reactor: "ref1",
         bed: &[],
+        flows: &[],
         temperatures: &["BAW1-TI-105A", "BAW1-TI-105B"],
         pressure: "BAW1-PI-102",
         steam_ratio: Some("BAW1-FY-110"),
@@ -1296,6 +1331,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     HistoryTags {
         reactor: "hts1",
         bed: &[],
+        flows: &[],
         temperatures: &["BAW1-TI-205"],
         pressure: "BAW1-PI-202",
         steam_ratio: None,
@@ -1305,6 +1341,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     HistoryTags {
         reactor: "lts1",
         bed: &LTS_BED,
+        flows: &LTS_FLOWS,
         temperatures: &["BAW1-TI-305A", "BAW1-TI-305B"],
         pressure: "BAW1-PI-302",
         steam_ratio: Some("BAW1-FY-310"),
@@ -1314,6 +1351,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     HistoryTags {
         reactor: "mth1",
         bed: &[],
+        flows: &[],
         temperatures: &["BAW1-TI-405", "BAW1-TI-401"],
         pressure: "BAW1-PI-402",
         steam_ratio: None,
@@ -1323,6 +1361,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
     HistoryTags {
         reactor: "amc1",
         bed: &[],
+        flows: &[],
         temperatures: &["BAW1-TI-505"],
         pressure: "BAW1-PI-502",
         steam_ratio: None,
@@ -1343,14 +1382,56 @@ pub const LTS_BED: [(&str, f64); 5] = [
 /// shifted, as low-temperature shift beds show [common practice]).
 pub const LTS_BED_RISE_K: f64 = 22.0;
 /// lts1: the dead layer at the top of the bed at day 0 (m) and how fast it grows (m/day):
-/// the reaction front (90 % of the rise) starts near 0.88 m and reaches the configured
-/// 2.9 m end of life about day 455.
+/// the reaction front (90 % of the rise, dead layer + λ ln 10) starts near 1.68 m and
+/// reaches the configured 2.9 m end of life about day 455.
 pub const LTS_DEAD_LAYER_M: f64 = 0.30;
-pub const LTS_DEAD_LAYER_M_PER_DAY: f64 = 0.00444;
+pub const LTS_DEAD_LAYER_M_PER_DAY: f64 = 0.00268;
 /// The live demo's compressed pace of the same, m per simulated hour.
 const LTS_DEMO_DEAD_LAYER_M_PER_H: f64 = 0.2;
+/// lts1's flow meters: dry gas in, dry gas out, steam in (kmol/h).
+pub const LTS_FLOWS: [&str; 3] = ["BAW1-FI-301", "BAW1-FI-302", "BAW1-FI-303"];
+/// lts1: dry gas in at full rate, kmol/h (invented).
+pub const LTS_DESIGN_DRY_KMOL_H: f64 = 2400.0;
+/// lts1: how the approach follows the load: K per unit of load (invented: a higher space
+/// velocity leaves the gas further from equilibrium).
+pub const LTS_APPROACH_K_PER_LOAD: f64 = 8.0;
+/// Flow meter noise, fraction of reading (uniform ±).
+const FLOW_NOISE_REL: f64 = 0.004;
+
+/// lts1's load (1 = full rate) at `t_s` of the year: a ±6 % swing over 6.7 days (gas
+/// supply and demand), a rate cut to about 94 % on days 45–52 (within the swing seen in
+/// the first two weeks) and a deep one to about 78 % on days 200–214 (far outside it).
+pub fn lts_load(t_s: f64) -> f64 {
+    use std::f64::consts::TAU;
+    let d = t_s / DAY_S;
+    let cut = if (45.0..52.0).contains(&d) {
+        -0.06
+    } else if (200.0..214.0).contains(&d) {
+        -0.22
+    } else {
+        0.0
+    };
+    1.0 + 0.06 * (TAU * d / 6.7).sin() + cut
+}
+
 /// lts1: length scale of the active zone's conversion profile, m.
-const LTS_ACTIVE_ZONE_M: f64 = 0.25;
+const LTS_ACTIVE_ZONE_M: f64 = 0.6;
+
+/// lts1's flows at `load` for the outlet gas `o`: dry gas in, dry gas out, steam in
+/// (kmol/h). The shift keeps the total moles, so the outlet's dry gas is the feed's
+/// total less the outlet water.
+fn lts_flows(r: &Reactor, o: &Outlet, load: f64) -> [f64; 3] {
+    let water = r.water.map_or(0.0, |w| r.feed[w]);
+    let total: f64 = r.feed.iter().sum();
+    let dry_in = total - water;
+    let scale = LTS_DESIGN_DRY_KMOL_H * load / dry_in;
+    let y_water = r.water.and_then(|w| o.y.get(w).copied()).unwrap_or(0.0);
+    [
+        dry_in * scale,
+        total * (1.0 - y_water) * scale,
+        water * scale,
+    ]
+}
 
 /// Fraction of the bed's rise reached at `depth_m` when the top `dead_m` of the catalyst
 /// is spent: 0 in the dead layer, then 1 − exp(−(d − dead)/λ) (first-order conversion in
@@ -1363,6 +1444,7 @@ pub fn lts_bed_fraction(depth_m: f64, dead_m: f64) -> f64 {
 // Noise channels of one reactor (combined with its `stream`).
 const CH_TEMPERATURE: u64 = 0; // + thermocouple number
 const CH_BED: u64 = 56; // + bed thermocouple number
+const CH_FLOW: u64 = 64; // + flow meter number
 const CH_PRESSURE: u64 = 8;
 const CH_STEAM_RATIO: u64 = 9;
 const CH_ANALYSER: u64 = 16; // + component number
@@ -1448,6 +1530,7 @@ impl History {
         for (tags, &ri) in HISTORY_TAGS.iter().zip(&self.reactor_index) {
             v.extend(tags.temperatures.iter().map(|t| t.to_string()));
             v.extend(tags.bed.iter().map(|t| t.0.to_string()));
+            v.extend(tags.flows.iter().map(|t| t.to_string()));
             v.push(tags.pressure.to_string());
             if let Some(fy) = tags.steam_ratio {
                 v.push(fy.to_string());
@@ -1675,6 +1758,22 @@ impl History {
                     + TI_NOISE_K * self.noise(tags.stream, CH_BED + j as u64, m);
                 push_fixed(out, x, 2);
                 st.values += 1;
+            }
+            // Flows: nothing while the plant is down or restarting.
+            let flows = if running && !tags.flows.is_empty() {
+                self.outlet_at(k, t_s)
+                    .map(|o| lts_flows(r, &o, lts_load(t_s)))
+            } else {
+                None
+            };
+            for (j, _) in tags.flows.iter().enumerate() {
+                out.push(',');
+                if let Some(f) = flows.as_ref().and_then(|f| f.get(j)) {
+                    let x =
+                        f * (1.0 + FLOW_NOISE_REL * self.noise(tags.stream, CH_FLOW + j as u64, m));
+                    push_fixed(out, x, 1);
+                    st.values += 1;
+                }
             }
             out.push(',');
             let p = self.pressure_barg(ri, phase, t_s)
@@ -1929,8 +2028,8 @@ mod tests {
                 assert_eq!(v["basis"], basis);
             }
         }
-        // 25 plus lts1's five bed thermocouples.
-        assert_eq!(topics.len(), 30, "{topics:?}");
+        // 25 plus lts1's five bed thermocouples and three flow meters.
+        assert_eq!(topics.len(), 33, "{topics:?}");
         for t in [
             "baw1/ref1/TI-105B",
             "baw1/lts1/TI-306C",
@@ -2359,6 +2458,16 @@ mod tests {
                     want[want.len() - 1].clone(),
                     t["unit"].as_str().expect("unit").to_string(),
                 ));
+            }
+            // Flow meters, written in kmol/h as configured.
+            for f in r
+                .get("flow")
+                .and_then(|f| f.as_array())
+                .into_iter()
+                .flatten()
+            {
+                want.push(f["tag"].as_str().expect("tag").to_string());
+                assert_eq!(f["unit"].as_str(), Some("kmol/h"));
             }
             want.push(r["pressure"]["tag"].as_str().expect("tag").to_string());
             units.push((

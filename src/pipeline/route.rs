@@ -20,6 +20,7 @@ pub(crate) enum Route {
     Component(usize, usize),
     Command(usize),
     BedTemperature(usize, usize),
+    Flow(usize, usize),
 }
 
 /// Topic → routes for every input and command topic of the configuration.
@@ -30,6 +31,11 @@ pub(crate) fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
             m.entry(t.topic.clone())
                 .or_default()
                 .push(Route::Temperature(r, i));
+        }
+        for (i, t) in rs.wiring.flows.iter().enumerate() {
+            m.entry(t.topic.clone())
+                .or_default()
+                .push(Route::Flow(r, i));
         }
         for (i, t) in rs.wiring.bed.iter().enumerate() {
             m.entry(t.topic.clone())
@@ -95,6 +101,23 @@ pub(crate) fn decode(
                     raw.arrival_ms,
                 )
                 .map(|v| Input::Temperature(i, v)),
+            )
+        }
+        Route::Flow(r, i) => {
+            let rs = &s.reactors[r];
+            let (Some(source), Some(spec)) = (rs.wiring.flows.get(i), rs.spec.flows.get(i)) else {
+                return (r, Err(DecodeError::Missing("(flow meter)".into())));
+            };
+            (
+                r,
+                wire::input::decode_scalar(
+                    &raw.payload,
+                    &source.decoder,
+                    &spec.input.unit,
+                    atm,
+                    raw.arrival_ms,
+                )
+                .map(|v| Input::Flow(i, v)),
             )
         }
         Route::BedTemperature(r, i) => {

@@ -39,6 +39,7 @@ pub(super) enum Column {
 pub(super) enum ScalarKind {
     Temperature(usize),
     BedTemperature(usize),
+    Flow(usize),
     Pressure,
     SteamRatio,
 }
@@ -48,6 +49,7 @@ pub(super) enum ScalarKind {
 pub(super) enum ScalarUnitText {
     Temperature(TemperatureUnit),
     Pressure(PressureUnit),
+    Flow(crate::units::FlowUnit),
 }
 
 /// What the CSV columns mean for a configuration.
@@ -85,6 +87,9 @@ pub(super) fn names(s: &Settings) -> HashMap<String, Column> {
             .enumerate()
         {
             scalar(&t.tag, ScalarKind::BedTemperature(i));
+        }
+        for (i, f) in rs.spec.flows.iter().enumerate() {
+            scalar(&f.input.tag, ScalarKind::Flow(i));
         }
         scalar(&rs.spec.pressure.tag, ScalarKind::Pressure);
         if let Some(SteamRatioSpec::Measured(ss)) = &rs.spec.steam_ratio {
@@ -172,6 +177,9 @@ pub(super) fn read_header(s: &Settings, header: &str, line: usize) -> Result<Lay
                         PressureUnit::parse(u).ok().map(ScalarUnitText::Pressure)
                     }
                     ScalarUnit::Ratio => None,
+                    ScalarUnit::Flow(_) => crate::units::FlowUnit::parse(u)
+                        .ok()
+                        .map(ScalarUnitText::Flow),
                 };
                 let Some(over) = over else {
                     return Err(err(format!(
@@ -181,6 +189,7 @@ pub(super) fn read_header(s: &Settings, header: &str, line: usize) -> Result<Lay
                             ScalarUnit::Temperature(_) => "temperature",
                             ScalarUnit::Pressure(_) => "pressure (say absolute or gauge)",
                             ScalarUnit::Ratio => "ratio (a steam ratio has no unit)",
+                            ScalarUnit::Flow(_) => "molar flow (kmol/h, mol/s, Nm3/h)",
                         }
                     )));
                 };
@@ -239,6 +248,13 @@ pub(super) fn scalar_unit(s: &Settings, r: usize, kind: ScalarKind) -> ScalarUni
             .and_then(|b| b.thermocouples.get(i))
             .map_or(ScalarUnit::Temperature(TemperatureUnit::Kelvin), |t| {
                 t.0.unit
+            }),
+        ScalarKind::Flow(i) => rs
+            .spec
+            .flows
+            .get(i)
+            .map_or(ScalarUnit::Flow(crate::units::FlowUnit::KMOL_H), |f| {
+                f.input.unit
             }),
         ScalarKind::Pressure => rs.spec.pressure.unit,
         ScalarKind::SteamRatio => ScalarUnit::Ratio,
@@ -375,6 +391,7 @@ impl RowCells {
             let unit = match over {
                 Some(ScalarUnitText::Temperature(u)) => ScalarUnit::Temperature(u),
                 Some(ScalarUnitText::Pressure(u)) => ScalarUnit::Pressure(u),
+                Some(ScalarUnitText::Flow(u)) => ScalarUnit::Flow(u),
                 None => scalar_unit(settings, r, kind),
             };
             let quality = self
@@ -400,6 +417,7 @@ impl RowCells {
             let input = match kind {
                 ScalarKind::Temperature(i) => Input::Temperature(i, reading),
                 ScalarKind::BedTemperature(i) => Input::BedTemperature(i, reading),
+                ScalarKind::Flow(i) => Input::Flow(i, reading),
                 ScalarKind::Pressure => Input::Pressure(reading),
                 ScalarKind::SteamRatio => Input::SteamRatio(reading),
             };

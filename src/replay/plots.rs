@@ -164,7 +164,7 @@ fn offline_spans(t: &Trace) -> Vec<OfflineSpan> {
 /// aggregates of the last run between its first and last fitted points (a trend window
 /// may leave older ones out).
 fn aggregate_points(t: &Trace) -> Vec<AggregatePoint> {
-    let fitted = t.last_drift.and_then(|d| d.trend);
+    let fitted = t.last_drift.as_ref().and_then(|d| d.trend);
     t.aggregates
         .iter()
         .map(|&(t_ms, k)| AggregatePoint {
@@ -180,7 +180,7 @@ fn aggregate_points(t: &Trace) -> Vec<AggregatePoint> {
 /// The trend line with its band, up to the end-of-run forecast or at most half the
 /// data span ahead.
 fn projection(t: &Trace) -> Option<Projection> {
-    let d = t.last_drift?;
+    let d = t.last_drift.as_ref()?;
     let tr = d.trend?;
     let day = DAY_MS as f64;
     let (end, range) = match d.forecast {

@@ -192,6 +192,14 @@ pub(crate) fn convert(
             }
             Ok(value)
         }
+        ScalarUnit::Flow(cfg) => {
+            let u = match unit_text {
+                Some(t) => crate::units::FlowUnit::parse(t).map_err(|_| bad(t))?,
+                None => *cfg,
+            };
+            u.to_kmol_h(value)
+                .map_err(|e| DecodeError::NotPhysical(e.to_string()))
+        }
     }
 }
 

@@ -135,6 +135,7 @@ struct BedProfileOut<'a> {
     wabt_convention: &'static str,
     /// The front: depth of `front_fraction` of the rise (m, and of the catalyst depth).
     front_fraction: f64,
+    front_interpolation: &'static str,
     front_depth_m: Option<f64>,
     front_fraction_of_bed: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -214,6 +215,7 @@ fn bed_profile_out<'a>(
         wabt_k: profile.and_then(|p| finite(p.wabt_k)),
         wabt_convention: g.wabt.label(),
         front_fraction: g.front_fraction,
+        front_interpolation: g.interpolation.label(),
         front_depth_m: front.and_then(|f| finite(f.depth_m)),
         front_fraction_of_bed: front.and_then(|f| finite(f.fraction_of_bed)),
         no_front_because: profile.and_then(|p| p.front.err()).map(|n| n.as_str()),

@@ -80,6 +80,96 @@ pub(crate) struct DriftOut {
     trend_fitted_k: Option<f64>,
     trend_band_k: Option<f64>,
     end_of_run: EndOfRunOut,
+    /// The approach normalised for operating conditions, where configured: the
+    /// statistics above then run on `normalised_k`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    normalised: Option<NormalisedOut>,
+}
+
+#[derive(Serialize)]
+pub(crate) struct NormalisedOut {
+    /// `learning`, `ready` or `unavailable`.
+    state: &'static str,
+    samples: u64,
+    min_samples: u64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    unavailable_because: Option<String>,
+    /// This sample: the approach the regression expects at its conditions, the
+    /// measured minus that, the figure the statistics take (residual + reference), the
+    /// 95 % prediction half width and the leverage.
+    predicted_k: Option<f64>,
+    residual_k: Option<f64>,
+    normalised_k: Option<f64>,
+    prediction_half_width_k: Option<f64>,
+    leverage: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    refused: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    fit: Option<FitOut>,
+}
+
+/// The start-of-run regression (OLS on the context inputs).
+#[derive(Serialize)]
+pub(crate) struct FitOut {
+    method: &'static str,
+    n: u64,
+    intercept_k: Option<f64>,
+    /// Per input: name, unit, coefficient (K per unit) ± standard error, learned range.
+    coefficients: Vec<CoefficientOut>,
+    r_squared: Option<f64>,
+    adjusted_r_squared: Option<f64>,
+    residual_sd_k: Option<f64>,
+    condition_number: Option<f64>,
+    reference_approach_k: Option<f64>,
+}
+
+#[derive(Serialize)]
+pub(crate) struct CoefficientOut {
+    input: String,
+    unit: String,
+    k_per_unit: Option<f64>,
+    std_error: Option<f64>,
+    learned_min: Option<f64>,
+    learned_max: Option<f64>,
+}
+
+fn normalised_out(n: &crate::monitor::watch::NormalisedFigures) -> NormalisedOut {
+    let sample = n.sample.as_ref();
+    NormalisedOut {
+        state: n.state,
+        samples: n.samples,
+        min_samples: n.min_samples,
+        unavailable_because: n.unavailable_because.clone(),
+        predicted_k: sample.and_then(|x| finite(x.predicted)),
+        residual_k: sample.and_then(|x| finite(x.residual)),
+        normalised_k: sample.and_then(|x| finite(x.normalised)),
+        prediction_half_width_k: sample.and_then(|x| finite(x.half_width_95)),
+        leverage: sample.and_then(|x| finite(x.leverage)),
+        refused: n.refused.clone(),
+        fit: n.fit.as_ref().map(|f| FitOut {
+            method: "least-squares",
+            n: f.n,
+            intercept_k: finite(f.intercept.value),
+            coefficients: f
+                .coefficients
+                .iter()
+                .zip(&f.ranges)
+                .map(|(c, r)| CoefficientOut {
+                    input: c.name.clone(),
+                    unit: r.unit.clone(),
+                    k_per_unit: finite(c.value),
+                    std_error: finite(c.std_error),
+                    learned_min: finite(r.min),
+                    learned_max: finite(r.max),
+                })
+                .collect(),
+            r_squared: finite_opt(f.r_squared),
+            adjusted_r_squared: finite_opt(f.adjusted_r_squared),
+            residual_sd_k: finite(f.residual_sd),
+            condition_number: finite(f.condition_number),
+            reference_approach_k: finite(f.reference_approach),
+        }),
+    }
 }
 
 impl From<&DriftFigures> for DriftOut {
@@ -152,6 +242,7 @@ impl From<&DriftFigures> for DriftOut {
                 earliest,
                 latest,
             },
+            normalised: f.normalised.as_ref().map(normalised_out),
         }
     }
 }

@@ -13,9 +13,15 @@
 //! - Points are (depth from the top of the catalyst, temperature), the first at the bed
 //!   inlet, the last at the outlet. Rise ΔT = T_last − T_first.
 //! - Front at fraction f (default 0.9): the smallest depth at which
-//!   T(d) ≥ T_first + f ΔT, by linear interpolation between neighbouring thermocouples
-//!   (the first crossing: a bed that loses heat below a hot spot still has its front
-//!   where the reaction happened). No front when the rise is below `min_rise_k` (a bed
+//!   T(d) ≥ T_first + f ΔT, interpolated between neighbouring thermocouples (the first
+//!   crossing: a bed that loses heat below a hot spot still has its front where the
+//!   reaction happened). `Linear` interpolates the temperature. `LogRemaining`
+//!   interpolates the logarithm of the rise still to come, r(d) = (T_last − T(d))/ΔT,
+//!   which is linear in depth in the reacting zone of a first-order adiabatic plug-flow
+//!   bed (r = exp(−(d − d₀)/λ) [common practice]), so a few thermocouples place the
+//!   front without the bias of a straight line across a curved profile; where r of the
+//!   deeper point is below [`LOG_REMAINING_MIN`] (the outlet, or noise near it) the
+//!   segment falls back to linear. No front when the rise is below `min_rise_k` (a bed
 //!   doing nothing, or a bypass: any "front" would be thermocouple noise), when fewer
 //!   than three thermocouples are usable (inlet and outlet alone say nothing about where
 //!   the rise happens), or when the rise is negative.
@@ -57,6 +63,26 @@ impl WabtMethod {
     }
 }
 
+/// How the front is placed between two thermocouples.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FrontInterpolation {
+    Linear,
+    LogRemaining,
+}
+
+impl FrontInterpolation {
+    pub fn label(self) -> &'static str {
+        match self {
+            Self::Linear => "linear",
+            Self::LogRemaining => "log-remaining",
+        }
+    }
+}
+
+/// Smallest remaining-rise fraction the logarithmic interpolation uses (below it the
+/// thermocouples' 1–2 K noise dominates a typical 20 K rise [common practice]).
+pub const LOG_REMAINING_MIN: f64 = 0.02;
+
 /// What the profile needs to know about a bed.
 #[derive(Debug, Clone, PartialEq)]
 pub struct BedGeometry {
@@ -69,6 +95,7 @@ pub struct BedGeometry {
     pub wabt: WabtMethod,
     /// The front depth at which the catalyst is spent (the forecast's limit), m.
     pub end_of_life_depth_m: f64,
+    pub interpolation: FrontInterpolation,
 }
 
 /// One usable thermocouple reading: its index in the configured list, depth (m from the
@@ -209,7 +236,7 @@ impl BedGeometry {
         } else if !(rise_k >= self.min_rise_k && rise_k > 0.0) {
             Err(NoFront::RiseTooSmall)
         } else {
-            Ok(self.front_at(points, first.t_k + self.front_fraction * rise_k))
+            Ok(self.front_at(points, first.t_k + self.front_fraction * rise_k, last.t_k))
         };
         let hottest = points
             .iter()
@@ -230,16 +257,27 @@ impl BedGeometry {
         })
     }
 
-    /// Depth of the first crossing of `target` (linear between neighbours).
-    fn front_at(&self, points: &[BedPoint], target: f64) -> f64 {
+    /// Depth of the first crossing of `target` (see the module notes).
+    fn front_at(&self, points: &[BedPoint], target: f64, outlet_k: f64) -> f64 {
+        let rise = outlet_k - points.first().map_or(outlet_k, |p| p.t_k);
         for pair in points.windows(2) {
             let (a, b) = (pair[0], pair[1]);
             if b.t_k >= target {
                 let span = b.t_k - a.t_k;
-                let x = if span > 0.0 {
+                let linear = if span > 0.0 {
                     ((target - a.t_k) / span).clamp(0.0, 1.0)
                 } else {
                     1.0
+                };
+                let (ra, rb) = ((outlet_k - a.t_k) / rise, (outlet_k - b.t_k) / rise);
+                let rt = (outlet_k - target) / rise;
+                let x = match self.interpolation {
+                    FrontInterpolation::LogRemaining
+                        if rb >= LOG_REMAINING_MIN && ra > rb && rt > 0.0 =>
+                    {
+                        ((ra.ln() - rt.ln()) / (ra.ln() - rb.ln())).clamp(0.0, 1.0)
+                    }
+                    _ => linear,
                 };
                 return a.depth_m + x * (b.depth_m - a.depth_m);
             }
@@ -387,6 +425,7 @@ mod tests {
             min_rise_k: 5.0,
             wabt,
             end_of_life_depth_m: 3.6,
+            interpolation: FrontInterpolation::Linear,
         }
     }
 
@@ -462,6 +501,45 @@ mod tests {
         assert!((f.depth_m - 1.75).abs() < 1e-12, "{}", f.depth_m);
         assert!((f.fraction_of_bed - 0.4375).abs() < 1e-12);
         assert_eq!(p.hot_spot, None);
+    }
+
+    #[test]
+    fn log_remaining_places_the_front_of_an_exponential_profile_exactly() {
+        // Invented first-order profile: dead layer 0.3 m, λ = 0.25 m, rise 22 K:
+        // T(d) = 200 + 22 (1 − exp(−(d − 0.3)/0.25)); its 90 % depth is
+        // 0.3 + 0.25 ln 10 = 0.875646 m (derived). Thermocouples at 0, 0.8, 1.6, 2.4, 3.2 m
+        // with the outlet taken as the full rise.
+        let t = |d: f64| 200.0 + 22.0 * (1.0 - (-((d - 0.3_f64).max(0.0)) / 0.25).exp());
+        let pts: Vec<(f64, f64)> = [0.0, 0.8, 1.6, 2.4]
+            .iter()
+            .map(|&d| (d, t(d)))
+            .chain(std::iter::once((3.2, 222.0)))
+            .collect();
+        let mut g = geometry(WabtMethod::InletOutlet);
+        g.interpolation = FrontInterpolation::LogRemaining;
+        let exact = 0.3 + 0.25 * 10f64.ln();
+        // The crossing lies between 0.8 m (remaining e^-2 = 0.135) and 1.6 m (e^-5.2 =
+        // 0.0055, below the floor): that segment falls back to linear. With the third
+        // thermocouple at 1.2 m instead (e^-3.6 = 0.027) the log method applies.
+        let pts2: Vec<(f64, f64)> = pts
+            .iter()
+            .map(|&(d, v)| if d == 1.6 { (1.2, t(1.2)) } else { (d, v) })
+            .collect();
+        let p = g.profile(&points(&pts2), 5).unwrap();
+        let f = p.front.unwrap().depth_m;
+        // Exact but for the outlet, taken as the full rise (short by 22·e^-11.6 K).
+        assert!((f - exact).abs() < 1e-4, "{f} vs {exact}");
+        // Linear interpolation across the same segment lies deeper.
+        g.interpolation = FrontInterpolation::Linear;
+        let lin = g.profile(&points(&pts2), 5).unwrap().front.unwrap().depth_m;
+        assert!(lin > exact + 0.05, "{lin}");
+        // Where the deeper point is within noise of the outlet, the log method falls
+        // back to linear (the same figure as linear).
+        g.interpolation = FrontInterpolation::LogRemaining;
+        let fb = g.profile(&points(&pts), 5).unwrap().front.unwrap().depth_m;
+        g.interpolation = FrontInterpolation::Linear;
+        let lin2 = g.profile(&points(&pts), 5).unwrap().front.unwrap().depth_m;
+        assert!((fb - lin2).abs() < 1e-12);
     }
 
     #[test]

@@ -91,6 +91,7 @@ fn norm_unit(unit: &str) -> String {
         .filter(|c| !c.is_whitespace())
         .map(|c| match c {
             '²' => '2',
+            '³' => '3',
             '(' | ')' => '\u{0}',
             _ => c,
         })
@@ -277,6 +278,72 @@ pub enum ScalarUnit {
     Pressure(PressureUnit),
     /// Dimensionless (mol H2O per mol dry gas).
     Ratio,
+    /// A molar flow (kmol/h internally).
+    Flow(FlowUnit),
+}
+
+/// Molar flow units, converted to kmol/h.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FlowUnit {
+    /// Multiply the value by this to get kmol/h.
+    pub kmol_h_per_unit: f64,
+    /// The unit as it is written back to a user.
+    pub label: &'static str,
+}
+
+/// Molar volume of an ideal gas at 273.15 K and 101.325 kPa, m³/kmol (CODATA 2018:
+/// 22.413 969 54 L/mol); the "normal" cubic metre of DIN 1343.
+pub const NORMAL_M3_PER_KMOL: f64 = 22.413_969_54;
+
+const FLOW_UNITS: &str = "kmol/h, mol/s, kmol/s, Nm3/h (0 °C, 1 atm)";
+
+impl FlowUnit {
+    pub fn parse(unit: &str) -> Result<Self, UnitError> {
+        let u = norm_unit(unit);
+        let (kmol_h_per_unit, label) = match u.as_str() {
+            "kmol/h" | "kmol/hr" => (1.0, "kmol/h"),
+            "mol/s" => (3.6, "mol/s"),
+            "kmol/s" => (3600.0, "kmol/s"),
+            "mol/h" => (1e-3, "mol/h"),
+            "nm3/h" | "nm3/hr" | "nm^3/h" => (1.0 / NORMAL_M3_PER_KMOL, "Nm3/h"),
+            "sm3/h" | "scm/h" | "m3/h" => {
+                return Err(UnitError::Ambiguous {
+                    what: "flow",
+                    unit: unit.to_string(),
+                    hint: "standard conditions differ between standards and m3/h has none: give kmol/h, or Nm3/h (0 °C, 1 atm)",
+                });
+            }
+            _ => {
+                return Err(UnitError::UnknownUnit {
+                    what: "flow",
+                    unit: unit.to_string(),
+                    expected: FLOW_UNITS,
+                });
+            }
+        };
+        Ok(Self {
+            kmol_h_per_unit,
+            label,
+        })
+    }
+
+    /// The value in kmol/h; negative flows are not physical.
+    /// kmol/h itself.
+    pub const KMOL_H: Self = Self {
+        kmol_h_per_unit: 1.0,
+        label: "kmol/h",
+    };
+
+    pub fn to_kmol_h(self, value: f64) -> Result<f64, UnitError> {
+        if !value.is_finite() || value < 0.0 {
+            return Err(UnitError::NotPhysical {
+                what: "flow",
+                value,
+                reason: "a flow is zero or more",
+            });
+        }
+        Ok(value * self.kmol_h_per_unit)
+    }
 }
 
 /// Units of one analyser component.
@@ -356,6 +423,31 @@ pub fn fmt_num(v: f64, sig: u32) -> String {
         }
     }
     if t == "-0" { "0".into() } else { t }
+}
+
+#[cfg(test)]
+mod flow_tests {
+    use super::*;
+
+    #[test]
+    fn flow_units_convert_to_kmol_per_hour() {
+        // 1 mol/s = 3.6 kmol/h (definition); 22 413.969 54 Nm3/h = 1000 kmol/h (CODATA
+        // 2018 molar volume at 273.15 K, 101.325 kPa).
+        let c = |u: &str, v: f64| FlowUnit::parse(u).unwrap().to_kmol_h(v).unwrap();
+        assert_eq!(c("kmol/h", 12.5), 12.5);
+        assert!((c("mol/s", 10.0) - 36.0).abs() < 1e-12);
+        assert!((c("Nm3/h", 22_413.969_54) - 1000.0).abs() < 1e-9);
+        assert!((c("Nm³/h", 22_413.969_54) - 1000.0).abs() < 1e-9);
+        assert!(matches!(
+            FlowUnit::parse("Sm3/h"),
+            Err(UnitError::Ambiguous { .. })
+        ));
+        assert!(matches!(
+            FlowUnit::parse("t/h"),
+            Err(UnitError::UnknownUnit { .. })
+        ));
+        assert!(FlowUnit::parse("kmol/h").unwrap().to_kmol_h(-1.0).is_err());
+    }
 }
 
 #[cfg(test)]

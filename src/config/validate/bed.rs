@@ -1,7 +1,7 @@
 //! `[reactors.<id>.bed_profile]`: the bed, its multipoint thermocouples (the scalar input
 //! keys plus a depth and, for a weighted WABT, a weight) and the front settings.
 
-use crate::bedprofile::{BedGeometry, WabtMethod};
+use crate::bedprofile::{BedGeometry, FrontInterpolation, WabtMethod};
 use crate::config::error::{Problems, key_path};
 use crate::config::raw::RawBedProfile;
 use crate::config::settings::{ScalarSettings, ScalarSource};
@@ -92,6 +92,17 @@ pub(crate) fn bed_profile(
         sources.push(source);
     }
     let wabt = wabt(problems, path, raw.wabt.as_deref(), &weights);
+    let interpolation = match raw.front_interpolation.as_deref().map(str::trim) {
+        None | Some("linear") => FrontInterpolation::Linear,
+        Some("log-remaining") => FrontInterpolation::LogRemaining,
+        Some(other) => {
+            problems.add(
+                format!("{path}.front_interpolation"),
+                format!("\"{other}\" is not a front interpolation: linear or log-remaining"),
+            );
+            FrontInterpolation::Linear
+        }
+    };
     let (Some(depth_m), Some(min_rise_k), Some(wabt)) = (depth_m, min_rise_k, wabt) else {
         return None;
     };
@@ -103,6 +114,7 @@ pub(crate) fn bed_profile(
         end_of_life_depth_m: end_of_life
             .flatten()
             .unwrap_or(END_OF_LIFE_FRACTION * depth_m),
+        interpolation,
     };
     if problems.len() > start {
         return None;
@@ -169,4 +181,83 @@ fn wabt(
         }
     }
     Some(method)
+}
+
+#[cfg(test)]
+mod tests {
+    //! Check values: the invented test reactor of `test_support` with a bed added.
+
+    use crate::bedprofile::{FrontInterpolation, WabtMethod};
+    use crate::config::test_support::{assert_problems, check, refused, with_broker};
+
+    fn bed(extra: &str, points: &[(&str, &str)]) -> String {
+        let mut t = format!(
+            "{}\n[reactors.hts1.bed_profile]\ndepth = \"10 ft\"\n{extra}\n",
+            with_broker("url = \"mqtt://127.0.0.1\"")
+        );
+        for (i, (depth, more)) in points.iter().enumerate() {
+            t.push_str(&format!(
+                "\n[[reactors.hts1.bed_profile.thermocouple]]\ntag = \"TI-20{i}\"\ntopic = \"baw1/hts1/TI-20{i}\"\nunit = \"degC\"\nmax_age = \"2 min\"\ndepth = \"{depth}\"\n{more}\n"
+            ));
+        }
+        t
+    }
+
+    #[test]
+    fn a_bed_profile_is_read_in_metres_with_its_defaults() {
+        let s = check(&bed("", &[("0 m", ""), ("150 cm", ""), ("3048 mm", "")])).expect("valid");
+        let b = s.reactors[0].spec.bed_profile.as_ref().expect("bed");
+        // 10 ft = 3.048 m (NIST SP 811: 1 ft = 0.3048 m exactly).
+        assert!((b.geometry.depth_m - 3.048).abs() < 1e-12);
+        assert_eq!(b.geometry.front_fraction, 0.9);
+        assert_eq!(b.geometry.wabt, WabtMethod::InletOutlet);
+        assert_eq!(b.geometry.interpolation, FrontInterpolation::Linear);
+        assert!((b.geometry.end_of_life_depth_m - 0.9 * 3.048).abs() < 1e-12);
+        assert_eq!(b.thermocouples[1].1, 1.5);
+        assert_eq!(s.reactors[0].wiring.bed.len(), 3);
+        // The end-of-life depth reaches the front trend of the watch.
+        let eol = s.reactors[0].spec.watch.drift.front_end_of_life_m;
+        assert_eq!(eol, Some(b.geometry.end_of_life_depth_m));
+    }
+
+    #[test]
+    fn thermocouples_out_of_order_and_weights_without_weighting_are_refused() {
+        assert_problems(
+            "bed order",
+            &refused(&bed("", &[("0 m", ""), ("2 m", ""), ("1 m", "")])),
+            &[("reactors.hts1.bed_profile", "number 3 is at 1 m")],
+        );
+        assert_problems(
+            "bed keys",
+            &refused(&bed(
+                "wabt = \"mean\"\nfront_interpolation = \"cubic\"",
+                &[("0 m", "weight = 2.0"), ("two metres", "")],
+            )),
+            &[
+                (
+                    "reactors.hts1.bed_profile.wabt",
+                    "\"mean\" is not a WABT convention",
+                ),
+                (
+                    "reactors.hts1.bed_profile.front_interpolation",
+                    "\"cubic\" is not a front interpolation",
+                ),
+                (
+                    "reactors.hts1.bed_profile.thermocouple[1].depth",
+                    "is not a length",
+                ),
+            ],
+        );
+        assert_problems(
+            "weighted",
+            &refused(&bed(
+                "wabt = \"weighted\"",
+                &[("0 m", "weight = 1.0"), ("3 m", "")],
+            )),
+            &[(
+                "reactors.hts1.bed_profile.thermocouple[1].weight",
+                "needs a non-negative weight",
+            )],
+        );
+    }
 }

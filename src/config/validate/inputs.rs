@@ -123,6 +123,7 @@ pub(crate) enum ScalarKind {
     Temperature,
     Pressure,
     Ratio,
+    Flow,
 }
 
 /// The keys of one scalar input, from a temperature, pressure or steam-ratio table.
@@ -157,6 +158,25 @@ impl<'a> From<&'a RawScalar> for ScalarFields<'a> {
 
 impl<'a> From<&'a crate::config::raw::RawBedThermocouple> for ScalarFields<'a> {
     fn from(r: &'a crate::config::raw::RawBedThermocouple) -> Self {
+        Self {
+            tag: r.tag.as_deref(),
+            topic: r.topic.as_deref(),
+            decoder: r.decoder.as_deref(),
+            pointers: PointerKeys {
+                value: r.value_pointer.as_deref(),
+                ts: r.ts_pointer.as_deref(),
+                quality: r.quality_pointer.as_deref(),
+                unit: r.unit_pointer.as_deref(),
+            },
+            unit: r.unit.as_deref(),
+            max_age: r.max_age.as_deref(),
+            plausible: r.plausible,
+        }
+    }
+}
+
+impl<'a> From<&'a crate::config::raw::RawFlow> for ScalarFields<'a> {
+    fn from(r: &'a crate::config::raw::RawFlow) -> Self {
         Self {
             tag: r.tag.as_deref(),
             topic: r.topic.as_deref(),
@@ -255,6 +275,20 @@ pub(crate) fn scalar(
             }
         },
         (ScalarKind::Ratio, _) => ScalarUnit::Ratio,
+        (ScalarKind::Flow, None) => {
+            problems.add(
+                unit_path,
+                "missing; give the unit the meter sends, e.g. \"kmol/h\" or \"Nm3/h\"",
+            );
+            ScalarUnit::Flow(crate::units::FlowUnit::KMOL_H)
+        }
+        (ScalarKind::Flow, Some(u)) => match crate::units::FlowUnit::parse(u) {
+            Ok(f) => ScalarUnit::Flow(f),
+            Err(e) => {
+                problems.add(unit_path, unit_message(&e));
+                ScalarUnit::Flow(crate::units::FlowUnit::KMOL_H)
+            }
+        },
     };
     let max_age = duration_at(
         problems,
@@ -297,6 +331,7 @@ fn plausible_range(
             .map_err(|e| e.to_string()),
         ScalarUnit::Ratio if v >= 0.0 && v.is_finite() => Ok(v),
         ScalarUnit::Ratio => Err(format!("{v} is not a ratio (0 or more)")),
+        ScalarUnit::Flow(f) => f.to_kmol_h(v).map_err(|e| e.to_string()),
     };
     match (convert(low), convert(high)) {
         (Ok(min), Ok(max)) if min < max => Plausible { min, max },

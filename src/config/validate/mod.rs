@@ -3,6 +3,7 @@
 
 pub(crate) mod bed;
 pub(crate) mod broker;
+pub(crate) mod context;
 pub(crate) mod inputs;
 pub(crate) mod reactor;
 pub(crate) mod watch;

@@ -201,6 +201,16 @@ pub(crate) fn reactor(
             &mut watch,
         )
     });
+    let (flows, flow_sources) = crate::config::validate::context::flows(problems, &path, &raw.flow);
+    if let Some(n) = &raw.normalise {
+        crate::config::validate::context::normalise(
+            problems,
+            &format!("{path}.normalise"),
+            raw,
+            n,
+            &mut watch,
+        );
+    }
     let bed_profile = raw.bed_profile.as_ref().and_then(|b| {
         crate::config::validate::bed::bed_profile(problems, &format!("{path}.bed_profile"), b)
     });
@@ -261,6 +271,7 @@ pub(crate) fn reactor(
             reaction_labels,
             bed_rise,
             bed_profile,
+            flows,
             clock: env.clock,
         },
         wiring: Wiring {
@@ -269,6 +280,7 @@ pub(crate) fn reactor(
             pressure: pressure_source,
             steam_ratio: steam_ratio_source,
             bed: bed_sources,
+            flows: flow_sources,
         },
     })
 }

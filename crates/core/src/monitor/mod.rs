@@ -96,6 +96,8 @@ pub enum Input {
     Component(usize, ScalarReading),
     /// Bed thermocouple number `.0` of the reactor's bed profile.
     BedTemperature(usize, ScalarReading),
+    /// Flow meter number `.0` of the reactor's flows (kmol/h).
+    Flow(usize, ScalarReading),
 }
 
 impl Input {
@@ -106,7 +108,8 @@ impl Input {
             | Input::Pressure(r)
             | Input::SteamRatio(r)
             | Input::Component(_, r)
-            | Input::BedTemperature(_, r) => r.ts_ms,
+            | Input::BedTemperature(_, r)
+            | Input::Flow(_, r) => r.ts_ms,
             Input::Analysis(a) => a.ts_ms,
         }
     }
@@ -157,6 +160,11 @@ pub struct Evaluation {
     /// (the bed inlet or outlet thermocouple missing at the sample time). Bed
     /// thermocouples never change the result's quality: they are not in the approach.
     pub bed_profile: Option<Result<crate::bedprofile::BedProfile, String>>,
+    /// Each configured flow at the sample time, kmol/h (None: stale, bad or implausible).
+    pub flows: Vec<Option<f64>>,
+    /// The normalisation's context inputs at the sample time, in the configured order
+    /// (None where the input has no usable value).
+    pub context: Vec<Option<f64>>,
 }
 
 /// What happened to an input.
@@ -187,6 +195,7 @@ const STUCK_REPEATS: u32 = 2;
 pub struct ReactorMonitor {
     temperatures: Vec<ScalarBuffer>,
     bed: Vec<ScalarBuffer>,
+    flows: Vec<ScalarBuffer>,
     pressure: ScalarBuffer,
     steam: ScalarBuffer,
     /// Per-component assembly: sample timestamp -> values.
@@ -213,6 +222,11 @@ impl ReactorMonitor {
                 .bed_profile
                 .iter()
                 .flat_map(|b| &b.thermocouples)
+                .map(|_| ScalarBuffer::new(BUFFER))
+                .collect(),
+            flows: settings
+                .flows
+                .iter()
                 .map(|_| ScalarBuffer::new(BUFFER))
                 .collect(),
             pressure: ScalarBuffer::new(BUFFER),
@@ -243,6 +257,10 @@ impl ReactorMonitor {
                 None => Outcome::TooOld,
             },
             Input::BedTemperature(i, r) => match self.bed.get_mut(i) {
+                Some(b) => store(b, r),
+                None => Outcome::TooOld,
+            },
+            Input::Flow(i, r) => match self.flows.get_mut(i) {
                 Some(b) => store(b, r),
                 None => Outcome::TooOld,
             },
@@ -331,6 +349,7 @@ impl ReactorMonitor {
         let temperatures = self.temperatures(&mut case, t_sample);
         self.check_transient(&mut case, t_sample, lag, temperatures.mean_k);
         let bed_profile = self.bed_profile(&mut case, t_sample);
+        let flows = self.flows(&mut case, t_sample);
         let (pressure_bar, steam_ratio) = self.pressure_and_steam(&mut case, t_sample);
         let comps = components(&mut case, a);
         let wet = wet_gas(&mut case, &comps, steam_ratio);
@@ -355,6 +374,8 @@ impl ReactorMonitor {
             approach_not_meaningful: false,
             bed_rise: None,
             bed_profile,
+            flows,
+            context: Vec::new(),
         };
         if let (Some(w), Some(t), Some(p)) = (&wet, temperatures.mean_k, pressure_bar) {
             let state = GasState {
@@ -367,6 +388,7 @@ impl ReactorMonitor {
             equilibrium_figures(&mut case, &state, &mut eval);
             key_figures(&mut case, w, temperatures.inlet_k, t, &mut eval);
         }
+        eval.context = context(spec, &eval, temperatures.inlet_k);
         eval.quality = case.found.worst();
         if eval.reactions.is_empty() {
             eval.quality = Quality::Bad;
@@ -604,6 +626,34 @@ impl ReactorMonitor {
                 tag(n.saturating_sub(1))
             )
         }))
+    }
+
+    /// Each flow meter at the sample time (bad, implausible and stale readings left out;
+    /// flows never change the result's quality).
+    fn flows(&self, case: &mut Case<'_>, t_sample: i64) -> Vec<Option<f64>> {
+        let mut out = Vec::with_capacity(case.spec.flows.len());
+        for (f, buffer) in case.spec.flows.iter().zip(&self.flows) {
+            let (value, age_ms, used) = match buffer.at(t_sample, ms(f.input.max_age)) {
+                Lookup::Value {
+                    value,
+                    quality,
+                    age_ms,
+                } => {
+                    let used = quality != SourceQuality::Bad && f.input.plausible.contains(value);
+                    (Some(value), Some(age_ms), used)
+                }
+                Lookup::Stale { .. } | Lookup::Empty => (None, None, false),
+            };
+            out.push(value.filter(|_| used));
+            case.inputs.push(InputUse {
+                tag: f.input.tag.clone(),
+                value,
+                unit: "kmol/h",
+                age_ms,
+                used,
+            });
+        }
+        out
     }
 
     /// Transient: the temperature moved faster than the threshold over the lag window.
@@ -1091,6 +1141,41 @@ fn key_figures(
         eval.bed_rise = crate::bedrise::rise_per_mol_percent(db, gas, 0.5 * (t_in + t))
             .map(|r| crate::bedrise::BedRise::new(t_in, t, r, b.inlet_co_co2));
     }
+}
+
+/// The normalisation's context inputs, in the configured order.
+fn context(spec: &ReactorSpec, eval: &Evaluation, inlet_k: Option<f64>) -> Vec<Option<f64>> {
+    use crate::monitor::spec::FlowStream;
+    use crate::monitor::watch::ContextInput;
+    let Some(n) = &spec.watch.drift.normalise else {
+        return Vec::new();
+    };
+    let flow = |stream: FlowStream| {
+        spec.flows
+            .iter()
+            .zip(&eval.flows)
+            .find(|(f, _)| f.stream == stream)
+            .and_then(|(_, v)| *v)
+    };
+    let bed_inlet = match &eval.bed_profile {
+        Some(Ok(p)) => Some(p.inlet_k),
+        _ => None,
+    };
+    n.inputs
+        .iter()
+        .map(|c| match c {
+            ContextInput::Throughput => {
+                if spec.flows.iter().any(|f| f.stream == FlowStream::InletDry) {
+                    flow(FlowStream::InletDry)
+                } else {
+                    flow(FlowStream::OutletDry)
+                }
+            }
+            ContextInput::SteamRatio => eval.steam_ratio,
+            ContextInput::InletTemperature => bed_inlet.or(inlet_k),
+            ContextInput::Pressure => eval.pressure_bar,
+        })
+        .collect()
 }
 
 /// A mole fraction for a message: ppm below 0.1 mol%, else mol%.

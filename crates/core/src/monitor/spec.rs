@@ -54,6 +54,8 @@ impl Plausible {
                 max: 400.0,
             },
             ScalarUnit::Ratio => Self { min: 0.0, max: 5.0 },
+            // Up to 100 000 kmol/h: beyond the largest single-train plants [common practice].
+            ScalarUnit::Flow(_) => Self { min: 0.0, max: 1e5 },
         }
     }
 
@@ -116,6 +118,37 @@ pub struct BedProfileSpec {
     pub thermocouples: Vec<(InputSpec, f64)>,
 }
 
+/// Which stream a flow meter measures.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FlowStream {
+    /// Dry gas into the reactor (the analysed inlet gas without its water).
+    InletDry,
+    /// Dry gas out of the reactor.
+    OutletDry,
+    /// Steam (water) into the reactor.
+    InletSteam,
+}
+
+impl FlowStream {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::InletDry => "inlet",
+            Self::OutletDry => "outlet",
+            Self::InletSteam => "steam",
+        }
+    }
+}
+
+/// A flow meter of the reactor.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FlowSpec {
+    pub input: InputSpec,
+    pub stream: FlowStream,
+    /// One standard deviation of the meter, as a fraction of the reading (for the
+    /// reconciliation's weights).
+    pub sigma_rel: f64,
+}
+
 /// One monitored reactor.
 #[derive(Debug, Clone)]
 pub struct ReactorSpec {
@@ -149,6 +182,8 @@ pub struct ReactorSpec {
     pub bed_rise: Option<BedRiseSpec>,
     /// Multipoint bed thermocouples, where configured.
     pub bed_profile: Option<BedProfileSpec>,
+    /// Flow meters (throughput for the normalised approach; the reconciliation's flows).
+    pub flows: Vec<FlowSpec>,
     /// How far from the receiving clock a reading's timestamp may be.
     pub clock: ClockWindow,
 }

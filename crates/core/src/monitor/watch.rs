@@ -98,6 +98,51 @@ pub struct DriftSettings {
     /// Bed profile: the front depth at which the catalyst is spent (m); the front's
     /// daily trend and its forecast run only where this is set.
     pub front_end_of_life_m: Option<f64>,
+    /// The statistics on the normalised approach (a start-of-run regression on the
+    /// operating conditions), where configured.
+    pub normalise: Option<NormaliseSpec>,
+}
+
+/// An operating condition the approach is normalised for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ContextInput {
+    /// The dry gas flow in (or, without an inlet meter, out), kmol/h.
+    Throughput,
+    /// The steam-to-dry-gas ratio used by the evaluation (measured).
+    SteamRatio,
+    /// The bed inlet temperature (the bed profile's first thermocouple, else the
+    /// bed-rise inlet), K.
+    InletTemperature,
+    /// Bar absolute.
+    Pressure,
+}
+
+impl ContextInput {
+    pub fn name(self) -> &'static str {
+        match self {
+            Self::Throughput => "throughput",
+            Self::SteamRatio => "steam_ratio",
+            Self::InletTemperature => "inlet_temperature",
+            Self::Pressure => "pressure",
+        }
+    }
+
+    pub fn unit(self) -> &'static str {
+        match self {
+            Self::Throughput => "kmol/h",
+            Self::SteamRatio => "mol/mol",
+            Self::InletTemperature => "K",
+            Self::Pressure => "bar abs",
+        }
+    }
+}
+
+/// The normalised approach: which conditions, and the regression's settings (learned
+/// over the baseline window).
+#[derive(Debug, Clone, PartialEq)]
+pub struct NormaliseSpec {
+    pub inputs: Vec<ContextInput>,
+    pub config: crate::normalise::Config,
 }
 
 impl Default for DriftSettings {
@@ -122,6 +167,7 @@ impl Default for DriftSettings {
             min_aggregates: 5,
             end_of_run_limit_k: None,
             front_end_of_life_m: None,
+            normalise: None,
         }
     }
 }
@@ -260,6 +306,10 @@ pub struct DriftSnapshot {
     pub bucket: Option<(i64, usize, f64)>,
     /// Closed aggregates: (day since the run start, mean approach K).
     pub aggregates: Vec<(f64, f64)>,
+    /// The bed front's daily means (day since the epoch, m).
+    pub front_daily: Vec<(i64, f64)>,
+    /// The normalisation of the run.
+    pub norm: Option<NormState>,
 }
 
 /// A level shift of at least the step size (see [`DriftSettings::step_min_k`]).
@@ -326,6 +376,10 @@ pub enum Exclusion {
     Transient,
     /// No finite approach to watch.
     NoApproach,
+    /// Normalised statistics: a context input has no usable value.
+    NoContext,
+    /// Normalised statistics: the conditions lie outside those the regression learned.
+    OutsideLearnedRange,
 }
 
 impl Exclusion {
@@ -336,12 +390,14 @@ impl Exclusion {
             Self::BadQuality => "bad_quality",
             Self::Transient => "transient",
             Self::NoApproach => "no_approach",
+            Self::NoContext => "no_context",
+            Self::OutsideLearnedRange => "outside_learned_range",
         }
     }
 }
 
 /// The drift figures after one evaluation.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct DriftFigures {
     /// Why the sample was left out of the statistics, if it was.
     pub excluded: Option<Exclusion>,
@@ -368,6 +424,36 @@ pub struct DriftFigures {
     /// daily figures are in; and the daily figures so far.
     pub front: Option<crate::bedprofile::FrontForecast>,
     pub front_days: usize,
+    /// The normalised approach, where configured.
+    pub normalised: Option<NormalisedFigures>,
+}
+
+/// Where the normalisation stands.
+#[derive(Debug, Clone, PartialEq)]
+pub enum NormState {
+    /// Learning over the start-of-run window.
+    Learning(crate::normalise::Learner),
+    /// Fitted: the statistics run on the normalised approach.
+    Ready(Box<crate::normalise::Model>),
+    /// The fit was refused (too few samples, collinear inputs): the statistics run on
+    /// the raw approach for this run, and this says why.
+    Unavailable(String),
+}
+
+/// The normalised approach of one sample and the regression behind it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NormalisedFigures {
+    /// `learning`, `ready` or `unavailable`.
+    pub state: &'static str,
+    /// Learning samples so far, and needed.
+    pub samples: u64,
+    pub min_samples: u64,
+    /// Why there is no fit (unavailable).
+    pub unavailable_because: Option<String>,
+    pub fit: Option<crate::normalise::Fit>,
+    /// This sample's figures; or why it has none.
+    pub sample: Option<crate::normalise::Normalised>,
+    pub refused: Option<String>,
 }
 
 /// An operator or engineer command.
@@ -459,6 +545,8 @@ pub struct ReactorWatch {
     /// worked out when a day completes.
     pub(crate) front: crate::bedprofile::FrontTrend,
     front_forecast: Option<crate::bedprofile::FrontForecast>,
+    /// The normalisation of this run (None until the first sample where configured).
+    pub(crate) norm: Option<NormState>,
 }
 
 fn alert_config(id: &str, limit: f64, direction: Direction, deadband: f64) -> AlarmConfig {
@@ -680,6 +768,139 @@ impl ReactorWatch {
             excluded: 0,
             front: crate::bedprofile::FrontTrend::default(),
             front_forecast: None,
+            norm: None,
+        }
+    }
+
+    /// The value the statistics take (the normalised approach once the regression is
+    /// fitted, else the raw approach), the exclusion after normalisation, and the figures
+    /// to publish. While learning, each usable sample with every context input teaches
+    /// the regression; the fit is made when the baseline window ends ([`Self::sample`]).
+    fn normalise(
+        &mut self,
+        s: &DriftSettings,
+        e: &Evaluation,
+        excluded: Option<Exclusion>,
+        approach: Option<f64>,
+    ) -> (Option<Exclusion>, Option<f64>, Option<NormalisedFigures>) {
+        let Some(spec) = &s.normalise else {
+            return (excluded, approach, None);
+        };
+        self.norm.get_or_insert_with(|| {
+            match crate::normalise::Learner::new(spec.config.clone()) {
+                Ok(l) => NormState::Learning(l),
+                Err(err) => NormState::Unavailable(err.to_string()),
+            }
+        });
+        let mut fig = NormalisedFigures {
+            state: "learning",
+            samples: 0,
+            min_samples: spec.config.min_samples,
+            unavailable_because: None,
+            fit: None,
+            sample: None,
+            refused: None,
+        };
+        let context: Option<Vec<f64>> = e.context.iter().copied().collect();
+        let missing = || {
+            spec.inputs
+                .iter()
+                .zip(&e.context)
+                .filter(|(_, v)| v.is_none())
+                .map(|(c, _)| c.name())
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
+        let closes = self.closes_baseline_window(s, e.sample_ts_ms);
+        let Some(state) = self.norm.as_mut() else {
+            return (excluded, approach, Some(fig));
+        };
+        match (state, excluded, approach) {
+            // The sample that closes the baseline window is not learned (nor is it in
+            // the baseline): it is the first the fit is made for.
+            (NormState::Learning(_), None, Some(_)) if closes => {}
+            (NormState::Learning(l), None, Some(a)) => match &context {
+                Some(x) => {
+                    if let Err(err) = l.learn(x, a) {
+                        fig.refused = Some(format!("not learned from: {err}"));
+                    }
+                }
+                None => fig.refused = Some(format!("not learned from: no usable {}", missing())),
+            },
+            (NormState::Ready(m), None, Some(a)) => {
+                let Some(x) = &context else {
+                    fig.refused = Some(format!("no usable {}", missing()));
+                    return (Some(Exclusion::NoContext), None, Some(fig));
+                };
+                match m.residual(x, a) {
+                    Ok(n) => {
+                        fig.sample = Some(n);
+                        return (None, Some(n.normalised), Some(fig));
+                    }
+                    Err(r) => {
+                        fig.refused = Some(r.to_string());
+                        return (Some(Exclusion::OutsideLearnedRange), None, Some(fig));
+                    }
+                }
+            }
+            _ => {}
+        }
+        (excluded, approach, Some(fig))
+    }
+
+    /// Whether a usable sample at `t` ends the learning of the baseline ([`Self::sample`]).
+    fn closes_baseline_window(&self, s: &DriftSettings, t: i64) -> bool {
+        match (s.baseline, self.baseline, self.run_start_ms) {
+            (
+                BaselineSpec::Learn {
+                    window_ms,
+                    min_samples,
+                },
+                None,
+                Some(start),
+            ) => t - start >= window_ms && self.learn_n >= min_samples,
+            _ => false,
+        }
+    }
+
+    /// Fills in the normalisation's state, sample count and fit.
+    fn describe_norm(&self, fig: &mut NormalisedFigures) {
+        match &self.norm {
+            Some(NormState::Learning(l)) => {
+                fig.state = "learning";
+                fig.samples = l.samples();
+            }
+            Some(NormState::Ready(m)) => {
+                fig.state = "ready";
+                fig.samples = m.fit().n;
+                fig.fit = Some(m.fit().clone());
+            }
+            Some(NormState::Unavailable(why)) => {
+                fig.state = "unavailable";
+                fig.unavailable_because = Some(why.clone());
+            }
+            None => {}
+        }
+    }
+
+    /// At the end of the baseline window: the regression's fit, and the baseline of the
+    /// normalised approach (its mean over the window is the reference approach and its
+    /// spread the residual standard error). `None`: no normalisation, or it failed.
+    fn fit_normalisation(&mut self) -> Option<(f64, f64)> {
+        let Some(NormState::Learning(l)) = &self.norm else {
+            return None;
+        };
+        match l.freeze() {
+            Ok(m) => {
+                let f = m.fit();
+                let baseline = (f.reference_approach, f.residual_sd);
+                self.norm = Some(NormState::Ready(Box::new(m)));
+                Some(baseline)
+            }
+            Err(err) => {
+                self.norm = Some(NormState::Unavailable(err.to_string()));
+                None
+            }
         }
     }
 
@@ -732,6 +953,7 @@ impl ReactorWatch {
             limit_k: s.end_of_run_limit_k,
             front: self.front_forecast,
             front_days: self.front.len(),
+            normalised: None,
         }
     }
 
@@ -844,7 +1066,8 @@ impl ReactorWatch {
             self.last_good_ms = Some(t.max(self.last_good_ms.unwrap_or(i64::MIN)));
             self.paused_ms = 0;
         }
-        if let (None, Some(x)) = (excluded, approach) {
+        let (excluded, value, normalised) = self.normalise(&s.drift, e, excluded, approach);
+        if let (None, Some(x)) = (excluded, value) {
             self.sample(&s.drift, t, x);
         } else {
             self.excluded += 1;
@@ -854,6 +1077,11 @@ impl ReactorWatch {
         }
         let mut fig = self.figures(&s.drift);
         fig.excluded = excluded;
+        fig.normalised = normalised.map(|mut n| {
+            // The state after this sample (the fit may have been made by it).
+            self.describe_norm(&mut n);
+            n
+        });
         // Feed the state machines.
         let usable = excluded.is_none();
         for i in 0..self.watched.len() {
@@ -1049,7 +1277,8 @@ impl ReactorWatch {
                         } else {
                             0.0
                         };
-                        self.set_baseline(s, self.learn_mean, sd, false, start);
+                        let (mean, sd) = self.fit_normalisation().unwrap_or((self.learn_mean, sd));
+                        self.set_baseline(s, mean, sd, false, start);
                     }
                 }
             }
@@ -1237,6 +1466,8 @@ impl ReactorWatch {
             step_reference_k: self.step_reference_k,
             bucket: self.bucket.as_ref().map(|b| (b.start_ms, b.n, b.sum)),
             aggregates: self.aggregates.clone(),
+            front_daily: self.front.daily().collect(),
+            norm: self.norm.clone(),
         }
     }
 
@@ -1281,6 +1512,18 @@ impl ReactorWatch {
             .bucket
             .map(|(start_ms, n, sum)| Bucket { start_ms, n, sum });
         self.aggregates = snap.aggregates.clone();
+        self.front = crate::bedprofile::FrontTrend::from_daily(snap.front_daily.iter().copied());
+        self.front_forecast = s
+            .front_end_of_life_m
+            .and_then(|eol| self.front.forecast(eol));
+        // A normalisation saved under other context inputs is not used (the settings
+        // text check starts a new run in that case anyway).
+        self.norm = snap.norm.clone().filter(|n| match (n, &s.normalise) {
+            (NormState::Learning(l), Some(spec)) => l.config() == &spec.config,
+            (NormState::Ready(m), Some(spec)) => m.config() == &spec.config,
+            (NormState::Unavailable(_), Some(_)) => true,
+            (_, None) => false,
+        });
         if let Some(start) = self.run_start_ms {
             self.refit(s, start);
         }
@@ -1345,6 +1588,7 @@ impl ReactorWatch {
         self.forecast = None;
         self.front.clear();
         self.front_forecast = None;
+        self.norm = None;
     }
 
     /// Carries out a command from `by`; returns a message for the outcome and the events.
@@ -1543,6 +1787,8 @@ mod tests {
             approach_not_meaningful: false,
             bed_rise: None,
             bed_profile: None,
+            flows: Vec::new(),
+            context: Vec::new(),
         }
     }
 
@@ -1578,6 +1824,122 @@ mod tests {
                 )
             })
             .collect()
+    }
+
+    /// Settings for the normalised statistics on one context input (throughput).
+    fn normalised_settings() -> WatchSettings {
+        WatchSettings {
+            drift: DriftSettings {
+                baseline: BaselineSpec::Learn {
+                    window_ms: 2 * D,
+                    min_samples: 20,
+                },
+                normalise: Some(NormaliseSpec {
+                    inputs: vec![ContextInput::Throughput],
+                    config: crate::normalise::Config::new(vec![crate::normalise::Input::new(
+                        "throughput",
+                        "kmol/h",
+                    )]),
+                }),
+                ..DriftSettings::default()
+            },
+            ..WatchSettings::default()
+        }
+    }
+
+    #[test]
+    fn normalised_statistics_learn_the_throughput_response_and_refuse_to_extrapolate() {
+        // Invented: approach = 8 K + 0.004 K per kmol/h above 2400 kmol/h, exactly; the
+        // throughput swings 2300–2500 kmol/h over the 2-day learning window (hourly).
+        let s = normalised_settings();
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let truth = |f: f64| 8.0 + 0.004 * (f - 2400.0);
+        let flow = |h: i64| 2400.0 + 100.0 * ((h as f64) * 0.7).sin();
+        let mut fig = None;
+        for h in 0..48 {
+            let t = h * H;
+            let mut e = eval(t, Some(truth(flow(h))), Quality::Good, None);
+            e.context = vec![Some(flow(h))];
+            fig = Some(w.observe(&s, &e, t).0);
+        }
+        let n = fig.unwrap().normalised.unwrap();
+        assert_eq!(n.state, "learning");
+        // The first sample after the window fits the regression: slope 0.004 exactly
+        // (no noise), the baseline is the reference approach with σ at its floor.
+        let t = 48 * H;
+        let mut e = eval(t, Some(truth(2450.0) + 0.5), Quality::Good, None);
+        e.context = vec![Some(2450.0)];
+        let (fig, _) = w.observe(&s, &e, t);
+        let n = fig.normalised.clone().unwrap();
+        assert_eq!(n.state, "ready");
+        let fit = n.fit.unwrap();
+        assert!((fit.coefficients[0].value - 0.004).abs() < 1e-9, "{fit:?}");
+        let b = fig.baseline.unwrap();
+        assert!((b.approach_k - fit.reference_approach).abs() < 1e-12);
+        assert_eq!(b.sigma_k, DriftSettings::default().sigma_floor_k);
+        // After the fit, the statistics take the normalised approach: +0.5 K above what
+        // 2450 kmol/h explains is +0.5 K above the reference, whatever the throughput.
+        let t = 50 * H;
+        let mut e = eval(t, Some(truth(2350.0) + 0.5), Quality::Good, None);
+        e.context = vec![Some(2350.0)];
+        let (fig, _) = w.observe(&s, &e, t);
+        let x = fig.normalised.as_ref().unwrap().sample.unwrap();
+        assert!((x.residual - 0.5).abs() < 1e-9);
+        assert!((x.normalised - (fit.reference_approach + 0.5)).abs() < 1e-9);
+        assert_eq!(fig.excluded, None);
+        // A rate cut to 2000 kmol/h lies far outside 2300–2500: no normalised figure, the
+        // sample stays out of the statistics and the refusal names the input.
+        let t = 51 * H;
+        let mut e = eval(t, Some(truth(2000.0)), Quality::Good, None);
+        e.context = vec![Some(2000.0)];
+        let (fig, _) = w.observe(&s, &e, t);
+        assert_eq!(fig.excluded, Some(Exclusion::OutsideLearnedRange));
+        let refused = fig.normalised.unwrap().refused.unwrap();
+        assert!(refused.contains("throughput"), "{refused}");
+        // A missing throughput: left out, saying which input is missing.
+        let t = 52 * H;
+        let mut e = eval(t, Some(8.0), Quality::Good, None);
+        e.context = vec![None];
+        let (fig, _) = w.observe(&s, &e, t);
+        assert_eq!(fig.excluded, Some(Exclusion::NoContext));
+        assert!(
+            fig.normalised
+                .unwrap()
+                .refused
+                .unwrap()
+                .contains("throughput")
+        );
+        // The saved run carries the fitted regression; restored, it normalises the same.
+        let snap = w.drift_snapshot();
+        let mut again = ReactorWatch::new(&s).unwrap();
+        assert!(again.restore_drift(&s.drift, &snap));
+        let t = 53 * H;
+        let mut e = eval(t, Some(truth(2350.0) + 0.5), Quality::Good, None);
+        e.context = vec![Some(2350.0)];
+        let (fig, _) = again.observe(&s, &e, t);
+        let y = fig.normalised.unwrap().sample.unwrap();
+        assert!((y.normalised - x.normalised).abs() < 1e-9);
+    }
+
+    #[test]
+    fn a_failed_normalisation_falls_back_to_the_raw_approach_and_says_why() {
+        // Invented: the throughput never moves in the learning window, so the regression
+        // has no spread to learn from; the statistics run on the raw approach.
+        let s = normalised_settings();
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let mut last = None;
+        for h in 0..=49 {
+            let t = h * H;
+            let mut e = eval(t, Some(8.0 + 0.01 * (h % 3) as f64), Quality::Good, None);
+            e.context = vec![Some(2400.0)];
+            last = Some(w.observe(&s, &e, t).0);
+        }
+        let fig = last.unwrap();
+        let n = fig.normalised.unwrap();
+        assert_eq!(n.state, "unavailable");
+        assert!(n.unavailable_because.unwrap().contains("throughput"));
+        assert!((fig.baseline.unwrap().approach_k - 8.01).abs() < 0.01);
+        assert_eq!(fig.excluded, None);
     }
 
     #[test]
