@@ -117,6 +117,26 @@ pub(crate) struct RawReactor {
     #[serde(default)]
     pub flow: Vec<RawFlow>,
     pub normalise: Option<RawNormalise>,
+    /// The inlet analyser (the same keys as `composition`; one message per analysis).
+    pub inlet_composition: Option<RawComposition>,
+    pub reconcile: Option<RawReconcile>,
+}
+
+/// `[reactors.<id>.reconcile]`: element balances across the reactor and their
+/// weighted least-squares reconciliation.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawReconcile {
+    /// One standard deviation of an analysed fraction, e.g. `"1 %"` of the reading
+    /// (default 1 %) ...
+    pub analyser_uncertainty: Option<String>,
+    /// ... but never below this, e.g. `"0.02 mol%"` (default).
+    pub analyser_floor: Option<String>,
+    /// Overall significance of the gross error tests, e.g. `"5 %"` (default).
+    pub significance: Option<String>,
+    /// The `gross-error` alert: results in a row failing the global test (default 3;
+    /// 0 = no alert).
+    pub alert_after: Option<i64>,
 }
 
 /// `[[reactors.<id>.flow]]`: a flow meter: the scalar input keys, which stream it

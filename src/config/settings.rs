@@ -235,6 +235,8 @@ pub struct Wiring {
     pub bed: Vec<ScalarSource>,
     /// The flow meters (same order as the spec's flows).
     pub flows: Vec<ScalarSource>,
+    /// The inlet analyser of the reconciliation.
+    pub inlet_composition: Option<CompositionSource>,
 }
 
 /// One configured reactor: what the monitor needs ([`ReactorSpec`]) and where its

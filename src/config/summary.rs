@@ -367,6 +367,28 @@ fn input_rows(rows: &mut Rows, species: &SpeciesDb, spec: &ReactorSpec, wiring: 
             );
         }
     }
+    if let Some(rc) = &spec.reconcile {
+        rows.row(
+            "  inlet",
+            format!(
+                "{}: {} ({} basis), lag {}, stale after {}",
+                rc.inlet.tag,
+                rc.inlet.components.join(", "),
+                rc.inlet.basis.as_str(),
+                show_duration(rc.inlet.lag),
+                show_duration(rc.inlet.max_age)
+            ),
+        );
+        rows.row(
+            "  reconcile",
+            format!(
+                "element balances, weighted least squares; analysers ± {} % (at least {} mol%), global and measurement tests at {} %",
+                show_number(100.0 * rc.analyser_sigma_rel),
+                show_number(100.0 * rc.analyser_sigma_floor),
+                show_number(100.0 * rc.options.alpha)
+            ),
+        );
+    }
     for (f, source) in spec.flows.iter().zip(&wiring.flows) {
         rows.row(
             "  flow",
@@ -485,6 +507,9 @@ fn summary_lines(watch: &WatchSettings) -> Vec<(&'static str, String)> {
     }
     if a.self_monitoring && !watch.alarms.is_empty() {
         alerts.push("chattering and stale alarms".into());
+    }
+    if let Some(n) = a.gross_error_samples {
+        alerts.push(format!("gross error ({n} failed balances in a row)"));
     }
     out.push((
         "  alerts",

@@ -210,6 +210,8 @@ enum Kind {
     BedTemperature(usize),
     /// lts1's flow meter number `.0` of [`LTS_FLOWS`] (kmol/h, JSON).
     Flow(usize),
+    /// lts1's inlet analyser (one JSON message, dry mol %).
+    InletAnalyser,
     Pressure,
     /// Steam-to-dry-gas ratio as a bare number.
     RatioBare,
@@ -564,7 +566,9 @@ impl Plant {
         let mut add = |topic: &str, kind: Kind, reactor: &str, period_s: f64| {
             if let Some(ri) = self.reactors.iter().position(|r| r.id == reactor) {
                 let delay_s = match kind {
-                    Kind::Analyser | Kind::AnalyserPerComponent => ANALYSER_DELAY_S,
+                    Kind::Analyser | Kind::AnalyserPerComponent | Kind::InletAnalyser => {
+                        ANALYSER_DELAY_S
+                    }
                     _ => 0.0,
                 };
                 v.push(Instrument {
@@ -594,6 +598,7 @@ impl Plant {
             let topic = format!("baw1/lts1/{}", tag.trim_start_matches("BAW1-"));
             add(&topic, Kind::BedTemperature(j), "lts1", 10.0);
         }
+        add("baw1/lts1/AI-300", Kind::InletAnalyser, "lts1", GC_CYCLE_S);
         for (j, tag) in LTS_FLOWS.iter().enumerate() {
             let topic = format!("baw1/lts1/{}", tag.trim_start_matches("BAW1-"));
             add(&topic, Kind::Flow(j), "lts1", 10.0);
@@ -660,6 +665,7 @@ impl Plant {
             }
             Kind::Pressure => self.render_pressure(&sample, out),
             Kind::Flow(j) => self.render_flow(&sample, j, out),
+            Kind::InletAnalyser => self.render_inlet_analysis(&sample, out),
             Kind::RatioBare | Kind::RatioJson => self.render_ratio(&sample, out),
             Kind::Analyser | Kind::AnalyserPerComponent => self.render_analyser(&sample, out),
         }
@@ -717,6 +723,27 @@ impl Plant {
                 fixed(v, 1)
             ),
             false,
+        ));
+    }
+
+    /// lts1's inlet analysis (its feed, with analyser noise; no drift in the live demo).
+    fn render_inlet_analysis(&self, sample: &Sample, out: &mut Vec<SimMessage>) {
+        let inst = &self.instruments[sample.inst];
+        let r = &self.reactors[inst.reactor];
+        let values = lts_inlet_analysis(r, -1.0, |c| self.noise(sample.inst, sample.k, c as u64));
+        let body: Vec<String> = LTS_INLET_COMPONENTS
+            .iter()
+            .zip(&values)
+            .map(|(name, v)| format!("\"{name}\":{}", fixed(*v, 4)))
+            .collect();
+        out.push(message(
+            inst.topic.clone(),
+            format!(
+                "{{\"ts\":{},\"values\":{{{}}},\"unit\":\"mol%\",\"basis\":\"dry\",\"quality\":\"good\"}}",
+                sample.ts_ms,
+                body.join(",")
+            ),
+            true,
         ));
     }
 
@@ -1073,6 +1100,8 @@ Days count from the start (day 0 is the first day); times of day are UTC.
   all year       mth1: kinetic CO slip ~1.8 ppm dry (CO2 ~0.9 ppm), far above equilibrium
   day 150 10:00  mth1: CO breakthrough, outlet CO ~9 ppm for 6 h
   day 200        ref1: analyser AI-101 out of service all day (empty cells)
+  day 240-270    lts1: inlet analyser AI-300 CO reads high, a calibration drift growing to +10 % of
+                 reading by day 270, when it is recalibrated (the outlet analysis is right)
   day 249-252    lts1: thermocouple TI-305B failed from day 249 14:00 to day 252 14:00 (empty cells)
   day 300 06:00  plant trip, 3-day shutdown: no analyses and no steam ratios; temperatures fall
                  towards 40 degC and pressures towards 0 barg; restart day 303 06:00, back on line
@@ -1308,6 +1337,8 @@ struct HistoryTags {
     bed: &'static [(&'static str, f64)],
     /// Flow meters: dry gas in, dry gas out, steam in (kmol/h).
     flows: &'static [&'static str],
+    /// The inlet analyser (dry, [`LTS_INLET_COMPONENTS`]), where there is one.
+    inlet_analyser: Option<&'static str>,
     temperatures: &'static [&'static str],
     pressure: &'static str,
     /// Measured steam ratio, if the configuration has one.
@@ -1322,6 +1353,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
         reactor: "ref1",
         bed: &[],
         flows: &[],
+        inlet_analyser: None,
         temperatures: &["BAW1-TI-105A", "BAW1-TI-105B"],
         pressure: "BAW1-PI-102",
         steam_ratio: Some("BAW1-FY-110"),
@@ -1332,6 +1364,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
         reactor: "hts1",
         bed: &[],
         flows: &[],
+        inlet_analyser: None,
         temperatures: &["BAW1-TI-205"],
         pressure: "BAW1-PI-202",
         steam_ratio: None,
@@ -1342,6 +1375,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
         reactor: "lts1",
         bed: &LTS_BED,
         flows: &LTS_FLOWS,
+        inlet_analyser: Some(LTS_INLET_ANALYSER),
         temperatures: &["BAW1-TI-305A", "BAW1-TI-305B"],
         pressure: "BAW1-PI-302",
         steam_ratio: Some("BAW1-FY-310"),
@@ -1352,6 +1386,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
         reactor: "mth1",
         bed: &[],
         flows: &[],
+        inlet_analyser: None,
         temperatures: &["BAW1-TI-405", "BAW1-TI-401"],
         pressure: "BAW1-PI-402",
         steam_ratio: None,
@@ -1362,6 +1397,7 @@ const HISTORY_TAGS: [HistoryTags; 5] = [
         reactor: "amc1",
         bed: &[],
         flows: &[],
+        inlet_analyser: None,
         temperatures: &["BAW1-TI-505"],
         pressure: "BAW1-PI-502",
         steam_ratio: None,
@@ -1388,6 +1424,44 @@ pub const LTS_DEAD_LAYER_M: f64 = 0.30;
 pub const LTS_DEAD_LAYER_M_PER_DAY: f64 = 0.00268;
 /// The live demo's compressed pace of the same, m per simulated hour.
 const LTS_DEMO_DEAD_LAYER_M_PER_H: f64 = 0.2;
+/// lts1's inlet analyser and its components (dry, in the feed's order).
+pub const LTS_INLET_ANALYSER: &str = "BAW1-AI-300";
+pub const LTS_INLET_COMPONENTS: [&str; 6] = ["H2", "N2", "CO", "CO2", "CH4", "Ar"];
+/// lts1: the inlet analyser's CO reads high by a calibration drift growing linearly to
+/// 10 % of reading from day 240 to day 270, when it is recalibrated (invented).
+pub const LTS_INLET_CO_DRIFT_S: (f64, f64) = (240.0 * DAY_S, 270.0 * DAY_S);
+pub const LTS_INLET_CO_DRIFT_REL: f64 = 0.10;
+
+/// The relative error of the inlet CO reading at `t_s` (the calibration drift).
+pub fn lts_inlet_co_drift(t_s: f64) -> f64 {
+    let (a, b) = LTS_INLET_CO_DRIFT_S;
+    if t_s >= a && t_s < b {
+        LTS_INLET_CO_DRIFT_REL * (t_s - a) / (b - a)
+    } else {
+        0.0
+    }
+}
+
+/// lts1's inlet analysis (dry mol %, [`LTS_INLET_COMPONENTS`] order) from its feed, with
+/// relative noise from `noise(c)` for component `c` and the CO drift at `t_s`; normalised
+/// to 100 % as the analyser reports.
+fn lts_inlet_analysis(r: &Reactor, t_s: f64, noise: impl Fn(usize) -> f64) -> Vec<f64> {
+    let raw: Vec<f64> = (0..LTS_INLET_COMPONENTS.len())
+        .map(|c| {
+            let drift = if LTS_INLET_COMPONENTS[c] == "CO" {
+                lts_inlet_co_drift(t_s)
+            } else {
+                0.0
+            };
+            r.feed.get(c).copied().unwrap_or(0.0)
+                * (1.0 + drift)
+                * (1.0 + ANALYSER_NOISE_REL * noise(c))
+        })
+        .collect();
+    let sum: f64 = raw.iter().sum();
+    raw.iter().map(|y| 100.0 * y / sum).collect()
+}
+
 /// lts1's flow meters: dry gas in, dry gas out, steam in (kmol/h).
 pub const LTS_FLOWS: [&str; 3] = ["BAW1-FI-301", "BAW1-FI-302", "BAW1-FI-303"];
 /// lts1: dry gas in at full rate, kmol/h (invented).
@@ -1445,6 +1519,7 @@ pub fn lts_bed_fraction(depth_m: f64, dead_m: f64) -> f64 {
 const CH_TEMPERATURE: u64 = 0; // + thermocouple number
 const CH_BED: u64 = 56; // + bed thermocouple number
 const CH_FLOW: u64 = 64; // + flow meter number
+const CH_INLET: u64 = 72; // + inlet analyser component number
 const CH_PRESSURE: u64 = 8;
 const CH_STEAM_RATIO: u64 = 9;
 const CH_ANALYSER: u64 = 16; // + component number
@@ -1542,6 +1617,10 @@ impl History {
                 }
             }
             v.push(format!("{}.quality", tags.analyser));
+            if let Some(a) = tags.inlet_analyser {
+                v.extend(LTS_INLET_COMPONENTS.iter().map(|c| format!("{a}.{c}")));
+                v.push(format!("{a}.quality"));
+            }
         }
         v
     }
@@ -1808,6 +1887,27 @@ impl History {
                 st.analyses += 1;
                 if calibrating {
                     out.push_str("bad");
+                }
+            }
+            if tags.inlet_analyser.is_some() {
+                // The inlet analysis of the same sample, when the plant runs.
+                let inlet = sample
+                    .filter(|n| plant_phase(*n as f64 * GC_CYCLE_S) == PlantPhase::Running)
+                    .map(|n| {
+                        lts_inlet_analysis(r, n as f64 * GC_CYCLE_S, |c| {
+                            self.noise(tags.stream, CH_INLET + c as u64, n)
+                        })
+                    });
+                for c in 0..LTS_INLET_COMPONENTS.len() {
+                    out.push(',');
+                    if let Some(v) = inlet.as_ref().and_then(|v| v.get(c)) {
+                        push_significant(out, *v, 4);
+                        st.values += 1;
+                    }
+                }
+                out.push(',');
+                if inlet.is_some() {
+                    st.analyses += 1;
                 }
             }
         }

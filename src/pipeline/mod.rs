@@ -152,6 +152,134 @@ mod tests {
         assert!(v["quality"].is_string(), "{v}");
     }
 
+    /// lts1's inputs for one sample at `t` (invented, consistent across the bed): outlet
+    /// dry mol % H2 60.9, N2 18.9, CO 0.29, CO2 19.31, CH4 0.3, Ar 0.3 at 2500 kmol/h
+    /// dry with 900 kmol/h water; the inlet is that gas with a shift extent of 70 kmol/h
+    /// reversed (derived by hand: CO +70, CO2 −70, H2 −70, H2O +70 kmol/h), i.e. 2430
+    /// kmol/h dry of H2 1452.5, N2 472.5, CO 77.25, CO2 412.75, CH4 7.5, Ar 7.5 kmol/h
+    /// with 970 kmol/h steam. `inlet_co_scale` multiplies the inlet analyser's CO.
+    fn lts1_sample(e: &mut Engine, t: i64, inlet_co_scale: f64) -> Vec<Append> {
+        let scalar = |v: f64, unit: &str| format!(r#"{{"ts":{t},"value":{v},"unit":"{unit}"}}"#);
+        let mut inputs = vec![
+            ("baw1/lts1/TI-305A", scalar(220.0, "degC")),
+            ("baw1/lts1/TI-305B", scalar(220.2, "degC")),
+            ("baw1/lts1/PI-302", scalar(28.0, "barg")),
+            ("baw1/lts1/FY-310", format!(r#"{{"ts":{t},"value":0.36}}"#)),
+            ("baw1/lts1/FI-301", scalar(2430.0, "kmol/h")),
+            ("baw1/lts1/FI-302", scalar(2500.0, "kmol/h")),
+            ("baw1/lts1/FI-303", scalar(970.0, "kmol/h")),
+        ];
+        // Bed thermocouples 0 to 3.2 m: a 22 K rise, most of it in the top metre.
+        for (tag, c) in [
+            ("A", 198.0),
+            ("B", 214.0),
+            ("C", 218.8),
+            ("D", 219.8),
+            ("E", 220.0),
+        ] {
+            inputs.push((
+                match tag {
+                    "A" => "baw1/lts1/TI-306A",
+                    "B" => "baw1/lts1/TI-306B",
+                    "C" => "baw1/lts1/TI-306C",
+                    "D" => "baw1/lts1/TI-306D",
+                    _ => "baw1/lts1/TI-306E",
+                },
+                scalar(c, "degC"),
+            ));
+        }
+        for (topic, payload) in &inputs {
+            send(e, topic, payload, t);
+        }
+        let pct = |kmol: f64, total: f64| 100.0 * kmol / total;
+        let co = pct(77.25, 2430.0) * inlet_co_scale;
+        let inlet = format!(
+            r#"{{"ts":{},"values":{{"H2":{},"N2":{},"CO":{co},"CO2":{},"CH4":{},"Ar":{}}},"unit":"mol%"}}"#,
+            t + 60_000,
+            pct(1452.5, 2430.0),
+            pct(472.5, 2430.0),
+            pct(412.75, 2430.0),
+            pct(7.5, 2430.0),
+            pct(7.5, 2430.0),
+        );
+        send(e, "baw1/lts1/AI-300", &inlet, t + 60_000);
+        let outlet = format!(
+            r#"{{"ts":{},"values":{{"H2":60.9,"N2":18.9,"CO":0.29,"CO2":19.31,"CH4":0.3,"Ar":0.3}},"unit":"mol%"}}"#,
+            t + 60_000
+        );
+        send(e, "baw1/lts1/AI-301", &outlet, t + 60_000)
+    }
+
+    fn lts1_result(out: &[Append]) -> Value {
+        let r = out
+            .iter()
+            .find(|a| a.topic.ends_with("lts1/result"))
+            .expect("an lts1 result");
+        json(r)
+    }
+
+    #[test]
+    fn consistent_inlet_and_outlet_reconcile_and_a_drifting_analyser_is_named() {
+        let (mut e, _m) = engine();
+        let v = lts1_result(&lts1_sample(&mut e, T0_MS, 1.0));
+        let rc = &v["reconciliation"];
+        assert_eq!(rc["available"], true, "{rc}");
+        // Balanced by construction: every element closes before and after.
+        for el in rc["elements"].as_array().expect("elements") {
+            let before = el["imbalance_pct_measured"].as_f64().expect("number");
+            assert!(before.abs() < 1e-6, "{el}");
+            assert!(
+                el["imbalance_pct_reconciled"]
+                    .as_f64()
+                    .expect("number")
+                    .abs()
+                    < 1e-9
+            );
+        }
+        assert_eq!(rc["global_test"]["passed"], true);
+        assert!(rc["suspect"].is_null());
+        // The reconciled gas is the measured one: the same approach.
+        let raw = v["reactions"][0]["approach_k"].as_f64().expect("approach");
+        let rec = rc["approach_k"][0].as_f64().expect("reconciled approach");
+        assert!((raw - rec).abs() < 1e-3, "{raw} vs {rec}");
+        // The reconciled outlet S/D is the 900/2500 of the construction.
+        assert!((rc["steam_ratio_out"].as_f64().expect("S/D") - 0.36).abs() < 1e-6);
+        // The bed profile of the same sample: 22 K rise, the front in the top metre.
+        let bed = &v["bed_profile"];
+        assert!(
+            (bed["rise_k"].as_f64().expect("rise") - 22.0).abs() < 1e-9,
+            "{bed}"
+        );
+        let front = bed["front_depth_m"].as_f64().expect("front");
+        assert!(front > 0.8 && front < 1.6, "{front}");
+
+        // Inlet CO reading 20 % high (an invented calibration error): the balances fail
+        // and the measurement test names the inlet analyser's CO.
+        let v = lts1_result(&lts1_sample(&mut e, T0_MS + 300_000, 1.2));
+        let rc = &v["reconciliation"];
+        assert_eq!(rc["global_test"]["passed"], false, "{rc}");
+        let mut named: Vec<String> = vec![rc["suspect"].as_str().unwrap_or("").to_string()];
+        for t in rc["suspect_equivalents"].as_array().into_iter().flatten() {
+            named.push(t.as_str().unwrap_or("").to_string());
+        }
+        assert!(named.iter().any(|t| t == "BAW1-AI-300 CO"), "{rc}");
+    }
+
+    #[test]
+    fn a_gross_error_three_results_in_a_row_raises_the_alert_and_no_sooner() {
+        let (mut e, _m) = engine();
+        let mut raised = Vec::new();
+        for k in 0..4 {
+            let out = lts1_sample(&mut e, T0_MS + k * 300_000, 1.2);
+            raised.push(out.iter().any(|a| {
+                a.topic.ends_with("lts1/alert")
+                    && a.payload.contains("\"gross-error\"")
+                    && a.payload.contains("\"raised\"")
+            }));
+        }
+        assert_eq!(raised, vec![false, false, true, false]);
+    }
+
     #[test]
     fn commands_end_in_a_typed_verdict_with_an_outcome_and_a_counter() {
         let (mut e, m) = engine();

@@ -21,6 +21,7 @@ pub(crate) enum Route {
     Command(usize),
     BedTemperature(usize, usize),
     Flow(usize, usize),
+    InletAnalysis(usize),
 }
 
 /// Topic → routes for every input and command topic of the configuration.
@@ -31,6 +32,11 @@ pub(crate) fn routes(s: &Settings) -> HashMap<String, Vec<Route>> {
             m.entry(t.topic.clone())
                 .or_default()
                 .push(Route::Temperature(r, i));
+        }
+        if let Some(CompositionSource::Analyser { topic, .. }) = &rs.wiring.inlet_composition {
+            m.entry(topic.clone())
+                .or_default()
+                .push(Route::InletAnalysis(r));
         }
         for (i, t) in rs.wiring.flows.iter().enumerate() {
             m.entry(t.topic.clone())
@@ -192,6 +198,11 @@ pub(crate) fn decode(
                     .map(|v| Input::Component(c, v)),
             )
         }
+        Route::InletAnalysis(r) => (
+            r,
+            wire::input::decode_inlet_analysis(&raw.payload, &s.reactors[r], raw.arrival_ms)
+                .map(Input::InletAnalysis),
+        ),
         Route::Command(r) => (r, Err(DecodeError::Missing("(command)".into()))),
     }
 }

@@ -29,9 +29,12 @@ pub(super) enum Column {
         reactor: usize,
         index: usize,
         per_fraction: f64,
+        /// The reconciliation's inlet analyser (else the outlet one).
+        inlet: bool,
     },
     AnalyserQuality {
         reactor: usize,
+        inlet: bool,
     },
 }
 
@@ -57,6 +60,8 @@ pub(super) struct Layout {
     columns: Vec<Column>,
     reactors: usize,
     components: Vec<usize>,
+    /// Components of each reactor's inlet analyser (0 without one).
+    inlet_components: Vec<usize>,
 }
 
 pub(super) fn names(s: &Settings) -> HashMap<String, Column> {
@@ -103,13 +108,38 @@ pub(super) fn names(s: &Settings) -> HashMap<String, Column> {
                     reactor: r,
                     index: i,
                     per_fraction: c.unit.fraction_per_unit(),
+                    inlet: false,
                 },
             );
         }
         m.insert(
             format!("{}.quality", c.tag),
-            Column::AnalyserQuality { reactor: r },
+            Column::AnalyserQuality {
+                reactor: r,
+                inlet: false,
+            },
         );
+        if let Some(rc) = &rs.spec.reconcile {
+            let c = &rc.inlet;
+            for (i, sp) in c.components.iter().enumerate() {
+                m.insert(
+                    format!("{}.{sp}", c.tag),
+                    Column::Component {
+                        reactor: r,
+                        index: i,
+                        per_fraction: c.unit.fraction_per_unit(),
+                        inlet: true,
+                    },
+                );
+            }
+            m.insert(
+                format!("{}.quality", c.tag),
+                Column::AnalyserQuality {
+                    reactor: r,
+                    inlet: true,
+                },
+            );
+        }
     }
     m
 }
@@ -199,21 +229,28 @@ pub(super) fn read_header(s: &Settings, header: &str, line: usize) -> Result<Lay
                     unit_override: Some(over),
                 }
             }
-            (Column::Component { reactor, index, .. }, Some(u)) => {
-                match CompositionUnit::parse(u) {
-                    Ok(cu) => Column::Component {
-                        reactor,
-                        index,
-                        per_fraction: cu.fraction_per_unit(),
-                    },
-                    Err(_) => {
-                        return Err(err(format!(
-                            "column {} \"{name}\": unit \"{u}\" is not a composition unit (mol%, ppm, fraction, ...)",
-                            i + 1
-                        )));
-                    }
+            (
+                Column::Component {
+                    reactor,
+                    index,
+                    inlet,
+                    ..
+                },
+                Some(u),
+            ) => match CompositionUnit::parse(u) {
+                Ok(cu) => Column::Component {
+                    reactor,
+                    index,
+                    per_fraction: cu.fraction_per_unit(),
+                    inlet,
+                },
+                Err(_) => {
+                    return Err(err(format!(
+                        "column {} \"{name}\": unit \"{u}\" is not a composition unit (mol%, ppm, fraction, ...)",
+                        i + 1
+                    )));
                 }
-            }
+            },
             (_, Some(u)) => {
                 return Err(err(format!(
                     "column {} \"{name}\" takes no unit (got \"{u}\")",
@@ -233,6 +270,16 @@ pub(super) fn read_header(s: &Settings, header: &str, line: usize) -> Result<Lay
             .reactors
             .iter()
             .map(|r| r.spec.composition.components.len())
+            .collect(),
+        inlet_components: s
+            .reactors
+            .iter()
+            .map(|r| {
+                r.spec
+                    .reconcile
+                    .as_ref()
+                    .map_or(0, |c| c.inlet.components.len())
+            })
             .collect(),
     })
 }
@@ -298,6 +345,10 @@ struct RowCells {
     analyses: Vec<Vec<Option<f64>>>,
     analysis_quality: Vec<SourceQuality>,
     analysis_present: Vec<bool>,
+    /// The same for each reactor's inlet analyser.
+    inlet: Vec<Vec<Option<f64>>>,
+    inlet_quality: Vec<SourceQuality>,
+    inlet_present: Vec<bool>,
     scalar_quality: Vec<(usize, ScalarKind, SourceQuality)>,
     scalars: Vec<(usize, ScalarKind, f64, Option<ScalarUnitText>)>,
 }
@@ -308,6 +359,13 @@ impl RowCells {
             analyses: layout.components.iter().map(|&c| vec![None; c]).collect(),
             analysis_quality: vec![SourceQuality::Good; layout.reactors],
             analysis_present: vec![false; layout.reactors],
+            inlet: layout
+                .inlet_components
+                .iter()
+                .map(|&c| vec![None; c])
+                .collect(),
+            inlet_quality: vec![SourceQuality::Good; layout.reactors],
+            inlet_present: vec![false; layout.reactors],
             ..Self::default()
         }
     }
@@ -320,6 +378,11 @@ impl RowCells {
         }
         self.analysis_present.fill(false);
         self.analysis_quality.fill(SourceQuality::Good);
+        for v in &mut self.inlet {
+            v.fill(None);
+        }
+        self.inlet_present.fill(false);
+        self.inlet_quality.fill(SourceQuality::Good);
     }
 
     /// Reads every cell of a row; the row's time, or what is wrong with the row
@@ -360,18 +423,28 @@ impl RowCells {
                     reactor,
                     index,
                     per_fraction,
+                    inlet,
                 } => {
                     let v = number(cell).ok_or_else(not_number)?;
-                    self.analyses[reactor][index] = Some(v * per_fraction);
-                    self.analysis_present[reactor] = true;
+                    if inlet {
+                        self.inlet[reactor][index] = Some(v * per_fraction);
+                        self.inlet_present[reactor] = true;
+                    } else {
+                        self.analyses[reactor][index] = Some(v * per_fraction);
+                        self.analysis_present[reactor] = true;
+                    }
                 }
                 Column::ScalarQuality { reactor, kind } => {
                     let q = SourceQuality::parse(cell).ok_or_else(not_quality)?;
                     self.scalar_quality.push((reactor, kind, q));
                 }
-                Column::AnalyserQuality { reactor } => {
-                    self.analysis_quality[reactor] =
-                        SourceQuality::parse(cell).ok_or_else(not_quality)?;
+                Column::AnalyserQuality { reactor, inlet } => {
+                    let q = SourceQuality::parse(cell).ok_or_else(not_quality)?;
+                    if inlet {
+                        self.inlet_quality[reactor] = q;
+                    } else {
+                        self.analysis_quality[reactor] = q;
+                    }
                 }
             }
         }
@@ -421,6 +494,22 @@ impl RowCells {
                 ScalarKind::Pressure => Input::Pressure(reading),
                 ScalarKind::SteamRatio => Input::SteamRatio(reading),
             };
+            per_worker[plan.assign[r]].push((order, r, input));
+        }
+        // Inlet analyses before the outlet ones: an outlet analysis of this row is
+        // reconciled with the inlet analysis of the same row.
+        for (r, values) in self.inlet.iter().enumerate() {
+            order += 1;
+            if !self.inlet_present[r] {
+                continue;
+            }
+            readings += 1;
+            let input = Input::InletAnalysis(AnalysisReading {
+                ts_ms: t,
+                values: values.clone(),
+                basis: None,
+                quality: self.inlet_quality[r],
+            });
             per_worker[plan.assign[r]].push((order, r, input));
         }
         for (r, values) in self.analyses.iter().enumerate() {

@@ -305,7 +305,32 @@ pub(crate) fn decode_analysis(
     reactor: &ReactorSettings,
     arrival_ms: i64,
 ) -> Result<AnalysisReading, DecodeError> {
-    let c = &reactor.spec.composition;
+    decode_analysis_of(
+        payload,
+        &reactor.spec.composition,
+        &reactor.wiring.composition,
+        arrival_ms,
+    )
+}
+
+/// The inlet analysis of a reconciliation (the same message shape as the outlet's).
+pub(crate) fn decode_inlet_analysis(
+    payload: &[u8],
+    reactor: &ReactorSettings,
+    arrival_ms: i64,
+) -> Result<AnalysisReading, DecodeError> {
+    match (&reactor.spec.reconcile, &reactor.wiring.inlet_composition) {
+        (Some(rs), Some(source)) => decode_analysis_of(payload, &rs.inlet, source, arrival_ms),
+        _ => Err(DecodeError::Missing("(inlet analyser source)".into())),
+    }
+}
+
+fn decode_analysis_of(
+    payload: &[u8],
+    c: &crate::monitor::spec::AnalysisSpec,
+    source: &CompositionSource,
+    arrival_ms: i64,
+) -> Result<AnalysisReading, DecodeError> {
     let CompositionSource::Analyser {
         values_pointer,
         ts_pointer,
@@ -313,7 +338,7 @@ pub(crate) fn decode_analysis(
         basis_pointer,
         quality_pointer,
         ..
-    } = &reactor.wiring.composition
+    } = source
     else {
         return Err(DecodeError::Missing("(analyser source)".into()));
     };

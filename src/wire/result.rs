@@ -234,6 +234,150 @@ fn bed_profile_out<'a>(
     }
 }
 
+/// The inlet/outlet reconciliation: element closures, the gross error tests, the
+/// reconciled outlet gas and its approach.
+#[derive(Serialize)]
+struct ReconciliationOut<'a> {
+    available: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    why: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    inlet_sample_ts: Option<String>,
+    /// Per element: in and out (kmol/h of atoms), imbalance % before and after.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    elements: Vec<ElementOut>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    global_test: Option<GlobalTestOut>,
+    /// The instrument most likely at fault (largest measurement test above its
+    /// critical value), with the ones a balance cannot tell from it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    suspect: Option<&'a str>,
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    suspect_equivalents: Vec<&'a str>,
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    measurements: Vec<MeasurementOut<'a>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    outlet_dry_mole_fractions: Option<Vec<(String, f64)>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    steam_ratio_out: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    steam_ratio_in: Option<f64>,
+    /// Per reaction, the approach of the reconciled outlet gas at the measured T and P.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    approach_k: Vec<Option<f64>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    iterations: Option<u32>,
+}
+
+#[derive(Serialize)]
+struct ElementOut {
+    element: &'static str,
+    in_kmol_h: Option<f64>,
+    out_kmol_h: Option<f64>,
+    imbalance_pct_measured: Option<f64>,
+    imbalance_pct_reconciled: Option<f64>,
+}
+
+#[derive(Serialize)]
+struct GlobalTestOut {
+    statistic: Option<f64>,
+    dof: usize,
+    critical: Option<f64>,
+    passed: bool,
+}
+
+#[derive(Serialize)]
+struct MeasurementOut<'a> {
+    tag: &'a str,
+    measured: Option<f64>,
+    reconciled: Option<f64>,
+    /// The measurement test: |adjustment| / its standard deviation, against the
+    /// Šidák-corrected critical value.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    z: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    critical: Option<f64>,
+    #[serde(skip_serializing_if = "std::ops::Not::not")]
+    failed: bool,
+}
+
+fn reconciliation_out<'a>(
+    db: &SpeciesDb,
+    found: &'a Result<crate::monitor::Reconciled, String>,
+) -> ReconciliationOut<'a> {
+    let Ok(r) = found else {
+        return ReconciliationOut {
+            available: false,
+            why: found.as_ref().err().map(String::as_str),
+            inlet_sample_ts: None,
+            elements: Vec::new(),
+            global_test: None,
+            suspect: None,
+            suspect_equivalents: Vec::new(),
+            measurements: Vec::new(),
+            outlet_dry_mole_fractions: None,
+            steam_ratio_out: None,
+            steam_ratio_in: None,
+            approach_k: Vec::new(),
+            iterations: None,
+        };
+    };
+    let rec = &r.rec;
+    let elements = rec
+        .closure_after
+        .iter()
+        .map(|after| {
+            let before = rec
+                .closure_before
+                .iter()
+                .find(|b| b.element == after.element);
+            ElementOut {
+                element: after.element,
+                in_kmol_h: finite(after.in_kmol_h),
+                out_kmol_h: finite(after.out_kmol_h),
+                imbalance_pct_measured: before.and_then(|b| finite(b.imbalance_pct)),
+                imbalance_pct_reconciled: finite(after.imbalance_pct),
+            }
+        })
+        .collect();
+    ReconciliationOut {
+        available: true,
+        why: None,
+        inlet_sample_ts: Some(format_rfc3339(r.inlet_sample_ts_ms)),
+        elements,
+        global_test: rec.global.map(|g| GlobalTestOut {
+            statistic: finite(g.statistic),
+            dof: g.dof,
+            critical: finite(g.critical),
+            passed: g.passed,
+        }),
+        suspect: rec.suspect.as_deref(),
+        suspect_equivalents: rec.suspect_equivalents.iter().map(String::as_str).collect(),
+        measurements: rec
+            .estimates
+            .iter()
+            .map(|e| MeasurementOut {
+                tag: &e.tag,
+                measured: finite_opt(e.measured),
+                reconciled: finite(e.reconciled),
+                z: e.test.and_then(|t| finite(t.z)),
+                critical: e.test.and_then(|t| finite(t.critical)),
+                failed: e.test.is_some_and(|t| t.failed),
+            })
+            .collect(),
+        outlet_dry_mole_fractions: Some(
+            rec.outlet_dry_fractions()
+                .iter()
+                .map(|(i, y)| (db.get(*i).name.clone(), *y))
+                .collect(),
+        ),
+        steam_ratio_out: finite_opt(rec.outlet_steam_to_dry()),
+        steam_ratio_in: finite_opt(rec.inlet_steam_to_dry()),
+        approach_k: r.approach_k.iter().map(|a| finite_opt(*a)).collect(),
+        iterations: Some(rec.iterations),
+    }
+}
+
 /// The advisory notice every result and status message carries.
 pub(crate) const ADVISORY_SHORT: &str = "advisory only: not a safety function; the plant's alarm and safety systems, local codes and licensed engineering practice govern";
 
@@ -356,6 +500,8 @@ struct ResultOut<'a> {
     bed_rise: Option<BedRiseOut>,
     #[serde(skip_serializing_if = "Option::is_none")]
     bed_profile: Option<BedProfileOut<'a>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    reconciliation: Option<ReconciliationOut<'a>>,
     advisory: &'static str,
     mole_fractions: BySpecies<'a>,
     equilibrium_mole_fractions: BySpecies<'a>,
@@ -482,6 +628,7 @@ pub(crate) fn encode_result(
             (Some(spec), Some(found)) => Some(bed_profile_out(spec, found, drift)),
             _ => None,
         },
+        reconciliation: e.reconciliation.as_ref().map(|r| reconciliation_out(db, r)),
         advisory: ADVISORY_SHORT,
         mole_fractions: BySpecies(names, &e.mole_fractions),
         equilibrium_mole_fractions: BySpecies(names, &e.equilibrium_mole_fractions),

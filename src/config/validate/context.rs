@@ -84,6 +84,146 @@ pub(crate) fn flows(
     (specs, sources)
 }
 
+/// Default relative standard deviation of an analysed fraction [common practice: a
+/// process GC repeats to about 0.5–1 % of reading on its main components] ...
+const ANALYSER_SIGMA_REL: f64 = 0.01;
+/// ... and its floor, mole fraction (0.02 mol%) for the minor components.
+const ANALYSER_SIGMA_FLOOR: f64 = 2e-4;
+
+/// The inlet analyser and the reconciliation settings.
+pub(crate) fn reconcile(
+    problems: &mut Problems,
+    db: &crate::thermo::species::SpeciesDb,
+    path: &str,
+    reactor: &RawReactor,
+    outlet_basis: Option<crate::composition::Basis>,
+    watch: &mut WatchSettings,
+) -> Option<(
+    crate::monitor::spec::ReconcileSpec,
+    crate::config::CompositionSource,
+)> {
+    use crate::composition::Basis;
+    let rpath = format!("{path}.reconcile");
+    let ipath = format!("{path}.inlet_composition");
+    let (raw, inlet) = match (&reactor.reconcile, &reactor.inlet_composition) {
+        (None, None) => return None,
+        (Some(_), None) => {
+            problems.add(
+                rpath,
+                format!("needs the inlet analyser: a [{ipath}] table"),
+            );
+            return None;
+        }
+        (None, Some(_)) => {
+            problems.add(
+                ipath,
+                format!("is only read for a [{rpath}]; add that table"),
+            );
+            return None;
+        }
+        (Some(r), Some(i)) => (r, i),
+    };
+    let start = problems.len();
+    if outlet_basis != Some(Basis::Dry) {
+        problems.add(
+            format!("{path}.composition.basis"),
+            "the reconciliation balances dry analyses with separate water flows: the outlet analysis must be dry",
+        );
+    }
+    if inlet.topics.is_some() {
+        problems.add(
+            format!("{ipath}.topics"),
+            "the inlet analyser must send one message per analysis (topic, not topics)",
+        );
+    }
+    let basis = match inlet.basis.as_deref().map(str::trim) {
+        None | Some("dry") => Basis::Dry,
+        Some(other) => {
+            problems.add(
+                format!("{ipath}.basis"),
+                format!("\"{other}\": the inlet analysis must be dry"),
+            );
+            Basis::Dry
+        }
+    };
+    let analysis =
+        crate::config::validate::inputs::composition(problems, db, &ipath, inlet, Some(basis));
+    if !reactor
+        .flow
+        .iter()
+        .any(|f| matches!(f.stream.as_deref().map(str::trim), Some("inlet" | "outlet")))
+    {
+        problems.add(
+            rpath.clone(),
+            "needs a dry gas flow meter: a [[flow]] with stream = \"inlet\" or \"outlet\"",
+        );
+    }
+    if !reactor
+        .flow
+        .iter()
+        .any(|f| f.stream.as_deref().map(str::trim) == Some("steam"))
+    {
+        problems.add(
+            rpath.clone(),
+            "needs the steam flow in (a [[flow]] with stream = \"steam\"): the balances see only the difference of the water in and out, and the water out is not measured",
+        );
+    }
+    let sigma_rel = match &raw.analyser_uncertainty {
+        None => Some(ANALYSER_SIGMA_REL),
+        Some(t) => percent(problems, &format!("{rpath}.analyser_uncertainty"), t, 0.5),
+    };
+    let floor = match &raw.analyser_floor {
+        None => Some(ANALYSER_SIGMA_FLOOR),
+        Some(t) => match crate::config::validate::inputs::composition_amount("analyser floor", t) {
+            Ok(f) if f > 0.0 && f < 0.05 => Some(f),
+            Ok(_) => {
+                problems.add(
+                    format!("{rpath}.analyser_floor"),
+                    format!("\"{t}\" must be above 0 and below 5 mol%"),
+                );
+                None
+            }
+            Err(m) => {
+                problems.add(format!("{rpath}.analyser_floor"), m);
+                None
+            }
+        },
+    };
+    let alpha = match &raw.significance {
+        None => Some(0.05),
+        Some(t) => percent(problems, &format!("{rpath}.significance"), t, 0.2),
+    };
+    match raw.alert_after {
+        None => watch.alerts.gross_error_samples = Some(3),
+        Some(0) => watch.alerts.gross_error_samples = None,
+        Some(n) if (1..=100).contains(&n) => watch.alerts.gross_error_samples = Some(n as u32),
+        Some(n) => problems.add(
+            format!("{rpath}.alert_after"),
+            format!("{n}: give 1 to 100 results in a row, or 0 for no alert"),
+        ),
+    }
+    let (Some((inlet, source, _)), Some(sigma_rel), Some(floor), Some(alpha)) =
+        (analysis, sigma_rel, floor, alpha)
+    else {
+        return None;
+    };
+    if problems.len() > start {
+        return None;
+    }
+    Some((
+        crate::monitor::spec::ReconcileSpec {
+            inlet,
+            analyser_sigma_rel: sigma_rel,
+            analyser_sigma_floor: floor,
+            options: crate::reconcile::Options {
+                alpha,
+                ..crate::reconcile::Options::default()
+            },
+        },
+        source,
+    ))
+}
+
 /// What the context inputs are read from, for the message when one is missing.
 fn source_of(c: ContextInput) -> &'static str {
     match c {

@@ -370,11 +370,11 @@ fn common_topic_prefix<'a>(topics: impl Iterator<Item = &'a str>) -> String {
 pub(crate) fn composition(
     problems: &mut Problems,
     db: &SpeciesDb,
-    reactor_path: &str,
+    table_path: &str,
     raw: &RawComposition,
     basis: Option<Basis>,
 ) -> Option<(AnalysisSpec, CompositionSource, Vec<usize>)> {
-    let path = format!("{reactor_path}.composition");
+    let path = table_path.to_string();
     let start = problems.len();
     let unit = match raw.unit.as_deref() {
         None => CompositionUnit::Percent,

@@ -172,7 +172,13 @@ pub(crate) fn reactor(
         raw.uncertainty.as_ref(),
     );
     let basis = analysis_basis(problems, &path, raw);
-    let composition = composition(problems, db, &path, &raw.composition, basis);
+    let composition = composition(
+        problems,
+        db,
+        &format!("{path}.composition"),
+        &raw.composition,
+        basis,
+    );
     let inputs = scalar_inputs(problems, &path, raw, basis);
     check_input_topics(problems, &path, raw, env.output_prefix);
     let key_component = key_component(problems, db, &path, raw, &reactions);
@@ -211,6 +217,12 @@ pub(crate) fn reactor(
             &mut watch,
         );
     }
+    let (reconcile, inlet_source) = match crate::config::validate::context::reconcile(
+        problems, db, &path, raw, basis, &mut watch,
+    ) {
+        Some((spec, source)) => (Some(spec), Some(source)),
+        None => (None, None),
+    };
     let bed_profile = raw.bed_profile.as_ref().and_then(|b| {
         crate::config::validate::bed::bed_profile(problems, &format!("{path}.bed_profile"), b)
     });
@@ -272,6 +284,7 @@ pub(crate) fn reactor(
             bed_rise,
             bed_profile,
             flows,
+            reconcile,
             clock: env.clock,
         },
         wiring: Wiring {
@@ -281,6 +294,7 @@ pub(crate) fn reactor(
             steam_ratio: steam_ratio_source,
             bed: bed_sources,
             flows: flow_sources,
+            inlet_composition: inlet_source,
         },
     })
 }

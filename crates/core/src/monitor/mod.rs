@@ -18,7 +18,7 @@ use std::collections::BTreeMap;
 use buffer::{Lookup, Point, ScalarBuffer};
 use reason::Findings;
 pub use reason::{Reason, ReasonCode};
-use spec::{InputSpec, ReactorSpec, SteamRatioSpec};
+use spec::{InputSpec, ReactorSpec, ReconcileSpec, SteamRatioSpec};
 
 use crate::approach::{Approach, Flags, GasState, Scratch};
 use crate::composition::{Basis, Component, CompositionError, WaterSource, WetComposition, to_wet};
@@ -98,6 +98,8 @@ pub enum Input {
     BedTemperature(usize, ScalarReading),
     /// Flow meter number `.0` of the reactor's flows (kmol/h).
     Flow(usize, ScalarReading),
+    /// The inlet analysis (reconciliation).
+    InletAnalysis(AnalysisReading),
 }
 
 impl Input {
@@ -110,7 +112,7 @@ impl Input {
             | Input::Component(_, r)
             | Input::BedTemperature(_, r)
             | Input::Flow(_, r) => r.ts_ms,
-            Input::Analysis(a) => a.ts_ms,
+            Input::Analysis(a) | Input::InletAnalysis(a) => a.ts_ms,
         }
     }
 }
@@ -165,6 +167,18 @@ pub struct Evaluation {
     /// The normalisation's context inputs at the sample time, in the configured order
     /// (None where the input has no usable value).
     pub context: Vec<Option<f64>>,
+    /// The reconciliation where configured: its figures, or why there are none.
+    pub reconciliation: Option<Result<Reconciled, String>>,
+}
+
+/// A reconciliation of one evaluation.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Reconciled {
+    pub rec: crate::reconcile::Reconciliation,
+    /// The inlet analysis used: its sample time.
+    pub inlet_sample_ts_ms: i64,
+    /// Per reaction, the temperature approach of the reconciled outlet gas (K).
+    pub approach_k: Vec<Option<f64>>,
 }
 
 /// What happened to an input.
@@ -196,6 +210,8 @@ pub struct ReactorMonitor {
     temperatures: Vec<ScalarBuffer>,
     bed: Vec<ScalarBuffer>,
     flows: Vec<ScalarBuffer>,
+    /// Recent inlet analyses (reconciliation), oldest first.
+    inlet: std::collections::VecDeque<AnalysisReading>,
     pressure: ScalarBuffer,
     steam: ScalarBuffer,
     /// Per-component assembly: sample timestamp -> values.
@@ -207,6 +223,8 @@ pub struct ReactorMonitor {
 }
 
 const BUFFER: usize = 256;
+/// Inlet analyses kept for the reconciliation (an hour of 5-minute analyses and more).
+const INLET_ANALYSES: usize = 16;
 
 use crate::units::duration_ms as ms;
 
@@ -229,6 +247,7 @@ impl ReactorMonitor {
                 .iter()
                 .map(|_| ScalarBuffer::new(BUFFER))
                 .collect(),
+            inlet: std::collections::VecDeque::new(),
             pressure: ScalarBuffer::new(BUFFER),
             steam: ScalarBuffer::new(BUFFER),
             partial: BTreeMap::new(),
@@ -264,6 +283,21 @@ impl ReactorMonitor {
                 Some(b) => store(b, r),
                 None => Outcome::TooOld,
             },
+            Input::InletAnalysis(a) => {
+                if s.reconcile.is_none() {
+                    return Outcome::TooOld;
+                }
+                if self.inlet.back().is_some_and(|l| l.ts_ms >= a.ts_ms) {
+                    return Outcome::OutOfOrder {
+                        last_ts_ms: self.inlet.back().map_or(0, |l| l.ts_ms),
+                    };
+                }
+                self.inlet.push_back(a);
+                while self.inlet.len() > INLET_ANALYSES {
+                    self.inlet.pop_front();
+                }
+                Outcome::Stored
+            }
             Input::Pressure(r) => store(&mut self.pressure, r),
             Input::SteamRatio(r) => store(&mut self.steam, r),
             Input::Analysis(a) => self.analysis(s, db, a, now_ms),
@@ -376,6 +410,7 @@ impl ReactorMonitor {
             bed_profile,
             flows,
             context: Vec::new(),
+            reconciliation: None,
         };
         if let (Some(w), Some(t), Some(p)) = (&wet, temperatures.mean_k, pressure_bar) {
             let state = GasState {
@@ -389,6 +424,15 @@ impl ReactorMonitor {
             key_figures(&mut case, w, temperatures.inlet_k, t, &mut eval);
         }
         eval.context = context(spec, &eval, temperatures.inlet_k);
+        if let Some(rs) = &spec.reconcile {
+            let outlet = ReconcileOutlet {
+                comps: &comps,
+                t_sample,
+                temperature_k: temperatures.mean_k,
+                pressure_bar,
+            };
+            eval.reconciliation = Some(self.reconcile(spec, rs, db, &eval, &outlet));
+        }
         eval.quality = case.found.worst();
         if eval.reactions.is_empty() {
             eval.quality = Quality::Bad;
@@ -654,6 +698,143 @@ impl ReactorMonitor {
             });
         }
         out
+    }
+
+    /// The inlet analysis nearest the sample time (its own sample time: report time
+    /// minus its lag) within its maximum age.
+    fn inlet_at(&self, rs: &ReconcileSpec, t_sample: i64) -> Option<&AnalysisReading> {
+        let lag = ms(rs.inlet.lag);
+        self.inlet
+            .iter()
+            .filter(|a| a.quality != SourceQuality::Bad)
+            .filter(|a| (a.ts_ms - lag - t_sample).abs() <= ms(rs.inlet.max_age))
+            .min_by_key(|a| (a.ts_ms - lag - t_sample).abs())
+    }
+
+    /// The inlet/outlet reconciliation of this evaluation and the approach of the
+    /// reconciled outlet gas; or why there is none.
+    fn reconcile(
+        &mut self,
+        spec: &ReactorSpec,
+        rs: &ReconcileSpec,
+        db: &SpeciesDb,
+        eval: &Evaluation,
+        out: &ReconcileOutlet<'_>,
+    ) -> Result<Reconciled, String> {
+        use crate::monitor::spec::FlowStream;
+        use crate::reconcile::{Quantity, Stream};
+        let inlet = self.inlet_at(rs, out.t_sample).ok_or_else(|| {
+            format!(
+                "no {} analysis within {} s of the sample time",
+                rs.inlet.tag,
+                rs.inlet.max_age.as_secs()
+            )
+        })?;
+        let inlet_sample_ts_ms = inlet.ts_ms - ms(rs.inlet.lag);
+        let sigma = |y: f64| (rs.analyser_sigma_rel * y).max(rs.analyser_sigma_floor);
+        let mut dry_in = Vec::with_capacity(rs.inlet.components.len());
+        for (name, v) in rs.inlet.components.iter().zip(&inlet.values) {
+            let (Some(i), Some(y)) = (db.index_of(name), *v) else {
+                return Err(format!(
+                    "{name} is missing from the {} analysis",
+                    rs.inlet.tag
+                ));
+            };
+            dry_in.push((
+                i,
+                Quantity::measured(format!("{} {name}", rs.inlet.tag), y, sigma(y)),
+            ));
+        }
+        if out.comps.len() != spec.composition.components.len() {
+            return Err(format!(
+                "the {} analysis is incomplete",
+                spec.composition.tag
+            ));
+        }
+        let mut dry_out = Vec::with_capacity(out.comps.len());
+        for c in out.comps {
+            let i = db
+                .index_of(&c.species)
+                .ok_or_else(|| format!("{} is not in the species data", c.species))?;
+            let tag = format!("{} {}", spec.composition.tag, c.species);
+            dry_out.push((i, Quantity::measured(tag, c.value, sigma(c.value))));
+        }
+        let meter = |stream: FlowStream, unmeasured: &str| {
+            spec.flows
+                .iter()
+                .zip(&eval.flows)
+                .find(|(f, _)| f.stream == stream)
+                .and_then(|(f, v)| {
+                    v.map(|x| {
+                        Quantity::measured(f.input.tag.clone(), x, (f.sigma_rel * x).max(1e-6))
+                    })
+                })
+                .unwrap_or_else(|| Quantity::unmeasured(unmeasured))
+        };
+        let inlet_stream = Stream {
+            dry_flow: meter(FlowStream::InletDry, "dry gas in"),
+            dry: dry_in,
+            water: Some(meter(FlowStream::InletSteam, "steam in")),
+        };
+        let outlet_stream = Stream {
+            dry_flow: meter(FlowStream::OutletDry, "dry gas out"),
+            dry: dry_out,
+            water: Some(Quantity::unmeasured("water out")),
+        };
+        let rec = crate::reconcile::reconcile(db, &inlet_stream, &outlet_stream, &rs.options)
+            .map_err(|e| e.to_string())?;
+        let approach_k = self.reconciled_approach(spec, &rec, out);
+        Ok(Reconciled {
+            rec,
+            inlet_sample_ts_ms,
+            approach_k,
+        })
+    }
+
+    /// The approach of the reconciled outlet gas at the measured T and P (model order:
+    /// the analysed components, then the water).
+    fn reconciled_approach(
+        &mut self,
+        spec: &ReactorSpec,
+        rec: &crate::reconcile::Reconciliation,
+        out: &ReconcileOutlet<'_>,
+    ) -> Vec<Option<f64>> {
+        let model = &spec.model;
+        let (Some(t), Some(p), Some(sd)) = (
+            out.temperature_k,
+            out.pressure_bar,
+            rec.outlet_steam_to_dry(),
+        ) else {
+            return vec![None; model.reactions().len()];
+        };
+        let mut y: Vec<f64> = model
+            .species()
+            .iter()
+            .map(|i| {
+                rec.outlet_dry_fractions()
+                    .iter()
+                    .find(|(j, _)| j == i)
+                    .map_or(0.0, |(_, v)| *v / (1.0 + sd))
+            })
+            .collect();
+        let water = model.names().iter().position(|n| n == "H2O");
+        if let Some(w) = water {
+            y[w] = sd / (1.0 + sd);
+        }
+        let state = GasState {
+            temperature_k: t,
+            pressure_bar: p,
+            y: &y,
+            steam_ratio: water.map(|w| (sd, w)),
+        };
+        model.fugacity(&state, &mut self.scratch);
+        (0..model.reactions().len())
+            .map(|r| {
+                model
+                    .evaluate(r, &state, &self.scratch, &spec.uncertainty)
+                    .approach_k
+            })
+            .collect()
     }
 
     /// Transient: the temperature moved faster than the threshold over the lag window.
@@ -1141,6 +1322,14 @@ fn key_figures(
         eval.bed_rise = crate::bedrise::rise_per_mol_percent(db, gas, 0.5 * (t_in + t))
             .map(|r| crate::bedrise::BedRise::new(t_in, t, r, b.inlet_co_co2));
     }
+}
+
+/// What the reconciliation takes from the outlet side of an evaluation.
+struct ReconcileOutlet<'a> {
+    comps: &'a [Component],
+    t_sample: i64,
+    temperature_k: Option<f64>,
+    pressure_bar: Option<f64>,
 }
 
 /// The normalisation's context inputs, in the configured order.

@@ -149,6 +149,18 @@ pub struct FlowSpec {
     pub sigma_rel: f64,
 }
 
+/// Inlet/outlet element balances and their reconciliation (see [`crate::reconcile`]).
+#[derive(Debug, Clone)]
+pub struct ReconcileSpec {
+    /// The inlet analyser (dry basis, one message with every component).
+    pub inlet: AnalysisSpec,
+    /// One standard deviation of an analysed mole fraction: relative, with a floor
+    /// (mole fraction) for the small components.
+    pub analyser_sigma_rel: f64,
+    pub analyser_sigma_floor: f64,
+    pub options: crate::reconcile::Options,
+}
+
 /// One monitored reactor.
 #[derive(Debug, Clone)]
 pub struct ReactorSpec {
@@ -184,6 +196,8 @@ pub struct ReactorSpec {
     pub bed_profile: Option<BedProfileSpec>,
     /// Flow meters (throughput for the normalised approach; the reconciliation's flows).
     pub flows: Vec<FlowSpec>,
+    /// The inlet analysis and the reconciliation, where configured.
+    pub reconcile: Option<ReconcileSpec>,
     /// How far from the receiving clock a reading's timestamp may be.
     pub clock: ClockWindow,
 }

@@ -184,6 +184,9 @@ pub struct AlertSettings {
     pub self_monitoring: bool,
     /// Raise when the bed rises this much (K) more than its inlet CO and CO2 explain.
     pub bed_rise_excess_k: Option<f64>,
+    /// Raise when the reconciliation's global test fails this many results in a row
+    /// (a gross error in an analyser or a meter).
+    pub gross_error_samples: Option<u32>,
 }
 
 impl Default for AlertSettings {
@@ -195,6 +198,7 @@ impl Default for AlertSettings {
             data_quality_after_ms: None,
             self_monitoring: true,
             bed_rise_excess_k: None,
+            gross_error_samples: None,
         }
     }
 }
@@ -273,6 +277,8 @@ enum Source {
     Offline,
     /// The bed rise above what the inlet CO and CO2 explain, K.
     BedRise,
+    /// The reconciliation's global test statistic over its critical value.
+    GrossError,
     /// Chattering of the alarm at this index.
     Chatter(usize),
     /// Stale alarm at this index.
@@ -682,6 +688,20 @@ fn push_condition_alerts(
                 fmt_num(excess, 3)
             ),
             Source::BedRise,
+        )?);
+    }
+    if let Some(n) = al.gross_error_samples {
+        // γ/γ_crit above 1 on `n` results in a row: at a 5 % test on independent
+        // results, three in a row by chance is about 1 in 8000.
+        let mut c = alert_config("gross-error", 1.0, Direction::High, 0.2);
+        c.on_delay_samples = n;
+        c.off_delay_samples = n;
+        watched.push(Watched::build(
+            Class::Alert,
+            c,
+            "x critical",
+            "inlet/outlet element balances fail the global test: a gross error in an analyser or a flow meter (the result's reconciliation.suspect names the most likely one)".into(),
+            Source::GrossError,
         )?);
     }
     if let Some(limit) = settings.offline_below_bar {
@@ -1120,6 +1140,14 @@ impl ReactorWatch {
                     .bed_rise
                     .and_then(|b| b.excess_k())
                     .filter(|_| e.quality != Quality::Bad && !self.offline),
+                Source::GrossError => match &e.reconciliation {
+                    Some(Ok(r)) if !self.offline => r
+                        .rec
+                        .global
+                        .filter(|g| g.critical > 0.0)
+                        .map(|g| g.statistic / g.critical),
+                    _ => None,
+                },
                 // Time-based ones are fed by `tick`; the off-line one by `pressure`.
                 Source::DataQuality | Source::Chatter(_) | Source::Stale(_) | Source::Offline => {
                     continue;
@@ -1789,6 +1817,7 @@ mod tests {
             bed_profile: None,
             flows: Vec::new(),
             context: Vec::new(),
+            reconciliation: None,
         }
     }
 
@@ -2242,6 +2271,7 @@ mod tests {
                 data_quality_after_ms: Some(30 * MINUTE_MS),
                 self_monitoring: false,
                 bed_rise_excess_k: None,
+                gross_error_samples: None,
             },
             alarms: vec![alarm_spec("approach-high", 20.0, 0)],
             offline_below_bar: Some(5.0),
@@ -2372,6 +2402,7 @@ mod tests {
                 data_quality_after_ms: Some(2 * H),
                 self_monitoring: false,
                 bed_rise_excess_k: None,
+                gross_error_samples: None,
             },
             alarms: vec![alarm_spec("approach-high", 20.0, 2)],
             offline_below_bar: Some(5.0),
