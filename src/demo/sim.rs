@@ -1443,8 +1443,9 @@ pub fn lts_inlet_co_drift(t_s: f64) -> f64 {
 }
 
 /// lts1's inlet analysis (dry mol %, [`LTS_INLET_COMPONENTS`] order) from its feed, with
-/// relative noise from `noise(c)` for component `c` and the CO drift at `t_s`; normalised
-/// to 100 % as the analyser reports.
+/// relative noise from `noise(c)` for component `c` and the CO drift at `t_s`. The
+/// analyser reports its calibrated readings without normalising them, so a drifting
+/// component also moves the total.
 fn lts_inlet_analysis(r: &Reactor, t_s: f64, noise: impl Fn(usize) -> f64) -> Vec<f64> {
     let raw: Vec<f64> = (0..LTS_INLET_COMPONENTS.len())
         .map(|c| {
@@ -1458,8 +1459,10 @@ fn lts_inlet_analysis(r: &Reactor, t_s: f64, noise: impl Fn(usize) -> f64) -> Ve
                 * (1.0 + ANALYSER_NOISE_REL * noise(c))
         })
         .collect();
-    let sum: f64 = raw.iter().sum();
-    raw.iter().map(|y| 100.0 * y / sum).collect()
+    let dry: f64 = (0..LTS_INLET_COMPONENTS.len())
+        .map(|c| r.feed.get(c).copied().unwrap_or(0.0))
+        .sum();
+    raw.iter().map(|y| 100.0 * y / dry).collect()
 }
 
 /// lts1's flow meters: dry gas in, dry gas out, steam in (kmol/h).

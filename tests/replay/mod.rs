@@ -538,6 +538,44 @@ fn weeks_of_history_raise_what_an_engineer_should_see_and_nothing_else() {
     );
 }
 
+#[test]
+fn a_drifting_inlet_analyser_is_caught_by_the_balances_and_released_by_its_recalibration() {
+    // Days 236-275 of the invented year: the lts1 inlet analyser AI-300's CO reads high
+    // from day 240, the error growing to +10 % of reading by day 270, when it is
+    // recalibrated (src/demo/sim.rs YEAR_SCENARIO); TI-305B fails on days 249-252.
+    let ev = scenario_events(236, 40);
+    let lts: Vec<_> = ev
+        .iter()
+        .filter(|e| e.1 == "lts1" && e.3 != "suppressed" && e.3 != "unsuppressed")
+        .map(|e| (e.0.as_str(), e.2.as_str(), e.3.as_str()))
+        .collect();
+    let gross: Vec<_> = lts.iter().filter(|e| e.1 == "gross-error").collect();
+    assert_eq!(gross.len(), 2, "{lts:?}");
+    let (raised, cleared) = (gross[0], gross[1]);
+    assert_eq!(raised.2, "raised");
+    assert_eq!(cleared.2, "cleared");
+    // Raised a few days into the drift (the error past the noise of the balances), never
+    // before it; cleared within a day of the recalibration (day 270 = 2026-09-28).
+    assert!(
+        raised.0 > "2026-09-01" && raised.0 < "2026-09-14",
+        "{raised:?}"
+    );
+    assert!(cleared.0.starts_with("2026-09-28"), "{cleared:?}");
+    // Nothing else but the thermocouple failure's data-quality alert, raised and cleared.
+    let others: Vec<_> = lts.iter().filter(|e| e.1 != "gross-error").collect();
+    assert_eq!(
+        others.iter().map(|e| (e.1, e.2)).collect::<Vec<_>>(),
+        [("data-quality", "raised"), ("data-quality", "cleared")],
+        "{lts:?}"
+    );
+    // The other reactors raise nothing in the window.
+    assert!(
+        ev.iter()
+            .all(|e| e.1 == "lts1" || e.3 == "suppressed" || e.3 == "unsuppressed"),
+        "{ev:?}"
+    );
+}
+
 proptest::proptest! {
     #![proptest_config(proptest::prelude::ProptestConfig::with_cases(24))]
     /// Any bytes spliced into a good history file (as rows, or over its bytes): replay

@@ -425,13 +425,19 @@ impl ReactorMonitor {
         }
         eval.context = context(spec, &eval, temperatures.inlet_k);
         if let Some(rs) = &spec.reconcile {
+            let outlet_bad = a.quality == SourceQuality::Bad || case.found.worst() == Quality::Bad;
             let outlet = ReconcileOutlet {
                 comps: &comps,
                 t_sample,
                 temperature_k: temperatures.mean_k,
                 pressure_bar,
             };
-            eval.reconciliation = Some(self.reconcile(spec, rs, db, &eval, &outlet));
+            // A bad outlet analysis (a calibration gas, a missing component) is not balanced.
+            eval.reconciliation = Some(if outlet_bad {
+                Err(format!("the {} analysis is bad", spec.composition.tag))
+            } else {
+                self.reconcile(spec, rs, db, &eval, &outlet)
+            });
         }
         eval.quality = case.found.worst();
         if eval.reactions.is_empty() {

@@ -692,10 +692,12 @@ fn push_condition_alerts(
     }
     if let Some(n) = al.gross_error_samples {
         // γ/γ_crit above 1 on `n` results in a row: at a 5 % test on independent
-        // results, three in a row by chance is about 1 in 8000.
-        let mut c = alert_config("gross-error", 1.0, Direction::High, 0.2);
+        // results, three in a row by chance is about 1 in 8000. It clears only once the
+        // statistic is back below half its critical value for 4n results: a drifting
+        // instrument hovers about the limit before it is clearly wrong.
+        let mut c = alert_config("gross-error", 1.0, Direction::High, 0.5);
         c.on_delay_samples = n;
-        c.off_delay_samples = n;
+        c.off_delay_samples = 4 * n;
         watched.push(Watched::build(
             Class::Alert,
             c,
@@ -1141,7 +1143,7 @@ impl ReactorWatch {
                     .and_then(|b| b.excess_k())
                     .filter(|_| e.quality != Quality::Bad && !self.offline),
                 Source::GrossError => match &e.reconciliation {
-                    Some(Ok(r)) if !self.offline => r
+                    Some(Ok(r)) if !self.offline && e.quality != Quality::Bad => r
                         .rec
                         .global
                         .filter(|g| g.critical > 0.0)
