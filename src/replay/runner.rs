@@ -239,7 +239,8 @@ impl Replay {
             )));
         }
         for (f, t) in files.iter_mut().zip(&tables) {
-            f.write_all(t.header().as_bytes())?;
+            f.write_all(t.header().as_bytes())
+                .map_err(|e| ReplayError::Engine(format!("writing {}.csv: {e}", t.reactor)))?;
         }
         let tables = Arc::new(tables);
         let format = Format::Tables(Arc::clone(&tables));

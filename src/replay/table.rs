@@ -23,6 +23,7 @@ const BACK: [&str; 3] = ["excluded_because", "end_of_run_date", "reasons"];
 /// One reactor's CSV: the topic of its results and its figure columns.
 #[derive(Debug)]
 pub(super) struct Table {
+    pub(super) reactor: String,
     pub(super) result_topic: String,
     columns: Vec<(String, String, Field)>,
 }
@@ -30,6 +31,7 @@ pub(super) struct Table {
 impl Table {
     pub(super) fn new(settings: &Settings, r: &ReactorSettings) -> Self {
         Self {
+            reactor: r.spec.id.clone(),
             result_topic: format!("{}/{}/result", settings.topic_prefix, r.spec.id),
             columns: columns(r),
         }
