@@ -93,6 +93,7 @@ pub fn history_rows(bytes: &[u8]) {
         config: &config,
         input: &input,
         out: None,
+        format: crate::replay::OutputFormat::JsonLines,
         plot_dir: None,
         plot_tz: crate::plot::TimeZone::UTC,
         threads: Some(1),

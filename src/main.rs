@@ -128,9 +128,14 @@ enum Command {
         /// CSV of timestamped readings (format in the README).
         #[arg(long)]
         input: PathBuf,
-        /// Write every record the daemon would publish, one JSON object per line.
+        /// Write every record the daemon would publish, one JSON object per line (with
+        /// --format csv: the folder for one CSV of results per reactor).
         #[arg(long)]
         out: Option<PathBuf>,
+        /// What --out receives: jsonl (every record, one JSON object per line) or csv
+        /// (a folder with <reactor>.csv, a row per result, for a spreadsheet).
+        #[arg(long, default_value = "jsonl")]
+        format: String,
         /// Write SVG plots (one per reactor and an overview) into this folder.
         #[arg(long)]
         plot: Option<PathBuf>,
@@ -473,11 +478,14 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             config,
             input,
             out,
+            format,
             plot,
             plot_tz,
             threads,
             log_level,
         } => {
+            let format = eqwatch::replay::OutputFormat::parse(&format)
+                .map_err(|e| CliError::Input(format!("--format: {e}")))?;
             let plot_tz = eqwatch::plot::TimeZone::parse(&plot_tz)
                 .map_err(|e| CliError::Input(format!("--plot-tz: {e}")))?;
             init_tracing(
@@ -491,6 +499,7 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 config: &config,
                 input: &input,
                 out: out.as_deref(),
+                format,
                 plot_dir: plot.as_deref(),
                 plot_tz,
                 threads,

@@ -314,6 +314,25 @@ mod tests {
         );
     }
 
+    #[test]
+    fn the_metrics_topic_is_off_by_default_and_takes_only_true_or_false() {
+        use crate::config::test_support::{check, refused, with_broker};
+        let base = with_broker("url = \"mqtt://127.0.0.1:1883\"");
+        assert!(!check(&base).expect("valid").metrics_topic);
+        let on = format!("metrics_topic = true\n{base}");
+        assert!(check(&on).expect("valid").metrics_topic);
+        // The text "yes" instead of the boolean (invented mistake): the key and its line.
+        let e = refused(&format!("metrics_topic = \"yes\"\n{base}"));
+        assert_problems(
+            "metrics_topic as text",
+            &e,
+            &[(
+                "metrics_topic",
+                "expected true or false (no quotes) (line 1)",
+            )],
+        );
+    }
+
     proptest::proptest! {
         #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
         /// Any text, and the demo configuration with bytes changed at random: a list of

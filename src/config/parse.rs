@@ -27,6 +27,7 @@ fn tidy_serde_message(message: &str) -> String {
         .replace("expected f64", "expected a number")
         .replace("expected a sequence", "expected an array")
         .replace("expected a map", "expected a table")
+        .replace("expected a boolean", "expected true or false (no quotes)")
         .replace('\n', "; ")
 }
 

@@ -14,6 +14,8 @@ pub(crate) struct RawConfig {
     /// This daemon's shard of the site (one of several daemons on one prefix).
     pub shard: Option<String>,
     pub topic_prefix: Option<String>,
+    /// Also publish the flat metrics message per result (`<prefix>/<reactor>/metrics`).
+    pub metrics_topic: Option<bool>,
     /// Barometric pressure with an absolute unit, e.g. `"0.98 bar"`.
     pub atmosphere: Option<String>,
     /// Species files, relative to the configuration file's folder.

@@ -20,6 +20,9 @@ pub struct Settings {
     pub shard: Option<String>,
     /// Output topic prefix, default `eqwatch/<site>`; no wildcards, no trailing `/`.
     pub topic_prefix: String,
+    /// `metrics_topic = true`: after each result, a flat metrics message on
+    /// `<prefix>/<reactor>/metrics` (QoS 1, not retained) for time-series collectors.
+    pub metrics_topic: bool,
     pub broker: BrokerSettings,
     pub journal: JournalSettings,
     /// `None` when `[http] listen = "off"`; default 127.0.0.1:9873.

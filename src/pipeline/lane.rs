@@ -23,6 +23,8 @@ use crate::wire::watch as wp;
 /// The topics a lane publishes on.
 pub(super) struct Topics {
     result: String,
+    /// The flat metrics message after each result, when `metrics_topic = true`.
+    metrics: String,
     alert: String,
     alarm: String,
     alarms: String,
@@ -83,6 +85,7 @@ impl Lane {
         let (p, id) = (&settings.topic_prefix, &rs.spec.id);
         let topics = Topics {
             result: format!("{p}/{id}/result"),
+            metrics: format!("{p}/{id}/metrics"),
             alert: format!("{p}/{id}/alert"),
             alarm: format!("{p}/{id}/alarm"),
             alarms: format!("{p}/{id}/alarms"),
@@ -183,7 +186,8 @@ impl Lane {
     }
 
     /// One evaluation: counted and logged, watched (drift, alerts, alarms), traced for
-    /// plots when enabled, encoded as the retained result, then its events.
+    /// plots when enabled, encoded as the retained result (and, when configured, the
+    /// metrics message right after it), then its events.
     fn evaluated(&mut self, e: &Evaluation, arrival_ms: i64, now_ms: i64, sink: &mut Sink) {
         let settings = Arc::clone(&self.settings);
         let rs = &settings.reactors[self.r];
@@ -199,6 +203,14 @@ impl Lane {
             retain: true,
             payload,
         });
+        // Read from the settings at each result, so a reload switches it at once.
+        if settings.metrics_topic {
+            sink.records.push(Append {
+                topic: self.topics.metrics.clone(),
+                retain: false,
+                payload: wire::metrics::encode_metrics(&settings.site, rs, e, Some(&fig)),
+            });
+        }
         if let Some(t) = self.trace.as_mut() {
             t.last_drift = Some(fig);
         }

@@ -63,9 +63,16 @@ mod tests {
     const T0_MS: i64 = 1_796_083_200_000; // 2026-12-01T00:00:00Z
 
     fn engine() -> (Engine, Arc<Metrics>) {
+        engine_with(false)
+    }
+
+    /// The demo plant's engine, with or without `metrics_topic = true`.
+    fn engine_with(metrics_topic: bool) -> (Engine, Arc<Metrics>) {
         let text = include_str!("../../config/demo-plant.toml");
         let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("config");
-        let settings = crate::config::from_str(text, &dir).expect("demo configuration is valid");
+        let mut settings =
+            crate::config::from_str(text, &dir).expect("demo configuration is valid");
+        settings.metrics_topic = metrics_topic;
         let ids: Vec<String> = settings
             .reactors
             .iter()
@@ -203,9 +210,14 @@ mod tests {
             pct(7.5, 2430.0),
         );
         send(e, "baw1/lts1/AI-300", &inlet, t + 60_000);
+        // The outlet's last digits move from sample to sample (a live analyser never
+        // repeats every digit; three identical analyses are a stuck analyser).
+        let wobble = 1e-4 * (((t - T0_MS) / 300_000) % 7) as f64;
         let outlet = format!(
-            r#"{{"ts":{},"values":{{"H2":60.9,"N2":18.9,"CO":0.29,"CO2":19.31,"CH4":0.3,"Ar":0.3}},"unit":"mol%"}}"#,
-            t + 60_000
+            r#"{{"ts":{},"values":{{"H2":{},"N2":{},"CO":0.29,"CO2":19.31,"CH4":0.3,"Ar":0.3}},"unit":"mol%"}}"#,
+            t + 60_000,
+            60.9 + wobble,
+            18.9 - wobble
         );
         send(e, "baw1/lts1/AI-301", &outlet, t + 60_000)
     }
@@ -221,6 +233,7 @@ mod tests {
     #[test]
     fn consistent_inlet_and_outlet_reconcile_and_a_drifting_analyser_is_named() {
         let (mut e, _m) = engine();
+        // No wobble on the first sample (at T0).
         let v = lts1_result(&lts1_sample(&mut e, T0_MS, 1.0));
         let rc = &v["reconciliation"];
         assert_eq!(rc["available"], true, "{rc}");
@@ -278,6 +291,80 @@ mod tests {
             }));
         }
         assert_eq!(raised, vec![false, false, true, false]);
+    }
+
+    /// Three hts1 analyses five minutes apart (invented dry gas summing to 100 mol% at
+    /// 430 degC, 30 barg; CO moves a little so the analyser does not look stuck), with
+    /// temperature and pressure at the sample time (the analysis time minus hts1's
+    /// 60 s lag, config/demo-plant.toml) and at the analysis time.
+    fn three_hts1_analyses(e: &mut Engine) -> Vec<Append> {
+        let mut out = Vec::new();
+        for k in 0..3i64 {
+            let t = T0_MS + k * 300_000;
+            for at in [t - 60_000, t] {
+                for (topic, payload) in [
+                    (
+                        "baw1/hts1/TI-205",
+                        format!(r#"{{"ts":{at},"value":430,"unit":"degC"}}"#),
+                    ),
+                    (
+                        "baw1/hts1/PI-202",
+                        format!(r#"{{"ts":{at},"value":30,"unit":"barg"}}"#),
+                    ),
+                ] {
+                    out.extend(send(e, topic, &payload, at));
+                }
+            }
+            let co = 3.5 + 0.01 * k as f64;
+            let co2 = 16.0 - 0.01 * k as f64;
+            let analysis = format!(
+                r#"{{"ts":{t},"values":{{"H2":60.0,"N2":20.0,"CO":{co},"CO2":{co2},"CH4":0.3,"Ar":0.2}},"unit":"mol%"}}"#
+            );
+            out.extend(send(e, "baw1/hts1/AI-201", &analysis, t));
+        }
+        out
+    }
+
+    #[test]
+    fn with_the_metrics_topic_each_result_is_followed_by_its_metrics_message() {
+        let (mut e, _m) = engine_with(true);
+        let out = three_hts1_analyses(&mut e);
+        let results: Vec<usize> = (0..out.len())
+            .filter(|&i| out[i].topic.ends_with("/result"))
+            .collect();
+        assert_eq!(results.len(), 3, "{out:?}");
+        assert_eq!(
+            out.iter().filter(|a| a.topic.ends_with("/metrics")).count(),
+            3
+        );
+        for i in results {
+            let m = out.get(i + 1).expect("a record after the result");
+            assert_eq!(m.topic, "eqwatch/baw1/hts1/metrics");
+            assert!(!m.retain, "metrics are not retained");
+            let (r, m) = (json(&out[i]), json(m));
+            // Derived from the result above: the sample time and the approach.
+            let sample_ms =
+                crate::timefmt::parse_rfc3339(r["sample_ts"].as_str().unwrap()).expect("sample_ts");
+            assert_eq!(m["ts"], sample_ms);
+            assert_eq!(m["approach_k"], r["approach_k"], "{m}");
+            assert!(m["approach_k"].is_f64(), "{m} {}", r["reasons"]);
+            assert_eq!(m["reactor"], "hts1");
+            assert_eq!(m["site"], "baw1");
+        }
+    }
+
+    #[test]
+    fn without_the_metrics_topic_no_metrics_message_is_made() {
+        let (mut e, _m) = engine_with(false);
+        let out = three_hts1_analyses(&mut e);
+        assert_eq!(
+            out.iter().filter(|a| a.topic.ends_with("/result")).count(),
+            3
+        );
+        assert!(
+            out.iter().all(|a| !a.topic.ends_with("/metrics")),
+            "{out:?}"
+        );
     }
 
     #[test]

@@ -338,6 +338,34 @@ mod tests {
     }
 
     #[test]
+    fn switching_the_metrics_topic_on_takes_effect_at_once_and_keeps_every_reactor() {
+        let mut e = engine(DEMO);
+        feed_hts(&mut e, 2);
+        let before = drift_of(&e, "hts1");
+        // The demo file's commented default, switched on (config/demo-plant.toml).
+        let edited = DEMO.replacen("# metrics_topic = false", "metrics_topic = true", 1);
+        assert_ne!(edited, DEMO);
+        let mut out = Vec::new();
+        let r = e
+            .reload(settings(&edited), T0_MS, &mut out)
+            .expect("reload");
+        assert!(
+            r.changed.is_empty(),
+            "no reactor's own settings changed: {r:?}"
+        );
+        assert_eq!(drift_of(&e, "hts1"), before);
+        let t = T0_MS + 600_000 + 60_000;
+        let out = send(&mut e, "baw1/hts1/AI-201", analysis(t, 60), t + 60_000);
+        let topics: Vec<&str> = out.iter().map(|a| a.topic.as_str()).collect();
+        assert!(
+            topics
+                .windows(2)
+                .any(|w| w == ["eqwatch/baw1/hts1/result", "eqwatch/baw1/hts1/metrics"]),
+            "{topics:?}"
+        );
+    }
+
+    #[test]
     fn a_changed_topic_moves_the_subscription_and_keeps_the_run() {
         let mut e = engine(DEMO);
         assert_eq!(feed_hts(&mut e, 6), 6);

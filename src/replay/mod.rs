@@ -24,6 +24,13 @@
 //!   than the row before is reported with its line number and skipped whole. An unknown
 //!   or repeated column, or no `time` column, stops the replay before it starts.
 //!
+//! # The outputs
+//! `--format jsonl` (the default): every record the daemon would publish, one JSON
+//! object per line, in the daemon's order (metrics messages too, when the configuration
+//! has `metrics_topic = true`). `--format csv`: `--out` is a folder, and each reactor
+//! gets `<reactor>.csv` with a row per result ([`table`]); the other records are left
+//! out.
+//!
 //! Within a row, readings go to the engine in column order for scalars, then one
 //! analysis per analyser, reactors in configuration order; then the watch timers tick
 //! to the row's time.
@@ -31,6 +38,7 @@
 mod csv;
 mod plots;
 mod runner;
+mod table;
 
 pub use plots::{reactor_plot, write_plots, write_svgs};
 use runner::Pipe;
@@ -71,13 +79,37 @@ pub struct RowProblem {
 pub struct ReplayArgs<'a> {
     pub config: &'a Path,
     pub input: &'a Path,
-    /// The JSON lines file of every record, if wanted.
+    /// The JSON lines file of every record, or the folder of the CSVs, if wanted.
     pub out: Option<&'a Path>,
+    pub format: OutputFormat,
     /// The folder for SVG plots, if wanted.
     pub plot_dir: Option<&'a Path>,
     pub plot_tz: crate::plot::TimeZone,
     /// Worker threads (default: the machine's cores).
     pub threads: Option<usize>,
+}
+
+/// What `--out` receives.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum OutputFormat {
+    /// One file, every record as a JSON line.
+    #[default]
+    JsonLines,
+    /// A folder with one CSV of results per reactor.
+    Csv,
+}
+
+impl OutputFormat {
+    /// `jsonl` or `csv`, as given on the command line.
+    pub fn parse(text: &str) -> Result<Self, String> {
+        match text {
+            "jsonl" => Ok(Self::JsonLines),
+            "csv" => Ok(Self::Csv),
+            other => Err(format!(
+                "\"{other}\" is not an output format; give jsonl (every record as JSON lines) or csv (a CSV of results per reactor)"
+            )),
+        }
+    }
 }
 
 /// `eqwatch replay`: runs the file, writes the outputs, returns the summary text.
@@ -90,7 +122,11 @@ pub fn command(args: &ReplayArgs<'_>) -> Result<String, CliError> {
         .map_err(|e| CliError::Input(format!("{}: {e}", input.display())))?;
     let size = file.metadata().map(|m| m.len()).unwrap_or(0);
     let mut reader = std::io::BufReader::with_capacity(1 << 20, file);
-    let mut results = ResultsFile::open(args.out)?;
+    if args.format == OutputFormat::Csv && args.out.is_none() {
+        return Err(CliError::Input(
+            "--format csv writes into the folder given with --out; add --out <folder>".into(),
+        ));
+    }
     let mut replay = Replay::new(settings.clone(), args.plot_dir.is_some())
         .map_err(|e| CliError::Input(e.to_string()))?;
     if let Some(n) = args.threads {
@@ -100,16 +136,35 @@ pub fn command(args: &ReplayArgs<'_>) -> Result<String, CliError> {
     let tty = std::io::stderr().is_terminal();
     let mut progress = progress_bar(tty, size);
     let mut problem = row_reporter(tty, input);
-    let sum = replay
-        .run(&mut reader, &mut results.sink, &mut progress, &mut problem)
-        .map_err(|e| match e {
-            ReplayError::Read(_) => CliError::Internal(format!("{}: {e}", input.display())),
-            e => CliError::Input(format!("{}: {e}", input.display())),
-        })?;
-    results.finish()?;
+    let in_error = |e: ReplayError| match e {
+        ReplayError::Read(_) => CliError::Internal(format!("{}: {e}", input.display())),
+        e => CliError::Input(format!("{}: {e}", input.display())),
+    };
+    let (sum, written) = match (args.format, args.out) {
+        (OutputFormat::Csv, Some(dir)) => {
+            let (mut files, paths) = csv_files(&settings, dir)?;
+            let sum = replay
+                .run_tables(&mut reader, &mut files, &mut progress, &mut problem)
+                .map_err(in_error)?;
+            for (f, p) in files.iter_mut().zip(&paths) {
+                f.flush()
+                    .map_err(|e| CliError::Internal(format!("{}: {e}", p.display())))?;
+            }
+            let what = format!("{} CSV files in {}", paths.len(), dir.display());
+            (sum, Some(what))
+        }
+        (_, out) => {
+            let mut results = ResultsFile::open(out)?;
+            let sum = replay
+                .run(&mut reader, &mut results.sink, &mut progress, &mut problem)
+                .map_err(in_error)?;
+            results.finish()?;
+            (sum, out.map(|o| o.display().to_string()))
+        }
+    };
     let mut text = summary_text(&settings, &sum, replay.metrics(), started.elapsed());
-    if let Some(o) = args.out {
-        let _ = writeln!(text, "results: {}", o.display());
+    if let Some(w) = written {
+        let _ = writeln!(text, "results: {w}");
     }
     if let (Some(dir), Some(traces)) = (args.plot_dir, replay.traces()) {
         let title = format!("{}: replay of {}", settings.site, input.display());
@@ -118,6 +173,30 @@ pub fn command(args: &ReplayArgs<'_>) -> Result<String, CliError> {
         let _ = writeln!(text, "plots: {} files in {}", paths.len(), dir.display());
     }
     Ok(text)
+}
+
+/// `<dir>/<reactor>.csv` for every reactor, created (the folder too), buffered.
+#[allow(clippy::type_complexity)]
+fn csv_files(
+    settings: &Settings,
+    dir: &Path,
+) -> Result<(Vec<Box<dyn Write>>, Vec<std::path::PathBuf>), CliError> {
+    std::fs::create_dir_all(dir).map_err(|e| {
+        CliError::Input(format!(
+            "{}: {e} (with --format csv, --out is a folder)",
+            dir.display()
+        ))
+    })?;
+    let mut files: Vec<Box<dyn Write>> = Vec::with_capacity(settings.reactors.len());
+    let mut paths = Vec::with_capacity(settings.reactors.len());
+    for r in &settings.reactors {
+        let p = dir.join(format!("{}.csv", r.spec.id));
+        let f = std::fs::File::create(&p)
+            .map_err(|e| CliError::Input(format!("{}: {e}", p.display())))?;
+        files.push(Box::new(std::io::BufWriter::with_capacity(1 << 20, f)));
+        paths.push(p);
+    }
+    Ok((files, paths))
 }
 
 /// Where the records go: a file written by a second thread (the disk works while the

@@ -1,5 +1,6 @@
 //! One replay run: the engine's lanes on worker threads, rows handed out in batches,
-//! results merged back in the daemon's order and written through a writer thread.
+//! results merged back in the daemon's order and written through a writer thread (JSON
+//! lines), or as one CSV per reactor ([`super::table`]).
 
 use super::csv::*;
 use super::*;
@@ -50,11 +51,67 @@ pub(super) type RowItems = Vec<(u32, usize, Input)>;
 /// What a worker gives back for one row: (order, piece), non-empty pieces only.
 pub(super) type RowOut = Vec<(u32, Piece)>;
 
+/// What the records become: JSON lines, or a CSV row per result (one table per reactor,
+/// by reactor index).
+#[derive(Clone)]
+pub(super) enum Format {
+    Lines,
+    Tables(Arc<Vec<super::table::Table>>),
+}
+
+/// Where the encoded output goes.
+pub(super) trait Output {
+    /// Bytes a worker encoded from reactor `reactor`'s records.
+    fn encoded(&mut self, reactor: usize, bytes: &[u8]) -> std::io::Result<()>;
+    /// A record encoded here (the plant-wide part's, or one from a piece with events).
+    fn record(&mut self, rec: &Append) -> Result<(), ReplayError>;
+}
+
+/// Every record as one JSON line to one writer.
+struct Lines<'a>(&'a mut dyn Write);
+
+impl Output for Lines<'_> {
+    fn encoded(&mut self, _reactor: usize, bytes: &[u8]) -> std::io::Result<()> {
+        self.0.write_all(bytes)
+    }
+    fn record(&mut self, rec: &Append) -> Result<(), ReplayError> {
+        Ok(write_record(self.0, rec)?)
+    }
+}
+
+/// A CSV per reactor: result rows only; the other records are left out.
+struct Tables<'a> {
+    tables: Arc<Vec<super::table::Table>>,
+    files: &'a mut [Box<dyn Write>],
+}
+
+impl Output for Tables<'_> {
+    fn encoded(&mut self, reactor: usize, bytes: &[u8]) -> std::io::Result<()> {
+        match self.files.get_mut(reactor) {
+            Some(f) => f.write_all(bytes),
+            None => Err(std::io::Error::other(format!(
+                "no CSV for reactor {reactor}"
+            ))),
+        }
+    }
+    fn record(&mut self, rec: &Append) -> Result<(), ReplayError> {
+        let Some(r) = self.tables.iter().position(|t| t.result_topic == rec.topic) else {
+            return Ok(());
+        };
+        let mut bytes = Vec::new();
+        self.tables[r]
+            .row(&rec.payload, &mut bytes)
+            .map_err(ReplayError::Engine)?;
+        Ok(self.encoded(r, &bytes)?)
+    }
+}
+
 /// A lane's output for one input or tick.
 pub(super) enum Piece {
-    /// Records with no events among them, already written as JSON lines in the batch's
-    /// byte buffer: (start, end, record count).
-    Encoded(usize, usize, usize),
+    /// Records with no events among them, already encoded in the batch's byte buffer
+    /// (JSON lines, or CSV rows of the reactor's results): (reactor, start, end, record
+    /// count).
+    Encoded(usize, usize, usize, usize),
     /// Records with events: the plant-wide flood count must see them (main thread).
     Events(crate::pipeline::Sink),
 }
@@ -63,23 +120,40 @@ pub(super) enum Piece {
 pub(super) struct BatchOut {
     bytes: Vec<u8>,
     rows: Vec<RowOut>,
+    /// The first result that could not be made a CSV row (a bug, not the data).
+    error: Option<String>,
 }
 
-/// Moves a lane's output into the batch: encoded in place when it holds no events.
-pub(super) fn piece(sink: &mut crate::pipeline::Sink, bytes: &mut Vec<u8>) -> Option<Piece> {
+/// Moves reactor `reactor`'s lane output into the batch: encoded in place when it
+/// holds no events.
+pub(super) fn piece(
+    sink: &mut crate::pipeline::Sink,
+    bytes: &mut Vec<u8>,
+    format: &Format,
+    reactor: usize,
+) -> Result<Option<Piece>, String> {
     if sink.is_empty() {
-        return None;
+        return Ok(None);
     }
     if sink.has_events() {
-        return Some(Piece::Events(std::mem::take(sink)));
+        return Ok(Some(Piece::Events(std::mem::take(sink))));
     }
     let start = bytes.len();
     let n = sink.records.len();
     for rec in sink.records.drain(..) {
-        // Writing to a Vec cannot fail.
-        let _ = write_record(bytes, &rec);
+        match format {
+            // Writing to a Vec cannot fail.
+            Format::Lines => {
+                let _ = write_record(bytes, &rec);
+            }
+            Format::Tables(t) => {
+                if let Some(t) = t.get(reactor).filter(|t| t.result_topic == rec.topic) {
+                    t.row(&rec.payload, bytes)?;
+                }
+            }
+        }
     }
-    Some(Piece::Encoded(start, bytes.len(), n))
+    Ok(Some(Piece::Encoded(reactor, start, bytes.len(), n)))
 }
 
 impl Replay {
@@ -138,6 +212,55 @@ impl Replay {
         progress: &mut dyn FnMut(u64),
         problem: &mut dyn FnMut(&RowProblem),
     ) -> Result<Summary, ReplayError> {
+        self.run_into(input, &Format::Lines, &mut Lines(out), progress, problem)
+    }
+
+    /// Runs the CSV from `input`, writing one CSV per reactor: `files[r]` for the
+    /// configuration's reactor `r`, a header line, then a row per result
+    /// ([`super::table`]). Runs once.
+    pub(super) fn run_tables(
+        &mut self,
+        input: &mut dyn BufRead,
+        files: &mut [Box<dyn Write>],
+        progress: &mut dyn FnMut(u64),
+        problem: &mut dyn FnMut(&RowProblem),
+    ) -> Result<Summary, ReplayError> {
+        let tables: Vec<super::table::Table> = self
+            .settings
+            .reactors
+            .iter()
+            .map(|r| super::table::Table::new(&self.settings, r))
+            .collect();
+        if files.len() != tables.len() {
+            return Err(ReplayError::Engine(format!(
+                "{} CSV files for {} reactors",
+                files.len(),
+                tables.len()
+            )));
+        }
+        for (f, t) in files.iter_mut().zip(&tables) {
+            f.write_all(t.header().as_bytes())
+                .map_err(|e| ReplayError::Engine(format!("writing {}.csv: {e}", t.reactor)))?;
+        }
+        let tables = Arc::new(tables);
+        let format = Format::Tables(Arc::clone(&tables));
+        self.run_into(
+            input,
+            &format,
+            &mut Tables { tables, files },
+            progress,
+            problem,
+        )
+    }
+
+    fn run_into(
+        &mut self,
+        input: &mut dyn BufRead,
+        format: &Format,
+        out: &mut dyn Output,
+        progress: &mut dyn FnMut(u64),
+        problem: &mut dyn FnMut(&RowProblem),
+    ) -> Result<Summary, ReplayError> {
         let engine = self
             .engine
             .take()
@@ -162,7 +285,8 @@ impl Replay {
                 let (rtx, rrx) = std::sync::mpsc::sync_channel::<BatchOut>(4);
                 to_workers.push(tx);
                 from_workers.push(rrx);
-                handles.push(scope.spawn(move || work(mine, &rx, &rtx)));
+                let format = format.clone();
+                handles.push(scope.spawn(move || work(mine, &rx, &rtx, &format)));
             }
             let mut pending: std::collections::VecDeque<Vec<i64>> = Default::default();
             let mut merger = Merger {
@@ -236,6 +360,7 @@ fn work(
     mut mine: Vec<crate::pipeline::Lane>,
     rx: &std::sync::mpsc::Receiver<Vec<(i64, RowItems)>>,
     tx: &std::sync::mpsc::SyncSender<BatchOut>,
+    format: &Format,
 ) -> Vec<crate::pipeline::Lane> {
     let index: Vec<usize> = mine.iter().map(|lane| lane.reactor()).collect();
     let find = |r: usize| index.iter().position(|&x| x == r);
@@ -244,21 +369,35 @@ fn work(
         let mut outs = BatchOut {
             bytes: Vec::with_capacity(1 << 20),
             rows: Vec::with_capacity(batch.len()),
+            error: None,
+        };
+        let mut keep = |got: Result<Option<Piece>, String>, order: u32, row: &mut RowOut| match got
+        {
+            Ok(Some(p)) => row.push((order, p)),
+            Ok(None) => {}
+            Err(e) => {
+                outs.error.get_or_insert(e);
+            }
         };
         for (t, items) in batch {
             let mut row: RowOut = Vec::new();
             for (order, r, input) in items {
                 let Some(k) = find(r) else { continue };
                 mine[k].accept(input, t, t, &mut sink);
-                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
-                    row.push((order, p));
-                }
+                keep(
+                    piece(&mut sink, &mut outs.bytes, format, r),
+                    order,
+                    &mut row,
+                );
             }
             for lane in mine.iter_mut() {
                 lane.tick(t, &mut sink);
-                if let Some(p) = piece(&mut sink, &mut outs.bytes) {
-                    row.push((TICK_ORDER + lane.reactor() as u32, p));
-                }
+                let r = lane.reactor();
+                keep(
+                    piece(&mut sink, &mut outs.bytes, format, r),
+                    TICK_ORDER + r as u32,
+                    &mut row,
+                );
             }
             outs.rows.push(row);
         }
@@ -300,7 +439,7 @@ impl Merger {
         &mut self,
         times: Vec<i64>,
         plant: &mut crate::pipeline::Plant,
-        out: &mut dyn Write,
+        out: &mut dyn Output,
         sum: &mut Summary,
     ) -> Result<(), ReplayError> {
         let mut got: Vec<BatchOut> = Vec::with_capacity(self.from_workers.len());
@@ -309,6 +448,9 @@ impl Merger {
                 rx.recv()
                     .map_err(|_| ReplayError::Engine("a replay worker stopped".into()))?,
             );
+        }
+        if let Some(e) = got.iter_mut().find_map(|b| b.error.take()) {
+            return Err(ReplayError::Engine(e));
         }
         let bytes: Vec<Vec<u8>> = got
             .iter_mut()
@@ -331,21 +473,21 @@ impl Merger {
             row.sort_by_key(|(order, _, _)| *order);
             for (_, w, p) in row.drain(..) {
                 match p {
-                    Piece::Encoded(a, b, n) => {
-                        out.write_all(&bytes[w][a..b])?;
+                    Piece::Encoded(r, a, b, n) => {
+                        out.encoded(r, &bytes[w][a..b])?;
                         sum.records += n;
                     }
                     Piece::Events(mut sink) => plant.drain(&mut sink, records),
                 }
                 sum.records += records.len();
                 for rec in records.drain(..) {
-                    write_record(out, &rec)?;
+                    out.record(&rec)?;
                 }
             }
             plant.tick(t, records);
             sum.records += records.len();
             for rec in records.drain(..) {
-                write_record(out, &rec)?;
+                out.record(&rec)?;
             }
         }
         Ok(())

@@ -6,9 +6,12 @@
 //! [`crate::config`] only; never `crate::pipeline`, `crate::daemon`, `crate::replay`,
 //! `crate::demo`, `crate::plot` or `crate::cli`; no tokio, rumqttc or I/O. Within the
 //! folder the order is one way: `result` may use `watch` (a result carries the drift
-//! figures), `watch` never uses `result`; both use the number helpers here.
+//! figures), `watch` never uses `result`; both use the number helpers here. `metrics`
+//! (the flat view of a result) uses neither: it points into the result's shape by JSON
+//! Pointer, and its tests check the two agree.
 
 pub(crate) mod input;
+pub(crate) mod metrics;
 pub(crate) mod result;
 #[cfg(feature = "sparkplug")]
 pub(crate) mod sparkplug;

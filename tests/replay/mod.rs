@@ -603,3 +603,178 @@ proptest::proptest! {
         proptest::prop_assert!(code == 0 || code == 1, "exit {code}: {err}");
     }
 }
+
+/// The cells of one CSV line (RFC 4180 quoting; the line without its CRLF).
+fn csv_cells(line: &str) -> Vec<String> {
+    let (mut cells, mut cur, mut quoted, mut chars) =
+        (Vec::new(), String::new(), false, line.chars().peekable());
+    while let Some(c) = chars.next() {
+        match (c, quoted) {
+            ('"', true) if chars.peek() == Some(&'"') => {
+                cur.push('"');
+                chars.next();
+            }
+            ('"', _) => quoted = !quoted,
+            (',', false) => cells.push(std::mem::take(&mut cur)),
+            (c, _) => cur.push(c),
+        }
+    }
+    cells.push(cur);
+    cells
+}
+
+#[test]
+fn two_days_of_demo_history_as_csv_per_reactor_say_what_the_json_lines_say() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = dir.path().join("days.csv");
+    let mut f = std::io::BufWriter::new(std::fs::File::create(&input).unwrap());
+    let opts = eqwatch::demo::sim::HistoryOptions {
+        days: 2,
+        ..Default::default()
+    };
+    eqwatch::demo::sim::write_history(&opts, &mut f).unwrap();
+    drop(f);
+    // The demo plant with the metrics message switched on (its commented default off).
+    let demo = std::fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml"),
+    )
+    .unwrap();
+    assert!(demo.contains("# metrics_topic = false\n"));
+    let config = dir.path().join("plant.toml");
+    std::fs::write(
+        &config,
+        demo.replace("# metrics_topic = false\n", "metrics_topic = true\n"),
+    )
+    .unwrap();
+    let lines = dir.path().join("all.jsonl");
+    let (code, stdout, stderr) = replay(&config, &input, &lines, None);
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    let tables = dir.path().join("csv");
+    let (code, stdout, stderr) = replay_with(&config, &input, &tables, None, &["--format", "csv"]);
+    assert_eq!(code, 0, "{stdout}{stderr}");
+    assert!(stdout.contains("5 CSV files in"), "{stdout}");
+
+    let records: Vec<Value> = std::fs::read_to_string(&lines)
+        .unwrap()
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    // Derived from the JSON lines above: each result is followed by its metrics message.
+    for (i, r) in records.iter().enumerate() {
+        let topic = r["topic"].as_str().unwrap();
+        if let Some(id) = topic
+            .strip_prefix("eqwatch/baw1/")
+            .and_then(|t| t.strip_suffix("/result"))
+        {
+            let m = &records[i + 1];
+            assert_eq!(m["topic"], format!("eqwatch/baw1/{id}/metrics"));
+            assert_eq!(m["retain"], false);
+            let (p, mp) = (&r["payload"], &m["payload"]);
+            let sample_ms = eqwatch::timefmt::parse_rfc3339(p["sample_ts"].as_str().unwrap());
+            assert_eq!(mp["ts"].as_i64(), sample_ms);
+            assert_eq!(
+                mp.get("approach_k"),
+                p.get("approach_k").filter(|v| !v.is_null())
+            );
+        }
+    }
+
+    let mut rows_total = 0;
+    for id in ["ref1", "hts1", "lts1", "mth1", "amc1"] {
+        let text = std::fs::read_to_string(tables.join(format!("{id}.csv"))).unwrap();
+        assert!(text.ends_with("\r\n"), "{id}.csv: lines end in CRLF");
+        let mut it = text.split_terminator("\r\n");
+        let header = csv_cells(it.next().expect("a header"));
+        assert_eq!(
+            header[..7],
+            [
+                "sample_ts",
+                "quality",
+                "approach_k",
+                "approach_uncertainty_k",
+                "equilibrium_temperature_k",
+                "q_over_k",
+                "ln_q"
+            ],
+            "{id}"
+        );
+        assert_eq!(header.last().map(String::as_str), Some("reasons"));
+        let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+        let results: Vec<&Value> = records
+            .iter()
+            .filter(|r| r["topic"] == format!("eqwatch/baw1/{id}/result"))
+            .map(|r| &r["payload"])
+            .collect();
+        let rows: Vec<Vec<String>> = it.map(csv_cells).collect();
+        assert_eq!(rows.len(), results.len(), "{id}: a row per result");
+        assert!(!rows.is_empty(), "{id}");
+        let mut last_ms = i64::MIN;
+        for (row, p) in rows.iter().zip(&results) {
+            assert_eq!(row.len(), header.len(), "{id}: {row:?}");
+            let ms = eqwatch::timefmt::parse_rfc3339(&row[0]).expect("RFC 3339 time");
+            assert!(ms > last_ms, "{id}: times increase");
+            last_ms = ms;
+            assert_eq!(row[0], p["sample_ts"].as_str().unwrap());
+            assert_eq!(row[col("quality")], p["quality"].as_str().unwrap());
+            // Figures: the JSON value at the CSV column's precision (half its last digit).
+            for (name, pointer, half) in [
+                ("approach_k", "/approach_k", 5e-4),
+                ("temperature_k", "/temperature_k", 5e-3),
+                ("pressure_bar_abs", "/pressure_bar", 5e-5),
+                (
+                    "key_measured_mole_fraction",
+                    "/key_measured_mole_fraction",
+                    0.0,
+                ),
+                ("ewma_k", "/drift/ewma_k", 5e-4),
+            ] {
+                let cell = &row[col(name)];
+                match p.pointer(pointer).and_then(Value::as_f64) {
+                    None => assert_eq!(cell, "", "{id} {name}: empty for a missing value"),
+                    Some(x) => {
+                        let y: f64 = cell.parse().unwrap_or_else(|_| panic!("{name}: {cell}"));
+                        // Six significant digits where `half` is 0.
+                        let tol = if half > 0.0 { half } else { x.abs() * 5e-6 };
+                        assert!((x - y).abs() <= tol * 1.0001, "{id} {name}: {x} vs {cell}");
+                    }
+                }
+            }
+            let codes: Vec<&str> = p["reasons"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|r| r["code"].as_str().unwrap())
+                .collect();
+            assert_eq!(row[col("reasons")], codes.join(";"));
+        }
+        rows_total += rows.len();
+    }
+    // 2 days, 288 analyses a day per analyser, 5 analysers [invented demo scenario,
+    // src/demo/sim.rs; as in the one-day test above].
+    assert_eq!(rows_total, 5 * 2 * 288);
+}
+
+#[test]
+fn an_unknown_format_or_csv_without_a_folder_is_refused_naming_the_option() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = dir.path().join("in.csv");
+    std::fs::write(&input, csv()).unwrap();
+    let config = Path::new(env!("CARGO_MANIFEST_DIR")).join("config/demo-plant.toml");
+    let out = dir.path().join("out");
+    let (code, _, stderr) = replay_with(&config, &input, &out, None, &["--format", "xlsx"]);
+    assert_eq!(code, 1, "{stderr}");
+    assert!(
+        stderr.contains("--format") && stderr.contains("jsonl"),
+        "{stderr}"
+    );
+    let o = Command::new(env!("CARGO_BIN_EXE_eqwatch"))
+        .args(["replay", "--format", "csv", "--config"])
+        .arg(&config)
+        .arg("--input")
+        .arg(&input)
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(1), "{stderr}");
+    assert!(stderr.contains("--out <folder>"), "{stderr}");
+}

@@ -139,6 +139,7 @@ pub(crate) fn validate(
         site: raw.site.clone(),
         shard,
         topic_prefix,
+        metrics_topic: raw.metrics_topic.unwrap_or(false),
         broker,
         journal,
         http_listen,
