@@ -84,17 +84,17 @@ pub(crate) fn validate(
     };
     let broker = broker(&mut problems, &raw.broker, &id_base, base, env);
     let journal = journal(&mut problems, &raw.journal, base);
-    let http_listen = match &raw.http {
+    let listen = raw.http.as_ref().and_then(|h| h.listen.as_deref());
+    let http_listen = match listen {
         None => Some(SocketAddr::from(([127, 0, 0, 1], 9873))),
-        Some(h) if h.listen.trim().eq_ignore_ascii_case("off") => None,
-        Some(h) => match h.listen.trim().parse::<SocketAddr>() {
+        Some(l) if l.trim().eq_ignore_ascii_case("off") => None,
+        Some(l) => match l.trim().parse::<SocketAddr>() {
             Ok(a) => Some(a),
             Err(_) => {
                 problems.add(
                     "http.listen",
                     format!(
-                        "\"{}\" is not an address and port; expected e.g. \"127.0.0.1:9873\", \"[::1]:9873\" or \"off\"",
-                        h.listen
+                        "\"{l}\" is not an address and port; expected e.g. \"127.0.0.1:9873\", \"[::1]:9873\" or \"off\""
                     ),
                 );
                 None
@@ -122,6 +122,7 @@ pub(crate) fn validate(
         }
     }
     let commands = crate::config::validate::watch::commands(&mut problems, raw.commands.as_ref());
+    let http_users = crate::config::password::users(&mut problems, raw.http.as_ref(), &commands);
     let uses_spb = raw_topics(raw).any(|t| t.starts_with(crate::config::SpbRef::PREFIX));
     let sparkplug = sparkplug(
         &mut problems,
@@ -141,6 +142,7 @@ pub(crate) fn validate(
         broker,
         journal,
         http_listen,
+        http_users,
         atmosphere_bar,
         species,
         reactors,
