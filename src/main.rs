@@ -180,6 +180,10 @@ enum Command {
         /// Keep the temporary folder (journal, log, plots) at exit.
         #[arg(long)]
         keep: bool,
+        /// Serve the live page (and the metrics) on this address, e.g. 127.0.0.1:9873;
+        /// off by default. The demo plant has no page users: the page is view only.
+        #[arg(long)]
+        page: Option<std::net::SocketAddr>,
         #[command(flatten)]
         log: LogArgs,
     },
@@ -516,6 +520,7 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             broker,
             workdir,
             keep,
+            page,
             log,
         } => {
             let work = eqwatch::demo::runner::Workdir::prepare(workdir, keep)?;
@@ -524,7 +529,9 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 return Err(e);
             }
             let rt = runtime()?;
-            rt.block_on(eqwatch::demo::runner::run(speed, &duration, broker, work))?;
+            rt.block_on(eqwatch::demo::runner::run(
+                speed, &duration, broker, page, work,
+            ))?;
             Ok((serde_json::Value::Null, false))
         }
     }

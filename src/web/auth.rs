@@ -171,6 +171,10 @@ impl Sessions {
     pub fn len(&self) -> usize {
         self.map.len()
     }
+
+    pub fn is_empty(&self) -> bool {
+        self.map.is_empty()
+    }
 }
 
 /// Failed logins per user name (the configured users, and one entry shared by every

@@ -250,7 +250,7 @@ impl Live {
         let t_ms = v
             .get("analysis_ts")
             .and_then(Value::as_str)
-            .and_then(|s| crate::timefmt::parse_rfc3339(s));
+            .and_then(crate::timefmt::parse_rfc3339);
         let r = &mut self.reactors[i];
         if let Some(t_ms) = t_ms {
             r.push(Point {
@@ -501,7 +501,7 @@ mod tests {
         assert!(l.trend_json("lts1", "2h").is_none());
         assert!(l.trend_json("nope", "1h").is_none());
         // Never more than the bound, however long it runs.
-        assert!(COARSE_POINTS * POINT_BYTES + FINE_POINTS * POINT_BYTES <= 40 * 1024);
+        const { assert!(COARSE_POINTS * POINT_BYTES + FINE_POINTS * POINT_BYTES <= 40 * 1024) };
     }
 
     #[test]

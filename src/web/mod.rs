@@ -96,9 +96,7 @@ impl Auth {
             return Err(AuthError::Wrong);
         }
         self.throttle.succeeded(&self.users, name);
-        self.sessions
-            .create(token, name, csrf, now_ms)
-            .map(Clone::clone)
+        self.sessions.create(token, name, csrf, now_ms).cloned()
     }
 
     /// The session under the cookie's token, with its user.
