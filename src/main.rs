@@ -558,7 +558,7 @@ fn hash_password(iterations: u32) -> Result<String, CliError> {
     }
     let hash = eqwatch::web::auth::hash_password(password.as_bytes(), iterations)
         .map_err(|e| CliError::Internal(e.to_string()))?;
-    Ok(hash.format())
+    Ok(format!("{}\n", hash.format()))
 }
 
 fn main() -> ExitCode {

@@ -455,6 +455,34 @@ mod tests {
     }
 
     #[test]
+    fn live_page_users_need_a_valid_hash_known_commands_and_the_allow_list() {
+        // Invented users; the hash is Python 3.11 hashlib's
+        // pbkdf2_hmac("sha256", b"op-demo-pass", b"eqwatch-demo-salt", 1000, 32).
+        let base = with_broker("url = \"mqtt://127.0.0.1\"");
+        let hash = "pbkdf2-sha256$1000$ZXF3YXRjaC1kZW1vLXNhbHQ=$0LtlutJQBJaSKWo242z0OAu+SjoKhrbndLvk80J69fY=";
+        let ok = format!(
+            "{base}\n[commands]\nallowed_users = [\"op-demo\"]\n[http.users.op-demo]\npassword_hash = \"{hash}\"\nmay = [\"acknowledge\", \"shelve\"]\n[http.users.viewer]\npassword_hash = \"{hash}\"\n"
+        );
+        let s = check(&ok).unwrap();
+        assert_eq!(s.http_listen, Some(([127, 0, 0, 1], 9873).into()));
+        let names: Vec<&str> = s.http_users.iter().map(|u| u.name.as_str()).collect();
+        assert_eq!(names, ["op-demo", "viewer"]);
+        assert!(s.http_users[1].may.is_empty());
+        let bad = format!(
+            "{base}\n[http.users.stranger]\npassword_hash = \"{hash}\"\nmay = [\"acknowledge\", \"reset\"]\n[http.users.plain]\npassword_hash = \"hunter2\"\n"
+        );
+        assert_problems(
+            "users",
+            &refused(&bad),
+            &[
+                ("http.users.plain.password_hash", "hash-password"),
+                ("http.users.stranger.may[1]", "not a page command"),
+                ("http.users.stranger.may", "not in [commands] allowed_users"),
+            ],
+        );
+    }
+
+    #[test]
     fn http_and_prefix_options() {
         // Invented config for the test.
         let base = with_broker("url = \"mqtt://127.0.0.1\"");
