@@ -125,6 +125,16 @@ fn page_alarm(port: u16) -> (String, String) {
     alarm_state(&serde_json::json!({ "alarms": r["alarms"] }))
 }
 
+/// The daemon's links are up (its HTTP port opens before they connect).
+fn wait_online(got: &Received) {
+    assert!(
+        wait_for(got, Duration::from_secs(15), |m| m.iter().any(
+            |(t, pl, _)| t == "eqwatch/test/status" && pl.contains("online")
+        )),
+        "daemon not online"
+    );
+}
+
 fn wait_until(within: Duration, f: impl Fn() -> bool) -> bool {
     let until = std::time::Instant::now() + within;
     while std::time::Instant::now() < until {
@@ -146,6 +156,7 @@ fn page_commands_need_a_session_and_the_permission_and_take_the_mqtt_path() {
     let got = collector(&rt, broker.port, &["eqwatch/test/#"]);
     let _d = Daemon::start(&config, http);
     let p = Publisher::new(&rt, broker.port);
+    wait_online(&got);
     publish_lts_set(&p, &rt);
     // The result reaches the page's snapshot: 12.00 K (docs/domain.md §8), alarm raised.
     assert!(
@@ -296,8 +307,10 @@ fn a_headless_browser_renders_the_reactors_figures_and_their_updates() {
     let dir = tempfile::tempdir().unwrap();
     let http = free_port();
     let config = write_config(dir.path(), broker.port, http);
+    let got = collector(&rt, broker.port, &["eqwatch/test/status"]);
     let _d = Daemon::start(&config, http);
     let p = Publisher::new(&rt, broker.port);
+    wait_online(&got);
     publish_lts_set(&p, &rt);
     assert!(wait_until(Duration::from_secs(15), || {
         lts(&plant(http))["result"].is_object()
