@@ -9,6 +9,7 @@
 //! - `replay` (feature `cli`): CSV history through the pipeline; results and plots.
 //! - [`plot`]: SVG charts rendered as strings.
 //! - `daemon` (feature `daemon`): MQTT, journal, HTTP, signals; the only tokio.
+//! - `web` (feature `daemon`): the live page, its sessions and what it shows (pure).
 //! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
 //! - [`demo`]: the invented plant ([`demo::sim`]) and the one-command demo (feature `daemon`).
 //!
@@ -39,6 +40,8 @@ pub mod daemon;
 pub(crate) mod pipeline;
 #[cfg(feature = "cli")]
 pub mod replay;
+#[cfg(feature = "daemon")]
+pub mod web;
 #[cfg(feature = "cli")]
 pub(crate) mod wire;
 

@@ -121,6 +121,14 @@ enum Command {
         #[command(flatten)]
         log: LogArgs,
     },
+    /// Make a password hash for `[http.users.<name>] password_hash` (the live page's
+    /// logins): reads the password from standard input (one line), prints the hash.
+    #[cfg(feature = "daemon")]
+    HashPassword {
+        /// PBKDF2 iterations (the default is OWASP's 2023 figure for PBKDF2-HMAC-SHA256).
+        #[arg(long, default_value_t = eqwatch::web::auth::DEFAULT_ITERATIONS)]
+        iterations: u32,
+    },
     /// Run a CSV of plant history through the daemon's processing path; results and plots.
     Replay {
         #[arg(long)]
@@ -177,6 +185,10 @@ enum Command {
         /// Keep the temporary folder (journal, log, plots) at exit.
         #[arg(long)]
         keep: bool,
+        /// Serve the live page (and the metrics) on this address, e.g. 127.0.0.1:9873;
+        /// off by default. The demo plant has no page users: the page is view only.
+        #[arg(long)]
+        page: Option<std::net::SocketAddr>,
         #[command(flatten)]
         log: LogArgs,
     },
@@ -474,6 +486,10 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             run_daemon(&config, broker, &log)?;
             Ok((serde_json::Value::Null, false))
         }
+        #[cfg(feature = "daemon")]
+        Command::HashPassword { iterations } => {
+            Ok((serde_json::Value::String(hash_password(iterations)?), false))
+        }
         Command::Replay {
             config,
             input,
@@ -513,6 +529,7 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
             broker,
             workdir,
             keep,
+            page,
             log,
         } => {
             let work = eqwatch::demo::runner::Workdir::prepare(workdir, keep)?;
@@ -521,10 +538,36 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 return Err(e);
             }
             let rt = runtime()?;
-            rt.block_on(eqwatch::demo::runner::run(speed, &duration, broker, work))?;
+            rt.block_on(eqwatch::demo::runner::run(
+                speed, &duration, broker, page, work,
+            ))?;
             Ok((serde_json::Value::Null, false))
         }
     }
+}
+
+/// `eqwatch hash-password`: one line of standard input to a stored hash.
+#[cfg(feature = "daemon")]
+fn hash_password(iterations: u32) -> Result<String, CliError> {
+    use eqwatch::config::password::MIN_ITERATIONS;
+    if iterations < MIN_ITERATIONS {
+        return Err(CliError::Input(format!(
+            "--iterations {iterations} is below {MIN_ITERATIONS}"
+        )));
+    }
+    let mut line = String::new();
+    std::io::stdin()
+        .read_line(&mut line)
+        .map_err(|e| CliError::Input(format!("reading the password from standard input: {e}")))?;
+    let password = line.trim_end_matches(['\n', '\r']);
+    if password.is_empty() {
+        return Err(CliError::Input(
+            "no password on standard input; e.g. `read -rs PW; printf '%s\\n' \"$PW\" | eqwatch hash-password`".into(),
+        ));
+    }
+    let hash = eqwatch::web::auth::hash_password(password.as_bytes(), iterations)
+        .map_err(|e| CliError::Internal(e.to_string()))?;
+    Ok(format!("{}\n", hash.format()))
 }
 
 fn main() -> ExitCode {

@@ -13,6 +13,7 @@ const DEPENDENCIES: &[&str] = &[
     "eqwatch_core",
     "nalgebra",
     "prost",
+    "ring",
     "rumqttc",
     "rumqttd",
     "serde",
@@ -126,7 +127,8 @@ const RULES: &[Rule] = &[
     Rule {
         path: "src/daemon",
         modules: &[
-            "approach", "config", "monitor", "pipeline", "timefmt", "units", "wire", "daemon",
+            "approach", "config", "monitor", "pipeline", "timefmt", "units", "wire", "web",
+            "daemon",
         ],
         crates: &[
             "tokio",
@@ -137,6 +139,15 @@ const RULES: &[Rule] = &[
             "serde_json",
             "thiserror",
         ],
+    },
+    // The live page and its pure parts (what it shows, logins and sessions, requests):
+    // the configuration's users, the wire module's advisory and command shape, time
+    // helpers; ring for PBKDF2 and random tokens. No runtime, no sockets, no clock: the
+    // daemon serves it.
+    Rule {
+        path: "src/web",
+        modules: &["config", "timefmt", "units", "wire", "web"],
+        crates: &["ring", "serde_json", "thiserror"],
     },
     // The invented plant: the core's models (its tests read the demo configuration).
     Rule {

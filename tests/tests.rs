@@ -10,6 +10,7 @@ mod demo;
 mod disk;
 mod fleet;
 mod monitor;
+mod page;
 mod replay;
 mod service;
 mod session;

@@ -22,6 +22,7 @@ mod duration;
 mod error;
 mod files;
 mod parse;
+pub mod password;
 mod raw;
 mod settings;
 mod summary;

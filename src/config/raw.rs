@@ -88,8 +88,20 @@ pub(crate) struct RawJournal {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub(crate) struct RawHttp {
-    /// `"127.0.0.1:9873"` or `"off"`.
-    pub listen: String,
+    /// `"127.0.0.1:9873"` or `"off"` (default `127.0.0.1:9873`).
+    pub listen: Option<String>,
+    /// Who may log in to the live page and send commands from it, by user name.
+    #[serde(default)]
+    pub users: BTreeMap<String, RawHttpUser>,
+}
+
+/// One live-page user: `password_hash` from `eqwatch hash-password`, the commands allowed.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawHttpUser {
+    pub password_hash: String,
+    #[serde(default)]
+    pub may: Vec<String>,
 }
 
 #[derive(Debug, Clone, Deserialize)]

@@ -27,6 +27,8 @@ pub struct Settings {
     pub journal: JournalSettings,
     /// `None` when `[http] listen = "off"`; default 127.0.0.1:9873.
     pub http_listen: Option<SocketAddr>,
+    /// `[http.users.<name>]`: who may log in to the live page, sorted by name.
+    pub http_users: Vec<crate::config::password::HttpUser>,
     /// Site atmospheric pressure for gauge readings, bar (default 1.01325).
     pub atmosphere_bar: f64,
     /// Built-in species plus the configured species files.

@@ -22,6 +22,7 @@ pub mod journal;
 pub mod mqtt;
 pub mod notify;
 pub mod outbox;
+pub mod page;
 #[cfg(feature = "sparkplug")]
 pub mod sparkplug;
 pub mod state;
@@ -145,6 +146,8 @@ struct Evaluator {
     metrics: Arc<Metrics>,
     acked: Arc<tokio::sync::Notify>,
     reloads: mpsc::Receiver<EngineReload>,
+    /// Copies of the records the live page shows (`page.rs`), when it is served.
+    page: Option<page::Tap>,
 }
 
 /// Decodes, evaluates and journals until the input channel closes; ticks the watch
@@ -160,6 +163,7 @@ async fn evaluate_loop(ev: Evaluator) {
         metrics,
         acked,
         mut reloads,
+        page,
     } = ev;
     if let Some(text) = saved {
         restore(&mut engine, &text);
@@ -217,6 +221,9 @@ async fn evaluate_loop(ev: Evaluator) {
                     let _ = reply.send(engine.reload(new, clock(), &mut batch));
                 }
             },
+        }
+        if let Some(tap) = &page {
+            tap.offer(&batch);
         }
         if !batch.is_empty()
             && journal
@@ -740,13 +747,16 @@ pub async fn run(
         );
     }
     let http_cancel = CancellationToken::new();
-    if let Some(addr) = settings.http_listen {
-        let listener = http::bind(addr)
-            .await
-            .map_err(|source| DaemonError::Http { addr, source })?;
-        info!(%addr, "metrics on http://{addr}/metrics");
-        tokio::spawn(http::serve(listener, metrics.clone(), http_cancel.clone()));
-    }
+    let listener = match settings.http_listen {
+        Some(addr) => {
+            let l = http::bind(addr)
+                .await
+                .map_err(|source| DaemonError::Http { addr, source })?;
+            info!(%addr, "metrics on http://{addr}/metrics, the live page on http://{addr}/");
+            Some(l)
+        }
+        None => None,
+    };
     let status_topic = settings.daemon_topic("status");
     let started = crate::timefmt::format_rfc3339(clock());
     let status = |state: &str, reason: &str| {
@@ -795,6 +805,19 @@ pub async fn run(
         .spawn(move || journal_thread(journal, jrx, to_link, jm, jclock, state_path, memory_cap))
         .map_err(|e| DaemonError::Journal(e.to_string()))?;
     let (in_tx, in_rx) = mpsc::channel::<RawInput>(INPUT_QUEUE);
+    // The live page: served on the HTTP listener; its commands join the input queue.
+    let mut tap = None;
+    if let Some(listener) = listener {
+        let (t, web) = page::start(&settings, in_tx.clone(), clock.clone())
+            .map_err(|e| DaemonError::Journal(format!("live page thread: {e}")))?;
+        tap = Some(t);
+        tokio::spawn(http::serve(
+            listener,
+            metrics.clone(),
+            Some(web),
+            http_cancel.clone(),
+        ));
+    }
     let acked = Arc::new(tokio::sync::Notify::new());
     let (reload_tx, reload_rx) = mpsc::channel::<EngineReload>(1);
     let evaluator = tokio::spawn(evaluate_loop(Evaluator {
@@ -806,6 +829,7 @@ pub async fn run(
         metrics: metrics.clone(),
         acked: acked.clone(),
         reloads: reload_rx,
+        page: tap,
     }));
     metrics.ready.store(true, Relaxed);
     // Configuration validated, journal opened and recovered, metrics port bound.

@@ -965,9 +965,10 @@ pub async fn run(
     speed: f64,
     duration: &str,
     broker: Option<String>,
+    page: Option<std::net::SocketAddr>,
     work: Workdir,
 ) -> Result<(), CliError> {
-    match live(speed, duration, broker, &work).await {
+    match live(speed, duration, broker, page, &work).await {
         Ok(()) => {
             if work.kept() {
                 println!(
@@ -1005,6 +1006,7 @@ async fn live(
     speed: f64,
     duration: &str,
     broker: Option<String>,
+    page: Option<std::net::SocketAddr>,
     work: &Workdir,
 ) -> Result<(), CliError> {
     if !(speed.is_finite() && speed > 0.0 && speed <= 3600.0) {
@@ -1015,7 +1017,7 @@ async fn live(
     let duration = crate::config::parse_duration(duration).map_err(input("--duration"))?;
     let mut settings = crate::config::from_str(DEMO_CONFIG, work.path())
         .map_err(|e| CliError::Internal(format!("demo configuration: {e}")))?;
-    settings.http_listen = None;
+    settings.http_listen = page;
     let compressed = compress_watch(&mut settings);
     let upstream = Upstream::start(broker.as_deref())?;
     let proxy = DropoutProxy::start(0, upstream.addr)

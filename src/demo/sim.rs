@@ -2131,8 +2131,8 @@ mod tests {
                 assert_eq!(v["basis"], basis);
             }
         }
-        // 25 plus lts1's five bed thermocouples and three flow meters.
-        assert_eq!(topics.len(), 33, "{topics:?}");
+        // 25 plus lts1's five bed thermocouples, three flow meters and inlet analyser.
+        assert_eq!(topics.len(), 34, "{topics:?}");
         for t in [
             "baw1/ref1/TI-105B",
             "baw1/lts1/TI-306C",
@@ -2276,8 +2276,9 @@ mod tests {
             .expect("reactor");
         let ts = START + (t_s * 1000.0) as i64;
         let mut comps: Vec<Component> = Vec::new();
+        // The outlet analysers (lts1's inlet analyser AI-300 is not the outlet gas).
         for (_, m) in msgs.iter().filter(|(_, m)| m.topic.contains("/AI-")) {
-            if !m.topic.contains(reactor) {
+            if !m.topic.contains(reactor) || m.topic.ends_with("/AI-300") {
                 continue;
             }
             let v = json(m);
@@ -2599,6 +2600,13 @@ mod tests {
                 });
             }
             want.push(format!("{tag}.quality"));
+            if let Some(inlet) = r.get("inlet_composition").and_then(|c| c.as_table()) {
+                let tag = inlet["tag"].as_str().expect("tag");
+                for s in inlet["components"].as_array().expect("components") {
+                    want.push(format!("{tag}.{}", s.as_str().expect("species")));
+                }
+                want.push(format!("{tag}.quality"));
+            }
         }
         let h = history(true);
         assert_eq!(h.columns(), want);
@@ -2632,9 +2640,10 @@ mod tests {
         assert_eq!(a, b, "same arguments, any thread count: the same bytes");
         assert_ne!(a, c, "another seed: other noise");
         assert_eq!(st.bytes, a.len() as u64);
-        // Invented demo scenario: one row per minute, 288 analyses a day per analyser.
+        // Invented demo scenario: one row per minute, 288 analyses a day per analyser
+        // (five outlet analysers and lts1's inlet one).
         assert_eq!(st.rows, 1440);
-        assert_eq!(st.analyses, 5 * 288);
+        assert_eq!(st.analyses, 6 * 288);
         let text = std::str::from_utf8(&a).expect("UTF-8");
         let mut lines = text.lines().filter(|l| !l.starts_with('#'));
         let header: Vec<&str> = lines.next().expect("header").split(',').collect();
@@ -2644,7 +2653,8 @@ mod tests {
             .filter(|(_, c)| c.starts_with("BAW1-AI-") && !c.ends_with(".quality"))
             .map(|(i, _)| i)
             .collect();
-        assert_eq!(analyser_cols.len(), 4 + 6 + 6 + 6 + 5);
+        // ref1, hts1, lts1, mth1, amc1 and lts1's inlet analyser.
+        assert_eq!(analyser_cols.len(), 4 + 6 + 6 + 6 + 5 + 6);
         let mut rows = 0;
         for (m, line) in lines.enumerate() {
             let cells: Vec<&str> = line.split(',').collect();
@@ -2667,9 +2677,13 @@ mod tests {
             } else {
                 assert_eq!(filled, 0, "row {m}");
             }
-            // Thermocouples, pressures and measured steam ratios every minute.
+            // Thermocouples, pressures, measured steam ratios and flows every minute.
             for (i, name) in header.iter().enumerate() {
-                if name.contains("-TI-") || name.contains("-PI-") || name.contains("-FY-") {
+                if name.contains("-TI-")
+                    || name.contains("-PI-")
+                    || name.contains("-FY-")
+                    || name.contains("-FI-")
+                {
                     assert!(
                         cells[i].parse::<f64>().is_ok(),
                         "row {m} {name}: {:?}",

@@ -79,6 +79,9 @@ pub(crate) fn restart_needed(old: &Settings, new: &Settings) -> Vec<String> {
     if old.http_listen != new.http_listen {
         why.push("[http] listen".to_string());
     }
+    if old.http_users != new.http_users {
+        why.push("[http.users]".to_string());
+    }
     if old.sparkplug != new.sparkplug {
         why.push("[sparkplug]".to_string());
     }

@@ -85,17 +85,17 @@ pub(crate) fn validate(
     };
     let broker = broker(&mut problems, &raw.broker, &id_base, base, env);
     let journal = journal(&mut problems, &raw.journal, base);
-    let http_listen = match &raw.http {
+    let listen = raw.http.as_ref().and_then(|h| h.listen.as_deref());
+    let http_listen = match listen {
         None => Some(SocketAddr::from(([127, 0, 0, 1], 9873))),
-        Some(h) if h.listen.trim().eq_ignore_ascii_case("off") => None,
-        Some(h) => match h.listen.trim().parse::<SocketAddr>() {
+        Some(l) if l.trim().eq_ignore_ascii_case("off") => None,
+        Some(l) => match l.trim().parse::<SocketAddr>() {
             Ok(a) => Some(a),
             Err(_) => {
                 problems.add(
                     "http.listen",
                     format!(
-                        "\"{}\" is not an address and port; expected e.g. \"127.0.0.1:9873\", \"[::1]:9873\" or \"off\"",
-                        h.listen
+                        "\"{l}\" is not an address and port; expected e.g. \"127.0.0.1:9873\", \"[::1]:9873\" or \"off\""
                     ),
                 );
                 None
@@ -123,6 +123,7 @@ pub(crate) fn validate(
         }
     }
     let commands = crate::config::validate::watch::commands(&mut problems, raw.commands.as_ref());
+    let http_users = crate::config::password::users(&mut problems, raw.http.as_ref(), &commands);
     let uses_spb = raw_topics(raw).any(|t| t.starts_with(crate::config::SpbRef::PREFIX));
     let sparkplug = sparkplug(
         &mut problems,
@@ -143,6 +144,7 @@ pub(crate) fn validate(
         broker,
         journal,
         http_listen,
+        http_users,
         atmosphere_bar,
         species,
         reactors,
@@ -451,6 +453,34 @@ mod tests {
             "no-reactors.toml",
             &broken("no-reactors.toml"),
             &[("reactors", "no reactors")],
+        );
+    }
+
+    #[test]
+    fn live_page_users_need_a_valid_hash_known_commands_and_the_allow_list() {
+        // Invented users; the hash is Python 3.11 hashlib's
+        // pbkdf2_hmac("sha256", b"op-demo-pass", b"eqwatch-demo-salt", 1000, 32).
+        let base = with_broker("url = \"mqtt://127.0.0.1\"");
+        let hash = "pbkdf2-sha256$1000$ZXF3YXRjaC1kZW1vLXNhbHQ=$0LtlutJQBJaSKWo242z0OAu+SjoKhrbndLvk80J69fY=";
+        let ok = format!(
+            "{base}\n[commands]\nallowed_users = [\"op-demo\"]\n[http.users.op-demo]\npassword_hash = \"{hash}\"\nmay = [\"acknowledge\", \"shelve\"]\n[http.users.viewer]\npassword_hash = \"{hash}\"\n"
+        );
+        let s = check(&ok).unwrap();
+        assert_eq!(s.http_listen, Some(([127, 0, 0, 1], 9873).into()));
+        let names: Vec<&str> = s.http_users.iter().map(|u| u.name.as_str()).collect();
+        assert_eq!(names, ["op-demo", "viewer"]);
+        assert!(s.http_users[1].may.is_empty());
+        let bad = format!(
+            "{base}\n[http.users.stranger]\npassword_hash = \"{hash}\"\nmay = [\"acknowledge\", \"reset\"]\n[http.users.plain]\npassword_hash = \"hunter2\"\n"
+        );
+        assert_problems(
+            "users",
+            &refused(&bad),
+            &[
+                ("http.users.plain.password_hash", "hash-password"),
+                ("http.users.stranger.may[1]", "not a page command"),
+                ("http.users.stranger.may", "not in [commands] allowed_users"),
+            ],
         );
     }
 

@@ -1,0 +1,314 @@
+//! The live page's shell: the tap on the evaluator's records, the thread that keeps the
+//! page's snapshot ([`crate::web::live::Live`]) behind a mutex, and the page's
+//! requests (`/`, `/api/...`). Locks are held only to read or update the snapshot or
+//! the sessions, never across an await; password checks run on the blocking pool, one
+//! at a time. Commands go to the evaluator's input queue as the command topic's
+//! message, so they take the MQTT commands' path (allow list, watch, outcome, journal).
+
+use std::sync::atomic::{AtomicU64, Ordering::Relaxed};
+use std::sync::{Arc, Mutex, MutexGuard};
+use std::time::Duration;
+
+use serde_json::{Value, json};
+use tokio::sync::{Semaphore, mpsc, watch};
+use tracing::{info, warn};
+
+use super::{Clock, RawInput};
+use crate::config::Settings;
+use crate::web::live::Live;
+use crate::web::request::{self, COOKIE, CSRF_HEADER, Head};
+use crate::web::{Auth, auth};
+
+/// Batches of records waiting for the page's thread at most; beyond it a batch is
+/// skipped (counted) rather than slow the evaluator.
+const TAP_QUEUE: usize = 64;
+/// How long a command request waits for its outcome before answering "sent".
+const OUTCOME_WAIT: Duration = Duration::from_secs(5);
+
+/// The evaluator's side: copies the records the page shows, never waits.
+pub struct Tap {
+    tx: mpsc::Sender<Vec<(String, String)>>,
+    dropped: Arc<AtomicU64>,
+}
+
+impl Tap {
+    pub fn offer(&self, batch: &[crate::pipeline::Append]) {
+        let copies: Vec<(String, String)> = batch
+            .iter()
+            .filter(|a| wanted(&a.topic))
+            .map(|a| (a.topic.clone(), a.payload.clone()))
+            .collect();
+        if !copies.is_empty() && self.tx.try_send(copies).is_err() {
+            self.dropped.fetch_add(1, Relaxed);
+        }
+    }
+}
+
+fn wanted(topic: &str) -> bool {
+    topic.ends_with("/result") || topic.ends_with("/alarms") || topic.ends_with("/command/outcome")
+}
+
+/// Everything the page's requests need.
+pub struct Web {
+    live: Arc<Mutex<Live>>,
+    updates: watch::Receiver<u64>,
+    dropped: Arc<AtomicU64>,
+    auth: Mutex<Auth>,
+    /// Password checks at once (each costs the hash's iterations of CPU).
+    logins: Semaphore,
+    /// Weak: the page must not keep the evaluator's input open at shutdown.
+    commands: mpsc::WeakSender<RawInput>,
+    prefix: String,
+    clock: Clock,
+    next_request: AtomicU64,
+}
+
+fn lock<T>(m: &Mutex<T>) -> MutexGuard<'_, T> {
+    m.lock().unwrap_or_else(|e| e.into_inner())
+}
+
+/// Starts the page's thread; returns the evaluator's tap and the page's state.
+pub fn start(
+    settings: &Settings,
+    commands: mpsc::Sender<RawInput>,
+    clock: Clock,
+) -> std::io::Result<(Tap, Arc<Web>)> {
+    let reactors: Vec<(String, String)> = settings
+        .reactors
+        .iter()
+        .map(|r| (r.spec.id.clone(), r.spec.name.clone()))
+        .collect();
+    let live = Arc::new(Mutex::new(Live::new(
+        &settings.site,
+        &settings.topic_prefix,
+        &reactors,
+    )));
+    let (tx, mut rx) = mpsc::channel::<Vec<(String, String)>>(TAP_QUEUE);
+    let (version, updates) = watch::channel(0u64);
+    let (l, c) = (live.clone(), clock.clone());
+    std::thread::Builder::new()
+        .name("eqwatch-page".into())
+        .spawn(move || {
+            while let Some(batch) = rx.blocking_recv() {
+                {
+                    let mut live = lock(&l);
+                    let now = c();
+                    for (topic, payload) in &batch {
+                        live.record(topic, payload, now);
+                    }
+                }
+                version.send_modify(|v| *v += 1);
+            }
+        })?;
+    let dropped = Arc::new(AtomicU64::new(0));
+    let users = settings.http_users.clone();
+    if !users.is_empty() {
+        info!(users = %users.iter().map(|u| u.name.as_str()).collect::<Vec<_>>().join(","), "live page: logins for commands enabled");
+    }
+    let web = Web {
+        live,
+        updates,
+        dropped: dropped.clone(),
+        auth: Mutex::new(Auth::new(users)),
+        logins: Semaphore::new(1),
+        commands: commands.downgrade(),
+        prefix: settings.topic_prefix.clone(),
+        clock,
+        next_request: AtomicU64::new(1),
+    };
+    Ok((Tap { tx, dropped }, Arc::new(web)))
+}
+
+/// A response: status, content type, body, extra header lines.
+pub struct Reply {
+    pub status: u16,
+    pub ctype: &'static str,
+    pub body: String,
+    pub headers: Vec<String>,
+}
+
+fn reply(status: u16, body: Value) -> Reply {
+    Reply {
+        status,
+        ctype: "application/json",
+        body: body.to_string(),
+        headers: Vec::new(),
+    }
+}
+
+fn error(status: u16, message: impl std::fmt::Display) -> Reply {
+    reply(status, json!({ "error": message.to_string() }))
+}
+
+impl Web {
+    /// The page's routes; `None` when the path is not the page's.
+    pub async fn handle(&self, head: &Head, body: &[u8]) -> Option<Reply> {
+        let now = (self.clock)();
+        let token = head.cookie(COOKIE);
+        let r = match (head.method.as_str(), head.path.as_str()) {
+            ("GET", "/") => Reply {
+                status: 200,
+                ctype: "text/html; charset=utf-8",
+                body: crate::web::PAGE.to_string(),
+                headers: Vec::new(),
+            },
+            ("GET", "/api/plant") => Reply {
+                status: 200,
+                ctype: "application/json",
+                body: lock(&self.live).plant_json(now, self.dropped.load(Relaxed)),
+                headers: Vec::new(),
+            },
+            ("GET", p) if p.starts_with("/api/trend/") => {
+                let id = &p["/api/trend/".len()..];
+                let period = head.param("period").unwrap_or("8h");
+                match lock(&self.live).trend_json(id, period) {
+                    Some(body) => Reply {
+                        status: 200,
+                        ctype: "application/json",
+                        body,
+                        headers: Vec::new(),
+                    },
+                    None => error(404, "unknown reactor or period (1h, 8h, 24h, 7d)"),
+                }
+            }
+            ("GET", "/api/session") => match lock(&self.auth).session(token, now) {
+                Some((s, u)) => reply(200, session_json(&s, &u)),
+                None => error(401, "not logged in"),
+            },
+            ("POST", "/api/login") => self.login(head, body, now).await,
+            ("POST", "/api/logout") => {
+                let mut a = lock(&self.auth);
+                match a.authorize(token, head.header(CSRF_HEADER), None, now) {
+                    Err(e) => error(e.status(), e),
+                    Ok(user) => {
+                        a.logout(token);
+                        info!(user = %user, "live page: logged out");
+                        let mut r = reply(200, json!({ "user": null }));
+                        r.headers.push(format!(
+                            "Set-Cookie: {COOKIE}=; HttpOnly; SameSite=Strict; Path=/; Max-Age=0"
+                        ));
+                        r
+                    }
+                }
+            }
+            ("POST", "/api/command") => self.command(head, body, now).await,
+            _ => return None,
+        };
+        Some(r)
+    }
+
+    async fn login(&self, head: &Head, body: &[u8], now: i64) -> Reply {
+        if !head.is_json() {
+            return error(415, "send the login as application/json");
+        }
+        let (user, password) = match request::read_login(body) {
+            Ok(x) => x,
+            Err(e) => return error(400, e),
+        };
+        let stored = match lock(&self.auth).begin_login(&user, now) {
+            Ok(s) => s,
+            Err(e) => return error(429, e),
+        };
+        let Ok(_permit) = self.logins.acquire().await else {
+            return error(503, "shutting down");
+        };
+        let ok = tokio::task::spawn_blocking(move || auth::verify(&stored, password.as_bytes()))
+            .await
+            .unwrap_or(false);
+        let tokens = auth::random_token().and_then(|t| Ok((t, auth::random_token()?)));
+        let (token, csrf) = match tokens {
+            Ok(t) => t,
+            Err(e) => return error(500, e),
+        };
+        let now = (self.clock)();
+        let mut a = lock(&self.auth);
+        match a.finish_login(&user, ok, token.clone(), csrf, now) {
+            Err(e) => {
+                warn!(user = %user, error = %e, "live page: login refused");
+                let status = match e {
+                    auth::AuthError::Wrong => 401,
+                    auth::AuthError::Throttled(_) => 429,
+                    _ => 503,
+                };
+                error(status, e)
+            }
+            Ok(_) => {
+                info!(user = %user, "live page: logged in");
+                let body = a
+                    .session(Some(&token), now)
+                    .map_or(Value::Null, |(s, u)| session_json(&s, &u));
+                let mut r = reply(200, body);
+                r.headers.push(format!(
+                    "Set-Cookie: {COOKIE}={token}; HttpOnly; SameSite=Strict; Path=/; Max-Age={}",
+                    auth::ABSOLUTE_MS / 1000
+                ));
+                r
+            }
+        }
+    }
+
+    async fn command(&self, head: &Head, body: &[u8], now: i64) -> Reply {
+        // Who first: without a session nothing else is looked at.
+        let token = head.cookie(COOKIE);
+        let csrf = head.header(CSRF_HEADER);
+        if let Err(e) = lock(&self.auth).authorize(token, csrf, None, now) {
+            return error(e.status(), e);
+        }
+        if !head.is_json() {
+            return error(415, "send the command as application/json");
+        }
+        let c = match request::read_command(body) {
+            Ok(c) => c,
+            Err(e) => return error(400, e),
+        };
+        let user = match lock(&self.auth).authorize(token, csrf, Some(&c.command), now) {
+            Ok(u) => u,
+            Err(e) => return error(e.status(), e),
+        };
+        if !lock(&self.live).has_reactor(&c.reactor) {
+            return error(404, format!("no reactor \"{}\"", c.reactor));
+        }
+        let n = self.next_request.fetch_add(1, Relaxed);
+        let request_id = format!("page-{now}-{n}");
+        let raw = RawInput {
+            topic: format!("{}/{}/command", self.prefix, c.reactor),
+            payload: request::command_payload(&c, &user, &request_id).into_bytes(),
+            arrival_ms: now,
+        };
+        let mut updates = self.updates.clone();
+        let Some(commands) = self.commands.upgrade() else {
+            return error(503, "the evaluator has stopped");
+        };
+        if commands.send(raw).await.is_err() {
+            return error(503, "the evaluator has stopped");
+        }
+        drop(commands);
+        info!(user = %user, reactor = %c.reactor, command = %c.command, alarm = %c.alarm, request_id = %request_id, "live page: command handed to the evaluator");
+        let wait = async {
+            loop {
+                if let Some(o) = lock(&self.live).outcome(&request_id) {
+                    return o.clone();
+                }
+                if updates.changed().await.is_err() {
+                    return Value::Null;
+                }
+            }
+        };
+        match tokio::time::timeout(OUTCOME_WAIT, wait).await {
+            Ok(o) if !o.is_null() => reply(200, o),
+            _ => reply(
+                202,
+                json!({ "request_id": request_id, "message": "sent; its outcome is not in yet (see the alarm states)" }),
+            ),
+        }
+    }
+}
+
+fn session_json(s: &auth::Session, u: &crate::config::password::HttpUser) -> Value {
+    json!({
+        "user": u.name,
+        "may": u.may.iter().map(|p| p.as_str()).collect::<Vec<_>>(),
+        "csrf": s.csrf,
+        "expires": s.expires_ms(),
+    })
+}

@@ -1,0 +1,544 @@
+//! What the live page shows, kept from the records the pipeline emits: per reactor the
+//! latest result (the figures the page needs, not the whole message), the latest alarm
+//! states, and a bounded ring of recent headline figures for the trend chart; the last
+//! few command outcomes by request id. Pure: records and times in, JSON out.
+//!
+//! Memory: per reactor at most [`FINE_POINTS`] recent points and [`COARSE_POINTS`]
+//! 15-minute means ([`POINT_BYTES`] bytes each), plus the latest result and states (a
+//! few KB); [`OUTCOMES`] outcomes in all.
+
+use std::collections::{HashMap, VecDeque};
+
+use serde_json::{Map, Value, json};
+
+use crate::units::{HOUR_MS, MINUTE_MS};
+
+/// Recent points per reactor (12 h of one-minute analyses).
+pub const FINE_POINTS: usize = 720;
+/// Coarse points per reactor: 15-minute means over 7 days.
+pub const COARSE_POINTS: usize = 672;
+pub const COARSE_MS: i64 = 15 * MINUTE_MS;
+/// Bytes one point takes in memory.
+pub const POINT_BYTES: usize = std::mem::size_of::<Point>();
+/// Command outcomes kept for the page's requests to find theirs.
+pub const OUTCOMES: usize = 32;
+
+/// The chart's periods: name and length.
+pub const PERIODS: [(&str, i64); 4] = [
+    ("1h", HOUR_MS),
+    ("8h", 8 * HOUR_MS),
+    ("24h", 24 * HOUR_MS),
+    ("7d", 7 * 24 * HOUR_MS),
+];
+
+/// What a headline figure is (the result's `headline.figure` and unit).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Figure {
+    None,
+    ApproachK,
+    SlipPpm,
+    SlipMolPct,
+}
+
+impl Figure {
+    fn of(headline: &Value) -> Self {
+        match (
+            headline.get("figure").and_then(Value::as_str),
+            headline.get("unit").and_then(Value::as_str),
+        ) {
+            (Some("approach"), _) => Figure::ApproachK,
+            (Some("key-measured"), Some("ppm")) => Figure::SlipPpm,
+            (Some("key-measured"), Some("mol%")) => Figure::SlipMolPct,
+            _ => Figure::None,
+        }
+    }
+
+    fn unit(self) -> &'static str {
+        match self {
+            Figure::None => "",
+            Figure::ApproachK => "K",
+            Figure::SlipPpm => "ppm",
+            Figure::SlipMolPct => "mol%",
+        }
+    }
+
+    fn name(self) -> &'static str {
+        match self {
+            Figure::None => "none",
+            Figure::ApproachK => "approach",
+            Figure::SlipPpm | Figure::SlipMolPct => "key-measured",
+        }
+    }
+}
+
+/// One figure at an analysis time; NaN where the result had none (a gap on the chart).
+#[derive(Debug, Clone, Copy)]
+struct Point {
+    t_ms: i64,
+    value: f32,
+    /// ± of an approach (K); NaN otherwise.
+    u: f32,
+    figure: Figure,
+}
+
+/// The 15-minute mean being formed.
+#[derive(Debug, Clone, Copy)]
+struct Bucket {
+    start_ms: i64,
+    figure: Figure,
+    sum: f64,
+    sum_u: f64,
+    n: u32,
+    n_u: u32,
+}
+
+#[derive(Debug, Default)]
+struct ReactorLive {
+    id: String,
+    name: String,
+    result: Option<Value>,
+    alarms: Option<Value>,
+    received_ms: Option<i64>,
+    fine: VecDeque<Point>,
+    coarse: VecDeque<Point>,
+    bucket: Option<Bucket>,
+}
+
+impl ReactorLive {
+    fn push(&mut self, p: Point) {
+        // Out of order (a replayed record): the figures stand, the chart keeps its order.
+        if self.fine.back().is_some_and(|b| b.t_ms >= p.t_ms) {
+            return;
+        }
+        if self.fine.len() == FINE_POINTS {
+            self.fine.pop_front();
+        }
+        self.fine.push_back(p);
+        let start = p.t_ms - p.t_ms.rem_euclid(COARSE_MS);
+        if let Some(b) = self.bucket
+            && (b.start_ms != start || b.figure != p.figure)
+        {
+            self.close(b);
+            self.bucket = None;
+        }
+        let b = self.bucket.get_or_insert(Bucket {
+            start_ms: start,
+            figure: p.figure,
+            sum: 0.0,
+            sum_u: 0.0,
+            n: 0,
+            n_u: 0,
+        });
+        if p.value.is_finite() {
+            b.sum += f64::from(p.value);
+            b.n += 1;
+        }
+        if p.u.is_finite() {
+            b.sum_u += f64::from(p.u);
+            b.n_u += 1;
+        }
+    }
+
+    fn close(&mut self, b: Bucket) {
+        if self.coarse.len() == COARSE_POINTS {
+            self.coarse.pop_front();
+        }
+        let mean = |s: f64, n: u32| {
+            if n > 0 {
+                (s / f64::from(n)) as f32
+            } else {
+                f32::NAN
+            }
+        };
+        self.coarse.push_back(Point {
+            t_ms: b.start_ms + COARSE_MS / 2,
+            value: mean(b.sum, b.n),
+            u: mean(b.sum_u, b.n_u),
+            figure: b.figure,
+        });
+    }
+}
+
+/// See the module docs.
+#[derive(Debug)]
+pub struct Live {
+    site: String,
+    /// `<prefix>/`: records are `<prefix>/<reactor>/result`, `/alarms`, `/command/outcome`.
+    prefix: String,
+    index: HashMap<String, usize>,
+    reactors: Vec<ReactorLive>,
+    outcomes: VecDeque<(String, Value)>,
+}
+
+/// The keys of a result the page uses; the rest (inputs, mole fractions, budgets) stay out.
+const RESULT_KEYS: &[&str] = &[
+    "reactor",
+    "name",
+    "analysis_ts",
+    "evaluated_at",
+    "quality",
+    "reasons",
+    "headline",
+    "approach_k",
+    "approach_uncertainty_k",
+    "direction",
+    "temperature_k",
+    "pressure_bar",
+    "key_component",
+    "bed_rise",
+    "bed_profile",
+    "drift",
+];
+
+impl Live {
+    /// Reactors by id and name, in the configuration's order.
+    pub fn new(site: &str, topic_prefix: &str, reactors: &[(String, String)]) -> Self {
+        Self {
+            site: site.to_string(),
+            prefix: format!("{topic_prefix}/"),
+            index: reactors
+                .iter()
+                .enumerate()
+                .map(|(i, (id, _))| (id.clone(), i))
+                .collect(),
+            reactors: reactors
+                .iter()
+                .map(|(id, name)| ReactorLive {
+                    id: id.clone(),
+                    name: name.clone(),
+                    ..ReactorLive::default()
+                })
+                .collect(),
+            outcomes: VecDeque::new(),
+        }
+    }
+
+    /// One record as the pipeline emitted it; anything unreadable is ignored.
+    pub fn record(&mut self, topic: &str, payload: &str, now_ms: i64) {
+        let Some(rest) = topic.strip_prefix(&self.prefix) else {
+            return;
+        };
+        let Some((id, what)) = rest.split_once('/') else {
+            return;
+        };
+        let Some(&i) = self.index.get(id) else {
+            return;
+        };
+        let Ok(v) = serde_json::from_str::<Value>(payload) else {
+            return;
+        };
+        match what {
+            "result" => self.result(i, &v, now_ms),
+            "alarms" => self.reactors[i].alarms = Some(v),
+            "command/outcome" => {
+                if let Some(rid) = v.get("request_id").and_then(Value::as_str) {
+                    if self.outcomes.len() == OUTCOMES {
+                        self.outcomes.pop_front();
+                    }
+                    self.outcomes.push_back((rid.to_string(), v));
+                }
+            }
+            _ => {}
+        }
+    }
+
+    fn result(&mut self, i: usize, v: &Value, now_ms: i64) {
+        let page = page_result(v);
+        let headline = page.get("headline").cloned().unwrap_or(Value::Null);
+        let figure = Figure::of(&headline);
+        let num = |x: Option<&Value>| x.and_then(Value::as_f64).map_or(f32::NAN, |x| x as f32);
+        let t_ms = v
+            .get("analysis_ts")
+            .and_then(Value::as_str)
+            .and_then(crate::timefmt::parse_rfc3339);
+        let r = &mut self.reactors[i];
+        if let Some(t_ms) = t_ms {
+            r.push(Point {
+                t_ms,
+                value: num(headline.get("value")),
+                u: if figure == Figure::ApproachK {
+                    num(page.get("approach_uncertainty_k"))
+                } else {
+                    f32::NAN
+                },
+                figure,
+            });
+        }
+        r.result = Some(page);
+        r.received_ms = Some(now_ms);
+    }
+
+    /// The outcome of the command sent with `request_id`, once it is in.
+    pub fn outcome(&self, request_id: &str) -> Option<&Value> {
+        self.outcomes
+            .iter()
+            .rev()
+            .find(|(r, _)| r == request_id)
+            .map(|(_, v)| v)
+    }
+
+    pub fn has_reactor(&self, id: &str) -> bool {
+        self.index.contains_key(id)
+    }
+
+    /// `/api/plant`: every reactor's latest figures and alarm states; `dropped` is how
+    /// many batches of records the page skipped (it was behind the evaluator).
+    pub fn plant_json(&self, now_ms: i64, dropped: u64) -> String {
+        let reactors: Vec<Value> = self
+            .reactors
+            .iter()
+            .map(|r| {
+                json!({
+                    "id": r.id,
+                    "name": r.name,
+                    "received_at": r.received_ms,
+                    "result": r.result,
+                    "offline": r.alarms.as_ref().and_then(|a| a.get("offline")).cloned().unwrap_or(Value::Bool(false)),
+                    "alarms": r.alarms.as_ref().and_then(|a| a.get("alarms")).cloned().unwrap_or(Value::Array(Vec::new())),
+                })
+            })
+            .collect();
+        json!({
+            "schema": "eqwatch.page/1",
+            "site": self.site,
+            "now": now_ms,
+            "advisory": crate::wire::result::ADVISORY_SHORT,
+            "periods": PERIODS.iter().map(|(n, _)| *n).collect::<Vec<_>>(),
+            "dropped": dropped,
+            "reactors": reactors,
+        })
+        .to_string()
+    }
+
+    /// `/api/trend/<reactor>?period=<1h|8h|24h|7d>`: the latest figure's series over the
+    /// period before the latest point (coarse means where the recent ring does not
+    /// reach); `None` for an unknown reactor or period.
+    pub fn trend_json(&self, id: &str, period: &str) -> Option<String> {
+        let (_, len_ms) = PERIODS.iter().find(|(n, _)| *n == period)?;
+        let r = &self.reactors[*self.index.get(id)?];
+        let last = r.fine.back();
+        let figure = last.map_or(Figure::None, |p| p.figure);
+        let to_ms = last.map_or(0, |p| p.t_ms);
+        let from_ms = to_ms - len_ms;
+        let fine_from = r.fine.front().map_or(i64::MAX, |p| p.t_ms);
+        let num = |x: f32| {
+            if x.is_finite() {
+                json!((f64::from(x) * 1e4).round() / 1e4)
+            } else {
+                Value::Null
+            }
+        };
+        let points: Vec<Value> = r
+            .coarse
+            .iter()
+            .filter(|p| p.t_ms < fine_from)
+            .chain(r.fine.iter())
+            .filter(|p| p.t_ms >= from_ms)
+            .map(|p| {
+                // Another figure (the approach became not meaningful, say) is a gap.
+                if p.figure == figure {
+                    json!([p.t_ms, num(p.value), num(p.u)])
+                } else {
+                    json!([p.t_ms, null, null])
+                }
+            })
+            .collect();
+        Some(
+            json!({
+                "reactor": r.id,
+                "period": period,
+                "figure": figure.name(),
+                "unit": figure.unit(),
+                "from": from_ms,
+                "to": to_ms,
+                "points": points,
+            })
+            .to_string(),
+        )
+    }
+}
+
+/// The part of a result the page shows. Where the result names no approach as its
+/// headline (not meaningful, or a bad result), the approach figures are left out, so
+/// the page cannot show one.
+pub fn page_result(v: &Value) -> Value {
+    let mut out = Map::new();
+    for k in RESULT_KEYS {
+        if let Some(x) = v.get(*k) {
+            out.insert((*k).to_string(), x.clone());
+        }
+    }
+    let approach = v
+        .get("headline")
+        .and_then(|h| h.get("figure"))
+        .and_then(Value::as_str)
+        == Some("approach");
+    if !approach {
+        out.remove("approach_k");
+        out.remove("approach_uncertainty_k");
+    }
+    Value::Object(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const T0_MS: i64 = 1_796_083_200_000; // 2026-12-01T00:00:00Z
+
+    fn live() -> Live {
+        Live::new(
+            "test",
+            "eqwatch/test",
+            &[
+                ("lts1".into(), "LTS".into()),
+                ("mth1".into(), "Methanator".into()),
+            ],
+        )
+    }
+
+    /// A result as the pipeline writes it, cut to what matters here (values invented).
+    fn result(id: &str, t_ms: i64, headline: Value, approach: Option<f64>) -> String {
+        json!({
+            "schema": "eqwatch.result/1",
+            "reactor": id,
+            "analysis_ts": crate::timefmt::format_rfc3339(t_ms),
+            "quality": "good",
+            "reasons": [],
+            "headline": headline,
+            "approach_k": approach,
+            "approach_uncertainty_k": approach.map(|_| 0.5),
+            "mole_fractions": {"H2": 0.6},
+            "drift": {"trend_k_per_day": 0.1},
+        })
+        .to_string()
+    }
+
+    fn approach(v: f64) -> Value {
+        json!({"figure": "approach", "value": v, "unit": "K", "text": "approach"})
+    }
+
+    #[test]
+    fn the_plant_snapshot_has_each_reactor_in_order_with_its_latest_figures() {
+        let mut l = live();
+        let empty: Value = serde_json::from_str(&l.plant_json(T0_MS, 0)).unwrap();
+        assert_eq!(empty["reactors"][0]["id"], "lts1");
+        assert_eq!(empty["reactors"][1]["result"], Value::Null);
+        l.record(
+            "eqwatch/test/lts1/result",
+            &result("lts1", T0_MS, approach(12.0), Some(12.0)),
+            T0_MS + 5,
+        );
+        l.record(
+            "eqwatch/test/lts1/alarms",
+            r#"{"schema":"eqwatch.alarms/1","offline":false,"alarms":[{"alarm":"approach-high","state":"unacknowledged","mode":"active"}]}"#,
+            T0_MS + 5,
+        );
+        // Not for the page: another prefix, an unknown reactor, an event, not JSON.
+        l.record("other/lts1/result", "{}", T0_MS);
+        l.record("eqwatch/test/zzz/result", "{}", T0_MS);
+        l.record("eqwatch/test/lts1/alarm", "{}", T0_MS);
+        l.record("eqwatch/test/mth1/result", "not json", T0_MS);
+        let v: Value = serde_json::from_str(&l.plant_json(T0_MS + 10, 0)).unwrap();
+        assert_eq!(v["schema"], "eqwatch.page/1");
+        assert!(
+            v["advisory"]
+                .as_str()
+                .unwrap()
+                .contains("not a safety function")
+        );
+        let lts = &v["reactors"][0];
+        assert_eq!(lts["name"], "LTS");
+        assert_eq!(lts["received_at"], T0_MS + 5);
+        assert_eq!(lts["result"]["approach_k"], 12.0);
+        assert_eq!(lts["result"]["drift"]["trend_k_per_day"], 0.1);
+        assert!(lts["result"].get("mole_fractions").is_none(), "trimmed");
+        assert_eq!(lts["alarms"][0]["state"], "unacknowledged");
+        assert_eq!(v["reactors"][1]["result"], Value::Null);
+    }
+
+    #[test]
+    fn no_approach_reaches_the_page_where_the_result_names_none() {
+        let slip = json!({"figure": "key-measured", "value": 3.2, "unit": "ppm", "text": "CO slip 3.2 ppm"});
+        let mut raw: Value =
+            serde_json::from_str(&result("mth1", T0_MS, slip, Some(-40.0))).unwrap();
+        let page = page_result(&raw);
+        assert!(page.get("approach_k").is_none());
+        assert!(page.get("approach_uncertainty_k").is_none());
+        raw["headline"] = json!({"figure": "none", "value": null, "unit": "", "text": "bad"});
+        assert!(page_result(&raw).get("approach_k").is_none());
+    }
+
+    #[test]
+    fn the_trend_ring_is_bounded_and_periods_end_at_the_latest_point() {
+        let mut l = live();
+        let n = FINE_POINTS + 100;
+        for i in 0..n as i64 {
+            let t = T0_MS + i * MINUTE_MS;
+            l.record(
+                "eqwatch/test/lts1/result",
+                &result("lts1", t, approach(10.0 + i as f64 / 100.0), Some(1.0)),
+                t,
+            );
+        }
+        let r = &l.reactors[0];
+        assert_eq!(r.fine.len(), FINE_POINTS);
+        // 820 minutes of points: 54 closed quarter hours.
+        assert_eq!(r.coarse.len(), (n as i64 * MINUTE_MS / COARSE_MS) as usize);
+        let last_t = T0_MS + (n as i64 - 1) * MINUTE_MS;
+        let h: Value = serde_json::from_str(&l.trend_json("lts1", "1h").unwrap()).unwrap();
+        assert_eq!(h["unit"], "K");
+        assert_eq!(h["to"], last_t);
+        let pts = h["points"].as_array().unwrap();
+        assert_eq!(pts.len(), 61, "one-minute points over an hour, both ends");
+        assert_eq!(pts[60][0], last_t);
+        assert_eq!(pts[60][2], 0.5);
+        // 24 h reaches back past the recent ring: coarse means fill the older part.
+        let d: Value = serde_json::from_str(&l.trend_json("lts1", "24h").unwrap()).unwrap();
+        let d = d["points"].as_array().unwrap();
+        assert_eq!(d.len(), FINE_POINTS + 7, "{}", d.len());
+        assert!(d.windows(2).all(|w| w[0][0].as_i64() < w[1][0].as_i64()));
+        assert!(l.trend_json("lts1", "2h").is_none());
+        assert!(l.trend_json("nope", "1h").is_none());
+        // Never more than the bound, however long it runs.
+        const { assert!(COARSE_POINTS * POINT_BYTES + FINE_POINTS * POINT_BYTES <= 40 * 1024) };
+    }
+
+    #[test]
+    fn a_change_of_headline_figure_is_a_gap_on_the_chart() {
+        let mut l = live();
+        l.record(
+            "eqwatch/test/mth1/result",
+            &result("mth1", T0_MS, approach(2.0), Some(2.0)),
+            T0_MS,
+        );
+        let slip = json!({"figure": "key-measured", "value": 3.2, "unit": "ppm"});
+        l.record(
+            "eqwatch/test/mth1/result",
+            &result("mth1", T0_MS + MINUTE_MS, slip, None),
+            T0_MS,
+        );
+        let v: Value = serde_json::from_str(&l.trend_json("mth1", "1h").unwrap()).unwrap();
+        assert_eq!(v["unit"], "ppm");
+        assert_eq!(v["points"][0][1], Value::Null);
+        assert_eq!(v["points"][1][1], 3.2);
+    }
+
+    #[test]
+    fn outcomes_are_found_by_request_id_and_bounded() {
+        let mut l = live();
+        for i in 0..OUTCOMES + 3 {
+            l.record(
+                "eqwatch/test/lts1/command/outcome",
+                &format!(r#"{{"request_id":"r{i}","outcome":"accepted"}}"#),
+                T0_MS,
+            );
+        }
+        assert!(l.outcome("r0").is_none());
+        assert_eq!(
+            l.outcome(&format!("r{}", OUTCOMES + 2)).unwrap()["outcome"],
+            "accepted"
+        );
+        assert_eq!(l.outcomes.len(), OUTCOMES);
+    }
+}
