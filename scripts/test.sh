@@ -6,9 +6,11 @@ cd "$(dirname "$0")/.."
 
 step() { printf '\n==> %s\n' "$*"; }
 
-# Debian packages the integration tests need (the MQTT broker).
+# Debian packages the integration tests need (the MQTT broker, a browser).
 need_apt=()
 command -v mosquitto >/dev/null 2>&1 || [ -x /usr/sbin/mosquitto ] || need_apt+=(mosquitto)
+# A real headless browser for the live page's test (tests/page).
+[ -x /usr/bin/chromium ] || [ -x /usr/bin/chromium-browser ] || need_apt+=(chromium)
 if [ ${#need_apt[@]} -gt 0 ]; then
   step "installing ${need_apt[*]} (apt-get)"
   if [ "$(id -u)" = 0 ]; then SUDO=""; else SUDO="sudo"; fi
@@ -60,7 +62,7 @@ fi
 cargo build --no-default-features --features daemon --bin eqwatch
 
 step "cargo test --workspace"
-cargo test --workspace --all-targets
+EQWATCH_REQUIRE_BROWSER=1 cargo test --workspace --all-targets
 
 step "release build for the cross-checks"
 cargo build --release --bin eqwatch

@@ -297,6 +297,12 @@ fn card(dom: &str, id: &str) -> String {
 #[test]
 fn a_headless_browser_renders_the_reactors_figures_and_their_updates() {
     let Some(bin) = chromium() else {
+        // The test command (scripts/test.sh) installs chromium and sets this: there a
+        // missing browser is a failure, not a skip.
+        assert!(
+            std::env::var_os("EQWATCH_REQUIRE_BROWSER").is_none(),
+            "EQWATCH_REQUIRE_BROWSER is set but no chromium binary was found"
+        );
         println!(
             "SKIPPED: no chromium binary (/usr/bin/chromium); install the Debian package `chromium` to run this test"
         );
