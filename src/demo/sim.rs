@@ -1423,7 +1423,7 @@ pub const LTS_BED_RISE_K: f64 = 22.0;
 pub const LTS_DEAD_LAYER_M: f64 = 0.30;
 pub const LTS_DEAD_LAYER_M_PER_DAY: f64 = 0.00268;
 /// The live demo's compressed pace of the same, m per simulated hour.
-const LTS_DEMO_DEAD_LAYER_M_PER_H: f64 = 0.2;
+const LTS_DEMO_DEAD_LAYER_M_PER_H: f64 = 0.03;
 /// lts1's inlet analyser and its components (dry, in the feed's order).
 pub const LTS_INLET_ANALYSER: &str = "BAW1-AI-300";
 pub const LTS_INLET_COMPONENTS: [&str; 6] = ["H2", "N2", "CO", "CO2", "CH4", "Ar"];

@@ -158,7 +158,8 @@ struct HotSpotOut<'a> {
 /// The front's movement from daily means, and when it reaches the end-of-life depth.
 #[derive(Serialize)]
 struct FrontTrendOut {
-    /// `collecting` (fewer daily figures than a trend needs), `not-moving`, `forecast`.
+    /// `collecting` (fewer daily figures than a trend needs), `not-moving`, `forecast`,
+    /// or `reached` (this sample's front at or past the end-of-life depth).
     state: &'static str,
     days: usize,
     rate_m_per_day: Option<f64>,
@@ -182,8 +183,11 @@ fn bed_profile_out<'a>(
     let front = profile.and_then(|p| p.front.ok());
     let day_ms = |d: f64| format_rfc3339((d * crate::units::DAY_MS as f64) as i64);
     let forecast = drift.and_then(|d| d.front);
+    // The front already at or past the end-of-life depth is that, whatever the trend.
+    let reached = front.is_some_and(|f| f.depth_m >= g.end_of_life_depth_m);
     let front_trend = FrontTrendOut {
         state: match forecast.map(|f| f.end_of_life) {
+            _ if reached => "reached",
             None => "collecting",
             Some(EndOfRun::NotRising) => "not-moving",
             Some(EndOfRun::At { .. }) => "forecast",
