@@ -41,7 +41,8 @@ pub use error::{ConfigErrors, ConfigProblem};
 pub use files::load;
 pub use settings::{
     BrokerSettings, CommandSettings, CompositionSource, JournalSettings, MqttProtocol,
-    ReactorSettings, ScalarDecoder, ScalarSource, Settings, SparkplugSettings, SpbRef, Wiring,
+    ReactorSettings, ScalarDecoder, ScalarSource, Settings, SparkplugSettings, SpbRef,
+    TrainSettings, Wiring,
 };
 pub use summary::summary;
 pub use validate::broker::override_broker;

@@ -32,6 +32,17 @@ pub(crate) struct RawConfig {
     pub timestamps: Option<RawTimestamps>,
     /// Eclipse Sparkplug B: inputs from edge nodes, results as an edge node.
     pub sparkplug: Option<RawSparkplug>,
+    /// Trains of units (or the beds of one converter) summarised together.
+    #[serde(default)]
+    pub trains: BTreeMap<String, RawTrain>,
+}
+
+/// `[trains.<id>]`: reactors summarised together, in process order.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(crate) struct RawTrain {
+    pub name: Option<String>,
+    pub reactors: Vec<String>,
 }
 
 /// `[sparkplug]`: eqwatch's own Sparkplug connection.

@@ -38,6 +38,17 @@ pub struct Settings {
     pub commands: CommandSettings,
     /// `[sparkplug]`, when present.
     pub sparkplug: Option<SparkplugSettings>,
+    /// `[trains.<id>]`: units (or beds) summarised together.
+    pub trains: Vec<TrainSettings>,
+}
+
+/// A train of units or the beds of one converter, in process order.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TrainSettings {
+    pub id: String,
+    pub name: String,
+    /// Indices into [`Settings::reactors`].
+    pub members: Vec<usize>,
 }
 
 /// eqwatch's Sparkplug B connection (`[sparkplug]`): its own client id, clean session.

@@ -122,6 +122,24 @@ pub fn summary(settings: &Settings) -> String {
     for reactor in &settings.reactors {
         reactor_rows(&mut rows, &settings.species, reactor);
     }
+    for t in &settings.trains {
+        let ids: Vec<&str> = t
+            .members
+            .iter()
+            .filter_map(|&r| settings.reactors.get(r).map(|x| x.spec.id.as_str()))
+            .collect();
+        rows.row(
+            "train",
+            format!(
+                "{}: {} ({}) on {}/train/{}",
+                t.id,
+                t.name,
+                ids.join(" -> "),
+                settings.topic_prefix,
+                t.id
+            ),
+        );
+    }
     if !settings.commands.allowed_users.is_empty() || !settings.commands.allowed_clients.is_empty()
     {
         rows.row(

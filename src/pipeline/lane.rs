@@ -37,6 +37,9 @@ pub(super) struct Topics {
 pub struct Sink {
     pub records: Vec<Append>,
     pub(super) marks: Vec<Mark>,
+    /// The latest figures of reactors in a `[trains]` entry (the plant-wide part
+    /// publishes the train summaries).
+    pub(super) members: Vec<crate::wire::train::Member>,
 }
 
 /// A place in a sink's records where events were published.
@@ -50,11 +53,12 @@ pub(super) struct Mark {
 
 impl Sink {
     pub fn is_empty(&self) -> bool {
-        self.records.is_empty() && self.marks.is_empty()
+        self.records.is_empty() && self.marks.is_empty() && self.members.is_empty()
     }
-    /// Whether alert or alarm events were published (the flood count must see them).
+    /// Whether the plant-wide part must see these records: alert or alarm events (the
+    /// flood count) or a train member's figures (the train summary).
     pub fn has_events(&self) -> bool {
-        !self.marks.is_empty()
+        !self.marks.is_empty() || !self.members.is_empty()
     }
 }
 
@@ -210,6 +214,10 @@ impl Lane {
                 retain: false,
                 payload: wire::metrics::encode_metrics(&settings.site, rs, e, Some(&fig)),
             });
+        }
+        if settings.trains.iter().any(|t| t.members.contains(&self.r)) {
+            sink.members
+                .push(crate::wire::train::Member::of(self.r, rs, e, &fig));
         }
         if let Some(t) = self.trace.as_mut() {
             t.last_drift = Some(fig);

@@ -234,7 +234,19 @@ mod tests {
     fn consistent_inlet_and_outlet_reconcile_and_a_drifting_analyser_is_named() {
         let (mut e, _m) = engine();
         // No wobble on the first sample (at T0).
-        let v = lts1_result(&lts1_sample(&mut e, T0_MS, 1.0));
+        let out = lts1_sample(&mut e, T0_MS, 1.0);
+        // lts1 is in the demo's shift train: its summary follows the result, retained,
+        // waiting for hts1's first result.
+        let train = out
+            .iter()
+            .find(|a| a.topic == "eqwatch/baw1/train/shift")
+            .expect("the train summary");
+        assert!(train.retain);
+        let t = json(train);
+        assert_eq!(t["quality"], "no-result", "{t}");
+        assert_eq!(t["members"][0]["reactor"], "lts1");
+        assert_eq!(t["members"][0]["balances"], "pass");
+        let v = lts1_result(&out);
         let rc = &v["reconciliation"];
         assert_eq!(rc["available"], true, "{rc}");
         // Balanced by construction: every element closes before and after.

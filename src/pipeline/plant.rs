@@ -20,6 +20,7 @@ pub struct Plant {
     metrics: Arc<Metrics>,
     alert_topic: String,
     alarms_topic: String,
+    trains: Vec<crate::wire::train::Train>,
 }
 
 impl Plant {
@@ -29,6 +30,11 @@ impl Plant {
             metrics,
             alert_topic: settings.daemon_topic("alert"),
             alarms_topic: settings.daemon_topic("alarms"),
+            trains: settings
+                .trains
+                .iter()
+                .map(|t| crate::wire::train::Train::new(t, &settings.site, &settings.topic_prefix))
+                .collect(),
         }
     }
 
@@ -44,6 +50,21 @@ impl Plant {
             self.events(flood, m.now_ms, out);
         }
         out.extend(records);
+        // Each train a member of which has a new result: its summary, after the records.
+        let members = std::mem::take(&mut sink.members);
+        for t in &mut self.trains {
+            let mut changed = false;
+            for m in &members {
+                changed |= t.update(m);
+            }
+            if changed {
+                out.push(Append {
+                    topic: t.topic.clone(),
+                    retain: true,
+                    payload: t.encode(),
+                });
+            }
+        }
     }
 
     /// The flood window moves on with time.

@@ -17,6 +17,7 @@ pub(crate) mod result;
 pub(crate) mod sparkplug;
 #[cfg(feature = "sparkplug")]
 pub(crate) mod sparkplug_b;
+pub(crate) mod train;
 pub(crate) mod watch;
 
 /// Non-finite numbers go out as `null` (JSON has no NaN), never as a made-up value.

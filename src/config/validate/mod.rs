@@ -132,10 +132,12 @@ pub(crate) fn validate(
         shard.as_deref(),
         uses_spb,
     );
+    let trains = trains(&mut problems, &raw.trains, &reactors);
     if !problems.is_empty() {
         return Err(problems.into_errors());
     }
     Ok(Settings {
+        trains,
         commands,
         site: raw.site.clone(),
         shard,
@@ -150,6 +152,58 @@ pub(crate) fn validate(
         reactors,
         sparkplug,
     })
+}
+
+/// `[trains.<id>]`: at least two configured reactors each, none twice.
+fn trains(
+    problems: &mut Problems,
+    raw: &std::collections::BTreeMap<String, crate::config::raw::RawTrain>,
+    reactors: &[crate::config::ReactorSettings],
+) -> Vec<crate::config::settings::TrainSettings> {
+    let mut out = Vec::new();
+    for (id, t) in raw {
+        let path = crate::config::error::key_path("trains", id);
+        let bare = !id.is_empty()
+            && id
+                .chars()
+                .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_');
+        if !bare {
+            problems.add(
+                path.clone(),
+                "a train id is letters, digits, `-` and `_` only",
+            );
+            continue;
+        }
+        let mut members = Vec::new();
+        for (i, r) in t.reactors.iter().enumerate() {
+            match reactors.iter().position(|x| x.spec.id == r.trim()) {
+                Some(k) if members.contains(&k) => problems.add(
+                    format!("{path}.reactors[{i}]"),
+                    format!("\"{r}\" is listed twice"),
+                ),
+                Some(k) => members.push(k),
+                None => {
+                    let known: Vec<&str> = reactors.iter().map(|x| x.spec.id.as_str()).collect();
+                    problems.add(
+                        format!("{path}.reactors[{i}]"),
+                        format!("\"{r}\" is not a configured reactor ({})", known.join(", ")),
+                    );
+                }
+            }
+        }
+        if t.reactors.len() < 2 {
+            problems.add(
+                format!("{path}.reactors"),
+                "a train needs at least two reactors, in process order",
+            );
+        }
+        out.push(crate::config::settings::TrainSettings {
+            id: id.clone(),
+            name: t.name.clone().unwrap_or_else(|| id.clone()),
+            members,
+        });
+    }
+    out
 }
 
 /// Every input topic as written (for the `[sparkplug]` requirement).
