@@ -5,6 +5,31 @@ use std::collections::BTreeMap;
 use serde::Deserialize;
 use toml::Spanned;
 
+/// A table of one scalar input: the keys every scalar input has (`tag`, `topic`, the
+/// decoder and its JSON Pointers, `unit`, `max_age`, `plausible`), and the table's own
+/// keys before them. Unknown keys are refused.
+macro_rules! scalar_table {
+    ($(#[$outer:meta])* $vis:vis struct $name:ident { $($(#[$m:meta])* $fvis:vis $field:ident : $ty:ty,)* }) => {
+        $(#[$outer])*
+        #[derive(Debug, Clone, Deserialize)]
+        #[serde(deny_unknown_fields)]
+        $vis struct $name {
+            $($(#[$m])* $fvis $field: $ty,)*
+            pub tag: Option<String>,
+            pub topic: Option<String>,
+            pub decoder: Option<String>,
+            pub value_pointer: Option<String>,
+            pub ts_pointer: Option<String>,
+            pub quality_pointer: Option<String>,
+            pub unit_pointer: Option<String>,
+            pub unit: Option<String>,
+            pub max_age: Option<String>,
+            /// `[low, high]` in the input's configured unit; outside it a reading is implausible.
+            pub plausible: Option<[f64; 2]>,
+        }
+    };
+}
+
 /// The configuration file as written. Every table refuses unknown keys; values stay
 /// text (units, durations) until [`from_str`] validates them into [`Settings`].
 #[derive(Debug, Clone, Deserialize)]
@@ -164,25 +189,15 @@ pub(crate) struct RawReconcile {
     pub alert_after: Option<i64>,
 }
 
-/// `[[reactors.<id>.flow]]`: a flow meter: the scalar input keys, which stream it
-/// measures and its standard deviation.
-#[derive(Debug, Clone, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(crate) struct RawFlow {
-    /// `inlet` (dry gas in), `outlet` (dry gas out) or `steam` (steam in).
-    pub stream: Option<String>,
-    /// One standard deviation, e.g. `"1.5 %"` of the reading (default 2 %).
-    pub uncertainty: Option<String>,
-    pub tag: Option<String>,
-    pub topic: Option<String>,
-    pub decoder: Option<String>,
-    pub value_pointer: Option<String>,
-    pub ts_pointer: Option<String>,
-    pub quality_pointer: Option<String>,
-    pub unit_pointer: Option<String>,
-    pub unit: Option<String>,
-    pub max_age: Option<String>,
-    pub plausible: Option<[f64; 2]>,
+scalar_table! {
+    /// `[[reactors.<id>.flow]]`: a flow meter: the scalar input keys, which stream it
+    /// measures and its standard deviation.
+    pub(crate) struct RawFlow {
+        /// `inlet` (dry gas in), `outlet` (dry gas out) or `steam` (steam in).
+        pub stream: Option<String>,
+        /// One standard deviation, e.g. `"1.5 %"` of the reading (default 2 %).
+        pub uncertainty: Option<String>,
+    }
 }
 
 /// `[reactors.<id>.normalise]`: the drift statistics on the approach normalised for
@@ -218,23 +233,13 @@ pub(crate) struct RawBedProfile {
     pub thermocouple: Vec<RawBedThermocouple>,
 }
 
-/// `[[reactors.<id>.bed_profile.thermocouple]]`: the scalar input keys, its depth from
-/// the top of the catalyst and, for `wabt = "weighted"`, its weight.
-#[derive(Debug, Clone, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(crate) struct RawBedThermocouple {
-    pub depth: Option<String>,
-    pub weight: Option<f64>,
-    pub tag: Option<String>,
-    pub topic: Option<String>,
-    pub decoder: Option<String>,
-    pub value_pointer: Option<String>,
-    pub ts_pointer: Option<String>,
-    pub quality_pointer: Option<String>,
-    pub unit_pointer: Option<String>,
-    pub unit: Option<String>,
-    pub max_age: Option<String>,
-    pub plausible: Option<[f64; 2]>,
+scalar_table! {
+    /// `[[reactors.<id>.bed_profile.thermocouple]]`: the scalar input keys, its depth from
+    /// the top of the catalyst and, for `wabt = "weighted"`, its weight.
+    pub(crate) struct RawBedThermocouple {
+        pub depth: Option<String>,
+        pub weight: Option<f64>,
+    }
 }
 
 /// `[reactors.<id>.bed_rise]`: the methanator's bed temperature rise check.
@@ -293,20 +298,9 @@ pub(crate) struct RawComposition {
     pub detection_limits: Option<BTreeMap<String, String>>,
 }
 
-#[derive(Debug, Clone, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(crate) struct RawScalar {
-    pub tag: Option<String>,
-    pub topic: Option<String>,
-    pub decoder: Option<String>,
-    pub value_pointer: Option<String>,
-    pub ts_pointer: Option<String>,
-    pub quality_pointer: Option<String>,
-    pub unit_pointer: Option<String>,
-    pub unit: Option<String>,
-    pub max_age: Option<String>,
-    /// `[low, high]` in the input's configured unit; outside it a reading is implausible.
-    pub plausible: Option<[f64; 2]>,
+scalar_table! {
+    /// `[[reactors.<id>.temperature]]` and `[reactors.<id>.pressure]`.
+    pub(crate) struct RawScalar {}
 }
 
 /// A fixed `value`, or a measured ratio (`topic` and the scalar keys; no unit).

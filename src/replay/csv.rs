@@ -338,6 +338,15 @@ pub(super) struct RowHooks<'a> {
 pub(super) type RowBatch<'a> =
     dyn FnMut(Vec<(i64, Vec<RowItems>)>, &mut Summary) -> Result<(), ReplayError> + 'a;
 
+/// One analyser column group of a row: values per reactor, whether present, quality,
+/// and the input it becomes.
+type Analyser<'a> = (
+    &'a [Vec<Option<f64>>],
+    &'a [bool],
+    &'a [SourceQuality],
+    fn(AnalysisReading) -> Input,
+);
+
 /// One row's cells as read and checked, reused from row to row.
 #[derive(Default)]
 struct RowCells {
@@ -498,33 +507,35 @@ impl RowCells {
         }
         // Inlet analyses before the outlet ones: an outlet analysis of this row is
         // reconciled with the inlet analysis of the same row.
-        for (r, values) in self.inlet.iter().enumerate() {
-            order += 1;
-            if !self.inlet_present[r] {
-                continue;
+        let analysers: [Analyser<'_>; 2] = [
+            (
+                &self.inlet,
+                &self.inlet_present,
+                &self.inlet_quality,
+                Input::InletAnalysis,
+            ),
+            (
+                &self.analyses,
+                &self.analysis_present,
+                &self.analysis_quality,
+                Input::Analysis,
+            ),
+        ];
+        for (values, present, quality, make) in analysers {
+            for (r, values) in values.iter().enumerate() {
+                order += 1;
+                if !present[r] {
+                    continue;
+                }
+                readings += 1;
+                let input = make(AnalysisReading {
+                    ts_ms: t,
+                    values: values.clone(),
+                    basis: None,
+                    quality: quality[r],
+                });
+                per_worker[plan.assign[r]].push((order, r, input));
             }
-            readings += 1;
-            let input = Input::InletAnalysis(AnalysisReading {
-                ts_ms: t,
-                values: values.clone(),
-                basis: None,
-                quality: self.inlet_quality[r],
-            });
-            per_worker[plan.assign[r]].push((order, r, input));
-        }
-        for (r, values) in self.analyses.iter().enumerate() {
-            order += 1;
-            if !self.analysis_present[r] {
-                continue;
-            }
-            readings += 1;
-            let input = Input::Analysis(AnalysisReading {
-                ts_ms: t,
-                values: values.clone(),
-                basis: None,
-                quality: self.analysis_quality[r],
-            });
-            per_worker[plan.assign[r]].push((order, r, input));
         }
         HeldRow {
             line,

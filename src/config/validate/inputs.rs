@@ -137,62 +137,35 @@ pub(crate) struct ScalarFields<'a> {
     plausible: Option<[f64; 2]>,
 }
 
-impl<'a> From<&'a RawScalar> for ScalarFields<'a> {
-    fn from(r: &'a RawScalar) -> Self {
-        Self {
-            tag: r.tag.as_deref(),
-            topic: r.topic.as_deref(),
-            decoder: r.decoder.as_deref(),
-            pointers: PointerKeys {
-                value: r.value_pointer.as_deref(),
-                ts: r.ts_pointer.as_deref(),
-                quality: r.quality_pointer.as_deref(),
-                unit: r.unit_pointer.as_deref(),
-            },
-            unit: r.unit.as_deref(),
-            max_age: r.max_age.as_deref(),
-            plausible: r.plausible,
+/// The shared scalar keys of each table made by `scalar_table!` (config/raw.rs).
+macro_rules! scalar_fields_from {
+    ($($t:ty),*) => {$(
+        impl<'a> From<&'a $t> for ScalarFields<'a> {
+            fn from(r: &'a $t) -> Self {
+                Self {
+                    tag: r.tag.as_deref(),
+                    topic: r.topic.as_deref(),
+                    decoder: r.decoder.as_deref(),
+                    pointers: PointerKeys {
+                        value: r.value_pointer.as_deref(),
+                        ts: r.ts_pointer.as_deref(),
+                        quality: r.quality_pointer.as_deref(),
+                        unit: r.unit_pointer.as_deref(),
+                    },
+                    unit: r.unit.as_deref(),
+                    max_age: r.max_age.as_deref(),
+                    plausible: r.plausible,
+                }
+            }
         }
-    }
+    )*};
 }
 
-impl<'a> From<&'a crate::config::raw::RawBedThermocouple> for ScalarFields<'a> {
-    fn from(r: &'a crate::config::raw::RawBedThermocouple) -> Self {
-        Self {
-            tag: r.tag.as_deref(),
-            topic: r.topic.as_deref(),
-            decoder: r.decoder.as_deref(),
-            pointers: PointerKeys {
-                value: r.value_pointer.as_deref(),
-                ts: r.ts_pointer.as_deref(),
-                quality: r.quality_pointer.as_deref(),
-                unit: r.unit_pointer.as_deref(),
-            },
-            unit: r.unit.as_deref(),
-            max_age: r.max_age.as_deref(),
-            plausible: r.plausible,
-        }
-    }
-}
-
-impl<'a> From<&'a crate::config::raw::RawFlow> for ScalarFields<'a> {
-    fn from(r: &'a crate::config::raw::RawFlow) -> Self {
-        Self {
-            tag: r.tag.as_deref(),
-            topic: r.topic.as_deref(),
-            decoder: r.decoder.as_deref(),
-            pointers: PointerKeys {
-                value: r.value_pointer.as_deref(),
-                ts: r.ts_pointer.as_deref(),
-                quality: r.quality_pointer.as_deref(),
-                unit: r.unit_pointer.as_deref(),
-            },
-            unit: r.unit.as_deref(),
-            max_age: r.max_age.as_deref(),
-            plausible: r.plausible,
-        }
-    }
-}
+scalar_fields_from!(
+    RawScalar,
+    crate::config::raw::RawBedThermocouple,
+    crate::config::raw::RawFlow
+);
 
 impl<'a> From<&'a RawSteamRatio> for ScalarFields<'a> {
     fn from(r: &'a RawSteamRatio) -> Self {
