@@ -8,6 +8,7 @@
 //! - `pipeline` (crate-private, feature `cli`): route, decode, monitor, watch, commands.
 //! - `replay` (feature `cli`): CSV history through the pipeline; results and plots.
 //! - [`plot`]: SVG charts rendered as strings.
+//! - `report` (feature `cli`): a period's catalyst report as HTML from published records.
 //! - `daemon` (feature `daemon`): MQTT, journal, HTTP, signals; the only tokio.
 //! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
 //! - [`demo`]: the invented plant ([`demo::sim`]) and the one-command demo (feature `daemon`).
@@ -39,6 +40,8 @@ pub mod daemon;
 pub(crate) mod pipeline;
 #[cfg(feature = "cli")]
 pub mod replay;
+#[cfg(feature = "cli")]
+pub(crate) mod report;
 #[cfg(feature = "cli")]
 pub(crate) mod wire;
 

@@ -11,6 +11,7 @@ mod disk;
 mod fleet;
 mod monitor;
 mod replay;
+mod report;
 mod service;
 mod session;
 mod site;
