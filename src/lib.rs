@@ -8,6 +8,7 @@
 //! - `pipeline` (crate-private, feature `cli`): route, decode, monitor, watch, commands.
 //! - `replay` (feature `cli`): CSV history through the pipeline; results and plots.
 //! - [`plot`]: SVG charts rendered as strings.
+//! - `report` (feature `cli`): a period's catalyst report as HTML from published records.
 //! - `daemon` (feature `daemon`): MQTT, journal, HTTP, signals; the only tokio.
 //! - `web` (feature `daemon`): the live page, its sessions and what it shows (pure).
 //! - `cli` (feature `cli`): the engineer's calculator behind `eqwatch calc|equilibrium|species`.
@@ -42,6 +43,8 @@ pub(crate) mod pipeline;
 pub mod replay;
 #[cfg(feature = "daemon")]
 pub mod web;
+#[cfg(feature = "cli")]
+pub(crate) mod report;
 #[cfg(feature = "cli")]
 pub(crate) mod wire;
 

@@ -159,6 +159,27 @@ enum Command {
         #[arg(long, default_value = "error")]
         log_level: String,
     },
+    /// A period's catalyst report as one printable HTML file, from the JSON lines that
+    /// `replay --out` writes (or a daemon journal segment).
+    Report {
+        #[arg(long)]
+        config: PathBuf,
+        /// JSON lines of records (`replay --out`, or a journal segment).
+        #[arg(long)]
+        input: PathBuf,
+        /// The HTML file to write.
+        #[arg(long)]
+        out: PathBuf,
+        /// Start of the period (RFC 3339, included; default: the first record).
+        #[arg(long)]
+        from: Option<String>,
+        /// End of the period (RFC 3339, excluded; default: after the last record).
+        #[arg(long)]
+        to: Option<String>,
+        /// Report only this reactor (repeat for more; default: every reactor).
+        #[arg(long = "reactor")]
+        reactors: Vec<String>,
+    },
     /// The one-command demo: embedded broker, simulated plant, the daemon, a live table.
     ///
     /// The demo works in a folder of its own: the daemon's journal (var/journal), its log
@@ -520,6 +541,30 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 plot_tz,
                 threads,
             })?;
+            Ok((serde_json::Value::String(text), false))
+        }
+        Command::Report {
+            config,
+            input,
+            out,
+            from,
+            to,
+            reactors,
+        } => {
+            let now_ms = std::time::SystemTime::now()
+                .duration_since(std::time::UNIX_EPOCH)
+                .map_or(0, |d| d.as_millis() as i64);
+            let text = cli::report(
+                &cli::ReportArgs {
+                    config: &config,
+                    input: &input,
+                    out: &out,
+                    from: from.as_deref(),
+                    to: to.as_deref(),
+                    reactors: &reactors,
+                },
+                now_ms,
+            )?;
             Ok((serde_json::Value::String(text), false))
         }
         #[cfg(feature = "demo-broker")]

@@ -187,6 +187,20 @@ const RULES: &[Rule] = &[
         modules: &["config", "pipeline", "replay", "plot", "wire"],
         crates: &[],
     },
+    // The period's report, pure: records (JSON) in, HTML with the charts out. No files or
+    // clock (the command reads them), no configuration (it is handed the reactors), no
+    // pipeline or daemon: it reads what was published, not how it was made.
+    Rule {
+        path: "src/report",
+        modules: &["plot", "timefmt", "units", "report"],
+        crates: &["serde_json", "thiserror"],
+    },
+    // `eqwatch report`: reads the file and the configuration, hands lines to the report.
+    Rule {
+        path: "src/cli/report.rs",
+        modules: &["cli", "config", "report", "timefmt"],
+        crates: &["thiserror"],
+    },
     // The calculator: the core and JSON; no daemon.
     Rule {
         path: "src/cli",

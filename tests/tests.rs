@@ -12,6 +12,7 @@ mod fleet;
 mod monitor;
 mod page;
 mod replay;
+mod report;
 mod service;
 mod session;
 mod site;

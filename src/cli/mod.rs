@@ -1,6 +1,7 @@
 //! The engineer's calculator, one file per command: `eqwatch calc` ([`calc`]),
 //! `eqwatch equilibrium` ([`equilibrium`]), `eqwatch species` ([`species`]), and the
-//! plain-text table any JSON answer prints as ([`table`]). `eqwatch check` is the
+//! plain-text table any JSON answer prints as ([`table`]), and `eqwatch report` ([`report`]:
+//! the period's HTML report from published records; its own rule, it reads the configuration). `eqwatch check` is the
 //! configuration's own summary (`crate::config::summary`).
 //!
 //! Turns command-line text into core calls and results into JSON (key names carry
@@ -13,11 +14,13 @@
 
 mod calc;
 mod equilibrium;
+mod report;
 mod species;
 mod table;
 
 pub use calc::{CalcInput, calc, calc_table, parse_uncertainty, temperature_unit_of};
 pub use equilibrium::{EquilibriumInput, equilibrium};
+pub use report::{ReportArgs, report};
 pub use species::species;
 pub use table::table;
 

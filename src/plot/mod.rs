@@ -35,7 +35,8 @@
 //! and time axes, ticks, the grid), `series` (decimation, lines, bands, gaps), `markers`
 //! (shapes, numbers, the event list), `legend`, `prepare` (sorting, projection, time domain),
 //! `approach` and `key` (the two charts of a reactor), `reactor` and `overview` (the two
-//! documents); `test_support` holds the tests' shared helpers. Within the crate these files
+//! documents), `daily` (a small chart of one value per day, for the period report);
+//! `test_support` holds the tests' shared helpers. Within the crate these files
 //! may import only `crate::units`, `crate::timefmt` and each other (`tests/architecture.rs`),
 //! and never a file, stream, network or clock API (`pure_and_deterministic` below).
 //!
@@ -52,6 +53,7 @@ macro_rules! w {
 
 mod approach;
 mod axes;
+mod daily;
 mod key;
 mod legend;
 mod markers;
@@ -63,6 +65,7 @@ mod series;
 mod style;
 mod svg;
 
+pub use daily::{DailyChart, DailyLimit, DailySeries, daily_svg};
 pub use model::{
     AggregatePoint, AlarmLimit, BaselineSpan, Marker, MarkerKind, OfflineSpan, PlotPoint,
     Projection, ReactorPlot, TimeZone, TimeZoneError,
@@ -86,6 +89,7 @@ mod tests {
             ("mod.rs", include_str!("mod.rs")),
             ("approach.rs", include_str!("approach.rs")),
             ("axes.rs", include_str!("axes.rs")),
+            ("daily.rs", include_str!("daily.rs")),
             ("key.rs", include_str!("key.rs")),
             ("legend.rs", include_str!("legend.rs")),
             ("markers.rs", include_str!("markers.rs")),
