@@ -41,10 +41,10 @@ pub mod daemon;
 pub(crate) mod pipeline;
 #[cfg(feature = "cli")]
 pub mod replay;
-#[cfg(feature = "daemon")]
-pub mod web;
 #[cfg(feature = "cli")]
 pub(crate) mod report;
+#[cfg(feature = "daemon")]
+pub mod web;
 #[cfg(feature = "cli")]
 pub(crate) mod wire;
 
