@@ -185,28 +185,29 @@ fn bed_profile_out<'a>(
     let forecast = drift.and_then(|d| d.front);
     // The front already at or past the end-of-life depth is that, whatever the trend.
     let reached = front.is_some_and(|f| f.depth_m >= g.end_of_life_depth_m);
+    let end_of_life = forecast.map(|f| f.end_of_life);
+    let dates = match end_of_life {
+        Some(EndOfRun::At {
+            day,
+            earliest,
+            latest,
+        }) => Some((day, earliest, latest)),
+        _ => None,
+    };
+    let state = match end_of_life {
+        _ if reached => "reached",
+        None => "collecting",
+        Some(EndOfRun::NotRising) => "not-moving",
+        Some(EndOfRun::At { .. }) => "forecast",
+    };
     let front_trend = FrontTrendOut {
-        state: match forecast.map(|f| f.end_of_life) {
-            _ if reached => "reached",
-            None => "collecting",
-            Some(EndOfRun::NotRising) => "not-moving",
-            Some(EndOfRun::At { .. }) => "forecast",
-        },
+        state,
         days: drift.map_or(0, |d| d.front_days),
         rate_m_per_day: forecast.and_then(|f| finite(f.rate_m_per_day)),
         rate_interval_m_per_day: forecast.map(|f| [f.rate_interval.0, f.rate_interval.1]),
-        end_of_life: match forecast.map(|f| f.end_of_life) {
-            Some(EndOfRun::At { day, .. }) => Some(day_ms(day)),
-            _ => None,
-        },
-        earliest: match forecast.map(|f| f.end_of_life) {
-            Some(EndOfRun::At { earliest, .. }) => Some(day_ms(earliest)),
-            _ => None,
-        },
-        latest: match forecast.map(|f| f.end_of_life) {
-            Some(EndOfRun::At { latest, .. }) => latest.map(day_ms),
-            _ => None,
-        },
+        end_of_life: dates.map(|d| day_ms(d.0)),
+        earliest: dates.map(|d| day_ms(d.1)),
+        latest: dates.and_then(|d| d.2.map(day_ms)),
     };
     BedProfileOut {
         available: profile.is_some(),

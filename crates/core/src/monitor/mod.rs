@@ -641,31 +641,13 @@ impl ReactorMonitor {
         let bp = case.spec.bed_profile.as_ref()?;
         let mut points = Vec::with_capacity(bp.thermocouples.len());
         for (i, ((tc, depth_m), buffer)) in bp.thermocouples.iter().zip(&self.bed).enumerate() {
-            let (value, age_ms, used) = match buffer.at(t_sample, ms(tc.max_age)) {
-                Lookup::Value {
-                    value,
-                    quality,
-                    age_ms,
-                } => {
-                    let used = quality != SourceQuality::Bad && tc.plausible.contains(value);
-                    if used {
-                        points.push(crate::bedprofile::BedPoint {
-                            index: i,
-                            depth_m: *depth_m,
-                            t_k: value,
-                        });
-                    }
-                    (Some(value), Some(age_ms), used)
-                }
-                Lookup::Stale { .. } | Lookup::Empty => (None, None, false),
-            };
-            case.inputs.push(InputUse {
-                tag: tc.tag.clone(),
-                value,
-                unit: "K",
-                age_ms,
-                used,
-            });
+            if let Some(t_k) = side_input(case, tc, buffer, t_sample, "K") {
+                points.push(crate::bedprofile::BedPoint {
+                    index: i,
+                    depth_m: *depth_m,
+                    t_k,
+                });
+            }
         }
         let n = bp.thermocouples.len();
         Some(bp.geometry.profile(&points, n).ok_or_else(|| {
@@ -681,29 +663,12 @@ impl ReactorMonitor {
     /// Each flow meter at the sample time (bad, implausible and stale readings left out;
     /// flows never change the result's quality).
     fn flows(&self, case: &mut Case<'_>, t_sample: i64) -> Vec<Option<f64>> {
-        let mut out = Vec::with_capacity(case.spec.flows.len());
-        for (f, buffer) in case.spec.flows.iter().zip(&self.flows) {
-            let (value, age_ms, used) = match buffer.at(t_sample, ms(f.input.max_age)) {
-                Lookup::Value {
-                    value,
-                    quality,
-                    age_ms,
-                } => {
-                    let used = quality != SourceQuality::Bad && f.input.plausible.contains(value);
-                    (Some(value), Some(age_ms), used)
-                }
-                Lookup::Stale { .. } | Lookup::Empty => (None, None, false),
-            };
-            out.push(value.filter(|_| used));
-            case.inputs.push(InputUse {
-                tag: f.input.tag.clone(),
-                value,
-                unit: "kmol/h",
-                age_ms,
-                used,
-            });
-        }
-        out
+        let spec = case.spec;
+        spec.flows
+            .iter()
+            .zip(&self.flows)
+            .map(|(f, buffer)| side_input(case, &f.input, buffer, t_sample, "kmol/h"))
+            .collect()
     }
 
     /// The inlet analysis nearest the sample time (its own sample time: report time
@@ -1328,6 +1293,37 @@ fn key_figures(
         eval.bed_rise = crate::bedrise::rise_per_mol_percent(db, gas, 0.5 * (t_in + t))
             .map(|r| crate::bedrise::BedRise::new(t_in, t, r, b.inlet_co_co2));
     }
+}
+
+/// A reading that does not enter the approach (a bed thermocouple, a flow meter) at the
+/// sample time: listed among the inputs, and its value when fresh, not bad and plausible.
+/// It never changes the result's quality.
+fn side_input(
+    case: &mut Case<'_>,
+    spec: &InputSpec,
+    buffer: &ScalarBuffer,
+    t_sample: i64,
+    unit: &'static str,
+) -> Option<f64> {
+    let (value, age_ms, used) = match buffer.at(t_sample, ms(spec.max_age)) {
+        Lookup::Value {
+            value,
+            quality,
+            age_ms,
+        } => {
+            let used = quality != SourceQuality::Bad && spec.plausible.contains(value);
+            (Some(value), Some(age_ms), used)
+        }
+        Lookup::Stale { .. } | Lookup::Empty => (None, None, false),
+    };
+    case.inputs.push(InputUse {
+        tag: spec.tag.clone(),
+        value,
+        unit,
+        age_ms,
+        used,
+    });
+    value.filter(|_| used)
 }
 
 /// What the reconciliation takes from the outlet side of an evaluation.

@@ -1291,11 +1291,8 @@ impl ReactorWatch {
                     approach_k,
                     sigma_k,
                 } => self.set_baseline(s, approach_k, sigma_k, true, start),
-                BaselineSpec::Learn {
-                    window_ms,
-                    min_samples,
-                } => {
-                    if t - start < window_ms || self.learn_n < min_samples {
+                BaselineSpec::Learn { .. } => {
+                    if !self.closes_baseline_window(s, t) {
                         // Welford's running mean and variance.
                         self.learn_n += 1;
                         let d = x - self.learn_mean;
