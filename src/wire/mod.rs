@@ -10,6 +10,8 @@
 //! (the flat view of a result) uses neither: it points into the result's shape by JSON
 //! Pointer, and its tests check the two agree.
 
+#[cfg(test)]
+pub(crate) mod fixtures;
 pub(crate) mod input;
 pub(crate) mod metrics;
 pub(crate) mod result;

@@ -525,6 +525,9 @@ pub(crate) fn encode_result(
     drift: Option<&crate::monitor::watch::DriftFigures>,
 ) -> String {
     let names = r.spec.model.names();
+    // A figure is published only from a usable analysis: bad results carry no approach
+    // (K, Q and the affinity stay, for the record of what the analyser said).
+    let good = e.quality != crate::monitor::Quality::Bad;
     let reactions = r
         .spec
         .model
@@ -543,15 +546,18 @@ pub(crate) fn encode_result(
             delta_h_j_per_mol: finite(a.delta_h_j_per_mol),
             endothermic: a.endothermic,
             equilibrium_temperature_k: finite_opt(a.equilibrium_temperature_k),
-            approach_k: finite_opt(a.approach_k),
-            approach_uncertainty_k: finite_opt(a.approach_uncertainty_k),
-            uncertainty_budget_k: a.uncertainty_budget_k.as_ref().map(BudgetOut::from),
+            approach_k: finite_opt(a.approach_k).filter(|_| good),
+            approach_uncertainty_k: finite_opt(a.approach_uncertainty_k).filter(|_| good),
+            uncertainty_budget_k: a
+                .uncertainty_budget_k
+                .as_ref()
+                .filter(|_| good)
+                .map(BudgetOut::from),
             flags: a.flags.names().collect(),
         })
         .collect();
     let first = e.reactions.first();
-    // A figure is published only from a usable analysis: bad results carry no approach.
-    let usable = first.filter(|_| e.quality != crate::monitor::Quality::Bad);
+    let usable = first.filter(|_| good);
     let key_name = &db.get(r.spec.key_component).name;
     let key_index = r
         .spec
@@ -661,8 +667,8 @@ pub(crate) fn with_delivery(payload: &str, seq: u64, late: bool) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::composition::Basis;
-    use crate::monitor::{AnalysisReading, ScalarReading, SourceQuality};
+    use crate::monitor::SourceQuality;
+    use crate::wire::fixtures::{AT_MS, lts1};
     use serde_json::Value;
 
     #[test]
@@ -676,43 +682,38 @@ mod tests {
         assert_eq!(v["seq"], 9);
     }
 
+    fn lts1_result(quality: SourceQuality) -> Value {
+        let (s, e) = lts1(quality);
+        let rs = s.reactors.iter().find(|r| r.spec.id == "lts1").unwrap();
+        serde_json::from_str(&encode_result(rs, &s.species, &e, AT_MS, None)).unwrap()
+    }
+
+    #[test]
+    fn a_bad_result_carries_no_approach_for_any_reaction() {
+        // A bad analysis (e.g. the analyser on calibration gas) gives K and Q figures for
+        // the record, but no approach anywhere: neither the headline nor per reaction.
+        let out = lts1_result(SourceQuality::Bad);
+        assert_eq!(out["quality"], "bad");
+        assert!(out["approach_k"].is_null(), "{}", out["approach_k"]);
+        let r0 = &out["reactions"][0];
+        for key in [
+            "approach_k",
+            "approach_uncertainty_k",
+            "uncertainty_budget_k",
+        ] {
+            assert!(r0[key].is_null(), "reactions[0].{key} = {}", r0[key]);
+        }
+        assert!(r0["ln_k"].is_number(), "K stays for the record");
+        // The same gas with a good analysis has them (docs/domain.md §8 gas, fixture).
+        let good = lts1_result(SourceQuality::Good);
+        assert!(good["reactions"][0]["approach_k"].is_number());
+    }
+
     #[test]
     fn result_carries_the_uncertainty_budget() {
         // Demo lts1 (config/demo-plant.toml, invented) with the docs/domain.md §8 LTS gas at
         // 220 °C: the shares by input add up in quadrature to approach_uncertainty_k.
-        use crate::monitor::{Input, Outcome, ReactorMonitor};
-        let s = crate::config::from_str(
-            include_str!("../../config/demo-plant.toml"),
-            std::path::Path::new("."),
-        )
-        .unwrap();
-        let rs = s.reactors.iter().find(|r| r.spec.id == "lts1").unwrap();
-        let r = &rs.spec;
-        let mut m = ReactorMonitor::new(r);
-        let at = 1_796_083_200_000;
-        let sc = |v| ScalarReading {
-            ts_ms: at,
-            value: v,
-            quality: SourceQuality::Good,
-        };
-        for i in 0..r.temperatures.len() {
-            m.accept(r, &s.species, Input::Temperature(i, sc(493.15)), at);
-        }
-        m.accept(r, &s.species, Input::Pressure(sc(30.01325)), at);
-        m.accept(r, &s.species, Input::SteamRatio(sc(0.36312)), at);
-        let lag = i64::try_from(r.composition.lag.as_millis()).unwrap();
-        let v = [61.0536, 18.98637, 0.28697, 19.38096, 0.2921, 0.0];
-        let a = AnalysisReading {
-            ts_ms: at + lag,
-            values: v.iter().map(|x| Some(x / 100.0)).collect(),
-            basis: Some(Basis::Dry),
-            quality: SourceQuality::Good,
-        };
-        let Outcome::Evaluated(e) = m.accept(r, &s.species, Input::Analysis(a), at + lag) else {
-            panic!("no evaluation");
-        };
-        let out: Value =
-            serde_json::from_str(&encode_result(rs, &s.species, &e, at, None)).unwrap();
+        let out = lts1_result(SourceQuality::Good);
         let u = out["approach_uncertainty_k"].as_f64().unwrap();
         for b in [
             &out["uncertainty_budget_k"],
