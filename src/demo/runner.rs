@@ -197,7 +197,7 @@ impl SeenEvent {
         match (self.value, self.limit) {
             (Some(v), Some(l)) if self.raised() => s.push_str(&format!(
                 " ({} {cmp} {})",
-                with_unit(num(v * k), unit),
+                with_unit(past(v * k, l * k, self.direction != "low"), unit),
                 with_unit(short(l * k), unit)
             )),
             (Some(v), _) if self.event == "cleared" => {
@@ -449,6 +449,24 @@ fn num(x: f64) -> String {
     } else {
         format!("{x:.1}")
     }
+}
+
+/// A value past its limit, with as many decimals as it takes to read as past it: an alarm
+/// raised at 20.02 min against a 20 min limit reads `20.02`, never `20.0 > 20`. (An alarm
+/// is raised only strictly past its limit, so some number of decimals always shows it.)
+fn past(v: f64, limit: f64, high: bool) -> String {
+    let beyond = |text: &str| {
+        text.parse::<f64>()
+            .is_ok_and(|x| if high { x > limit } else { x < limit })
+    };
+    let text = num(v);
+    if beyond(&text) {
+        return text;
+    }
+    (1..=6)
+        .map(|d| format!("{v:.d$}"))
+        .find(|t| beyond(t))
+        .unwrap_or(text)
 }
 
 /// A configured figure: at most three decimals, no trailing zeros (`20`, `0.208`).
@@ -1594,6 +1612,17 @@ mod tests {
             seen.events[0].lines(start, 100),
             vec!["  ! +42 min ref1 ALARM approach-high raised (25.1 K > 20 K)".to_string()]
         );
+    }
+
+    #[test]
+    fn a_value_just_past_its_limit_never_reads_as_equal_to_it() {
+        // Strictly past the limit is when the state machine raises (common practice:
+        // ISA-18.2 alarm setpoints), so the figure shown must be past it too.
+        assert_eq!(past(20.02, 20.0, true), "20.02");
+        assert_eq!(past(20.0004, 20.0, true), "20.0004");
+        assert_eq!(past(25.06, 20.0, true), "25.1");
+        assert_eq!(past(0.1998, 0.2, false), "0.1998");
+        assert_eq!(past(150.4, 150.0, true), "150.4");
     }
 
     #[test]

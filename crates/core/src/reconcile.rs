@@ -1266,7 +1266,12 @@ mod tests {
         let (p, q) = (64.50, 35.72);
         let exact = [p + q, p, q, p, q, p + q];
         for k in 0..6 {
-            assert!((sol.v[k] - exact[k]).abs() < 1e-9, "F{}: {}", k + 1, sol.v[k]);
+            assert!(
+                (sol.v[k] - exact[k]).abs() < 1e-9,
+                "F{}: {}",
+                k + 1,
+                sol.v[k]
+            );
         }
         // No unmeasured flow, four independent balances: ν = 4. γ = Σ a² (unit σ) =
         // 1.69² + 0.05² + 1.07² + 0.30² + 0.72² + 1.34² = 6.4075 [derived from the above],
