@@ -1120,14 +1120,26 @@ impl ReactorWatch {
                     if !usable {
                         continue;
                     }
-                    Some(fig.trend.map_or(0.0, |t| t.slope_k_per_day))
+                    // Only a trend that rises beyond doubt (its 95 % slope interval clear
+                    // of zero) counts: noise on a flat approach must not raise it.
+                    Some(
+                        fig.trend
+                            .filter(|t| t.slope_interval_k_per_day.0 > 0.0)
+                            .map_or(0.0, |t| t.slope_k_per_day),
+                    )
                 }
                 Source::EndOfRun => {
                     if !usable {
                         continue;
                     }
+                    // The same for the forecast: a date whose late bound is "never" (the
+                    // slope interval reaches zero) is no end of run to warn of.
                     Some(match fig.forecast {
-                        Forecast::At { at_ms, .. } => (at_ms - t) as f64 / DAY_MS,
+                        Forecast::At {
+                            at_ms,
+                            latest_ms: Some(_),
+                            ..
+                        } => (at_ms - t) as f64 / DAY_MS,
                         Forecast::Reached => 0.0,
                         _ => f64::MAX,
                     })
@@ -2250,6 +2262,66 @@ mod tests {
         }
         assert_eq!(raised, 1);
         assert_eq!(plant.floods, 1);
+    }
+
+    #[test]
+    fn noise_on_a_flat_approach_raises_no_trend_or_end_of_run_alert() {
+        // 60 days of a flat 8 K approach with ±5 K of hourly noise (invented: a fixed-seed
+        // uniform generator, σ = 10/√12 ≈ 2.9 K, a noisy analyser). Daily means wander by
+        // ~0.6 K, so a fit over the first week has a slope of ±0.1 K/d by chance: above the
+        // 0.05 K/d trend limit and, towards 20 K, an end of run within a year. Neither is
+        // real; both alerts must wait for a slope whose 95 % interval is clear of zero.
+        let s = WatchSettings {
+            drift: DriftSettings {
+                baseline: BaselineSpec::Given {
+                    approach_k: 8.0,
+                    sigma_k: 2.9,
+                },
+                end_of_run_limit_k: Some(20.0),
+                ..DriftSettings::default()
+            },
+            alerts: AlertSettings {
+                trend_above_k_per_day: Some(0.05),
+                end_of_run_within_days: Some(365.0),
+                cusum: false,
+                data_quality_after_ms: None,
+                self_monitoring: false,
+                bed_rise_excess_k: None,
+                gross_error_samples: None,
+            },
+            alarms: Vec::new(),
+            offline_below_bar: None,
+        };
+        let mut w = ReactorWatch::new(&s).unwrap();
+        let mut seed: u64 = 0x2545_f491_4f6c_dd1d;
+        let mut uniform = move || {
+            // xorshift64 (G. Marsaglia, J. Stat. Softw. 8(14), 2003), mapped to [−1, 1).
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            (seed >> 11) as f64 / (1u64 << 52) as f64 - 1.0
+        };
+        let t0 = 500 * D;
+        let mut raised = Vec::new();
+        let mut slopes = Vec::new();
+        for h in 0..(60 * 24) {
+            let t = t0 + h * H;
+            let v = 8.0 + 5.0 * uniform();
+            let (fig, ev) = w.observe(&s, &eval(t, Some(v), Quality::Good, None), t);
+            if let Some(tr) = fig.trend {
+                slopes.push(tr.slope_k_per_day);
+            }
+            raised.extend(
+                kinds(&ev, &w)
+                    .into_iter()
+                    .filter(|k| k.1 == EventKind::Raised)
+                    .map(|k| k.0),
+            );
+        }
+        // The premise: chance slopes did pass the trend limit at some point.
+        let max = slopes.iter().fold(f64::MIN, |a, &b| a.max(b));
+        assert!(max > 0.05, "no chance slope above the limit: {max}");
+        assert!(raised.is_empty(), "{raised:?}");
     }
 
     #[test]
