@@ -531,6 +531,9 @@ fn end_of_run_cell(drift: Option<&Value>, now_ms: i64) -> String {
         return "-".into();
     };
     match e["state"].as_str() {
+        // A forecast whose late bound is "never" (the slope interval reaches zero) has no
+        // date worth reading as one.
+        Some("forecast") if e["latest"].is_null() => "not sure".into(),
         Some("forecast") => e["date"]
             .as_str()
             .and_then(parse_rfc3339)
@@ -1544,10 +1547,14 @@ mod tests {
             "+4.8"
         );
         let now = parse_rfc3339("2026-12-01T00:00:00Z").expect("time");
-        let d = json!({"end_of_run": {"state": "forecast", "date": "2026-12-03T02:24:00Z"}});
+        let eor = |date: &str, latest: Value| json!({"end_of_run": {"state": "forecast", "date": date, "latest": latest}});
+        let d = eor("2026-12-03T02:24:00Z", json!("2026-12-09T00:00:00Z"));
         assert_eq!(end_of_run_cell(Some(&d), now), "in 2.1 d");
-        let d = json!({"end_of_run": {"state": "forecast", "date": "2026-12-01T00:40:00Z"}});
+        let d = eor("2026-12-01T00:40:00Z", json!("2026-12-01T03:00:00Z"));
         assert_eq!(end_of_run_cell(Some(&d), now), "in 40 min");
+        // A slope that may be zero: the date could be never.
+        let d = eor("2026-12-03T02:24:00Z", Value::Null);
+        assert_eq!(end_of_run_cell(Some(&d), now), "not sure");
         let d = json!({"end_of_run": {"state": "no-trend"}});
         assert_eq!(end_of_run_cell(Some(&d), now), "-");
         let d = json!({"end_of_run": {"state": "reached"}});
