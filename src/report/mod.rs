@@ -14,6 +14,7 @@
 
 mod aggregate;
 mod html;
+mod record;
 
 pub(crate) use aggregate::{Aggregator, LineError, Period, ReactorInfo};
 pub(crate) use html::{ReportMeta, render};

@@ -350,6 +350,8 @@ fn a_headless_browser_renders_the_reactors_figures_and_their_updates() {
     assert!(c.contains("Unacknowledged"), "{c}");
     assert!(c.contains("approach-high"), "{c}");
     assert!(c.contains("<path d=\"M"), "the trend line: {c}");
+    // One analysis so far: drawn as a dot (a line of one point would show nothing).
+    assert!(c.contains("<circle"), "the one point of the trend: {c}");
     assert!(dom.contains("not a safety function"));
 
     // A new analysis a minute later, 10 °C hotter: a second load shows the new figure.
