@@ -60,6 +60,15 @@ fn when(ms: i64) -> String {
     format!("{} {}", &s[..10.min(s.len())], s.get(11..16).unwrap_or(""))
 }
 
+/// Decimals for a figure and its interval: `base`, or more until the interval's ends
+/// print apart (at most `base + 4`), so that a narrow interval does not read as none
+/// ("+2.2 to +2.2").
+fn interval_decimals(lo: f64, hi: f64, base: usize) -> usize {
+    (base..=base + 4)
+        .find(|d| format!("{lo:+.d$}") != format!("{hi:+.d$}"))
+        .unwrap_or(base + 4)
+}
+
 /// A date text of the result (RFC 3339) shown as its day.
 fn day_text(v: Option<&Value>) -> String {
     match v.and_then(Value::as_str) {
@@ -215,7 +224,11 @@ fn reactor_section(
     if total == 0 {
         out.push_str("<p class=\"muted\">No results of this reactor in the period.</p>");
     }
-    let meaningful = r.not_meaningful < total || total == 0;
+    // The approach is charted when a good result had one, or when none said it is not
+    // meaningful; a few bad results (no evaluation, so no reason about the approach)
+    // among a methanator's must not bring back an empty approach chart.
+    let has_approach = r.days.values().any(|d| d.approach_k.n > 0);
+    let meaningful = has_approach || r.not_meaningful == 0;
     summary_table(out, agg, r, meaningful);
     forecasts(out, r);
 
@@ -256,8 +269,10 @@ fn reactor_section(
     } else {
         let _ = write!(
             out,
-            "<p class=\"notice\">No approach is charted for {id}: every result said the approach \
-             is not meaningful (the equilibrium amount is below the analyser's detection limit).</p>"
+            "<p class=\"notice\">No approach is charted for {id}: {} of {total} results said the \
+             approach is not meaningful (the equilibrium amount is below the analyser's detection \
+             limit), and no good result had one.</p>",
+            r.not_meaningful
         );
     }
     if let Some((figure, unit)) = &r.headline_other {
@@ -435,7 +450,10 @@ fn forecasts(out: &mut String, r: &ReactorAgg) {
     }
     out.push_str("<div class=\"forecasts\"><h3>Forecasts at the last result</h3><table><tr><th>forecast</th><th>state</th><th>date</th><th>earliest</th><th>latest</th><th>rate</th></tr>");
     let trend = match (r.trend_k_per_day, r.trend_interval) {
-        (Some(t), Some((lo, hi))) => format!("{t:+.4} K/day (95 %: {lo:+.4} to {hi:+.4})"),
+        (Some(t), Some((lo, hi))) => {
+            let d = interval_decimals(lo, hi, 4);
+            format!("{t:+.d$} K/day (95 %: {lo:+.d$} to {hi:+.d$})")
+        }
         (Some(t), None) => format!("{t:+.4} K/day"),
         _ => "–".into(),
     };
@@ -468,12 +486,9 @@ fn forecasts(out: &mut String, r: &ReactorAgg) {
                 .and_then(Value::as_f64),
         ) {
             (Some(v), Some(lo), Some(hi)) => {
-                format!(
-                    "{:+.1} mm/day (95 %: {:+.1} to {:+.1})",
-                    v * 1e3,
-                    lo * 1e3,
-                    hi * 1e3
-                )
+                let (v, lo, hi) = (v * 1e3, lo * 1e3, hi * 1e3);
+                let d = interval_decimals(lo, hi, 1);
+                format!("{v:+.d$} mm/day (95 %: {lo:+.d$} to {hi:+.d$})")
             }
             (Some(v), _, _) => format!("{:+.1} mm/day", v * 1e3),
             _ => "–".into(),

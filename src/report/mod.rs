@@ -14,6 +14,7 @@
 
 mod aggregate;
 mod html;
+mod record;
 
 pub(crate) use aggregate::{Aggregator, LineError, Period, ReactorInfo};
 pub(crate) use html::{ReportMeta, render};
@@ -135,6 +136,57 @@ mod tests {
             !html.contains("http://")
                 || html.matches("http://").count()
                     == html.matches("xmlns=\"http://www.w3.org/2000/svg\"").count()
+        );
+    }
+
+    #[test]
+    fn a_bad_result_without_the_reason_does_not_bring_back_an_approach_chart() {
+        // The demo year's methanator: every good result says the approach is not
+        // meaningful, a few bad ones (no evaluation) say nothing about it. Before, those
+        // few made the report draw an empty approach chart and an approach row of dashes.
+        let mut v = lines();
+        v.push(
+            serde_json::json!({"topic": "x/m1/result", "retain": true, "payload": {
+                "schema": "eqwatch.result/1", "reactor": "m1", "sample_ts": ts(D0 + 3_600_000 * 5 + 60_000),
+                "quality": "bad", "approach_k": null, "reasons": [{"code": "missing_component"}],
+                "headline": {"figure": "none", "value": null, "unit": ""}
+            }})
+            .to_string(),
+        );
+        let html = report_of(&v);
+        let m1 = &html[html.find("id=\"reactor-m1\"").unwrap_or(0)..];
+        assert!(m1.contains("No approach is charted for m1"), "{m1}");
+        assert!(!html.contains("m1-approach"));
+        assert!(m1.contains("not meaningful: equilibrium amount below detection"));
+        assert!(m1.contains("72 of 73 results"), "{m1}");
+    }
+
+    #[test]
+    fn a_narrow_interval_keeps_its_width_visible() {
+        // 2.2 mm/day ± 0.02: one decimal would print "+2.2 to +2.2", no width at all.
+        let mut v = lines();
+        v.push(
+            serde_json::json!({"topic": "x/r1/result", "retain": true, "payload": {
+                "schema": "eqwatch.result/1", "reactor": "r1", "sample_ts": ts(D0 + 3 * DAY_MS),
+                "quality": "good", "approach_k": 13.0,
+                "headline": {"figure": "approach", "value": 13.0, "unit": "K"},
+                "drift": {"trend_k_per_day": 1.0, "trend_interval_k_per_day": [0.99996, 1.00004],
+                    "end_of_run": {"state": "forecast", "limit_k": 20.0, "date": "2026-09-12T00:00:00.000Z",
+                        "earliest": "2026-09-10T00:00:00.000Z", "latest": "2026-09-15T00:00:00.000Z"}},
+                "bed_profile": {"rise_k": 20.0, "front_depth_m": 1.5, "end_of_life_depth_m": 2.9,
+                    "front_trend": {"state": "forecast", "rate_m_per_day": 0.0022,
+                        "rate_interval_m_per_day": [0.00218, 0.00222], "end_of_life": "2027-07-05T00:00:00.000Z"}}
+            }})
+            .to_string(),
+        );
+        let html = report_of(&v);
+        assert!(
+            html.contains("+2.20 mm/day (95 %: +2.18 to +2.22)"),
+            "{html}"
+        );
+        assert!(
+            html.contains("+1.00000 K/day (95 %: +0.99996 to +1.00004)"),
+            "{html}"
         );
     }
 

@@ -9,8 +9,10 @@ use std::time::Duration;
 
 use serde_json::Value;
 
-use crate::alarms::{alarm_state, outcomes};
+use crate::alarms::{alarm_state, outcomes, states};
 use crate::support::*;
+
+mod cdp;
 
 /// Python 3.11 hashlib: `base64.b64encode(hashlib.pbkdf2_hmac("sha256", b"op1-pass",
 /// b"eqwatch-test-salt", 1000, 32))` and the same for `b"viewer-pass"`; the salt is
@@ -19,10 +21,13 @@ const OP1_HASH: &str =
     "pbkdf2-sha256$1000$ZXF3YXRjaC10ZXN0LXNhbHQ=$O05jCuVv+x8UmF/Lp84dpL0qh2J7DVMg/RJIqTuCyeY=";
 const VIEWER_HASH: &str =
     "pbkdf2-sha256$1000$ZXF3YXRjaC10ZXN0LXNhbHQ=$HTwn2cjY/Pz4OpN8sy5zQF41J1s62ShD2SvupY6MQ8c=";
+/// The same for `b"acker-pass"` (Python 3.11.7 hashlib, same salt and iterations).
+const ACKER_HASH: &str =
+    "pbkdf2-sha256$1000$ZXF3YXRjaC10ZXN0LXNhbHQ=$u8Dm5ysFDWszf04qHZ4sMbL7YDjHvvBA0fcFYfRy8W8=";
 
 /// The alarm test plant (an approach alarm at 10 K that the docs/domain.md §8 gas at
-/// 220 °C raises, 12.00 K) with two page users: op1 may acknowledge and shelve, viewer
-/// may only look.
+/// 220 °C raises, 12.00 K) with three page users: op1 may acknowledge and shelve, acker
+/// may only acknowledge, viewer may only look.
 fn write_config(dir: &Path, port: u16, http_port: u16) -> PathBuf {
     write_lts_plant(
         dir,
@@ -40,11 +45,15 @@ priority = 2
 rationale = "Invented for the test: the LTS is far from equilibrium; check the catalyst."
 
 [commands]
-allowed_users = ["op1"]
+allowed_users = ["op1", "acker"]
 
 [http.users.op1]
 password_hash = "{OP1_HASH}"
 may = ["acknowledge", "shelve"]
+
+[http.users.acker]
+password_hash = "{ACKER_HASH}"
+may = ["acknowledge"]
 
 [http.users.viewer]
 password_hash = "{VIEWER_HASH}"
@@ -269,6 +278,23 @@ fn chromium() -> Option<PathBuf> {
         .find(|p| p.exists())
 }
 
+/// The browser, or `None` (the test says it skips) where none is installed.
+fn chromium_or_skip() -> Option<PathBuf> {
+    let bin = chromium();
+    if bin.is_none() {
+        // The test command (scripts/test.sh) installs chromium and sets this: there a
+        // missing browser is a failure, not a skip.
+        assert!(
+            std::env::var_os("EQWATCH_REQUIRE_BROWSER").is_none(),
+            "EQWATCH_REQUIRE_BROWSER is set but no chromium binary was found"
+        );
+        println!(
+            "SKIPPED: no chromium binary (/usr/bin/chromium); install the Debian package `chromium` to run this test"
+        );
+    }
+    bin
+}
+
 fn chromium_run(bin: &Path, args: &[&str]) -> String {
     let profile = tempfile::tempdir().unwrap();
     let out = std::process::Command::new(bin)
@@ -296,16 +322,7 @@ fn card(dom: &str, id: &str) -> String {
 
 #[test]
 fn a_headless_browser_renders_the_reactors_figures_and_their_updates() {
-    let Some(bin) = chromium() else {
-        // The test command (scripts/test.sh) installs chromium and sets this: there a
-        // missing browser is a failure, not a skip.
-        assert!(
-            std::env::var_os("EQWATCH_REQUIRE_BROWSER").is_none(),
-            "EQWATCH_REQUIRE_BROWSER is set but no chromium binary was found"
-        );
-        println!(
-            "SKIPPED: no chromium binary (/usr/bin/chromium); install the Debian package `chromium` to run this test"
-        );
+    let Some(bin) = chromium_or_skip() else {
         return;
     };
     let rt = runtime();
@@ -333,6 +350,8 @@ fn a_headless_browser_renders_the_reactors_figures_and_their_updates() {
     assert!(c.contains("Unacknowledged"), "{c}");
     assert!(c.contains("approach-high"), "{c}");
     assert!(c.contains("<path d=\"M"), "the trend line: {c}");
+    // One analysis so far: drawn as a dot (a line of one point would show nothing).
+    assert!(c.contains("<circle"), "the one point of the trend: {c}");
     assert!(dom.contains("not a safety function"));
 
     // A new analysis a minute later, 10 °C hotter: a second load shows the new figure.
@@ -373,4 +392,299 @@ fn publish_lts_set_at_keeping_temperature(p: &Publisher, rt: &tokio::runtime::Ru
             ts(m)
         ),
     );
+}
+
+/// `"2026-12-03T13:05:00.000Z"` as the page writes a time: `2026-12-03 13:05 UTC`.
+fn page_time(rfc3339: &str) -> String {
+    format!(
+        "{} {} UTC",
+        rfc3339.get(..10).unwrap_or(""),
+        rfc3339.get(11..16).unwrap_or("")
+    )
+}
+
+fn now_ms() -> i64 {
+    std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_millis() as i64)
+}
+
+/// The row of the test's alarm in the LTS card.
+const ROW: &str = r#"#r-lts1 tr[data-alarm="approach-high"]"#;
+
+fn js(s: &str) -> String {
+    serde_json::to_string(s).unwrap()
+}
+
+/// Logs in through the page's own form, as a person types it.
+fn login_on_page(b: &mut cdp::Browser, user: &str, password: &str) {
+    b.type_into("#lu", user);
+    b.type_into("#lp", password);
+    b.click("#login button");
+    assert!(
+        b.wait(
+            &format!(
+                "document.getElementById('who').textContent.startsWith({})",
+                js(&format!("{user} "))
+            ),
+            Duration::from_secs(10)
+        ),
+        "login of {user} on the page: {}",
+        b.text("header")
+    );
+    // The card is drawn again for the user (their buttons).
+    assert!(b.wait(
+        &format!("document.querySelector({}) !== null", js(ROW)),
+        Duration::from_secs(10)
+    ));
+}
+
+fn logout_on_page(b: &mut cdp::Browser) {
+    b.click("#logout");
+    assert!(b.wait(
+        "getComputedStyle(document.getElementById('login')).display !== 'none'",
+        Duration::from_secs(10)
+    ));
+}
+
+/// The latest retained alarm state of approach-high from the broker.
+fn retained_alarm(got: &Received) -> Value {
+    states(got)
+        .last()
+        .and_then(|v| v["alarms"].as_array().cloned())
+        .and_then(|a| a.into_iter().find(|x| x["alarm"] == "approach-high"))
+        .unwrap_or(Value::Null)
+}
+
+#[test]
+fn a_permitted_user_shelves_and_unshelves_an_alarm_from_the_page_in_a_real_browser() {
+    let Some(bin) = chromium_or_skip() else {
+        return;
+    };
+    let rt = runtime();
+    let broker = Mosquitto::start();
+    let dir = tempfile::tempdir().unwrap();
+    let http = free_port();
+    let config = write_config(dir.path(), broker.port, http);
+    let got = collector(&rt, broker.port, &["eqwatch/test/#"]);
+    let _d = Daemon::start(&config, http);
+    let p = Publisher::new(&rt, broker.port);
+    wait_online(&got);
+    // 12.00 K against the 10 K limit (docs/domain.md §8): the alarm is raised.
+    publish_lts_set(&p, &rt);
+    assert!(
+        wait_until(Duration::from_secs(15), || page_alarm(http).0
+            == "unacknowledged"),
+        "{}",
+        plant(http)
+    );
+    let shots = std::env::temp_dir().join("eqwatch-page-shots");
+    std::fs::create_dir_all(&shots).unwrap();
+    let url = format!("http://127.0.0.1:{http}/");
+    let shot = |name: &str| {
+        let path = shots.join(name);
+        chromium_run(
+            &bin,
+            &[
+                &format!("--screenshot={}", path.display()),
+                "--window-size=1400,900",
+                &url,
+            ],
+        );
+        assert!(path.exists(), "no screenshot at {}", path.display());
+    };
+    shot("before-shelve.png");
+
+    let mut b = cdp::Browser::launch(&bin, 1400, 900);
+    b.goto(&url);
+    assert!(
+        b.wait(
+            &format!("document.querySelector({}) !== null", js(ROW)),
+            Duration::from_secs(15)
+        ),
+        "the alarm's row on the page"
+    );
+    let row_text = |b: &mut cdp::Browser| b.text(ROW);
+    let before = row_text(&mut b);
+    assert!(before.contains("Unacknowledged"), "{before}");
+    assert!(!before.contains("Shelved"), "{before}");
+    // Nobody logged in: no command controls at all.
+    assert!(!b.has(&format!("{ROW} button")), "{before}");
+
+    // A user who may acknowledge but not shelve: Acknowledge, and no Shelve control.
+    login_on_page(&mut b, "acker", "acker-pass");
+    assert!(b.has(&format!(r#"{ROW} button[data-c="acknowledge"]"#)));
+    assert!(
+        !b.has(&format!(r#"{ROW} button[data-c="shelve"]"#)),
+        "a shelve control for acker: {}",
+        row_text(&mut b)
+    );
+    assert!(!row_text(&mut b).contains("Shelve"));
+    logout_on_page(&mut b);
+    // A user who may only look: no controls, and the page says so.
+    login_on_page(&mut b, "viewer", "viewer-pass");
+    assert!(b.text("#who").contains("view only"), "{}", b.text("#who"));
+    assert!(!b.has(&format!("{ROW} button")), "{}", row_text(&mut b));
+    logout_on_page(&mut b);
+
+    // Forged shelve requests, not from the page's session: refused, nothing sent.
+    let shelve = r#"{"reactor":"lts1","command":"shelve","alarm":"approach-high","duration":"8 h","reason":"forged"}"#;
+    let a = request(http, "POST", "/api/command", &[JSON], shelve);
+    assert_eq!(a.status, 401, "no session: {}", a.text);
+    let (ac, at) = login(http, "acker", "acker-pass");
+    let a = request(
+        http,
+        "POST",
+        "/api/command",
+        &[JSON, ("Cookie", &ac)],
+        shelve,
+    );
+    assert_eq!(
+        a.status, 401,
+        "a session cookie without the page's token: {}",
+        a.text
+    );
+    let a = request(
+        http,
+        "POST",
+        "/api/command",
+        &[JSON, ("Cookie", &ac), ("X-Eqwatch-Csrf", &at)],
+        shelve,
+    );
+    assert_eq!(a.status, 403, "a user without shelve: {}", a.text);
+    std::thread::sleep(Duration::from_millis(500));
+    assert!(outcomes(&got).is_empty(), "{:?}", outcomes(&got));
+    assert_eq!(page_alarm(http), ("unacknowledged".into(), "active".into()));
+
+    // op1 may shelve: the page's Shelve… button, its dialog, a reason, the default 1 h.
+    login_on_page(&mut b, "op1", "op1-pass");
+    b.click(&format!(r#"{ROW} button[data-c="shelve"]"#));
+    assert!(b.wait(
+        "document.getElementById('dlg').style.display === 'flex'",
+        Duration::from_secs(5)
+    ));
+    assert_eq!(b.text("#shelfwhat"), "Shelve approach-high on lts1");
+    assert_eq!(b.eval("document.getElementById('sdur').value"), "1 h");
+    b.type_into("#sreason", "analyser work");
+    let sent_ms = now_ms();
+    b.click("#shelf button:not([type])");
+    assert!(
+        b.wait(
+            &format!(
+                "(document.querySelector({}) || {{}}).dataset?.mode === 'shelved'",
+                js(ROW)
+            ),
+            Duration::from_secs(10)
+        ),
+        "the row after shelving: {}",
+        row_text(&mut b)
+    );
+    let done_ms = now_ms();
+    // Pictures first: they show a failure below too.
+    b.screenshot(&shots.join("shelved-op1.png"));
+    shot("after-shelve.png");
+    // The page's answer line: the verdict in words, in the "done" colour.
+    let said = b.text("#msg");
+    assert!(
+        said.starts_with("shelve approach-high on lts1: accepted"),
+        "{said}"
+    );
+    assert_eq!(b.eval("document.getElementById('msg').className"), "ok");
+    // The command path: op1's accepted outcome on MQTT, the retained state shelved for
+    // 1 h from the click, by op1, with the reason.
+    assert!(
+        wait_for(&got, Duration::from_secs(10), |_| outcomes(&got)
+            .iter()
+            .any(|o| o["user"] == "op1"
+                && o["command"] == "shelve"
+                && o["outcome"] == "accepted")),
+        "{:?}",
+        outcomes(&got)
+    );
+    assert!(wait_for(&got, Duration::from_secs(5), |_| retained_alarm(
+        &got
+    )["mode"]
+        == "shelved"));
+    let state = retained_alarm(&got);
+    assert!(
+        state["by"] == "op1" && state["reason"] == "analyser work",
+        "{state}"
+    );
+    let until = state["shelved_until"]
+        .as_str()
+        .expect("shelved_until")
+        .to_string();
+    let until_ms = eqwatch::timefmt::parse_rfc3339(&until).expect("an RFC 3339 time");
+    // 1 h = 3,600,000 ms (the page's default), from the click (ms resolution of the clock).
+    assert!(
+        (sent_ms + 3_600_000 - 1_000..=done_ms + 3_600_000 + 1_000).contains(&until_ms),
+        "shelved until {until}, clicked at {sent_ms}"
+    );
+    // What a person reads in the row: shelved, until when, by whom and why; no longer
+    // the look of an active alarm (no unacknowledged marker, no Shelve… button).
+    let shelved = row_text(&mut b);
+    let state_cell = b.text(&format!("{ROW} td:nth-child(3)"));
+    // The shelve is read first; the state it holds underneath second.
+    assert!(state_cell.starts_with("Shelved until"), "{state_cell}");
+    assert!(
+        state_cell.contains("while shelved: unacknowledged"),
+        "{state_cell}"
+    );
+    assert!(
+        shelved.contains(&format!(
+            "Shelved until {} by op1: analyser work",
+            page_time(&until)
+        )),
+        "{shelved}"
+    );
+    assert!(
+        b.has(&format!(r#"{ROW} button[data-c="unshelve"]"#)),
+        "{shelved}"
+    );
+    assert!(
+        !b.has(&format!(r#"{ROW} button[data-c="shelve"]"#)),
+        "{shelved}"
+    );
+    assert!(
+        !b.has(&format!("{ROW}.unack")),
+        "a shelved row marked as unacknowledged"
+    );
+    // The anonymous view reads the same.
+    let anon = card(&chromium_run(&bin, &["--dump-dom", &url]), "lts1");
+    assert!(
+        anon.contains(&format!("Shelved until {}", page_time(&until))),
+        "{anon}"
+    );
+
+    // Unshelved from the page: the row reads as the active, unacknowledged alarm again.
+    b.click(&format!(r#"{ROW} button[data-c="unshelve"]"#));
+    assert!(
+        b.wait(
+            &format!(
+                "(document.querySelector({}) || {{}}).dataset?.mode === 'active'",
+                js(ROW)
+            ),
+            Duration::from_secs(10)
+        ),
+        "the row after unshelving: {}",
+        row_text(&mut b)
+    );
+    let active = row_text(&mut b);
+    assert!(active.contains("Unacknowledged"), "{active}");
+    assert!(!active.contains("Shelved"), "{active}");
+    assert!(
+        b.has(&format!(r#"{ROW} button[data-c="shelve"]"#)),
+        "{active}"
+    );
+    assert!(b.has(&format!("{ROW}.unack")));
+    assert!(wait_for(&got, Duration::from_secs(10), |_| outcomes(&got)
+        .iter()
+        .any(|o| o["user"] == "op1"
+            && o["command"] == "unshelve"
+            && o["outcome"] == "accepted")));
+    assert!(wait_for(&got, Duration::from_secs(5), |_| retained_alarm(
+        &got
+    )["mode"]
+        == "active"));
+    b.screenshot(&shots.join("unshelved-op1.png"));
 }
