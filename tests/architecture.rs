@@ -208,6 +208,7 @@ const RULES: &[Rule] = &[
             "approach",
             "composition",
             "equilibrium",
+            "reconcile",
             "thermo",
             "units",
             "cli",
