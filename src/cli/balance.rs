@@ -703,7 +703,13 @@ fn core_stream(
 
 /// The raw values of a stream; an unmeasured flow is `None`, one by-difference fraction is
 /// 1 − Σ of the others (more than one: `None`).
-fn raw_values(st: &Stream) -> (Option<f64>, Option<f64>, Option<Vec<(usize, f64)>>) {
+struct Raw {
+    flow: Option<f64>,
+    water: Option<f64>,
+    dry: Option<Vec<(usize, f64)>>,
+}
+
+fn raw_values(st: &Stream) -> Raw {
     let value = |q: &Quantity| match q.reading {
         Reading::Measured { value, .. } => Some(value),
         Reading::Unmeasured { .. } => None,
@@ -720,14 +726,26 @@ fn raw_values(st: &Stream) -> (Option<f64>, Option<f64>, Option<Vec<(usize, f64)
         None => Some(0.0),
         Some(w) => value(w),
     };
-    (value(&st.dry_flow), water, dry)
+    Raw {
+        flow: value(&st.dry_flow),
+        water,
+        dry,
+    }
 }
 
 /// Elements of the measurements alone; an element that needs an unmeasured quantity has no
 /// figure, and `depends_on` names what is missing.
 fn raw_balance(db: &SpeciesDb, inlet: &Stream, outlet: &Stream) -> Result<Value, CliError> {
-    let (fi, wi, di) = raw_values(inlet);
-    let (fo, wo, d_o) = raw_values(outlet);
+    let Raw {
+        flow: fi,
+        water: wi,
+        dry: di,
+    } = raw_values(inlet);
+    let Raw {
+        flow: fo,
+        water: wo,
+        dry: d_o,
+    } = raw_values(outlet);
     // Placeholders (1) keep every element in the list; their figures are blanked below.
     let placeholder = |s: &Stream, d: &Option<Vec<(usize, f64)>>| -> Vec<(usize, f64)> {
         d.clone()
@@ -814,11 +832,11 @@ fn steam_ratios(
 ) -> Value {
     let mut m = Map::new();
     let raw = |st: &Stream| -> Option<StreamValues> {
-        let (f, w, d) = raw_values(st);
+        let r = raw_values(st);
         Some(StreamValues {
-            dry_flow: f?,
-            water: w?,
-            dry: d?,
+            dry_flow: r.flow?,
+            water: r.water?,
+            dry: r.dry?,
         })
     };
     for (side, st, reconciled) in [
@@ -1110,7 +1128,7 @@ pub fn balance_table(v: &Value) -> String {
                 num(&e["critical"], 2),
             ));
         }
-        t.push_str("  (flows kmol/h, analyses mole fractions dry; * failed measurement test)\n");
+        t.push_str("  (flows kmol/h, analyses dry mole fractions; z -: no balance checks it; * failed measurement test)\n");
     }
     let ratios: Vec<(&String, &Value)> = v["steam_ratios"]
         .as_object()
