@@ -940,7 +940,16 @@ pub fn balance(db: &SpeciesDb, inp: &BalanceInput) -> Result<Value, CliError> {
         }),
     );
     out.insert("dry_fraction_sums".into(), dry_sums(&inlet, &outlet));
-    match reconcile(db, &inlet, &outlet, &options) {
+    // With neither dry flow measured the balances are (up to the water) homogeneous in the
+    // flows: zero flows satisfy them exactly, and the core converges there. Refused here.
+    let measured_flow =
+        |st: &Stream| matches!(st.dry_flow.reading, Reading::Measured { value, .. } if value > 0.0);
+    let reconciled = if measured_flow(&inlet) || measured_flow(&outlet) {
+        reconcile(db, &inlet, &outlet, &options).map_err(Refusal::Core)
+    } else {
+        Err(Refusal::NoDryFlow)
+    };
+    match reconciled {
         Ok(rec) => {
             out.insert("reconciled".into(), json!(true));
             out.insert(
@@ -979,31 +988,59 @@ pub fn balance(db: &SpeciesDb, inp: &BalanceInput) -> Result<Value, CliError> {
             out.insert("iterations".into(), json!(rec.iterations));
             out.insert("residual_norm".into(), finite(rec.residual_norm));
         }
-        Err(e) => {
+        Err(Refusal::NoDryFlow) => {
+            let why = format!(
+                "neither {} nor {} is measured (above zero): the balances then fix only the ratio of the flows, and zero flows balance trivially; measure one of them",
+                inlet.dry_flow.tag, outlet.dry_flow.tag
+            );
+            fallback(db, &mut out, &inlet, &outlet, why)?;
+        }
+        Err(Refusal::Core(e)) => {
             use crate::reconcile::ReconcileError as R;
             let why = match &e {
                 R::NonPhysical { .. } | R::InvalidOption(_) => return Err(bad(e.to_string())),
                 R::UnknownSpecies { .. } => return Err(CliError::Internal(e.to_string())),
-                R::Undeterminable { .. } => format!(
-                    "{e}; measure one of them (across a reactor the balances see only water in minus water out, so one water flow must be measured)"
-                ),
+                R::Undeterminable { tags } => {
+                    let water_tag = |st: &Stream| st.water.as_ref().map(|q| q.tag.clone());
+                    let both_waters = [water_tag(&inlet), water_tag(&outlet)]
+                        .iter()
+                        .all(|t| t.as_ref().is_some_and(|t| tags.contains(t)));
+                    let hint = if both_waters {
+                        " (across a reactor the balances see only water in minus water out, so one water flow must be measured)"
+                    } else {
+                        ""
+                    };
+                    format!("{e}; measure one of them{hint}")
+                }
                 R::Singular(_) | R::NoConvergence { .. } => format!(
-                    "{e}; check the analyses for a species that carries an element alone at zero, and the flows for zeros"
+                    "{e}; the readings may be far from any balanced state: check the flows for zeros and each analysis for a missing species"
                 ),
             };
-            out.insert("reconciled".into(), json!(false));
-            out.insert("why_not_reconciled".into(), json!(why));
-            out.insert(
-                "elements_measured".into(),
-                raw_balance(db, &inlet, &outlet)?,
-            );
-            out.insert(
-                "steam_ratios".into(),
-                steam_ratios(db, &inlet, &outlet, None),
-            );
+            fallback(db, &mut out, &inlet, &outlet, why)?;
         }
     }
     Ok(Value::Object(out))
+}
+
+/// Why there is no reconciliation: the core's refusal, or one made here.
+enum Refusal {
+    Core(crate::reconcile::ReconcileError),
+    NoDryFlow,
+}
+
+/// Without a reconciliation: the balances the measurements allow, and why.
+fn fallback(
+    db: &SpeciesDb,
+    out: &mut Map<String, Value>,
+    inlet: &Stream,
+    outlet: &Stream,
+    why: String,
+) -> Result<(), CliError> {
+    out.insert("reconciled".into(), json!(false));
+    out.insert("why_not_reconciled".into(), json!(why));
+    out.insert("elements_measured".into(), raw_balance(db, inlet, outlet)?);
+    out.insert("steam_ratios".into(), steam_ratios(db, inlet, outlet, None));
+    Ok(())
 }
 
 // ---------------------------------------------------------------------------------------
@@ -1303,6 +1340,11 @@ mod tests {
             "suspect {} / {}",
             v["suspect"], v["suspect_equivalents"]
         );
+        let t = balance_table(&v);
+        assert!(
+            t.contains("FAILED") && t.contains("Suspect: AI-201 CO2"),
+            "{t}"
+        );
     }
 
     #[test]
@@ -1374,6 +1416,75 @@ mod tests {
             let e = err(from_json(text));
             assert!(e.contains(want), "{text}\n -> {e}\n wanted: {want}");
         }
+    }
+
+    #[test]
+    fn no_redundancy_determines_the_unknowns_and_says_why_there_is_no_test() {
+        // The `lts` construction with six unknowns for six constraints (C, H, O, N and the
+        // two sums): inlet N2 by difference; outlet flow, water, CO, CO2 and H2 unmeasured.
+        // Hand count: the inlet sum gives N2 in, the N balance the outlet flow, C and the
+        // outlet sum CO + CO2 and H2, O splits CO from CO2, H gives the water: redundancy 0.
+        let d = 1025.0;
+        let text = json!({
+            "inlet": {"dry_flow_kmol_h": 1000, "water_kmol_h": 400,
+                      "dry_mole_fractions": {"CO": 0.03, "CO2": 0.15, "H2": 0.60, "N2": "unmeasured", "CH4": 0.005}},
+            "outlet": {"dry_flow_kmol_h": "unmeasured", "water_kmol_h": "unmeasured",
+                       "dry_mole_fractions": {"CO": "unmeasured", "CO2": {"guess": 0.2},
+                          "H2": "unmeasured", "N2": 215.0 / d, "CH4": 5.0 / d}}
+        })
+        .to_string();
+        let v = from_json(&text).expect("balance");
+        assert_eq!(v["reconciled"], json!(true), "{v}");
+        assert!(v["global_test"].is_null());
+        assert!(
+            v["why_no_global_test"]
+                .as_str()
+                .expect("why")
+                .contains("no redundancy")
+        );
+        let est = v["estimates"].as_array().expect("estimates");
+        let value = |tag: &str| {
+            est.iter()
+                .find(|e| e["tag"] == json!(tag))
+                .and_then(|e| e["reconciled"].as_f64())
+                .unwrap_or(f64::NAN)
+        };
+        for (tag, want) in [
+            ("inlet N2", 0.215),
+            ("outlet dry flow", d),
+            ("outlet water", 375.0),
+            ("outlet CO", 5.0 / d),
+            ("outlet CO2", 175.0 / d),
+            ("outlet H2", 625.0 / d),
+        ] {
+            let x = value(tag);
+            assert!((x - want).abs() < 1e-8 * want, "{tag}: {x} vs {want}");
+        }
+        assert!(balance_table(&v).contains("Global test: none (no redundancy"));
+    }
+
+    #[test]
+    fn no_dry_flow_measured_is_refused_with_the_reason() {
+        // Without water and with both dry flows unmeasured, only F_out/F_in is fixed; the
+        // core alone converges to F_in = F_out = 0 (2e-15 kmol/h, reported upstream).
+        let text = lts(Value::Null, Value::Null, 1.0, 1.0)
+            .replace(
+                "\"dry_flow_kmol_h\":1000",
+                "\"dry_flow_kmol_h\":\"unmeasured\"",
+            )
+            .replace(
+                "\"dry_flow_kmol_h\":1025.0",
+                "\"dry_flow_kmol_h\":\"unmeasured\"",
+            );
+        assert_eq!(text.matches("unmeasured").count(), 2, "{text}");
+        let v = from_json(&text).expect("balance");
+        assert_eq!(v["reconciled"], json!(false), "{v}");
+        let why = v["why_not_reconciled"].as_str().expect("why");
+        assert!(
+            why.contains("neither inlet dry flow nor outlet dry flow is measured"),
+            "{why}"
+        );
+        assert!(v["elements_measured"][0]["closure"].is_null());
     }
 
     #[test]
