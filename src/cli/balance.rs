@@ -9,10 +9,11 @@
 //! --inlet-water 500`, the same for the outlet). The JSON shape:
 //!
 //! ```json
-//! { "inlet":  { "dry_flow_kmol_h": 1000, "water_kmol_h": 3000,
-//!               "dry_mole_fractions": { "CH4": 0.95, "CO2": 0.01, "H2": 0.02, "N2": 0.02 } },
-//!   "outlet": { "dry_flow_kmol_h": "unmeasured", "water_kmol_h": "unmeasured",
-//!               "dry_mole_fractions": { "CH4": 0.04, "CO": 0.10, "...": 0.0 } },
+//! { "inlet":  { "dry_flow_kmol_h": 1087.4, "water_kmol_h": 2912.6, "flow_tag": "FI-101",
+//!               "dry_mole_fractions": { "CH4": 0.8929, "H2": 0.0714, "N2": 0.0179, "CO2": 0.0179 } },
+//!   "outlet": { "dry_flow_kmol_h": "unmeasured", "water_kmol_h": "unmeasured", "analyser_tag": "AI-201",
+//!               "dry_mole_fractions": { "CH4": 0.1085, "CO": 0.1001, "CO2": 0.0970, "H2": 0.6884,
+//!                                       "N2": "unmeasured" } },
 //!   "sigma_flow_pct": 1, "sigma_fraction_pct": 1, "sigma_fraction_floor": 0.0002,
 //!   "significance": 0.05 }
 //! ```
@@ -22,6 +23,10 @@
 //! optional `guess`). A stream may name its instruments (`flow_tag`, `water_tag`,
 //! `analyser_tag`); the default tags are `inlet dry flow`, `inlet water`, `inlet CO`, ...
 //! Water left out (or `null`) means a stream with no water.
+//!
+//! With neither dry flow measured it does not reconcile (the balances would fix only the
+//! ratio of the flows); where the core refuses, it still prints the element balances the
+//! measurements allow and says why.
 //!
 //! Rules: turns text into core calls and the answer into JSON (keys with units) or a
 //! table; no numerics of its own beyond sums and ratios for display; no file access.
@@ -583,14 +588,16 @@ fn check_problem(db: &SpeciesDb, p: &Problem) -> Result<(), CliError> {
                 Val::Unmeasured { .. } => None,
             })
             .sum();
+        // A coarse guard against mol% and against a missing species (common practice);
+        // smaller sum errors are the reconciliation's to weigh and test.
         if by_difference == 0 && !(0.5..=1.5).contains(&measured_sum) {
             return Err(bad(format!(
-                "{n} dry analysis sums to {measured_sum}: give mole fractions of every dry species (they sum to about 1; 100 would be mol%)"
+                "{n} dry analysis sums to {measured_sum:.4}: give mole fractions of every dry species (they sum to about 1; 100 would be mol%)"
             )));
         }
         if measured_sum > 1.5 {
             return Err(bad(format!(
-                "{n} dry analysis: the measured fractions sum to {measured_sum}, above 1: give mole fractions, not mol%"
+                "{n} dry analysis: the measured fractions sum to {measured_sum:.4}, above 1: give mole fractions, not mol%"
             )));
         }
         let items = std::iter::once(&st.flow)
@@ -734,7 +741,7 @@ fn raw_values(st: &Stream) -> Raw {
 }
 
 /// Elements of the measurements alone; an element that needs an unmeasured quantity has no
-/// figure, and `depends_on` names what is missing.
+/// figure, and `depends_on_unmeasured` names what is missing.
 fn raw_balance(db: &SpeciesDb, inlet: &Stream, outlet: &Stream) -> Result<Value, CliError> {
     let Raw {
         flow: fi,
@@ -764,7 +771,10 @@ fn raw_balance(db: &SpeciesDb, inlet: &Stream, outlet: &Stream) -> Result<Value,
     let mut rows = Vec::new();
     for c in &closures {
         let mut missing: Vec<String> = Vec::new();
-        for (st, f, w, d) in [(inlet, fi, wi, &di), (outlet, fo, wo, &d_o)] {
+        for (side, st, f, w, d) in [
+            (Side::Inlet, inlet, fi, wi, &di),
+            (Side::Outlet, outlet, fo, wo, &d_o),
+        ] {
             if f.is_none() {
                 missing.push(st.dry_flow.tag.clone());
             }
@@ -773,8 +783,8 @@ fn raw_balance(db: &SpeciesDb, inlet: &Stream, outlet: &Stream) -> Result<Value,
             }
             if d.is_none() {
                 missing.push(format!(
-                    "{} (more than one fraction by difference)",
-                    st.dry_flow.tag
+                    "the {} analysis (more than one fraction unmeasured)",
+                    side.name()
                 ));
             }
         }
@@ -1399,7 +1409,7 @@ mod tests {
             (
                 r#"{"inlet": {"dry_flow_kmol_h": 1, "dry_mole_fractions": {"CO": 0.2, "H2": 0.1}},
                    "outlet": {"dry_flow_kmol_h": 1, "dry_mole_fractions": {"CO": 1}}}"#,
-                "sums to 0.30000000000000004",
+                "sums to 0.3000: give mole fractions of every dry species",
             ),
             (
                 r#"{"inlet": {"dry_flow_kmol_h": 1, "flow_tag": "FI-1", "dry_mole_fractions": {"CO": 1}},
@@ -1519,6 +1529,36 @@ mod tests {
         // The same stream on both sides with no water closes: a valid balance.
         let v = balance(&db(), &base).expect("balance");
         assert_eq!(v["elements_measured"][0]["closure"], json!(1.0));
+    }
+
+    #[test]
+    fn a_quantity_object_carries_its_own_sigma_and_tag() {
+        // The `lts` construction with the inlet meter as an object; an absolute σ for every
+        // fraction through pct 0 and the floor.
+        let text = lts(json!(400), json!("unmeasured"), 1.0, 1.0)
+            .replace(
+                "\"dry_flow_kmol_h\":1000",
+                "\"dry_flow_kmol_h\":{\"value\":1000,\"sigma\":5,\"tag\":\"FI-101\"}",
+            )
+            .replacen(
+                '{',
+                "{\"sigma_fraction_pct\":0,\"sigma_fraction_floor\":0.001,",
+                1,
+            );
+        let v = from_json(&text).expect("balance");
+        let est = v["estimates"].as_array().expect("estimates");
+        let fi = est
+            .iter()
+            .find(|e| e["tag"] == json!("FI-101"))
+            .expect("FI-101");
+        assert_eq!(fi["measurement_sigma"], json!(5.0));
+        assert_eq!(fi["stream"], json!("inlet"));
+        let co = est
+            .iter()
+            .find(|e| e["tag"] == json!("inlet CO"))
+            .expect("CO");
+        assert_eq!(co["measurement_sigma"], json!(0.001));
+        assert_eq!(co["species"], json!("CO"));
     }
 
     #[test]
