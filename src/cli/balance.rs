@@ -991,6 +991,15 @@ pub fn balance(db: &SpeciesDb, inp: &BalanceInput) -> Result<Value, CliError> {
             out.insert("suspect".into(), json!(rec.suspect));
             out.insert("suspect_equivalents".into(), json!(rec.suspect_equivalents));
             out.insert("estimates".into(), estimates_json(&rec, &meta)?);
+            // The least squares have no bounds: next to a gross error a small reading can
+            // be reconciled below zero. Named, not clipped.
+            let negative: Vec<&str> = rec
+                .estimates
+                .iter()
+                .filter(|e| e.reconciled < 0.0)
+                .map(|e| e.tag.as_str())
+                .collect();
+            out.insert("reconciled_below_zero".into(), json!(negative));
             out.insert(
                 "steam_ratios".into(),
                 steam_ratios(db, &inlet, &outlet, Some(&rec)),
@@ -1176,6 +1185,16 @@ pub fn balance_table(v: &Value) -> String {
             ));
         }
         t.push_str("  (flows kmol/h, analyses dry mole fractions; z -: no balance checks it; * failed measurement test)\n");
+        let negative: Vec<&str> = v["reconciled_below_zero"]
+            .as_array()
+            .map(|a| a.iter().filter_map(Value::as_str).collect())
+            .unwrap_or_default();
+        if !negative.is_empty() {
+            t.push_str(&format!(
+                "  reconciled below zero: {} (the reconciliation has no bounds; with a gross error present these figures are not physical)\n",
+                negative.join(", ")
+            ));
+        }
     }
     let ratios: Vec<(&String, &Value)> = v["steam_ratios"]
         .as_object()
@@ -1529,6 +1548,32 @@ mod tests {
         // The same stream on both sides with no water closes: a valid balance.
         let v = balance(&db(), &base).expect("balance");
         assert_eq!(v["elements_measured"][0]["closure"], json!(1.0));
+    }
+
+    #[test]
+    fn a_reading_reconciled_below_zero_is_named() {
+        // Invented methanator: 1000 kmol/h dry (CO 0.3 %, CH4 0.7 %, H2 74 %, N2 25 %) and
+        // 1 kmol/h water; CO + 3 H2 = CH4 + H2O (stoichiometry) takes all 3 kmol/h CO: dry
+        // out 991 kmol/h (CH4 10, H2 731, N2 250 kmol/h, CO 1e-12), water out 4 kmol/h. The
+        // outlet CH4 read 20 % high pulls the unbounded CO estimate below zero (measured:
+        // −2.7e-5, a property of unbounded least squares, Narasimhan & Jordache ch. 5).
+        let d = 991.0;
+        let text = json!({
+            "inlet": {"dry_flow_kmol_h": 1000, "water_kmol_h": 1.0,
+                      "dry_mole_fractions": {"CO": 0.003, "CH4": 0.007, "H2": 0.74, "N2": 0.25}},
+            "outlet": {"dry_flow_kmol_h": d, "water_kmol_h": 4.0,
+                       "dry_mole_fractions": {"CO": 1e-12, "CH4": 1.2 * 10.0 / d,
+                          "H2": 731.0 / d, "N2": 250.0 / d}}
+        })
+        .to_string();
+        let v = from_json(&text).expect("balance");
+        assert_eq!(v["suspect"], json!("outlet CH4"), "{v}");
+        assert_eq!(v["reconciled_below_zero"], json!(["outlet CO"]));
+        assert!(balance_table(&v).contains("reconciled below zero: outlet CO"));
+        // The same plant without the error has nothing below zero.
+        let fine = text.replace(&format!("{}", 1.2 * 10.0 / d), &format!("{}", 10.0 / d));
+        let v = from_json(&fine).expect("balance");
+        assert_eq!(v["reconciled_below_zero"], json!([]), "{v}");
     }
 
     #[test]
