@@ -1115,7 +1115,8 @@ pub fn balance_table(v: &Value) -> String {
         }
         t.push('\n');
     }
-    let sig = v["significance"].as_f64().unwrap_or(f64::NAN) * 100.0;
+    // In per cent, rounded so that 0.07 prints as 7, not 7.000000000000001.
+    let sig = (v["significance"].as_f64().unwrap_or(f64::NAN) * 1e8).round() / 1e6;
     if v["reconciled"] == json!(false) {
         t.push_str(&format!(
             "\nNot reconciled: {}\n",
@@ -1340,11 +1341,12 @@ mod tests {
                 flow: Some("1025".into()),
                 water: Some("unmeasured".into()),
             },
-            significance: Some("1 %".into()),
+            significance: Some("7 %".into()),
             ..BalanceInput::default()
         };
         let v = balance(&db(), &inp).expect("balance");
-        assert_eq!(v["significance"], json!(0.01));
+        assert_eq!(v["significance"], json!(0.07));
+        assert!(balance_table(&v).contains("at 7 %:"));
         let n2 = v["estimates"]
             .as_array()
             .expect("estimates")
@@ -1569,7 +1571,9 @@ mod tests {
         let v = from_json(&text).expect("balance");
         assert_eq!(v["suspect"], json!("outlet CH4"), "{v}");
         assert_eq!(v["reconciled_below_zero"], json!(["outlet CO"]));
-        assert!(balance_table(&v).contains("reconciled below zero: outlet CO"));
+        let t = balance_table(&v);
+        assert!(t.contains("reconciled below zero: outlet CO"), "{t}");
+        assert!(t.contains("at 5 %"), "{t}");
         // The same plant without the error has nothing below zero.
         let fine = text.replace(&format!("{}", 1.2 * 10.0 / d), &format!("{}", 10.0 / d));
         let v = from_json(&fine).expect("balance");
