@@ -71,6 +71,9 @@ bin=$target/release/eqwatch
 step "cross-check against Cantera"
 .venv/bin/python scripts/crosscheck_cantera.py --bin "$bin"
 
+step "cross-check of the element balances against Cantera's equilibrium compositions"
+.venv/bin/python scripts/crosscheck_balance.py --bin "$bin"
+
 step "cross-check against thermo (Peng-Robinson)"
 .venv/bin/python scripts/crosscheck_thermo.py --bin "$bin"
 

@@ -5,7 +5,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::{Parser, Subcommand};
-use eqwatch::cli::{self, CalcInput, CliError, EquilibriumInput};
+use eqwatch::cli::{self, BalanceInput, CalcInput, CliError, EquilibriumInput, StreamText};
 use eqwatch::thermo::species::SpeciesDb;
 
 /// Approach to chemical equilibrium for catalytic reactors (advisory only).
@@ -97,6 +97,46 @@ enum Command {
         reactions: Vec<String>,
         #[arg(long = "k-source")]
         k_sources: Vec<String>,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Element balances (C, H, O, N, Ar, ...) of an inlet and an outlet stream, their
+    /// reconciliation, the global and measurement tests and the suspect instrument.
+    Balance {
+        /// The two streams as a JSON file (shape in the README); or the options below.
+        #[arg(long)]
+        input: Option<PathBuf>,
+        /// Inlet dry analysis, mole fractions of every dry species, e.g.
+        /// "CH4=0.95,CO2=0.01,H2=0.02,N2=0.02" (a value may carry a unit; "X=?" by difference).
+        #[arg(long)]
+        inlet_dry: Option<String>,
+        /// Inlet dry gas flow, kmol/h, or "unmeasured".
+        #[arg(long)]
+        inlet_flow: Option<String>,
+        /// Inlet water/steam flow, kmol/h, or "unmeasured"; left out: no water.
+        #[arg(long)]
+        inlet_water: Option<String>,
+        /// Outlet dry analysis (as --inlet-dry).
+        #[arg(long)]
+        outlet_dry: Option<String>,
+        /// Outlet dry gas flow, kmol/h, or "unmeasured".
+        #[arg(long)]
+        outlet_flow: Option<String>,
+        /// Outlet water flow, kmol/h, or "unmeasured"; left out: no water.
+        #[arg(long)]
+        outlet_water: Option<String>,
+        /// One σ of a flow, % of reading (default 1).
+        #[arg(long)]
+        sigma_flow_pct: Option<f64>,
+        /// One σ of an analysed fraction, % of reading (default 1) ...
+        #[arg(long)]
+        sigma_fraction_pct: Option<f64>,
+        /// ... and never below this mole fraction (default 0.0002).
+        #[arg(long)]
+        sigma_fraction_floor: Option<f64>,
+        /// Significance of the global and measurement tests together, e.g. "5 %" (default).
+        #[arg(long)]
+        significance: Option<String>,
         #[arg(long)]
         json: bool,
     },
@@ -489,6 +529,52 @@ fn run(args: Args) -> Result<(serde_json::Value, bool), CliError> {
                 k_sources,
             };
             Ok((cli::equilibrium(&db, &inp)?, json))
+        }
+        Command::Balance {
+            input,
+            inlet_dry,
+            inlet_flow,
+            inlet_water,
+            outlet_dry,
+            outlet_flow,
+            outlet_water,
+            sigma_flow_pct,
+            sigma_fraction_pct,
+            sigma_fraction_floor,
+            significance,
+            json,
+        } => {
+            let text = match &input {
+                Some(path) => Some((
+                    std::fs::read_to_string(path)
+                        .map_err(|e| CliError::Input(format!("--input {}: {e}", path.display())))?,
+                    path.display().to_string(),
+                )),
+                None => None,
+            };
+            let inp = BalanceInput {
+                json: text,
+                inlet: StreamText {
+                    dry: inlet_dry,
+                    flow: inlet_flow,
+                    water: inlet_water,
+                },
+                outlet: StreamText {
+                    dry: outlet_dry,
+                    flow: outlet_flow,
+                    water: outlet_water,
+                },
+                sigma_flow_pct,
+                sigma_fraction_pct,
+                sigma_fraction_floor,
+                significance,
+            };
+            let v = cli::balance(&db, &inp)?;
+            if json {
+                Ok((v, true))
+            } else {
+                Ok((serde_json::Value::String(cli::balance_table(&v)), false))
+            }
         }
         Command::Species { json } => Ok((cli::species(&db), json)),
         Command::Check { config } => {

@@ -210,6 +210,7 @@ const RULES: &[Rule] = &[
             "approach",
             "composition",
             "equilibrium",
+            "reconcile",
             "thermo",
             "units",
             "cli",

@@ -1,5 +1,6 @@
 //! The engineer's calculator, one file per command: `eqwatch calc` ([`calc`]),
-//! `eqwatch equilibrium` ([`equilibrium`]), `eqwatch species` ([`species`]), and the
+//! `eqwatch equilibrium` ([`equilibrium`]), `eqwatch balance` ([`balance`]: element
+//! balances and reconciliation of an inlet and an outlet stream), `eqwatch species` ([`species`]), and the
 //! plain-text table any JSON answer prints as ([`table`]), and `eqwatch report` ([`report`]:
 //! the period's HTML report from published records; its own rule, it reads the configuration). `eqwatch check` is the
 //! configuration's own summary (`crate::config::summary`).
@@ -12,12 +13,14 @@
 //! Rules of this folder (checked by `tests/architecture.rs`): the core and serde_json
 //! only; never the configuration, the pipeline, the daemon or the demo.
 
+mod balance;
 mod calc;
 mod equilibrium;
 mod report;
 mod species;
 mod table;
 
+pub use balance::{BalanceInput, StreamText, balance, balance_table};
 pub use calc::{CalcInput, calc, calc_table, parse_uncertainty, temperature_unit_of};
 pub use equilibrium::{EquilibriumInput, equilibrium};
 pub use report::{ReportArgs, report};
