@@ -993,13 +993,7 @@ pub fn balance(db: &SpeciesDb, inp: &BalanceInput) -> Result<Value, CliError> {
             out.insert("estimates".into(), estimates_json(&rec, &meta)?);
             // The least squares have no bounds: next to a gross error a small reading can
             // be reconciled below zero. Named, not clipped.
-            let negative: Vec<&str> = rec
-                .estimates
-                .iter()
-                .filter(|e| e.reconciled < 0.0)
-                .map(|e| e.tag.as_str())
-                .collect();
-            out.insert("reconciled_below_zero".into(), json!(negative));
+            out.insert("reconciled_below_zero".into(), json!(rec.below_zero()));
             out.insert(
                 "steam_ratios".into(),
                 steam_ratios(db, &inlet, &outlet, Some(&rec)),

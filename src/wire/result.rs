@@ -270,6 +270,10 @@ struct ReconciliationOut<'a> {
     /// Per reaction, the approach of the reconciled outlet gas at the measured T and P.
     #[serde(skip_serializing_if = "Vec::is_empty")]
     approach_k: Vec<Option<f64>>,
+    /// Quantities the (unbounded) least squares took below zero: no gas to compute an
+    /// approach with, so `approach_k` is null; usually beside a gross error.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    reconciled_below_zero: Vec<&'a str>,
     #[serde(skip_serializing_if = "Option::is_none")]
     iterations: Option<u32>,
 }
@@ -324,6 +328,7 @@ fn reconciliation_out<'a>(
             steam_ratio_out: None,
             steam_ratio_in: None,
             approach_k: Vec::new(),
+            reconciled_below_zero: Vec::new(),
             iterations: None,
         };
     };
@@ -379,6 +384,7 @@ fn reconciliation_out<'a>(
         steam_ratio_out: finite_opt(rec.outlet_steam_to_dry()),
         steam_ratio_in: finite_opt(rec.inlet_steam_to_dry()),
         approach_k: r.approach_k.iter().map(|a| finite_opt(*a)).collect(),
+        reconciled_below_zero: rec.below_zero(),
         iterations: Some(rec.iterations),
     }
 }

@@ -778,6 +778,11 @@ impl ReactorMonitor {
         ) else {
             return vec![None; model.reactions().len()];
         };
+        // A quantity reconciled below zero (the least squares are unbounded; it happens
+        // beside a gross error) is no gas to compute with.
+        if !rec.below_zero().is_empty() || sd < 0.0 {
+            return vec![None; model.reactions().len()];
+        }
         let mut y: Vec<f64> = model
             .species()
             .iter()
