@@ -129,6 +129,39 @@ pub(crate) struct ReactorAgg {
     pub(crate) suspects: BTreeMap<String, u64>,
     pub(crate) events: Vec<EventRow>,
     pub(crate) events_left_out: u64,
+    /// Suppression by design (a bad analysis, the unit off line), per alert or alarm:
+    /// summed up rather than listed, since a weekly analyser calibration alone makes a
+    /// hundred pairs of rows a year that say nothing about the catalyst.
+    pub(crate) suppressions: BTreeMap<String, Suppressions>,
+}
+
+/// One alert or alarm's suppressions by design in the period.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub(crate) struct Suppressions {
+    pub(crate) times: u64,
+    /// Time suppressed, summed over the episodes that ended in the period (ms).
+    pub(crate) total_ms: i64,
+    pub(crate) longest_ms: i64,
+    /// Still suppressed at the end of the period, since.
+    pub(crate) open_since_ms: Option<i64>,
+    /// Why, with how often (the event's reason).
+    pub(crate) reasons: BTreeMap<String, u64>,
+}
+
+impl Suppressions {
+    fn suppressed(&mut self, at_ms: i64, reason: &str) {
+        self.times += 1;
+        *self.reasons.entry(reason.to_string()).or_default() += 1;
+        self.open_since_ms.get_or_insert(at_ms);
+    }
+
+    fn unsuppressed(&mut self, at_ms: i64) {
+        if let Some(since) = self.open_since_ms.take() {
+            let d = (at_ms - since).max(0);
+            self.total_ms += d;
+            self.longest_ms = self.longest_ms.max(d);
+        }
+    }
 }
 
 impl ReactorAgg {
@@ -152,6 +185,7 @@ impl ReactorAgg {
             tests_passed: 0,
             reconcile_unavailable: 0,
             suspects: BTreeMap::new(),
+            suppressions: BTreeMap::new(),
             events: Vec::new(),
             events_left_out: 0,
         }
@@ -464,6 +498,19 @@ impl Aggregator {
             return Ok(());
         }
         self.counts.events += 1;
+        let event = text(p, "event");
+        if let (Some(i), "suppressed" | "unsuppressed") = (index, event) {
+            let sup = self.reactors[i]
+                .suppressions
+                .entry(text(p, "alarm").to_string())
+                .or_default();
+            if event == "suppressed" {
+                sup.suppressed(t, text(p, "reason"));
+            } else {
+                sup.unsuppressed(t);
+            }
+            return Ok(());
+        }
         let note = [text(p, "by"), text(p, "reason")]
             .iter()
             .filter(|s| !s.is_empty())

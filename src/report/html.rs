@@ -542,9 +542,59 @@ fn events_section(out: &mut String, r: &ReactorAgg) {
     out.push_str("<h3>Alerts and alarms</h3>");
     if r.events.is_empty() {
         out.push_str("<p class=\"muted\">No alert or alarm events in the period.</p>");
+    } else {
+        events_table(out, &r.events, r.events_left_out);
+    }
+    suppressions_table(out, r);
+}
+
+/// Hours with one decimal, or minutes below an hour.
+fn span(ms: i64) -> String {
+    let min = ms as f64 / 60_000.0;
+    if min < 60.0 {
+        format!("{min:.0} min")
+    } else {
+        format!("{:.1} h", min / 60.0)
+    }
+}
+
+/// Suppression by design, summed per alert or alarm (not listed event by event).
+fn suppressions_table(out: &mut String, r: &ReactorAgg) {
+    if r.suppressions.is_empty() {
         return;
     }
-    events_table(out, &r.events, r.events_left_out);
+    out.push_str(
+        "<p>Suppressed by design (while the analysis was bad or the unit off line; \
+         summed here, not listed above):</p>\
+         <table class=\"events\"><tr><th>alert / alarm</th><th>times</th><th>in all</th>\
+         <th>longest</th><th>why</th></tr>",
+    );
+    for (alarm, s) in &r.suppressions {
+        let mut why: Vec<(&String, &u64)> = s.reasons.iter().collect();
+        why.sort_by(|a, b| b.1.cmp(a.1).then(a.0.cmp(b.0)));
+        let why: Vec<String> = why
+            .iter()
+            .take(3)
+            .map(|(w, n)| {
+                let w = if w.is_empty() { "no reason given" } else { w };
+                format!("{w} ({n})")
+            })
+            .collect();
+        let open = s.open_since_ms.map_or(String::new(), |t| {
+            format!("; still suppressed since {}", when(t))
+        });
+        let _ = write!(
+            out,
+            "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}{}</td></tr>",
+            esc(alarm),
+            s.times,
+            esc(&span(s.total_ms)),
+            esc(&span(s.longest_ms)),
+            esc(&why.join("; ")),
+            esc(&open)
+        );
+    }
+    out.push_str("</table>");
 }
 
 fn events_table(out: &mut String, events: &[EventRow], left_out: u64) {

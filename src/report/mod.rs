@@ -162,6 +162,36 @@ mod tests {
     }
 
     #[test]
+    fn suppressions_by_design_are_summed_not_listed() {
+        // Three weekly calibrations (invented): approach-high suppressed for 30 min each.
+        let mut v = lines();
+        for k in 0..3 {
+            let at = D0 + 3_600_000 * (10 + k);
+            for (event, dt) in [("suppressed", 0), ("unsuppressed", 1_800_000)] {
+                v.push(
+                    serde_json::json!({"topic": "x/r1/alarm", "retain": false, "payload": {
+                        "schema": "eqwatch.event/1", "id": format!("r1/approach-high#{k}{event}"),
+                        "reactor": "r1", "class": "alarm", "alarm": "approach-high", "event": event,
+                        "at": ts(at + dt), "state": "normal", "value": null, "limit": 20.0, "unit": "K",
+                        "reason": "analysis bad: missing_component"
+                    }})
+                    .to_string(),
+                );
+            }
+        }
+        let html = report_of(&v);
+        let r1 = &html[html.find("id=\"reactor-r1\"").unwrap_or(0)..];
+        assert!(!r1.contains("<td>suppressed</td>"), "listed one by one");
+        assert!(r1.contains("Suppressed by design"), "{r1}");
+        assert!(
+            r1.contains("<td>approach-high</td><td class=\"n\">3</td><td class=\"n\">1.5 h</td><td class=\"n\">30 min</td><td>analysis bad: missing_component (3)</td>"),
+            "{r1}"
+        );
+        // The gross-error alert of the fixture is still listed.
+        assert!(r1.contains("gross-error"));
+    }
+
+    #[test]
     fn a_narrow_interval_keeps_its_width_visible() {
         // 2.2 mm/day ± 0.02: one decimal would print "+2.2 to +2.2", no width at all.
         let mut v = lines();
