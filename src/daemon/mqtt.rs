@@ -43,9 +43,9 @@ use tokio::sync::Notify;
 /// A connection that stayed up this long resets the backoff.
 const STABLE: Duration = Duration::from_secs(10);
 /// Records older than this when handed over are marked late.
-const LATE_MS: i64 = 10_000;
+pub(super) const LATE_MS: i64 = 10_000;
 /// Records held in memory by the outbox; the rest wait on disk.
-const OUTBOX_CAPACITY: usize = 4096;
+pub(super) const OUTBOX_CAPACITY: usize = 4096;
 
 #[derive(Debug, thiserror::Error)]
 pub enum LinkError {
@@ -81,7 +81,7 @@ pub fn client_id_with(client_id: &str, suffix: &str) -> String {
 
 /// Hands results to the Sparkplug edge node: fresh ones, and those read back from the
 /// journal that an earlier process wrote (historical there); never blocks the link.
-fn copy_results(
+pub(super) fn copy_results(
     tx: &mpsc::Sender<super::ResultCopy>,
     records: &[Outgoing],
     last_at_start: u64,
@@ -187,7 +187,7 @@ fn pem_problem<'a>(
 /// The TLS client configuration on the ring provider: the CA file's certificates (or the
 /// platform's when none is given), and the client certificate and key when configured.
 /// Every failure names the file and what is wrong with it.
-fn tls_config(b: &BrokerSettings) -> Result<rustls::ClientConfig, LinkError> {
+pub(super) fn tls_config(b: &BrokerSettings) -> Result<rustls::ClientConfig, LinkError> {
     use rustls::pki_types::pem::PemObject;
     use rustls::pki_types::{CertificateDer, PrivateKeyDer};
     let mut roots = rustls::RootCertStore::empty();
@@ -301,6 +301,11 @@ impl Connection {
         }
     }
 
+    /// The configured user name (for a refusal's message).
+    pub(super) fn user(&self) -> Option<&str> {
+        self.user.as_deref()
+    }
+
     pub(super) fn up(&mut self, session_present: bool) {
         self.since = Some(Instant::now());
         self.ever = true;
@@ -316,13 +321,20 @@ impl Connection {
     /// milliseconds: those wait the longest delay (`reconnect_max`) at once and say
     /// what to fix.
     pub(super) fn lost(&mut self, e: &rumqttc::ConnectionError) -> Duration {
+        let fix = refusal(e, self.user.as_deref());
+        self.lost_with(e, fix)
+    }
+
+    /// [`Connection::lost`] for any error, with what to fix when the broker refused the
+    /// connection (then the longest delay at once).
+    pub(super) fn lost_with(&mut self, e: &dyn std::fmt::Display, fix: Option<String>) -> Duration {
         let was_up = self.since.take();
         if was_up.is_some_and(|t| t.elapsed() >= STABLE) {
             self.failures = 0;
         }
         self.failures = self.failures.saturating_add(1);
         let (what, broker, attempt) = (self.what, &self.broker, self.failures);
-        if let Some(fix) = refusal(e, self.user.as_deref()) {
+        if let Some(fix) = fix {
             let delay = self.max.mul_f64(1.0 + 0.1 * self.jitter.next_unit());
             let retry = format!("{:.1} s", delay.as_secs_f64());
             if attempt == 1 {
@@ -359,23 +371,38 @@ fn refusal(e: &rumqttc::ConnectionError, user: Option<&str>) -> Option<String> {
     let rumqttc::ConnectionError::ConnectionRefused(code) = e else {
         return None;
     };
+    let code = match code {
+        Code::RefusedProtocolVersion => 1,
+        Code::BadClientId => 2,
+        Code::ServiceUnavailable => 3,
+        Code::BadUserNamePassword => 4,
+        Code::NotAuthorized => 5,
+        Code::Success => 0,
+    };
+    refusal_for_code(code, user)
+}
+
+/// What to fix for a CONNACK return code (MQTT 3.1.1 §3.2.2.3): `None` for 0 and 3
+/// (accepted; server unavailable, which takes the normal backoff). Shared by both
+/// result link clients and the input link, so the engineer reads the same words.
+pub(super) fn refusal_for_code(code: u8, user: Option<&str>) -> Option<String> {
     let login = match user {
         Some(u) => format!("user {u:?}"),
         None => "no user name (anonymous)".to_string(),
     };
     match code {
-        Code::BadUserNamePassword | Code::NotAuthorized => Some(format!(
+        4 | 5 => Some(format!(
             "refused the user name or password, {login}: check broker.username and \
              broker.password_file or password_env against the broker's password file"
         )),
-        Code::BadClientId => Some(
+        2 => Some(
             "refused the client id: check broker.client_id (1 to 23 letters and digits for MQTT 3.1.1, unique on the broker)"
                 .to_string(),
         ),
-        Code::RefusedProtocolVersion => Some(
+        1 => Some(
             "refused MQTT 3.1.1: check the broker's listener (protocol) settings".to_string(),
         ),
-        Code::Success | Code::ServiceUnavailable => None,
+        _ => None,
     }
 }
 
