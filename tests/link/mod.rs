@@ -223,7 +223,7 @@ fn results_arrive_once_and_in_order_across_a_broker_restart_mid_stream() {
     let broker = persistent_broker(dir.path(), port, "");
     let http = free_port();
     // Default session settings: the result link keeps its session (clean session 0).
-    let config = write_lts_plant(dir.path(), port, http, "midrestart", "");
+    let config = write_lts_plant(dir.path(), port, http, "mid", "");
     // The consumer keeps its session too, so the broker's database holds what it has
     // not yet received when the broker stops.
     let got = collector_kept(&rt, port, &["eqwatch/test/lts1/result"], "keeper-mid");
@@ -233,20 +233,26 @@ fn results_arrive_once_and_in_order_across_a_broker_restart_mid_stream() {
         == 1.0));
     std::thread::sleep(Duration::from_secs(1));
     let p = Publisher::new(&rt, port);
-    const N: usize = 60;
-    for m in 1..=30 {
-        publish_lts_set_at(&p, &rt, m);
-    }
-    assert!(
-        wait_until(Duration::from_secs(20), || seqs(&got).len() >= 5),
-        "no results before the restart"
-    );
-    // Mid-stream: a clean stop (mosquitto saves its database), then the same database.
-    assert!(stop_broker(broker, port));
-    let broker = persistent_broker(dir.path(), port, "");
-    for m in 31..=N as i64 {
-        publish_lts_set_at(&p, &rt, m);
-    }
+    const N: usize = 100;
+    // Analyses keep coming every 20 ms (2 s in all) while the broker restarts.
+    let broker = std::thread::scope(|scope| {
+        scope.spawn(|| {
+            for m in 1..=N as i64 {
+                publish_lts_set_at(&p, &rt, m);
+                std::thread::sleep(Duration::from_millis(20));
+            }
+        });
+        assert!(
+            wait_until(Duration::from_secs(20), || seqs(&got).len() >= 10),
+            "no results before the restart"
+        );
+        // Mid-stream: a clean stop (mosquitto saves its database), then the same
+        // database on the same port.
+        let before = seqs(&got).len();
+        assert!(stop_broker(broker, port));
+        assert!(before < N / 2, "the stream ended before the restart: {before}");
+        persistent_broker(dir.path(), port, "")
+    });
     let complete = wait_until(Duration::from_secs(60), || {
         let mut s = seqs(&got);
         s.sort_unstable();
@@ -280,6 +286,15 @@ fn results_arrive_once_and_in_order_across_a_broker_restart_mid_stream() {
         (first..first + N as u64).collect::<Vec<_>>(),
         "gaps or disorder: {all:?}"
     );
+    // The restart reached the result link, and it came back on its kept session.
+    assert!(d.metric("eqwatch_reconnects_total") >= 1.0);
+    let log = std::fs::read_to_string(config.with_extension("log")).unwrap_or_default();
+    assert!(
+        log.lines()
+            .any(|l| l.contains("results connection") && l.contains("session_present=true")),
+        "no resumed session in the log:\n{log}"
+    );
+    eprintln!("{} deliveries of {N} results: {all:?}", all.len());
     d.signal("-TERM");
     assert_eq!(d.wait_exit(Duration::from_secs(20)), Some(0));
     assert!(stop_broker(broker, port));
