@@ -1,12 +1,13 @@
 //! The shell: MQTT in and out, the journal, metrics over HTTP, signals. The only place
-//! tokio and rumqttc appear. The numeric work happens in the pure core
+//! tokio and rumqttc appear (rumqttc for the input link; the result link has its own
+//! MQTT 3.1.1 client, `mqtt311.rs` and `publink.rs`). The numeric work happens in the pure core
 //! ([`crate::monitor`], [`crate::approach`]); this module moves data and owns durability.
 //!
 //! Tasks and threads:
 //! ```text
 //! broker ─► input link task (mqtt.rs) ──raw input──► evaluator task
 //!                                                   (decode, monitor, encode)
-//! broker ◄─ result link task (mqtt.rs)                     │ results
+//! broker ◄─ result link task (publink.rs)                  │ results
 //!              ▲ records (journaled)                       ▼
 //!              └──────────── journal thread (journal.rs, std I/O)
 //! ```

@@ -522,6 +522,10 @@ impl ResultLink {
         self.acked.notify_one();
         let fix = match e {
             Lost::Refused(code) => refusal_for_code(*code as u8, conn.user()),
+            Lost::Encode(_) => {
+                metrics.publish_failures.fetch_add(1, Relaxed);
+                None
+            }
             _ => None,
         };
         Instant::now() + conn.lost_with(e, fix)
