@@ -47,9 +47,9 @@ use crate::wire::result::with_delivery;
 
 /// Bytes read from the socket per read call at most.
 const READ_CHUNK: usize = 64 * 1024;
-/// How often the loop looks at the journal read-back and the shutdown deadline when
-/// nothing else wakes it.
-const TICK: Duration = Duration::from_millis(500);
+/// How often the loop looks at the keepalive, the journal read-back and the shutdown
+/// deadline when nothing else wakes it (keepalive is whole seconds, at least 5).
+const TICK: Duration = Duration::from_millis(250);
 
 /// Why a connection attempt failed or a connection ended.
 #[derive(Debug, thiserror::Error)]
@@ -362,23 +362,30 @@ impl Duty {
         false
     }
 
-    /// The broker acknowledged a journal record's PUBLISH.
-    fn on_ack(&mut self, pkid: u16) {
-        if let Some(w) = self.outbox.on_ack(pkid) {
-            self.metrics
-                .published
-                .store(w.saturating_sub(self.published_at_start), Relaxed);
-            self.metrics.journal_published_seq.store(w, Relaxed);
-            if self.metrics.backlog() <= UNACKED_RESUME {
-                self.acked.notify_one();
-            }
-            // A later acknowledgement carries a higher watermark, so a busy journal
-            // may skip this one.
-            let _ = self.journal.try_send(JournalCmd::Published {
-                seq: w,
-                force: false,
-            });
+    /// The broker acknowledged a journal record's PUBLISH: `true` when the watermark
+    /// moved (then [`Duty::watermark_moved`] once for a whole read).
+    fn on_ack(&mut self, pkid: u16) -> bool {
+        self.outbox.on_ack(pkid).is_some()
+    }
+
+    /// Tells the metrics, the evaluator and the journal where the watermark is now:
+    /// once per read however many PUBACKs it held (one wake-up of the journal thread,
+    /// not one per result).
+    fn watermark_moved(&mut self) {
+        let w = self.outbox.watermark();
+        self.metrics
+            .published
+            .store(w.saturating_sub(self.published_at_start), Relaxed);
+        self.metrics.journal_published_seq.store(w, Relaxed);
+        if self.metrics.backlog() <= UNACKED_RESUME {
+            self.acked.notify_one();
         }
+        // A later acknowledgement carries a higher watermark, so a busy journal may
+        // skip this one.
+        let _ = self.journal.try_send(JournalCmd::Published {
+            seq: w,
+            force: false,
+        });
     }
 }
 
@@ -397,6 +404,28 @@ fn read_now(link: &mut Up) -> Result<bool, Lost> {
         }
         Poll::Ready(Err(e)) => Err(Lost::Io(e)),
         Poll::Pending => Ok(false),
+    }
+}
+
+/// Writes what the socket takes now, without waiting: the bytes written and whether
+/// the stream then flushed (TLS may hold records back).
+fn write_now(io: &mut Box<dyn Io>, bytes: &[u8]) -> std::io::Result<(usize, bool)> {
+    let mut cx = std::task::Context::from_waker(std::task::Waker::noop());
+    let mut written = 0;
+    while written < bytes.len() {
+        match Pin::new(&mut **io).poll_write(&mut cx, &bytes[written..]) {
+            Poll::Ready(Ok(0)) => {
+                return Err(std::io::Error::from(std::io::ErrorKind::WriteZero));
+            }
+            Poll::Ready(Ok(n)) => written += n,
+            Poll::Ready(Err(e)) => return Err(e),
+            Poll::Pending => return Ok((written, false)),
+        }
+    }
+    match Pin::new(&mut **io).poll_flush(&mut cx) {
+        Poll::Ready(Ok(())) => Ok((written, true)),
+        Poll::Ready(Err(e)) => Err(e),
+        Poll::Pending => Ok((written, false)),
     }
 }
 
@@ -558,14 +587,21 @@ impl ResultLink {
     }
 
     /// Writes `bytes` whole (the kernel may take them in parts), within the write limit.
+    /// The common case, a socket with room, finishes at once with no timer armed.
     async fn write(&self, link: &mut Up, bytes: &[u8]) -> Result<(), Lost> {
         if bytes.is_empty() {
             return Ok(());
         }
+        let (written, flushed) = write_now(&mut link.io, bytes).map_err(Lost::Io)?;
+        if written == bytes.len() && flushed {
+            link.last_sent = Instant::now();
+            return Ok(());
+        }
+        let rest = &bytes[written..];
         let limit = self.options.connect_timeout;
         let io = &mut link.io;
         let done = tokio::time::timeout(limit, async {
-            io.write_all(bytes).await?;
+            io.write_all(rest).await?;
             io.flush().await
         })
         .await;
@@ -591,6 +627,9 @@ impl ResultLink {
         let window = usize::from(self.broker.inflight.max(1));
         let keep_alive = self.options.keep_alive;
         let mut out: Vec<u8> = Vec::with_capacity(64 * 1024);
+        // One timer for the connection, not one per turn.
+        let mut tick = tokio::time::interval(TICK);
+        tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
         loop {
             // 1. Everything the socket has: every PUBACK in it.
             match read_now(link) {
@@ -637,15 +676,8 @@ impl ResultLink {
                 out.clear();
                 continue;
             }
-            // 6. Wait for the socket, the journal, a timer or the shutdown.
-            let ping_due = match link.ping_sent {
-                Some(sent) => sent + keep_alive,
-                None => link.last_sent + keep_alive,
-            };
-            let mut deadline = ping_due.min(Instant::now() + TICK);
-            if let Some(at) = duty.stop_at {
-                deadline = deadline.min(at);
-            }
+            // 6. Wait for the socket, the journal, the tick (keepalive, journal reads and
+            // the shutdown deadline are looked at on it) or the shutdown.
             link.rbuf.reserve(READ_CHUNK);
             tokio::select! {
                 n = link.io.read_buf(&mut link.rbuf) => match n {
@@ -654,7 +686,7 @@ impl ResultLink {
                     Err(e) => return Step::Lost(Lost::Io(e)),
                 },
                 msg = from_journal.recv(), if !duty.drained => duty.on_journal(msg),
-                _ = tokio::time::sleep_until(deadline.into()) => {}
+                _ = tick.tick() => {}
                 _ = stop_input.cancelled(), if duty.stop_at.is_none() => {}
             }
         }
@@ -669,6 +701,7 @@ impl ResultLink {
         out: &mut Vec<u8>,
     ) -> Result<(), Lost> {
         let mut at = 0;
+        let mut moved = false;
         let result = loop {
             match wire::decode(&link.rbuf[at..], self.options.max_incoming) {
                 Ok(None) => break Ok(()),
@@ -680,7 +713,7 @@ impl ResultLink {
                             if let Some(seq) = session.acked(pkid)
                                 && seq != 0
                             {
-                                duty.on_ack(pkid);
+                                moved |= duty.on_ack(pkid);
                             }
                         }
                         Packet::PingResp => link.ping_sent = None,
@@ -699,6 +732,9 @@ impl ResultLink {
             }
         };
         link.rbuf.drain(..at);
+        if moved {
+            duty.watermark_moved();
+        }
         result
     }
 
