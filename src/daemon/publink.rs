@@ -45,8 +45,9 @@ use crate::config::{BrokerSettings, MqttProtocol};
 use crate::pipeline::metrics::Metrics;
 use crate::wire::result::with_delivery;
 
-/// Bytes read from the socket per read call at most.
-const READ_CHUNK: usize = 64 * 1024;
+/// Bytes read from the socket per read call at most: the broker sends this link
+/// PUBACKs (4 bytes each, §3.4) and PINGRESPs, so a window of 2,000 fits in one read.
+const READ_CHUNK: usize = 8 * 1024;
 /// How often the loop looks at the keepalive, the journal read-back and the shutdown
 /// deadline when nothing else wakes it (keepalive is whole seconds, at least 5).
 const TICK: Duration = Duration::from_millis(250);
@@ -626,7 +627,8 @@ impl ResultLink {
     ) -> Step {
         let window = usize::from(self.broker.inflight.max(1));
         let keep_alive = self.options.keep_alive;
-        let mut out: Vec<u8> = Vec::with_capacity(64 * 1024);
+        // Grows to the largest batch once (a window of records), then is reused.
+        let mut out: Vec<u8> = Vec::with_capacity(16 * 1024);
         // One timer for the connection, not one per turn.
         let mut tick = tokio::time::interval(TICK);
         tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
