@@ -16,10 +16,12 @@ const DEPENDENCIES: &[&str] = &[
     "ring",
     "rumqttc",
     "rumqttd",
+    "rustls",
     "serde",
     "serde_json",
     "thiserror",
     "tokio",
+    "tokio_rustls",
     "tokio_util",
     "toml",
     "tracing",
@@ -130,10 +132,14 @@ const RULES: &[Rule] = &[
             "approach", "config", "monitor", "pipeline", "timefmt", "units", "wire", "web",
             "daemon",
         ],
+        // rustls and tokio_rustls: TLS for both links (mqtt.rs builds the client
+        // configuration; publink.rs, the result link's own client, connects with it).
         crates: &[
             "tokio",
             "tokio_util",
             "rumqttc",
+            "rustls",
+            "tokio_rustls",
             "tracing",
             "serde",
             "serde_json",

@@ -9,6 +9,7 @@ mod daemon;
 mod demo;
 mod disk;
 mod fleet;
+mod link;
 mod monitor;
 mod page;
 mod replay;

@@ -1,12 +1,13 @@
 //! The shell: MQTT in and out, the journal, metrics over HTTP, signals. The only place
-//! tokio and rumqttc appear. The numeric work happens in the pure core
+//! tokio and rumqttc appear (rumqttc for the input link; the result link has its own
+//! MQTT 3.1.1 client, `mqtt311.rs` and `publink.rs`). The numeric work happens in the pure core
 //! ([`crate::monitor`], [`crate::approach`]); this module moves data and owns durability.
 //!
 //! Tasks and threads:
 //! ```text
 //! broker ─► input link task (mqtt.rs) ──raw input──► evaluator task
 //!                                                   (decode, monitor, encode)
-//! broker ◄─ result link task (mqtt.rs)                     │ results
+//! broker ◄─ result link task (publink.rs)                  │ results
 //!              ▲ records (journaled)                       ▼
 //!              └──────────── journal thread (journal.rs, std I/O)
 //! ```
@@ -20,9 +21,11 @@
 pub mod http;
 pub mod journal;
 pub mod mqtt;
+pub mod mqtt311;
 pub mod notify;
 pub mod outbox;
 pub mod page;
+pub mod publink;
 #[cfg(feature = "sparkplug")]
 pub mod sparkplug;
 pub mod state;
@@ -762,7 +765,9 @@ pub async fn run(
     let status = |state: &str, reason: &str| {
         serde_json::json!({"state": state, "reason": reason, "version": env!("CARGO_PKG_VERSION"), "site": settings.site, "started": started, "advisory": crate::wire::result::ADVISORY_SHORT}).to_string()
     };
-    let opts = mqtt::options(
+    // The result link: our own MQTT 3.1.1 client (publink.rs), which writes a batch of
+    // results in one write; the input link keeps rumqttc (mqtt.rs).
+    let result_options = publink::Options::new(
         &settings.broker,
         &status_topic,
         &status("offline", "connection lost"),
@@ -772,14 +777,11 @@ pub async fn run(
         .map_err(DaemonError::Journal)?;
     let topics = engine.subscriptions();
     let engine_spb = engine.sparkplug_inputs();
-    let cap = usize::from(settings.broker.inflight) + 64;
-    let (client, mut eventloop) = rumqttc::AsyncClient::new(opts, cap);
     let (in_client, mut in_eventloop) = rumqttc::AsyncClient::new(in_opts, topics.len() + 64);
     // Results are small and latency matters: no Nagle delay on our connections.
     let mut net = rumqttc::NetworkOptions::new();
     net.set_tcp_nodelay(true);
     net.set_connection_timeout(settings.broker.connect_timeout.as_secs());
-    eventloop.set_network_options(net.clone());
     in_eventloop.set_network_options(net);
 
     // Bounded: when the disk is slower than the evaluator, the evaluator waits, the input
@@ -866,8 +868,9 @@ pub async fn run(
         metrics.clone(),
         shutdown.clone(),
     ));
-    let link = mqtt::Link {
+    let link = publink::ResultLink {
         broker: settings.broker.clone(),
+        options: result_options,
         status_topic,
         online_payload: status("online", "running"),
         offline_payload: status("offline", "shutdown"),
@@ -878,8 +881,6 @@ pub async fn run(
         copies,
     };
     link.run(
-        client,
-        eventloop,
         from_journal,
         jtx,
         metrics.clone(),

@@ -1,16 +1,18 @@
-//! The broker links: two connections to the same broker, each owned by one task.
+//! The broker links: two connections to the same broker, each owned by one task; the
+//! input link (rumqttc) lives here.
 //!
 //! - The **input** link ([`InputLink`], client id as configured) subscribes and hands
 //!   messages to the evaluator. It polls its `EventLoop` only while the evaluator's queue
 //!   has room, so a busy evaluator pushes back through TCP onto the broker, which keeps
 //!   the messages (QoS 1) instead of this process holding them.
-//! - The **result** link ([`Link`], client id [`output_client_id`]) publishes journal
-//!   records from the [`Outbox`] with `try_publish` (never an awaiting publish from the
-//!   polling task, which could deadlock on a full request channel; the request channel
-//!   is sized above the in-flight window so `try_publish` does not fail), tracks the
-//!   acknowledgements, and carries the status: `online` (retained) on every connection,
-//!   `offline` as last will and explicitly on clean shutdown. It never waits on the
-//!   evaluator, so acknowledgements keep flowing while input is held back.
+//! - The **result** link ([`super::publink::ResultLink`], client id
+//!   [`output_client_id`]) publishes journal records from the outbox with QoS 1 over
+//!   our own MQTT 3.1.1 client ([`super::mqtt311`]), a burst of records in one write;
+//!   it tracks the acknowledgements and carries the status: `online` (retained) on
+//!   every connection, `offline` as last will and explicitly on clean shutdown. It
+//!   never waits on the evaluator, so acknowledgements keep flowing while input is held
+//!   back. This file keeps what both links share: the backoff ([`Connection`]), the TLS
+//!   configuration, the client ids and the words for a refused connection.
 //!
 //! One connection for both would tie them together: it could not stop reading input
 //! without also stopping reading the acknowledgements that let results drain, so a
@@ -26,26 +28,24 @@ use std::sync::atomic::Ordering::Relaxed;
 use std::time::{Duration, Instant};
 
 use rumqttc::{
-    AsyncClient, Event, EventLoop, Incoming, LastWill, MqttOptions, Outgoing as Out, QoS,
-    TlsConfiguration, Transport,
+    AsyncClient, Event, EventLoop, Incoming, MqttOptions, Outgoing as Out, QoS, TlsConfiguration,
+    Transport,
 };
 use tokio::sync::mpsc;
 use tokio_util::sync::CancellationToken;
-use tracing::{debug, error, info, warn};
+use tracing::{error, info, warn};
 
-use super::outbox::{Offer, Outbox, Outgoing};
-use super::{Clock, JournalCmd, RawInput, ToLink, UNACKED_RESUME, now_ms};
+use super::outbox::Outgoing;
+use super::{Clock, RawInput, now_ms};
 use crate::config::{BrokerSettings, MqttProtocol};
 use crate::pipeline::metrics::Metrics;
-use crate::wire::result::with_delivery;
-use tokio::sync::Notify;
 
 /// A connection that stayed up this long resets the backoff.
 const STABLE: Duration = Duration::from_secs(10);
 /// Records older than this when handed over are marked late.
-const LATE_MS: i64 = 10_000;
+pub(super) const LATE_MS: i64 = 10_000;
 /// Records held in memory by the outbox; the rest wait on disk.
-const OUTBOX_CAPACITY: usize = 4096;
+pub(super) const OUTBOX_CAPACITY: usize = 4096;
 
 #[derive(Debug, thiserror::Error)]
 pub enum LinkError {
@@ -81,7 +81,7 @@ pub fn client_id_with(client_id: &str, suffix: &str) -> String {
 
 /// Hands results to the Sparkplug edge node: fresh ones, and those read back from the
 /// journal that an earlier process wrote (historical there); never blocks the link.
-fn copy_results(
+pub(super) fn copy_results(
     tx: &mpsc::Sender<super::ResultCopy>,
     records: &[Outgoing],
     last_at_start: u64,
@@ -108,23 +108,6 @@ fn copy_results(
             metrics.spb_held_dropped.fetch_add(1, Relaxed);
         }
     }
-}
-
-/// Client options of the result link (status as last will); see [`input_options`].
-pub fn options(
-    b: &BrokerSettings,
-    status_topic: &str,
-    will: &str,
-) -> Result<MqttOptions, LinkError> {
-    let mut o = base_options(b, output_client_id(&b.client_id))?;
-    o.set_inflight(b.inflight);
-    o.set_last_will(LastWill::new(
-        status_topic,
-        will.as_bytes().to_vec(),
-        QoS::AtLeastOnce,
-        true,
-    ));
-    Ok(o)
 }
 
 /// Client options of the input link: the configured client id, so a broker session
@@ -187,7 +170,7 @@ fn pem_problem<'a>(
 /// The TLS client configuration on the ring provider: the CA file's certificates (or the
 /// platform's when none is given), and the client certificate and key when configured.
 /// Every failure names the file and what is wrong with it.
-fn tls_config(b: &BrokerSettings) -> Result<rustls::ClientConfig, LinkError> {
+pub(super) fn tls_config(b: &BrokerSettings) -> Result<rustls::ClientConfig, LinkError> {
     use rustls::pki_types::pem::PemObject;
     use rustls::pki_types::{CertificateDer, PrivateKeyDer};
     let mut roots = rustls::RootCertStore::empty();
@@ -301,6 +284,11 @@ impl Connection {
         }
     }
 
+    /// The configured user name (for a refusal's message).
+    pub(super) fn user(&self) -> Option<&str> {
+        self.user.as_deref()
+    }
+
     pub(super) fn up(&mut self, session_present: bool) {
         self.since = Some(Instant::now());
         self.ever = true;
@@ -316,13 +304,20 @@ impl Connection {
     /// milliseconds: those wait the longest delay (`reconnect_max`) at once and say
     /// what to fix.
     pub(super) fn lost(&mut self, e: &rumqttc::ConnectionError) -> Duration {
+        let fix = refusal(e, self.user.as_deref());
+        self.lost_with(e, fix)
+    }
+
+    /// [`Connection::lost`] for any error, with what to fix when the broker refused the
+    /// connection (then the longest delay at once).
+    pub(super) fn lost_with(&mut self, e: &dyn std::fmt::Display, fix: Option<String>) -> Duration {
         let was_up = self.since.take();
         if was_up.is_some_and(|t| t.elapsed() >= STABLE) {
             self.failures = 0;
         }
         self.failures = self.failures.saturating_add(1);
         let (what, broker, attempt) = (self.what, &self.broker, self.failures);
-        if let Some(fix) = refusal(e, self.user.as_deref()) {
+        if let Some(fix) = fix {
             let delay = self.max.mul_f64(1.0 + 0.1 * self.jitter.next_unit());
             let retry = format!("{:.1} s", delay.as_secs_f64());
             if attempt == 1 {
@@ -359,230 +354,38 @@ fn refusal(e: &rumqttc::ConnectionError, user: Option<&str>) -> Option<String> {
     let rumqttc::ConnectionError::ConnectionRefused(code) = e else {
         return None;
     };
+    let code = match code {
+        Code::RefusedProtocolVersion => 1,
+        Code::BadClientId => 2,
+        Code::ServiceUnavailable => 3,
+        Code::BadUserNamePassword => 4,
+        Code::NotAuthorized => 5,
+        Code::Success => 0,
+    };
+    refusal_for_code(code, user)
+}
+
+/// What to fix for a CONNACK return code (MQTT 3.1.1 §3.2.2.3): `None` for 0 and 3
+/// (accepted; server unavailable, which takes the normal backoff). Shared by both
+/// result link clients and the input link, so the engineer reads the same words.
+pub(super) fn refusal_for_code(code: u8, user: Option<&str>) -> Option<String> {
     let login = match user {
         Some(u) => format!("user {u:?}"),
         None => "no user name (anonymous)".to_string(),
     };
     match code {
-        Code::BadUserNamePassword | Code::NotAuthorized => Some(format!(
+        4 | 5 => Some(format!(
             "refused the user name or password, {login}: check broker.username and \
              broker.password_file or password_env against the broker's password file"
         )),
-        Code::BadClientId => Some(
+        2 => Some(
             "refused the client id: check broker.client_id (1 to 23 letters and digits for MQTT 3.1.1, unique on the broker)"
                 .to_string(),
         ),
-        Code::RefusedProtocolVersion => Some(
+        1 => Some(
             "refused MQTT 3.1.1: check the broker's listener (protocol) settings".to_string(),
         ),
-        Code::Success | Code::ServiceUnavailable => None,
-    }
-}
-
-/// The result link (see the module docs).
-pub struct Link {
-    pub broker: BrokerSettings,
-    pub status_topic: String,
-    pub online_payload: String,
-    pub offline_payload: String,
-    pub published_at_start: u64,
-    pub journal_last_at_start: u64,
-    pub clock: Clock,
-    /// Woken whenever the acknowledged watermark moves (the evaluator waits on it when
-    /// too many results are unacknowledged).
-    pub acked: Arc<Notify>,
-    /// Copies of results for the Sparkplug edge node (`[sparkplug] publish`).
-    pub copies: Option<mpsc::Sender<super::ResultCopy>>,
-}
-
-impl Link {
-    /// Runs until shutdown: after `stop_input` the link delivers everything the journal
-    /// still sends (until [`ToLink::Drained`]), says `offline` and disconnects.
-    /// `flush_deadline` bounds the flush after `stop_input`.
-    #[allow(clippy::too_many_arguments)]
-    pub async fn run(
-        self,
-        client: AsyncClient,
-        mut eventloop: EventLoop,
-        mut from_journal: mpsc::Receiver<ToLink>,
-        journal: mpsc::Sender<JournalCmd>,
-        metrics: Arc<Metrics>,
-        stop_input: CancellationToken,
-        flush_deadline: Duration,
-    ) {
-        let window = usize::from(self.broker.inflight.max(1));
-        let mut outbox = Outbox::new(self.published_at_start, OUTBOX_CAPACITY);
-        outbox.journal_at(self.journal_last_at_start);
-        let mut drained = false;
-        let mut conn = Connection::new("results", &self.broker);
-        let mut stop_at: Option<Instant> = None;
-        let mut tick = tokio::time::interval(Duration::from_millis(500));
-        'run: loop {
-            // One poll of the event loop at a time, kept across the other branches: it may
-            // be a connection in progress (TCP, TLS, CONNECT/CONNACK), which on a slow link
-            // takes several round trips and must not be dropped and started again.
-            let event = {
-                let poll = eventloop.poll();
-                tokio::pin!(poll);
-                loop {
-                    // Ask the journal for records memory does not hold.
-                    if let Some(after) = outbox.wants_read() {
-                        let read = JournalCmd::ReadAfter {
-                            after,
-                            max: OUTBOX_CAPACITY / 2,
-                        };
-                        if journal.try_send(read).is_err() {
-                            // The journal is busy: ask again on a later turn.
-                            outbox.read_done();
-                        }
-                    }
-                    // Hand records over while connected and the window allows.
-                    if conn.since.is_some() {
-                        while let Some(r) = outbox.next(window) {
-                            let late = r.replayed || (self.clock)() - r.ts_ms > LATE_MS;
-                            let body = with_delivery(&r.payload, r.seq, late);
-                            match client.try_publish(
-                                r.topic.clone(),
-                                QoS::AtLeastOnce,
-                                r.retain,
-                                body,
-                            ) {
-                                Ok(()) => outbox.handed_front(),
-                                Err(e) => {
-                                    metrics.publish_failures.fetch_add(1, Relaxed);
-                                    debug!(error = %e, "request channel full; publishing resumes after the next event");
-                                    break;
-                                }
-                            }
-                        }
-                    }
-                    metrics
-                        .journal_published_seq
-                        .store(outbox.watermark(), Relaxed);
-                    if stop_input.is_cancelled() && stop_at.is_none() {
-                        stop_at = Some(Instant::now() + flush_deadline);
-                        info!("shutdown: input stopped, delivering what is journaled");
-                    }
-                    if let Some(at) = stop_at {
-                        let flushed = drained && outbox.queued() == 0 && outbox.in_flight() == 0;
-                        if flushed || Instant::now() >= at {
-                            if !flushed {
-                                warn!(
-                                    backlog = outbox.backlog(),
-                                    "shutdown deadline reached; the journal keeps the rest for the next start"
-                                );
-                            }
-                            break 'run;
-                        }
-                    }
-                    tokio::select! {
-                        ev = &mut poll => break ev,
-                        msg = from_journal.recv(), if !drained => match msg {
-                            Some(ToLink::Records(records)) => {
-                                if let Some(tx) = &self.copies {
-                                    copy_results(tx, &records, self.journal_last_at_start, &metrics);
-                                }
-                                for r in records {
-                                    if outbox.offer(r) == Offer::Deferred {
-                                        debug!("record deferred to a journal read");
-                                    }
-                                }
-                            }
-                            Some(ToLink::ReadDone) => outbox.read_done(),
-                            Some(ToLink::JournalAt(last)) => outbox.journal_at(last),
-                            Some(ToLink::Drained) | None => drained = true,
-                        },
-                        _ = tick.tick() => {}
-                        _ = stop_input.cancelled(), if stop_at.is_none() => {}
-                    }
-                }
-            };
-            match event {
-                Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
-                    metrics.connected.store(true, Relaxed);
-                    conn.up(ack.session_present);
-                    if !ack.session_present {
-                        outbox.on_new_session();
-                    }
-                    if client
-                        .try_publish(
-                            self.status_topic.clone(),
-                            QoS::AtLeastOnce,
-                            true,
-                            self.online_payload.clone(),
-                        )
-                        .is_ok()
-                    {
-                        outbox.handed_untracked();
-                    }
-                    // The evaluator may wait for room that a new connection makes.
-                    self.acked.notify_one();
-                }
-                Ok(Event::Incoming(Incoming::PubAck(a))) => {
-                    if let Some(w) = outbox.on_ack(a.pkid) {
-                        metrics
-                            .published
-                            .store(w.saturating_sub(self.published_at_start), Relaxed);
-                        metrics.journal_published_seq.store(w, Relaxed);
-                        if metrics.backlog() <= UNACKED_RESUME {
-                            self.acked.notify_one();
-                        }
-                        // A later acknowledgement carries a higher watermark, so a
-                        // busy journal may skip this one.
-                        let _ = journal.try_send(JournalCmd::Published {
-                            seq: w,
-                            force: false,
-                        });
-                    }
-                }
-                Ok(Event::Outgoing(Out::Publish(pkid))) => outbox.on_outgoing(pkid),
-                Ok(_) => {}
-                Err(e) => {
-                    metrics.connected.store(false, Relaxed);
-                    metrics.reconnects.fetch_add(1, Relaxed);
-                    self.acked.notify_one();
-                    let delay = conn.lost(&e);
-                    let sleep_until = stop_at.map_or(delay, |at| {
-                        delay.min(at.saturating_duration_since(Instant::now()))
-                    });
-                    tokio::select! {
-                        _ = tokio::time::sleep(sleep_until) => {}
-                        _ = stop_input.cancelled(), if stop_at.is_none() => {}
-                    }
-                }
-            }
-        }
-        // Stop taking records first, so a journal thread waiting on a full queue is released
-        // (anything it still had is on disk and goes out after the next start).
-        drop(from_journal);
-        let _ = journal
-            .send(JournalCmd::Published {
-                seq: outbox.watermark(),
-                force: true,
-            })
-            .await;
-        // Say offline (retained) and wait briefly for its acknowledgement, then disconnect.
-        if conn.since.is_some() {
-            let offline = client.try_publish(
-                self.status_topic.clone(),
-                QoS::AtLeastOnce,
-                true,
-                self.offline_payload.clone(),
-            );
-            if offline.is_ok() {
-                let until = Instant::now() + Duration::from_secs(3);
-                while Instant::now() < until {
-                    match tokio::time::timeout(Duration::from_millis(200), eventloop.poll()).await {
-                        Ok(Ok(Event::Incoming(Incoming::PubAck(_)))) => break,
-                        Ok(Ok(_)) | Err(_) => {}
-                        Ok(Err(_)) => break,
-                    }
-                }
-            }
-            disconnect(&client, &mut eventloop).await;
-        }
-        metrics.connected.store(false, Relaxed);
-        drop(client);
+        _ => None,
     }
 }
 
