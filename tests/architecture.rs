@@ -153,7 +153,7 @@ const RULES: &[Rule] = &[
     Rule {
         path: "src/web",
         modules: &["config", "timefmt", "units", "wire", "web"],
-        crates: &["ring", "serde_json", "thiserror"],
+        crates: &["ring", "serde", "serde_json", "thiserror"],
     },
     // The invented plant: the core's models (its tests read the demo configuration).
     Rule {

@@ -1,7 +1,9 @@
 //! What the live page shows, kept from the records the pipeline emits: per reactor the
-//! latest result (the figures the page needs, not the whole message), the latest alarm
-//! states, and a bounded ring of recent headline figures for the trend chart; the last
-//! few command outcomes by request id. Pure: records and times in, JSON out.
+//! latest result and alarm states (as they came: they are read for the page's figures
+//! only when a browser asks, every few seconds, not for every record), and a bounded ring
+//! of recent headline figures for the trend chart (each result read for only the three
+//! fields a point needs, without building the message's tree); the last few command
+//! outcomes by request id. Pure: records and times in, JSON out.
 //!
 //! Memory: per reactor at most [`FINE_POINTS`] recent points and [`COARSE_POINTS`]
 //! 15-minute means ([`POINT_BYTES`] bytes each), plus the latest result and states (a
@@ -9,6 +11,9 @@
 
 use std::collections::{HashMap, VecDeque};
 
+use std::borrow::Cow;
+
+use serde::Deserialize;
 use serde_json::{Map, Value, json};
 
 use crate::units::{HOUR_MS, MINUTE_MS};
@@ -41,11 +46,8 @@ enum Figure {
 }
 
 impl Figure {
-    fn of(headline: &Value) -> Self {
-        match (
-            headline.get("figure").and_then(Value::as_str),
-            headline.get("unit").and_then(Value::as_str),
-        ) {
+    fn of(figure: Option<&str>, unit: Option<&str>) -> Self {
+        match (figure, unit) {
             (Some("approach"), _) => Figure::ApproachK,
             (Some("key-measured"), Some("ppm")) => Figure::SlipPpm,
             (Some("key-measured"), Some("mol%")) => Figure::SlipMolPct,
@@ -96,8 +98,9 @@ struct Bucket {
 struct ReactorLive {
     id: String,
     name: String,
-    result: Option<Value>,
-    alarms: Option<Value>,
+    /// The latest result and alarm states as published (JSON text).
+    result: Option<String>,
+    alarms: Option<String>,
     received_ms: Option<i64>,
     fine: VecDeque<Point>,
     coarse: VecDeque<Point>,
@@ -224,13 +227,15 @@ impl Live {
         let Some(&i) = self.index.get(id) else {
             return;
         };
-        let Ok(v) = serde_json::from_str::<Value>(payload) else {
-            return;
-        };
         match what {
-            "result" => self.result(i, &v, now_ms),
-            "alarms" => self.reactors[i].alarms = Some(v),
+            "result" => self.result(i, payload, now_ms),
+            "alarms" if serde_json::from_str::<serde::de::IgnoredAny>(payload).is_ok() => {
+                self.reactors[i].alarms = Some(payload.to_string());
+            }
             "command/outcome" => {
+                let Ok(v) = serde_json::from_str::<Value>(payload) else {
+                    return;
+                };
                 if let Some(rid) = v.get("request_id").and_then(Value::as_str) {
                     if self.outcomes.len() == OUTCOMES {
                         self.outcomes.pop_front();
@@ -242,29 +247,33 @@ impl Live {
         }
     }
 
-    fn result(&mut self, i: usize, v: &Value, now_ms: i64) {
-        let page = page_result(v);
-        let headline = page.get("headline").cloned().unwrap_or(Value::Null);
-        let figure = Figure::of(&headline);
-        let num = |x: Option<&Value>| x.and_then(Value::as_f64).map_or(f32::NAN, |x| x as f32);
-        let t_ms = v
-            .get("analysis_ts")
-            .and_then(Value::as_str)
+    fn result(&mut self, i: usize, payload: &str, now_ms: i64) {
+        // The fields a point needs; the rest of the message is checked and skipped.
+        let Ok(peek) = serde_json::from_str::<ResultPeek<'_>>(payload) else {
+            return;
+        };
+        let headline = peek.headline.unwrap_or_default();
+        let figure = Figure::of(headline.figure.as_deref(), headline.unit.as_deref());
+        let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
+        let t_ms = peek
+            .analysis_ts
+            .as_deref()
             .and_then(crate::timefmt::parse_rfc3339);
         let r = &mut self.reactors[i];
         if let Some(t_ms) = t_ms {
             r.push(Point {
                 t_ms,
-                value: num(headline.get("value")),
+                value: num(headline.value),
+                // The band only around an approach (page_result leaves it out otherwise).
                 u: if figure == Figure::ApproachK {
-                    num(page.get("approach_uncertainty_k"))
+                    num(peek.approach_uncertainty_k)
                 } else {
                     f32::NAN
                 },
                 figure,
             });
         }
-        r.result = Some(page);
+        r.result = Some(payload.to_string());
         r.received_ms = Some(now_ms);
     }
 
@@ -288,13 +297,25 @@ impl Live {
             .reactors
             .iter()
             .map(|r| {
+                let parse = |text: &Option<String>| {
+                    text.as_deref()
+                        .and_then(|t| serde_json::from_str::<Value>(t).ok())
+                };
+                let result = parse(&r.result).map(|v| page_result(&v));
+                let mut alarms = parse(&r.alarms);
+                let mut take = |key: &str| {
+                    alarms
+                        .as_mut()
+                        .and_then(|a| a.get_mut(key))
+                        .map(Value::take)
+                };
                 json!({
                     "id": r.id,
                     "name": r.name,
                     "received_at": r.received_ms,
-                    "result": r.result,
-                    "offline": r.alarms.as_ref().and_then(|a| a.get("offline")).cloned().unwrap_or(Value::Bool(false)),
-                    "alarms": r.alarms.as_ref().and_then(|a| a.get("alarms")).cloned().unwrap_or(Value::Array(Vec::new())),
+                    "result": result,
+                    "offline": take("offline").unwrap_or(Value::Bool(false)),
+                    "alarms": take("alarms").unwrap_or(Value::Array(Vec::new())),
                 })
             })
             .collect();
@@ -356,6 +377,27 @@ impl Live {
             .to_string(),
         )
     }
+}
+
+/// The fields of a result a trend point needs (borrowed where the text has no escapes).
+#[derive(Deserialize)]
+struct ResultPeek<'a> {
+    #[serde(borrow, default)]
+    analysis_ts: Option<Cow<'a, str>>,
+    #[serde(borrow, default)]
+    headline: Option<HeadlinePeek<'a>>,
+    #[serde(default)]
+    approach_uncertainty_k: Option<f64>,
+}
+
+#[derive(Deserialize, Default)]
+struct HeadlinePeek<'a> {
+    #[serde(borrow, default)]
+    figure: Option<Cow<'a, str>>,
+    #[serde(borrow, default)]
+    unit: Option<Cow<'a, str>>,
+    #[serde(default)]
+    value: Option<f64>,
 }
 
 /// The part of a result the page shows. Where the result names no approach as its
