@@ -5,6 +5,7 @@
 //! at a time. Commands go to the evaluator's input queue as the command topic's
 //! message, so they take the MQTT commands' path (allow list, watch, outcome, journal).
 
+use std::collections::HashSet;
 use std::sync::atomic::{AtomicU64, Ordering::Relaxed};
 use std::sync::{Arc, Mutex, MutexGuard};
 use std::time::Duration;
@@ -15,7 +16,7 @@ use tracing::{info, warn};
 
 use super::{Clock, RawInput};
 use crate::config::Settings;
-use crate::web::live::Live;
+use crate::web::live::{Live, PeekedResult, peek_result};
 use crate::web::request::{self, COOKIE, CSRF_HEADER, Head};
 use crate::web::{Auth, auth};
 
@@ -25,20 +26,52 @@ const TAP_QUEUE: usize = 64;
 /// How long a command request waits for its outcome before answering "sent".
 const OUTCOME_WAIT: Duration = Duration::from_secs(5);
 
+/// One record for the page's thread. A result crosses as its trend point, read here
+/// (a narrow read, no tree), and with its text only when it is the latest of its reactor
+/// in its batch: under a flood the queue holds points, not thousands of 3 KB messages.
+enum TapItem {
+    Result {
+        topic: String,
+        peeked: PeekedResult,
+        payload: Option<String>,
+    },
+    Other {
+        topic: String,
+        payload: String,
+    },
+}
+
 /// The evaluator's side: copies the records the page shows, never waits.
 pub struct Tap {
-    tx: mpsc::Sender<Vec<(String, String)>>,
+    tx: mpsc::Sender<Vec<TapItem>>,
     dropped: Arc<AtomicU64>,
 }
 
 impl Tap {
     pub fn offer(&self, batch: &[crate::pipeline::Append]) {
-        let copies: Vec<(String, String)> = batch
-            .iter()
-            .filter(|a| wanted(&a.topic))
-            .map(|a| (a.topic.clone(), a.payload.clone()))
-            .collect();
-        if !copies.is_empty() && self.tx.try_send(copies).is_err() {
+        let mut items = Vec::new();
+        // Backwards, so the first result met of a reactor is its latest in the batch.
+        let mut seen: HashSet<&str> = HashSet::new();
+        for a in batch.iter().rev() {
+            if a.topic.ends_with("/result") {
+                let Some(peeked) = peek_result(&a.payload) else {
+                    continue;
+                };
+                let latest = seen.insert(a.topic.as_str());
+                items.push(TapItem::Result {
+                    topic: a.topic.clone(),
+                    peeked,
+                    payload: latest.then(|| a.payload.clone()),
+                });
+            } else if wanted(&a.topic) {
+                items.push(TapItem::Other {
+                    topic: a.topic.clone(),
+                    payload: a.payload.clone(),
+                });
+            }
+        }
+        items.reverse();
+        if !items.is_empty() && self.tx.try_send(items).is_err() {
             self.dropped.fetch_add(1, Relaxed);
         }
     }
@@ -83,7 +116,7 @@ pub fn start(
         &settings.topic_prefix,
         &reactors,
     )));
-    let (tx, mut rx) = mpsc::channel::<Vec<(String, String)>>(TAP_QUEUE);
+    let (tx, mut rx) = mpsc::channel::<Vec<TapItem>>(TAP_QUEUE);
     let (version, updates) = watch::channel(0u64);
     let (l, c) = (live.clone(), clock.clone());
     std::thread::Builder::new()
@@ -93,8 +126,17 @@ pub fn start(
                 {
                     let mut live = lock(&l);
                     let now = c();
-                    for (topic, payload) in &batch {
-                        live.record(topic, payload, now);
+                    for item in batch {
+                        match item {
+                            TapItem::Result {
+                                topic,
+                                peeked,
+                                payload,
+                            } => live.record_result(&topic, peeked, payload, now),
+                            TapItem::Other { topic, payload } => {
+                                live.record(&topic, &payload, now);
+                            }
+                        }
                     }
                 }
                 version.send_modify(|v| *v += 1);
@@ -311,4 +353,82 @@ fn session_json(s: &auth::Session, u: &crate::config::password::HttpUser) -> Val
         "csrf": s.csrf,
         "expires": s.expires_ms(),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::pipeline::Append;
+
+    fn append(topic: &str, payload: &str) -> Append {
+        Append {
+            topic: topic.into(),
+            retain: true,
+            payload: payload.into(),
+        }
+    }
+
+    fn result(ts: &str, value: f64) -> String {
+        // The fields a trend point reads, in an otherwise invented result.
+        format!(
+            r#"{{"schema":"eqwatch.result/1","reactor":"lts1","analysis_ts":"{ts}","headline":{{"figure":"approach","value":{value},"unit":"K"}},"approach_k":{value},"approach_uncertainty_k":1.5,"reactions":[{{"ln_k":4.2}}]}}"#
+        )
+    }
+
+    #[test]
+    fn the_tap_sends_every_point_but_only_the_latest_text_of_each_reactor() {
+        let (tx, mut rx) = mpsc::channel(4);
+        let tap = Tap {
+            tx,
+            dropped: Arc::new(AtomicU64::new(0)),
+        };
+        let t = "eqwatch/baw1/lts1/result";
+        let u = "eqwatch/baw1/hts1/result";
+        tap.offer(&[
+            append(t, &result("2026-12-01T00:00:00Z", 10.0)),
+            append(u, &result("2026-12-01T00:00:00Z", 8.0)),
+            append("eqwatch/baw1/lts1/alarms", r#"{"alarms":[]}"#),
+            append(t, &result("2026-12-01T00:01:00Z", 11.0)),
+            append("eqwatch/baw1/lts1/metrics", "{}"),
+            append(t, "not json"),
+        ]);
+        let items = rx.try_recv().expect("one batch");
+        let shape: Vec<(String, bool)> = items
+            .iter()
+            .map(|i| match i {
+                TapItem::Result { topic, payload, .. } => (topic.clone(), payload.is_some()),
+                TapItem::Other { topic, .. } => (topic.clone(), true),
+            })
+            .collect();
+        assert_eq!(
+            shape,
+            [
+                (t.to_string(), false),
+                (u.to_string(), true),
+                ("eqwatch/baw1/lts1/alarms".to_string(), true),
+                (t.to_string(), true),
+            ]
+        );
+        // The page then shows the latest figures and both points of lts1.
+        let mut live = Live::new(
+            "baw1",
+            "eqwatch/baw1",
+            &[("lts1".into(), "LTS".into()), ("hts1".into(), "HTS".into())],
+        );
+        for item in items {
+            if let TapItem::Result {
+                topic,
+                peeked,
+                payload,
+            } = item
+            {
+                live.record_result(&topic, peeked, payload, 0);
+            }
+        }
+        let plant: Value = serde_json::from_str(&live.plant_json(0, 0)).expect("json");
+        assert_eq!(plant["reactors"][0]["result"]["approach_k"], 11.0);
+        let trend: Value =
+            serde_json::from_str(&live.trend_json("lts1", "1h").expect("trend")).expect("json");
+        assert_eq!(trend["points"].as_array().map(Vec::len), Some(2), "{trend}");
+    }
 }

@@ -74,7 +74,7 @@ impl Figure {
 }
 
 /// One figure at an analysis time; NaN where the result had none (a gap on the chart).
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 struct Point {
     t_ms: i64,
     value: f32,
@@ -248,32 +248,40 @@ impl Live {
     }
 
     fn result(&mut self, i: usize, payload: &str, now_ms: i64) {
-        // The fields a point needs; the rest of the message is checked and skipped.
-        let Ok(peek) = serde_json::from_str::<ResultPeek<'_>>(payload) else {
+        if let Some(peeked) = peek_result(payload) {
+            self.add_result(i, peeked, Some(payload.to_string()), now_ms);
+        }
+    }
+
+    /// A result read beforehand with [`peek_result`] (by the tap, so that only the point
+    /// crosses to the page's thread); `payload` the message itself when it is the latest
+    /// of its reactor in its batch (`None` keeps the one before).
+    pub fn record_result(
+        &mut self,
+        topic: &str,
+        peeked: PeekedResult,
+        payload: Option<String>,
+        now_ms: i64,
+    ) {
+        let Some(id) = topic
+            .strip_prefix(&self.prefix)
+            .and_then(|rest| rest.strip_suffix("/result"))
+        else {
             return;
         };
-        let headline = peek.headline.unwrap_or_default();
-        let figure = Figure::of(headline.figure.as_deref(), headline.unit.as_deref());
-        let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
-        let t_ms = peek
-            .analysis_ts
-            .as_deref()
-            .and_then(crate::timefmt::parse_rfc3339);
-        let r = &mut self.reactors[i];
-        if let Some(t_ms) = t_ms {
-            r.push(Point {
-                t_ms,
-                value: num(headline.value),
-                // The band only around an approach (page_result leaves it out otherwise).
-                u: if figure == Figure::ApproachK {
-                    num(peek.approach_uncertainty_k)
-                } else {
-                    f32::NAN
-                },
-                figure,
-            });
+        if let Some(&i) = self.index.get(id) {
+            self.add_result(i, peeked, payload, now_ms);
         }
-        r.result = Some(payload.to_string());
+    }
+
+    fn add_result(&mut self, i: usize, peeked: PeekedResult, payload: Option<String>, now_ms: i64) {
+        let r = &mut self.reactors[i];
+        if let Some(p) = peeked.point {
+            r.push(p);
+        }
+        if let Some(text) = payload {
+            r.result = Some(text);
+        }
         r.received_ms = Some(now_ms);
     }
 
@@ -377,6 +385,37 @@ impl Live {
             .to_string(),
         )
     }
+}
+
+/// A result as the trend needs it: its point (none without an analysis time).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PeekedResult {
+    point: Option<Point>,
+}
+
+/// Reads a result for its trend point only (the rest of the message is checked and
+/// skipped, no tree built); `None` if it is not a readable result.
+pub fn peek_result(payload: &str) -> Option<PeekedResult> {
+    let peek = serde_json::from_str::<ResultPeek<'_>>(payload).ok()?;
+    let headline = peek.headline.unwrap_or_default();
+    let figure = Figure::of(headline.figure.as_deref(), headline.unit.as_deref());
+    let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
+    let point = peek
+        .analysis_ts
+        .as_deref()
+        .and_then(crate::timefmt::parse_rfc3339)
+        .map(|t_ms| Point {
+            t_ms,
+            value: num(headline.value),
+            // The band only around an approach (page_result leaves it out otherwise).
+            u: if figure == Figure::ApproachK {
+                num(peek.approach_uncertainty_k)
+            } else {
+                f32::NAN
+            },
+            figure,
+        });
+    Some(PeekedResult { point })
 }
 
 /// The fields of a result a trend point needs (borrowed where the text has no escapes).
