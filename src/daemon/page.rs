@@ -5,7 +5,7 @@
 //! at a time. Commands go to the evaluator's input queue as the command topic's
 //! message, so they take the MQTT commands' path (allow list, watch, outcome, journal).
 
-use std::collections::HashSet;
+use std::collections::{HashMap, VecDeque};
 use std::sync::atomic::{AtomicU64, Ordering::Relaxed};
 use std::sync::{Arc, Mutex, MutexGuard};
 use std::time::Duration;
@@ -20,59 +20,63 @@ use crate::web::live::{Live, PeekedResult, peek_result};
 use crate::web::request::{self, COOKIE, CSRF_HEADER, Head};
 use crate::web::{Auth, auth};
 
-/// Batches of records waiting for the page's thread at most; beyond it a batch is
-/// skipped (counted) rather than slow the evaluator.
-const TAP_QUEUE: usize = 64;
+/// Trend points waiting for the page's thread at most; beyond it the oldest are dropped
+/// (counted) rather than slow the evaluator or hold memory.
+const TAP_POINTS: usize = 16_384;
+/// Command outcomes waiting at most (they come one per command).
+const TAP_OUTCOMES: usize = 64;
 /// How long a command request waits for its outcome before answering "sent".
 const OUTCOME_WAIT: Duration = Duration::from_secs(5);
 
-/// One record for the page's thread. A result crosses as its trend point, read here
-/// (a narrow read, no tree), and with its text only when it is the latest of its reactor
-/// in its batch: under a flood the queue holds points, not thousands of 3 KB messages.
-enum TapItem {
-    Result {
-        topic: String,
-        peeked: PeekedResult,
-        payload: Option<String>,
-    },
-    Other {
-        topic: String,
-        payload: String,
-    },
+/// What the evaluator has left for the page's thread since it last looked: every result's
+/// trend point (read here, a narrow read with no tree), and only the latest text of each
+/// retained topic (a reactor's result, its alarm states) — so a flood leaves at most one
+/// result text per reactor and a bounded list of points waiting, never a queue of 3 KB
+/// copies of every message.
+#[derive(Default)]
+struct Pending {
+    points: VecDeque<(String, PeekedResult)>,
+    latest: HashMap<String, String>,
+    outcomes: Vec<(String, String)>,
 }
 
-/// The evaluator's side: copies the records the page shows, never waits.
+/// The evaluator's side: leaves the records the page shows, never waits.
 pub struct Tap {
-    tx: mpsc::Sender<Vec<TapItem>>,
+    pending: Arc<Mutex<Pending>>,
+    /// Wakes the page's thread (one token is enough; a full channel means it is awake).
+    wake: std::sync::mpsc::SyncSender<()>,
     dropped: Arc<AtomicU64>,
 }
 
 impl Tap {
     pub fn offer(&self, batch: &[crate::pipeline::Append]) {
-        let mut items = Vec::new();
-        // Backwards, so the first result met of a reactor is its latest in the batch.
-        let mut seen: HashSet<&str> = HashSet::new();
-        for a in batch.iter().rev() {
-            if a.topic.ends_with("/result") {
-                let Some(peeked) = peek_result(&a.payload) else {
-                    continue;
-                };
-                let latest = seen.insert(a.topic.as_str());
-                items.push(TapItem::Result {
-                    topic: a.topic.clone(),
-                    peeked,
-                    payload: latest.then(|| a.payload.clone()),
-                });
-            } else if wanted(&a.topic) {
-                items.push(TapItem::Other {
-                    topic: a.topic.clone(),
-                    payload: a.payload.clone(),
-                });
+        let mut any = false;
+        {
+            let mut p = lock(&self.pending);
+            for a in batch.iter().filter(|a| wanted(&a.topic)) {
+                if a.topic.ends_with("/result") {
+                    let Some(peeked) = peek_result(&a.payload) else {
+                        continue;
+                    };
+                    if p.points.len() == TAP_POINTS {
+                        p.points.pop_front();
+                        self.dropped.fetch_add(1, Relaxed);
+                    }
+                    p.points.push_back((a.topic.clone(), peeked));
+                    p.latest.insert(a.topic.clone(), a.payload.clone());
+                } else if a.topic.ends_with("/alarms") {
+                    p.latest.insert(a.topic.clone(), a.payload.clone());
+                } else if p.outcomes.len() < TAP_OUTCOMES {
+                    p.outcomes.push((a.topic.clone(), a.payload.clone()));
+                } else {
+                    self.dropped.fetch_add(1, Relaxed);
+                }
+                any = true;
             }
         }
-        items.reverse();
-        if !items.is_empty() && self.tx.try_send(items).is_err() {
-            self.dropped.fetch_add(1, Relaxed);
+        if any {
+            // Full: the thread has a wake-up coming and will take this too.
+            let _ = self.wake.try_send(());
         }
     }
 }
@@ -116,27 +120,27 @@ pub fn start(
         &settings.topic_prefix,
         &reactors,
     )));
-    let (tx, mut rx) = mpsc::channel::<Vec<TapItem>>(TAP_QUEUE);
+    let pending = Arc::new(Mutex::new(Pending::default()));
+    let (wake, woken) = std::sync::mpsc::sync_channel::<()>(1);
     let (version, updates) = watch::channel(0u64);
-    let (l, c) = (live.clone(), clock.clone());
+    let (l, c, from) = (live.clone(), clock.clone(), pending.clone());
     std::thread::Builder::new()
         .name("eqwatch-page".into())
         .spawn(move || {
-            while let Some(batch) = rx.blocking_recv() {
+            // Ends when the tap is dropped (the evaluator has stopped).
+            while woken.recv().is_ok() {
+                let batch = std::mem::take(&mut *lock(&from));
                 {
                     let mut live = lock(&l);
                     let now = c();
-                    for item in batch {
-                        match item {
-                            TapItem::Result {
-                                topic,
-                                peeked,
-                                payload,
-                            } => live.record_result(&topic, peeked, payload, now),
-                            TapItem::Other { topic, payload } => {
-                                live.record(&topic, &payload, now);
-                            }
-                        }
+                    for (topic, peeked) in batch.points {
+                        live.record_result(&topic, peeked, None, now);
+                    }
+                    for (topic, text) in &batch.latest {
+                        live.record_text(topic, text);
+                    }
+                    for (topic, text) in &batch.outcomes {
+                        live.record(topic, text, now);
                     }
                 }
                 version.send_modify(|v| *v += 1);
@@ -158,7 +162,12 @@ pub fn start(
         clock,
         next_request: AtomicU64::new(1),
     };
-    Ok((Tap { tx, dropped }, Arc::new(web)))
+    let tap = Tap {
+        pending,
+        wake,
+        dropped,
+    };
+    Ok((tap, Arc::new(web)))
 }
 
 /// A response: status, content type, body, extra header lines.
@@ -376,59 +385,51 @@ mod tests {
     }
 
     #[test]
-    fn the_tap_sends_every_point_but_only_the_latest_text_of_each_reactor() {
-        let (tx, mut rx) = mpsc::channel(4);
+    fn the_tap_leaves_every_point_but_only_the_latest_text_of_each_topic() {
+        let (wake, woken) = std::sync::mpsc::sync_channel(1);
         let tap = Tap {
-            tx,
+            pending: Arc::new(Mutex::new(Pending::default())),
+            wake,
             dropped: Arc::new(AtomicU64::new(0)),
         };
         let t = "eqwatch/baw1/lts1/result";
         let u = "eqwatch/baw1/hts1/result";
-        tap.offer(&[
+        let batch = [
             append(t, &result("2026-12-01T00:00:00Z", 10.0)),
             append(u, &result("2026-12-01T00:00:00Z", 8.0)),
             append("eqwatch/baw1/lts1/alarms", r#"{"alarms":[]}"#),
             append(t, &result("2026-12-01T00:01:00Z", 11.0)),
             append("eqwatch/baw1/lts1/metrics", "{}"),
             append(t, "not json"),
-        ]);
-        let items = rx.try_recv().expect("one batch");
-        let shape: Vec<(String, bool)> = items
-            .iter()
-            .map(|i| match i {
-                TapItem::Result { topic, payload, .. } => (topic.clone(), payload.is_some()),
-                TapItem::Other { topic, .. } => (topic.clone(), true),
-            })
-            .collect();
-        assert_eq!(
-            shape,
-            [
-                (t.to_string(), false),
-                (u.to_string(), true),
-                ("eqwatch/baw1/lts1/alarms".to_string(), true),
-                (t.to_string(), true),
-            ]
-        );
-        // The page then shows the latest figures and both points of lts1.
+        ];
+        tap.offer(&batch);
+        tap.offer(&batch[3..4]);
+        // One wake-up for both offers.
+        assert!(woken.try_recv().is_ok());
+        assert!(woken.try_recv().is_err());
+        let p = std::mem::take(&mut *lock(&tap.pending));
+        assert_eq!(p.points.len(), 4, "every readable result's point");
+        assert_eq!(p.latest.len(), 3, "{:?}", p.latest.keys());
+        assert!(p.latest[t].contains("\"value\":11"));
+        assert!(p.outcomes.is_empty());
+        // The page then shows the latest figures and the points of lts1.
         let mut live = Live::new(
             "baw1",
             "eqwatch/baw1",
             &[("lts1".into(), "LTS".into()), ("hts1".into(), "HTS".into())],
         );
-        for item in items {
-            if let TapItem::Result {
-                topic,
-                peeked,
-                payload,
-            } = item
-            {
-                live.record_result(&topic, peeked, payload, 0);
-            }
+        for (topic, peeked) in p.points {
+            live.record_result(&topic, peeked, None, 0);
+        }
+        for (topic, text) in &p.latest {
+            live.record_text(topic, text);
         }
         let plant: Value = serde_json::from_str(&live.plant_json(0, 0)).expect("json");
         assert_eq!(plant["reactors"][0]["result"]["approach_k"], 11.0);
+        assert_eq!(plant["reactors"][0]["alarms"], serde_json::json!([]));
         let trend: Value =
             serde_json::from_str(&live.trend_json("lts1", "1h").expect("trend")).expect("json");
+        // The repeated 00:01 point is out of order and kept once.
         assert_eq!(trend["points"].as_array().map(Vec::len), Some(2), "{trend}");
     }
 }

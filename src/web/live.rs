@@ -274,6 +274,26 @@ impl Live {
         }
     }
 
+    /// The latest text of a reactor's result or alarm states, left by the tap after the
+    /// points it carried (see [`Live::record_result`]).
+    pub fn record_text(&mut self, topic: &str, text: &str) {
+        let Some((id, what)) = topic
+            .strip_prefix(&self.prefix)
+            .and_then(|rest| rest.split_once('/'))
+        else {
+            return;
+        };
+        let Some(&i) = self.index.get(id) else {
+            return;
+        };
+        let readable = serde_json::from_str::<serde::de::IgnoredAny>(text).is_ok();
+        match what {
+            "result" if readable => self.reactors[i].result = Some(text.to_string()),
+            "alarms" if readable => self.reactors[i].alarms = Some(text.to_string()),
+            _ => {}
+        }
+    }
+
     fn add_result(&mut self, i: usize, peeked: PeekedResult, payload: Option<String>, now_ms: i64) {
         let r = &mut self.reactors[i];
         if let Some(p) = peeked.point {
