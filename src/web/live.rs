@@ -113,10 +113,7 @@ impl ReactorLive {
         if self.fine.back().is_some_and(|b| b.t_ms >= p.t_ms) {
             return;
         }
-        if self.fine.len() == FINE_POINTS {
-            self.fine.pop_front();
-        }
-        self.fine.push_back(p);
+        push_bounded(&mut self.fine, p, FINE_POINTS);
         let start = p.t_ms - p.t_ms.rem_euclid(COARSE_MS);
         if let Some(b) = self.bucket
             && (b.start_ms != start || b.figure != p.figure)
@@ -143,9 +140,6 @@ impl ReactorLive {
     }
 
     fn close(&mut self, b: Bucket) {
-        if self.coarse.len() == COARSE_POINTS {
-            self.coarse.pop_front();
-        }
         let mean = |s: f64, n: u32| {
             if n > 0 {
                 (s / f64::from(n)) as f32
@@ -153,13 +147,27 @@ impl ReactorLive {
                 f32::NAN
             }
         };
-        self.coarse.push_back(Point {
+        let p = Point {
             t_ms: b.start_ms + COARSE_MS / 2,
             value: mean(b.sum, b.n),
             u: mean(b.sum_u, b.n_u),
             figure: b.figure,
-        });
+        };
+        push_bounded(&mut self.coarse, p, COARSE_POINTS);
     }
+}
+
+/// Pushes onto a ring of at most `max` points, dropping the oldest. It grows by doubling
+/// up to exactly `max`, never past it (a plain push would double 720 to 1024 slots: with
+/// 100 reactors 0.7 MB held for nothing).
+fn push_bounded(ring: &mut VecDeque<Point>, p: Point, max: usize) {
+    if ring.len() == max {
+        ring.pop_front();
+    } else if ring.len() == ring.capacity() {
+        let want = (2 * ring.capacity()).clamp(16, max);
+        ring.reserve_exact(want - ring.len());
+    }
+    ring.push_back(p);
 }
 
 /// See the module docs.
@@ -568,6 +576,26 @@ mod tests {
         assert!(page.get("approach_uncertainty_k").is_none());
         raw["headline"] = json!({"figure": "none", "value": null, "unit": "", "text": "bad"});
         assert!(page_result(&raw).get("approach_k").is_none());
+    }
+
+    #[test]
+    fn the_rings_never_hold_room_past_their_bound() {
+        let mut ring = VecDeque::new();
+        let p = |t| Point {
+            t_ms: t,
+            value: 1.0,
+            u: f32::NAN,
+            figure: Figure::ApproachK,
+        };
+        for t in 0..2000 {
+            push_bounded(&mut ring, p(t), FINE_POINTS);
+            assert!(ring.capacity() <= FINE_POINTS, "{} at {t}", ring.capacity());
+        }
+        assert_eq!(ring.len(), FINE_POINTS);
+        assert_eq!(
+            ring.front().map(|p| p.t_ms),
+            Some(2000 - FINE_POINTS as i64)
+        );
     }
 
     #[test]
