@@ -134,7 +134,7 @@ pub fn start(
                     let mut live = lock(&l);
                     let now = c();
                     for (topic, peeked) in batch.points {
-                        live.record_result(&topic, peeked, None, now);
+                        live.record_result(&topic, peeked, now);
                     }
                     for (topic, text) in &batch.latest {
                         live.record_text(topic, text);
@@ -419,7 +419,7 @@ mod tests {
             &[("lts1".into(), "LTS".into()), ("hts1".into(), "HTS".into())],
         );
         for (topic, peeked) in p.points {
-            live.record_result(&topic, peeked, None, 0);
+            live.record_result(&topic, peeked, 0);
         }
         for (topic, text) in &p.latest {
             live.record_text(topic, text);

@@ -224,22 +224,26 @@ impl Live {
         }
     }
 
+    /// The reactor index and what follows it (`result`, `alarms`, ...) of one of the
+    /// plant's topics.
+    fn route<'t>(&self, topic: &'t str) -> Option<(usize, &'t str)> {
+        let (id, what) = topic.strip_prefix(&self.prefix)?.split_once('/')?;
+        Some((*self.index.get(id)?, what))
+    }
+
     /// One record as the pipeline emitted it; anything unreadable is ignored.
     pub fn record(&mut self, topic: &str, payload: &str, now_ms: i64) {
-        let Some(rest) = topic.strip_prefix(&self.prefix) else {
-            return;
-        };
-        let Some((id, what)) = rest.split_once('/') else {
-            return;
-        };
-        let Some(&i) = self.index.get(id) else {
+        let Some((i, what)) = self.route(topic) else {
             return;
         };
         match what {
-            "result" => self.result(i, payload, now_ms),
-            "alarms" if serde_json::from_str::<serde::de::IgnoredAny>(payload).is_ok() => {
-                self.reactors[i].alarms = Some(payload.to_string());
+            "result" => {
+                if let Some(peeked) = peek_result(payload) {
+                    self.add_point(i, peeked, now_ms);
+                    self.keep_text(i, what, payload);
+                }
             }
+            "alarms" => self.keep_text(i, what, payload),
             "command/outcome" => {
                 let Ok(v) = serde_json::from_str::<Value>(payload) else {
                     return;
@@ -255,62 +259,41 @@ impl Live {
         }
     }
 
-    fn result(&mut self, i: usize, payload: &str, now_ms: i64) {
-        if let Some(peeked) = peek_result(payload) {
-            self.add_result(i, peeked, Some(payload.to_string()), now_ms);
+    /// A result's trend point read beforehand with [`peek_result`] (by the tap, so that
+    /// only the point crosses to the page's thread); its text comes separately, the
+    /// latest only, through [`Live::record_text`].
+    pub fn record_result(&mut self, topic: &str, peeked: PeekedResult, now_ms: i64) {
+        if let Some((i, "result")) = self.route(topic) {
+            self.add_point(i, peeked, now_ms);
         }
     }
 
-    /// A result read beforehand with [`peek_result`] (by the tap, so that only the point
-    /// crosses to the page's thread); `payload` the message itself when it is the latest
-    /// of its reactor in its batch (`None` keeps the one before).
-    pub fn record_result(
-        &mut self,
-        topic: &str,
-        peeked: PeekedResult,
-        payload: Option<String>,
-        now_ms: i64,
-    ) {
-        let Some(id) = topic
-            .strip_prefix(&self.prefix)
-            .and_then(|rest| rest.strip_suffix("/result"))
-        else {
-            return;
-        };
-        if let Some(&i) = self.index.get(id) {
-            self.add_result(i, peeked, payload, now_ms);
-        }
-    }
-
-    /// The latest text of a reactor's result or alarm states, left by the tap after the
-    /// points it carried (see [`Live::record_result`]).
+    /// The latest text of a reactor's result or alarm states.
     pub fn record_text(&mut self, topic: &str, text: &str) {
-        let Some((id, what)) = topic
-            .strip_prefix(&self.prefix)
-            .and_then(|rest| rest.split_once('/'))
-        else {
-            return;
-        };
-        let Some(&i) = self.index.get(id) else {
-            return;
-        };
-        let readable = serde_json::from_str::<serde::de::IgnoredAny>(text).is_ok();
-        match what {
-            "result" if readable => self.reactors[i].result = Some(text.to_string()),
-            "alarms" if readable => self.reactors[i].alarms = Some(text.to_string()),
-            _ => {}
+        if let Some((i, what)) = self.route(topic) {
+            self.keep_text(i, what, text);
         }
     }
 
-    fn add_result(&mut self, i: usize, peeked: PeekedResult, payload: Option<String>, now_ms: i64) {
+    fn add_point(&mut self, i: usize, peeked: PeekedResult, now_ms: i64) {
         let r = &mut self.reactors[i];
         if let Some(p) = peeked.point {
             r.push(p);
         }
-        if let Some(text) = payload {
-            r.result = Some(text);
-        }
         r.received_ms = Some(now_ms);
+    }
+
+    /// Keeps a result's or alarm states' text if it is JSON at all (read for the page's
+    /// figures only when a browser asks).
+    fn keep_text(&mut self, i: usize, what: &str, text: &str) {
+        let slot = match what {
+            "result" => &mut self.reactors[i].result,
+            "alarms" => &mut self.reactors[i].alarms,
+            _ => return,
+        };
+        if serde_json::from_str::<serde::de::IgnoredAny>(text).is_ok() {
+            *slot = Some(text.to_string());
+        }
     }
 
     /// The outcome of the command sent with `request_id`, once it is in.
@@ -327,7 +310,7 @@ impl Live {
     }
 
     /// `/api/plant`: every reactor's latest figures and alarm states; `dropped` is how
-    /// many batches of records the page skipped (it was behind the evaluator).
+    /// many trend points and outcomes the page skipped (it was behind the evaluator).
     pub fn plant_json(&self, now_ms: i64, dropped: u64) -> String {
         let reactors: Vec<Value> = self
             .reactors

@@ -812,20 +812,16 @@ fn statistics(
 /// water, on either side) they hold at every scale, zero included, and the least squares
 /// would return zero flows that "close". Refused, naming the flows to measure.
 fn no_scale_check(inlet: &Stream, outlet: &Stream) -> Result<(), ReconcileError> {
-    let flows = |s: &Stream| -> Vec<Quantity> {
-        std::iter::once(s.dry_flow.clone())
-            .chain(s.water.clone())
-            .collect()
+    let flows = || {
+        [inlet, outlet]
+            .into_iter()
+            .flat_map(|s| std::iter::once(&s.dry_flow).chain(s.water.as_ref()))
     };
-    let all: Vec<Quantity> = flows(inlet).into_iter().chain(flows(outlet)).collect();
-    if all
-        .iter()
-        .any(|q| matches!(q.reading, Reading::Measured { .. }))
-    {
+    if flows().any(|q| matches!(q.reading, Reading::Measured { .. })) {
         return Ok(());
     }
     Err(ReconcileError::Undeterminable {
-        tags: all.into_iter().map(|q| q.tag).collect(),
+        tags: flows().map(|q| q.tag.clone()).collect(),
     })
 }
 
