@@ -368,6 +368,16 @@ fn journal_thread(
     let _ = to_link.blocking_send(ToLink::JournalAt(j.last_seq()));
     while let Some(cmd) = rx.blocking_recv() {
         let mut ok = true;
+        // The link tells the watermark by message only now and then (each message is a
+        // wake-up of this thread); in between it is read here from the metrics.
+        let told = metrics.journal_published_seq.load(Relaxed);
+        if told > j.published_seq()
+            && told <= j.last_seq()
+            && let Err(e) = j.mark_published(told, clock(), false)
+        {
+            ok = false;
+            trouble.report(&e, j.held(), &metrics);
+        }
         match cmd {
             JournalCmd::Append(items) => {
                 // One write for the whole batch (see `Journal::append_batch`).
@@ -388,6 +398,7 @@ fn journal_thread(
                         topic,
                         retain,
                         payload,
+                        ..
                     },
                     seq,
                 ) in items.into_iter().zip(batch.seqs)

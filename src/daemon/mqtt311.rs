@@ -229,12 +229,27 @@ pub fn encode_publish(
     dup: bool,
     pkid: u16,
 ) -> Result<(), EncodeError> {
+    encode_publish_parts(buf, topic, &[payload], qos, retain, dup, pkid)
+}
+
+/// [`encode_publish`] with the payload given in pieces, written one after the other (a
+/// writer that adds a head to a payload need not join them first).
+pub fn encode_publish_parts(
+    buf: &mut Vec<u8>,
+    topic: &str,
+    payload: &[&[u8]],
+    qos: QoS,
+    retain: bool,
+    dup: bool,
+    pkid: u16,
+) -> Result<(), EncodeError> {
     check_str("the topic", topic.as_bytes())?;
     let with_id = qos != QoS::AtMostOnce;
     if with_id && pkid == 0 {
         return Err(EncodeError::ZeroPacketId); // §2.3.1
     }
-    let len = 2 + topic.len() + if with_id { 2 } else { 0 } + payload.len();
+    let payload_len: usize = payload.iter().map(|p| p.len()).sum();
+    let len = 2 + topic.len() + if with_id { 2 } else { 0 } + payload_len;
     if len > MAX_REMAINING {
         return Err(EncodeError::TooLarge { len });
     }
@@ -252,7 +267,9 @@ pub fn encode_publish(
     if with_id {
         buf.extend_from_slice(&pkid.to_be_bytes());
     }
-    buf.extend_from_slice(payload);
+    for part in payload {
+        buf.extend_from_slice(part);
+    }
     Ok(())
 }
 

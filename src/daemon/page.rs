@@ -25,6 +25,8 @@ use crate::web::{Auth, auth};
 const TAP_POINTS: usize = 16_384;
 /// Command outcomes waiting at most (they come one per command).
 const TAP_OUTCOMES: usize = 64;
+/// How long the page's thread, once woken, lets records gather before it takes them.
+const GATHER: Duration = Duration::from_millis(50);
 /// How long a command request waits for its outcome before answering "sent".
 const OUTCOME_WAIT: Duration = Duration::from_secs(5);
 
@@ -51,11 +53,18 @@ pub struct Tap {
 impl Tap {
     pub fn offer(&self, batch: &[crate::pipeline::Append]) {
         let mut any = false;
+        let was_empty;
         {
             let mut p = lock(&self.pending);
+            was_empty = p.is_empty();
             for a in batch.iter().filter(|a| wanted(&a.topic)) {
                 if a.topic.ends_with("/result") {
-                    let Some(peeked) = peek_result(&a.payload) else {
+                    // The pipeline gives each result's point beside its text.
+                    let Some(peeked) = a
+                        .point
+                        .map(PeekedResult::from)
+                        .or_else(|| peek_result(&a.payload))
+                    else {
                         continue;
                     };
                     if p.points.len() == TAP_POINTS {
@@ -63,9 +72,9 @@ impl Tap {
                         self.dropped.fetch_add(1, Relaxed);
                     }
                     p.points.push_back((a.topic.clone(), peeked));
-                    p.latest.insert(a.topic.clone(), a.payload.clone());
+                    p.keep_latest(&a.topic, &a.payload);
                 } else if a.topic.ends_with("/alarms") {
-                    p.latest.insert(a.topic.clone(), a.payload.clone());
+                    p.keep_latest(&a.topic, &a.payload);
                 } else if p.outcomes.len() < TAP_OUTCOMES {
                     p.outcomes.push((a.topic.clone(), a.payload.clone()));
                 } else {
@@ -74,9 +83,31 @@ impl Tap {
                 any = true;
             }
         }
-        if any {
-            // Full: the thread has a wake-up coming and will take this too.
+        // Only when the page's thread had taken everything: otherwise a wake-up is on its
+        // way (or the thread is gathering) and it takes this too. So a flood wakes the
+        // thread at most once per GATHER, not once per evaluator batch.
+        if any && was_empty {
+            // Full: the thread has a wake-up coming.
             let _ = self.wake.try_send(());
+        }
+    }
+}
+
+impl Pending {
+    fn is_empty(&self) -> bool {
+        self.points.is_empty() && self.latest.is_empty() && self.outcomes.is_empty()
+    }
+
+    /// The latest text of a retained topic, in the room of the one it replaces.
+    fn keep_latest(&mut self, topic: &str, text: &str) {
+        match self.latest.get_mut(topic) {
+            Some(slot) => {
+                slot.clear();
+                slot.push_str(text);
+            }
+            None => {
+                self.latest.insert(topic.to_string(), text.to_string());
+            }
         }
     }
 }
@@ -129,6 +160,9 @@ pub fn start(
         .spawn(move || {
             // Ends when the tap is dropped (the evaluator has stopped).
             while woken.recv().is_ok() {
+                // What comes in the next moment is taken with this (one wake-up for
+                // many evaluator batches); the page polls every few seconds.
+                std::thread::sleep(GATHER);
                 let batch = std::mem::take(&mut *lock(&from));
                 {
                     let mut live = lock(&l);
@@ -373,6 +407,7 @@ mod tests {
         Append {
             topic: topic.into(),
             retain: true,
+            point: None,
             payload: payload.into(),
         }
     }
@@ -382,6 +417,40 @@ mod tests {
         format!(
             r#"{{"schema":"eqwatch.result/1","reactor":"lts1","analysis_ts":"{ts}","headline":{{"figure":"approach","value":{value},"unit":"K"}},"approach_k":{value},"approach_uncertainty_k":1.5,"reactions":[{{"ln_k":4.2}}]}}"#
         )
+    }
+
+    #[test]
+    fn the_tap_wakes_the_page_only_once_it_has_taken_everything() {
+        let (wake, woken) = std::sync::mpsc::sync_channel(1);
+        let tap = Tap {
+            pending: Arc::new(Mutex::new(Pending::default())),
+            wake,
+            dropped: Arc::new(AtomicU64::new(0)),
+        };
+        let t = "eqwatch/baw1/lts1/result";
+        tap.offer(&[append(t, &result("2026-12-01T00:00:00Z", 10.0))]);
+        assert!(
+            woken.try_recv().is_ok(),
+            "the first record wakes the thread"
+        );
+        // The thread is awake and gathering: what comes now needs no wake-up of its own.
+        tap.offer(&[append(t, &result("2026-12-01T00:01:00Z", 11.0))]);
+        assert!(
+            woken.try_recv().is_err(),
+            "no second wake-up while it gathers"
+        );
+        let taken = std::mem::take(&mut *lock(&tap.pending));
+        assert_eq!(taken.points.len(), 2, "both points are taken in one go");
+        // Having taken everything, it is woken by the next record again.
+        tap.offer(&[append(t, &result("2026-12-01T00:02:00Z", 12.0))]);
+        assert!(
+            woken.try_recv().is_ok(),
+            "woken again once it had taken everything"
+        );
+        // Records the page does not show wake nothing.
+        let _ = std::mem::take(&mut *lock(&tap.pending));
+        tap.offer(&[append("eqwatch/baw1/lts1/metrics", "{}")]);
+        assert!(woken.try_recv().is_err());
     }
 
     #[test]

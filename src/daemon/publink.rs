@@ -43,7 +43,7 @@ use super::outbox::{Offer, Outbox};
 use super::{Clock, JournalCmd, ToLink, UNACKED_RESUME};
 use crate::config::{BrokerSettings, MqttProtocol};
 use crate::pipeline::metrics::Metrics;
-use crate::wire::result::with_delivery;
+use crate::wire::result::delivery_parts;
 
 /// Bytes read from the socket per read call at most: the broker sends this link
 /// PUBACKs (4 bytes each, §3.4) and PINGRESPs, so a window of 2,000 fits in one read.
@@ -51,6 +51,10 @@ const READ_CHUNK: usize = 8 * 1024;
 /// How often the loop looks at the keepalive, the journal read-back and the shutdown
 /// deadline when nothing else wakes it (keepalive is whole seconds, at least 5).
 const TICK: Duration = Duration::from_millis(250);
+/// How often at most the journal thread is told the watermark by a message of its own
+/// (the journal writes its cursor once per `fsync_interval` anyway, and a watermark told
+/// late only means a few more records resent after a crash, never one lost).
+const TELL_JOURNAL: Duration = Duration::from_millis(200);
 
 /// Why a connection attempt failed or a connection ended.
 #[derive(Debug, thiserror::Error)]
@@ -216,15 +220,16 @@ impl Session {
         &mut self,
         out: &mut Vec<u8>,
         topic: &str,
-        payload: &[u8],
+        payload: &[&[u8]],
         retain: bool,
         seq: u64,
     ) -> Result<Option<u16>, EncodeError> {
         let Some(pkid) = self.take_id() else {
             return Ok(None);
         };
-        let mut bytes = Vec::with_capacity(topic.len() + payload.len() + 9);
-        if let Err(e) = wire::encode_publish(
+        let payload_len: usize = payload.iter().map(|p| p.len()).sum();
+        let mut bytes = Vec::with_capacity(topic.len() + payload_len + 9);
+        if let Err(e) = wire::encode_publish_parts(
             &mut bytes,
             topic,
             payload,
@@ -297,6 +302,9 @@ struct Duty {
     journal_last_at_start: u64,
     published_at_start: u64,
     acked: Arc<Notify>,
+    /// When the journal was last told the watermark, and whether it has moved since.
+    told_journal: Instant,
+    untold: bool,
 }
 
 impl Duty {
@@ -344,6 +352,7 @@ impl Duty {
         self.metrics
             .journal_published_seq
             .store(self.outbox.watermark(), Relaxed);
+        self.tell_journal();
         if stop_input.is_cancelled() && self.stop_at.is_none() {
             self.stop_at = Some(Instant::now() + self.flush_deadline);
             info!("shutdown: input stopped, delivering what is journaled");
@@ -381,12 +390,28 @@ impl Duty {
         if self.metrics.backlog() <= UNACKED_RESUME {
             self.acked.notify_one();
         }
+        self.untold = true;
+        self.tell_journal();
+    }
+
+    /// Tells the journal thread the watermark at most once per [`TELL_JOURNAL`] (each
+    /// message wakes that thread; in between it reads the watermark from the metrics
+    /// whenever it wakes for records). A watermark left untold is told on a later turn
+    /// (the loop turns at least every [`TICK`]).
+    fn tell_journal(&mut self) {
+        if !self.untold || self.told_journal.elapsed() < TELL_JOURNAL {
+            return;
+        }
         // A later acknowledgement carries a higher watermark, so a busy journal may
         // skip this one.
-        let _ = self.journal.try_send(JournalCmd::Published {
-            seq: w,
+        let sent = self.journal.try_send(JournalCmd::Published {
+            seq: self.outbox.watermark(),
             force: false,
         });
+        if sent.is_ok() {
+            self.untold = false;
+            self.told_journal = Instant::now();
+        }
     }
 }
 
@@ -455,6 +480,8 @@ impl ResultLink {
             journal_last_at_start: self.journal_last_at_start,
             published_at_start: self.published_at_start,
             acked: self.acked.clone(),
+            told_journal: Instant::now(),
+            untold: false,
         };
         let mut conn = Connection::new("results", &self.broker);
         let mut session = Session::new();
@@ -493,7 +520,7 @@ impl ResultLink {
                         if let Err(e) = session.publish(
                             &mut first,
                             &self.status_topic,
-                            self.online_payload.as_bytes(),
+                            &[self.online_payload.as_bytes()],
                             true,
                             0,
                         ) {
@@ -649,9 +676,10 @@ impl ResultLink {
             // 3. Every record the window allows, into one buffer.
             while let Some(r) = duty.outbox.next(window) {
                 let late = r.replayed || (self.clock)() - r.ts_ms > LATE_MS;
-                let body = with_delivery(&r.payload, r.seq, late);
+                let (head, rest) = delivery_parts(&r.payload, r.seq, late);
                 let seq = r.seq;
-                match session.publish(&mut out, &r.topic, body.as_bytes(), r.retain, seq) {
+                let body = [head.as_bytes(), rest.as_bytes()];
+                match session.publish(&mut out, &r.topic, &body, r.retain, seq) {
                     Ok(Some(pkid)) => {
                         duty.outbox.handed_front();
                         duty.outbox.on_outgoing(pkid);
@@ -746,7 +774,7 @@ impl ResultLink {
         let Ok(Some(pkid)) = session.publish(
             &mut out,
             &self.status_topic,
-            self.offline_payload.as_bytes(),
+            &[self.offline_payload.as_bytes()],
             true,
             0,
         ) else {
@@ -853,7 +881,7 @@ mod tests {
         let mut s = Session::new();
         let mut out = Vec::new();
         for _ in 0..3 {
-            s.publish(&mut out, "t", b"x", false, 1).unwrap();
+            s.publish(&mut out, "t", &[b"x"], false, 1).unwrap();
         }
         assert_eq!(
             s.in_flight.iter().map(|f| f.pkid).collect::<Vec<_>>(),
@@ -873,8 +901,8 @@ mod tests {
     fn resend_sets_dup_and_keeps_order() {
         let mut s = Session::new();
         let mut out = Vec::new();
-        s.publish(&mut out, "a", b"1", false, 1).unwrap();
-        s.publish(&mut out, "b", b"2", false, 2).unwrap();
+        s.publish(&mut out, "a", &[b"1"], false, 1).unwrap();
+        s.publish(&mut out, "b", &[b"2"], false, 2).unwrap();
         // §3.3.1: first byte 0x32 (QoS 1), 0x3A with DUP (bit 3).
         assert_eq!(out[0], 0x32);
         let mut again = Vec::new();

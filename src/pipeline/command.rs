@@ -103,6 +103,7 @@ impl Lane {
         sink.records.push(Append {
             topic: self.topics.outcome.clone(),
             retain: false,
+            point: None,
             payload: wp::encode_outcome(&Outcome {
                 reactor: self.id(),
                 sender: &a.sender,

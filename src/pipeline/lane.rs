@@ -201,17 +201,20 @@ impl Lane {
         if self.trace.is_some() {
             self.record_trace(e, approach, &fig);
         }
-        let payload = wire::result::encode_result(rs, &settings.species, e, arrival_ms, Some(&fig));
+        let (payload, point) =
+            wire::result::encode_result_and_point(rs, &settings.species, e, arrival_ms, Some(&fig));
         sink.records.push(Append {
             topic: self.topics.result.clone(),
             retain: true,
             payload,
+            point: Some(point),
         });
         // Read from the settings at each result, so a reload switches it at once.
         if settings.metrics_topic {
             sink.records.push(Append {
                 topic: self.topics.metrics.clone(),
                 retain: false,
+                point: None,
                 payload: wire::metrics::encode_metrics(&settings.site, rs, e, Some(&fig)),
             });
         }
@@ -360,6 +363,7 @@ impl Lane {
             sink.records.push(Append {
                 topic,
                 retain: false,
+                point: None,
                 payload: wp::encode_event(rs_id, &self.watch, e),
             });
             if let Some(tr) = self.trace.as_mut() {
@@ -383,6 +387,7 @@ impl Lane {
         Append {
             topic: self.topics.alarms.clone(),
             retain: true,
+            point: None,
             payload: wp::encode_states(
                 &self.settings.reactors[self.r].spec.id,
                 &self.watch,

@@ -37,12 +37,15 @@ pub struct RawInput {
     pub arrival_ms: i64,
 }
 
-/// One result to journal.
+/// One record to journal.
 #[derive(Debug)]
 pub struct Append {
     pub topic: String,
     pub retain: bool,
     pub payload: String,
+    /// A result's headline as typed figures (what its text says), for the live page's
+    /// trend; `None` for every other record.
+    pub point: Option<crate::wire::result::HeadlinePoint>,
 }
 
 #[cfg(test)]

@@ -61,6 +61,7 @@ impl Plant {
                 out.push(Append {
                     topic: t.topic.clone(),
                     retain: true,
+                    point: None,
                     payload: t.encode(),
                 });
             }
@@ -86,12 +87,14 @@ impl Plant {
             out.push(Append {
                 topic: self.alert_topic.clone(),
                 retain: false,
+                point: None,
                 payload: wp::encode_flood_event(&self.watch, e),
             });
         }
         out.push(Append {
             topic: self.alarms_topic.clone(),
             retain: true,
+            point: None,
             payload: wp::encode_plant_states(&self.watch, now_ms),
         });
     }

@@ -237,13 +237,18 @@ impl Live {
             return;
         };
         match what {
+            // The peek reads the whole text, so what it accepts is JSON.
             "result" => {
                 if let Some(peeked) = peek_result(payload) {
                     self.add_point(i, peeked, now_ms);
                     self.keep_text(i, what, payload);
                 }
             }
-            "alarms" => self.keep_text(i, what, payload),
+            "alarms" => {
+                if serde_json::from_str::<serde::de::IgnoredAny>(payload).is_ok() {
+                    self.keep_text(i, what, payload);
+                }
+            }
             "command/outcome" => {
                 let Ok(v) = serde_json::from_str::<Value>(payload) else {
                     return;
@@ -268,7 +273,8 @@ impl Live {
         }
     }
 
-    /// The latest text of a reactor's result or alarm states.
+    /// The latest text of a reactor's result or alarm states, as the pipeline encoded it
+    /// (so not read again here; text that does not parse shows as no figures).
     pub fn record_text(&mut self, topic: &str, text: &str) {
         if let Some((i, what)) = self.route(topic) {
             self.keep_text(i, what, text);
@@ -283,17 +289,15 @@ impl Live {
         r.received_ms = Some(now_ms);
     }
 
-    /// Keeps a result's or alarm states' text if it is JSON at all (read for the page's
-    /// figures only when a browser asks).
+    /// Keeps a result's or alarm states' text (read for the page's figures only when a
+    /// browser asks).
     fn keep_text(&mut self, i: usize, what: &str, text: &str) {
         let slot = match what {
             "result" => &mut self.reactors[i].result,
             "alarms" => &mut self.reactors[i].alarms,
             _ => return,
         };
-        if serde_json::from_str::<serde::de::IgnoredAny>(text).is_ok() {
-            *slot = Some(text.to_string());
-        }
+        *slot = Some(text.to_string());
     }
 
     /// The outcome of the command sent with `request_id`, once it is in.
@@ -402,6 +406,27 @@ impl Live {
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct PeekedResult {
     point: Option<Point>,
+}
+
+impl From<crate::wire::result::HeadlinePoint> for PeekedResult {
+    /// The point from the typed headline the pipeline gives beside the result's text
+    /// (the same figures [`peek_result`] reads from the text, without reading it).
+    fn from(h: crate::wire::result::HeadlinePoint) -> Self {
+        let figure = Figure::of(Some(h.figure), Some(h.unit));
+        let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
+        PeekedResult {
+            point: Some(Point {
+                t_ms: h.analysis_ts_ms,
+                value: num(h.value),
+                u: if figure == Figure::ApproachK {
+                    num(h.approach_uncertainty_k)
+                } else {
+                    f32::NAN
+                },
+                figure,
+            }),
+        }
+    }
 }
 
 /// Reads a result for its trend point only (the rest of the message is checked and
@@ -559,6 +584,43 @@ mod tests {
         assert!(page.get("approach_uncertainty_k").is_none());
         raw["headline"] = json!({"figure": "none", "value": null, "unit": "", "text": "bad"});
         assert!(page_result(&raw).get("approach_k").is_none());
+    }
+
+    #[test]
+    fn the_typed_headline_gives_the_point_the_text_gives() {
+        // The pipeline hands the page each result's headline beside its text; it must
+        // be the point the page would read from the text, for every kind of headline.
+        use crate::monitor::SourceQuality;
+        use crate::wire::fixtures::{AT_MS, lts1};
+        let bits = |p: PeekedResult| {
+            p.point
+                .map(|p| (p.t_ms, p.value.to_bits(), p.u.to_bits(), p.figure))
+        };
+        let mut cases = Vec::new();
+        for q in [SourceQuality::Good, SourceQuality::Bad] {
+            cases.push(lts1(q));
+        }
+        let (s, mut e) = lts1(SourceQuality::Good);
+        e.approach_not_meaningful = true;
+        cases.push((s, e));
+        let mut figures = Vec::new();
+        for (s, e) in &cases {
+            let rs = s.reactors.iter().find(|r| r.spec.id == "lts1").unwrap();
+            let (text, point) =
+                crate::wire::result::encode_result_and_point(rs, &s.species, e, AT_MS, None);
+            let read = peek_result(&text).expect("a readable result");
+            assert_eq!(bits(PeekedResult::from(point)), bits(read), "{text}");
+            figures.push(read.point.map(|p| p.figure));
+        }
+        assert_eq!(
+            figures,
+            [
+                Some(Figure::ApproachK),
+                Some(Figure::None),
+                Some(Figure::SlipMolPct)
+            ],
+            "the three kinds of headline are covered"
+        );
     }
 
     #[test]

@@ -522,7 +522,21 @@ struct ResultOut<'a> {
     drift: Option<super::watch::DriftOut>,
 }
 
+/// A result's headline as typed figures, for the shell's own readers of results (the
+/// live page's trend), so that they need not read the JSON back: the same figure, unit
+/// and value as the result's `headline`, and its top-level `approach_uncertainty_k`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HeadlinePoint {
+    pub analysis_ts_ms: i64,
+    /// `approach`, `key-measured` or `none`, as in the result.
+    pub figure: &'static str,
+    pub unit: &'static str,
+    pub value: Option<f64>,
+    pub approach_uncertainty_k: Option<f64>,
+}
+
 /// The result JSON for one evaluation (published retained on `<prefix>/<reactor>/result`).
+#[cfg(test)]
 pub(crate) fn encode_result(
     r: &ReactorSettings,
     db: &SpeciesDb,
@@ -530,6 +544,18 @@ pub(crate) fn encode_result(
     evaluated_at_ms: i64,
     drift: Option<&crate::monitor::watch::DriftFigures>,
 ) -> String {
+    encode_result_and_point(r, db, e, evaluated_at_ms, drift).0
+}
+
+/// The result JSON for one evaluation with its headline as typed figures (what the text's `analysis_ts`,
+/// `headline` and `approach_uncertainty_k` say).
+pub(crate) fn encode_result_and_point(
+    r: &ReactorSettings,
+    db: &SpeciesDb,
+    e: &Evaluation,
+    evaluated_at_ms: i64,
+    drift: Option<&crate::monitor::watch::DriftFigures>,
+) -> (String, HeadlinePoint) {
     let names = r.spec.model.names();
     // A figure is published only from a usable analysis: bad results carry no approach
     // (K, Q and the affinity stay, for the record of what the analyser said).
@@ -653,13 +679,30 @@ pub(crate) fn encode_result(
         compressibility_factor: finite_opt(e.compressibility_factor),
         drift: drift.map(super::watch::DriftOut::from),
     };
+    let point = HeadlinePoint {
+        analysis_ts_ms: e.analysis_ts_ms,
+        figure: out.headline.figure,
+        unit: out.headline.unit,
+        value: out.headline.value,
+        approach_uncertainty_k: out.approach_uncertainty_k,
+    };
     // Serialising plain data to a String cannot fail; an empty object would be a bug.
-    serde_json::to_string(&out).unwrap_or_else(|_| "{}".to_string())
+    let text = serde_json::to_string(&out).unwrap_or_else(|_| "{}".to_string());
+    (text, point)
 }
 
 /// Adds the journal sequence number and the late mark at the front of a payload object.
 #[cfg_attr(not(feature = "daemon"), allow(dead_code))]
 pub(crate) fn with_delivery(payload: &str, seq: u64, late: bool) -> String {
+    let (head, rest) = delivery_parts(payload, seq, late);
+    head + rest
+}
+
+/// [`with_delivery`] as its two pieces, so that a writer can put them side by side
+/// without copying the payload: the new head (`{"seq":..,"late":..,`) and the rest of
+/// the payload after its opening brace.
+#[cfg_attr(not(feature = "daemon"), allow(dead_code))]
+pub(crate) fn delivery_parts(payload: &str, seq: u64, late: bool) -> (String, &str) {
     let body = payload.trim();
     let rest = body.strip_prefix('{').unwrap_or(body);
     let sep = if rest.trim_start().starts_with('}') {
@@ -667,7 +710,7 @@ pub(crate) fn with_delivery(payload: &str, seq: u64, late: bool) -> String {
     } else {
         ","
     };
-    format!("{{\"seq\":{seq},\"late\":{late}{sep}{rest}")
+    (format!("{{\"seq\":{seq},\"late\":{late}{sep}"), rest)
 }
 
 #[cfg(test)]
