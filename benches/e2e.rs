@@ -816,6 +816,7 @@ impl Report {
             "\n== eqwatch end-to-end ({REACTORS} reactors, mosquitto on loopback, {} CPUs)",
             std::thread::available_parallelism().map_or(0, |n| n.get())
         );
+        let _ = writeln!(t, "daemon binary: {}", eqwatch_binary().display());
         row(&mut t, "figure", "value".into(), "goal");
         row(
             &mut t,

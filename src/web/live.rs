@@ -244,10 +244,8 @@ impl Live {
                     self.keep_text(i, what, payload);
                 }
             }
-            "alarms" => {
-                if serde_json::from_str::<serde::de::IgnoredAny>(payload).is_ok() {
-                    self.keep_text(i, what, payload);
-                }
+            "alarms" if serde_json::from_str::<serde::de::IgnoredAny>(payload).is_ok() => {
+                self.keep_text(i, what, payload);
             }
             "command/outcome" => {
                 let Ok(v) = serde_json::from_str::<Value>(payload) else {

@@ -686,9 +686,26 @@ pub(crate) fn encode_result_and_point(
         value: out.headline.value,
         approach_uncertainty_k: out.approach_uncertainty_k,
     };
-    // Serialising plain data to a String cannot fail; an empty object would be a bug.
-    let text = serde_json::to_string(&out).unwrap_or_else(|_| "{}".to_string());
-    (text, point)
+    (to_exact_string(&out), point)
+}
+
+thread_local! {
+    /// Where results are written before their exact-size copy: it grows to the largest
+    /// result once and stays, so a result costs one allocation of its own size instead
+    /// of a string doubled a dozen times (with up to half of it empty while in flight).
+    static SCRATCH: std::cell::RefCell<Vec<u8>> = const { std::cell::RefCell::new(Vec::new()) };
+}
+
+/// Compact JSON in a string of exactly its length.
+fn to_exact_string<T: Serialize>(value: &T) -> String {
+    SCRATCH.with_borrow_mut(|buf| {
+        buf.clear();
+        // Serialising plain data cannot fail; an empty object would be a bug.
+        if serde_json::to_writer(&mut *buf, value).is_err() {
+            return "{}".to_string();
+        }
+        String::from_utf8(buf.to_vec()).unwrap_or_else(|_| "{}".to_string())
+    })
 }
 
 /// Adds the journal sequence number and the late mark at the front of a payload object.

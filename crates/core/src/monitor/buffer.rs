@@ -38,11 +38,19 @@ pub struct ScalarBuffer {
 }
 
 impl ScalarBuffer {
+    /// Room is taken as readings come, up to `capacity` (+1 while an insert is resolved),
+    /// never before: a reactor whose temperatures come once a minute holds a few
+    /// readings, not a full ring (with 100 reactors the rings taken at start were 1.8 MB).
     pub fn new(capacity: usize) -> Self {
         Self {
-            points: std::collections::VecDeque::with_capacity(capacity.max(2) + 1),
+            points: std::collections::VecDeque::new(),
             capacity: capacity.max(2),
         }
+    }
+
+    /// Memory the ring holds, in readings (for the bound's test).
+    pub fn room(&self) -> usize {
+        self.points.capacity()
     }
 
     pub fn len(&self) -> usize {
@@ -68,6 +76,13 @@ impl ScalarBuffer {
             Err(i) => {
                 if i == 0 && self.points.len() == self.capacity {
                     return false;
+                }
+                let len = self.points.len();
+                if len == self.points.capacity() {
+                    // Doubling, but never past the bound (a plain insert would double a
+                    // full 257 to 512).
+                    let want = (2 * len).max(8).min(self.capacity + 1);
+                    self.points.reserve_exact(want - len);
                 }
                 self.points.insert(i, p);
                 if self.points.len() > self.capacity {
@@ -133,6 +148,21 @@ mod tests {
             value: v,
             quality: SourceQuality::Good,
         }
+    }
+
+    #[test]
+    fn room_is_taken_as_readings_come_and_never_past_the_bound() {
+        let mut b = ScalarBuffer::new(256);
+        assert_eq!(b.room(), 0, "nothing held before the first reading");
+        for k in 0..3 {
+            b.insert(p(k, 1.0));
+        }
+        assert!(b.room() < 16, "a few readings take little room: {}", b.room());
+        for k in 3..2000 {
+            b.insert(p(k, 1.0));
+            assert!(b.room() <= 257, "room {} past the bound", b.room());
+        }
+        assert_eq!(b.len(), 256);
     }
 
     #[test]
