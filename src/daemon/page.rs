@@ -170,8 +170,8 @@ pub fn start(
                     for (topic, peeked) in batch.points {
                         live.record_result(&topic, peeked, now);
                     }
-                    for (topic, text) in &batch.latest {
-                        live.record_text(topic, text);
+                    for (topic, text) in batch.latest {
+                        live.record_text(&topic, text);
                     }
                     for (topic, text) in &batch.outcomes {
                         live.record(topic, text, now);
@@ -490,8 +490,8 @@ mod tests {
         for (topic, peeked) in p.points {
             live.record_result(&topic, peeked, 0);
         }
-        for (topic, text) in &p.latest {
-            live.record_text(topic, text);
+        for (topic, text) in p.latest {
+            live.record_text(&topic, text);
         }
         let plant: Value = serde_json::from_str(&live.plant_json(0, 0)).expect("json");
         assert_eq!(plant["reactors"][0]["result"]["approach_k"], 11.0);

@@ -241,11 +241,11 @@ impl Live {
             "result" => {
                 if let Some(peeked) = peek_result(payload) {
                     self.add_point(i, peeked, now_ms);
-                    self.keep_text(i, what, payload);
+                    self.keep_text(i, what, payload.to_string());
                 }
             }
             "alarms" if serde_json::from_str::<serde::de::IgnoredAny>(payload).is_ok() => {
-                self.keep_text(i, what, payload);
+                self.keep_text(i, what, payload.to_string());
             }
             "command/outcome" => {
                 let Ok(v) = serde_json::from_str::<Value>(payload) else {
@@ -273,7 +273,7 @@ impl Live {
 
     /// The latest text of a reactor's result or alarm states, as the pipeline encoded it
     /// (so not read again here; text that does not parse shows as no figures).
-    pub fn record_text(&mut self, topic: &str, text: &str) {
+    pub fn record_text(&mut self, topic: &str, text: String) {
         if let Some((i, what)) = self.route(topic) {
             self.keep_text(i, what, text);
         }
@@ -289,13 +289,13 @@ impl Live {
 
     /// Keeps a result's or alarm states' text (read for the page's figures only when a
     /// browser asks).
-    fn keep_text(&mut self, i: usize, what: &str, text: &str) {
+    fn keep_text(&mut self, i: usize, what: &str, text: String) {
         let slot = match what {
             "result" => &mut self.reactors[i].result,
             "alarms" => &mut self.reactors[i].alarms,
             _ => return,
         };
-        *slot = Some(text.to_string());
+        *slot = Some(text);
     }
 
     /// The outcome of the command sent with `request_id`, once it is in.

@@ -157,7 +157,11 @@ mod tests {
         for k in 0..3 {
             b.insert(p(k, 1.0));
         }
-        assert!(b.room() < 16, "a few readings take little room: {}", b.room());
+        assert!(
+            b.room() < 16,
+            "a few readings take little room: {}",
+            b.room()
+        );
         for k in 3..2000 {
             b.insert(p(k, 1.0));
             assert!(b.room() <= 257, "room {} past the bound", b.room());
