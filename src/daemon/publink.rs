@@ -876,6 +876,74 @@ mod tests {
     use super::Session;
 
     #[test]
+    fn the_journal_is_told_the_watermark_at_most_once_per_period_and_never_left_untold() {
+        use super::{Duty, Outbox, TELL_JOURNAL};
+        use crate::daemon::JournalCmd;
+        use crate::daemon::outbox::Outgoing;
+        use std::sync::Arc;
+        use std::time::{Duration, Instant};
+        let (tx, mut rx) = tokio::sync::mpsc::channel(16);
+        let mut duty = Duty {
+            outbox: Outbox::new(0, 64),
+            drained: false,
+            stop_at: None,
+            flush_deadline: Duration::from_secs(1),
+            journal: tx,
+            metrics: Arc::new(crate::pipeline::metrics::Metrics::new(&["r1".to_string()])),
+            copies: None,
+            journal_last_at_start: 0,
+            published_at_start: 0,
+            acked: Arc::new(tokio::sync::Notify::new()),
+            told_journal: Instant::now(),
+            untold: false,
+        };
+        // Records 1..=3 handed to the broker as packets 1..=3.
+        for seq in 1..=3u64 {
+            let r = Outgoing {
+                seq,
+                ts_ms: 0,
+                topic: "t".into(),
+                retain: true,
+                payload: "{}".into(),
+                replayed: false,
+            };
+            duty.outbox.offer(r);
+            assert!(duty.outbox.next(64).is_some());
+            duty.outbox.handed_front();
+            duty.outbox.on_outgoing(seq as u16);
+        }
+        let told = |rx: &mut tokio::sync::mpsc::Receiver<JournalCmd>| {
+            let mut seqs = Vec::new();
+            while let Ok(cmd) = rx.try_recv() {
+                if let JournalCmd::Published { seq, .. } = cmd {
+                    seqs.push(seq);
+                }
+            }
+            seqs
+        };
+        // The period has passed: the first acknowledgement is told at once ...
+        duty.told_journal = Instant::now() - TELL_JOURNAL;
+        assert!(duty.on_ack(1));
+        duty.watermark_moved();
+        assert_eq!(told(&mut rx), [1]);
+        // ... the next ones within the period are not (no wake-up each) ...
+        assert!(duty.on_ack(2));
+        duty.watermark_moved();
+        assert!(duty.on_ack(3));
+        duty.watermark_moved();
+        assert_eq!(told(&mut rx), Vec::<u64>::new());
+        // ... and once it has passed, a turn tells the latest watermark.
+        duty.told_journal = Instant::now() - TELL_JOURNAL;
+        let stop = tokio_util::sync::CancellationToken::new();
+        assert!(!duty.turn(&stop));
+        assert_eq!(told(&mut rx), [3]);
+        // Nothing new: nothing told.
+        duty.told_journal = Instant::now() - TELL_JOURNAL;
+        assert!(!duty.turn(&stop));
+        assert_eq!(told(&mut rx), Vec::<u64>::new());
+    }
+
+    #[test]
     fn packet_ids_skip_those_in_flight_and_wrap_past_zero() {
         // MQTT 3.1.1 §2.3.1: ids are non-zero and a new packet takes an id not in use.
         let mut s = Session::new();

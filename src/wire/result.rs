@@ -738,6 +738,19 @@ mod tests {
     use serde_json::Value;
 
     #[test]
+    fn a_result_takes_exactly_its_own_length_in_memory() {
+        // Up to 256 results wait in memory for the broker: none may carry empty room.
+        let (s, e) = lts1(SourceQuality::Good);
+        let rs = s.reactors.iter().find(|r| r.spec.id == "lts1").unwrap();
+        for _ in 0..3 {
+            let (text, _) = encode_result_and_point(rs, &s.species, &e, AT_MS, None);
+            assert!(text.len() > 1000, "a whole result");
+            assert_eq!(text.capacity(), text.len());
+            let _: Value = serde_json::from_str(&text).expect("JSON");
+        }
+    }
+
+    #[test]
     fn delivery_prefix() {
         assert_eq!(
             with_delivery("{\"a\":1}", 7, false),
