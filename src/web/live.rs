@@ -588,21 +588,13 @@ mod tests {
     fn the_typed_headline_gives_the_point_the_text_gives() {
         // The pipeline hands the page each result's headline beside its text; it must
         // be the point the page would read from the text, for every kind of headline.
-        use crate::monitor::SourceQuality;
-        use crate::wire::fixtures::{AT_MS, lts1};
+        use crate::wire::fixtures::{AT_MS, lts1_each_headline};
         let bits = |p: PeekedResult| {
             p.point
                 .map(|p| (p.t_ms, p.value.to_bits(), p.u.to_bits(), p.figure))
         };
-        let mut cases = Vec::new();
-        for q in [SourceQuality::Good, SourceQuality::Bad] {
-            cases.push(lts1(q));
-        }
-        let (s, mut e) = lts1(SourceQuality::Good);
-        e.approach_not_meaningful = true;
-        cases.push((s, e));
         let mut figures = Vec::new();
-        for (s, e) in &cases {
+        for (s, e) in &lts1_each_headline() {
             let rs = s.reactors.iter().find(|r| r.spec.id == "lts1").unwrap();
             let (text, point) =
                 crate::wire::result::encode_result_and_point(rs, &s.species, e, AT_MS, None);

@@ -40,3 +40,15 @@ pub(crate) fn lts1(quality: SourceQuality) -> (crate::config::Settings, Evaluati
     };
     (s, *e)
 }
+
+/// [`lts1`] with a headline of each kind: an approach (good), none (bad), and the key
+/// component's slip where the approach is not meaningful.
+pub(crate) fn lts1_each_headline() -> Vec<(crate::config::Settings, Evaluation)> {
+    let (s, mut slip) = lts1(SourceQuality::Good);
+    slip.approach_not_meaningful = true;
+    vec![
+        lts1(SourceQuality::Good),
+        lts1(SourceQuality::Bad),
+        (s, slip),
+    ]
+}
