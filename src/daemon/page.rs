@@ -419,14 +419,20 @@ mod tests {
         )
     }
 
-    #[test]
-    fn the_tap_wakes_the_page_only_once_it_has_taken_everything() {
+    /// A tap with no page thread behind it, and the thread's wake-up channel.
+    fn tap() -> (Tap, std::sync::mpsc::Receiver<()>) {
         let (wake, woken) = std::sync::mpsc::sync_channel(1);
         let tap = Tap {
             pending: Arc::new(Mutex::new(Pending::default())),
             wake,
             dropped: Arc::new(AtomicU64::new(0)),
         };
+        (tap, woken)
+    }
+
+    #[test]
+    fn the_tap_wakes_the_page_only_once_it_has_taken_everything() {
+        let (tap, woken) = tap();
         let t = "eqwatch/baw1/lts1/result";
         tap.offer(&[append(t, &result("2026-12-01T00:00:00Z", 10.0))]);
         assert!(
@@ -455,12 +461,7 @@ mod tests {
 
     #[test]
     fn the_tap_leaves_every_point_but_only_the_latest_text_of_each_topic() {
-        let (wake, woken) = std::sync::mpsc::sync_channel(1);
-        let tap = Tap {
-            pending: Arc::new(Mutex::new(Pending::default())),
-            wake,
-            dropped: Arc::new(AtomicU64::new(0)),
-        };
+        let (tap, woken) = tap();
         let t = "eqwatch/baw1/lts1/result";
         let u = "eqwatch/baw1/hts1/result";
         let batch = [

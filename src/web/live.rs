@@ -83,6 +83,24 @@ struct Point {
     figure: Figure,
 }
 
+impl Point {
+    /// A result's headline figure at its analysis time; the band only around an
+    /// approach (page_result leaves it out otherwise).
+    fn of(t_ms: i64, figure: Figure, value: Option<f64>, approach_u: Option<f64>) -> Self {
+        let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
+        Point {
+            t_ms,
+            value: num(value),
+            u: if figure == Figure::ApproachK {
+                num(approach_u)
+            } else {
+                f32::NAN
+            },
+            figure,
+        }
+    }
+}
+
 /// The 15-minute mean being formed.
 #[derive(Debug, Clone, Copy)]
 struct Bucket {
@@ -411,18 +429,13 @@ impl From<crate::wire::result::HeadlinePoint> for PeekedResult {
     /// (the same figures [`peek_result`] reads from the text, without reading it).
     fn from(h: crate::wire::result::HeadlinePoint) -> Self {
         let figure = Figure::of(Some(h.figure), Some(h.unit));
-        let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
         PeekedResult {
-            point: Some(Point {
-                t_ms: h.analysis_ts_ms,
-                value: num(h.value),
-                u: if figure == Figure::ApproachK {
-                    num(h.approach_uncertainty_k)
-                } else {
-                    f32::NAN
-                },
+            point: Some(Point::of(
+                h.analysis_ts_ms,
                 figure,
-            }),
+                h.value,
+                h.approach_uncertainty_k,
+            )),
         }
     }
 }
@@ -433,22 +446,11 @@ pub fn peek_result(payload: &str) -> Option<PeekedResult> {
     let peek = serde_json::from_str::<ResultPeek<'_>>(payload).ok()?;
     let headline = peek.headline.unwrap_or_default();
     let figure = Figure::of(headline.figure.as_deref(), headline.unit.as_deref());
-    let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
     let point = peek
         .analysis_ts
         .as_deref()
         .and_then(crate::timefmt::parse_rfc3339)
-        .map(|t_ms| Point {
-            t_ms,
-            value: num(headline.value),
-            // The band only around an approach (page_result leaves it out otherwise).
-            u: if figure == Figure::ApproachK {
-                num(peek.approach_uncertainty_k)
-            } else {
-                f32::NAN
-            },
-            figure,
-        });
+        .map(|t_ms| Point::of(t_ms, figure, headline.value, peek.approach_uncertainty_k));
     Some(PeekedResult { point })
 }
 
