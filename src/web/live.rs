@@ -74,30 +74,44 @@ impl Figure {
 }
 
 /// One figure at an analysis time; NaN where the result had none (a gap on the chart).
+/// 16 bytes: the time as whole seconds since 1970 (to 2106) and the milliseconds past
+/// them, not an i64 that pads the point to 24.
 #[derive(Debug, Clone, Copy, PartialEq)]
 struct Point {
-    t_ms: i64,
+    t_s: u32,
+    t_ms_part: u16,
+    figure: Figure,
     value: f32,
     /// ± of an approach (K); NaN otherwise.
     u: f32,
-    figure: Figure,
 }
 
 impl Point {
+    /// `None` for a time the point cannot hold (before 1970 or after 2106).
+    fn new(t_ms: i64, figure: Figure, value: f32, u: f32) -> Option<Self> {
+        Some(Point {
+            t_s: u32::try_from(t_ms.div_euclid(1000)).ok()?,
+            t_ms_part: u16::try_from(t_ms.rem_euclid(1000)).ok()?,
+            figure,
+            value,
+            u,
+        })
+    }
+
     /// A result's headline figure at its analysis time; the band only around an
     /// approach (page_result leaves it out otherwise).
-    fn of(t_ms: i64, figure: Figure, value: Option<f64>, approach_u: Option<f64>) -> Self {
+    fn of(t_ms: i64, figure: Figure, value: Option<f64>, approach_u: Option<f64>) -> Option<Self> {
         let num = |x: Option<f64>| x.map_or(f32::NAN, |x| x as f32);
-        Point {
-            t_ms,
-            value: num(value),
-            u: if figure == Figure::ApproachK {
-                num(approach_u)
-            } else {
-                f32::NAN
-            },
-            figure,
-        }
+        let u = if figure == Figure::ApproachK {
+            num(approach_u)
+        } else {
+            f32::NAN
+        };
+        Point::new(t_ms, figure, num(value), u)
+    }
+
+    fn t_ms(&self) -> i64 {
+        i64::from(self.t_s) * 1000 + i64::from(self.t_ms_part)
     }
 }
 
@@ -128,11 +142,11 @@ struct ReactorLive {
 impl ReactorLive {
     fn push(&mut self, p: Point) {
         // Out of order (a replayed record): the figures stand, the chart keeps its order.
-        if self.fine.back().is_some_and(|b| b.t_ms >= p.t_ms) {
+        if self.fine.back().is_some_and(|b| b.t_ms() >= p.t_ms()) {
             return;
         }
         push_bounded(&mut self.fine, p, FINE_POINTS);
-        let start = p.t_ms - p.t_ms.rem_euclid(COARSE_MS);
+        let start = p.t_ms() - p.t_ms().rem_euclid(COARSE_MS);
         if let Some(b) = self.bucket
             && (b.start_ms != start || b.figure != p.figure)
         {
@@ -165,13 +179,10 @@ impl ReactorLive {
                 f32::NAN
             }
         };
-        let p = Point {
-            t_ms: b.start_ms + COARSE_MS / 2,
-            value: mean(b.sum, b.n),
-            u: mean(b.sum_u, b.n_u),
-            figure: b.figure,
-        };
-        push_bounded(&mut self.coarse, p, COARSE_POINTS);
+        let mid_ms = b.start_ms + COARSE_MS / 2;
+        if let Some(p) = Point::new(mid_ms, b.figure, mean(b.sum, b.n), mean(b.sum_u, b.n_u)) {
+            push_bounded(&mut self.coarse, p, COARSE_POINTS);
+        }
     }
 }
 
@@ -378,9 +389,9 @@ impl Live {
         let r = &self.reactors[*self.index.get(id)?];
         let last = r.fine.back();
         let figure = last.map_or(Figure::None, |p| p.figure);
-        let to_ms = last.map_or(0, |p| p.t_ms);
+        let to_ms = last.map_or(0, Point::t_ms);
         let from_ms = to_ms - len_ms;
-        let fine_from = r.fine.front().map_or(i64::MAX, |p| p.t_ms);
+        let fine_from = r.fine.front().map_or(i64::MAX, Point::t_ms);
         let num = |x: f32| {
             if x.is_finite() {
                 json!((f64::from(x) * 1e4).round() / 1e4)
@@ -391,15 +402,15 @@ impl Live {
         let points: Vec<Value> = r
             .coarse
             .iter()
-            .filter(|p| p.t_ms < fine_from)
+            .filter(|p| p.t_ms() < fine_from)
             .chain(r.fine.iter())
-            .filter(|p| p.t_ms >= from_ms)
+            .filter(|p| p.t_ms() >= from_ms)
             .map(|p| {
                 // Another figure (the approach became not meaningful, say) is a gap.
                 if p.figure == figure {
-                    json!([p.t_ms, num(p.value), num(p.u)])
+                    json!([p.t_ms(), num(p.value), num(p.u)])
                 } else {
-                    json!([p.t_ms, null, null])
+                    json!([p.t_ms(), null, null])
                 }
             })
             .collect();
@@ -430,12 +441,7 @@ impl From<crate::wire::result::HeadlinePoint> for PeekedResult {
     fn from(h: crate::wire::result::HeadlinePoint) -> Self {
         let figure = Figure::of(Some(h.figure), Some(h.unit));
         PeekedResult {
-            point: Some(Point::of(
-                h.analysis_ts_ms,
-                figure,
-                h.value,
-                h.approach_uncertainty_k,
-            )),
+            point: Point::of(h.analysis_ts_ms, figure, h.value, h.approach_uncertainty_k),
         }
     }
 }
@@ -450,7 +456,7 @@ pub fn peek_result(payload: &str) -> Option<PeekedResult> {
         .analysis_ts
         .as_deref()
         .and_then(crate::timefmt::parse_rfc3339)
-        .map(|t_ms| Point::of(t_ms, figure, headline.value, peek.approach_uncertainty_k));
+        .and_then(|t_ms| Point::of(t_ms, figure, headline.value, peek.approach_uncertainty_k));
     Some(PeekedResult { point })
 }
 
@@ -593,7 +599,7 @@ mod tests {
         use crate::wire::fixtures::{AT_MS, lts1_each_headline};
         let bits = |p: PeekedResult| {
             p.point
-                .map(|p| (p.t_ms, p.value.to_bits(), p.u.to_bits(), p.figure))
+                .map(|p| (p.t_ms(), p.value.to_bits(), p.u.to_bits(), p.figure))
         };
         let mut figures = Vec::new();
         for (s, e) in &lts1_each_headline() {
@@ -616,22 +622,41 @@ mod tests {
     }
 
     #[test]
+    fn a_point_is_sixteen_bytes_and_keeps_its_time_to_the_millisecond() {
+        // 100 reactors hold 139,200 points: 16 bytes each instead of 24 is 1.1 MB less.
+        assert_eq!(POINT_BYTES, 16);
+        for t in [0, 999, T0_MS, T0_MS + 1, i64::from(u32::MAX) * 1000 + 999] {
+            let p = Point::new(t, Figure::ApproachK, 1.0, 0.5).expect("in range");
+            assert_eq!(p.t_ms(), t);
+        }
+        assert!(
+            Point::new(-1, Figure::ApproachK, 1.0, 0.5).is_none(),
+            "before 1970"
+        );
+        assert!(
+            Point::new(
+                (i64::from(u32::MAX) + 1) * 1000,
+                Figure::ApproachK,
+                1.0,
+                0.5
+            )
+            .is_none(),
+            "after 2106"
+        );
+    }
+
+    #[test]
     fn the_rings_never_hold_room_past_their_bound() {
         let mut ring = VecDeque::new();
-        let p = |t| Point {
-            t_ms: t,
-            value: 1.0,
-            u: f32::NAN,
-            figure: Figure::ApproachK,
-        };
+        let p = |t| Point::new(T0_MS + t, Figure::ApproachK, 1.0, f32::NAN).unwrap();
         for t in 0..2000 {
             push_bounded(&mut ring, p(t), FINE_POINTS);
             assert!(ring.capacity() <= FINE_POINTS, "{} at {t}", ring.capacity());
         }
         assert_eq!(ring.len(), FINE_POINTS);
         assert_eq!(
-            ring.front().map(|p| p.t_ms),
-            Some(2000 - FINE_POINTS as i64)
+            ring.front().map(Point::t_ms),
+            Some(T0_MS + 2000 - FINE_POINTS as i64)
         );
     }
 
