@@ -258,11 +258,19 @@ pub struct ReactionTerm {
     /// ν per gas species (zero for species not in the reaction).
     nu: Vec<f64>,
     delta_nu: f64,
+    /// The equation as written back ([`Reaction::canonical`]), made once: results and
+    /// reasons name the reaction on every analysis.
+    label: String,
 }
 
 impl ReactionTerm {
     pub fn nu(&self) -> &[f64] {
         &self.nu
+    }
+
+    /// The canonical equation, `CO + H2O = CO2 + H2`.
+    pub fn label(&self) -> &str {
+        &self.label
     }
 }
 
@@ -316,11 +324,13 @@ impl ReactorModel {
                 nu[pos] = n;
             }
             let delta_nu = r.delta_nu();
+            let label = r.canonical();
             terms.push(ReactionTerm {
                 reaction: r,
                 k,
                 nu,
                 delta_nu,
+                label,
             });
         }
         let eos_model = match eos {

@@ -130,6 +130,9 @@ pub struct EquilibriumSystem {
     n_reactive: usize,
     /// Atoms: row per reactive species, column per element used.
     atoms: Vec<Vec<f64>>,
+    /// The independent element rows when every element is present (the usual case),
+    /// found once here instead of by a rank test per element on every solve.
+    rows_all: Vec<usize>,
     potentials: Potentials,
     eos: Option<PengRobinson>,
 }
@@ -154,6 +157,23 @@ fn rank(m: &DMatrix<f64>) -> usize {
     }
     let scale = m.iter().fold(0.0f64, |a, x| a.max(x.abs())).max(1.0);
     m.clone().svd(false, false).rank(1e-9 * scale)
+}
+
+/// Independent element rows (columns of `atoms`, one row per reactive species) over the
+/// `present` species, in element order.
+fn independent_rows(atoms: &[Vec<f64>], el_present: &[bool], present: &[usize]) -> Vec<usize> {
+    let mut rows: Vec<usize> = Vec::new();
+    for j in (0..el_present.len()).filter(|&j| el_present[j]) {
+        let mut trial = rows.clone();
+        trial.push(j);
+        let m = DMatrix::from_fn(trial.len(), present.len(), |r, c| {
+            atoms[present[c]][trial[r]]
+        });
+        if rank(&m) == trial.len() {
+            rows = trial;
+        }
+    }
+    rows
 }
 
 impl EquilibriumSystem {
@@ -276,6 +296,8 @@ impl EquilibriumSystem {
             }
         }
         let names = species.iter().map(|&s| db.get(s).name.clone()).collect();
+        let all_species: Vec<usize> = (0..n_reactive).collect();
+        let rows_all = independent_rows(&atoms, &vec![true; used.len()], &all_species);
         let eos = match eos {
             EosKind::Ideal => None,
             EosKind::PengRobinson => Some(peng_robinson_for(db, &species, kij)?),
@@ -285,6 +307,7 @@ impl EquilibriumSystem {
             names,
             n_reactive,
             atoms,
+            rows_all,
             potentials,
             eos,
         })
@@ -429,7 +452,12 @@ impl EquilibriumSystem {
         let present: Vec<usize> = (0..n_reactive)
             .filter(|&i| (0..n_el).all(|j| self.atoms[i][j] == 0.0 || el_present[j]))
             .collect();
-        let rows = self.independent_rows(&el_present, &present);
+        // With every element present every reactive species is, and the rows are known.
+        let rows = if el_present.iter().all(|&p| p) {
+            self.rows_all.clone()
+        } else {
+            independent_rows(&self.atoms, &el_present, &present)
+        };
         let e = rows.len();
         let m = present.len();
         if e > MAX_ELEMENTS {
@@ -464,22 +492,6 @@ impl EquilibriumSystem {
             ln_n_lo: (total_atoms / max_atoms + n_inert).ln(),
             ln_n_hi: (total_atoms / min_atoms + n_inert).ln(),
         })
-    }
-
-    /// Independent element rows over the present species, in element order.
-    fn independent_rows(&self, el_present: &[bool], present: &[usize]) -> Vec<usize> {
-        let mut rows: Vec<usize> = Vec::new();
-        for j in (0..el_present.len()).filter(|&j| el_present[j]) {
-            let mut trial = rows.clone();
-            trial.push(j);
-            let m = DMatrix::from_fn(trial.len(), present.len(), |r, c| {
-                self.atoms[present[c]][trial[r]]
-            });
-            if rank(&m) == trial.len() {
-                rows = trial;
-            }
-        }
-        rows
     }
 
     /// μ°/RT of the reactive species at T and the ideal-gas g of the present ones.
@@ -996,6 +1008,28 @@ mod tests {
             let k = b.names().iter().position(|n| n == name).unwrap();
             assert!((ya - rb.mole_fractions[k]).abs() < 1e-12, "{name}");
         }
+    }
+
+    #[test]
+    fn a_feed_without_one_element_solves_over_the_elements_it_has() {
+        // No carbon in the feed: the rows found once for every element present do not
+        // apply, the per-feed search does. Steam and hydrogen alone do not react here
+        // (no species of H and O only besides these two), so they leave as they came
+        // and the carbon species stay at zero (element balance, common practice).
+        let db = SpeciesDb::builtin();
+        let sp = idx(&db, &["CH4", "H2O", "CO", "CO2", "H2"]);
+        let sys = EquilibriumSystem::from_species(&db, &sp, &[], EosKind::Ideal, None).unwrap();
+        assert_eq!(sys.rows_all.len(), 3, "C, H and O are independent");
+        let r = sys.solve(&db, 900.0, 20.0, &[0.0, 2.0, 0.0, 0.0, 1.0]);
+        assert!(r.converged, "{}", r.reason);
+        assert_eq!((r.moles[0], r.moles[2], r.moles[3]), (0.0, 0.0, 0.0));
+        assert!((r.moles[1] - 2.0).abs() < 1e-12 && (r.moles[4] - 1.0).abs() < 1e-12);
+        // And with carbon back the full set is used (the same answer as a fresh search).
+        let full = sys.solve(&db, 900.0, 20.0, &[1.0, 2.0, 0.0, 0.0, 1.0]);
+        assert!(full.converged, "{}", full.reason);
+        let c_in = 1.0;
+        let c_out = full.moles[0] + full.moles[2] + full.moles[3];
+        assert!((c_out - c_in).abs() < 1e-12, "carbon {c_out}");
     }
 
     #[test]

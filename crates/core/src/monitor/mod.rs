@@ -899,7 +899,7 @@ impl ReactorMonitor {
         }
         for (i, term) in model.reactions().iter().enumerate() {
             let ap = model.evaluate(i, state, &self.scratch, &spec.uncertainty);
-            let label = term.reaction.canonical();
+            let label = term.label();
             if ap.flags.has(Flags::ZERO_COMPONENT) {
                 case.found.push(
                 ReasonCode::ZeroComponent,
@@ -1439,7 +1439,7 @@ fn not_meaningful_below_detection(s: &ReactorSpec, eval: &mut Evaluation, found:
             Quality::Good,
             format!(
                 "{}: equilibrium {c} is {} ({} basis), below the {} detection limit of {}, so no analysis can show the approach; watch the measured {c} slip against its limit instead",
-                term.reaction.canonical(),
+                term.label(),
                 fmt_fraction(eq),
                 basis.as_str(),
                 s.composition.tag,

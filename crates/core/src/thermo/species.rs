@@ -421,6 +421,17 @@ impl SpeciesDb {
 
     /// Case-insensitive look-up by name.
     pub fn index_of(&self, name: &str) -> Option<usize> {
+        // Names are keyed in lower case; a short one is lowered on the stack (this runs
+        // for every species of every analysis).
+        let mut buf = [0u8; 32];
+        if let Some(key) = buf.get_mut(..name.len()) {
+            key.copy_from_slice(name.as_bytes());
+            key.make_ascii_lowercase();
+            // ASCII lowering keeps UTF-8 valid; the fallback is never taken in practice.
+            if let Ok(key) = std::str::from_utf8(key) {
+                return self.by_name.get(key).copied();
+            }
+        }
         self.by_name.get(&name.to_ascii_lowercase()).copied()
     }
 
