@@ -203,7 +203,7 @@ pub struct Journal {
     /// Tests: every write fails as on a full disk.
     #[cfg(test)]
     fail_writes: bool,
-    /// Reused buffer for one line.
+    /// Reused buffer for the head of one line (the payload goes straight to `pending`).
     line: String,
     dropped_records: u64,
     dropped_unpublished: u64,
@@ -510,22 +510,25 @@ impl Journal {
         retain: bool,
         payload: &str,
     ) -> Result<(), JournalError> {
-        let mut line = std::mem::take(&mut self.line);
-        line.clear();
-        write_line_prefix(&mut line, seq, ts_ms, topic, retain);
-        line.push_str(payload);
-        line.push_str("}\n");
-        let len = line.len() as u64;
+        // The short head is formed apart; the payload (kilobytes) is copied once, into
+        // the pending bytes.
+        let mut head = std::mem::take(&mut self.line);
+        head.clear();
+        write_line_prefix(&mut head, seq, ts_ms, topic, retain);
+        const TAIL: &str = "}\n";
+        let len = (head.len() + payload.len() + TAIL.len()) as u64;
         let r = self
             .select_segment(day, seq, len)
             .and_then(|()| self.make_room(len));
         if r.is_ok() {
-            self.pending.extend_from_slice(line.as_bytes());
+            self.pending.extend_from_slice(head.as_bytes());
+            self.pending.extend_from_slice(payload.as_bytes());
+            self.pending.extend_from_slice(TAIL.as_bytes());
             if let Some(seg) = self.segments.last_mut() {
                 seg.bytes += len;
             }
         }
-        self.line = line;
+        self.line = head;
         r
     }
 
