@@ -1,5 +1,6 @@
 //! A minimal HTTP/1.1 endpoint for `/metrics` (Prometheus text), `/healthz` (the
-//! process runs) and `/readyz` (connected to the broker and the journal writable), and
+//! process runs) and `/readyz` (connected to the broker, the input subscriptions
+//! acknowledged and the journal writable), and
 //! the live page (`/`, `/api/...`, `page.rs`). One request per connection, head and
 //! body within fixed sizes and one time limit; bound to loopback by default.
 
@@ -213,7 +214,37 @@ fn not_ready(metrics: &Metrics) -> Option<String> {
         ))
     } else if !(metrics.connected.load(Relaxed) && metrics.input_connected.load(Relaxed)) {
         Some("broker not connected".into())
+    } else if !metrics.input_subscribed.load(Relaxed) {
+        Some("input subscriptions not yet acknowledged by the broker".into())
     } else {
         None
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use std::sync::atomic::Ordering::Relaxed;
+
+    use super::not_ready;
+    use crate::pipeline::metrics::Metrics;
+
+    #[test]
+    fn ready_only_once_both_connections_are_up_and_the_inputs_subscribed() {
+        let m = Metrics::new(&["r1".to_string()]);
+        assert_eq!(not_ready(&m).as_deref(), Some("starting"));
+        m.ready.store(true, Relaxed);
+        assert_eq!(not_ready(&m).as_deref(), Some("broker not connected"));
+        m.connected.store(true, Relaxed);
+        m.input_connected.store(true, Relaxed);
+        // Connected, but an input published now could reach the broker before the
+        // daemon's SUBSCRIBE and be lost: not ready yet.
+        assert_eq!(
+            not_ready(&m).as_deref(),
+            Some("input subscriptions not yet acknowledged by the broker")
+        );
+        m.input_subscribed.store(true, Relaxed);
+        assert_eq!(not_ready(&m), None);
+        m.journal_held.store(3, Relaxed);
+        assert!(not_ready(&m).is_some_and(|w| w.starts_with("journal cannot be written")));
     }
 }

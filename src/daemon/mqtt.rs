@@ -434,6 +434,9 @@ impl InputLink {
         // Topics left by a reload while the connection was down: a persistent session at
         // the broker still holds them, so they are unsubscribed at the next connection.
         let mut leave: Vec<String> = Vec::new();
+        // SUBSCRIBE requests of this connection not yet acknowledged; readiness waits
+        // for them (an input published before its SUBACK may never arrive).
+        let mut awaiting: usize = 0;
         loop {
             tokio::select! {
                 // Poll only while the evaluator can take a message: otherwise the messages
@@ -441,15 +444,19 @@ impl InputLink {
                 ev = eventloop.poll(), if input.capacity() > 0 => match ev {
                     Ok(Event::Incoming(Incoming::ConnAck(ack))) => {
                         metrics.input_connected.store(true, Relaxed);
+                        metrics.input_subscribed.store(false, Relaxed);
                         conn.up(ack.session_present);
+                        awaiting = 0;
                         // Subscribe on every connection: a broker may claim a session it
                         // does not have (or lost), and subscribing again is harmless
                         // (retained repeats are refused as duplicates by the monitor).
                         for t in &this.topics {
-                            if let Err(e) = client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
-                                warn!(topic = %t, error = %e, "subscribe request not queued");
+                            match client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
+                                Ok(()) => awaiting += 1,
+                                Err(e) => warn!(topic = %t, error = %e, "subscribe request not queued"),
                             }
                         }
+                        metrics.input_subscribed.store(awaiting == 0, Relaxed);
                         for t in leave.drain(..).filter(|t| !this.topics.contains(t)) {
                             if let Err(e) = client.try_unsubscribe(t.clone()) {
                                 warn!(topic = %t, error = %e, "unsubscribe request not queued");
@@ -480,10 +487,15 @@ impl InputLink {
                         if s.return_codes.iter().any(|c| matches!(c, rumqttc::SubscribeReasonCode::Failure)) {
                             warn!("the broker refused a subscription (check its ACL)");
                         }
+                        awaiting = awaiting.saturating_sub(1);
+                        if awaiting == 0 {
+                            metrics.input_subscribed.store(true, Relaxed);
+                        }
                     }
                     Ok(_) => {}
                     Err(e) => {
                         metrics.input_connected.store(false, Relaxed);
+                        metrics.input_subscribed.store(false, Relaxed);
                         metrics.input_reconnects.fetch_add(1, Relaxed);
                         let delay = conn.lost(&e);
                         tokio::select! {
@@ -502,9 +514,13 @@ impl InputLink {
                     None => changes_open = false,
                     Some(c) => {
                         let up = conn.since.is_some() && metrics.input_connected.load(Relaxed);
-                        for t in &c.subscribe {
-                            if up && let Err(e) = client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
-                                warn!(topic = %t, error = %e, "subscribe request not queued");
+                        for t in c.subscribe.iter().filter(|_| up) {
+                            match client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
+                                Ok(()) => {
+                                    awaiting += 1;
+                                    metrics.input_subscribed.store(false, Relaxed);
+                                }
+                                Err(e) => warn!(topic = %t, error = %e, "subscribe request not queued"),
                             }
                         }
                         for t in &c.unsubscribe {
@@ -529,6 +545,7 @@ impl InputLink {
             disconnect(&client, &mut eventloop).await;
         }
         metrics.input_connected.store(false, Relaxed);
+        metrics.input_subscribed.store(false, Relaxed);
     }
 }
 

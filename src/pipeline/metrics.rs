@@ -45,6 +45,9 @@ pub struct Metrics {
     /// The input connection (subscriptions): losses and state.
     pub input_reconnects: AtomicU64,
     pub input_connected: AtomicBool,
+    /// Every subscription asked for on the current input connection is acknowledged
+    /// (SUBACK): inputs published from now on reach the daemon.
+    pub input_subscribed: AtomicBool,
     pub ready: AtomicBool,
     pub journal_last_seq: AtomicU64,
     pub journal_published_seq: AtomicU64,

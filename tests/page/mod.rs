@@ -135,12 +135,20 @@ fn page_alarm(port: u16) -> (String, String) {
 }
 
 /// The daemon's links are up (its HTTP port opens before they connect).
-fn wait_online(got: &Received) {
+/// Online (the result connection) and ready: `/readyz` answers only once the broker
+/// has acknowledged every input subscription, so what the test publishes next arrives.
+fn wait_online(got: &Received, http: u16) {
     assert!(
         wait_for(got, Duration::from_secs(15), |m| m.iter().any(
             |(t, pl, _)| t == "eqwatch/test/status" && pl.contains("online")
         )),
         "daemon not online"
+    );
+    assert!(
+        wait_until(Duration::from_secs(15), || http_get(http, "/readyz")
+            == "ready\n"),
+        "daemon not ready: {}",
+        http_get(http, "/readyz")
     );
 }
 
@@ -165,7 +173,7 @@ fn page_commands_need_a_session_and_the_permission_and_take_the_mqtt_path() {
     let got = collector(&rt, broker.port, &["eqwatch/test/#"]);
     let _d = Daemon::start(&config, http);
     let p = Publisher::new(&rt, broker.port);
-    wait_online(&got);
+    wait_online(&got, http);
     publish_lts_set(&p, &rt);
     // The result reaches the page's snapshot: 12.00 K (docs/domain.md §8), alarm raised.
     assert!(
@@ -333,7 +341,7 @@ fn a_headless_browser_renders_the_reactors_figures_and_their_updates() {
     let got = collector(&rt, broker.port, &["eqwatch/test/status"]);
     let _d = Daemon::start(&config, http);
     let p = Publisher::new(&rt, broker.port);
-    wait_online(&got);
+    wait_online(&got, http);
     publish_lts_set(&p, &rt);
     assert!(wait_until(Duration::from_secs(15), || {
         lts(&plant(http))["result"].is_object()
@@ -469,7 +477,7 @@ fn a_permitted_user_shelves_and_unshelves_an_alarm_from_the_page_in_a_real_brows
     let got = collector(&rt, broker.port, &["eqwatch/test/#"]);
     let _d = Daemon::start(&config, http);
     let p = Publisher::new(&rt, broker.port);
-    wait_online(&got);
+    wait_online(&got, http);
     // 12.00 K against the 10 K limit (docs/domain.md §8): the alarm is raised.
     publish_lts_set(&p, &rt);
     assert!(
