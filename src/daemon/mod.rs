@@ -370,21 +370,12 @@ fn journal_thread(
     let _ = to_link.blocking_send(ToLink::JournalAt(j.last_seq()));
     while let Some(cmd) = rx.blocking_recv() {
         let mut ok = true;
-        // The link tells the watermark by message only now and then (each message is a
-        // wake-up of this thread); in between it is read here from the metrics.
-        let told = metrics.journal_published_seq.load(Relaxed);
-        if told > j.published_seq()
-            && told <= j.last_seq()
-            && let Err(e) = j.mark_published(told, clock(), false)
-        {
-            ok = false;
-            trouble.report(&e, j.held(), &metrics);
-        }
         match cmd {
             JournalCmd::Append(items) => {
-                // One write for the whole batch (see `Journal::append_batch`).
+                // One write for the whole batch (see `Journal::append_batch`); the due
+                // fsync only after the records are on their way to the broker.
                 let now = clock();
-                let batch = j.append_batch(
+                let batch = j.write_batch(
                     now,
                     items
                         .iter()
@@ -394,6 +385,7 @@ fn journal_thread(
                 for e in &batch.errors {
                     trouble.report(e, j.held(), &metrics);
                 }
+                let wrote = batch.seqs.iter().any(Option::is_some);
                 let mut out = Vec::with_capacity(items.len());
                 for (
                     Append {
@@ -419,6 +411,10 @@ fn journal_thread(
                 }
                 if !out.is_empty() {
                     let _ = to_link.blocking_send(ToLink::Records(out));
+                }
+                if let Err(e) = j.sync_if_due(now, wrote) {
+                    ok = false;
+                    trouble.report(&e, j.held(), &metrics);
                 }
             }
             JournalCmd::Published { seq, force } => {
@@ -467,6 +463,18 @@ fn journal_thread(
                     trouble.report(&e, j.held(), &metrics);
                 }
             }
+        }
+        // The link tells the watermark by message only now and then (each message is a
+        // wake-up of this thread); in between it is read here from the metrics. After the
+        // command: a due cursor write (two files, each fsynced) must not hold back the
+        // records just handed to the link.
+        let told = metrics.journal_published_seq.load(Relaxed);
+        if told > j.published_seq()
+            && told <= j.last_seq()
+            && let Err(e) = j.mark_published(told, clock(), false)
+        {
+            ok = false;
+            trouble.report(&e, j.held(), &metrics);
         }
         if ok && j.held() == 0 {
             trouble.recovered();
