@@ -38,7 +38,8 @@
 //!
 //! `EQWATCH_E2E_QUICK=1` runs a tenth of the messages (for checking the harness).
 //! `EQWATCH_BIN` overrides the daemon binary; `EQWATCH_E2E_INFLIGHT` its QoS 1 window
-//! (`broker.inflight`, default 64). `EQWATCH_E2E_PYTHON` is the Python
+//! (`broker.inflight`, default 64), `EQWATCH_E2E_FSYNC` its `journal.fsync_interval`
+//! (default "1 s"). `EQWATCH_E2E_PYTHON` is the Python
 //! interpreter for (5) (default `.venv-bench/bin/python` when it exists; `0` or an
 //! interpreter that is missing skips (5)); `scripts/bench_e2e.sh` makes that venv.
 
@@ -575,6 +576,9 @@ fn write_config(dir: &Path, broker_port: u16, http_port: u16) -> PathBuf {
         .ok()
         .and_then(|v| v.parse().ok())
         .unwrap_or(64);
+    // The journal's fsync period; EQWATCH_E2E_FSYNC (e.g. "1 h") shows what the syncs
+    // cost in latency.
+    let fsync = std::env::var("EQWATCH_E2E_FSYNC").unwrap_or_else(|_| "1 s".into());
     let mut s = format!(
         r#"site = "{SITE}"
 [broker]
@@ -588,7 +592,7 @@ inflight = {inflight}
 max_packet_bytes = 262144
 [journal]
 dir = "journal"
-fsync_interval = "1 s"
+fsync_interval = "{fsync}"
 [http]
 listen = "127.0.0.1:{http_port}"
 "#
@@ -891,6 +895,20 @@ impl Report {
             &mut t,
             "   max (ms)",
             format!("{:.2}", max(&self.lat_ms)),
+            "",
+        );
+        // Where the tail starts, beside the relay's (a do-nothing republisher).
+        let tail = |l: &[f64]| format!("{:.2} / {:.2} / {:.2}", p(l, 90.0), p(l, 95.0), p(l, 99.9));
+        row(
+            &mut t,
+            "   p90 / p95 / p99.9, eqwatch (ms)",
+            tail(&self.lat_ms),
+            "",
+        );
+        row(
+            &mut t,
+            "   p90 / p95 / p99.9, relay (ms)",
+            tail(&self.relay_lat_ms),
             "",
         );
         row(
