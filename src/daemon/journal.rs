@@ -22,7 +22,10 @@
 //! be written refuses [`Journal::open`].
 //!
 //! Plain synchronous std I/O, meant for a dedicated thread. No clock is read here: every
-//! call that depends on time takes `now_ms` (Unix epoch milliseconds, UTC).
+//! call that depends on time takes `now_ms` (Unix epoch milliseconds, UTC). The daemon
+//! moves the periodic fsync and cursor writes to a second thread
+//! ([`Journal::defer_syncs`]) so that no result waits behind them on its way to the
+//! broker; the promise (written before offered, fsynced within `fsync_interval`) holds.
 
 use std::cell::RefCell;
 use std::collections::{HashSet, VecDeque};
@@ -171,6 +174,9 @@ struct Segment {
 /// The journal: the segment files of one directory and the two cursors.
 #[derive(Debug)]
 pub struct Journal {
+    /// Where the periodic fsync and cursor writes go when they are done off the
+    /// journal's thread ([`Journal::defer_syncs`]); `None`: done in line.
+    syncer: Option<Syncer>,
     dir: PathBuf,
     max_file_bytes: u64,
     max_total_bytes: u64,
@@ -313,6 +319,7 @@ impl Journal {
             truncated_lines,
             corrupt_seen: RefCell::new(corrupt_seen),
             _lock: lock,
+            syncer: None,
         };
         if journal.persisted_last != journal.last_seq {
             journal.write_cursor(LAST_FILE, journal.last_seq)?;
@@ -427,10 +434,53 @@ impl Journal {
     /// (`wrote`).
     pub fn sync_if_due(&mut self, now_ms: i64, wrote: bool) -> Result<(), JournalError> {
         if self.held.is_empty() && wrote && self.fsync_due(now_ms) {
-            self.sync_current()?;
+            match (&self.syncer, self.current.as_ref(), self.segments.last()) {
+                (Some(syncer), Some(file), Some(seg)) if self.unsynced => {
+                    let file = file.try_clone().map_err(|source| JournalError::Io {
+                        path: seg.path.clone(),
+                        action: "open a second handle for fsync",
+                        source,
+                    })?;
+                    syncer.send(SyncJob::Data {
+                        file,
+                        path: seg.path.clone(),
+                    });
+                    self.unsynced = false;
+                }
+                _ => self.sync_current()?,
+            }
             self.last_fsync_ms = now_ms;
         }
         Ok(())
+    }
+
+    /// From now on the periodic fsync of the segment ([`Self::sync_if_due`]) and the
+    /// periodic cursor writes ([`Self::mark_published`] without `force`) are done by a
+    /// thread of their own: a result handed to the link never waits behind them (each
+    /// is one or more fsyncs, milliseconds on a busy disk). The promise is unchanged:
+    /// they start when due, in order; rotation, recovery, forced and shutdown writes
+    /// stay in line and first wait for what is queued. Failures come back through
+    /// [`Self::sync_errors`].
+    pub fn defer_syncs(&mut self) -> io::Result<()> {
+        if self.syncer.is_none() {
+            self.syncer = Some(Syncer::start()?);
+        }
+        Ok(())
+    }
+
+    /// Failures of deferred syncs since the last call (empty without [`Self::defer_syncs`]).
+    pub fn sync_errors(&self) -> Vec<JournalError> {
+        self.syncer
+            .as_ref()
+            .map_or_else(Vec::new, |s| s.errors.try_iter().collect())
+    }
+
+    /// Waits until every deferred sync queued so far is done (before a write in line
+    /// touches the same files).
+    fn settle(&self) {
+        if let Some(syncer) = &self.syncer {
+            syncer.settle();
+        }
     }
 
     /// Writes the held records to disk, oldest first (one write each: this is the
@@ -584,12 +634,16 @@ impl Journal {
         if !due {
             return Ok(());
         }
+        let defer = !force && self.syncer.is_some();
+        if !defer {
+            self.settle();
+        }
         if force || self.persisted_published != self.published_seq {
-            self.write_cursor(PUBLISHED_FILE, self.published_seq)?;
+            self.put_cursor(PUBLISHED_FILE, self.published_seq, defer)?;
             self.persisted_published = self.published_seq;
         }
         if self.persisted_last != self.last_seq {
-            self.write_cursor(LAST_FILE, self.last_seq)?;
+            self.put_cursor(LAST_FILE, self.last_seq, defer)?;
             self.persisted_last = self.last_seq;
         }
         self.last_cursor_ms = now_ms;
@@ -688,6 +742,7 @@ impl Journal {
     /// Fsyncs the current segment now and writes any cursor change not yet on disk
     /// (for shutdown).
     pub fn sync(&mut self) -> Result<(), JournalError> {
+        self.settle();
         self.sync_current()?;
         if self.persisted_published != self.published_seq {
             self.write_cursor(PUBLISHED_FILE, self.published_seq)?;
@@ -828,27 +883,57 @@ impl Journal {
     }
 
     /// Replaces a cursor file atomically: temporary file, fsync, rename, fsync directory.
-    fn write_cursor(&self, name: &str, value: u64) -> Result<(), JournalError> {
-        let path = self.dir.join(name);
-        let tmp = self.dir.join(format!("{name}{TMP_SUFFIX}"));
-        let io_err = |action, source| JournalError::Io {
-            path: tmp.clone(),
-            action,
-            source,
-        };
-        let mut file = File::create(&tmp).map_err(|e| io_err("create", e))?;
-        file.write_all(format!("{value}\n").as_bytes())
-            .map_err(|e| io_err("write", e))?;
-        file.sync_all().map_err(|e| io_err("fsync", e))?;
-        drop(file);
-        fs::rename(&tmp, &path).map_err(|source| JournalError::Io {
-            path: path.clone(),
-            action: "replace (rename into place)",
-            source,
-        })?;
-        sync_dir(&self.dir)
+    /// A cursor write, queued for the syncer (`defer`) or done now.
+    fn put_cursor(&self, name: &'static str, value: u64, defer: bool) -> Result<(), JournalError> {
+        match (&self.syncer, defer) {
+            (Some(syncer), true) => {
+                // Paths made here: the syncer thread does not allocate (a thread's first
+                // allocation gives it a heap arena of its own, a few hundred KB resident).
+                syncer.send(SyncJob::Cursor {
+                    path: self.dir.join(name),
+                    tmp: self.dir.join(format!("{name}{TMP_SUFFIX}")),
+                    dir: self.dir.clone(),
+                    value,
+                });
+                Ok(())
+            }
+            _ => self.write_cursor(name, value),
+        }
     }
 
+    fn write_cursor(&self, name: &str, value: u64) -> Result<(), JournalError> {
+        write_cursor_in(&self.dir, name, value)
+    }
+}
+
+/// Replaces cursor file `name` in `dir` atomically (temporary file, fsync, rename, fsync
+/// of the folder).
+fn write_cursor_in(dir: &Path, name: &str, value: u64) -> Result<(), JournalError> {
+    let path = dir.join(name);
+    let tmp = dir.join(format!("{name}{TMP_SUFFIX}"));
+    replace_cursor(dir, &path, &tmp, value)
+}
+
+/// [`write_cursor_in`] with its paths made (allocates nothing unless it fails).
+fn replace_cursor(dir: &Path, path: &Path, tmp: &Path, value: u64) -> Result<(), JournalError> {
+    let io_err = |action, source| JournalError::Io {
+        path: tmp.to_path_buf(),
+        action,
+        source,
+    };
+    let mut file = File::create(tmp).map_err(|e| io_err("create", e))?;
+    writeln!(file, "{value}").map_err(|e| io_err("write", e))?;
+    file.sync_all().map_err(|e| io_err("fsync", e))?;
+    drop(file);
+    fs::rename(tmp, path).map_err(|source| JournalError::Io {
+        path: path.to_path_buf(),
+        action: "replace (rename into place)",
+        source,
+    })?;
+    sync_dir(dir)
+}
+
+impl Journal {
     fn note_corrupt(&self, first_seq: u64, offset: u64) {
         self.corrupt_seen.borrow_mut().insert((first_seq, offset));
     }
@@ -857,7 +942,79 @@ impl Journal {
 impl Drop for Journal {
     fn drop(&mut self) {
         // Best effort; `sync` is the way to learn about failures.
+        self.settle();
         let _ = self.sync_current();
+    }
+}
+
+/// A deferred sync (see [`Journal::defer_syncs`]).
+#[derive(Debug)]
+enum SyncJob {
+    /// fsync (data) of a segment, through a second handle of the open file.
+    Data { file: File, path: PathBuf },
+    Cursor {
+        path: PathBuf,
+        tmp: PathBuf,
+        dir: PathBuf,
+        value: u64,
+    },
+    /// Answered once everything queued before it is done.
+    Settle(std::sync::mpsc::SyncSender<()>),
+}
+
+/// The thread that does the journal's periodic syncs, in the order queued.
+#[derive(Debug)]
+struct Syncer {
+    jobs: std::sync::mpsc::Sender<SyncJob>,
+    errors: std::sync::mpsc::Receiver<JournalError>,
+}
+
+impl Syncer {
+    fn start() -> io::Result<Self> {
+        let (jobs, todo) = std::sync::mpsc::channel::<SyncJob>();
+        let (report, errors) = std::sync::mpsc::channel();
+        std::thread::Builder::new()
+            .name("eqwatch-fsync".into())
+            .spawn(move || {
+                // Ends when the journal (the only sender) is gone.
+                for job in todo {
+                    let r = match job {
+                        SyncJob::Data { file, path } => {
+                            file.sync_data().map_err(|source| JournalError::Io {
+                                path,
+                                action: "fsync",
+                                source,
+                            })
+                        }
+                        SyncJob::Cursor {
+                            path,
+                            tmp,
+                            dir,
+                            value,
+                        } => replace_cursor(&dir, &path, &tmp, value),
+                        SyncJob::Settle(done) => {
+                            let _ = done.send(());
+                            Ok(())
+                        }
+                    };
+                    if let Err(e) = r {
+                        let _ = report.send(e);
+                    }
+                }
+            })?;
+        Ok(Syncer { jobs, errors })
+    }
+
+    fn send(&self, job: SyncJob) {
+        // The thread ends only with this sender, so the send cannot fail while `self` lives.
+        let _ = self.jobs.send(job);
+    }
+
+    fn settle(&self) {
+        // Bounded: its one slot is made here, so the answer allocates nothing there.
+        let (done, wait) = std::sync::mpsc::sync_channel(1);
+        self.send(SyncJob::Settle(done));
+        let _ = wait.recv();
     }
 }
 
@@ -1272,6 +1429,44 @@ mod tests {
         // append_batch (the write and the due fsync in one) keeps its promise.
         j.append_batch(T0 + 2000, [("t", false, p3.as_str())]);
         assert!(!j.unsynced);
+    }
+
+    #[test]
+    fn deferred_syncs_happen_in_order_off_the_thread_and_forced_writes_wait_for_them() {
+        let tmp = tempfile::tempdir().expect("tempdir");
+        let s = settings(tmp.path(), 1 << 20, 1 << 24, 1000);
+        let mut j = Journal::open(&s, T0).expect("open");
+        j.defer_syncs().expect("syncer thread");
+        let cursor = |name: &str| fs::read_to_string(s.dir.join(name)).unwrap_or_default();
+        let (p1, p2, p3) = (payload(1), payload(2), payload(3));
+        j.write_batch(
+            T0 + 1000,
+            [("t", false, p1.as_str()), ("t", false, p2.as_str())],
+        );
+        j.sync_if_due(T0 + 1000, true).expect("queued");
+        assert!(!j.unsynced, "the fsync is queued, not owed");
+        // A periodic cursor write is queued; once the syncer has settled it is on disk.
+        j.mark_published(1, T0 + 1000, false).expect("queued");
+        j.settle();
+        assert_eq!(cursor(PUBLISHED_FILE), "1\n");
+        assert_eq!(cursor(LAST_FILE), "2\n");
+        // Queued, then forced at once: the forced write waits for the queued one, so
+        // the file ends with the newer value whatever the timing.
+        j.write_batch(T0 + 2000, [("t", false, p3.as_str())]);
+        j.mark_published(2, T0 + 2000, false).expect("queued");
+        j.mark_published(3, T0 + 2000, true)
+            .expect("forced, in line");
+        assert_eq!(cursor(PUBLISHED_FILE), "3\n");
+        assert!(j.sync_errors().is_empty());
+        // A failure on the syncer comes back (the folder is gone: the cursor cannot be
+        // replaced).
+        let p4 = payload(4);
+        j.write_batch(T0 + 3000, [("t", false, p4.as_str())]);
+        fs::remove_dir_all(&s.dir).expect("remove the journal folder");
+        j.mark_published(4, T0 + 4000, false).expect("queued");
+        j.settle();
+        let errors = j.sync_errors();
+        assert!(!errors.is_empty(), "the failed cursor writes are reported");
     }
 
     #[test]

@@ -366,10 +366,19 @@ fn journal_thread(
         cap: memory_cap,
         ..Trouble::default()
     };
+    // The periodic fsync and cursor writes on a thread of their own: results do not
+    // wait behind them (without it they are done here, as before).
+    if let Err(e) = j.defer_syncs() {
+        warn!(error = %e, "journal syncs stay on the journal thread (no thread for them)");
+    }
     update(&j);
     let _ = to_link.blocking_send(ToLink::JournalAt(j.last_seq()));
     while let Some(cmd) = rx.blocking_recv() {
         let mut ok = true;
+        for e in j.sync_errors() {
+            ok = false;
+            trouble.report(&e, j.held(), &metrics);
+        }
         match cmd {
             JournalCmd::Append(items) => {
                 // One write for the whole batch (see `Journal::append_batch`); the due
