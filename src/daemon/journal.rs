@@ -882,39 +882,45 @@ impl Journal {
         }
     }
 
-    /// Replaces a cursor file atomically: temporary file, fsync, rename, fsync directory.
     /// A cursor write, queued for the syncer (`defer`) or done now.
     fn put_cursor(&self, name: &'static str, value: u64, defer: bool) -> Result<(), JournalError> {
+        let (path, tmp) = self.cursor_paths(name);
         match (&self.syncer, defer) {
+            // The paths are made here, on the journal's thread; the syncer only makes
+            // the system calls.
             (Some(syncer), true) => {
-                // Paths made here: the syncer thread does not allocate (a thread's first
-                // allocation gives it a heap arena of its own, a few hundred KB resident).
                 syncer.send(SyncJob::Cursor {
-                    path: self.dir.join(name),
-                    tmp: self.dir.join(format!("{name}{TMP_SUFFIX}")),
+                    path,
+                    tmp,
                     dir: self.dir.clone(),
                     value,
                 });
                 Ok(())
             }
-            _ => self.write_cursor(name, value),
+            _ => replace_cursor(&self.dir, &path, &tmp, value),
         }
     }
 
     fn write_cursor(&self, name: &str, value: u64) -> Result<(), JournalError> {
-        write_cursor_in(&self.dir, name, value)
+        let (path, tmp) = self.cursor_paths(name);
+        replace_cursor(&self.dir, &path, &tmp, value)
+    }
+
+    /// A cursor file and the temporary file it is replaced through.
+    fn cursor_paths(&self, name: &str) -> (PathBuf, PathBuf) {
+        (
+            self.dir.join(name),
+            self.dir.join(format!("{name}{TMP_SUFFIX}")),
+        )
+    }
+
+    fn note_corrupt(&self, first_seq: u64, offset: u64) {
+        self.corrupt_seen.borrow_mut().insert((first_seq, offset));
     }
 }
 
-/// Replaces cursor file `name` in `dir` atomically (temporary file, fsync, rename, fsync
-/// of the folder).
-fn write_cursor_in(dir: &Path, name: &str, value: u64) -> Result<(), JournalError> {
-    let path = dir.join(name);
-    let tmp = dir.join(format!("{name}{TMP_SUFFIX}"));
-    replace_cursor(dir, &path, &tmp, value)
-}
-
-/// [`write_cursor_in`] with its paths made (allocates nothing unless it fails).
+/// Replaces cursor file `path` in `dir` atomically: the value into `tmp`, fsync, rename
+/// into place, fsync of the folder.
 fn replace_cursor(dir: &Path, path: &Path, tmp: &Path, value: u64) -> Result<(), JournalError> {
     let io_err = |action, source| JournalError::Io {
         path: tmp.to_path_buf(),
@@ -931,12 +937,6 @@ fn replace_cursor(dir: &Path, path: &Path, tmp: &Path, value: u64) -> Result<(),
         source,
     })?;
     sync_dir(dir)
-}
-
-impl Journal {
-    fn note_corrupt(&self, first_seq: u64, offset: u64) {
-        self.corrupt_seen.borrow_mut().insert((first_seq, offset));
-    }
 }
 
 impl Drop for Journal {

@@ -514,13 +514,15 @@ impl InputLink {
                     None => changes_open = false,
                     Some(c) => {
                         let up = conn.since.is_some() && metrics.input_connected.load(Relaxed);
-                        for t in c.subscribe.iter().filter(|_| up) {
-                            match client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
-                                Ok(()) => {
-                                    awaiting += 1;
-                                    metrics.input_subscribed.store(false, Relaxed);
+                        if up {
+                            for t in &c.subscribe {
+                                match client.try_subscribe(t.clone(), QoS::AtLeastOnce) {
+                                    Ok(()) => {
+                                        awaiting += 1;
+                                        metrics.input_subscribed.store(false, Relaxed);
+                                    }
+                                    Err(e) => warn!(topic = %t, error = %e, "subscribe request not queued"),
                                 }
-                                Err(e) => warn!(topic = %t, error = %e, "subscribe request not queued"),
                             }
                         }
                         for t in &c.unsubscribe {

@@ -212,20 +212,23 @@ impl Outbox {
     }
 }
 
+/// A retained record `seq` on topic `t` with an empty object, for tests here and of the
+/// result link.
+#[cfg(test)]
+pub(super) fn rec(seq: u64) -> Outgoing {
+    Outgoing {
+        seq,
+        ts_ms: 0,
+        topic: "t".into(),
+        retain: true,
+        payload: "{}".into(),
+        replayed: false,
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    fn rec(seq: u64) -> Outgoing {
-        Outgoing {
-            seq,
-            ts_ms: 0,
-            topic: "t".into(),
-            retain: true,
-            payload: "{}".into(),
-            replayed: false,
-        }
-    }
 
     fn send_all(o: &mut Outbox, window: usize) -> Vec<u64> {
         let mut sent = Vec::new();

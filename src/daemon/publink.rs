@@ -879,7 +879,7 @@ mod tests {
     fn the_journal_is_told_the_watermark_at_most_once_per_period_and_never_left_untold() {
         use super::{Duty, Outbox, TELL_JOURNAL};
         use crate::daemon::JournalCmd;
-        use crate::daemon::outbox::Outgoing;
+        use crate::daemon::outbox::rec;
         use std::sync::Arc;
         use std::time::{Duration, Instant};
         let (tx, mut rx) = tokio::sync::mpsc::channel(16);
@@ -899,15 +899,7 @@ mod tests {
         };
         // Records 1..=3 handed to the broker as packets 1..=3.
         for seq in 1..=3u64 {
-            let r = Outgoing {
-                seq,
-                ts_ms: 0,
-                topic: "t".into(),
-                retain: true,
-                payload: "{}".into(),
-                replayed: false,
-            };
-            duty.outbox.offer(r);
+            duty.outbox.offer(rec(seq));
             assert!(duty.outbox.next(64).is_some());
             duty.outbox.handed_front();
             duty.outbox.on_outgoing(seq as u16);

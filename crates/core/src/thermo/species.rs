@@ -427,7 +427,8 @@ impl SpeciesDb {
         if let Some(key) = buf.get_mut(..name.len()) {
             key.copy_from_slice(name.as_bytes());
             key.make_ascii_lowercase();
-            // ASCII lowering keeps UTF-8 valid; the fallback is never taken in practice.
+            // ASCII lowering keeps UTF-8 valid, so this always succeeds; a name over
+            // 32 bytes takes the allocating path below.
             if let Ok(key) = std::str::from_utf8(key) {
                 return self.by_name.get(key).copied();
             }
